@@ -1,0 +1,131 @@
+"""Generate the reproducible benchmark data for bench/run.py.
+
+Writes to bench/data/ (git-ignored):
+
+* ``g1000.parquet``: ``--rows`` rows (default 20,000,000) spread at random over 1000 groups.
+  Columns ``grp INTEGER`` (0..999, rows in random order), ``x DOUBLE`` (lognormal, sigma 1,
+  times a group-specific scale) and ``w DOUBLE`` (weights, uniform on [0.5, 3]).
+* ``one.parquet``: ``--rows-one`` rows (default 100,000,000) in one group (``grp`` = 0), same
+  columns and distributions.
+
+Data are generated with numpy from a fixed seed, one chunk of 1,000,000 rows at a time (one
+Parquet row group per chunk), so memory stays small whatever the size. Each file records its
+row count and seed in the Parquet key-value metadata; :func:`ensure` regenerates a file only
+when those do not match the request.
+
+Usage: python bench/gen_data.py [--rows N] [--rows-one M] [--skip-one] [--force]
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+BENCH_DIR = Path(__file__).resolve().parent
+DATA_DIR = BENCH_DIR / "data"
+SEED = 20261201
+CHUNK = 1_000_000
+GROUPS = 1000
+FORMAT_VERSION = "1"
+
+SCHEMA = pa.schema([("grp", pa.int32()), ("x", pa.float64()), ("w", pa.float64())])
+
+_STREAM = {"g1000": 1, "one": 2}
+
+
+def _group_scales(seed: int) -> np.ndarray:
+    rng = np.random.default_rng([seed, 0])
+    return np.exp(rng.uniform(-1.5, 1.5, GROUPS)) * 1000.0
+
+
+def _chunk(kind: str, seed: int, index: int, n: int, scales: np.ndarray) -> pa.Table:
+    rng = np.random.default_rng([seed, _STREAM[kind], index])
+    if kind == "g1000":
+        grp = rng.integers(0, GROUPS, size=n, dtype=np.int32)
+        scale = scales[grp]
+    else:
+        grp = np.zeros(n, dtype=np.int32)
+        scale = scales[0]
+    x = scale * np.exp(rng.standard_normal(n))
+    w = rng.uniform(0.5, 3.0, size=n)
+    return pa.table({"grp": grp, "x": x, "w": w}, schema=SCHEMA)
+
+
+def _metadata(kind: str, rows: int, seed: int) -> dict[bytes, bytes]:
+    return {b"ineqsql_bench_kind": kind.encode(), b"ineqsql_bench_rows": str(rows).encode(),
+            b"ineqsql_bench_seed": str(seed).encode(),
+            b"ineqsql_bench_version": FORMAT_VERSION.encode()}
+
+
+def path_for(kind: str, data_dir: Path = DATA_DIR) -> Path:
+    return Path(data_dir) / f"{kind}.parquet"
+
+
+def is_current(path: Path, kind: str, rows: int, seed: int = SEED) -> bool:
+    """True if ``path`` exists and was written by :func:`write` with these parameters."""
+    try:
+        meta = pq.read_schema(path).metadata or {}
+    except (OSError, pa.ArrowInvalid):
+        return False
+    return all(meta.get(k) == v for k, v in _metadata(kind, rows, seed).items())
+
+
+def write(kind: str, rows: int, seed: int = SEED, data_dir: Path = DATA_DIR,
+          verbose: bool = True) -> Path:
+    """Write ``kind`` ('g1000' or 'one') with ``rows`` rows; returns the file's path."""
+    if kind not in _STREAM:
+        raise ValueError(f"unknown data kind {kind!r}")
+    path = path_for(kind, data_dir)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    tmp = path.with_name(path.name + ".partial")
+    scales = _group_scales(seed)
+    started = time.perf_counter()
+    schema = SCHEMA.with_metadata(_metadata(kind, rows, seed))
+    with pq.ParquetWriter(tmp, schema, compression="snappy") as writer:
+        for i, start in enumerate(range(0, rows, CHUNK)):
+            n = min(CHUNK, rows - start)
+            writer.write_table(_chunk(kind, seed, i, n, scales).replace_schema_metadata(
+                schema.metadata), row_group_size=CHUNK)
+    os.replace(tmp, path)
+    if verbose:
+        size = path.stat().st_size / 2**20
+        print(f"wrote {path} ({rows:,} rows, {size:,.0f} MiB) in "
+              f"{time.perf_counter() - started:.1f} s", file=sys.stderr)
+    return path
+
+
+def ensure(kind: str, rows: int, seed: int = SEED, data_dir: Path = DATA_DIR,
+           force: bool = False, verbose: bool = True) -> Path:
+    """Return the path of ``kind`` data with ``rows`` rows, generating it if needed."""
+    path = path_for(kind, data_dir)
+    if not force and is_current(path, kind, rows, seed):
+        if verbose:
+            print(f"using existing {path} ({rows:,} rows)", file=sys.stderr)
+        return path
+    return write(kind, rows, seed, data_dir, verbose)
+
+
+def main(argv: list[str] | None = None) -> int:
+    p = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    p.add_argument("--rows", type=int, default=20_000_000, help="rows of g1000.parquet")
+    p.add_argument("--rows-one", type=int, default=100_000_000, help="rows of one.parquet")
+    p.add_argument("--skip-one", action="store_true", help="do not write one.parquet")
+    p.add_argument("--seed", type=int, default=SEED)
+    p.add_argument("--data-dir", type=Path, default=DATA_DIR)
+    p.add_argument("--force", action="store_true", help="rewrite even if files are current")
+    a = p.parse_args(argv)
+    ensure("g1000", a.rows, a.seed, a.data_dir, a.force)
+    if not a.skip_one:
+        ensure("one", a.rows_one, a.seed, a.data_dir, a.force)
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

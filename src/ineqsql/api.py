@@ -1,0 +1,35 @@
+"""The Python entry points: ``compile``, ``query`` and the catalog listing."""
+
+from __future__ import annotations
+
+import duckdb
+import pandas as pd
+
+from ineqsql.catalog import MEASURES
+from ineqsql.compiler import compile_sql
+from ineqsql.engine.runner import connect, execute_df
+
+
+def compile(sql: str, dialect: str = "duckdb", *, read: str = "duckdb", pretty: bool = True) -> str:  # noqa: A001
+    """Compile SQL with measure calls into plain SQL for ``dialect`` (no measure calls left)."""
+    return compile_sql(sql, dialect=dialect, read=read, pretty=pretty)
+
+
+def query(sql: str, con: duckdb.DuckDBPyConnection | None = None, *, memory_limit: str | None = None,
+          threads: int | None = None, temp_directory: str | None = None,
+          progress: bool = False) -> pd.DataFrame:
+    """Compile ``sql`` and run it on DuckDB (``con``, or a new in-memory connection)."""
+    compiled = compile_sql(sql, dialect="duckdb", pretty=False)
+    connection = connect(con, memory_limit=memory_limit, threads=threads, temp_directory=temp_directory,
+                         progress=progress)
+    try:
+        return execute_df(connection, compiled)
+    finally:
+        if con is None:
+            connection.close()
+
+
+def measures() -> list[dict]:
+    """One row per catalog measure: name, signature, pass, formula, domain."""
+    return [{"name": m.name, "signature": m.signature, "pass": "/".join(m.passes) if isinstance(m.passes, tuple)
+             else m.passes, "formula": m.formula, "domain": m.domain} for m in MEASURES.values()]

@@ -1,0 +1,66 @@
+"""The shape of one catalog entry: everything the compiler and the tests need to know about a measure."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Callable, Literal
+
+from sqlglot import exp
+
+PassKind = Literal["ordered", "moment", "entity"]
+
+
+@dataclass(frozen=True)
+class Param:
+    """A numeric constant argument (p, k, alpha, eps ...), checked at compile time."""
+
+    name: str
+    kind: Literal["fraction", "number", "nonnegative", "count"]
+    doc: str = ""
+
+    def check(self, value: float) -> str | None:
+        """Return a problem description, or None when ``value`` is acceptable."""
+        if not math.isfinite(value):
+            return f"{self.name} must be a finite number, got {value!r}"
+        if self.kind == "fraction" and not 0.0 <= value <= 1.0:
+            return f"{self.name} must be a fraction between 0 and 1, got {value!r}"
+        if self.kind == "nonnegative" and value < 0:
+            return f"{self.name} must be at least 0, got {value!r}"
+        if self.kind == "count" and (value != int(value) or value < 1):
+            return f"{self.name} must be a whole number of at least 1, got {value!r}"
+        return None
+
+
+@dataclass(frozen=True)
+class Measure:
+    """One measure: its SQL name, arguments, pass, result expression and numpy reference.
+
+    ``build(ctx, params)`` returns the sqlglot expression of the result, written against the
+    context of its pass (see ``compiler/passes``): for ordered and entity passes an aggregate over
+    the pass's rows, for the moment pass an expression over sums the context registers.
+    """
+
+    name: str
+    passes: PassKind | tuple[PassKind, PassKind]  # (without, with) the trailing argument
+    params: tuple[Param, ...]
+    trailing: Literal["weight", "entity"] | None
+    formula: str
+    build: Callable[..., exp.Expression]
+    reference: Callable[..., object]
+    returns: Literal["double", "lorenz_points"] = "double"
+    domain: str = ""
+    max_count: int | None = None  # cap for a "count" parameter (e.g. lorenz_curve points)
+    options: tuple[str, ...] = field(default_factory=tuple)
+
+    def pass_for(self, has_trailing: bool) -> PassKind:
+        if isinstance(self.passes, tuple):
+            return self.passes[1] if has_trailing else self.passes[0]
+        return self.passes
+
+    @property
+    def signature(self) -> str:
+        args = ["x", *(p.name for p in self.params)]
+        if self.trailing:
+            args.append(f"[{'w' if self.trailing == 'weight' else 'entity'}]")
+        return f"{self.name}({', '.join(args)})"

@@ -1,0 +1,164 @@
+"""Find measure calls in a tree, check where they stand, and read their arguments."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+from sqlglot import exp
+
+from ineqsql import catalog
+from ineqsql.catalog.spec import Measure
+from ineqsql.compiler.context import CompileContext
+from ineqsql.errors import MeasureArgumentError, MeasureUsageError
+
+
+@dataclass
+class MeasureCall:
+    """One measure call with its arguments read: value, constant parameters, optional trailing column."""
+
+    node: exp.Anonymous
+    measure: Measure
+    x: exp.Expression
+    params: tuple[float, ...]
+    trailing: exp.Expression | None
+    options: dict[str, exp.Expression] = field(default_factory=dict)
+
+    @property
+    def key(self) -> tuple:
+        return call_key(self.node)
+
+    @property
+    def pass_kind(self) -> str:
+        return self.measure.pass_for(self.trailing is not None)
+
+
+def call_key(node: exp.Expression) -> tuple:
+    return (node.name.lower(), tuple(a.sql("duckdb") for a in node.expressions))
+
+
+def is_measure(node: exp.Expression) -> bool:
+    return isinstance(node, exp.Anonymous) and catalog.lookup(node.name) is not None
+
+
+def is_aggregate(node: exp.Expression) -> bool:
+    """An ordinary SQL aggregate call (not a window function, not a measure)."""
+    if not isinstance(node, exp.AggFunc):
+        return False
+    return not (isinstance(node.parent, exp.Window) and node.arg_key == "this")
+
+
+def find_calls(tree: exp.Expression) -> list[exp.Anonymous]:
+    return [n for n in tree.find_all(exp.Anonymous) if is_measure(n)]
+
+
+_FORBIDDEN_CLAUSES = {
+    "where": "WHERE (filter groups with HAVING, or compute the measure in a subquery)",
+    "group": "GROUP BY",
+    "joins": "a JOIN condition",
+    "from_": "FROM",
+    "limit": "LIMIT",
+    "offset": "OFFSET",
+}
+
+
+def check_position(node: exp.Anonymous, ctx: CompileContext) -> exp.Select:
+    """Return the SELECT the call belongs to, or raise if the call stands where it cannot work."""
+    name = node.name.lower()
+    parent = node.parent
+    if isinstance(parent, exp.Window) and node.arg_key == "this":
+        raise ctx.error(MeasureUsageError, f"{name}() cannot be used as a window function (… OVER (…)); "
+                        "it is an aggregate over each group", node, name)
+    child, anc = node, node.parent
+    while anc is not None and not isinstance(anc, exp.Select):
+        if isinstance(anc, exp.AggFunc) or is_measure(anc):
+            outer = anc.name.lower() if is_measure(anc) else anc.sql_name().lower()
+            raise ctx.error(MeasureUsageError, f"{name}() cannot be nested inside {outer}(); "
+                            "compute it in a subquery first", node, name)
+        child, anc = anc, anc.parent
+    if anc is None:
+        raise ctx.error(MeasureUsageError, f"{name}() must be used in a SELECT", node, name)
+    if child.arg_key in _FORBIDDEN_CLAUSES:
+        raise ctx.error(MeasureUsageError, f"{name}() cannot be used in {_FORBIDDEN_CLAUSES[child.arg_key]}",
+                        node, name)
+    return anc
+
+
+def _constant(node: exp.Expression) -> float | None:
+    """Value of a numeric constant expression (literals, unary minus, + − × ÷), else None."""
+    if isinstance(node, exp.Paren):
+        return _constant(node.this)
+    if isinstance(node, exp.Literal) and not node.is_string:
+        return float(node.this)
+    if isinstance(node, exp.Neg):
+        v = _constant(node.this)
+        return None if v is None else -v
+    if isinstance(node, exp.Cast):
+        return _constant(node.this)
+    ops = {exp.Add: lambda a, b: a + b, exp.Sub: lambda a, b: a - b, exp.Mul: lambda a, b: a * b,
+           exp.Div: lambda a, b: a / b if b else math.nan}
+    for cls, op in ops.items():
+        if type(node) is cls:
+            a, b = _constant(node.this), _constant(node.expression)
+            return None if a is None or b is None else op(a, b)
+    return None
+
+
+def _check_row_level(arg: exp.Expression, what: str, name: str, node, ctx: CompileContext) -> None:
+    for sub in arg.walk():
+        if is_measure(sub) or isinstance(sub, exp.AggFunc):
+            raise ctx.error(MeasureUsageError, f"{name}(): the {what} must be a row-level expression, "
+                            f"not an aggregate ({sub.sql('duckdb')})", node, name)
+        if isinstance(sub, (exp.Window, exp.Subquery, exp.Select)):
+            raise ctx.error(MeasureUsageError, f"{name}(): the {what} cannot contain a window function or "
+                            "a subquery; compute it in a subquery first", node, name)
+        if isinstance(sub, exp.Star):
+            raise ctx.error(MeasureArgumentError, f"{name}(): the {what} cannot be *", node, name)
+
+
+def read_call(node: exp.Anonymous, ctx: CompileContext) -> MeasureCall:
+    """Read and check a call's arguments against its catalog entry."""
+    measure = catalog.lookup(node.name)
+    name = measure.name
+    positional, options = [], {}
+    for arg in node.expressions:
+        if type(arg) in (exp.PropertyEQ, exp.Kwarg):
+            options[arg.this.name.lower()] = arg.expression
+        else:
+            if options:
+                raise ctx.error(MeasureArgumentError, f"{name}(): positional arguments must come before "
+                                "named ones", node, name)
+            positional.append(arg)
+    for opt in options:
+        if opt not in measure.options:
+            allowed = ", ".join(measure.options) or "none"
+            raise ctx.error(MeasureArgumentError, f"{name}(): unknown named argument '{opt}' "
+                            f"(allowed: {allowed})", node, name)
+    need = 1 + len(measure.params)
+    most = need + (1 if measure.trailing else 0)
+    if not need <= len(positional) <= most:
+        expected = str(need) if need == most else f"{need} or {most}"
+        raise ctx.error(MeasureArgumentError, f"{name}() takes {expected} arguments: {measure.signature}; "
+                        f"got {len(positional)}", node, name)
+    x = positional[0]
+    _check_row_level(x, "value", name, node, ctx)
+    params = []
+    for spec, arg in zip(measure.params, positional[1:need]):
+        value = _constant(arg)
+        if value is None:
+            raise ctx.error(MeasureArgumentError, f"{name}(): {spec.name} must be a numeric constant, "
+                            f"got {arg.sql('duckdb')}", node, name)
+        problem = spec.check(value)
+        if problem is None and spec.kind == "count" and measure.max_count and value > measure.max_count:
+            problem = f"{spec.name} must be at most {measure.max_count}, got {value:g}"
+        if problem:
+            raise ctx.error(MeasureArgumentError, f"{name}(): {problem}", node, name)
+        params.append(value)
+    trailing = positional[need] if len(positional) > need else None
+    if trailing is not None:
+        _check_row_level(trailing, measure.trailing, name, node, ctx)
+        if isinstance(trailing, exp.Literal) and measure.trailing == "weight" and not trailing.is_string:
+            pass  # a constant weight is allowed and acts like no weight
+        elif isinstance(trailing, exp.Null):
+            raise ctx.error(MeasureArgumentError, f"{name}(): the {measure.trailing} cannot be NULL", node, name)
+    return MeasureCall(node=node, measure=measure, x=x, params=tuple(params), trailing=trailing, options=options)

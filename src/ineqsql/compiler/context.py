@@ -1,0 +1,39 @@
+"""State shared by one compilation: the SQL text (for error positions) and deterministic names."""
+
+from __future__ import annotations
+
+from collections import defaultdict
+from dataclasses import dataclass, field
+
+from sqlglot import exp
+
+from ineqsql.errors import IneqsqlError
+
+
+def span(node: exp.Expression) -> tuple[int | None, int | None]:
+    """Character offsets of the first token of ``node`` that sqlglot positioned."""
+    for sub in node.walk():
+        meta = getattr(sub, "_meta", None) or {}
+        if "start" in meta:
+            return meta["start"], meta.get("end")
+        if isinstance(sub, exp.Expression) and isinstance(sub.this, exp.Identifier):
+            m = getattr(sub.this, "_meta", None) or {}
+            if "start" in m:
+                return m["start"], m.get("end")
+    return None, None
+
+
+@dataclass
+class CompileContext:
+    sql: str | None = None
+    counters: dict[str, int] = field(default_factory=lambda: defaultdict(int))
+
+    def name(self, kind: str) -> str:
+        """Next deterministic name of a kind: ``_iq_ord_1``, ``_iq_ord_2``, …"""
+        self.counters[kind] += 1
+        return f"_iq_{kind}_{self.counters[kind]}"
+
+    def error(self, cls: type[IneqsqlError], message: str, node: exp.Expression | None = None,
+              function: str | None = None) -> IneqsqlError:
+        start, end = span(node) if node is not None else (None, None)
+        return cls(message, sql=self.sql, start=start, end=end, function=function)

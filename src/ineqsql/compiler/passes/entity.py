@@ -1,0 +1,61 @@
+"""Entity pass: values summed per entity (or each row its own entity), ranked largest first.
+
+rows CTE:   keys, v (an entity's total)       (NULL values and NULL entities dropped)
+rank CTE:   … , r = row_number by v descending (only when a measure needs ranks)
+result CTE: keys, one aggregate per measure call
+"""
+
+from __future__ import annotations
+
+from sqlglot import exp
+
+from ineqsql.compiler import sqlx as s
+from ineqsql.compiler.passes.source import Source, cte
+
+
+class EntityContext:
+    def __init__(self):
+        self.used: set[str] = set()
+
+    @property
+    def v(self):
+        return s.col("_iq_v")
+
+    @property
+    def r(self):
+        self.used.add("r")
+        return s.col("_iq_r")
+
+
+def lower_entity_pass(source: Source, x: exp.Expression, entity: exp.Expression | None, calls: list,
+                      name: str) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:
+    ctx = EntityContext()
+    results, out_cols, seen = {}, [], {}
+    for call in calls:
+        if call.key not in seen:
+            seen[call.key] = f"_iq_r{len(seen) + 1}"
+            out_cols.append(s.alias(call.measure.build(ctx, call.params), seen[call.key]))
+        results[call.key] = s.col(seen[call.key], name)
+
+    cond = s.not_null(x.copy())
+    if entity is None:
+        rows = source.rows(source.key_projections() + [s.alias(s.cast_double(x.copy()), "_iq_v")], cond)
+    else:
+        cond = s.and_(cond, s.not_null(entity.copy()))
+        total = s.agg_sum(s.cast_double(x.copy()))
+        rows = source.rows(source.key_projections() + [s.alias(total, "_iq_v")], cond,
+                           group_by=[k.copy() for k in source.keys] + [entity.copy()])
+    keys = source.key_columns()
+    ctes = [cte(rows, f"{name}_rows")]
+    below = f"{name}_rows"
+    if "r" in ctx.used:
+        rank = s.window(exp.RowNumber(), [k.copy() for k in keys], [exp.Ordered(this=s.col("_iq_v"), desc=True)])
+        ranked = exp.Select(expressions=[k.copy() for k in keys] + [s.col("_iq_v"), s.alias(rank, "_iq_r")])
+        ctes.append(cte(ranked.from_(exp.Table(this=exp.to_identifier(below, quoted=True))), f"{name}_rank"))
+        below = f"{name}_rank"
+    final = exp.Select(expressions=[k.copy() for k in keys] + out_cols).from_(
+        exp.Table(this=exp.to_identifier(below, quoted=True)))
+    if keys:
+        final.set("group", exp.Group(expressions=[k.copy() for k in keys]))
+    ctes.append(cte(final, name))
+    return ctes, results

@@ -1,0 +1,88 @@
+"""Moment pass: weighted sums that ride on the scope's own GROUP BY, with its ordinary aggregates.
+
+One CTE per scope (``_iq_agg_N``): the group keys, every ordinary aggregate the scope uses
+(``count(*)``, ``avg(x)`` …) and every sum the moment measures register. Each sum counts only the
+rows valid for its (value, weight) pair: ``SUM(CASE WHEN x IS NOT NULL AND w > 0 THEN term END)``.
+Measure results are expressions over those sums, placed where the calls were.
+"""
+
+from __future__ import annotations
+
+from sqlglot import exp
+
+from ineqsql.compiler import sqlx as s
+from ineqsql.compiler.passes.source import Source, checked_weight, weight_label
+
+
+class MainAggregate:
+    """Collects the scope's aggregate columns and lowers them to the main CTE."""
+
+    def __init__(self, name: str):
+        self.name = name
+        self.columns: dict[str, tuple[str, exp.Expression]] = {}  # sql → (column name, expression)
+
+    def add(self, expr: exp.Expression, prefix: str = "_iq_t") -> exp.Column:
+        key = expr.sql("duckdb")
+        if key not in self.columns:
+            count = sum(1 for n, _ in self.columns.values() if n.startswith(prefix))
+            self.columns[key] = (f"{prefix}{count + 1}", expr)
+        return s.col(self.columns[key][0], self.name)
+
+    def lower(self, source: Source) -> exp.CTE:
+        proj = source.key_projections() + [s.alias(e, n) for n, e in self.columns.values()]
+        if not proj:
+            proj = [s.alias(s.agg_count_star(), "_iq_n")]
+        rows = source.rows(proj, group_by=[k.copy() for k in source.keys] or None)
+        return exp.CTE(this=rows, alias=exp.TableAlias(this=exp.to_identifier(self.name, quoted=True)))
+
+
+class MomentContext:
+    """Row-level x and w of one (value, weight) pair, and sums over its valid rows."""
+
+    def __init__(self, main: MainAggregate, x: exp.Expression, w: exp.Expression | None):
+        self.main = main
+        self._x, self._w = x, w
+        valid = s.not_null(x.copy())
+        if w is not None:
+            valid = s.and_(valid, s.gt(checked_weight(w, weight_label(w)), s.lit(0.0)))
+        self._valid = valid
+
+    @property
+    def x(self):
+        return s.cast_double(self._x.copy())
+
+    @property
+    def w(self):
+        return s.cast_double(self._w.copy()) if self._w is not None else s.lit(1.0)
+
+    def _when_valid(self, term):
+        return s.case(self._valid.copy(), term)
+
+    def sum(self, term: exp.Expression) -> exp.Expression:
+        return self.main.add(s.agg_sum(self._when_valid(term)))
+
+    def min(self, term: exp.Expression) -> exp.Expression:
+        return self.main.add(s.agg_min(self._when_valid(term)))
+
+    @property
+    def W(self):
+        return self.sum(self.w)
+
+    @property
+    def T(self):
+        return self.sum(s.mul(self.w, self.x))
+
+    @property
+    def n(self):
+        return self.main.add(exp.Count(this=self._when_valid(s.lit(1))))
+
+    @property
+    def min_x(self):
+        return self.min(self.x)
+
+
+def lower_moment_calls(main: MainAggregate, x: exp.Expression, w: exp.Expression | None,
+                       calls: list) -> dict[tuple, exp.Expression]:
+    """Register the sums of one (value, weight) pair; return each call's result expression."""
+    ctx = MomentContext(main, x, w)
+    return {call.key: call.measure.build(ctx, call.params) for call in calls}

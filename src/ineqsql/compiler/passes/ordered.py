@@ -1,0 +1,112 @@
+"""Ordered pass: per group, rows sorted by value with running weight C_i, then one GROUP BY.
+
+rows CTE:   keys, x, w                     (NULL x or weight, and zero weights, dropped)
+window CTE: … , C (running weight), W (group weight), μ (group mean)   (only the columns used)
+result CTE: keys, one aggregate per measure call
+"""
+
+from __future__ import annotations
+
+from sqlglot import exp
+
+from ineqsql.compiler import sqlx as s
+from ineqsql.compiler.passes.source import Source, checked_weight, cte, key_name, weight_label
+
+
+class OrderedContext:
+    """Columns of the window CTE that measure builders write against (see catalog/ordered.py)."""
+
+    def __init__(self, weighted: bool):
+        self.weighted = weighted
+        self.used: set[str] = set()
+
+    @property
+    def x(self):
+        return s.col("_iq_x")
+
+    @property
+    def w(self):
+        return s.col("_iq_w") if self.weighted else s.lit(1.0)
+
+    @property
+    def c(self):
+        self.used.add("c")
+        return s.col("_iq_c")
+
+    @property
+    def W_row(self):
+        self.used.add("wt")
+        return s.col("_iq_wt")
+
+    @property
+    def mu_row(self):
+        self.used.add("mu")
+        return s.col("_iq_mu")
+
+    @property
+    def W(self):
+        return s.agg_sum(s.col("_iq_w")) if self.weighted else s.cast_double(s.agg_count_star())
+
+    @property
+    def T(self):
+        return s.agg_sum(s.mul(self.w, self.x))
+
+    @property
+    def n(self):
+        return s.agg_count_star()
+
+
+def _window_columns(ctx: OrderedContext, keys: list[exp.Expression]) -> list[exp.Expression]:
+    x, w = s.col("_iq_x"), ctx.w
+    part = lambda: [k.copy() for k in keys]  # noqa: E731
+    cols = []
+    if "c" in ctx.used:
+        running = (s.window(s.agg_sum(w.copy()), part(), [x.copy()], running=True) if ctx.weighted
+                   else s.window(exp.RowNumber(), part(), [x.copy()]))
+        cols.append(s.alias(running, "_iq_c"))
+    if "wt" in ctx.used:
+        total = (s.window(s.agg_sum(w.copy()), part()) if ctx.weighted
+                 else s.cast_double(s.window(s.agg_count_star(), part())))
+        cols.append(s.alias(total, "_iq_wt"))
+    if "mu" in ctx.used:
+        mean = (s.div(s.window(s.agg_sum(s.mul(w.copy(), x.copy())), part()), s.window(s.agg_sum(w.copy()), part()))
+                if ctx.weighted else s.window(exp.Avg(this=x.copy()), part()))
+        cols.append(s.alias(mean, "_iq_mu"))
+    return cols
+
+
+def lower_ordered_pass(source: Source, x: exp.Expression, w: exp.Expression | None, calls: list,
+                       name: str) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:
+    """CTEs of one ordered pass and, for each call key, the column that holds its result."""
+    ctx = OrderedContext(weighted=w is not None)
+    results, out_cols, seen = {}, [], {}
+    for call in calls:
+        if call.key in seen:
+            continue
+        col_name = f"_iq_r{len(seen) + 1}"
+        seen[call.key] = col_name
+        out_cols.append(s.alias(call.measure.build(ctx, call.params), col_name))
+        results[call.key] = s.col(col_name, name)
+
+    xd = s.cast_double(x.copy())
+    proj = source.key_projections() + [s.alias(xd, "_iq_x")]
+    cond = s.not_null(x.copy())
+    if w is not None:
+        cw = checked_weight(w, weight_label(w))
+        proj.append(s.alias(cw, "_iq_w"))
+        cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
+    rows = source.rows(proj, cond)
+
+    keys = source.key_columns()
+    base_cols = keys + [s.col("_iq_x")] + ([s.col("_iq_w")] if w is not None else [])
+    win = exp.Select(expressions=[k.copy() for k in base_cols] + _window_columns(ctx, keys)).from_(
+        exp.Table(this=exp.to_identifier(f"{name}_rows", quoted=True)))
+    final = exp.Select(expressions=[k.copy() for k in keys] + out_cols).from_(
+        exp.Table(this=exp.to_identifier(f"{name}_win", quoted=True)))
+    if keys:
+        final.set("group", exp.Group(expressions=[k.copy() for k in keys]))
+    ctes = [cte(rows, f"{name}_rows"), cte(win, f"{name}_win"), cte(final, name)]
+    return ctes, results
+
+
+__all__ = ["lower_ordered_pass", "OrderedContext", "key_name"]

@@ -1,0 +1,59 @@
+"""The rows a scope aggregates: its FROM, joins and WHERE, plus its resolved group keys."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from sqlglot import exp
+
+from ineqsql.compiler import sqlx as s
+
+
+def key_name(i: int) -> str:
+    return f"_iq_k{i + 1}"
+
+
+@dataclass
+class Source:
+    select: exp.Select  # the scope's original SELECT (read only)
+    keys: list[exp.Expression]  # resolved GROUP BY expressions, in order
+
+    def key_projections(self) -> list[exp.Expression]:
+        return [s.alias(k.copy(), key_name(i)) for i, k in enumerate(self.keys)]
+
+    def key_columns(self, table: str | None = None) -> list[exp.Column]:
+        return [s.col(key_name(i), table) for i in range(len(self.keys))]
+
+    def rows(self, projections: list[exp.Expression], condition: exp.Expression | None = None,
+             group_by: list[exp.Expression] | None = None) -> exp.Select:
+        """SELECT projections FROM <scope's FROM and joins> WHERE <scope's WHERE AND condition>."""
+        out = exp.Select(expressions=projections)
+        for arg in ("from_", "joins", "laterals"):
+            value = self.select.args.get(arg)
+            if value:
+                out.set(arg, [v.copy() for v in value] if isinstance(value, list) else value.copy())
+        where = self.select.args.get("where")
+        cond = s.and_(where.this.copy() if where else None, condition)
+        if cond is not None:
+            out.set("where", exp.Where(this=cond))
+        if group_by:
+            out.set("group", exp.Group(expressions=group_by))
+        return out
+
+
+def checked_weight(w: exp.Expression, label: str) -> exp.Expression:
+    """The weight as DOUBLE, aborting the query on a negative one (DuckDB ``error``)."""
+    wd = s.cast_double(w.copy())
+    return s.case(s.lt(wd, s.lit(0.0)), s.raise_error(f"ineqsql: negative weight in {label}"), wd.copy())
+
+
+def weight_label(w: exp.Expression) -> str:
+    return w.sql("duckdb")
+
+
+def cte(select: exp.Select, name: str) -> exp.CTE:
+    return exp.CTE(this=select, alias=exp.TableAlias(this=exp.to_identifier(name, quoted=True)))
+
+
+def table(name: str) -> exp.Table:
+    return exp.Table(this=exp.to_identifier(name, quoted=True))

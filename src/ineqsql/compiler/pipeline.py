@@ -1,0 +1,59 @@
+"""The compile pipeline: parse → find calls → rewrite every scope (innermost first) → generate."""
+
+from __future__ import annotations
+
+from sqlglot import exp
+
+from ineqsql.compiler.calls import check_position, find_calls, read_call
+from ineqsql.compiler.context import CompileContext
+from ineqsql.compiler.generate import check_dialect, generate
+from ineqsql.compiler.parse import parse_one_statement
+from ineqsql.compiler.scope import rewrite_scope
+from ineqsql.errors import MeasureUsageError
+
+
+def _depth(node: exp.Expression) -> int:
+    d = 0
+    while node.parent is not None:
+        node, d = node.parent, d + 1
+    return d
+
+
+def _check_not_correlated(select: exp.Select, calls, ctx: CompileContext) -> None:
+    """A scope inside an expression (scalar or IN subquery) must not use columns of outer scopes."""
+    if not isinstance(select.parent, exp.Subquery) or select.parent.arg_key in ("from_", "this", "joins"):
+        if not isinstance(select.parent, exp.Subquery) or isinstance(select.parent.parent, (exp.From, exp.Join)):
+            return
+    visible = {t.alias_or_name for t in select.find_all(exp.Table)}
+    for col in select.find_all(exp.Column):
+        if col.table and col.table not in visible:
+            raise ctx.error(MeasureUsageError, f"{calls[0].measure.name}() is in a correlated subquery "
+                            f"(it uses {col.sql('duckdb')} of an outer query); join instead", calls[0].node,
+                            calls[0].measure.name)
+
+
+def compile_tree(tree: exp.Expression, ctx: CompileContext) -> exp.Expression:
+    """Rewrite every SELECT scope that calls measures; a tree without calls comes back unchanged."""
+    scopes: dict[int, tuple[exp.Select, list]] = {}
+    for node in find_calls(tree):
+        select = check_position(node, ctx)
+        scopes.setdefault(id(select), (select, []))[1].append(read_call(node, ctx))
+    for select, calls in sorted(scopes.values(), key=lambda sc: -_depth(sc[0])):
+        _check_not_correlated(select, calls, ctx)
+    for select, calls in sorted(scopes.values(), key=lambda sc: -_depth(sc[0])):
+        new = rewrite_scope(select, calls, ctx)
+        if select is tree:
+            tree = new
+        elif isinstance(select.parent, exp.SetOperation):
+            select.replace(exp.Subquery(this=new))
+        else:
+            select.replace(new)
+    return tree
+
+
+def compile_sql(sql: str, dialect: str = "duckdb", read: str = "duckdb", pretty: bool = True) -> str:
+    """Compile SQL text with measure calls into plain SQL for ``dialect``."""
+    check_dialect(dialect)
+    ctx = CompileContext(sql=sql)
+    tree = compile_tree(parse_one_statement(sql, read), ctx)
+    return generate(tree, dialect, pretty=pretty)

@@ -1,0 +1,33 @@
+"""Plan the passes of one scope: measure calls grouped by pass kind and shared input."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+from sqlglot import exp
+
+from ineqsql.compiler.calls import MeasureCall
+
+
+@dataclass
+class PassPlan:
+    kind: str  # "ordered" | "moment" | "entity"
+    x: exp.Expression
+    trailing: exp.Expression | None  # the weight (ordered, moment) or the entity (entity)
+    calls: list[MeasureCall] = field(default_factory=list)
+
+
+def plan_passes(calls: list[MeasureCall]) -> list[PassPlan]:
+    """One pass per (kind, value, weight-or-entity), in order of first appearance.
+
+    All measures on the same value and weight share one ordered pass, however many there are.
+    """
+    plans: dict[tuple, PassPlan] = {}
+    for call in calls:
+        kind = call.pass_kind
+        trailing = call.trailing
+        key = (kind, call.x.sql("duckdb"), trailing.sql("duckdb") if trailing is not None else None)
+        if key not in plans:
+            plans[key] = PassPlan(kind, call.x, trailing)
+        plans[key].calls.append(call)
+    return list(plans.values())

@@ -1,0 +1,151 @@
+"""Rewrite one SELECT scope that calls measures into CTEs plus a final SELECT.
+
+    WITH <user CTEs>,
+         _iq_agg_N  AS (keys, ordinary aggregates, moment sums  GROUP BY keys),
+         _iq_ord_M… AS (ordered pass),  _iq_ent_K… AS (entity pass)
+    SELECT <select list, calls replaced by result columns>
+    FROM _iq_agg_N LEFT JOIN _iq_ord_M ON keys IS NOT DISTINCT FROM keys …
+    WHERE <HAVING>  ORDER BY …  LIMIT …
+"""
+
+from __future__ import annotations
+
+from sqlglot import exp
+
+from ineqsql.compiler import sqlx as s
+from ineqsql.compiler.calls import MeasureCall, call_key, is_aggregate, is_measure
+from ineqsql.compiler.context import CompileContext
+from ineqsql.compiler.keys import resolve_group_keys, same_key
+from ineqsql.compiler.passes.entity import lower_entity_pass
+from ineqsql.compiler.passes.moment import MainAggregate, lower_moment_calls
+from ineqsql.compiler.passes.ordered import lower_ordered_pass
+from ineqsql.compiler.passes.source import Source, key_name, table
+from ineqsql.compiler.plan import plan_passes
+from ineqsql.errors import UnsupportedSqlError
+
+
+def rewrite_scope(select: exp.Select, calls: list[MeasureCall], ctx: CompileContext) -> exp.Select:
+    check_scope(select, ctx)
+    keys = resolve_group_keys(select, ctx)
+    source = Source(select, keys)
+    main = MainAggregate(ctx.name("agg"))
+    results: dict[tuple, exp.Expression] = {}
+    pass_ctes, pass_names = [], []
+    for plan in plan_passes(calls):
+        if plan.kind == "moment":
+            results.update(lower_moment_calls(main, plan.x, plan.trailing, plan.calls))
+            continue
+        name = ctx.name("ord" if plan.kind == "ordered" else "ent")
+        lower = lower_ordered_pass if plan.kind == "ordered" else lower_entity_pass
+        ctes, res = lower(source, plan.x, plan.trailing, plan.calls, name)
+        pass_ctes += ctes
+        pass_names.append(name)
+        results.update(res)
+
+    replace = _replacer(results, main, keys)
+    outputs = _output_aliases(select)
+    final = exp.Select(expressions=[s.alias(replace(p.unalias()), outputs[i])
+                                    for i, p in enumerate(select.expressions)])
+    final.from_(table(main.name), copy=False)
+    for name in pass_names:
+        final.append("joins", _join(main.name, name, len(keys)))
+    having = select.args.get("having")
+    if having is not None:
+        final.set("where", exp.Where(this=replace(_expand_aliases(having.this, select, keys))))
+    order = select.args.get("order")
+    if order is not None:
+        items = [o if _is_output_ref(o.this, outputs) else _expand_aliases(o, select, keys) for o in order.expressions]
+        final.set("order", exp.Order(expressions=[replace(o) for o in items]))
+    for arg in ("qualify",):
+        if select.args.get(arg) is not None:
+            final.set(arg, replace(_expand_aliases(select.args[arg], select, keys)))
+    for arg in ("limit", "offset", "distinct"):
+        if select.args.get(arg) is not None:
+            final.set(arg, select.args[arg].copy())
+    check_leftover_columns(final, {main.name, *pass_names}, set(outputs), ctx)
+
+    with_ = select.args.get("with_") or select.args.get("with")
+    ctes = [c.copy() for c in with_.expressions] if with_ else []
+    ctes += [main.lower(source)] + pass_ctes
+    final.set("with_", exp.With(expressions=ctes, recursive=with_.args.get("recursive") if with_ else None))
+    return final
+
+
+def check_scope(select: exp.Select, ctx: CompileContext) -> None:
+    for p in select.expressions:
+        if isinstance(p, exp.Star) or (isinstance(p, exp.Column) and isinstance(p.this, exp.Star)):
+            raise ctx.error(UnsupportedSqlError, "SELECT * cannot be combined with measure calls; "
+                            "list the group keys", p)
+    if select.args.get("windows"):
+        raise ctx.error(UnsupportedSqlError, "a WINDOW clause cannot be combined with measure calls", select)
+
+
+def _replacer(results, main: MainAggregate, keys):
+    def fn(node: exp.Expression) -> exp.Expression:
+        if is_measure(node):
+            return results[call_key(node)].copy()
+        if isinstance(node, exp.Filter) and is_aggregate(node.this):
+            return main.add(node.copy(), "_iq_a")
+        if is_aggregate(node):
+            return main.add(node.copy(), "_iq_a")
+        if isinstance(node, (exp.Select, exp.Subquery)):
+            return node  # another scope: left as it is
+        for i, key in enumerate(keys):
+            if same_key(node, key):
+                return s.col(key_name(i), main.name)
+        return node
+
+    return lambda e: e.transform(fn)
+
+
+def _join(left: str, right: str, nkeys: int) -> exp.Join:
+    if nkeys == 0:
+        return exp.Join(this=table(right), kind="CROSS")
+    cond = s.and_(*[exp.NullSafeEQ(this=s.col(key_name(i), left), expression=s.col(key_name(i), right))
+                    for i in range(nkeys)])
+    return exp.Join(this=table(right), side="LEFT", on=cond)
+
+
+def _output_aliases(select: exp.Select) -> list[str]:
+    names = []
+    for p in select.expressions:
+        if isinstance(p, exp.Alias):
+            names.append(p.alias)
+        elif isinstance(p, exp.Column):
+            names.append(p.name)
+        else:
+            names.append(p.sql("duckdb", normalize_functions="lower"))
+    return names
+
+
+def _is_output_ref(node: exp.Expression, outputs: list[str]) -> bool:
+    if isinstance(node, exp.Literal) and not node.is_string:
+        return True  # ORDER BY position
+    return isinstance(node, exp.Column) and not node.table and node.name in outputs
+
+
+def _expand_aliases(expr: exp.Expression, select: exp.Select, keys) -> exp.Expression:
+    """Replace references to select aliases (not also group keys) by the aliased expressions."""
+    aliases = {p.alias: p.unalias() for p in select.expressions if isinstance(p, exp.Alias)}
+
+    def fn(node):
+        if isinstance(node, exp.Column) and not node.table and node.name in aliases \
+                and not any(same_key(node, k) for k in keys):
+            return aliases[node.name].copy()
+        return node
+
+    return expr.transform(fn)
+
+
+def check_leftover_columns(final: exp.Select, tables: set[str], outputs: set[str], ctx: CompileContext) -> None:
+    """Every column left must come from a pass; others were neither grouped nor aggregated."""
+    for arg in ("expressions", "where", "order", "qualify"):
+        value = final.args.get(arg)
+        for part in (value if isinstance(value, list) else [value] if value is not None else []):
+            for node in part.walk(prune=lambda n: isinstance(n, (exp.Select, exp.Subquery))):
+                if not isinstance(node, exp.Column) or node.table in tables:
+                    continue
+                if arg == "order" and not node.table and node.name in outputs:
+                    continue
+                raise ctx.error(UnsupportedSqlError, f"column {node.sql('duckdb')} must appear in GROUP BY or "
+                                "be used inside an aggregate or measure", node)

@@ -1,0 +1,197 @@
+"""Tiny builders for the sqlglot expressions the lowering emits.
+
+Everything the compiler writes goes through here, so no SQL text is ever assembled by hand:
+identifiers are quoted by the generator and literals are typed nodes.
+"""
+
+from __future__ import annotations
+
+from sqlglot import exp
+
+DOUBLE = exp.DataType.build("double")
+
+
+def lit(value: float | int | str) -> exp.Expression:
+    if isinstance(value, str):
+        return exp.Literal.string(value)
+    if value < 0:
+        return exp.Neg(this=lit(-value))
+    if isinstance(value, float):
+        text = repr(value)
+        digits = text.split("e")[0].replace(".", "").lstrip("0")
+        if len(digits) > 15 and "e" not in text:
+            # an exponent makes engines read a DOUBLE (not a DECIMAL whose conversion may round)
+            text = f"{value:.17e}"
+        return exp.Literal.number(text)
+    return exp.Literal.number(str(value))
+
+
+def col(name: str, table: str | None = None) -> exp.Column:
+    return exp.column(name, table=table, quoted=True)
+
+
+def is_one(e: exp.Expression) -> bool:
+    return isinstance(e, exp.Literal) and not e.is_string and float(e.this) == 1.0
+
+
+def paren(e: exp.Expression) -> exp.Expression:
+    if isinstance(e, (exp.Column, exp.Literal, exp.Func, exp.Paren, exp.Case)):
+        return e
+    return exp.Paren(this=e)
+
+
+def add(a, b):
+    return exp.Add(this=paren(a), expression=paren(b))
+
+
+def sub(a, b):
+    return exp.Sub(this=paren(a), expression=paren(b))
+
+
+def mul(a, b):
+    """Product that leaves out a literal factor of one (unweighted passes use w = 1)."""
+    if is_one(a):
+        return b
+    if is_one(b):
+        return a
+    return exp.Mul(this=paren(a), expression=paren(b))
+
+
+def div(a, b):
+    return exp.Div(this=paren(a), expression=paren(b))
+
+
+def neg(a):
+    return exp.Neg(this=paren(a))
+
+
+def func(name: str, *args: exp.Expression) -> exp.Expression:
+    return exp.func(name, *args)
+
+
+def agg_sum(e):
+    return exp.Sum(this=e)
+
+
+def agg_min(e):
+    return exp.Min(this=e)
+
+
+def agg_max(e):
+    return exp.Max(this=e)
+
+
+def agg_count_star():
+    return exp.Count(this=exp.Star())
+
+
+def ln(e):
+    return exp.Ln(this=e)
+
+
+def power(a, b):
+    return exp.Pow(this=a, expression=b)
+
+
+def sqrt(e):
+    return exp.Sqrt(this=e)
+
+
+def absval(e):
+    return exp.Abs(this=e)
+
+
+def greatest(*args):
+    return exp.Greatest(this=args[0], expressions=list(args[1:]), ignore_nulls=True)
+
+
+def least(*args):
+    return exp.Least(this=args[0], expressions=list(args[1:]), ignore_nulls=True)
+
+
+def clamp(e, lo, hi):
+    """max(lo, min(hi, e))."""
+    return greatest(lo, least(hi, e))
+
+
+def cast_double(e):
+    if isinstance(e, exp.Literal) and not e.is_string:
+        return lit(float(e.this))
+    return exp.cast(e, DOUBLE)
+
+
+def case(cond, then, otherwise=None) -> exp.Case:
+    c = exp.Case().when(cond, then)
+    if otherwise is not None:
+        c = c.else_(otherwise)
+    return c
+
+
+def and_(*conds):
+    conds = [c for c in conds if c is not None]
+    if not conds:
+        return None
+    out = conds[0]
+    for c in conds[1:]:
+        out = exp.And(this=out, expression=c)
+    return out
+
+
+def gt(a, b):
+    return exp.GT(this=a, expression=b)
+
+
+def gte(a, b):
+    return exp.GTE(this=a, expression=b)
+
+
+def lt(a, b):
+    return exp.LT(this=a, expression=b)
+
+
+def lte(a, b):
+    return exp.LTE(this=a, expression=b)
+
+
+def neq(a, b):
+    return exp.NEQ(this=a, expression=b)
+
+
+def not_null(e):
+    return exp.Not(this=exp.Is(this=e, expression=exp.Null()))
+
+
+def null():
+    return exp.Null()
+
+
+def alias(e, name: str) -> exp.Alias:
+    return exp.alias_(e, name, quoted=True)
+
+
+def raise_error(message: str) -> exp.Expression:
+    """An expression that aborts the query with ``message`` (DuckDB ``error``)."""
+    return exp.Anonymous(this="error", expressions=[lit(message)])
+
+
+def struct(**fields: exp.Expression) -> exp.Struct:
+    return exp.Struct(expressions=[
+        exp.PropertyEQ(this=exp.to_identifier(k), expression=v) for k, v in fields.items()
+    ])
+
+
+def array(*items: exp.Expression) -> exp.Array:
+    return exp.Array(expressions=list(items))
+
+
+def window(fn: exp.Expression, partition: list[exp.Expression], order: list[exp.Expression] | None = None,
+           running: bool = False) -> exp.Window:
+    """fn OVER (PARTITION BY ... [ORDER BY ... ROWS BETWEEN UNBOUNDED PRECEDING AND CURRENT ROW])."""
+    args = {"this": fn, "partition_by": partition or None, "over": "OVER"}
+    if order:
+        args["order"] = exp.Order(expressions=[o if isinstance(o, exp.Ordered) else exp.Ordered(this=o, nulls_first=False)
+                                               for o in order])
+    if running:
+        args["spec"] = exp.WindowSpec(kind="ROWS", start="UNBOUNDED", start_side="PRECEDING",
+                                      end="CURRENT ROW")
+    return exp.Window(**args)

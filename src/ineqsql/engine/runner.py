@@ -1,0 +1,60 @@
+"""The DuckDB runner: owns connection settings and turns engine errors into ``IneqsqlError``s."""
+
+from __future__ import annotations
+
+import re
+
+import duckdb
+import pandas as pd
+
+from ineqsql.errors import ExecutionError, InputDataError
+
+_SETTINGS = ("memory_limit", "threads", "temp_directory")
+
+
+def connect(con: duckdb.DuckDBPyConnection | None = None, *, memory_limit: str | None = None,
+            threads: int | None = None, temp_directory: str | None = None,
+            progress: bool = False) -> duckdb.DuckDBPyConnection:
+    """A connection (the one given, or a new in-memory one) with the requested settings applied."""
+    con = con if con is not None else duckdb.connect()
+    values = {"memory_limit": memory_limit, "threads": threads, "temp_directory": temp_directory}
+    for name in _SETTINGS:
+        value = values[name]
+        if value is None:
+            continue
+        try:
+            # settings take a constant; a prepared parameter is not accepted by SET
+            con.execute(f"SET {name} = {_setting_literal(name, value)}")
+        except duckdb.Error as e:
+            raise ExecutionError(f"cannot set {name} to {value!r}: {_first_line(e)}") from None
+    con.execute(f"SET enable_progress_bar = {'true' if progress else 'false'}")
+    return con
+
+
+def _setting_literal(name: str, value) -> str:
+    if name == "threads":
+        if not isinstance(value, int) or isinstance(value, bool) or value < 1:
+            raise ExecutionError(f"threads must be a whole number of at least 1, got {value!r}")
+        return str(value)
+    text = str(value)
+    return "'" + text.replace("'", "''") + "'"
+
+
+def _first_line(e: Exception) -> str:
+    return str(e).strip().splitlines()[0] if str(e).strip() else type(e).__name__
+
+
+def execute_df(con: duckdb.DuckDBPyConnection, sql: str) -> pd.DataFrame:
+    """Run compiled SQL and fetch the whole result as a DataFrame."""
+    try:
+        return con.execute(sql).fetchdf()
+    except duckdb.Error as e:
+        raise translate_error(e) from None
+
+
+def translate_error(e: Exception) -> Exception:
+    text = str(e)
+    m = re.search(r"ineqsql: (negative weight in .*?)(?:\n|$)", text)
+    if m:
+        return InputDataError(f"{m.group(1).rstrip()} (weights must be ≥ 0; rows with weight 0 are skipped)")
+    return ExecutionError(f"DuckDB could not run the query: {_first_line(e)}")

@@ -1,0 +1,37 @@
+import numpy as np
+import pandas as pd
+import pytest
+
+from engines import ENGINES, engine_or_skip
+
+
+@pytest.fixture(params=sorted(ENGINES), scope="module")
+def engine(request):
+    eng = engine_or_skip(request.param)
+    yield eng
+    eng.close()
+
+
+def make_groups(seed: int = 7, n_groups: int = 4, rows: int = 60) -> pd.DataFrame:
+    """Invented test data: groups with ties, zeros, NULL values and weights, plus a NULL group key."""
+    rng = np.random.default_rng(seed)
+    frames = []
+    for g in range(n_groups):
+        n = rows + 7 * g
+        x = np.round(rng.lognormal(3 + 0.2 * g, 0.8, n), 1)
+        x[rng.random(n) < 0.15] = np.round(rng.choice(x[:5]), 1)  # ties
+        x[:2] = [0.0, 0.0] if g == 1 else x[:2]  # zeros in one group
+        w = rng.integers(1, 5, n).astype(float)
+        w[rng.random(n) < 0.05] = 0.0  # zero weights change nothing
+        e = rng.integers(0, 6, n)
+        key = None if g == n_groups - 1 else f"g{g}"
+        frames.append(pd.DataFrame({"grp": key, "x": x, "w": w, "e": e}))
+    df = pd.concat(frames, ignore_index=True)
+    # NULL values and NULL weights: those rows are skipped
+    df.loc[3, "x"] = np.nan
+    df.loc[11, "w"] = np.nan
+    df["x"] = df["x"].astype("Float64")
+    df.loc[3, "x"] = pd.NA
+    df["w"] = df["w"].astype("Float64")
+    df.loc[11, "w"] = pd.NA
+    return df
