@@ -1,0 +1,91 @@
+"""An independent way to evaluate a query with measure calls: DuckDB itself does the grouping,
+joins, HAVING and ORDER BY, and each measure call becomes a Python function over the group's
+rows, collected as a list, that calls the numpy reference (``ineqsql.reference``).
+
+Compiled results are compared with this on the golden fixtures (and by the fuzzer), so the
+compiler's passes, joins and key handling are checked by a path that shares none of them.
+"""
+
+from __future__ import annotations
+
+import json
+
+import duckdb
+import sqlglot
+from sqlglot import exp
+
+from ineqsql import catalog
+from ineqsql import reference as R
+from ineqsql.compiler.calls import _constant
+
+_XW = "STRUCT(x DOUBLE, w DOUBLE)[]"
+_XE = "STRUCT(x DOUBLE, e VARCHAR)[]"
+_CURVE = "STRUCT(p DOUBLE, lorenz DOUBLE)[]"
+
+
+def _ref_w(name: str, params: str, rows) -> float | None:
+    if not rows:
+        return None
+    x = [r["x"] for r in rows]
+    w = [r["w"] for r in rows]
+    return R.REFERENCES[name](x, *json.loads(params), w)
+
+
+def _ref_e(name: str, params: str, rows) -> float | None:
+    if not rows:
+        return None
+    entity = [r["e"] for r in rows]
+    if all(e is None for e in entity):
+        entity = None  # no entity argument: every row is its own entity
+    return R.REFERENCES[name]([r["x"] for r in rows], *json.loads(params), entity)
+
+
+def _ref_curve(name: str, params: str, rows):
+    value = _ref_w(name, params, rows)
+    return None if value is None else [{"p": p, "lorenz": v} for p, v in value]
+
+
+def install_oracle(con: duckdb.DuckDBPyConnection) -> None:
+    con.create_function("_iq_ref_w", _ref_w, ["VARCHAR", "VARCHAR", _XW], "DOUBLE", null_handling="special")
+    con.create_function("_iq_ref_e", _ref_e, ["VARCHAR", "VARCHAR", _XE], "DOUBLE", null_handling="special")
+    con.create_function("_iq_ref_curve", _ref_curve, ["VARCHAR", "VARCHAR", _XW], _CURVE,
+                        null_handling="special")
+
+
+def _rows_list(x: exp.Expression, t: exp.Expression | None, field: str) -> exp.Expression:
+    cond = exp.Not(this=exp.Is(this=x.copy(), expression=exp.Null()))
+    if t is not None:
+        cond = exp.and_(cond, exp.Not(this=exp.Is(this=t.copy(), expression=exp.Null())))
+    tval = t.copy() if t is not None else (exp.Null() if field == "e" else exp.Literal.number(1))
+    tval = exp.cast(tval, "varchar" if field == "e" else "double")
+    struct = exp.Struct(expressions=[
+        exp.PropertyEQ(this=exp.to_identifier("x"), expression=exp.cast(x.copy(), "double")),
+        exp.PropertyEQ(this=exp.to_identifier(field), expression=tval)])
+    return exp.Filter(this=exp.Anonymous(this="list", expressions=[struct]), expression=exp.Where(this=cond))
+
+
+def oracle_sql(sql: str) -> str:
+    """The query with every measure call replaced by a reference-function call."""
+    tree = sqlglot.parse_one(sql, read="duckdb")
+
+    def fn(node):
+        if not (isinstance(node, exp.Anonymous) and catalog.lookup(node.name)):
+            return node
+        m = catalog.lookup(node.name)
+        args = node.expressions
+        nparams = len(m.params)
+        params = [_constant(a) for a in args[1:1 + nparams]]
+        trailing = args[1 + nparams] if len(args) > 1 + nparams else None
+        if m.trailing == "entity":
+            fname, field = "_iq_ref_e", "e"
+        else:
+            fname, field = ("_iq_ref_curve" if m.returns == "lorenz_points" else "_iq_ref_w"), "w"
+        if m.name == "cr":
+            params = [int(p) for p in params]
+        if m.name == "lorenz_curve":
+            params = [int(p) for p in params]
+        return exp.Anonymous(this=fname, expressions=[
+            exp.Literal.string(m.name), exp.Literal.string(json.dumps(params)),
+            _rows_list(args[0], trailing, field)])
+
+    return tree.transform(fn).sql("duckdb")

@@ -1,0 +1,92 @@
+"""Golden SQL fixtures (fixtures/golden/*.sql): the compiled SQL is compared to the checked-in text,
+and both the compiled query and the oracle (DuckDB grouping + numpy reference, tests/oracle.py)
+are executed on the fixture data and compared number by number.
+
+Refresh the expected text after an intended change: INEQSQL_UPDATE_GOLDEN=1 pytest tests/test_golden.py
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from pathlib import Path
+
+import duckdb
+import numpy as np
+import pytest
+
+import ineqsql
+from oracle import install_oracle, oracle_sql
+
+ROOT = Path(__file__).resolve().parents[1]
+GOLDEN = sorted((ROOT / "fixtures" / "golden").glob("*.sql"))
+MARK = "-- expected:\n"
+
+
+def read_fixture(path: Path) -> tuple[str, str]:
+    text = path.read_text()
+    head, _, expected = text.partition(MARK)
+    query = "\n".join(line for line in head.splitlines() if not line.startswith("--")).strip().rstrip(";")
+    return query, expected.strip()
+
+
+@pytest.fixture(scope="module")
+def con():
+    c = duckdb.connect()
+    os.chdir(ROOT)  # fixtures name Parquet files relative to the project root
+    c.execute("CREATE TABLE survey AS SELECT * FROM 'fixtures/data/survey.parquet'")
+    c.execute("CREATE TABLE sellers AS SELECT * FROM 'fixtures/data/sellers.parquet'")
+    install_oracle(c)
+    yield c
+    c.close()
+
+
+@pytest.mark.parametrize("path", GOLDEN, ids=[p.stem for p in GOLDEN])
+def test_golden_sql(path):
+    query, expected = read_fixture(path)
+    got = ineqsql.compile(query)
+    if os.environ.get("INEQSQL_UPDATE_GOLDEN") == "1":
+        head = path.read_text().partition(MARK)[0]
+        path.write_text(head + MARK + got + "\n")
+        return
+    assert got == expected, f"compiled SQL of {path.name} changed; see the diff (refresh if intended)"
+
+
+def _same(a, b) -> bool:
+    if isinstance(a, np.ndarray):
+        a = list(a)
+    if isinstance(b, np.ndarray):
+        b = list(b)
+    na = a is None or (isinstance(a, float) and math.isnan(a))
+    nb = b is None or (isinstance(b, float) and math.isnan(b))
+    if na or nb:
+        return na and nb
+    if isinstance(a, dict):
+        return a.keys() == b.keys() and all(_same(a[k], b[k]) for k in a)
+    if isinstance(a, list):
+        return len(a) == len(b) and all(_same(x, y) for x, y in zip(a, b))
+    if isinstance(a, (float, int, np.floating, np.integer)) and not isinstance(a, bool):
+        return abs(float(a) - float(b)) <= 1e-9 * max(abs(float(b)), 1e-300) + 1e-12
+    return a == b
+
+
+@pytest.mark.parametrize("path", GOLDEN, ids=[p.stem for p in GOLDEN])
+def test_golden_executes_like_oracle(path, con):
+    query, _ = read_fixture(path)
+    got = con.execute(ineqsql.compile(query)).fetchall()
+    want = con.execute(oracle_sql(query)).fetchall()
+    assert len(got) == len(want) and len(want) > 0
+    if "order by" not in query.lower():
+        got, want = sorted(got, key=repr), sorted(want, key=repr)
+    for g, w in zip(got, want):
+        assert len(g) == len(w)
+        for a, b in zip(g, w):
+            assert _same(a, b), f"{path.name}: compiled {g} vs oracle {w}"
+
+
+def test_compiled_sql_has_no_measure_calls():
+    from ineqsql.compiler.calls import find_calls
+    import sqlglot
+    for path in GOLDEN:
+        tree = sqlglot.parse_one(read_fixture(path)[1], read="duckdb")
+        assert not find_calls(tree), path.name
