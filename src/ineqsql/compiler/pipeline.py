@@ -5,7 +5,7 @@ from __future__ import annotations
 from sqlglot import exp
 
 from ineqsql.compiler.calls import check_position, find_calls, read_call
-from ineqsql.compiler.context import CompileContext
+from ineqsql.compiler.context import CompileContext, span
 from ineqsql.compiler.generate import check_dialect, generate
 from ineqsql.compiler.parse import parse_one_statement
 from ineqsql.compiler.scope import rewrite_scope
@@ -38,9 +38,11 @@ def compile_tree(tree: exp.Expression, ctx: CompileContext) -> exp.Expression:
     for node in find_calls(tree):
         select = check_position(node, ctx)
         scopes.setdefault(id(select), (select, []))[1].append(read_call(node, ctx))
-    for select, calls in sorted(scopes.values(), key=lambda sc: -_depth(sc[0])):
+    # innermost scopes first; among equals, in the order they are written
+    order = sorted(scopes.values(), key=lambda sc: (-_depth(sc[0]), span(sc[1][0].node)[0] or 0))
+    for select, calls in order:
         _check_not_correlated(select, calls, ctx)
-    for select, calls in sorted(scopes.values(), key=lambda sc: -_depth(sc[0])):
+    for select, calls in order:
         new = rewrite_scope(select, calls, ctx)
         if select is tree:
             tree = new

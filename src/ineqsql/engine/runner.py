@@ -56,5 +56,5 @@ def translate_error(e: Exception) -> Exception:
     text = str(e)
     m = re.search(r"ineqsql: (negative weight in .*?)(?:\n|$)", text)
     if m:
-        return InputDataError(f"{m.group(1).rstrip()} (weights must be ≥ 0; rows with weight 0 are skipped)")
+        return InputDataError(f"{m.group(1).rstrip()} (weights must be ≥ 0; rows with weight 0 change nothing and are skipped)")
     return ExecutionError(f"DuckDB could not run the query: {_first_line(e)}")

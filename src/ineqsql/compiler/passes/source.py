@@ -44,7 +44,7 @@ class Source:
 def checked_weight(w: exp.Expression, label: str) -> exp.Expression:
     """The weight as DOUBLE, aborting the query on a negative one (DuckDB ``error``)."""
     wd = s.cast_double(w.copy())
-    return s.case(s.lt(wd, s.lit(0.0)), s.raise_error(f"ineqsql: negative weight in {label}"), wd.copy())
+    return s.case(s.lt(wd, s.lit(0.0)), s.raise_error(f"ineqsql: negative weight in the weight argument {label}"), wd.copy())
 
 
 def weight_label(w: exp.Expression) -> str:

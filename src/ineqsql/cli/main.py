@@ -1,0 +1,141 @@
+"""The ``ineqsql`` command line: query, compile, measures, demo."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+import ineqsql
+from ineqsql.engine.output import FORMATS, format_text, write_result
+from ineqsql.errors import IneqsqlError
+
+EPILOG = """examples:
+  ineqsql query "SELECT region, gini(income, w), palma(income, w) FROM 'x/*.parquet' GROUP BY region"
+  ineqsql query --format csv --output out.csv "SELECT gini(income) FROM 'survey.parquet'"
+  ineqsql compile "SELECT region, theil(income) FROM t GROUP BY region"
+  ineqsql measures
+  ineqsql demo --rows 200000
+"""
+
+
+def _read_sql(text: str) -> str:
+    if text == "-":
+        return sys.stdin.read()
+    if text.startswith("@"):
+        path = Path(text[1:])
+        try:
+            return path.read_text()
+        except OSError as e:
+            raise IneqsqlError(f"cannot read the SQL file {path}: {e.strerror}") from None
+    return text
+
+
+def _add_engine_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--memory-limit", metavar="SIZE", help="DuckDB memory limit, e.g. 1GB (larger data spills to disk)")
+    p.add_argument("--threads", type=int, metavar="N", help="DuckDB worker threads")
+    p.add_argument("--temp-directory", metavar="DIR", help="where DuckDB spills when over the memory limit")
+    p.add_argument("--database", metavar="FILE", help="a DuckDB database file to query (default: in memory)")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="ineqsql", description="Inequality measures in SQL: write gini(x, w), palma(x), theil(x) … in a "
+        "SELECT; ineqsql compiles them to window-function SQL and runs it in DuckDB.",
+        epilog=EPILOG, formatter_class=argparse.RawDescriptionHelpFormatter)
+    parser.add_argument("--version", action="version", version=f"ineqsql {ineqsql.__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+
+    q = sub.add_parser("query", help="compile and run a query on DuckDB",
+                       description="Compile SQL with measure calls and run it on DuckDB. SQL is the text, "
+                       "'-' for standard input, or @FILE.")
+    q.add_argument("sql", metavar="SQL")
+    q.add_argument("--format", choices=FORMATS, default="table", help="output format (default: table)")
+    q.add_argument("--output", "-o", metavar="FILE", help="write to FILE (atomically) instead of the terminal")
+    q.add_argument("--force", action="store_true", help="replace FILE if it exists")
+    _add_engine_options(q)
+
+    c = sub.add_parser("compile", help="print the plain SQL a query compiles to",
+                       description="Print the plain SQL (no measure calls left) a query compiles to.")
+    c.add_argument("sql", metavar="SQL")
+    c.add_argument("--dialect", default="duckdb", help="target SQL dialect (default: duckdb)")
+    c.add_argument("--read", default="duckdb", help="dialect the input is written in (default: duckdb)")
+
+    sub.add_parser("measures", help="list the measures with their arguments and formulas",
+                   description="List every measure: arguments, formula, domain.")
+
+    d = sub.add_parser("demo", help="generate an invented household survey and print a report",
+                       description="Write a fictional country's household survey to Parquet and print "
+                       "a per-province report of inequality before and after taxes.")
+    d.add_argument("--rows", type=int, default=2_000_000, help="households to generate (default: 2,000,000)")
+    d.add_argument("--dir", default="ineqsql-demo", help="folder for the data (default: ./ineqsql-demo)")
+    d.add_argument("--seed", type=int, default=20261201, help="random seed (default: 20261201)")
+    _add_engine_options(d)
+    return parser
+
+
+def _connection(args):
+    if getattr(args, "database", None):
+        import duckdb
+        try:
+            return duckdb.connect(args.database)
+        except duckdb.Error as e:
+            raise IneqsqlError(f"cannot open the database {args.database}: {str(e).splitlines()[0]}") from None
+    return None
+
+
+def _settings(args) -> dict:
+    return {"memory_limit": args.memory_limit, "threads": args.threads, "temp_directory": args.temp_directory}
+
+
+def cmd_query(args) -> int:
+    df = ineqsql.query(_read_sql(args.sql), _connection(args), progress=sys.stderr.isatty(), **_settings(args))
+    if args.output:
+        write_result(df, args.output, args.format, overwrite=args.force)
+        print(f"wrote {len(df)} rows to {args.output}", file=sys.stderr)
+    else:
+        sys.stdout.write(format_text(df, args.format))
+    return 0
+
+
+def cmd_compile(args) -> int:
+    print(ineqsql.compile(_read_sql(args.sql), dialect=args.dialect, read=args.read))
+    return 0
+
+
+def cmd_measures(args) -> int:
+    rows = ineqsql.measures()
+    width = max(len(r["signature"]) for r in rows)
+    for r in rows:
+        print(f"{r['signature']:<{width}}  {r['formula']}  [{r['domain']}]")
+    print("\nx: the value; w: an optional weight (rows with NULL x or w are skipped, w = 0 changes nothing, "
+          "w < 0 is an error); p: a fraction in [0, 1].")
+    return 0
+
+
+def cmd_demo(args) -> int:
+    from ineqsql.demo.report import run_demo
+    return run_demo(rows=args.rows, folder=args.dir, seed=args.seed, con=_connection(args), **_settings(args))
+
+
+COMMANDS = {"query": cmd_query, "compile": cmd_compile, "measures": cmd_measures, "demo": cmd_demo}
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not args.command:
+        parser.print_help()
+        return 2
+    try:
+        return COMMANDS[args.command](args)
+    except IneqsqlError as e:
+        print(f"ineqsql: error: {e}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("ineqsql: interrupted", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,61 @@
+"""Writing results: atomically (temporary file, then rename), never over an existing file unless asked."""
+
+from __future__ import annotations
+
+import os
+import tempfile
+from pathlib import Path
+
+import pandas as pd
+
+from ineqsql.errors import IneqsqlError
+
+FORMATS = ("table", "csv", "json", "parquet")
+
+
+class OutputError(IneqsqlError):
+    """The result could not be written where asked."""
+
+
+def render_table(df: pd.DataFrame, max_rows: int = 200, float_format: str = "{:.6g}") -> str:
+    if df.empty:
+        return "(no rows)" if len(df.columns) else "(no columns)"
+    with pd.option_context("display.max_rows", max_rows, "display.max_columns", None, "display.width", 200,
+                           "display.float_format", float_format.format):
+        return df.to_string(index=False)
+
+
+def _serialize(df: pd.DataFrame, fmt: str, path: str | None):
+    if fmt == "csv":
+        return df.to_csv(path, index=False)
+    if fmt == "json":
+        return df.to_json(path, orient="records", force_ascii=False, indent=None, lines=False)
+    if fmt == "parquet":
+        return df.to_parquet(path, index=False)
+    return render_table(df) + "\n" if path is None else Path(path).write_text(render_table(df) + "\n")
+
+
+def format_text(df: pd.DataFrame, fmt: str) -> str:
+    if fmt == "parquet":
+        raise OutputError("parquet output needs --output FILE")
+    return _serialize(df, fmt, None)
+
+
+def write_result(df: pd.DataFrame, path: str | os.PathLike, fmt: str, overwrite: bool = False) -> Path:
+    """Write ``df`` to ``path`` atomically; refuse to replace an existing file unless ``overwrite``."""
+    target = Path(path)
+    if target.exists() and not overwrite:
+        raise OutputError(f"{target} already exists; pass --force to replace it")
+    if not target.parent.exists():
+        raise OutputError(f"the folder {target.parent} does not exist")
+    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent)
+    os.close(fd)
+    try:
+        _serialize(df, fmt, tmp)
+        os.replace(tmp, target)
+    except BaseException as e:
+        Path(tmp).unlink(missing_ok=True)
+        if isinstance(e, (OSError, ValueError)):
+            raise OutputError(f"could not write {target}: {e}") from None
+        raise
+    return target
