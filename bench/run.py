@@ -402,6 +402,14 @@ def print_table(rows: list[dict], title: str) -> None:
               f"{_fmt(ratio(t, t_pandas), '9.2f')} {_fmt(ratio(m, m_pandas), '11.2f')}")
 
 
+def _loadavg() -> float | None:
+    try:
+        with open("/proc/loadavg") as f:
+            return float(f.read().split()[0])
+    except (OSError, ValueError, IndexError):
+        return None
+
+
 def environment() -> dict:
     from importlib import metadata
     env = {"python": platform.python_version(), "platform": platform.platform(),
@@ -428,6 +436,11 @@ def parent_main(a) -> int:
         return 2
     TMP_DIR.mkdir(parents=True, exist_ok=True)
     g_path, one_path = _ensure_data(a)
+    load_before = _loadavg()
+    if load_before is not None and load_before >= 0.5:
+        print(f"warning: 1-minute load average is {load_before:.2f} before the cases start: "
+              "other processes compete for the cores and the timings will be noisy.",
+              file=sys.stderr)
 
     all_rows, checks, notes = [], [], []
     g_cases = [c for c in G1000_CASES if c in cases]
@@ -499,7 +512,8 @@ def parent_main(a) -> int:
                    "groups": GROUPS, "seed": gen_data.SEED if a.seed is None else a.seed, "threads": a.threads,
                    "memory_limit": a.memory_limit, "memory_limit_one": a.memory_limit_one,
                    "repeat": a.repeat, "cases": cases},
-        "environment": environment(),
+        "environment": {**environment(), "loadavg_1min_before": load_before,
+                        "loadavg_1min_after": _loadavg()},
         "results": all_rows,
         "checks": checks,
         "notes": notes,

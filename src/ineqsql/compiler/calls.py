@@ -9,7 +9,7 @@ from sqlglot import exp
 
 from ineqsql import catalog
 from ineqsql.catalog.spec import Measure
-from ineqsql.compiler.context import CompileContext
+from ineqsql.compiler.context import CompileContext, text
 from ineqsql.errors import MeasureArgumentError, MeasureUsageError
 
 
@@ -108,7 +108,7 @@ def _check_row_level(arg: exp.Expression, what: str, name: str, node, ctx: Compi
     for sub in arg.walk():
         if is_measure(sub) or isinstance(sub, exp.AggFunc):
             raise ctx.error(MeasureUsageError, f"{name}(): the {what} must be a row-level expression, "
-                            f"not an aggregate ({sub.sql('duckdb')})", node, name)
+                            f"not an aggregate ({text(sub)})", node, name)
         if isinstance(sub, (exp.Window, exp.Subquery, exp.Select)):
             raise ctx.error(MeasureUsageError, f"{name}(): the {what} cannot contain a window function or "
                             "a subquery; compute it in a subquery first", node, name)
@@ -147,7 +147,7 @@ def read_call(node: exp.Anonymous, ctx: CompileContext) -> MeasureCall:
         value = _constant(arg)
         if value is None:
             raise ctx.error(MeasureArgumentError, f"{name}(): {spec.name} must be a numeric constant, "
-                            f"got {arg.sql('duckdb')}", node, name)
+                            f"got {text(arg)}", node, name)
         problem = spec.check(value)
         if problem is None and spec.kind == "count" and measure.max_count and value > measure.max_count:
             problem = f"{spec.name} must be at most {measure.max_count}, got {value:g}"

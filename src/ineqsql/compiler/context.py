@@ -23,6 +23,11 @@ def span(node: exp.Expression) -> tuple[int | None, int | None]:
     return None, None
 
 
+def text(node: exp.Expression) -> str:
+    """SQL of a node for messages, function names as written in lower case."""
+    return node.sql("duckdb", normalize_functions="lower")
+
+
 @dataclass
 class CompileContext:
     sql: str | None = None

@@ -5,7 +5,7 @@ from __future__ import annotations
 from sqlglot import exp
 
 from ineqsql.compiler.calls import check_position, find_calls, read_call
-from ineqsql.compiler.context import CompileContext, span
+from ineqsql.compiler.context import CompileContext, span, text
 from ineqsql.compiler.generate import check_dialect, generate
 from ineqsql.compiler.parse import parse_one_statement
 from ineqsql.compiler.scope import rewrite_scope
@@ -28,15 +28,16 @@ def _check_not_correlated(select: exp.Select, calls, ctx: CompileContext) -> Non
     for col in select.find_all(exp.Column):
         if col.table and col.table not in visible:
             raise ctx.error(MeasureUsageError, f"{calls[0].measure.name}() is in a correlated subquery "
-                            f"(it uses {col.sql('duckdb')} of an outer query); join instead", calls[0].node,
+                            f"(it uses {text(col)} of an outer query); join instead", calls[0].node,
                             calls[0].measure.name)
 
 
 def compile_tree(tree: exp.Expression, ctx: CompileContext) -> exp.Expression:
     """Rewrite every SELECT scope that calls measures; a tree without calls comes back unchanged."""
     scopes: dict[int, tuple[exp.Select, list]] = {}
-    for node in find_calls(tree):
-        select = check_position(node, ctx)
+    nodes = find_calls(tree)
+    selects = [check_position(node, ctx) for node in nodes]  # where calls stand, before their arguments
+    for node, select in zip(nodes, selects):
         scopes.setdefault(id(select), (select, []))[1].append(read_call(node, ctx))
     # innermost scopes first; among equals, in the order they are written
     order = sorted(scopes.values(), key=lambda sc: (-_depth(sc[0]), span(sc[1][0].node)[0] or 0))

@@ -14,7 +14,7 @@ from sqlglot import exp
 
 from ineqsql.compiler import sqlx as s
 from ineqsql.compiler.calls import MeasureCall, call_key, is_aggregate, is_measure
-from ineqsql.compiler.context import CompileContext
+from ineqsql.compiler.context import CompileContext, text
 from ineqsql.compiler.keys import resolve_group_keys, same_key
 from ineqsql.compiler.passes.entity import lower_entity_pass
 from ineqsql.compiler.passes.moment import MainAggregate, lower_moment_calls
@@ -147,5 +147,5 @@ def check_leftover_columns(final: exp.Select, tables: set[str], outputs: set[str
                     continue
                 if arg == "order" and not node.table and node.name in outputs:
                     continue
-                raise ctx.error(UnsupportedSqlError, f"column {node.sql('duckdb')} must appear in GROUP BY or "
+                raise ctx.error(UnsupportedSqlError, f"column {text(node)} must appear in GROUP BY or "
                                 "be used inside an aggregate or measure", node)
