@@ -2,10 +2,13 @@
 
 from __future__ import annotations
 
+import json
+import math
 import os
 import tempfile
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
 from ineqsql.errors import IneqsqlError
@@ -29,10 +32,33 @@ def _serialize(df: pd.DataFrame, fmt: str, path: str | None):
     if fmt == "csv":
         return df.to_csv(path, index=False)
     if fmt == "json":
-        return df.to_json(path, orient="records", force_ascii=False, indent=None, lines=False)
+        text = to_json(df)
+        return text + "\n" if path is None else Path(path).write_text(text + "\n")
     if fmt == "parquet":
         return df.to_parquet(path, index=False)
     return render_table(df) + "\n" if path is None else Path(path).write_text(render_table(df) + "\n")
+
+
+def _plain(value):
+    """JSON-ready Python value: floats keep every digit, NaN/NA become null, arrays become lists."""
+    if isinstance(value, dict):
+        return {k: _plain(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple, np.ndarray)):
+        return [_plain(v) for v in value]
+    if value is None or value is pd.NA or (isinstance(value, float) and math.isnan(value)):
+        return None
+    if isinstance(value, np.generic):
+        return _plain(value.item())
+    if isinstance(value, (pd.Timestamp,)):
+        return value.isoformat()
+    if isinstance(value, float) and math.isinf(value):
+        return None
+    return value
+
+
+def to_json(df: pd.DataFrame) -> str:
+    records = [{c: _plain(v) for c, v in zip(df.columns, row)} for row in df.itertuples(index=False, name=None)]
+    return json.dumps(records, ensure_ascii=False, default=str)
 
 
 def format_text(df: pd.DataFrame, fmt: str) -> str:
