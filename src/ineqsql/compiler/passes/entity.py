@@ -10,7 +10,7 @@ from __future__ import annotations
 from sqlglot import exp
 
 from ineqsql.compiler import sqlx as s
-from ineqsql.compiler.passes.source import Source, cte
+from ineqsql.compiler.passes.source import Source, build_results, cte, grouped, table
 
 
 class EntityContext:
@@ -30,12 +30,7 @@ class EntityContext:
 def lower_entity_pass(source: Source, x: exp.Expression, entity: exp.Expression | None, calls: list,
                       name: str) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:
     ctx = EntityContext()
-    results, out_cols, seen = {}, [], {}
-    for call in calls:
-        if call.key not in seen:
-            seen[call.key] = f"_iq_r{len(seen) + 1}"
-            out_cols.append(s.alias(call.measure.build(ctx, call.params), seen[call.key]))
-        results[call.key] = s.col(seen[call.key], name)
+    out_cols, results = build_results(calls, ctx, name)
 
     cond = s.not_null(x.copy())
     if entity is None:
@@ -51,11 +46,8 @@ def lower_entity_pass(source: Source, x: exp.Expression, entity: exp.Expression 
     if "r" in ctx.used:
         rank = s.window(exp.RowNumber(), [k.copy() for k in keys], [exp.Ordered(this=s.col("_iq_v"), desc=True)])
         ranked = exp.Select(expressions=[k.copy() for k in keys] + [s.col("_iq_v"), s.alias(rank, "_iq_r")])
-        ctes.append(cte(ranked.from_(exp.Table(this=exp.to_identifier(below, quoted=True))), f"{name}_rank"))
+        ctes.append(cte(ranked.from_(table(below)), f"{name}_rank"))
         below = f"{name}_rank"
-    final = exp.Select(expressions=[k.copy() for k in keys] + out_cols).from_(
-        exp.Table(this=exp.to_identifier(below, quoted=True)))
-    if keys:
-        final.set("group", exp.Group(expressions=[k.copy() for k in keys]))
+    final = grouped(keys, out_cols, below)
     ctes.append(cte(final, name))
     return ctes, results

@@ -10,7 +10,8 @@ from __future__ import annotations
 from sqlglot import exp
 
 from ineqsql.compiler import sqlx as s
-from ineqsql.compiler.passes.source import Source, checked_weight, cte, key_name, weight_label
+from ineqsql.compiler.passes.source import (Source, build_results, checked_weight, cte, grouped, key_name,
+                                             table, weight_label)
 
 
 class OrderedContext:
@@ -79,14 +80,7 @@ def lower_ordered_pass(source: Source, x: exp.Expression, w: exp.Expression | No
                        name: str) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:
     """CTEs of one ordered pass and, for each call key, the column that holds its result."""
     ctx = OrderedContext(weighted=w is not None)
-    results, out_cols, seen = {}, [], {}
-    for call in calls:
-        if call.key in seen:
-            continue
-        col_name = f"_iq_r{len(seen) + 1}"
-        seen[call.key] = col_name
-        out_cols.append(s.alias(call.measure.build(ctx, call.params), col_name))
-        results[call.key] = s.col(col_name, name)
+    out_cols, results = build_results(calls, ctx, name)
 
     xd = s.cast_double(x.copy())
     proj = source.key_projections() + [s.alias(xd, "_iq_x")]
@@ -100,11 +94,8 @@ def lower_ordered_pass(source: Source, x: exp.Expression, w: exp.Expression | No
     keys = source.key_columns()
     base_cols = keys + [s.col("_iq_x")] + ([s.col("_iq_w")] if w is not None else [])
     win = exp.Select(expressions=[k.copy() for k in base_cols] + _window_columns(ctx, keys)).from_(
-        exp.Table(this=exp.to_identifier(f"{name}_rows", quoted=True)))
-    final = exp.Select(expressions=[k.copy() for k in keys] + out_cols).from_(
-        exp.Table(this=exp.to_identifier(f"{name}_win", quoted=True)))
-    if keys:
-        final.set("group", exp.Group(expressions=[k.copy() for k in keys]))
+        table(f"{name}_rows"))
+    final = grouped(keys, out_cols, f"{name}_win")
     ctes = [cte(rows, f"{name}_rows"), cte(win, f"{name}_win"), cte(final, name)]
     return ctes, results
 

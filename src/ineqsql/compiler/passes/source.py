@@ -57,3 +57,22 @@ def cte(select: exp.Select, name: str) -> exp.CTE:
 
 def table(name: str) -> exp.Table:
     return exp.Table(this=exp.to_identifier(name, quoted=True))
+
+
+def build_results(calls: list, ctx, name: str) -> tuple[list[exp.Expression], dict[tuple, exp.Expression]]:
+    """One aggregate column per distinct call (``_iq_r1`` …) and, per call key, its column in ``name``."""
+    columns, results, seen = [], {}, {}
+    for call in calls:
+        if call.key not in seen:
+            seen[call.key] = f"_iq_r{len(seen) + 1}"
+            columns.append(s.alias(call.measure.build(ctx, call.params), seen[call.key]))
+        results[call.key] = s.col(seen[call.key], name)
+    return columns, results
+
+
+def grouped(keys: list[exp.Expression], columns: list[exp.Expression], below: str) -> exp.Select:
+    """SELECT keys, columns FROM below GROUP BY keys (no GROUP BY without keys: one row)."""
+    out = exp.Select(expressions=[k.copy() for k in keys] + columns).from_(table(below))
+    if keys:
+        out.set("group", exp.Group(expressions=[k.copy() for k in keys]))
+    return out
