@@ -279,6 +279,7 @@ def run_case(case: str, data_kind: str, path: Path, memory_limit: str, a) -> dic
         cmd = [sys.executable, str(Path(__file__).resolve()), "--child", case,
                "--file", str(path), "--threads", str(a.threads),
                "--memory-limit", memory_limit, "--temp-dir", str(TMP_DIR), "--out", str(out)]
+        steal0 = _cpu_steal_seconds()
         started = time.perf_counter()
         with open(log, "wb") as logf:
             proc = subprocess.Popen(cmd, stdout=logf, stderr=subprocess.STDOUT,
@@ -296,11 +297,15 @@ def run_case(case: str, data_kind: str, path: Path, memory_limit: str, a) -> dic
                 time.sleep(0.02)
             proc.returncode = os.waitstatus_to_exitcode(status)
         wall = time.perf_counter() - started
+        steal1 = _cpu_steal_seconds()
         # Peak RSS: the child's own VmHWM when it could report it; else the kernel's ru_maxrss
         # for that one child (which on Linux also counts the parent's RSS at spawn time).
         report = {"data": data_kind, "case": case, "memory_limit": memory_limit,
                   "process_seconds": wall, "ru_maxrss_mb": usage.ru_maxrss / 1024,
                   "peak_rss_mb": usage.ru_maxrss / 1024}
+        if steal0 is not None and steal1 is not None:
+            # share of the machine's CPU time taken by the host while this case ran
+            report["steal_share"] = (steal1 - steal0) / max(wall * (os.cpu_count() or 1), 1e-9)
         if out.exists():
             child = json.loads(out.read_text())
             hwm = child.pop("vm_hwm_kb", None)
@@ -327,6 +332,9 @@ def run_repeated(case, data_kind, path, memory_limit, a) -> dict:
         best["peak_rss_mb_all"] = [r["peak_rss_mb"] for r in ok]
         best["seconds"] = statistics.median(best["seconds_all"])
         best["peak_rss_mb"] = max(best["peak_rss_mb_all"])
+        steals = [r["steal_share"] for r in ok if "steal_share" in r]
+        if steals:
+            best["steal_share"] = max(steals)
     return best
 
 
@@ -402,6 +410,35 @@ def print_table(rows: list[dict], title: str) -> None:
               f"{_fmt(ratio(t, t_pandas), '9.2f')} {_fmt(ratio(m, m_pandas), '11.2f')}")
 
 
+def _cpu_steal_seconds() -> float | None:
+    """CPU time stolen from this (virtual) machine by its host so far, all cores (Linux)."""
+    try:
+        with open("/proc/stat") as f:
+            fields = f.readline().split()
+        return int(fields[8]) / os.sysconf("SC_CLK_TCK")
+    except (OSError, ValueError, IndexError):
+        return None
+
+
+def _cpu_times() -> tuple[int, int] | None:
+    try:
+        with open("/proc/stat") as f:
+            ticks = [int(v) for v in f.readline().split()[1:]]
+        return sum(ticks), ticks[3] + ticks[4]  # total, idle + iowait
+    except (OSError, ValueError, IndexError):
+        return None
+
+
+def _cpu_busy_share(seconds: float) -> float | None:
+    """Share of all cores' time that was busy (or stolen) during the next ``seconds``."""
+    a = _cpu_times()
+    time.sleep(seconds)
+    b = _cpu_times()
+    if a is None or b is None or b[0] == a[0]:
+        return None
+    return 1.0 - (b[1] - a[1]) / (b[0] - a[0])
+
+
 def _loadavg() -> float | None:
     try:
         with open("/proc/loadavg") as f:
@@ -437,9 +474,10 @@ def parent_main(a) -> int:
     TMP_DIR.mkdir(parents=True, exist_ok=True)
     g_path, one_path = _ensure_data(a)
     load_before = _loadavg()
-    if load_before is not None and load_before >= 0.5:
-        print(f"warning: 1-minute load average is {load_before:.2f} before the cases start: "
-              "other processes compete for the cores and the timings will be noisy.",
+    busy_before = _cpu_busy_share(1.0)
+    if busy_before is not None and busy_before > 0.25:
+        print(f"warning: the CPUs were {busy_before:.0%} busy in the second before the cases "
+              "start: other processes compete for the cores and the timings will be noisy.",
               file=sys.stderr)
 
     all_rows, checks, notes = [], [], []
@@ -472,6 +510,11 @@ def parent_main(a) -> int:
                          "memory limit of the other cases.")
         all_rows += one_rows
 
+    stolen = [r for r in all_rows if r.get("steal_share", 0) > 0.05]
+    if stolen:
+        notes.append("the host took more than 5% of the CPU time while these cases ran (steal): "
+                     + ", ".join(f"{r['data']}/{r['case']} {r['steal_share']:.0%}"
+                                 for r in stolen) + "; their timings are inflated.")
     print_table([r for r in all_rows if r["data"] == "g1000"],
                 f"g1000.parquet: {a.rows:,} rows x {GROUPS} groups "
                 f"(threads={a.threads}, memory_limit={a.memory_limit})")
@@ -513,6 +556,7 @@ def parent_main(a) -> int:
                    "memory_limit": a.memory_limit, "memory_limit_one": a.memory_limit_one,
                    "repeat": a.repeat, "cases": cases},
         "environment": {**environment(), "loadavg_1min_before": load_before,
+                        "cpu_busy_share_before": busy_before,
                         "loadavg_1min_after": _loadavg()},
         "results": all_rows,
         "checks": checks,
