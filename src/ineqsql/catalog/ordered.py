@@ -1,7 +1,8 @@
 """Measures computed on the ordered pass: rows sorted by value within each group.
 
 Context columns (row level): ``x``, ``w`` (literal 1.0 when unweighted), ``c`` = running weight C_i,
-``W_row`` = the group's total weight, ``mu_row`` = the group's weighted mean. Aggregates: ``W``,
+``min_row`` = the group's smallest value, ``W_row`` = the group's total weight, ``mu_row`` = the
+group's weighted mean (the last two cost extra window aggregates: use them only when needed). Aggregates: ``W``,
 ``T``, ``n``. Every build returns one aggregate expression per group.
 """
 
@@ -51,10 +52,13 @@ def quantile_at(ctx, p: float) -> exp.Expression:
 
 
 def build_gini(ctx, params):
-    # Σ w_i (x_i − μ)(2C_i − w_i − W) / (W·T): centring on μ leaves the value unchanged
-    # (Σ w_i (2C_i − w_i − W) = 0) and keeps the sum exact for large, nearly equal x.
-    rank_weight = s.sub(s.sub(s.mul(s.lit(2.0), ctx.c), ctx.w), ctx.W_row)
-    num = s.agg_sum(s.mul(s.mul(ctx.w, s.sub(ctx.x, ctx.mu_row)), rank_weight))
+    # Σ w_i x_i (2C_i − w_i − W) / (W·T). Shifting x by a per-group constant m leaves the numerator
+    # unchanged (Σ w_i (2C_i − w_i − W) = 0), so it is computed on x − m with m the group's smallest
+    # value: Σ w (x − m)(2C − w) − W · Σ w (x − m). The shift removes a large common offset, so
+    # the sums keep their digits, and it needs no group total at row level (one window spec only).
+    shifted = s.mul(ctx.w, s.sub(ctx.x, ctx.min_row))
+    num = s.sub(s.agg_sum(s.mul(shifted, s.sub(s.mul(s.lit(2.0), ctx.c), ctx.w))),
+                s.mul(ctx.W, s.agg_sum(shifted.copy())))
     return _if_positive_total(ctx, s.div(num, s.mul(ctx.W, ctx.T)))
 
 
@@ -83,7 +87,7 @@ def build_percentile_ratio(ctx, params):
 
 def build_lorenz_curve(ctx, params):
     k = int(params[0])
-    points = [s.struct(p=exp.cast(s.lit(j / k), s.DOUBLE), lorenz=s.div(_below_mass(ctx, j / k), ctx.T)) for j in range(k + 1)]
+    points = [s.struct(p=s.lit(j / k), lorenz=s.div(_below_mass(ctx, j / k), ctx.T)) for j in range(k + 1)]
     return _if_positive_total(ctx, s.array(*points))
 
 

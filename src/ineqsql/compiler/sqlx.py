@@ -20,9 +20,10 @@ def lit(value: float | int | str) -> exp.Expression:
         text = repr(value)
         digits = text.split("e")[0].replace(".", "").lstrip("0")
         if len(digits) > 15 and "e" not in text:
-            # an exponent makes engines read a DOUBLE (not a DECIMAL whose conversion may round)
             text = f"{value:.17e}"
-        return exp.Literal.number(text)
+        # typed DOUBLE: engines read 0.4 as DECIMAL, which is slow in row-level arithmetic and
+        # whose conversion of long literals may round
+        return exp.cast(exp.Literal.number(text), DOUBLE)
     return exp.Literal.number(str(value))
 
 
@@ -31,6 +32,8 @@ def col(name: str, table: str | None = None) -> exp.Column:
 
 
 def is_one(e: exp.Expression) -> bool:
+    if isinstance(e, exp.Cast) and e.to.this == exp.DataType.Type.DOUBLE:
+        e = e.this
     return isinstance(e, exp.Literal) and not e.is_string and float(e.this) == 1.0
 
 
@@ -117,6 +120,8 @@ def clamp(e, lo, hi):
 def cast_double(e):
     if isinstance(e, exp.Literal) and not e.is_string:
         return lit(float(e.this))
+    if isinstance(e, exp.Cast) and e.to.this == exp.DataType.Type.DOUBLE:
+        return e
     return exp.cast(e, DOUBLE)
 
 

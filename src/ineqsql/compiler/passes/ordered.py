@@ -1,7 +1,8 @@
 """Ordered pass: per group, rows sorted by value with running weight C_i, then one GROUP BY.
 
 rows CTE:   keys, x, w                     (NULL x or weight, and zero weights, dropped)
-window CTE: … , C (running weight), W (group weight), μ (group mean)   (only the columns used)
+window CTE: … , C (running weight), m (group minimum), W (group weight), μ (group mean)
+            (only the columns the measures use; C and m share one window specification)
 result CTE: keys, one aggregate per measure call
 """
 
@@ -35,6 +36,11 @@ class OrderedContext:
         return s.col("_iq_c")
 
     @property
+    def min_row(self):
+        self.used.add("min")
+        return s.col("_iq_m")
+
+    @property
     def W_row(self):
         self.used.add("wt")
         return s.col("_iq_wt")
@@ -65,6 +71,9 @@ def _window_columns(ctx: OrderedContext, keys: list[exp.Expression]) -> list[exp
         running = (s.window(s.agg_sum(w.copy()), part(), [x.copy()], running=True) if ctx.weighted
                    else s.window(exp.RowNumber(), part(), [x.copy()]))
         cols.append(s.alias(running, "_iq_c"))
+    if "min" in ctx.used:
+        first = s.window(exp.FirstValue(this=x.copy()), part(), [x.copy()], running=True)
+        cols.append(s.alias(first, "_iq_m"))
     if "wt" in ctx.used:
         total = (s.window(s.agg_sum(w.copy()), part()) if ctx.weighted
                  else s.cast_double(s.window(s.agg_count_star(), part())))
