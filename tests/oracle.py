@@ -52,8 +52,11 @@ def install_oracle(con: duckdb.DuckDBPyConnection) -> None:
                         null_handling="special")
 
 
-def _rows_list(x: exp.Expression, t: exp.Expression | None, field: str) -> exp.Expression:
+def _rows_list(x: exp.Expression, t: exp.Expression | None, field: str,
+               extra: exp.Expression | None = None) -> exp.Expression:
     cond = exp.Not(this=exp.Is(this=x.copy(), expression=exp.Null()))
+    if extra is not None:
+        cond = exp.and_(exp.Paren(this=extra.copy()), cond)
     if t is not None:
         cond = exp.and_(cond, exp.Not(this=exp.Is(this=t.copy(), expression=exp.Null())))
     tval = t.copy() if t is not None else (exp.Null() if field == "e" else exp.Literal.number(1))
@@ -69,6 +72,9 @@ def oracle_sql(sql: str) -> str:
     tree = sqlglot.parse_one(sql, read="duckdb")
 
     def fn(node):
+        extra = None
+        if isinstance(node, exp.Filter) and isinstance(node.this, exp.Anonymous) and catalog.lookup(node.this.name):
+            node, extra = node.this, node.expression.this  # measure(...) FILTER (WHERE extra)
         if not (isinstance(node, exp.Anonymous) and catalog.lookup(node.name)):
             return node
         m = catalog.lookup(node.name)
@@ -86,6 +92,6 @@ def oracle_sql(sql: str) -> str:
             params = [int(p) for p in params]
         return exp.Anonymous(this=fname, expressions=[
             exp.Literal.string(m.name), exp.Literal.string(json.dumps(params)),
-            _rows_list(args[0], trailing, field)])
+            _rows_list(args[0], trailing, field, extra)])
 
     return tree.transform(fn).sql("duckdb")

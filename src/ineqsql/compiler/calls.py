@@ -23,6 +23,7 @@ class MeasureCall:
     params: tuple[float, ...]
     trailing: exp.Expression | None
     options: dict[str, exp.Expression] = field(default_factory=dict)
+    filter: exp.Expression | None = None  # the condition of ``measure(...) FILTER (WHERE …)``
 
     @property
     def key(self) -> tuple:
@@ -34,7 +35,17 @@ class MeasureCall:
 
 
 def call_key(node: exp.Expression) -> tuple:
-    return (node.name.lower(), tuple(a.sql("duckdb") for a in node.expressions))
+    """Identity of a call: name, arguments and FILTER condition (as SQL)."""
+    cond = call_filter(node)
+    return (node.name.lower(), tuple(a.sql("duckdb") for a in node.expressions),
+            cond.sql("duckdb") if cond is not None else None)
+
+
+def call_filter(node: exp.Expression) -> exp.Expression | None:
+    parent = node.parent
+    if isinstance(parent, exp.Filter) and node.arg_key == "this":
+        return parent.expression.this
+    return None
 
 
 def is_measure(node: exp.Expression) -> bool:
@@ -70,6 +81,15 @@ def check_position(node: exp.Anonymous, ctx: CompileContext) -> exp.Select:
         raise ctx.error(MeasureUsageError, f"{name}() cannot be used as a window function (… OVER (…)); "
                         "it is an aggregate over each group", node, name)
     child, anc = node, node.parent
+    if isinstance(anc, exp.Filter) and node.arg_key == "this":
+        for sub in anc.expression.walk():
+            if is_measure(sub) or isinstance(sub, (exp.AggFunc, exp.Window, exp.Select)):
+                raise ctx.error(MeasureUsageError, f"{name}(): the FILTER condition must be a row-level "
+                                "expression", node, name)
+        child, anc = anc, anc.parent
+        if isinstance(anc, exp.Window):
+            raise ctx.error(MeasureUsageError, f"{name}() cannot be used as a window function (… OVER (…)); "
+                            "it is an aggregate over each group", node, name)
     while anc is not None and not isinstance(anc, exp.Select):
         if isinstance(anc, exp.AggFunc) or is_measure(anc):
             outer = anc.name.lower() if is_measure(anc) else anc.sql_name().lower()
@@ -122,6 +142,10 @@ def read_call(node: exp.Anonymous, ctx: CompileContext) -> MeasureCall:
     name = measure.name
     positional, options = [], {}
     for arg in node.expressions:
+        if isinstance(arg, (exp.Distinct, exp.Order)):
+            what = "DISTINCT" if isinstance(arg, exp.Distinct) else "ORDER BY"
+            raise ctx.error(MeasureArgumentError, f"{name}() does not take {what} inside its arguments "
+                            "(the measure orders the values itself)", node, name)
         if type(arg) in (exp.PropertyEQ, exp.Kwarg):
             options[arg.this.name.lower()] = arg.expression
         else:
@@ -161,4 +185,6 @@ def read_call(node: exp.Anonymous, ctx: CompileContext) -> MeasureCall:
             pass  # a constant weight is allowed and acts like no weight
         elif isinstance(trailing, exp.Null):
             raise ctx.error(MeasureArgumentError, f"{name}(): the {measure.trailing} cannot be NULL", node, name)
-    return MeasureCall(node=node, measure=measure, x=x, params=tuple(params), trailing=trailing, options=options)
+    cond = call_filter(node)
+    return MeasureCall(node=node, measure=measure, x=x, params=tuple(params), trailing=trailing, options=options,
+                       filter=cond.copy() if cond is not None else None)

@@ -14,11 +14,12 @@ class PassPlan:
     kind: str  # "ordered" | "moment" | "entity"
     x: exp.Expression
     trailing: exp.Expression | None  # the weight (ordered, moment) or the entity (entity)
+    condition: exp.Expression | None = None  # a FILTER (WHERE …) shared by the pass's calls
     calls: list[MeasureCall] = field(default_factory=list)
 
 
 def plan_passes(calls: list[MeasureCall]) -> list[PassPlan]:
-    """One pass per (kind, value, weight-or-entity), in order of first appearance.
+    """One pass per (kind, value, weight-or-entity, FILTER condition), in order of first appearance.
 
     All measures on the same value and weight share one ordered pass, however many there are.
     """
@@ -26,8 +27,10 @@ def plan_passes(calls: list[MeasureCall]) -> list[PassPlan]:
     for call in calls:
         kind = call.pass_kind
         trailing = call.trailing
-        key = (kind, call.x.sql("duckdb"), trailing.sql("duckdb") if trailing is not None else None)
+        cond = call.filter
+        key = (kind, call.x.sql("duckdb"), trailing.sql("duckdb") if trailing is not None else None,
+               cond.sql("duckdb") if cond is not None else None)
         if key not in plans:
-            plans[key] = PassPlan(kind, call.x, trailing)
+            plans[key] = PassPlan(kind, call.x, trailing, cond)
         plans[key].calls.append(call)
     return list(plans.values())

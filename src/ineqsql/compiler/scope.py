@@ -33,11 +33,11 @@ def rewrite_scope(select: exp.Select, calls: list[MeasureCall], ctx: CompileCont
     pass_ctes, pass_names = [], []
     for plan in plan_passes(calls):
         if plan.kind == "moment":
-            results.update(lower_moment_calls(main, plan.x, plan.trailing, plan.calls))
+            results.update(lower_moment_calls(main, plan.x, plan.trailing, plan.calls, plan.condition))
             continue
         name = ctx.name("ord" if plan.kind == "ordered" else "ent")
         lower = lower_ordered_pass if plan.kind == "ordered" else lower_entity_pass
-        ctes, res = lower(source, plan.x, plan.trailing, plan.calls, name)
+        ctes, res = lower(source, plan.x, plan.trailing, plan.calls, name, plan.condition)
         pass_ctes += ctes
         pass_names.append(name)
         results.update(res)
@@ -82,6 +82,8 @@ def check_scope(select: exp.Select, ctx: CompileContext) -> None:
 
 def _replacer(results, main: MainAggregate, keys):
     def fn(node: exp.Expression) -> exp.Expression:
+        if isinstance(node, exp.Filter) and is_measure(node.this):
+            return results[call_key(node.this)].copy()
         if is_measure(node):
             return results[call_key(node)].copy()
         if isinstance(node, exp.Filter) and is_aggregate(node.this):

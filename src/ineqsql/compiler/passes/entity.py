@@ -28,11 +28,12 @@ class EntityContext:
 
 
 def lower_entity_pass(source: Source, x: exp.Expression, entity: exp.Expression | None, calls: list,
-                      name: str) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:
+                      name: str, condition: exp.Expression | None = None
+                      ) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:
     ctx = EntityContext()
     out_cols, results = build_results(calls, ctx, name)
 
-    cond = s.not_null(x.copy())
+    cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
     if entity is None:
         rows = source.rows(source.key_projections() + [s.alias(s.cast_double(x.copy()), "_iq_v")], cond)
     else:

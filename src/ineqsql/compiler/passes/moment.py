@@ -39,10 +39,11 @@ class MainAggregate:
 class MomentContext:
     """Row-level x and w of one (value, weight) pair, and sums over its valid rows."""
 
-    def __init__(self, main: MainAggregate, x: exp.Expression, w: exp.Expression | None):
+    def __init__(self, main: MainAggregate, x: exp.Expression, w: exp.Expression | None,
+                 condition: exp.Expression | None = None):
         self.main = main
         self._x, self._w = x, w
-        valid = s.not_null(x.copy())
+        valid = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
         if w is not None:
             valid = s.and_(valid, s.gt(checked_weight(w, weight_label(w)), s.lit(0.0)))
         self._valid = valid
@@ -82,7 +83,7 @@ class MomentContext:
 
 
 def lower_moment_calls(main: MainAggregate, x: exp.Expression, w: exp.Expression | None,
-                       calls: list) -> dict[tuple, exp.Expression]:
+                       calls: list, condition: exp.Expression | None = None) -> dict[tuple, exp.Expression]:
     """Register the sums of one (value, weight) pair; return each call's result expression."""
-    ctx = MomentContext(main, x, w)
+    ctx = MomentContext(main, x, w, condition)
     return {call.key: call.measure.build(ctx, call.params) for call in calls}

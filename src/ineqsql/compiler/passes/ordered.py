@@ -86,14 +86,15 @@ def _window_columns(ctx: OrderedContext, keys: list[exp.Expression]) -> list[exp
 
 
 def lower_ordered_pass(source: Source, x: exp.Expression, w: exp.Expression | None, calls: list,
-                       name: str) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:
+                       name: str, condition: exp.Expression | None = None
+                       ) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:
     """CTEs of one ordered pass and, for each call key, the column that holds its result."""
     ctx = OrderedContext(weighted=w is not None)
     out_cols, results = build_results(calls, ctx, name)
 
     xd = s.cast_double(x.copy())
     proj = source.key_projections() + [s.alias(xd, "_iq_x")]
-    cond = s.not_null(x.copy())
+    cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
     if w is not None:
         cw = checked_weight(w, weight_label(w))
         proj.append(s.alias(cw, "_iq_w"))
