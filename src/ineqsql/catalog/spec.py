@@ -60,7 +60,7 @@ class Measure:
 
     @property
     def signature(self) -> str:
-        args = ["x", *(p.name for p in self.params)]
+        args = ", ".join(["x", *(p.name for p in self.params)])
         if self.trailing:
-            args.append(f"[{'w' if self.trailing == 'weight' else 'entity'}]")
-        return f"{self.name}({', '.join(args)})"
+            args += f"[, {'w' if self.trailing == 'weight' else 'entity'}]"
+        return f"{self.name}({args})"

@@ -109,7 +109,9 @@ def cmd_measures(args) -> int:
     for r in rows:
         print(f"{r['signature']:<{width}}  {r['formula']}  [{r['domain']}]")
     print("\nx: the value; w: an optional weight (rows with NULL x or w are skipped, w = 0 changes nothing, "
-          "w < 0 is an error); p: a fraction in [0, 1].")
+          "w < 0 is an error); p: a fraction in [0, 1]. A group where a measure is undefined gets NULL.")
+    print("HHI and CR_k are estimates from the data given, not legal or regulatory findings; screening "
+          "thresholds are for the competent authority to apply.")
     return 0
 
 
@@ -135,6 +137,10 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("ineqsql: interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:  # e.g. `ineqsql measures | head`: the reader left, nothing to report
+        import os
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 0
 
 
 if __name__ == "__main__":
