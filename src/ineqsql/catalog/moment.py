@@ -78,10 +78,10 @@ def build_atkinson(ctx, params):
 
 
 def build_cv(ctx, params=()):
+    # centred pass: sqrt(Σ w (x − μ)² / W) / μ, with μ joined per group (no cancellation)
     mean = _mean(ctx)
-    second = s.div(ctx.sum(s.mul(ctx.w, s.mul(ctx.x, ctx.x))), ctx.W)
-    variance = s.greatest(s.sub(second, s.mul(mean, mean)), ZERO)
-    return s.case(s.gt(ctx.T, ZERO), s.div(s.sqrt(variance), mean))
+    spread = ctx.sum(s.mul(ctx.w, s.power(s.sub(ctx.x, ctx.mu), s.lit(2.0))))
+    return s.case(s.gt(ctx.T, ZERO), s.div(s.sqrt(s.div(spread, ctx.W)), mean))
 
 
 def build_hhi_rows(ctx, params=()):
@@ -105,6 +105,6 @@ MEASURES = [
     Measure("atkinson", "moment", (Param("eps", "nonnegative"),), "weight",
             "1 − (Σ w x^(1−ε) / W)^(1/(1−ε)) / μ; ε = 1: 1 − exp(Σ w ln x / W) / μ", build_atkinson,
             ref.atkinson, domain="0 ≤ ε < 1: x ≥ 0; ε ≥ 1: x > 0"),
-    Measure("cv", "moment", (), "weight", "sqrt(Σ w (x − μ)² / W) / μ", build_cv, ref.cv,
+    Measure("cv", "centred", (), "weight", "sqrt(Σ w (x − μ)² / W) / μ", build_cv, ref.cv,
             domain="μ > 0"),
 ]

@@ -8,7 +8,7 @@ from typing import Callable, Literal
 
 from sqlglot import exp
 
-PassKind = Literal["ordered", "moment", "entity"]
+PassKind = Literal["ordered", "moment", "centred", "entity"]
 
 
 @dataclass(frozen=True)

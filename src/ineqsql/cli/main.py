@@ -89,7 +89,7 @@ def _settings(args) -> dict:
 
 
 def cmd_query(args) -> int:
-    df = ineqsql.query(_read_sql(args.sql), _connection(args), progress=sys.stderr.isatty(), **_settings(args))
+    df = ineqsql.query(_read_sql(args.sql), _connection(args), **_settings(args))
     if args.output:
         write_result(df, args.output, args.format, overwrite=args.force)
         print(f"wrote {len(df)} rows to {args.output}", file=sys.stderr)

@@ -16,10 +16,11 @@ from ineqsql.compiler import sqlx as s
 from ineqsql.compiler.calls import MeasureCall, call_key, is_aggregate, is_measure
 from ineqsql.compiler.context import CompileContext, text
 from ineqsql.compiler.keys import resolve_group_keys, same_key
+from ineqsql.compiler.passes.centred import lower_centred_pass
 from ineqsql.compiler.passes.entity import lower_entity_pass
 from ineqsql.compiler.passes.moment import MainAggregate, lower_moment_calls
 from ineqsql.compiler.passes.ordered import lower_ordered_pass
-from ineqsql.compiler.passes.source import Source, key_name, table
+from ineqsql.compiler.passes.source import Source, join_on_keys, key_name, table
 from ineqsql.compiler.plan import plan_passes
 from ineqsql.errors import UnsupportedSqlError
 
@@ -35,6 +36,13 @@ def rewrite_scope(select: exp.Select, calls: list[MeasureCall], ctx: CompileCont
         if plan.kind == "moment":
             results.update(lower_moment_calls(main, plan.x, plan.trailing, plan.calls, plan.condition))
             continue
+        if plan.kind == "centred":
+            name = ctx.name("cen")
+            ctes, res = lower_centred_pass(source, main, plan.x, plan.trailing, plan.calls, name, plan.condition)
+            pass_ctes += ctes
+            pass_names.append(name)
+            results.update(res)
+            continue
         name = ctx.name("ord" if plan.kind == "ordered" else "ent")
         lower = lower_ordered_pass if plan.kind == "ordered" else lower_entity_pass
         ctes, res = lower(source, plan.x, plan.trailing, plan.calls, name, plan.condition)
@@ -48,7 +56,7 @@ def rewrite_scope(select: exp.Select, calls: list[MeasureCall], ctx: CompileCont
                                     for i, p in enumerate(select.expressions)])
     final.from_(table(main.name), copy=False)
     for name in pass_names:
-        final.append("joins", _join(main.name, name, len(keys)))
+        final.append("joins", join_on_keys(keys, name, left=main.name))
     having = select.args.get("having")
     if having is not None:
         final.set("where", exp.Where(this=replace(_expand_aliases(having.this, select, keys))))
@@ -98,14 +106,6 @@ def _replacer(results, main: MainAggregate, keys):
         return node
 
     return lambda e: e.transform(fn)
-
-
-def _join(left: str, right: str, nkeys: int) -> exp.Join:
-    if nkeys == 0:
-        return exp.Join(this=table(right), kind="CROSS")
-    cond = s.and_(*[exp.NullSafeEQ(this=s.col(key_name(i), left), expression=s.col(key_name(i), right))
-                    for i in range(nkeys)])
-    return exp.Join(this=table(right), side="LEFT", on=cond)
 
 
 def _output_aliases(select: exp.Select) -> list[str]:

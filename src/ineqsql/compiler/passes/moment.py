@@ -59,19 +59,22 @@ class MomentContext:
     def _when_valid(self, term):
         return s.case(self._valid.copy(), term)
 
-    def sum(self, term: exp.Expression) -> exp.Expression:
+    def _main_sum(self, term: exp.Expression) -> exp.Expression:
         return self.main.add(s.agg_sum(self._when_valid(term)))
+
+    def sum(self, term: exp.Expression) -> exp.Expression:
+        return self._main_sum(term)
 
     def min(self, term: exp.Expression) -> exp.Expression:
         return self.main.add(s.agg_min(self._when_valid(term)))
 
     @property
     def W(self):
-        return self.sum(self.w)
+        return self._main_sum(self.w)
 
     @property
     def T(self):
-        return self.sum(s.mul(self.w, self.x))
+        return self._main_sum(s.mul(self.w, self.x))
 
     @property
     def n(self):

@@ -25,13 +25,15 @@ class Source:
         return [s.col(key_name(i), table) for i in range(len(self.keys))]
 
     def rows(self, projections: list[exp.Expression], condition: exp.Expression | None = None,
-             group_by: list[exp.Expression] | None = None) -> exp.Select:
-        """SELECT projections FROM <scope's FROM and joins> WHERE <scope's WHERE AND condition>."""
+             group_by: list[exp.Expression] | None = None, join: exp.Join | None = None) -> exp.Select:
+        """SELECT projections FROM <scope's FROM and joins [+ join]> WHERE <scope's WHERE AND condition>."""
         out = exp.Select(expressions=projections)
         for arg in ("from_", "joins", "laterals"):
             value = self.select.args.get(arg)
             if value:
                 out.set(arg, [v.copy() for v in value] if isinstance(value, list) else value.copy())
+        if join is not None:
+            out.append("joins", join)
         where = self.select.args.get("where")
         cond = s.and_(where.this.copy() if where else None, condition)
         if cond is not None:
@@ -76,3 +78,13 @@ def grouped(keys: list[exp.Expression], columns: list[exp.Expression], below: st
     if keys:
         out.set("group", exp.Group(expressions=[k.copy() for k in keys]))
     return out
+
+
+def join_on_keys(keys: list[exp.Expression], other: str, left: str | None = None) -> exp.Join:
+    """JOIN other ON each key IS NOT DISTINCT FROM other._iq_kN (a NULL key is a group); CROSS JOIN
+    without keys. Keys are columns of ``left`` when given, else the scope's key expressions."""
+    if not keys:
+        return exp.Join(this=table(other), kind="CROSS")
+    cond = s.and_(*[exp.NullSafeEQ(this=s.col(key_name(i), left) if left else k.copy(),
+                                   expression=s.col(key_name(i), other)) for i, k in enumerate(keys)])
+    return exp.Join(this=table(other), side="LEFT" if left else None, on=cond)

@@ -1,0 +1,53 @@
+"""Centred moment pass: sums of deviations from the group mean, for measures whose plain sums
+would cancel (a variance as Σw·x²/W − μ² loses every digit when the spread is small).
+
+mean CTE:    keys, μ = T/W                 (T and W ride on the scope's main aggregate)
+centred CTE: keys, Σ w·f(x, μ) …  over the scope's rows joined to their group's mean
+One extra scan of the source and a hash join on the group keys; no sort.
+"""
+
+from __future__ import annotations
+
+from sqlglot import exp
+
+from ineqsql.compiler import sqlx as s
+from ineqsql.compiler.passes.moment import MainAggregate, MomentContext
+from ineqsql.compiler.passes.source import Source, cte, join_on_keys, key_name, table
+
+
+class CentredContext(MomentContext):
+    """Row-level x, w and the group mean ``mu``; ``sum(term)`` sums over the valid rows of the group in
+    the centred CTE, while ``W``, ``T``, ``n`` and ``min_x`` stay on the main aggregate."""
+
+    def __init__(self, main: MainAggregate, x, w, condition, name: str):
+        super().__init__(main, x, w, condition)
+        self.name = name
+        self.terms: dict[str, tuple[str, exp.Expression]] = {}
+
+    @property
+    def mu(self):
+        return s.col("_iq_mu", f"{self.name}_mean")
+
+    def sum(self, term: exp.Expression) -> exp.Expression:
+        agg = s.agg_sum(self._when_valid(term))
+        key = agg.sql("duckdb")
+        if key not in self.terms:
+            self.terms[key] = (f"_iq_t{len(self.terms) + 1}", agg)
+        return s.col(self.terms[key][0], self.name)
+
+
+def lower_centred_pass(source: Source, main: MainAggregate, x: exp.Expression, w: exp.Expression | None,
+                       calls: list, name: str, condition: exp.Expression | None = None
+                       ) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:
+    ctx = CentredContext(main, x, w, condition, name)
+    results = {call.key: call.measure.build(ctx, call.params) for call in calls}
+    mean_name = f"{name}_mean"
+    nkeys = len(source.keys)
+    mean = exp.Select(expressions=[s.col(key_name(i)) for i in range(nkeys)]
+                      + [s.alias(s.div(ctx.T, ctx.W), "_iq_mu")]).from_(table(main.name))
+    # the mean CTE reads the main aggregate's columns unqualified
+    mean = mean.transform(lambda n: s.col(n.name) if isinstance(n, exp.Column) and n.table == main.name else n)
+    rows = source.rows(source.key_projections() + [s.alias(e, n) for n, e in ctx.terms.values()],
+                       group_by=[k.copy() for k in source.keys] or None,
+                       join=join_on_keys(source.keys, mean_name))
+    return [cte(mean, mean_name), cte(rows, name)], results
