@@ -116,3 +116,16 @@ def test_console_script_help():
     assert out.returncode == 0
     for word in ("query", "compile", "measures", "demo"):
         assert word in out.stdout
+
+
+def test_list_results_are_json_in_csv(capsys):
+    sql = "SELECT lorenz_curve(x, 2) AS c FROM (VALUES (1.0), (3.0)) t(x)"
+    assert main(["query", "--format", "csv", sql]) == 0
+    import csv
+    import io
+    rows = list(csv.reader(io.StringIO(capsys.readouterr().out)))
+    assert len(rows) == 2 and rows[0] == ["c"]
+    points = json.loads(rows[1][0])
+    # Lorenz of (1, 3): L(0.5) = 1/4 (the poorer half holds 1 of 4), from the definition
+    assert [p["p"] for p in points] == [0.0, 0.5, 1.0]
+    assert points[1]["lorenz"] == pytest.approx(0.25, rel=1e-12)

@@ -30,7 +30,7 @@ def render_table(df: pd.DataFrame, max_rows: int = 200, float_format: str = "{:.
 
 def _serialize(df: pd.DataFrame, fmt: str, path: str | None):
     if fmt == "csv":
-        return df.to_csv(path, index=False)
+        return _nested_as_json(df).to_csv(path, index=False)
     if fmt == "json":
         text = to_json(df)
         return text + "\n" if path is None else Path(path).write_text(text + "\n")
@@ -54,6 +54,15 @@ def _plain(value):
     if isinstance(value, float) and math.isinf(value):
         return None
     return value
+
+
+def _nested_as_json(df: pd.DataFrame) -> pd.DataFrame:
+    """List and struct cells (e.g. lorenz_curve) as JSON text, so a CSV cell stays one line."""
+    out = df.copy()
+    for c in out.columns:
+        if out[c].dtype == object:
+            out[c] = [json.dumps(_plain(v)) if isinstance(v, (list, tuple, dict, np.ndarray)) else v for v in out[c]]
+    return out
 
 
 def to_json(df: pd.DataFrame) -> str:
