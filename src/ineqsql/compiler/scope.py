@@ -99,7 +99,7 @@ def _replacer(results, main: MainAggregate, keys):
         if is_aggregate(node):
             return main.add(node.copy(), "_iq_a")
         if isinstance(node, (exp.Select, exp.Subquery)):
-            return node  # another scope: left as it is
+            return node.copy()  # another scope: left as it is (a new node stops the descent)
         for i, key in enumerate(keys):
             if same_key(node, key):
                 return s.col(key_name(i), main.name)
@@ -131,6 +131,8 @@ def _expand_aliases(expr: exp.Expression, select: exp.Select, keys) -> exp.Expre
     aliases = {p.alias: p.unalias() for p in select.expressions if isinstance(p, exp.Alias)}
 
     def fn(node):
+        if isinstance(node, (exp.Select, exp.Subquery)):
+            return node.copy()  # another scope: its names are its own
         if isinstance(node, exp.Column) and not node.table and node.name in aliases \
                 and not any(same_key(node, k) for k in keys):
             return aliases[node.name].copy()
