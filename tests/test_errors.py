@@ -94,3 +94,4 @@ def test_measure_names_as_column_names_are_fine():
     df = ineqsql.query("SELECT gini(gini) AS gini FROM (VALUES (1.0), (3.0)) t(gini)")
     # two values 1 and 3: Σ|xi−xj| over ordered pairs = 4, 2·n²·μ = 2·4·2 = 16 → 0.25 (pairwise definition)
     assert df["gini"][0] == pytest.approx(0.25, rel=1e-12)
+

@@ -2,11 +2,14 @@
 
 from __future__ import annotations
 
+import inspect
+
 import duckdb
 import pandas as pd
 
 from ineqsql.catalog import MEASURES
 from ineqsql.compiler import compile_sql
+from ineqsql.engine.frames import register_caller_frames
 from ineqsql.engine.runner import connect, execute_df
 
 
@@ -18,13 +21,20 @@ def compile(sql: str, dialect: str = "duckdb", *, read: str = "duckdb", pretty: 
 def query(sql: str, con: duckdb.DuckDBPyConnection | None = None, *, memory_limit: str | None = None,
           threads: int | None = None, temp_directory: str | None = None,
           progress: bool = False) -> pd.DataFrame:
-    """Compile ``sql`` and run it on DuckDB (``con``, or a new in-memory connection)."""
+    """Compile ``sql`` and run it on DuckDB (``con``, or a new in-memory connection).
+
+    Tables the query names may also be pandas DataFrames or Arrow tables held by the calling code
+    under that name, as with ``duckdb.sql``.
+    """
     compiled = compile_sql(sql, dialect="duckdb", pretty=False)
     connection = connect(con, memory_limit=memory_limit, threads=threads, temp_directory=temp_directory,
                          progress=progress)
+    registered = register_caller_frames(connection, sql, inspect.currentframe().f_back)
     try:
         return execute_df(connection, compiled)
     finally:
+        for name in registered:
+            connection.unregister(name)
         if con is None:
             connection.close()
 

@@ -1,0 +1,38 @@
+"""The Python entry points: query() on connections and data frames, compile()."""
+
+from __future__ import annotations
+
+import duckdb
+import pytest
+
+import ineqsql
+
+
+def test_dataframe_of_the_caller_is_a_table():
+    import pandas as pd
+    import pyarrow as pa
+
+    from ineqsql import reference as R
+    frame = pd.DataFrame({"x": [1.0, 2.0, 6.0], "w": [1.0, 2.0, 1.0]})
+    arrow_frame = pa.table({"x": [1.0, 5.0]})
+    got = ineqsql.query("SELECT gini(x, w) AS g FROM frame")["g"][0]
+    assert got == pytest.approx(R.gini([1.0, 2.0, 6.0], [1.0, 2.0, 1.0]), rel=1e-12)
+    # gini of (1, 5): |1 − 5| · 2 / (2 · 2² · 3) = 1/3 (pairwise definition)
+    assert ineqsql.query("SELECT gini(x) AS g FROM arrow_frame")["g"][0] == pytest.approx(1 / 3, rel=1e-12)
+
+
+def test_query_on_a_given_connection_keeps_it_open_and_sees_its_tables():
+    con = duckdb.connect()
+    con.execute("CREATE TABLE incomes AS SELECT * FROM (VALUES ('a', 1.0), ('a', 3.0), ('b', 2.0)) t(g, x)")
+    df = ineqsql.query("SELECT g, gini(x) AS gini FROM incomes GROUP BY g ORDER BY g", con)
+    # group a = (1, 3): 1/4 by the pairwise definition; group b has one row: 0
+    assert df["gini"].tolist() == pytest.approx([0.25, 0.0], abs=1e-15)
+    assert con.execute("SELECT count(*) FROM incomes").fetchone()[0] == 3  # still usable
+
+
+def test_a_table_of_the_connection_wins_over_a_frame_of_the_same_name():
+    import pandas as pd
+    con = duckdb.connect()
+    con.execute("CREATE TABLE incomes AS SELECT * FROM (VALUES (1.0), (3.0)) t(x)")
+    incomes = pd.DataFrame({"x": [5.0, 5.0]})  # noqa: F841 - named to test the lookup
+    assert ineqsql.query("SELECT gini(x) AS g FROM incomes", con)["g"][0] == pytest.approx(0.25, rel=1e-12)
