@@ -63,7 +63,7 @@ class OrderedContext:
         return s.agg_count_star()
 
 
-def _window_columns(ctx: OrderedContext, keys: list[exp.Expression]) -> list[exp.Expression]:
+def _window_columns(ctx: OrderedContext, keys: list[exp.Expression], minimum: exp.Select) -> list[exp.Expression]:
     x, w = s.col("_iq_x"), ctx.w
     part = lambda: [k.copy() for k in keys]  # noqa: E731
     cols = []
@@ -72,7 +72,12 @@ def _window_columns(ctx: OrderedContext, keys: list[exp.Expression]) -> list[exp
                    else s.window(exp.RowNumber(), part(), [x.copy()]))
         cols.append(s.alias(running, "_iq_c"))
     if "min" in ctx.used:
-        first = s.window(exp.FirstValue(this=x.copy()), part(), [x.copy()], running=True)
+        if keys:
+            first = s.window(exp.FirstValue(this=x.copy()), part(), [x.copy()], running=True)
+        else:
+            # one group: a scalar subquery over the same rows is cheaper than a second window
+            # expression (which the window operator must carry through its sort and spills)
+            first = exp.Subquery(this=minimum)
         cols.append(s.alias(first, "_iq_m"))
     if "wt" in ctx.used:
         total = (s.window(s.agg_sum(w.copy()), part()) if ctx.weighted
@@ -103,7 +108,8 @@ def lower_ordered_pass(source: Source, x: exp.Expression, w: exp.Expression | No
 
     keys = source.key_columns()
     base_cols = keys + [s.col("_iq_x")] + ([s.col("_iq_w")] if w is not None else [])
-    win = exp.Select(expressions=[k.copy() for k in base_cols] + _window_columns(ctx, keys)).from_(
+    minimum = source.rows([s.agg_min(xd.copy())], cond.copy())
+    win = exp.Select(expressions=[k.copy() for k in base_cols] + _window_columns(ctx, keys, minimum)).from_(
         table(f"{name}_rows"))
     final = grouped(keys, out_cols, f"{name}_win")
     ctes = [cte(rows, f"{name}_rows"), cte(win, f"{name}_win"), cte(final, name)]
