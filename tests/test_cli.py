@@ -129,3 +129,17 @@ def test_list_results_are_json_in_csv(capsys):
     # Lorenz of (1, 3): L(0.5) = 1/4 (the poorer half holds 1 of 4), from the definition
     assert [p["p"] for p in points] == [0.0, 0.5, 1.0]
     assert points[1]["lorenz"] == pytest.approx(0.25, rel=1e-12)
+
+
+def test_database_option(tmp_path, capsys):
+    import duckdb
+    db = tmp_path / "w.duckdb"
+    con = duckdb.connect(str(db))
+    con.execute("CREATE TABLE inc AS SELECT * FROM (VALUES (1.0), (3.0)) t(x)")
+    con.close()
+    assert main(["query", "--database", str(db), "--format", "csv", "SELECT gini(x) AS g FROM inc"]) == 0
+    # (1, 3): Gini 1/4 by the pairwise definition
+    assert float(capsys.readouterr().out.splitlines()[1]) == pytest.approx(0.25, rel=1e-12)
+    missing = tmp_path / "nope.duckdb"
+    assert main(["query", "--database", str(missing), "SELECT 1"]) == 2
+    assert "no database file" in capsys.readouterr().err and not missing.exists()

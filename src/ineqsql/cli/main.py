@@ -77,6 +77,8 @@ def build_parser() -> argparse.ArgumentParser:
 def _connection(args):
     if getattr(args, "database", None):
         import duckdb
+        if not Path(args.database).exists():
+            raise IneqsqlError(f"no database file {args.database} (ineqsql opens existing DuckDB files only)")
         try:
             return duckdb.connect(args.database)
         except duckdb.Error as e:
