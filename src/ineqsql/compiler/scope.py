@@ -2,7 +2,7 @@
 
     WITH <user CTEs>,
          _iq_agg_N  AS (keys, ordinary aggregates, moment sums  GROUP BY keys),
-         _iq_ord_M… AS (ordered pass),  _iq_ent_K… AS (entity pass)
+         _iq_ord_M… (ordered pass), _iq_cen_J… (centred pass), _iq_ent_K… (entity pass)
     SELECT <select list, calls replaced by result columns>
     FROM _iq_agg_N LEFT JOIN _iq_ord_M ON keys IS NOT DISTINCT FROM keys …
     WHERE <HAVING>  ORDER BY …  LIMIT …
@@ -18,7 +18,7 @@ from ineqsql.compiler.context import CompileContext, text
 from ineqsql.compiler.keys import resolve_group_keys, same_key
 from ineqsql.compiler.passes.centred import lower_centred_pass
 from ineqsql.compiler.passes.entity import lower_entity_pass
-from ineqsql.compiler.passes.moment import MainAggregate, lower_moment_calls
+from ineqsql.compiler.passes.moment import MainAggregate, lower_moment_pass
 from ineqsql.compiler.passes.ordered import lower_ordered_pass
 from ineqsql.compiler.passes.source import Source, join_on_keys, key_name, table
 from ineqsql.compiler.plan import plan_passes
@@ -30,25 +30,7 @@ def rewrite_scope(select: exp.Select, calls: list[MeasureCall], ctx: CompileCont
     keys = resolve_group_keys(select, ctx)
     source = Source(select, keys)
     main = MainAggregate(ctx.name("agg"))
-    results: dict[tuple, exp.Expression] = {}
-    pass_ctes, pass_names = [], []
-    for plan in plan_passes(calls):
-        if plan.kind == "moment":
-            results.update(lower_moment_calls(main, plan.x, plan.trailing, plan.calls, plan.condition))
-            continue
-        if plan.kind == "centred":
-            name = ctx.name("cen")
-            ctes, res = lower_centred_pass(source, main, plan.x, plan.trailing, plan.calls, name, plan.condition)
-            pass_ctes += ctes
-            pass_names.append(name)
-            results.update(res)
-            continue
-        name = ctx.name("ord" if plan.kind == "ordered" else "ent")
-        lower = lower_ordered_pass if plan.kind == "ordered" else lower_entity_pass
-        ctes, res = lower(source, plan.x, plan.trailing, plan.calls, name, plan.condition)
-        pass_ctes += ctes
-        pass_names.append(name)
-        results.update(res)
+    pass_ctes, pass_names, results = lower_passes(calls, source, main, ctx)
 
     replace = _replacer(results, main, keys)
     outputs = _output_aliases(select)
@@ -77,6 +59,29 @@ def rewrite_scope(select: exp.Select, calls: list[MeasureCall], ctx: CompileCont
     ctes += [main.lower(source)] + pass_ctes
     final.set("with_", exp.With(expressions=ctes, recursive=with_.args.get("recursive") if with_ else None))
     return final
+
+
+# pass kind → (name prefix of its CTEs or None when it rides on the main aggregate, lowering)
+LOWERINGS = {
+    "moment": (None, lower_moment_pass),
+    "centred": ("cen", lower_centred_pass),
+    "ordered": ("ord", lower_ordered_pass),
+    "entity": ("ent", lower_entity_pass),
+}
+
+
+def lower_passes(calls: list[MeasureCall], source: Source, main: MainAggregate, ctx: CompileContext):
+    """Lower every planned pass: (its CTEs, the names to join on the keys, call key → result)."""
+    ctes, names, results = [], [], {}
+    for plan in plan_passes(calls):
+        prefix, lower = LOWERINGS[plan.kind]
+        name = ctx.name(prefix) if prefix else None
+        new, res = lower(source, main, plan, name)
+        ctes += new
+        results.update(res)
+        if name:
+            names.append(name)
+    return ctes, names, results
 
 
 def check_scope(select: exp.Select, ctx: CompileContext) -> None:

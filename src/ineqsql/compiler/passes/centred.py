@@ -36,11 +36,11 @@ class CentredContext(MomentContext):
         return s.col(self.terms[key][0], self.name)
 
 
-def lower_centred_pass(source: Source, main: MainAggregate, x: exp.Expression, w: exp.Expression | None,
-                       calls: list, name: str, condition: exp.Expression | None = None
+def lower_centred_pass(source: Source, main: MainAggregate, plan, name: str
                        ) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:
-    ctx = CentredContext(main, x, w, condition, name)
-    results = {call.key: call.measure.build(ctx, call.params) for call in calls}
+    """CTEs of one centred pass and, for each call key, its result expression (final SELECT)."""
+    ctx = CentredContext(main, plan.x, plan.trailing, plan.condition, name)
+    results = {call.key: call.measure.build(ctx, call.params) for call in plan.calls}
     mean_name = f"{name}_mean"
     nkeys = len(source.keys)
     mean = exp.Select(expressions=[s.col(key_name(i)) for i in range(nkeys)]

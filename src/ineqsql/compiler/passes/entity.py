@@ -27,9 +27,9 @@ class EntityContext:
         return s.col("_iq_r")
 
 
-def lower_entity_pass(source: Source, x: exp.Expression, entity: exp.Expression | None, calls: list,
-                      name: str, condition: exp.Expression | None = None
-                      ) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:
+def lower_entity_pass(source: Source, main, plan, name: str) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:
+    """CTEs of one entity pass and, for each call key, the column that holds its result."""
+    x, entity, calls, condition = plan.x, plan.trailing, plan.calls, plan.condition
     ctx = EntityContext()
     out_cols, results = build_results(calls, ctx, name)
 

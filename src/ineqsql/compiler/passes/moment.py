@@ -85,8 +85,8 @@ class MomentContext:
         return self.min(self.x)
 
 
-def lower_moment_calls(main: MainAggregate, x: exp.Expression, w: exp.Expression | None,
-                       calls: list, condition: exp.Expression | None = None) -> dict[tuple, exp.Expression]:
-    """Register the sums of one (value, weight) pair; return each call's result expression."""
-    ctx = MomentContext(main, x, w, condition)
-    return {call.key: call.measure.build(ctx, call.params) for call in calls}
+def lower_moment_pass(source: Source, main: MainAggregate, plan, name: str | None = None
+                      ) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:
+    """No CTE of its own: register the pass's sums on the main aggregate; return each call's result."""
+    ctx = MomentContext(main, plan.x, plan.trailing, plan.condition)
+    return [], {call.key: call.measure.build(ctx, call.params) for call in plan.calls}

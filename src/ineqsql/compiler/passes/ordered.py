@@ -90,10 +90,9 @@ def _window_columns(ctx: OrderedContext, keys: list[exp.Expression], minimum: ex
     return cols
 
 
-def lower_ordered_pass(source: Source, x: exp.Expression, w: exp.Expression | None, calls: list,
-                       name: str, condition: exp.Expression | None = None
-                       ) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:
+def lower_ordered_pass(source: Source, main, plan, name: str) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:
     """CTEs of one ordered pass and, for each call key, the column that holds its result."""
+    x, w, calls, condition = plan.x, plan.trailing, plan.calls, plan.condition
     ctx = OrderedContext(weighted=w is not None)
     out_cols, results = build_results(calls, ctx, name)
 
