@@ -24,10 +24,11 @@ class MeasureCall:
     trailing: exp.Expression | None
     options: dict[str, exp.Expression] = field(default_factory=dict)
     filter: exp.Expression | None = None  # the condition of ``measure(...) FILTER (WHERE …)``
+    key: tuple = ()  # call_key(node), computed once
 
-    @property
-    def key(self) -> tuple:
-        return call_key(self.node)
+    def __post_init__(self):
+        if not self.key:
+            self.key = call_key(self.node)
 
     @property
     def pass_kind(self) -> str:
