@@ -36,3 +36,9 @@ def test_a_table_of_the_connection_wins_over_a_frame_of_the_same_name():
     con.execute("CREATE TABLE incomes AS SELECT * FROM (VALUES (1.0), (3.0)) t(x)")
     incomes = pd.DataFrame({"x": [5.0, 5.0]})  # noqa: F841 - named to test the lookup
     assert ineqsql.query("SELECT gini(x) AS g FROM incomes", con)["g"][0] == pytest.approx(0.25, rel=1e-12)
+
+
+def test_queries_without_from():
+    df = ineqsql.query("SELECT gini(2.0) AS g, cv(2.0) AS c, hhi(2.0) AS h")
+    # one value: no inequality; one entity holds everything (facts of common practice)
+    assert df["g"][0] == 0.0 and df["c"][0] == 0.0 and df["h"][0] == pytest.approx(10000.0, rel=1e-12)

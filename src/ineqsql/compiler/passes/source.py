@@ -32,7 +32,9 @@ class Source:
             value = self.select.args.get(arg)
             if value:
                 out.set(arg, [v.copy() for v in value] if isinstance(value, list) else value.copy())
-        if join is not None:
+        if join is not None and out.args.get("from_") is None:
+            out.set("from_", exp.From(this=join.this.copy()))  # no FROM (SELECT cv(2.0)): read the joined table
+        elif join is not None:
             out.append("joins", join)
         where = self.select.args.get("where")
         cond = s.and_(where.this.copy() if where else None, condition)
