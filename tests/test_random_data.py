@@ -31,7 +31,12 @@ MEASURES = [  # (SQL, reference taking (x, w))
 value = st.one_of(st.none(), st.sampled_from([0.0, 1.0, 2.5, 2.5, 100.0]),
                   st.floats(min_value=1e-3, max_value=1e6, allow_nan=False))
 weight = st.one_of(st.none(), st.sampled_from([0.0, 1.0, 2.0]), st.floats(min_value=0.01, max_value=50))
-row = st.tuples(st.sampled_from(["a", "b", "c", None]), value, weight)
+row = st.tuples(st.sampled_from(["a", "b", "c", None]), value, weight, st.sampled_from(["e1", "e2", "e3", None]))
+ENTITY = [  # (SQL, reference taking (x, entity)); the entity column e may be NULL (row skipped)
+    ("hhi(x, e)", lambda x, e: R.hhi(x, e)),
+    ("cr(x, 2, e)", lambda x, e: R.cr(x, 2, e)),
+    ("hhi(x)", lambda x, e: R.hhi(x)),
+]
 
 
 def _close(got, want) -> bool:
@@ -45,18 +50,26 @@ def _close(got, want) -> bool:
 @settings(max_examples=int(__import__("os").environ.get("INEQSQL_EXAMPLES", "60")), deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(st.lists(row, min_size=1, max_size=40), st.booleans())
 # found by this test: CV from Σw·x²/W − μ² gave 1.9e-8 for one row (now the centred pass gives ~1e-16)
-@example(rows=[("a", 100.0, 0.3333333333333333)], weighted=True)
+@example(rows=[("a", 100.0, 0.3333333333333333, "e1")], weighted=True)
 def test_random_groups_match_reference(rows, weighted):
-    df = pd.DataFrame(rows, columns=["g", "x", "w"]).astype({"x": "Float64", "w": "Float64"})
+    df = pd.DataFrame(rows, columns=["g", "x", "w", "e"]).astype({"x": "Float64", "w": "Float64"})
     con = duckdb.connect()
     con.register("t", df)
     calls = [m.format(w=", w" if weighted else "") for m, _ in MEASURES]
-    sql = "SELECT g, " + ", ".join(f"{c} AS m{i}" for i, c in enumerate(calls)) + " FROM t GROUP BY g"
+    sql = ("SELECT g, " + ", ".join(f"{c} AS m{i}" for i, c in enumerate(calls)) + ", "
+           + ", ".join(f"{c} AS e{i}" for i, (c, _) in enumerate(ENTITY)) + " FROM t GROUP BY g")
     res = ineqsql.query(sql, con)
     assert len(res) == df["g"].nunique(dropna=False)
     for _, out in res.iterrows():
         key = out["g"]
         d = df[df["g"].isna()] if key is None or (isinstance(key, float) and math.isnan(key)) else df[df["g"] == key]
+        for i, (call, ref) in enumerate(ENTITY):
+            de = d[d["x"].notna() & (d["e"].notna() if "e)" in call else True)]
+            ent = de["e"].to_numpy(object) if "e)" in call else None
+            want = ref(de["x"].to_numpy(float), ent) if len(de) else None
+            got = out[f"e{i}"]
+            got = None if got is None or got is pd.NA else float(got)
+            assert _close(got, want), f"{call} group {key}: got {got}, want {want}"
         d = d[d["x"].notna() & (d["w"].notna() if weighted else True)]
         x = d["x"].to_numpy(float)
         w = d["w"].to_numpy(float) if weighted else None

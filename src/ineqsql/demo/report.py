@@ -60,4 +60,6 @@ def run_demo(rows: int = 2_000_000, folder: str = "ineqsql-demo", seed: int = 20
     print(render_table(table, float_format="{:.4f}"))
     print(f"\n{len(per_province)} provinces, {rows:,} rows, computed in {seconds:.2f} s. "
           "Invented data: no real country, person or organisation.")
+    print(f"\nTry your own: ineqsql query \"SELECT year, gini(disposable_income, weight) FROM '{path}' "
+          "GROUP BY year ORDER BY year\"")
     return 0
