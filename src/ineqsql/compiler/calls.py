@@ -77,20 +77,16 @@ _FORBIDDEN_CLAUSES = {
 def check_position(node: exp.Anonymous, ctx: CompileContext) -> exp.Select:
     """Return the SELECT the call belongs to, or raise if the call stands where it cannot work."""
     name = node.name.lower()
-    parent = node.parent
-    if isinstance(parent, exp.Window) and node.arg_key == "this":
-        raise ctx.error(MeasureUsageError, f"{name}() cannot be used as a window function (… OVER (…)); "
-                        "it is an aggregate over each group", node, name)
     child, anc = node, node.parent
-    if isinstance(anc, exp.Filter) and node.arg_key == "this":
+    if isinstance(anc, exp.Filter) and child.arg_key == "this":  # measure(...) FILTER (WHERE …)
         for sub in anc.expression.walk():
             if is_measure(sub) or isinstance(sub, (exp.AggFunc, exp.Window, exp.Select)):
                 raise ctx.error(MeasureUsageError, f"{name}(): the FILTER condition must be a row-level "
                                 "expression", node, name)
         child, anc = anc, anc.parent
-        if isinstance(anc, exp.Window):
-            raise ctx.error(MeasureUsageError, f"{name}() cannot be used as a window function (… OVER (…)); "
-                            "it is an aggregate over each group", node, name)
+    if isinstance(anc, exp.Window) and child.arg_key == "this":
+        raise ctx.error(MeasureUsageError, f"{name}() cannot be used as a window function (… OVER (…)); "
+                        "it is an aggregate over each group", node, name)
     while anc is not None and not isinstance(anc, exp.Select):
         if isinstance(anc, exp.AggFunc) or is_measure(anc):
             outer = anc.name.lower() if is_measure(anc) else anc.sql_name().lower()
