@@ -49,7 +49,7 @@ def build_parser() -> argparse.ArgumentParser:
     q = sub.add_parser("query", help="compile and run a query on DuckDB",
                        description="Compile SQL with measure calls and run it on DuckDB. SQL is the text, "
                        "'-' for standard input, or @FILE.")
-    q.add_argument("sql", metavar="SQL")
+    q.add_argument("sql", metavar="SQL", help="the query: its text, - for standard input, or @FILE")
     q.add_argument("--format", choices=FORMATS, default="table", help="output format (default: table)")
     q.add_argument("--output", "-o", metavar="FILE", help="write to FILE (atomically) instead of the terminal")
     q.add_argument("--force", action="store_true", help="replace FILE if it exists")
@@ -57,7 +57,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     c = sub.add_parser("compile", help="print the plain SQL a query compiles to",
                        description="Print the plain SQL (no measure calls left) a query compiles to.")
-    c.add_argument("sql", metavar="SQL")
+    c.add_argument("sql", metavar="SQL", help="the query: its text, - for standard input, or @FILE")
     c.add_argument("--dialect", default="duckdb", help="target SQL dialect (default: duckdb)")
     c.add_argument("--read", default="duckdb", help="dialect the input is written in (default: duckdb)")
 
