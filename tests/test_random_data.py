@@ -10,6 +10,7 @@ import math
 import duckdb
 import numpy as np
 import pandas as pd
+import pytest
 from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
@@ -57,7 +58,8 @@ def test_random_groups_match_reference(rows, weighted):
     con = duckdb.connect()
     con.register("t", df)
     calls = [m.format(w=", w" if weighted else "") for m, _ in MEASURES]
-    sql = ("SELECT g, " + ", ".join(f"{c} AS m{i}" for i, c in enumerate(calls)) + ", "
+    curve = f"lorenz_curve(x, 7{', w' if weighted else ''})"
+    sql = ("SELECT g, " + ", ".join(f"{c} AS m{i}" for i, c in enumerate(calls)) + f", {curve} AS curve, "
            + ", ".join(f"{c} AS e{i}" for i, (c, _) in enumerate(ENTITY)) + " FROM t GROUP BY g")
     res = ineqsql.query(sql, con)
     assert len(res) == df["g"].nunique(dropna=False)
@@ -74,6 +76,14 @@ def test_random_groups_match_reference(rows, weighted):
         d = d[d["x"].notna() & (d["w"].notna() if weighted else True)]
         x = d["x"].to_numpy(float)
         w = d["w"].to_numpy(float) if weighted else None
+        want_curve = R.lorenz_curve(x, 7, w) if len(x) else None
+        got_curve = out["curve"]
+        if want_curve is None:
+            assert got_curve is None or got_curve is pd.NA or (isinstance(got_curve, float) and math.isnan(got_curve))
+        else:
+            assert [pt["p"] for pt in got_curve] == pytest.approx([p for p, _ in want_curve], abs=1e-15)
+            for pt, (_, v) in zip(got_curve, want_curve):
+                assert _close(pt["lorenz"], v), f"{curve} group {key}: got {list(got_curve)}, want {want_curve}"
         for i, (_, ref) in enumerate(MEASURES):
             want = ref(x, w) if len(x) else None
             got = out[f"m{i}"]

@@ -86,9 +86,8 @@ def build_percentile_ratio(ctx, params):
 
 
 def build_lorenz_curve(ctx, params):
-    k = int(params[0])
-    points = [s.struct(p=s.lit(j / k), lorenz=s.div(_below_mass(ctx, j / k), ctx.T)) for j in range(k + 1)]
-    return _if_positive_total(ctx, s.array(*points))
+    # k+1 points from one hash aggregate over grid cells (compiler/passes/grid.py), not k+1 sums per row
+    return ctx.lorenz_grid(int(params[0]))
 
 
 def build_hoover(ctx, params):

@@ -71,16 +71,19 @@ LOWERINGS = {
 
 
 def lower_passes(calls: list[MeasureCall], source: Source, main: MainAggregate, ctx: CompileContext):
-    """Lower every planned pass: (its CTEs, the names to join on the keys, call key → result)."""
-    ctes, names, results = [], [], {}
+    """Lower every planned pass: (its CTEs, the CTEs the final SELECT joins on the keys, call key →
+    result). The CTEs to join are those the results read, other than the main aggregate."""
+    ctes, results = [], {}
     for plan in plan_passes(calls):
         prefix, lower = LOWERINGS[plan.kind]
-        name = ctx.name(prefix) if prefix else None
-        new, res = lower(source, main, plan, name)
+        new, res = lower(source, main, plan, ctx.name(prefix) if prefix else None)
         ctes += new
         results.update(res)
-        if name:
-            names.append(name)
+    names = []
+    for expr in results.values():
+        for col in expr.find_all(exp.Column):
+            if col.table and col.table != main.name and col.table not in names:
+                names.append(col.table)
     return ctes, names, results
 
 

@@ -4,6 +4,7 @@ rows CTE:   keys, x, w                     (NULL x or weight, and zero weights, 
 window CTE: … , C (running weight), m (group minimum), W (group weight), μ (group mean)
             (only the columns the measures use; C and m share one window specification)
 result CTE: keys, one aggregate per measure call
+grid CTEs:  Lorenz points on a grid (lorenz_curve), from the window rows (see grid.py)
 """
 
 from __future__ import annotations
@@ -11,6 +12,7 @@ from __future__ import annotations
 from sqlglot import exp
 
 from ineqsql.compiler import sqlx as s
+from ineqsql.compiler.passes.grid import grid_table, lower_lorenz_grid
 from ineqsql.compiler.passes.source import (Source, build_results, checked_weight, cte, grouped, key_name,
                                              table, weight_label)
 
@@ -18,9 +20,18 @@ from ineqsql.compiler.passes.source import (Source, build_results, checked_weigh
 class OrderedContext:
     """Columns of the window CTE that measure builders write against (see catalog/ordered.py)."""
 
-    def __init__(self, weighted: bool):
+    def __init__(self, weighted: bool, name: str = "_iq_ord"):
         self.weighted = weighted
+        self.name = name
         self.used: set[str] = set()
+        self.grids: list[int] = []
+
+    def lorenz_grid(self, k: int) -> exp.Column:
+        """The column holding [(p, L(p)) for p = 0, 1/k, …, 1] per group (see passes/grid.py)."""
+        self.c, self.W_row  # the grid reads both from the window CTE
+        if k not in self.grids:
+            self.grids.append(k)
+        return s.col("_iq_curve", grid_table(self.name, k))
 
     @property
     def x(self):
@@ -93,7 +104,7 @@ def _window_columns(ctx: OrderedContext, keys: list[exp.Expression], minimum: ex
 def lower_ordered_pass(source: Source, main, plan, name: str) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:
     """CTEs of one ordered pass and, for each call key, the column that holds its result."""
     x, w, calls, condition = plan.x, plan.trailing, plan.calls, plan.condition
-    ctx = OrderedContext(weighted=w is not None)
+    ctx = OrderedContext(weighted=w is not None, name=name)
     out_cols, results = build_results(calls, ctx, name)
 
     xd = s.cast_double(x.copy())
@@ -110,8 +121,11 @@ def lower_ordered_pass(source: Source, main, plan, name: str) -> tuple[list[exp.
     minimum = source.rows([s.agg_min(xd.copy())], cond.copy())
     win = exp.Select(expressions=[k.copy() for k in base_cols] + _window_columns(ctx, keys, minimum)).from_(
         table(f"{name}_rows"))
-    final = grouped(keys, out_cols, f"{name}_win")
-    ctes = [cte(rows, f"{name}_rows"), cte(win, f"{name}_win"), cte(final, name)]
+    ctes = [cte(rows, f"{name}_rows"), cte(win, f"{name}_win")]
+    if out_cols:
+        ctes.append(cte(grouped(keys, out_cols, f"{name}_win"), name))
+    for k in ctx.grids:
+        ctes += lower_lorenz_grid(ctx, keys, name, k)
     return ctes, results
 
 

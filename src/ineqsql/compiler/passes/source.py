@@ -65,12 +65,17 @@ def table(name: str) -> exp.Table:
 
 def build_results(calls: list, ctx, name: str) -> tuple[list[exp.Expression], dict[tuple, exp.Expression]]:
     """One aggregate column per distinct call (``_iq_r1`` …) and, per call key, its column in ``name``."""
-    columns, results, seen = [], {}, {}
+    columns, results = [], {}
     for call in calls:
-        if call.key not in seen:
-            seen[call.key] = f"_iq_r{len(seen) + 1}"
-            columns.append(s.alias(call.measure.build(ctx, call.params), seen[call.key]))
-        results[call.key] = s.col(seen[call.key], name)
+        if call.key in results:
+            continue
+        built = call.measure.build(ctx, call.params)
+        if isinstance(built, exp.Column) and built.table:
+            results[call.key] = built  # already a column of a CTE of its own (e.g. a Lorenz grid)
+            continue
+        column = f"_iq_r{len(columns) + 1}"
+        columns.append(s.alias(built, column))
+        results[call.key] = s.col(column, name)
     return columns, results
 
 
