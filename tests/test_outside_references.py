@@ -68,6 +68,21 @@ def test_quantiles_match_numpy_inverted_cdf():
         assert df[f"q{i}"][0] == np.quantile(x, p, method="inverted_cdf", weights=w)
 
 
+def test_quantile_at_one_is_the_largest_value_with_float_weights():
+    # numpy inverted_cdf at p = 1 is the largest value (definition: smallest x with F(x) ≥ 1); with
+    # float weights the running sum and the total are rounded differently, which once gave NULL
+    rng = np.random.default_rng(11)
+    frames = [pd.DataFrame({"g": i, "x": rng.lognormal(0, 1, n), "w": rng.uniform(0.1, 3.0, n)})
+              for i, n in enumerate(rng.integers(5, 400, 60))]
+    df = pd.concat(frames, ignore_index=True)
+    res = run("SELECT g, quantile_w(x, 1, w) AS q1, percentile_ratio(x, 1, 0, w) AS r FROM t GROUP BY g ORDER BY g",
+              t=df)
+    for (g, d), q1, r in zip(df.groupby("g"), res["q1"], res["r"]):
+        top = np.quantile(d.x.to_numpy(), 1.0, method="inverted_cdf", weights=d.w.to_numpy())
+        assert q1 == top == d.x.max()
+        assert r == pytest.approx(d.x.max() / d.x.min(), rel=1e-15)
+
+
 @pytest.fixture(scope="module")
 def samples():
     rng = np.random.default_rng(20261201)

@@ -46,9 +46,14 @@ def _ratio(num, den):
 
 
 def quantile_at(ctx, p: float) -> exp.Expression:
-    """Smallest x_i with C_i/W ≥ p (weighted inverted CDF)."""
+    """Smallest x_i with C_i/W ≥ p (weighted inverted CDF).
+
+    The running sum C_n and the group total W are summed in different orders, so C_n/W can come
+    out a hair below 1 and leave no row reaching p = 1 (or p within rounding of it): then the
+    answer is the last row, the largest x.
+    """
     reached = s.gte(s.div(ctx.c, ctx.W_row), s.lit(p))
-    return s.agg_min(s.case(reached, ctx.x))
+    return exp.Coalesce(this=s.agg_min(s.case(reached, ctx.x)), expressions=[s.agg_max(ctx.x)])
 
 
 def build_gini(ctx, params):
