@@ -13,23 +13,30 @@ from ineqsql.demo.data import COUNTRY, write_survey
 from ineqsql.engine.output import render_table
 from ineqsql.engine.runner import connect
 
-MEASURES = [
-    ("Gini", "gini({v}, weight)"),
-    ("Palma", "palma({v}, weight)"),
-    ("S80/S20", "s80s20({v}, weight)"),
-    ("Theil", "theil({v}, weight)"),
-    ("Top10%", "top_share({v}, 0.1, weight)"),
-]
-INCOMES = [("gross", "gross_income"), ("disp", "disposable_income")]
+# The report is the SQL an analyst would write, kept as plain text so the demo can show it.
+MEASURE_COLUMNS = """gini(gross_income, weight)                 AS "Gini gross",
+       gini(disposable_income, weight)            AS "Gini disp",
+       palma(gross_income, weight)                AS "Palma gross",
+       palma(disposable_income, weight)           AS "Palma disp",
+       s80s20(gross_income, weight)               AS "S80/S20 gross",
+       s80s20(disposable_income, weight)          AS "S80/S20 disp",
+       theil(gross_income, weight)                AS "Theil gross",
+       theil(disposable_income, weight)           AS "Theil disp",
+       top_share(gross_income, 0.1, weight)       AS "Top10% gross",
+       top_share(disposable_income, 0.1, weight)  AS "Top10% disp"
+""".rstrip()
 
+PER_PROVINCE_SQL = """SELECT province, count(*) AS households,
+       """ + MEASURE_COLUMNS + """
+FROM survey
+WHERE year = (SELECT max(year) FROM survey)
+GROUP BY province
+ORDER BY "Gini disp" DESC"""
 
-def report_sql(by_province: bool) -> str:
-    cols = [f"{call.format(v=col)} AS \"{label} {short}\""
-            for label, call in MEASURES for short, col in INCOMES]
-    head = "province" if by_province else "'(all provinces)' AS province"
-    tail = "GROUP BY province\nORDER BY \"Gini disp\" DESC" if by_province else ""
-    return (f"SELECT {head}, count(*) AS households,\n       " + ",\n       ".join(cols)
-            + "\nFROM survey\nWHERE year = (SELECT max(year) FROM survey)\n" + tail).strip()
+OVERALL_SQL = """SELECT '(all provinces)' AS province, count(*) AS households,
+       """ + MEASURE_COLUMNS + """
+FROM survey
+WHERE year = (SELECT max(year) FROM survey)"""
 
 
 def run_demo(rows: int = 2_000_000, folder: str = "ineqsql-demo", seed: int = 20261201, con=None,
@@ -46,12 +53,11 @@ def run_demo(rows: int = 2_000_000, folder: str = "ineqsql-demo", seed: int = 20
 
     con = connect(con, **{k: v for k, v in settings.items() if v is not None})
     con.read_parquet(str(path)).create_view("survey")
-    sql = report_sql(by_province=True)
     print("\nThe report is one query (the survey Parquet file is the view `survey`):\n")
-    print(sql + "\n")
+    print(PER_PROVINCE_SQL + "\n")
     t0 = time.perf_counter()
-    per_province = ineqsql.query(sql, con)
-    overall = ineqsql.query(report_sql(by_province=False), con)
+    per_province = ineqsql.query(PER_PROVINCE_SQL, con)
+    overall = ineqsql.query(OVERALL_SQL, con)
     seconds = time.perf_counter() - t0
     table = pd.concat([per_province, overall], ignore_index=True)
     year = con.execute("SELECT max(year) FROM survey").fetchone()[0]
