@@ -64,10 +64,6 @@ def div(a, b):
     return exp.Div(this=paren(a), expression=paren(b))
 
 
-def neg(a):
-    return exp.Neg(this=paren(a))
-
-
 def func(name: str, *args: exp.Expression) -> exp.Expression:
     return exp.func(name, *args)
 
@@ -164,10 +160,6 @@ def neq(a, b):
 
 def not_null(e):
     return exp.Not(this=exp.Is(this=e, expression=exp.Null()))
-
-
-def null():
-    return exp.Null()
 
 
 def alias(e, name: str) -> exp.Alias:
