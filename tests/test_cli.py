@@ -143,3 +143,11 @@ def test_database_option(tmp_path, capsys):
     missing = tmp_path / "nope.duckdb"
     assert main(["query", "--database", str(missing), "SELECT 1"]) == 2
     assert "no database file" in capsys.readouterr().err and not missing.exists()
+
+
+def test_strict_flag(capsys):
+    sql = "SELECT g, mld(x) FROM (VALUES ('a', 0.0), ('a', 1.0)) t(g, x) GROUP BY g"
+    assert main(["query", sql]) == 0
+    capsys.readouterr()
+    assert main(["query", "--strict", sql]) == 2
+    assert "undefined (NULL) for the group g=a" in capsys.readouterr().err

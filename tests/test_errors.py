@@ -6,7 +6,7 @@ import pytest
 
 import ineqsql
 from ineqsql.errors import (ExecutionError, InputDataError, MeasureArgumentError, MeasureUsageError,
-                            SqlParseError, UnsupportedSqlError)
+                            SqlParseError, UndefinedResultError, UnsupportedSqlError)
 
 
 @pytest.mark.parametrize("sql,cls,fragment,line,col", [
@@ -28,6 +28,7 @@ from ineqsql.errors import (ExecutionError, InputDataError, MeasureArgumentError
     ("SELECT gini(x ORDER BY y) FROM t", MeasureArgumentError, "does not take ORDER BY", 1, 8),
     ("SELECT gini(x) FILTER (WHERE avg(y) > 1) FROM t", MeasureUsageError, "FILTER condition", 1, 8),
     ("SELECT gini(x) FILTER (WHERE y > 1) OVER () FROM t", MeasureUsageError, "window function", 1, 8),
+    ("SELECT mld(x, strict := 1) FROM t", MeasureArgumentError, "strict must be true or false", 1, 8),
     ("SELECT gini(x, strata := h) FROM t", MeasureArgumentError, "unknown named argument 'strata'", 1, 8),
     ("SELECT g, gini(x) FROM t GROUP BY ROLLUP (g)", UnsupportedSqlError, "ROLLUP", None, None),
     ("SELECT *, gini(x) FROM t", UnsupportedSqlError, "SELECT *", None, None),
@@ -95,3 +96,27 @@ def test_measure_names_as_column_names_are_fine():
     # two values 1 and 3: Σ|xi−xj| over ordered pairs = 4, 2·n²·μ = 2·4·2 = 16 → 0.25 (pairwise definition)
     assert df["gini"][0] == pytest.approx(0.25, rel=1e-12)
 
+
+
+STRICT_DATA = "(VALUES ('a', 1.0), ('a', 0.0), ('b', 2.0), ('b', 4.0), (NULL, -1.0)) t(g, x)"
+
+
+def test_strict_call_names_the_group():
+    # mld needs x > 0 (DESIGN domain rule): group 'a' holds a zero
+    with pytest.raises(UndefinedResultError, match=r"mld\(x, strict := TRUE\) is undefined \(NULL\) for the group g=a"):
+        ineqsql.query(f"SELECT g, mld(x, strict := true) FROM {STRICT_DATA} WHERE g IS NOT NULL GROUP BY g")
+    # gini needs T > 0: the NULL group sums to −1
+    with pytest.raises(UndefinedResultError, match="for the group g=NULL"):
+        ineqsql.query(f"SELECT g, gini(x) FROM {STRICT_DATA} GROUP BY g", strict=True)
+
+
+def test_strict_passes_defined_groups_and_can_be_turned_off_per_call():
+    df = ineqsql.query(f"SELECT g, mld(x) AS m FROM {STRICT_DATA} WHERE g = 'b' GROUP BY g", strict=True)
+    # (2, 4): μ = 3, MLD = ln 3 − (ln 2 + ln 4)/2 (definition)
+    import math
+    assert df["m"][0] == pytest.approx(math.log(3) - (math.log(2) + math.log(4)) / 2, rel=1e-12)
+    df = ineqsql.query(f"SELECT g, mld(x, strict := false) AS m FROM {STRICT_DATA} GROUP BY g ORDER BY g",
+                       strict=True)
+    assert df["m"].isna().tolist() == [True, False, True]
+    with pytest.raises(UndefinedResultError, match="the whole input"):
+        ineqsql.query("SELECT theil(x) FROM (VALUES (-1.0), (2.0)) t(x)", strict=True)

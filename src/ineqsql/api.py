@@ -13,20 +13,25 @@ from ineqsql.engine.frames import register_caller_frames
 from ineqsql.engine.runner import connect, execute_df
 
 
-def compile(sql: str, dialect: str = "duckdb", *, read: str = "duckdb", pretty: bool = True) -> str:  # noqa: A001
-    """Compile SQL with measure calls into plain SQL for ``dialect`` (no measure calls left)."""
-    return compile_sql(sql, dialect=dialect, read=read, pretty=pretty)
+def compile(sql: str, dialect: str = "duckdb", *, read: str = "duckdb", pretty: bool = True,  # noqa: A001
+            strict: bool = False) -> str:
+    """Compile SQL with measure calls into plain SQL for ``dialect`` (no measure calls left).
+
+    ``strict=True``: a measure that is undefined for a group (NULL) stops the query with an error
+    naming the group, as ``strict := true`` does for one call.
+    """
+    return compile_sql(sql, dialect=dialect, read=read, pretty=pretty, strict=strict)
 
 
 def query(sql: str, con: duckdb.DuckDBPyConnection | None = None, *, memory_limit: str | None = None,
           threads: int | None = None, temp_directory: str | None = None,
-          progress: bool = False) -> pd.DataFrame:
+          progress: bool = False, strict: bool = False) -> pd.DataFrame:
     """Compile ``sql`` and run it on DuckDB (``con``, or a new in-memory connection).
 
     Tables the query names may also be pandas DataFrames or Arrow tables held by the calling code
     under that name, as with ``duckdb.sql``.
     """
-    compiled = compile_sql(sql, dialect="duckdb", pretty=False)
+    compiled = compile_sql(sql, dialect="duckdb", pretty=False, strict=strict)
     connection = connect(con, memory_limit=memory_limit, threads=threads, temp_directory=temp_directory,
                          progress=progress)
     registered = register_caller_frames(connection, sql, inspect.currentframe().f_back)

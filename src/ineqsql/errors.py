@@ -62,3 +62,7 @@ class ExecutionError(IneqsqlError):
 
 class InputDataError(IneqsqlError):
     """The data break a documented rule (e.g. a negative weight)."""
+
+
+class UndefinedResultError(IneqsqlError):
+    """In strict mode, a measure is undefined (NULL) for a group."""

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Callable, Literal
 
 from sqlglot import exp
@@ -51,7 +51,7 @@ class Measure:
     returns: Literal["double", "lorenz_points"] = "double"
     domain: str = ""
     max_count: int | None = None  # cap for a "count" parameter (e.g. lorenz_curve points)
-    options: tuple[str, ...] = field(default_factory=tuple)
+    options: tuple[str, ...] = ("strict",)  # named arguments the measure accepts
 
     def pass_for(self, has_trailing: bool) -> PassKind:
         if isinstance(self.passes, tuple):

@@ -53,6 +53,8 @@ def build_parser() -> argparse.ArgumentParser:
     q.add_argument("--format", choices=FORMATS, default="table", help="output format (default: table)")
     q.add_argument("--output", "-o", metavar="FILE", help="write to FILE (atomically) instead of the terminal")
     q.add_argument("--force", action="store_true", help="replace FILE if it exists")
+    q.add_argument("--strict", action="store_true",
+                   help="stop with an error naming the group where a measure is undefined (instead of NULL)")
     _add_engine_options(q)
 
     c = sub.add_parser("compile", help="print the plain SQL a query compiles to",
@@ -60,6 +62,7 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("sql", metavar="SQL", help="the query: its text, - for standard input, or @FILE")
     c.add_argument("--dialect", default="duckdb", help="target SQL dialect (default: duckdb)")
     c.add_argument("--read", default="duckdb", help="dialect the input is written in (default: duckdb)")
+    c.add_argument("--strict", action="store_true", help="compile every measure call as strict")
 
     sub.add_parser("measures", help="list the measures with their arguments and formulas",
                    description="List every measure: arguments, formula, domain.")
@@ -91,7 +94,7 @@ def _settings(args) -> dict:
 
 
 def cmd_query(args) -> int:
-    df = ineqsql.query(_read_sql(args.sql), _connection(args), **_settings(args))
+    df = ineqsql.query(_read_sql(args.sql), _connection(args), strict=args.strict, **_settings(args))
     if args.output:
         write_result(df, args.output, args.format, overwrite=args.force)
         print(f"wrote {len(df)} rows to {args.output}", file=sys.stderr)
@@ -101,7 +104,7 @@ def cmd_query(args) -> int:
 
 
 def cmd_compile(args) -> int:
-    print(ineqsql.compile(_read_sql(args.sql), dialect=args.dialect, read=args.read))
+    print(ineqsql.compile(_read_sql(args.sql), dialect=args.dialect, read=args.read, strict=args.strict))
     return 0
 
 
@@ -111,7 +114,8 @@ def cmd_measures(args) -> int:
     for r in rows:
         print(f"{r['signature']:<{width}}  {r['formula']}  [{r['domain']}]")
     print("\nx: the value; w: an optional weight (rows with NULL x or w are skipped, w = 0 changes nothing, "
-          "w < 0 is an error); p: a fraction in [0, 1]. A group where a measure is undefined gets NULL.")
+          "w < 0 is an error); p: a fraction in [0, 1]. A group where a measure is undefined gets NULL;\n"
+          "with strict := true in a call (or --strict for the query) it stops the query instead, naming the group.")
     print("HHI and CR_k are estimates from the data given, not legal or regulatory findings; screening "
           "thresholds are for the competent authority to apply.")
     return 0

@@ -24,6 +24,7 @@ class MeasureCall:
     trailing: exp.Expression | None
     options: dict[str, exp.Expression] = field(default_factory=dict)
     filter: exp.Expression | None = None  # the condition of ``measure(...) FILTER (WHERE …)``
+    strict: bool = False  # an undefined result stops the query with an error naming the group
     key: tuple = ()  # call_key(node), computed once
 
     def __post_init__(self):
@@ -182,6 +183,13 @@ def read_call(node: exp.Anonymous, ctx: CompileContext) -> MeasureCall:
             pass  # a constant weight is allowed and acts like no weight
         elif isinstance(trailing, exp.Null):
             raise ctx.error(MeasureArgumentError, f"{name}(): the {measure.trailing} cannot be NULL", node, name)
+    strict = ctx.strict
+    if "strict" in options:
+        flag = options["strict"]
+        if not isinstance(flag, exp.Boolean):
+            raise ctx.error(MeasureArgumentError, f"{name}(): strict must be true or false, got {text(flag)}",
+                            node, name)
+        strict = bool(flag.this)
     cond = call_filter(node)
     return MeasureCall(node=node, measure=measure, x=x, params=tuple(params), trailing=trailing, options=options,
-                       filter=cond.copy() if cond is not None else None)
+                       filter=cond.copy() if cond is not None else None, strict=strict)

@@ -31,6 +31,7 @@ def text(node: exp.Expression) -> str:
 @dataclass
 class CompileContext:
     sql: str | None = None
+    strict: bool = False  # every measure call strict unless it says strict := false
     counters: dict[str, int] = field(default_factory=lambda: defaultdict(int))
 
     def name(self, kind: str) -> str:

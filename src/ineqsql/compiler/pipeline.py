@@ -54,9 +54,11 @@ def compile_tree(tree: exp.Expression, ctx: CompileContext) -> exp.Expression:
     return tree
 
 
-def compile_sql(sql: str, dialect: str = "duckdb", read: str = "duckdb", pretty: bool = True) -> str:
-    """Compile SQL text with measure calls into plain SQL for ``dialect``."""
+def compile_sql(sql: str, dialect: str = "duckdb", read: str = "duckdb", pretty: bool = True,
+                strict: bool = False) -> str:
+    """Compile SQL text with measure calls into plain SQL for ``dialect``; ``strict`` makes every
+    measure call strict (an undefined result stops the query, naming the group)."""
     check_dialect(dialect)
-    ctx = CompileContext(sql=sql)
+    ctx = CompileContext(sql=sql, strict=strict)
     tree = compile_tree(parse_one_statement(sql, read), ctx)
     return generate(tree, dialect, pretty=pretty)

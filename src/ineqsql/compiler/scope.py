@@ -79,12 +79,27 @@ def lower_passes(calls: list[MeasureCall], source: Source, main: MainAggregate, 
         new, res = lower(source, main, plan, ctx.name(prefix) if prefix else None)
         ctes += new
         results.update(res)
+    for call in calls:
+        if call.strict:
+            results[call.key] = guard_strict(results[call.key], call, source.keys, main.name)
     names = []
     for expr in results.values():
         for col in expr.find_all(exp.Column):
             if col.table and col.table != main.name and col.table not in names:
                 names.append(col.table)
     return ctes, names, results
+
+
+def guard_strict(value: exp.Expression, call: MeasureCall, keys: list[exp.Expression], main: str) -> exp.Expression:
+    """CASE WHEN value IS NULL THEN error('… undefined … for the group k1=…, k2=…') ELSE value END."""
+    parts: list[exp.Expression] = [s.lit(f"ineqsql: {text(call.node)} is undefined (NULL) for ")]
+    if not keys:
+        parts.append(s.lit("the whole input"))
+    for i, key in enumerate(keys):
+        shown = exp.Coalesce(this=exp.cast(s.col(key_name(i), main), "varchar"), expressions=[s.lit("NULL")])
+        parts += [s.lit(("the group " if i == 0 else ", ") + f"{text(key)}="), shown]
+    message = exp.Concat(expressions=parts)
+    return s.case(exp.Is(this=value.copy(), expression=exp.Null()), s.raise_error_expr(message), value.copy())
 
 
 def check_scope(select: exp.Select, ctx: CompileContext) -> None:

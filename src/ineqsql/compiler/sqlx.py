@@ -168,7 +168,11 @@ def alias(e, name: str) -> exp.Alias:
 
 def raise_error(message: str) -> exp.Expression:
     """An expression that aborts the query with ``message`` (DuckDB ``error``)."""
-    return exp.Anonymous(this="error", expressions=[lit(message)])
+    return raise_error_expr(lit(message))
+
+
+def raise_error_expr(message: exp.Expression) -> exp.Expression:
+    return exp.Anonymous(this="error", expressions=[message])
 
 
 def struct(**fields: exp.Expression) -> exp.Struct:

@@ -7,7 +7,7 @@ import re
 import duckdb
 import pandas as pd
 
-from ineqsql.errors import ExecutionError, InputDataError
+from ineqsql.errors import ExecutionError, InputDataError, UndefinedResultError
 
 _SETTINGS = ("memory_limit", "threads", "temp_directory")
 
@@ -57,4 +57,8 @@ def translate_error(e: Exception) -> Exception:
     m = re.search(r"ineqsql: (negative weight in .*?)(?:\n|$)", text)
     if m:
         return InputDataError(f"{m.group(1).rstrip()} (weights must be ≥ 0; rows with weight 0 change nothing and are skipped)")
+    m = re.search(r"ineqsql: (.*? is undefined \(NULL\) for .*?)(?:\n|$)", text)
+    if m:
+        return UndefinedResultError(f"{m.group(1).rstrip()} (strict mode: an empty group, a total ≤ 0 or "
+                                    "values outside the measure's domain; see `ineqsql measures`)")
     return ExecutionError(f"DuckDB could not run the query: {_first_line(e)}")
