@@ -78,7 +78,8 @@ def oracle_sql(sql: str) -> str:
         if not (isinstance(node, exp.Anonymous) and catalog.lookup(node.name)):
             return node
         m = catalog.lookup(node.name)
-        args = node.expressions
+        # named options (strict := …) do not change a defined value: the oracle leaves them out
+        args = [a for a in node.expressions if type(a) not in (exp.PropertyEQ, exp.Kwarg)]
         nparams = len(m.params)
         params = [_constant(a) for a in args[1:1 + nparams]]
         trailing = args[1 + nparams] if len(args) > 1 + nparams else None
