@@ -42,3 +42,17 @@ def test_queries_without_from():
     df = ineqsql.query("SELECT gini(2.0) AS g, cv(2.0) AS c, hhi(2.0) AS h")
     # one value: no inequality; one entity holds everything (facts of common practice)
     assert df["g"][0] == 0.0 and df["c"][0] == 0.0 and df["h"][0] == pytest.approx(10000.0, rel=1e-12)
+
+
+def test_group_by_name_binds_to_a_column_before_an_alias_like_duckdb():
+    con = duckdb.connect()
+    con.execute("CREATE TABLE t AS SELECT * FROM (VALUES ('a', 1.0), ('A', 3.0), ('b', 2.0)) v(g, x)")
+    sql = "SELECT upper(g) AS g, count(*) AS n FROM t GROUP BY g ORDER BY 1, 2"
+    plain = con.execute(sql).fetchall()  # DuckDB's own grouping is the reference here
+    ours = ineqsql.query(sql.replace("count(*) AS n", "count(*) AS n, gini(x) AS gi"), con)
+    assert [tuple(r) for r in ours[["g", "n"]].itertuples(index=False)] == plain == [("A", 1), ("A", 1), ("B", 1)]
+    # and an alias that is no column of the source is the aliased expression
+    df = ineqsql.query("SELECT x > 1.5 AS big, count(*) AS n, gini(x) AS gi FROM t GROUP BY big ORDER BY big", con)
+    assert df["n"].tolist() == [1, 2]
+    # the big group (2, 3): Gini = |2 − 3|·2 / (2·2²·2.5) = 0.1 (pairwise definition)
+    assert df["gi"].tolist() == pytest.approx([0.0, 0.1], abs=1e-15)

@@ -9,6 +9,7 @@ import pandas as pd
 
 from ineqsql.catalog import MEASURES
 from ineqsql.compiler import compile_sql
+from ineqsql.engine.columns import duckdb_source_columns
 from ineqsql.engine.frames import register_caller_frames
 from ineqsql.engine.runner import connect, execute_df
 
@@ -31,11 +32,12 @@ def query(sql: str, con: duckdb.DuckDBPyConnection | None = None, *, memory_limi
     Tables the query names may also be pandas DataFrames or Arrow tables held by the calling code
     under that name, as with ``duckdb.sql``.
     """
-    compiled = compile_sql(sql, dialect="duckdb", pretty=False, strict=strict)
     connection = connect(con, memory_limit=memory_limit, threads=threads, temp_directory=temp_directory,
                          progress=progress)
     registered = register_caller_frames(connection, sql, inspect.currentframe().f_back)
     try:
+        compiled = compile_sql(sql, dialect="duckdb", pretty=False, strict=strict,
+                               source_columns=duckdb_source_columns(connection))
         return execute_df(connection, compiled)
     finally:
         for name in registered:

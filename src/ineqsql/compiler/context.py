@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from collections import defaultdict
 from dataclasses import dataclass, field
+from typing import Callable
 
 from sqlglot import exp
 
@@ -32,6 +33,8 @@ def text(node: exp.Expression) -> str:
 class CompileContext:
     sql: str | None = None
     strict: bool = False  # every measure call strict unless it says strict := false
+    # columns the FROM clause of a SELECT provides, when an engine can say (None: unknown)
+    source_columns: Callable[[exp.Select], set[str] | None] | None = None
     counters: dict[str, int] = field(default_factory=lambda: defaultdict(int))
 
     def name(self, kind: str) -> str:

@@ -41,7 +41,8 @@ def resolve_group_keys(select: exp.Select, ctx: CompileContext) -> list[exp.Expr
                 raise ctx.error(UnsupportedSqlError, f"GROUP BY {pos} refers to an aggregate", e)
             keys.append(target.copy())
         elif isinstance(e, exp.Column) and not e.table and e.name in aliases \
-                and not (isinstance(aliases[e.name], exp.Column) and aliases[e.name].name == e.name):
+                and not (isinstance(aliases[e.name], exp.Column) and aliases[e.name].name == e.name) \
+                and not _is_source_column(select, e.name, ctx):
             # a select alias (DuckDB allows GROUP BY alias); the aliased expression is the key
             if _aggregated(aliases[e.name]):
                 raise ctx.error(UnsupportedSqlError, f"GROUP BY {e.name} refers to an aggregate", e)
@@ -58,3 +59,12 @@ def same_key(node: exp.Expression, key: exp.Expression) -> bool:
     if isinstance(node, exp.Column) and isinstance(key, exp.Column) and node.name == key.name:
         return not node.table or not key.table or node.table == key.table
     return False
+
+
+def _is_source_column(select: exp.Select, name: str, ctx: CompileContext) -> bool:
+    """DuckDB binds a GROUP BY name to a column of the FROM clause before a select alias. Without an
+    engine to ask (``compile`` alone) the columns are unknown and the alias is taken."""
+    if ctx.source_columns is None:
+        return False
+    columns = ctx.source_columns(select)
+    return columns is not None and name.lower() in columns

@@ -55,10 +55,11 @@ def compile_tree(tree: exp.Expression, ctx: CompileContext) -> exp.Expression:
 
 
 def compile_sql(sql: str, dialect: str = "duckdb", read: str = "duckdb", pretty: bool = True,
-                strict: bool = False) -> str:
+                strict: bool = False, source_columns=None) -> str:
     """Compile SQL text with measure calls into plain SQL for ``dialect``; ``strict`` makes every
-    measure call strict (an undefined result stops the query, naming the group)."""
+    measure call strict (an undefined result stops the query, naming the group);
+    ``source_columns(select)`` may tell the columns a SELECT's FROM provides (see keys.py)."""
     check_dialect(dialect)
-    ctx = CompileContext(sql=sql, strict=strict)
+    ctx = CompileContext(sql=sql, strict=strict, source_columns=source_columns)
     tree = compile_tree(parse_one_statement(sql, read), ctx)
     return generate(tree, dialect, pretty=pretty)
