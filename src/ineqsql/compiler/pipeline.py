@@ -21,9 +21,9 @@ def _depth(node: exp.Expression) -> int:
 
 def _check_not_correlated(select: exp.Select, calls, ctx: CompileContext) -> None:
     """A scope inside an expression (scalar or IN subquery) must not use columns of outer scopes."""
-    if not isinstance(select.parent, exp.Subquery) or select.parent.arg_key in ("from_", "this", "joins"):
-        if not isinstance(select.parent, exp.Subquery) or isinstance(select.parent.parent, (exp.From, exp.Join)):
-            return
+    parent = select.parent
+    if not isinstance(parent, exp.Subquery) or isinstance(parent.parent, (exp.From, exp.Join)):
+        return  # a source (FROM, JOIN, CTE body) is evaluated on its own
     visible = {t.alias_or_name for t in select.find_all(exp.Table)}
     for col in select.find_all(exp.Column):
         if col.table and col.table not in visible:
