@@ -84,6 +84,12 @@ def build_cv(ctx, params=()):
     return s.case(s.gt(ctx.T, ZERO), s.div(s.sqrt(s.div(spread, ctx.W)), mean))
 
 
+def build_hoover(ctx, params=()):
+    # centred pass: ½ Σ |w_i x_i / T − w_i / W| = ½ Σ w_i |x_i − μ| / T (no sort needed)
+    spread = ctx.sum(s.mul(ctx.w, s.absval(s.sub(ctx.x, ctx.mu))))
+    return s.case(s.gt(ctx.T, ZERO), s.div(s.mul(s.lit(0.5), spread), ctx.T))
+
+
 def build_hhi_rows(ctx, params=()):
     # every row its own entity: 10000 Σ x² / (Σ x)²
     squares = ctx.sum(s.mul(ctx.x, ctx.x))
@@ -107,4 +113,6 @@ MEASURES = [
             ref.atkinson, domain="0 ≤ ε < 1: x ≥ 0; ε ≥ 1: x > 0"),
     Measure("cv", "centred", (), "weight", "sqrt(Σ w (x − μ)² / W) / μ", build_cv, ref.cv,
             domain="μ > 0"),
+    Measure("hoover", "centred", (), "weight", "½ Σ |w_i x_i / T − w_i / W|", build_hoover, ref.hoover,
+            domain="any x; NULL when T ≤ 0"),
 ]

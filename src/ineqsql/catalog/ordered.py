@@ -1,8 +1,9 @@
 """Measures computed on the ordered pass: rows sorted by value within each group.
+(Hoover needs no order: it lives in moment.py and runs on the centred pass.)
 
 Context columns (row level): ``x``, ``w`` (literal 1.0 when unweighted), ``c`` = running weight C_i,
-``min_row`` = the group's smallest value, ``W_row`` = the group's total weight, ``mu_row`` = the
-group's weighted mean (the last two cost extra window aggregates: use them only when needed). Aggregates: ``W``,
+``min_row`` = the group's smallest value, ``W_row`` = the group's total weight (an extra window
+aggregate: use it only when needed). Aggregates: ``W``,
 ``T``, ``n``. Every build returns one aggregate expression per group.
 """
 
@@ -95,12 +96,6 @@ def build_lorenz_curve(ctx, params):
     return ctx.lorenz_grid(int(params[0]))
 
 
-def build_hoover(ctx, params):
-    # ½ Σ |w_i x_i / T − w_i / W| = ½ Σ w_i |x_i − μ| / T
-    spread = s.agg_sum(s.mul(ctx.w, s.absval(s.sub(ctx.x, ctx.mu_row))))
-    return _if_positive_total(ctx, s.div(s.mul(s.lit(0.5), spread), ctx.T))
-
-
 MEASURES = [
     Measure("gini", "ordered", (), "weight", "Σ w_i x_i (2C_i − w_i − W) / (W·T)", build_gini, ref.gini,
             domain="any x; NULL when T ≤ 0"),
@@ -125,6 +120,4 @@ MEASURES = [
     Measure("lorenz_curve", "ordered", (Param("k", "count", "number of segments"),), "weight",
             "[(p, L(p)) for p = 0, 1/k, …, 1] as a list of structs", build_lorenz_curve, ref.lorenz_curve,
             returns="lorenz_points", domain="any x; NULL when T ≤ 0", max_count=1000),
-    Measure("hoover", "ordered", (), "weight", "½ Σ |w_i x_i / T − w_i / W|", build_hoover, ref.hoover,
-            domain="any x; NULL when T ≤ 0"),
 ]

@@ -1,7 +1,7 @@
 """Ordered pass: per group, rows sorted by value with running weight C_i, then one GROUP BY.
 
 rows CTE:   keys, x, w                     (NULL x or weight, and zero weights, dropped)
-window CTE: … , C (running weight), m (group minimum), W (group weight), μ (group mean)
+window CTE: … , C (running weight), m (group minimum), W (group weight)
             (only the columns the measures use; C and m share one window specification)
 result CTE: keys, one aggregate per measure call
 grid CTEs:  Lorenz points on a grid (lorenz_curve), from the window rows (see grid.py)
@@ -57,11 +57,6 @@ class OrderedContext:
         return s.col("_iq_wt")
 
     @property
-    def mu_row(self):
-        self.used.add("mu")
-        return s.col("_iq_mu")
-
-    @property
     def W(self):
         return s.agg_sum(s.col("_iq_w")) if self.weighted else s.cast_double(s.agg_count_star())
 
@@ -94,10 +89,6 @@ def _window_columns(ctx: OrderedContext, keys: list[exp.Expression], minimum: ex
         total = (s.window(s.agg_sum(w.copy()), part()) if ctx.weighted
                  else s.cast_double(s.window(s.agg_count_star(), part())))
         cols.append(s.alias(total, "_iq_wt"))
-    if "mu" in ctx.used:
-        mean = (s.div(s.window(s.agg_sum(s.mul(w.copy(), x.copy())), part()), s.window(s.agg_sum(w.copy()), part()))
-                if ctx.weighted else s.window(exp.Avg(this=x.copy()), part()))
-        cols.append(s.alias(mean, "_iq_mu"))
     return cols
 
 
