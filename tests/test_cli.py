@@ -151,3 +151,11 @@ def test_strict_flag(capsys):
     capsys.readouterr()
     assert main(["query", "--strict", sql]) == 2
     assert "undefined (NULL) for the group g=a" in capsys.readouterr().err
+
+
+def test_unwritable_demo_folder_is_a_message(tmp_path, capsys):
+    blocker = tmp_path / "file"
+    blocker.write_text("not a folder")
+    assert main(["demo", "--rows", "10", "--dir", str(blocker / "sub")]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith("ineqsql: error:") and "Traceback" not in err

@@ -140,6 +140,10 @@ def main(argv: list[str] | None = None) -> int:
     except IneqsqlError as e:
         print(f"ineqsql: error: {e}", file=sys.stderr)
         return 2
+    except OSError as e:  # a file or folder the user named cannot be read or written
+        where = f" ({e.filename})" if getattr(e, "filename", None) else ""
+        print(f"ineqsql: error: {e.strerror or e}{where}", file=sys.stderr)
+        return 2
     except KeyboardInterrupt:
         print("ineqsql: interrupted", file=sys.stderr)
         return 130
