@@ -61,4 +61,8 @@ def translate_error(e: Exception) -> Exception:
     if m:
         return UndefinedResultError(f"{m.group(1).rstrip()} (strict mode: an empty group, a total ≤ 0 or "
                                     "values outside the measure's domain; see `ineqsql measures`)")
+    if "Out of Memory" in text:
+        return ExecutionError(f"DuckDB could not run the query: {_first_line(e)} (raise the memory limit, "
+                              "e.g. --memory-limit 1GB; sorts and windows spill to the temp directory, but "
+                              "one very large group needs room for its window)")
     return ExecutionError(f"DuckDB could not run the query: {_first_line(e)}")
