@@ -1,6 +1,6 @@
 """Random query shapes, compiled and run, against the oracle (tests/oracle.py: DuckDB's own
 grouping, HAVING, ORDER BY, CTEs and subqueries, with each measure evaluated by the numpy
-reference). Seeded: 150 shapes in CI; INEQSQL_SHAPES=5000 for a longer run."""
+reference). Seeded: 150 shapes in CI; pytest -m slow runs 3000 more (seed INEQSQL_SEED, default 1)."""
 
 from __future__ import annotations
 
@@ -85,8 +85,16 @@ def con():
 
 
 def test_random_query_shapes_match_oracle(con):
-    rng = random.Random(20261201)
-    count = int(os.environ.get("INEQSQL_SHAPES", "150"))
+    check_shapes(con, seed=20261201, count=150)
+
+
+@pytest.mark.slow
+def test_many_random_query_shapes_match_oracle(con):
+    check_shapes(con, seed=int(os.environ.get("INEQSQL_SEED", "1")), count=3000)
+
+
+def check_shapes(con, seed: int, count: int) -> None:
+    rng = random.Random(seed)
     for case in range(count):
         sql = make_shape(rng)
         got = con.execute(ineqsql.compile(sql)).fetchall()
