@@ -6,10 +6,11 @@
 
 from ineqsql.api import compile, measures, query  # noqa: A004
 from ineqsql.errors import (ExecutionError, IneqsqlError, InputDataError, MeasureArgumentError,
-                            MeasureUsageError, SqlParseError, UndefinedResultError, UnsupportedSqlError)
+                            MeasureUsageError, SqlParseError, UndefinedResultError, UnsupportedDialectError,
+                            UnsupportedSqlError)
 
 __version__ = "0.1.0"
 
 __all__ = ["compile", "query", "measures", "IneqsqlError", "SqlParseError", "MeasureUsageError",
            "MeasureArgumentError", "UnsupportedSqlError", "ExecutionError", "InputDataError",
-           "UndefinedResultError"]
+           "UndefinedResultError", "UnsupportedDialectError"]

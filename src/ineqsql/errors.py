@@ -56,6 +56,10 @@ class UnsupportedSqlError(IneqsqlError):
     """The query uses a construct the compiler does not support around measure calls."""
 
 
+class UnsupportedDialectError(IneqsqlError):
+    """The target dialect is not one the compiler emits."""
+
+
 class ExecutionError(IneqsqlError):
     """The engine refused or failed to run a compiled query."""
 

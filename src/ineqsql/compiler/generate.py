@@ -4,14 +4,10 @@ from __future__ import annotations
 
 from sqlglot import exp
 
-from ineqsql.errors import IneqsqlError
+from ineqsql.errors import UnsupportedDialectError
 
 # Dialects whose output is executed in the test suite. Others arrive with their lowering rules.
 SUPPORTED_DIALECTS = ("duckdb",)
-
-
-class UnsupportedDialectError(IneqsqlError):
-    """The target dialect is not one the compiler emits."""
 
 
 def check_dialect(dialect: str) -> str:
