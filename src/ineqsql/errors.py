@@ -60,6 +60,10 @@ class UnsupportedDialectError(IneqsqlError):
     """The target dialect is not one the compiler emits."""
 
 
+class OutputError(IneqsqlError):
+    """The result could not be written where asked."""
+
+
 class ExecutionError(IneqsqlError):
     """The engine refused or failed to run a compiled query."""
 

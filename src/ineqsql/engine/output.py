@@ -11,13 +11,9 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from ineqsql.errors import IneqsqlError
+from ineqsql.errors import OutputError
 
 FORMATS = ("table", "csv", "json", "parquet")
-
-
-class OutputError(IneqsqlError):
-    """The result could not be written where asked."""
 
 
 def render_table(df: pd.DataFrame, max_rows: int = 200, float_format: str = "{:.6g}") -> str:
