@@ -33,12 +33,14 @@ def read_fixture(path: Path) -> tuple[str, str]:
 @pytest.fixture(scope="module")
 def con():
     c = duckdb.connect()
+    before = os.getcwd()
     os.chdir(ROOT)  # fixtures name Parquet files relative to the project root
     c.execute("CREATE TABLE survey AS SELECT * FROM 'fixtures/data/survey.parquet'")
     c.execute("CREATE TABLE sellers AS SELECT * FROM 'fixtures/data/sellers.parquet'")
     install_oracle(c)
     yield c
     c.close()
+    os.chdir(before)
 
 
 @pytest.mark.parametrize("path", GOLDEN, ids=[p.stem for p in GOLDEN])
