@@ -8,8 +8,6 @@ Every ln and power is guarded by a CASE so no engine sees ln(0) or a power of a 
 
 from __future__ import annotations
 
-import math
-
 from sqlglot import exp
 
 from ineqsql import reference as ref
@@ -94,10 +92,6 @@ def build_hhi_rows(ctx, params=()):
     # every row its own entity: 10000 Σ x² / (Σ x)²
     squares = ctx.sum(s.mul(ctx.x, ctx.x))
     return s.case(_nonneg(ctx), s.div(s.mul(s.lit(10000.0), squares), s.mul(ctx.T, ctx.T)))
-
-
-def _check_ge(value):
-    return None if math.isfinite(value) else "alpha must be finite"
 
 
 MEASURES = [

@@ -69,7 +69,8 @@ class OrderedContext:
         return s.agg_count_star()
 
 
-def _window_columns(ctx: OrderedContext, keys: list[exp.Expression], minimum: exp.Select) -> list[exp.Expression]:
+def _window_columns(ctx: OrderedContext, keys: list[exp.Expression],
+                    minimum: exp.Select | None) -> list[exp.Expression]:
     x, w = s.col("_iq_x"), ctx.w
     part = lambda: [k.copy() for k in keys]  # noqa: E731
     cols = []
@@ -109,7 +110,7 @@ def lower_ordered_pass(source: Source, main, plan, name: str) -> tuple[list[exp.
 
     keys = source.key_columns()
     base_cols = keys + [s.col("_iq_x")] + ([s.col("_iq_w")] if w is not None else [])
-    minimum = source.rows([s.agg_min(xd.copy())], cond.copy())
+    minimum = None if keys else source.rows([s.agg_min(xd.copy())], cond.copy())  # one group only
     win = exp.Select(expressions=[k.copy() for k in base_cols] + _window_columns(ctx, keys, minimum)).from_(
         table(f"{name}_rows"))
     ctes = [cte(rows, f"{name}_rows"), cte(win, f"{name}_win")]
