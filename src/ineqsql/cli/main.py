@@ -3,11 +3,13 @@
 from __future__ import annotations
 
 import argparse
+import importlib
 import sys
 from pathlib import Path
 
 import ineqsql
 from ineqsql.engine.output import FORMATS, format_text, write_result
+from ineqsql.cli.common import add_engine_options, connection, read_sql, settings
 from ineqsql.errors import IneqsqlError
 
 EPILOG = """examples:
@@ -17,25 +19,6 @@ EPILOG = """examples:
   ineqsql measures
   ineqsql demo --rows 200000
 """
-
-
-def _read_sql(text: str) -> str:
-    if text == "-":
-        return sys.stdin.read()
-    if text.startswith("@"):
-        path = Path(text[1:])
-        try:
-            return path.read_text()
-        except OSError as e:
-            raise IneqsqlError(f"cannot read the SQL file {path}: {e.strerror}") from None
-    return text
-
-
-def _add_engine_options(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--memory-limit", metavar="SIZE", help="DuckDB memory limit, e.g. 1GB (larger data spills to disk)")
-    p.add_argument("--threads", type=int, metavar="N", help="DuckDB worker threads")
-    p.add_argument("--temp-directory", metavar="DIR", help="where DuckDB spills when over the memory limit")
-    p.add_argument("--database", metavar="FILE", help="a DuckDB database file to query (default: in memory)")
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -55,7 +38,7 @@ def build_parser() -> argparse.ArgumentParser:
     q.add_argument("--force", action="store_true", help="replace FILE if it exists")
     q.add_argument("--strict", action="store_true",
                    help="stop with an error naming the group where a measure is undefined (instead of NULL)")
-    _add_engine_options(q)
+    add_engine_options(q)
 
     c = sub.add_parser("compile", help="print the plain SQL a query compiles to",
                        description="Print the plain SQL (no measure calls left) a query compiles to.")
@@ -73,28 +56,14 @@ def build_parser() -> argparse.ArgumentParser:
     d.add_argument("--rows", type=int, default=2_000_000, help="households to generate (default: 2,000,000)")
     d.add_argument("--dir", default="ineqsql-demo", help="folder for the data (default: ./ineqsql-demo)")
     d.add_argument("--seed", type=int, default=20261201, help="random seed (default: 20261201)")
-    _add_engine_options(d)
+    add_engine_options(d)
+    for name in COMMAND_MODULES:
+        importlib.import_module(f"ineqsql.cli.{name}").register(sub)
     return parser
 
 
-def _connection(args):
-    if getattr(args, "database", None):
-        import duckdb
-        if not Path(args.database).exists():
-            raise IneqsqlError(f"no database file {args.database} (ineqsql opens existing DuckDB files only)")
-        try:
-            return duckdb.connect(args.database)
-        except duckdb.Error as e:
-            raise IneqsqlError(f"cannot open the database {args.database}: {str(e).splitlines()[0]}") from None
-    return None
-
-
-def _settings(args) -> dict:
-    return {"memory_limit": args.memory_limit, "threads": args.threads, "temp_directory": args.temp_directory}
-
-
 def cmd_query(args) -> int:
-    df = ineqsql.query(_read_sql(args.sql), _connection(args), strict=args.strict, **_settings(args))
+    df = ineqsql.query(read_sql(args.sql), connection(args), strict=args.strict, **settings(args))
     if args.output:
         write_result(df, args.output, args.format, overwrite=args.force)
         print(f"wrote {len(df)} rows to {args.output}", file=sys.stderr)
@@ -104,7 +73,7 @@ def cmd_query(args) -> int:
 
 
 def cmd_compile(args) -> int:
-    print(ineqsql.compile(_read_sql(args.sql), dialect=args.dialect, read=args.read, strict=args.strict))
+    print(ineqsql.compile(read_sql(args.sql), dialect=args.dialect, read=args.read, strict=args.strict))
     return 0
 
 
@@ -123,8 +92,13 @@ def cmd_measures(args) -> int:
 
 def cmd_demo(args) -> int:
     from ineqsql.demo.report import run_demo
-    return run_demo(rows=args.rows, folder=args.dir, seed=args.seed, con=_connection(args), **_settings(args))
+    return run_demo(rows=args.rows, folder=args.dir, seed=args.seed, con=connection(args), **settings(args))
 
+
+# Further subcommands live in modules of their own under ineqsql/cli/, one line each here: a module's
+# register(sub) adds its parser and sets ``handler`` (a function of the parsed args returning the exit code).
+COMMAND_MODULES: tuple[str, ...] = (
+)
 
 COMMANDS = {"query": cmd_query, "compile": cmd_compile, "measures": cmd_measures, "demo": cmd_demo}
 
@@ -136,7 +110,8 @@ def main(argv: list[str] | None = None) -> int:
         parser.print_help()
         return 2
     try:
-        return COMMANDS[args.command](args)
+        handler = getattr(args, "handler", None) or COMMANDS[args.command]
+        return handler(args)
     except IneqsqlError as e:
         print(f"ineqsql: error: {e}", file=sys.stderr)
         return 2

@@ -1,0 +1,44 @@
+"""Pieces every ineqsql subcommand shares: reading SQL arguments, engine options, the connection."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+from ineqsql.errors import IneqsqlError
+
+
+def read_sql(text: str) -> str:
+    if text == "-":
+        return sys.stdin.read()
+    if text.startswith("@"):
+        path = Path(text[1:])
+        try:
+            return path.read_text()
+        except OSError as e:
+            raise IneqsqlError(f"cannot read the SQL file {path}: {e.strerror}") from None
+    return text
+
+
+def add_engine_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--memory-limit", metavar="SIZE", help="DuckDB memory limit, e.g. 1GB (larger data spills to disk)")
+    p.add_argument("--threads", type=int, metavar="N", help="DuckDB worker threads")
+    p.add_argument("--temp-directory", metavar="DIR", help="where DuckDB spills when over the memory limit")
+    p.add_argument("--database", metavar="FILE", help="a DuckDB database file to query (default: in memory)")
+
+
+def connection(args):
+    if getattr(args, "database", None):
+        import duckdb
+        if not Path(args.database).exists():
+            raise IneqsqlError(f"no database file {args.database} (ineqsql opens existing DuckDB files only)")
+        try:
+            return duckdb.connect(args.database)
+        except duckdb.Error as e:
+            raise IneqsqlError(f"cannot open the database {args.database}: {str(e).splitlines()[0]}") from None
+    return None
+
+
+def settings(args) -> dict:
+    return {"memory_limit": args.memory_limit, "threads": args.threads, "temp_directory": args.temp_directory}
