@@ -12,6 +12,7 @@ import pytest
 
 from conftest import make_groups
 from ineqsql import reference as R
+from ineqsql import reference_structure as RS
 
 # (SQL call template, reference call); {w} is ", w" or "" ; the reference gets (x, w) arrays
 CASES = [
@@ -44,6 +45,22 @@ CASES = [
     ("atkinson(x, 1{w})", lambda x, w, e: R.atkinson(x, 1.0, w)),
     ("atkinson(x, 2{w})", lambda x, w, e: R.atkinson(x, 2.0, w)),
     ("cv(x{w})", lambda x, w, e: R.cv(x, w)),
+    # structure measures: e (small integers, many ties) serves as subgroup, outcome or ranking
+    ("ge_between(x, 2, e{w})", lambda x, w, e: RS.ge_between(x, 2.0, e, w)),
+    ("ge_within(x, 2, e{w})", lambda x, w, e: RS.ge_within(x, 2.0, e, w)),
+    ("ge_between(x, 1, e{w})", lambda x, w, e: RS.ge_between(x, 1.0, e, w)),
+    ("ge_within(x, 1, e{w})", lambda x, w, e: RS.ge_within(x, 1.0, e, w)),
+    ("ge_between(x, 0, e{w})", lambda x, w, e: RS.ge_between(x, 0.0, e, w)),
+    ("ge_within(x, 0, e{w})", lambda x, w, e: RS.ge_within(x, 0.0, e, w)),
+    ("ge_within(x, -1, e{w})", lambda x, w, e: RS.ge_within(x, -1.0, e, w)),
+    ("concentration(e, x{w})", lambda x, w, e: RS.concentration(e, x, w)),
+    ("concentration(x, e{w})", lambda x, w, e: RS.concentration(x, e, w)),
+    ("concentration_wagstaff(e, x, 0, 5{w})", lambda x, w, e: RS.concentration_wagstaff(e, x, 0.0, 5.0, w)),
+    ("concentration_erreygers(e, x, 0, 5{w})", lambda x, w, e: RS.concentration_erreygers(e, x, 0.0, 5.0, w)),
+    ("kakwani(e, x{w})", lambda x, w, e: RS.kakwani(e, x, w)),
+    ("reynolds_smolensky(x, e{w})", lambda x, w, e: RS.reynolds_smolensky(x, e, w)),
+    ("gini_diff(x, e{w})", lambda x, w, e: RS.gini_diff(x, e, w)),
+    ("gini_diff_se(x, e{w})", lambda x, w, e: RS.gini_diff_se(x, e, w)),
 ]
 ENTITY_CASES = [
     ("hhi(x)", lambda x, w, e: R.hhi(x)),
@@ -73,7 +90,7 @@ def _expected(df: pd.DataFrame, ref, weighted: bool, entity: bool):
         if weighted:
             d = d[d["w"].notna()]
         w = d["w"].to_numpy(float) if weighted else None
-        out[key] = ref(d["x"].to_numpy(float), w, None)
+        out[key] = ref(d["x"].to_numpy(float), w, d["e"].to_numpy())
     return out
 
 

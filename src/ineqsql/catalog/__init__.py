@@ -2,10 +2,11 @@
 
 from __future__ import annotations
 
-from ineqsql.catalog import entity, moment, ordered
+from ineqsql.catalog import entity, moment, ordered, structure
 from ineqsql.catalog.spec import Measure, Param
 
-MEASURES: dict[str, Measure] = {m.name: m for m in (*ordered.MEASURES, *moment.MEASURES, *entity.MEASURES)}
+MEASURES: dict[str, Measure] = {m.name: m for m in (*ordered.MEASURES, *moment.MEASURES, *entity.MEASURES,
+                                                 *structure.MEASURES)}
 
 
 def lookup(name: str) -> Measure | None:

@@ -8,15 +8,18 @@ from typing import Callable, Literal
 
 from sqlglot import exp
 
-PassKind = Literal["ordered", "moment", "centred", "entity"]
+PassKind = Literal["ordered", "moment", "centred", "entity", "subgroup", "ranked", "paired"]
 
 
 @dataclass(frozen=True)
 class Param:
-    """A numeric constant argument (p, k, alpha, eps ...), checked at compile time."""
+    """A positional argument after the value: a numeric constant (p, k, alpha, eps ...), checked at
+    compile time, or (kind ``"column"``) a further row-level expression such as the variable a
+    concentration index ranks by or the subgroup of a decomposition. Constants reach ``build`` as
+    ``params``; columns reach the pass (``MeasureCall.columns``), which keys on them."""
 
     name: str
-    kind: Literal["fraction", "number", "nonnegative", "count"]
+    kind: Literal["fraction", "number", "nonnegative", "count", "column"]
     doc: str = ""
 
     def check(self, value: float) -> str | None:
@@ -52,6 +55,11 @@ class Measure:
     domain: str = ""
     max_count: int | None = None  # cap for a "count" parameter (e.g. lorenz_curve points)
     options: tuple[str, ...] = ("strict",)  # named arguments the measure accepts
+    value: str = "x"  # the value argument's name in the signature
+    # which of (value, *column arguments) the pass sorts or groups by: the pass receives it as its x
+    # and the other column arguments, in order, as its columns (concentration(y, rank_by) sorts by 1)
+    sort_arg: int = 0
+    check: Callable[[tuple[float, ...]], str | None] | None = None  # relations between constants (lo < hi)
 
     def pass_for(self, has_trailing: bool) -> PassKind:
         if isinstance(self.passes, tuple):
@@ -59,8 +67,12 @@ class Measure:
         return self.passes
 
     @property
+    def constants(self) -> tuple[Param, ...]:
+        return tuple(p for p in self.params if p.kind != "column")
+
+    @property
     def signature(self) -> str:
-        args = ", ".join(["x", *(p.name for p in self.params)])
+        args = ", ".join([self.value, *(p.name for p in self.params)])
         if self.trailing:
             args += f"[, {'w' if self.trailing == 'weight' else 'entity'}]"
         return f"{self.name}({args})"

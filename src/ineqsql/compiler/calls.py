@@ -22,6 +22,7 @@ class MeasureCall:
     x: exp.Expression
     params: tuple[float, ...]
     trailing: exp.Expression | None
+    columns: tuple[exp.Expression, ...] = ()  # further row-level arguments (Param kind "column")
     options: dict[str, exp.Expression] = field(default_factory=dict)
     filter: exp.Expression | None = None  # the condition of ``measure(...) FILTER (WHERE …)``
     strict: bool = False  # an undefined result stops the query with an error naming the group
@@ -34,6 +35,13 @@ class MeasureCall:
     @property
     def pass_kind(self) -> str:
         return self.measure.pass_for(self.trailing is not None)
+
+    @property
+    def pass_inputs(self) -> tuple[exp.Expression, tuple[exp.Expression, ...]]:
+        """(the column the pass sorts or groups by, the other column arguments in order)."""
+        args = (self.x, *self.columns)
+        i = self.measure.sort_arg
+        return args[i], args[:i] + args[i + 1:]
 
 
 def call_key(node: exp.Expression) -> tuple:
@@ -164,8 +172,14 @@ def read_call(node: exp.Anonymous, ctx: CompileContext) -> MeasureCall:
                         f"got {len(positional)}", node, name)
     x = positional[0]
     _check_row_level(x, "value", name, node, ctx)
-    params = []
+    params, columns = [], []
     for spec, arg in zip(measure.params, positional[1:need]):
+        if spec.kind == "column":
+            _check_row_level(arg, spec.name, name, node, ctx)
+            if isinstance(arg, exp.Null):
+                raise ctx.error(MeasureArgumentError, f"{name}(): {spec.name} cannot be NULL", node, name)
+            columns.append(arg)
+            continue
         value = _constant(arg)
         if value is None:
             raise ctx.error(MeasureArgumentError, f"{name}(): {spec.name} must be a numeric constant, "
@@ -176,6 +190,9 @@ def read_call(node: exp.Anonymous, ctx: CompileContext) -> MeasureCall:
         if problem:
             raise ctx.error(MeasureArgumentError, f"{name}(): {problem}", node, name)
         params.append(value)
+    problem = measure.check(tuple(params)) if measure.check else None
+    if problem:
+        raise ctx.error(MeasureArgumentError, f"{name}(): {problem}", node, name)
     trailing = positional[need] if len(positional) > need else None
     if trailing is not None:
         _check_row_level(trailing, measure.trailing, name, node, ctx)
@@ -191,5 +208,6 @@ def read_call(node: exp.Anonymous, ctx: CompileContext) -> MeasureCall:
                             node, name)
         strict = bool(flag.this)
     cond = call_filter(node)
-    return MeasureCall(node=node, measure=measure, x=x, params=tuple(params), trailing=trailing, options=options,
+    return MeasureCall(node=node, measure=measure, x=x, params=tuple(params), trailing=trailing,
+                       columns=tuple(columns), options=options,
                        filter=cond.copy() if cond is not None else None, strict=strict)

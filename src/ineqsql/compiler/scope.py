@@ -20,6 +20,9 @@ from ineqsql.compiler.passes.centred import lower_centred_pass
 from ineqsql.compiler.passes.entity import lower_entity_pass
 from ineqsql.compiler.passes.moment import MainAggregate, lower_moment_pass
 from ineqsql.compiler.passes.ordered import lower_ordered_pass
+from ineqsql.compiler.passes.paired import lower_paired_pass
+from ineqsql.compiler.passes.ranked import lower_ranked_pass
+from ineqsql.compiler.passes.subgroup import lower_subgroup_pass
 from ineqsql.compiler.passes.source import Source, join_on_keys, key_name, table
 from ineqsql.compiler.plan import plan_passes
 from ineqsql.errors import UnsupportedSqlError
@@ -67,6 +70,9 @@ LOWERINGS = {
     "centred": ("cen", lower_centred_pass),
     "ordered": ("ord", lower_ordered_pass),
     "entity": ("ent", lower_entity_pass),
+    "subgroup": ("sub", lower_subgroup_pass),
+    "ranked": ("rnk", lower_ranked_pass),
+    "paired": ("pair", lower_paired_pass),
 }
 
 
