@@ -5,12 +5,14 @@
 """
 
 from ineqsql.api import compile, measures, query  # noqa: A004
+from ineqsql.influence import influence
+from ineqsql.structure import compare, decompose, gini_sources
 from ineqsql.errors import (ExecutionError, IneqsqlError, InputDataError, MeasureArgumentError,
                             MeasureUsageError, SqlParseError, UndefinedResultError, UnsupportedDialectError,
                             UnsupportedSqlError)
 
 __version__ = "0.1.0"
 
-__all__ = ["compile", "query", "measures", "IneqsqlError", "SqlParseError", "MeasureUsageError",
+__all__ = ["compile", "query", "measures", "decompose", "gini_sources", "compare", "influence", "IneqsqlError", "SqlParseError", "MeasureUsageError",
            "MeasureArgumentError", "UnsupportedSqlError", "ExecutionError", "InputDataError",
            "UndefinedResultError", "UnsupportedDialectError"]

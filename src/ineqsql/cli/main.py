@@ -98,6 +98,7 @@ def cmd_demo(args) -> int:
 # Further subcommands live in modules of their own under ineqsql/cli/, one line each here: a module's
 # register(sub) adds its parser and sets ``handler`` (a function of the parsed args returning the exit code).
 COMMAND_MODULES: tuple[str, ...] = (
+    "decompose", "sources", "compare", "influence",
 )
 
 COMMANDS = {"query": cmd_query, "compile": cmd_compile, "measures": cmd_measures, "demo": cmd_demo}
