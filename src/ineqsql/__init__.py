@@ -11,8 +11,10 @@ from ineqsql.errors import (ExecutionError, IneqsqlError, InputDataError, Measur
                             MeasureUsageError, SqlParseError, UndefinedResultError, UnsupportedDialectError,
                             UnsupportedSqlError)
 
+from ineqsql.report import lorenz_points, plot_lorenz, write_report
+
 __version__ = "0.1.0"
 
 __all__ = ["compile", "query", "measures", "decompose", "gini_sources", "compare", "influence", "IneqsqlError", "SqlParseError", "MeasureUsageError",
            "MeasureArgumentError", "UnsupportedSqlError", "ExecutionError", "InputDataError",
-           "UndefinedResultError", "UnsupportedDialectError"]
+           "UndefinedResultError", "UnsupportedDialectError", "lorenz_points", "plot_lorenz", "write_report"]

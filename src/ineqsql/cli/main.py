@@ -63,7 +63,16 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def cmd_query(args) -> int:
-    df = ineqsql.query(read_sql(args.sql), connection(args), strict=args.strict, **settings(args))
+    import duckdb
+    from ineqsql.engine.progress import enable_tracking, run_watched, wants_progress
+    sql = read_sql(args.sql)
+    con = connection(args) or duckdb.connect()
+    show = wants_progress() and enable_tracking(con)  # a progress line on a terminal's stderr only
+    try:
+        df = run_watched(con, lambda: ineqsql.query(sql, con, strict=args.strict, progress=show, **settings(args)),
+                         show=show)
+    finally:
+        con.close()
     if args.output:
         write_result(df, args.output, args.format, overwrite=args.force)
         print(f"wrote {len(df)} rows to {args.output}", file=sys.stderr)
@@ -99,6 +108,7 @@ def cmd_demo(args) -> int:
 # register(sub) adds its parser and sets ``handler`` (a function of the parsed args returning the exit code).
 COMMAND_MODULES: tuple[str, ...] = (
     "decompose", "sources", "compare", "influence",
+    "lorenz", "report",
 )
 
 COMMANDS = {"query": cmd_query, "compile": cmd_compile, "measures": cmd_measures, "demo": cmd_demo}
