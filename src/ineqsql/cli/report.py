@@ -42,7 +42,7 @@ def run(args) -> int:
     from ineqsql.report.data import collect
     from ineqsql.report.markdown import side_file_names
     from ineqsql.report.query import make_spec
-    from ineqsql.report.write import check_targets, write_all
+    from ineqsql.engine.output import check_targets, write_all
 
     fmt = report_format(args.output, args.format)
     out = Path(args.output or f"ineqsql-report.{fmt}")

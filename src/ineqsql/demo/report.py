@@ -78,7 +78,7 @@ def write_demo_report(con, survey: Path, target: Path) -> Path:
     from ineqsql.report import render_report
     from ineqsql.report.data import collect
     from ineqsql.report.query import make_spec
-    from ineqsql.report.write import write_all
+    from ineqsql.engine.output import write_all
 
     spec = make_spec(con, str(survey), "disposable_income", "weight", "province", "year")
     data = collect(con, spec, title=f"Disposable household income in the {COUNTRY} by province "

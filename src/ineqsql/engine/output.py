@@ -72,14 +72,51 @@ def format_text(df: pd.DataFrame, fmt: str) -> str:
     return _serialize(df, fmt, None)
 
 
+def check_targets(paths: list[Path], overwrite: bool) -> None:
+    """Refuse before any work: an existing file is kept unless replacing is asked for."""
+    for p in paths:
+        if p.exists() and not overwrite:
+            raise OutputError(f"{p} already exists; pass --force to replace it")
+        if not p.parent.exists():
+            raise OutputError(f"the folder {p.parent} does not exist")
+
+
+def _temp_beside(target: Path) -> tuple[int, str]:
+    """A temporary file in the target's folder (so the rename is atomic), with the mode of an
+    ordinary new file (mkstemp makes it private)."""
+    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent)
+    mask = os.umask(0o022)
+    os.umask(mask)
+    os.chmod(tmp, 0o666 & ~mask)
+    return fd, tmp
+
+
+def write_all(files: dict[Path, str | bytes], overwrite: bool = False) -> None:
+    """Write several files all or nothing: each to a temporary file beside it, then renamed."""
+    check_targets(list(files), overwrite)
+    temps: list[tuple[str, Path]] = []
+    target = None
+    try:
+        for target, content in files.items():
+            fd, tmp = _temp_beside(target)
+            temps.append((tmp, target))
+            with os.fdopen(fd, "wb") as fh:
+                fh.write(content.encode("utf-8") if isinstance(content, str) else content)
+        for tmp, target in temps:
+            os.replace(tmp, target)
+    except BaseException as e:
+        for tmp, _ in temps:
+            Path(tmp).unlink(missing_ok=True)
+        if isinstance(e, OSError):
+            raise OutputError(f"could not write {target}: {e.strerror or e}") from None
+        raise
+
+
 def write_result(df: pd.DataFrame, path: str | os.PathLike, fmt: str, overwrite: bool = False) -> Path:
     """Write ``df`` to ``path`` atomically; refuse to replace an existing file unless ``overwrite``."""
     target = Path(path)
-    if target.exists() and not overwrite:
-        raise OutputError(f"{target} already exists; pass --force to replace it")
-    if not target.parent.exists():
-        raise OutputError(f"the folder {target.parent} does not exist")
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent)
+    check_targets([target], overwrite)
+    fd, tmp = _temp_beside(target)
     os.close(fd)
     try:
         _serialize(df, fmt, tmp)

@@ -11,7 +11,7 @@ from ineqsql.report.data import ReportData, collect
 from ineqsql.report.lorenz import lorenz_points
 from ineqsql.report.plot import plot_lorenz
 from ineqsql.report.query import make_spec, open_connection
-from ineqsql.report.write import write_all
+from ineqsql.engine.output import write_all
 
 __all__ = ["lorenz_points", "plot_lorenz", "write_report", "report_data", "render_report", "report_format"]
 

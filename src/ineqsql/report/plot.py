@@ -85,7 +85,7 @@ def plot_lorenz(points: pd.DataFrame, path: str | Path | None = None, *, general
 def _save(fig, path: Path, fmt: str, overwrite: bool) -> None:
     import io
 
-    from ineqsql.report.write import write_all
+    from ineqsql.engine.output import write_all
     buf = io.BytesIO()
     fig.savefig(buf, format=fmt, metadata={"Date": None} if fmt == "svg" else {"Software": "ineqsql"})
     write_all({path: buf.getvalue()}, overwrite=overwrite)
