@@ -4,13 +4,13 @@
 >>> ineqsql.query("SELECT gini(x) FROM (VALUES (1), (2), (3)) t(x)")  # doctest: +SKIP
 """
 
-from ineqsql.api import compile, measures, query  # noqa: A004
+from ineqsql.api import compile, explain, measures, query  # noqa: A004
 from ineqsql.errors import (ExecutionError, IneqsqlError, InputDataError, MeasureArgumentError,
                             MeasureUsageError, SqlParseError, UndefinedResultError, UnsupportedDialectError,
                             UnsupportedSqlError)
 
 __version__ = "0.1.0"
 
-__all__ = ["compile", "query", "measures", "IneqsqlError", "SqlParseError", "MeasureUsageError",
+__all__ = ["compile", "query", "explain", "measures", "IneqsqlError", "SqlParseError", "MeasureUsageError",
            "MeasureArgumentError", "UnsupportedSqlError", "ExecutionError", "InputDataError",
            "UndefinedResultError", "UnsupportedDialectError"]

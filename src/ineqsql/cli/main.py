@@ -16,6 +16,7 @@ EPILOG = """examples:
   ineqsql query "SELECT region, gini(income, w), palma(income, w) FROM 'x/*.parquet' GROUP BY region"
   ineqsql query --format csv --output out.csv "SELECT gini(income) FROM 'survey.parquet'"
   ineqsql compile "SELECT region, theil(income) FROM t GROUP BY region"
+  ineqsql explain --profile "SELECT region, gini(income, w) FROM 'x/*.parquet' GROUP BY region"
   ineqsql measures
   ineqsql demo --rows 200000
 """
@@ -98,6 +99,7 @@ def cmd_demo(args) -> int:
 # Further subcommands live in modules of their own under ineqsql/cli/, one line each here: a module's
 # register(sub) adds its parser and sets ``handler`` (a function of the parsed args returning the exit code).
 COMMAND_MODULES: tuple[str, ...] = (
+    "explain",
 )
 
 COMMANDS = {"query": cmd_query, "compile": cmd_compile, "measures": cmd_measures, "demo": cmd_demo}
