@@ -50,25 +50,41 @@ RESULTS_DIR = BENCH_DIR / "results"
 DATA_DIR = BENCH_DIR / "data"
 TMP_DIR = DATA_DIR / "tmp"
 GROUPS = 1000  # as in gen_data.py
+GROUPS_OF = {"g1000": 1000, "one": 1, "g100k": 100_000, "ties": 1000}  # as in gen_data.py
+
+
+def gen_groups(data: str) -> int:
+    return GROUPS_OF[data]
 
 G1000_CASES = ["startup", "sort", "scan", "pandas", "window_sql", "window_sql_u",
-               "ineqsql_w", "ineqsql_u", "compile"]
-ONE_CASES = ["sort", "scan", "window_sql", "ineqsql_w"]
-ALL_CASES = G1000_CASES
+               "ineqsql_w", "ineqsql_u", "ineqsql_ten", "ineqsql_moment", "ineqsql_centred",
+               "ineqsql_lorenz", "ineqsql_hhi", "compile"]
+G100K_CASES = ["sort", "scan", "pandas", "window_sql", "window_sql_u", "ineqsql_w", "ineqsql_u",
+               "ineqsql_ten", "ineqsql_moment"]
+TIES_CASES = ["sort", "scan", "pandas", "window_sql", "window_sql_u", "ineqsql_w", "ineqsql_u",
+              "ineqsql_w_rows", "ineqsql_u_rows", "ineqsql_ten"]
+ONE_CASES = ["sort", "scan", "window_sql", "ineqsql_w", "ineqsql_u"]
+# data kind -> cases run on it (the one-group file at --memory-limit-one, the others at --memory-limit)
+DATASETS = {"g1000": G1000_CASES, "g100k": G100K_CASES, "ties": TIES_CASES, "one": ONE_CASES}
+ALL_CASES = list(dict.fromkeys(G1000_CASES + G100K_CASES + TIES_CASES + ONE_CASES))
+# Gini-computing cases compared pairwise (weighted; unweighted)
+WEIGHTED_GINI = ["pandas", "window_sql", "ineqsql_w", "ineqsql_w_rows"]
+UNWEIGHTED_GINI = ["window_sql_u", "ineqsql_u", "ineqsql_u_rows"]
 REL_TOL = 1e-9
 
 
-def _ensure_data(a) -> tuple[Path, Path | None]:
+def _ensure_data(a, datasets: list[str]) -> dict[str, Path]:
     """Make sure the data files exist (bench/gen_data.py in a subprocess, so that this parent
     process stays small: on Linux a child's ru_maxrss starts from its parent's RSS at spawn)."""
+    kinds = [d for d in datasets if d != "one"]
     cmd = [sys.executable, str(BENCH_DIR / "gen_data.py"), "--rows", str(a.rows),
-           "--rows-one", str(a.rows_one), "--data-dir", str(DATA_DIR)]
-    if a.skip_one:
+           "--rows-one", str(a.rows_one), "--data-dir", str(DATA_DIR), "--kinds", ",".join(kinds)]
+    if "one" not in datasets:
         cmd.append("--skip-one")
     if a.seed is not None:
         cmd += ["--seed", str(a.seed)]
     subprocess.run(cmd, check=True, stdin=subprocess.DEVNULL)
-    return DATA_DIR / "g1000.parquet", None if a.skip_one else DATA_DIR / "one.parquet"
+    return {d: DATA_DIR / f"{d}.parquet" for d in datasets}
 
 
 # --------------------------------------------------------------------------------------------
@@ -181,34 +197,6 @@ def _case_pandas(a):
             "steps_seconds": steps}, elapsed
 
 
-def _ineqsql_query_fn():
-    try:
-        import ineqsql
-    except ImportError as e:
-        return None, f"ineqsql not importable: {e}"
-    fn = getattr(ineqsql, "query", None)
-    if fn is None:
-        return None, "ineqsql.query does not exist yet"
-    return fn, None
-
-
-def _case_ineqsql(weighted):
-    def run(a):
-        import pandas  # noqa: F401
-        fn, why = _ineqsql_query_fn()
-        if fn is None:
-            return {"status": "n/a", "reason": why}, None
-        call = "gini(x, w)" if weighted else "gini(x)"
-        sql = f"SELECT grp, {call} FROM read_parquet({sql_string_literal(a.file)}) GROUP BY grp"
-        t0 = time.perf_counter()
-        df = fn(sql, threads=a.threads, memory_limit=a.memory_limit, temp_directory=a.temp_dir)
-        elapsed = time.perf_counter() - t0
-        df = df.sort_values(df.columns[0])
-        return {"grp": [int(g) for g in df.iloc[:, 0]],
-                "gini": [float(v) for v in df.iloc[:, 1]]}, elapsed
-    return run
-
-
 def _case_compile(a):
     try:
         import ineqsql
@@ -230,6 +218,10 @@ def _case_compile(a):
             "compile_runs": len(times)}, med
 
 
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from families import CASES as FAMILY_CASES  # noqa: E402  (bench/ is not a package)
+from targets import print_targets, targets  # noqa: E402
+
 CHILD_CASES = {
     "startup": _case_startup,
     "sort": _case_sql(SQL_SORT, gini=False),
@@ -237,9 +229,8 @@ CHILD_CASES = {
     "pandas": _case_pandas,
     "window_sql": _case_sql(SQL_WINDOW_W, gini=True),
     "window_sql_u": _case_sql(SQL_WINDOW_U, gini=True),
-    "ineqsql_w": _case_ineqsql(weighted=True),
-    "ineqsql_u": _case_ineqsql(weighted=False),
     "compile": _case_compile,
+    **FAMILY_CASES,
 }
 
 
@@ -472,7 +463,14 @@ def parent_main(a) -> int:
               file=sys.stderr)
         return 2
     TMP_DIR.mkdir(parents=True, exist_ok=True)
-    g_path, one_path = _ensure_data(a)
+    datasets = [d.strip() for d in a.datasets.split(",") if d.strip()]
+    if a.skip_one:
+        datasets = [d for d in datasets if d != "one"]
+    bad = [d for d in datasets if d not in DATASETS]
+    if bad:
+        print(f"unknown data set(s): {', '.join(bad)}; known: {', '.join(DATASETS)}", file=sys.stderr)
+        return 2
+    paths = _ensure_data(a, datasets)
     load_before = _loadavg()
     busy_before = _cpu_busy_share(1.0)
     if busy_before is not None and busy_before > 0.25:
@@ -480,47 +478,39 @@ def parent_main(a) -> int:
               "start: other processes compete for the cores and the timings will be noisy.",
               file=sys.stderr)
 
-    all_rows, checks, notes = [], [], []
-    g_cases = [c for c in G1000_CASES if c in cases]
-    g_results = {}
-    print(f"\n== g1000.parquet: {a.rows:,} rows x {GROUPS} groups, threads={a.threads}, "
-          f"memory_limit={a.memory_limit}", file=sys.stderr)
-    for case in g_cases:
-        print(f"  running {case} ...", file=sys.stderr, flush=True)
-        r = run_repeated(case, "g1000", g_path, a.memory_limit, a)
-        g_results[case] = r
-        all_rows.append(r)
-    checks += compare(g_results, ["pandas", "window_sql", "ineqsql_w"], "g1000")
-    checks += compare(g_results, ["window_sql_u", "ineqsql_u"], "g1000")
-
-    one_rows, one_results = [], {}
-    if one_path is not None:
-        o_cases = [c for c in ONE_CASES if c in cases]
-        print(f"\n== one.parquet: {a.rows_one:,} rows in one group, threads={a.threads}, "
-              f"memory_limit={a.memory_limit_one}", file=sys.stderr)
-        for case in o_cases:
+    all_rows, checks, notes, by_data = [], [], [], {}
+    for data in datasets:
+        limit = a.memory_limit_one if data == "one" else a.memory_limit
+        rows_n = a.rows_one if data == "one" else a.rows
+        print(f"\n== {data}.parquet: {rows_n:,} rows x {gen_groups(data):,} groups, "
+              f"threads={a.threads}, memory_limit={limit}", file=sys.stderr)
+        results = {}
+        for case in [c for c in DATASETS[data] if c in cases]:
             print(f"  running {case} ...", file=sys.stderr, flush=True)
-            r = run_repeated(case, "one", one_path, a.memory_limit_one, a)
-            one_results[case] = r
-            one_rows.append(r)
-        checks += compare(one_results, ["window_sql", "ineqsql_w"], "one")
-        if "pandas" in cases:
-            notes.append("pandas skipped on one.parquet: it would hold the whole table and a "
-                         "sorted copy in memory (about 2 x 20 bytes per row), far beyond the "
-                         "memory limit of the other cases.")
-        all_rows += one_rows
+            r = run_repeated(case, data, paths[data], limit, a)
+            results[case] = r
+            all_rows.append(r)
+        by_data[data] = results
+        checks += compare(results, WEIGHTED_GINI, data)
+        checks += compare(results, UNWEIGHTED_GINI, data)
+    if "one" in datasets and "pandas" in cases:
+        notes.append("pandas skipped on one.parquet: it would hold the whole table and a "
+                     "sorted copy in memory (about 2 x 20 bytes per row), far beyond the "
+                     "memory limit of the other cases.")
 
     stolen = [r for r in all_rows if r.get("steal_share", 0) > 0.05]
     if stolen:
         notes.append("the host took more than 5% of the CPU time while these cases ran (steal): "
                      + ", ".join(f"{r['data']}/{r['case']} {r['steal_share']:.0%}"
                                  for r in stolen) + "; their timings are inflated.")
-    print_table([r for r in all_rows if r["data"] == "g1000"],
-                f"g1000.parquet: {a.rows:,} rows x {GROUPS} groups "
-                f"(threads={a.threads}, memory_limit={a.memory_limit})")
-    if one_rows:
-        print_table(one_rows, f"one.parquet: {a.rows_one:,} rows, one group "
-                              f"(threads={a.threads}, memory_limit={a.memory_limit_one})")
+    for data in datasets:
+        limit = a.memory_limit_one if data == "one" else a.memory_limit
+        rows_n = a.rows_one if data == "one" else a.rows
+        print_table([r for r in all_rows if r["data"] == data],
+                    f"{data}.parquet: {rows_n:,} rows x {gen_groups(data):,} groups "
+                    f"(threads={a.threads}, memory_limit={limit})")
+    target_rows = targets(by_data)
+    print_targets(target_rows)
     for n in notes:
         print(f"\nnote: {n}")
     print("\nagreement of Gini results (max relative difference over groups, tolerance "
@@ -551,8 +541,8 @@ def parent_main(a) -> int:
 
     doc = {
         "created_unix": time.time(),
-        "config": {"rows": a.rows, "rows_one": None if a.skip_one else a.rows_one,
-                   "groups": GROUPS, "seed": gen_data.SEED if a.seed is None else a.seed, "threads": a.threads,
+        "config": {"rows": a.rows, "rows_one": a.rows_one if "one" in datasets else None,
+                   "datasets": datasets, "seed": gen_data.SEED if a.seed is None else a.seed, "threads": a.threads,
                    "memory_limit": a.memory_limit, "memory_limit_one": a.memory_limit_one,
                    "repeat": a.repeat, "cases": cases},
         "environment": {**environment(), "loadavg_1min_before": load_before,
@@ -560,6 +550,7 @@ def parent_main(a) -> int:
                         "loadavg_1min_after": _loadavg()},
         "results": all_rows,
         "checks": checks,
+        "targets": target_rows,
         "notes": notes,
     }
     a.json.parent.mkdir(parents=True, exist_ok=True)
@@ -573,6 +564,8 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--rows", type=int, default=20_000_000, help="rows of g1000.parquet")
     p.add_argument("--rows-one", type=int, default=100_000_000, help="rows of one.parquet")
     p.add_argument("--skip-one", action="store_true", help="skip the one-group cases")
+    p.add_argument("--datasets", default=",".join(DATASETS),
+                   help=f"comma list of data sets (default all: {','.join(DATASETS)})")
     p.add_argument("--cases", default=None,
                    help=f"comma list of cases (default all: {','.join(ALL_CASES)})")
     p.add_argument("--memory-limit", default="4GB", help="DuckDB memory_limit on g1000")

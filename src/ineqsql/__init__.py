@@ -4,7 +4,7 @@
 >>> ineqsql.query("SELECT gini(x) FROM (VALUES (1), (2), (3)) t(x)")  # doctest: +SKIP
 """
 
-from ineqsql.api import compile, measures, query  # noqa: A004
+from ineqsql.api import compile, explain, measures, query  # noqa: A004
 from ineqsql.influence import influence
 from ineqsql.structure import compare, decompose, gini_sources
 from ineqsql.errors import (ExecutionError, IneqsqlError, InputDataError, MeasureArgumentError,
@@ -15,6 +15,6 @@ from ineqsql.report import lorenz_points, plot_lorenz, write_report
 
 __version__ = "0.1.0"
 
-__all__ = ["compile", "query", "measures", "decompose", "gini_sources", "compare", "influence", "IneqsqlError", "SqlParseError", "MeasureUsageError",
+__all__ = ["compile", "query", "explain", "measures", "decompose", "gini_sources", "compare", "influence", "IneqsqlError", "SqlParseError", "MeasureUsageError",
            "MeasureArgumentError", "UnsupportedSqlError", "ExecutionError", "InputDataError",
            "UndefinedResultError", "UnsupportedDialectError", "lorenz_points", "plot_lorenz", "write_report"]

@@ -12,33 +12,58 @@ from ineqsql.compiler import compile_sql
 from ineqsql.engine.columns import duckdb_source_columns
 from ineqsql.engine.frames import register_caller_frames
 from ineqsql.engine.runner import connect, execute_df
+from ineqsql.engine.ties import duckdb_tie_probe
+from ineqsql.explain import Explanation, explain_query
 
 
 def compile(sql: str, dialect: str = "duckdb", *, read: str = "duckdb", pretty: bool = True,  # noqa: A001
-            strict: bool = False) -> str:
+            strict: bool = False, tie_grouping: str = "auto") -> str:
     """Compile SQL with measure calls into plain SQL for ``dialect`` (no measure calls left).
 
     ``strict=True``: a measure that is undefined for a group (NULL) stops the query with an error
     naming the group, as ``strict := true`` does for one call.
+    ``tie_grouping``: ``"on"`` groups tied values before the ordered pass's window (pays when values
+    repeat a lot, e.g. integer counts), ``"off"`` never; ``"auto"`` (default) needs an engine to
+    look at the data, so compile() alone keeps one row per input row.
     """
-    return compile_sql(sql, dialect=dialect, read=read, pretty=pretty, strict=strict)
+    return compile_sql(sql, dialect=dialect, read=read, pretty=pretty, strict=strict, tie_grouping=tie_grouping)
 
 
 def query(sql: str, con: duckdb.DuckDBPyConnection | None = None, *, memory_limit: str | None = None,
           threads: int | None = None, temp_directory: str | None = None,
-          progress: bool = False, strict: bool = False) -> pd.DataFrame:
+          progress: bool = False, strict: bool = False, tie_grouping: str = "auto") -> pd.DataFrame:
     """Compile ``sql`` and run it on DuckDB (``con``, or a new in-memory connection).
 
     Tables the query names may also be pandas DataFrames or Arrow tables held by the calling code
-    under that name, as with ``duckdb.sql``.
+    under that name, as with ``duckdb.sql``. ``tie_grouping``: see ``compile``; with ``"auto"``
+    an integer, decimal or boolean value is probed (one scan) and its ties grouped when the
+    distinct (group, value) pairs are at most a quarter of the rows.
     """
     connection = connect(con, memory_limit=memory_limit, threads=threads, temp_directory=temp_directory,
                          progress=progress)
     registered = register_caller_frames(connection, sql, inspect.currentframe().f_back)
     try:
         compiled = compile_sql(sql, dialect="duckdb", pretty=False, strict=strict,
-                               source_columns=duckdb_source_columns(connection))
+                               source_columns=duckdb_source_columns(connection), tie_grouping=tie_grouping,
+                               tie_probe=duckdb_tie_probe(connection))
         return execute_df(connection, compiled)
+    finally:
+        for name in registered:
+            connection.unregister(name)
+        if con is None:
+            connection.close()
+
+
+def explain(sql: str, con: duckdb.DuckDBPyConnection | None = None, *, profile: bool = False,
+            memory_limit: str | None = None, threads: int | None = None, temp_directory: str | None = None,
+            strict: bool = False, tie_grouping: str = "auto") -> Explanation:
+    """The passes the planner chooses for ``sql`` on DuckDB (kind, variant, value, weight, FILTER,
+    measures served, CTE names, reason) and, with ``profile=True``, the time DuckDB spends per
+    operator when it runs the query once. ``print(explain(...))`` shows a readable summary."""
+    connection = connect(con, memory_limit=memory_limit, threads=threads, temp_directory=temp_directory)
+    registered = register_caller_frames(connection, sql, inspect.currentframe().f_back)
+    try:
+        return explain_query(sql, connection, profile=profile, strict=strict, tie_grouping=tie_grouping)
     finally:
         for name in registered:
             connection.unregister(name)

@@ -16,6 +16,7 @@ EPILOG = """examples:
   ineqsql query "SELECT region, gini(income, w), palma(income, w) FROM 'x/*.parquet' GROUP BY region"
   ineqsql query --format csv --output out.csv "SELECT gini(income) FROM 'survey.parquet'"
   ineqsql compile "SELECT region, theil(income) FROM t GROUP BY region"
+  ineqsql explain --profile "SELECT region, gini(income, w) FROM 'x/*.parquet' GROUP BY region"
   ineqsql measures
   ineqsql demo --rows 200000
 """
@@ -109,6 +110,7 @@ def cmd_demo(args) -> int:
 COMMAND_MODULES: tuple[str, ...] = (
     "decompose", "sources", "compare", "influence",
     "lorenz", "report",
+    "explain",
 )
 
 COMMANDS = {"query": cmd_query, "compile": cmd_compile, "measures": cmd_measures, "demo": cmd_demo}

@@ -36,6 +36,11 @@ class CompileContext:
     # columns the FROM clause of a SELECT provides, when an engine can say (None: unknown)
     source_columns: Callable[[exp.Select], set[str] | None] | None = None
     counters: dict[str, int] = field(default_factory=lambda: defaultdict(int))
+    # planner options (compiler/plan.py): "auto" | "on" | "off", and the engine's tie probe
+    tie_grouping: str = "auto"
+    tie_probe: Callable | None = None
+    # what the planner chose, one record per pass (read by explain)
+    chosen: list[dict] = field(default_factory=list)
 
     def name(self, kind: str) -> str:
         """Next deterministic name of a kind: ``_iq_ord_1``, ``_iq_ord_2``, …"""

@@ -8,6 +8,7 @@ from ineqsql.compiler.calls import check_position, find_calls, read_call
 from ineqsql.compiler.context import CompileContext, span, text
 from ineqsql.compiler.generate import check_dialect, generate
 from ineqsql.compiler.parse import parse_one_statement
+from ineqsql.compiler.plan import TIE_GROUPING
 from ineqsql.compiler.scope import rewrite_scope
 from ineqsql.errors import MeasureUsageError
 
@@ -55,11 +56,26 @@ def compile_tree(tree: exp.Expression, ctx: CompileContext) -> exp.Expression:
 
 
 def compile_sql(sql: str, dialect: str = "duckdb", read: str = "duckdb", pretty: bool = True,
-                strict: bool = False, source_columns=None) -> str:
+                strict: bool = False, source_columns=None, tie_grouping: str = "auto", tie_probe=None) -> str:
     """Compile SQL text with measure calls into plain SQL for ``dialect``; ``strict`` makes every
     measure call strict (an undefined result stops the query, naming the group);
-    ``source_columns(select)`` may tell the columns a SELECT's FROM provides (see keys.py)."""
+    ``source_columns(select)`` may tell the columns a SELECT's FROM provides (see keys.py);
+    ``tie_grouping`` and ``tie_probe`` steer the ordered pass's variant (see plan.py)."""
+    return compile_with_plan(sql, dialect, read, pretty, strict, source_columns, tie_grouping, tie_probe)[0]
+
+
+def compile_with_plan(sql: str, dialect: str = "duckdb", read: str = "duckdb", pretty: bool = True,
+                      strict: bool = False, source_columns=None, tie_grouping: str = "auto",
+                      tie_probe=None) -> tuple[str, list[dict]]:
+    """``compile_sql`` and the planner's record of every pass (plan.describe_pass), innermost scope first."""
     check_dialect(dialect)
-    ctx = CompileContext(sql=sql, strict=strict, source_columns=source_columns)
+    check_tie_grouping(tie_grouping)
+    ctx = CompileContext(sql=sql, strict=strict, source_columns=source_columns, tie_grouping=tie_grouping,
+                         tie_probe=tie_probe)
     tree = compile_tree(parse_one_statement(sql, read), ctx)
-    return generate(tree, dialect, pretty=pretty)
+    return generate(tree, dialect, pretty=pretty), ctx.chosen
+
+
+def check_tie_grouping(value) -> None:
+    if value not in TIE_GROUPING:
+        raise MeasureUsageError(f"tie_grouping must be one of {', '.join(TIE_GROUPING)}, got {value!r}")

@@ -24,7 +24,7 @@ from ineqsql.compiler.passes.paired import lower_paired_pass
 from ineqsql.compiler.passes.ranked import lower_ranked_pass
 from ineqsql.compiler.passes.subgroup import lower_subgroup_pass
 from ineqsql.compiler.passes.source import Source, join_on_keys, key_name, table
-from ineqsql.compiler.plan import plan_passes
+from ineqsql.compiler.plan import choose_variant, describe_pass, plan_passes
 from ineqsql.errors import UnsupportedSqlError
 
 
@@ -81,8 +81,10 @@ def lower_passes(calls: list[MeasureCall], source: Source, main: MainAggregate, 
     result). The CTEs to join are those the results read, other than the main aggregate."""
     ctes, results = [], {}
     for plan in plan_passes(calls):
+        choose_variant(plan, source.select, source.keys, ctx.tie_grouping, ctx.tie_probe)
         prefix, lower = LOWERINGS[plan.kind]
         new, res = lower(source, main, plan, ctx.name(prefix) if prefix else None)
+        ctx.chosen.append(describe_pass(plan, [c.alias for c in new] or [main.name]))
         ctes += new
         results.update(res)
     for call in calls:

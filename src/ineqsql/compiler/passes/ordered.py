@@ -1,6 +1,8 @@
 """Ordered pass: per group, rows sorted by value with running weight C_i, then one GROUP BY.
 
 rows CTE:   keys, x, w                     (NULL x or weight, and zero weights, dropped)
+ties CTE:   keys, x, w = Σ w (or the row count), n = row count   GROUP BY keys, x
+            (only in the "ties" variant the planner picks when values repeat: see plan.py)
 window CTE: … , C (running weight), m (group minimum), W (group weight)
             (only the columns the measures use; C and m share one window specification)
 result CTE: keys, one aggregate per measure call
@@ -20,8 +22,11 @@ from ineqsql.compiler.passes.source import (Source, build_results, checked_weigh
 class OrderedContext:
     """Columns of the window CTE that measure builders write against (see catalog/ordered.py)."""
 
-    def __init__(self, weighted: bool, name: str = "_iq_ord"):
-        self.weighted = weighted
+    def __init__(self, weighted: bool, name: str = "_iq_ord", ties: bool = False):
+        # ties: one row per distinct value carrying its total weight (and row count), so even an
+        # unweighted pass reads a weight column and a running weight sum
+        self.weighted = weighted or ties
+        self.ties = ties
         self.name = name
         self.used: set[str] = set()
         self.grids: list[int] = []
@@ -66,6 +71,9 @@ class OrderedContext:
 
     @property
     def n(self):
+        if self.ties:
+            self.used.add("n")
+            return s.agg_sum(s.col("_iq_n"))
         return s.agg_count_star()
 
 
@@ -93,10 +101,26 @@ def _window_columns(ctx: OrderedContext, keys: list[exp.Expression],
     return cols
 
 
+def tie_rows(keys: list[exp.Expression], weighted: bool, with_count: bool, below: str) -> exp.Select:
+    """One row per group and distinct value: its total weight (the row count when unweighted).
+
+    Exact for every measure of the pass: over a run of tied values the running weight only
+    matters through its ends (e.g. Σ w_i (2C_i − w_i) = C_last² − C_before² for Gini; a clamp over
+    the run adds up to one clamp of the run's total weight), so the run can be one row.
+    """
+    total = s.agg_sum(s.col("_iq_w")) if weighted else s.cast_double(s.agg_count_star())
+    cols = [s.alias(total, "_iq_w")] + ([s.alias(s.agg_count_star(), "_iq_n")] if with_count else [])
+    group = [k.copy() for k in keys] + [s.col("_iq_x")]
+    out = exp.Select(expressions=[k.copy() for k in group] + cols).from_(table(below))
+    out.set("group", exp.Group(expressions=group))
+    return out
+
+
 def lower_ordered_pass(source: Source, main, plan, name: str) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:
     """CTEs of one ordered pass and, for each call key, the column that holds its result."""
     x, w, calls, condition = plan.x, plan.trailing, plan.calls, plan.condition
-    ctx = OrderedContext(weighted=w is not None, name=name)
+    ties = plan.variant == "ties"
+    ctx = OrderedContext(weighted=w is not None, name=name, ties=ties)
     out_cols, results = build_results(calls, ctx, name)
 
     xd = s.cast_double(x.copy())
@@ -109,11 +133,15 @@ def lower_ordered_pass(source: Source, main, plan, name: str) -> tuple[list[exp.
     rows = source.rows(proj, cond)
 
     keys = source.key_columns()
-    base_cols = keys + [s.col("_iq_x")] + ([s.col("_iq_w")] if w is not None else [])
+    base_cols = keys + [s.col("_iq_x")] + ([s.col("_iq_w")] if ctx.weighted else [])
+    base_cols += [s.col("_iq_n")] if "n" in ctx.used else []
     minimum = None if keys else source.rows([s.agg_min(xd.copy())], cond.copy())  # one group only
+    ctes = [cte(rows, f"{name}_rows")]
+    if ties:
+        ctes.append(cte(tie_rows(keys, w is not None, "n" in ctx.used, f"{name}_rows"), f"{name}_ties"))
     win = exp.Select(expressions=[k.copy() for k in base_cols] + _window_columns(ctx, keys, minimum)).from_(
-        table(f"{name}_rows"))
-    ctes = [cte(rows, f"{name}_rows"), cte(win, f"{name}_win")]
+        table(f"{name}_ties" if ties else f"{name}_rows"))
+    ctes.append(cte(win, f"{name}_win"))
     if out_cols:
         ctes.append(cte(grouped(keys, out_cols, f"{name}_win"), name))
     for k in ctx.grids:

@@ -1,0 +1,66 @@
+"""Benchmark cases for every measure family through ineqsql (child side of bench/run.py).
+
+Each case runs one ineqsql query over the data file in a fresh process (see run.py) and returns
+its time. The families, on value ``x`` and weight ``w`` per group ``grp``:
+
+  ineqsql_w        gini(x, w)                                   ordered pass, weighted
+  ineqsql_u        gini(x)                                      ordered pass, unweighted (row_number)
+  ineqsql_ten      ten measures on x, w: gini, palma, s80s20, top_share(0.1), quantile_w(0.5),
+                   lorenz(0.4), hoover, theil, cv, atkinson(0.5)  (one shared ordered pass + scans)
+  ineqsql_moment   theil(x, w), mld(x, w), ge(x, 2, w), atkinson(x, 1, w)   moment sums on one scan
+  ineqsql_centred  cv(x, w), hoover(x, w)                       centred pass (a second scan + join)
+  ineqsql_lorenz   lorenz_curve(x, 10, w)                       ordered pass + grid cells
+  ineqsql_hhi      hhi(x)                                       concentration of rows per group
+  ineqsql_w_rows / ineqsql_u_rows   gini with tie grouping off (on the tie-heavy data)
+
+Results of ineqsql_w/ineqsql_u are returned per group so run.py can compare them with the
+hand-written SQL and pandas; the others return their row count.
+"""
+
+from __future__ import annotations
+
+import time
+
+FAMILIES = {
+    "ineqsql_w": ("gini(x, w)", {}),
+    "ineqsql_u": ("gini(x)", {}),
+    "ineqsql_w_rows": ("gini(x, w)", {"tie_grouping": "off"}),
+    "ineqsql_u_rows": ("gini(x)", {"tie_grouping": "off"}),
+    "ineqsql_ten": ("gini(x, w), palma(x, w), s80s20(x, w), top_share(x, 0.1, w), quantile_w(x, 0.5, w), "
+                    "lorenz(x, 0.4, w), hoover(x, w), theil(x, w), cv(x, w), atkinson(x, 0.5, w)", {}),
+    "ineqsql_moment": ("theil(x, w), mld(x, w), ge(x, 2, w), atkinson(x, 1, w)", {}),
+    "ineqsql_centred": ("cv(x, w), hoover(x, w)", {}),
+    "ineqsql_lorenz": ("lorenz_curve(x, 10, w)", {}),
+    "ineqsql_hhi": ("hhi(x)", {}),
+}
+GINI_CASES = ("ineqsql_w", "ineqsql_u", "ineqsql_w_rows", "ineqsql_u_rows")
+
+
+def sql_string_literal(text: str) -> str:
+    """Quote ``text`` as a SQL string literal (single quotes doubled)."""
+    return "'" + text.replace("'", "''") + "'"
+
+
+def family_case(name: str):
+    calls, options = FAMILIES[name]
+
+    def run(a):
+        import pandas  # noqa: F401  (imported before the clock starts)
+        try:
+            import ineqsql
+        except ImportError as e:
+            return {"status": "n/a", "reason": f"ineqsql not importable: {e}"}, None
+        sql = f"SELECT grp, {calls} FROM read_parquet({sql_string_literal(a.file)}) GROUP BY grp"
+        t0 = time.perf_counter()
+        df = ineqsql.query(sql, threads=a.threads, memory_limit=a.memory_limit, temp_directory=a.temp_dir,
+                           **options)
+        elapsed = time.perf_counter() - t0
+        if name not in GINI_CASES:
+            return {"result_rows": len(df)}, elapsed
+        df = df.sort_values(df.columns[0])
+        return {"grp": [int(g) for g in df.iloc[:, 0]], "gini": [float(v) for v in df.iloc[:, 1]]}, elapsed
+
+    return run
+
+
+CASES = {name: family_case(name) for name in FAMILIES}
