@@ -2,10 +2,11 @@
 
 from __future__ import annotations
 
-from ineqsql.catalog import entity, moment, ordered
+from ineqsql.catalog import entity, moment, ordered, uncertainty
 from ineqsql.catalog.spec import Measure, Param
 
 MEASURES: dict[str, Measure] = {m.name: m for m in (*ordered.MEASURES, *moment.MEASURES, *entity.MEASURES)}
+MEASURES.update({m.name: m for m in uncertainty.uncertainty_measures(MEASURES)})  # <m>_se, <m>_ci_lo/hi …
 
 
 def lookup(name: str) -> Measure | None:

@@ -8,7 +8,7 @@ from typing import Callable, Literal
 
 from sqlglot import exp
 
-PassKind = Literal["ordered", "moment", "centred", "entity"]
+PassKind = Literal["ordered", "moment", "centred", "entity", "linearized", "bootstrap"]
 
 
 @dataclass(frozen=True)
@@ -52,6 +52,10 @@ class Measure:
     domain: str = ""
     max_count: int | None = None  # cap for a "count" parameter (e.g. lorenz_curve points)
     options: tuple[str, ...] = ("strict",)  # named arguments the measure accepts
+    # named arguments that shape the pass (calls differing in them get passes of their own)
+    pass_options: tuple[str, ...] = ()
+    # read_options(options) -> settings: checks the named arguments' values, raises ValueError
+    read_options: Callable[[dict], dict] | None = None
 
     def pass_for(self, has_trailing: bool) -> PassKind:
         if isinstance(self.passes, tuple):

@@ -16,6 +16,7 @@ class PassPlan:
     trailing: exp.Expression | None  # the weight (ordered, moment) or the entity (entity)
     condition: exp.Expression | None = None  # a FILTER (WHERE …) shared by the pass's calls
     calls: list[MeasureCall] = field(default_factory=list)
+    options: dict = field(default_factory=dict)  # the pass-shaping named arguments (strata, psu, …)
 
 
 def plan_passes(calls: list[MeasureCall]) -> list[PassPlan]:
@@ -28,9 +29,40 @@ def plan_passes(calls: list[MeasureCall]) -> list[PassPlan]:
         kind = call.pass_kind
         trailing = call.trailing
         cond = call.filter
+        shaping = {k: call.options[k] for k in call.measure.pass_options if k in call.options}
         key = (kind, call.x.sql("duckdb"), trailing.sql("duckdb") if trailing is not None else None,
-               cond.sql("duckdb") if cond is not None else None)
+               cond.sql("duckdb") if cond is not None else None,
+               tuple(sorted((k, v.sql("duckdb")) for k, v in shaping.items())))
         if key not in plans:
-            plans[key] = PassPlan(kind, call.x, trailing, cond)
+            plans[key] = PassPlan(kind, call.x, trailing, cond, options=shaping)
         plans[key].calls.append(call)
     return list(plans.values())
+
+
+SHAREABLE = {"ordered", "moment"}  # plain passes whose measures a linearized pass can also compute
+
+
+def share_passes(plans: list[PassPlan], can_share) -> list[PassPlan]:
+    """Move the calls of an ordered or moment pass onto a linearized pass of the same value, weight
+    and FILTER (when ``can_share(call)``), so an estimate and its standard error share one sort."""
+    linearized = {}
+    for plan in plans:
+        if plan.kind == "linearized":
+            linearized.setdefault(_rows_key(plan), plan)
+    out = []
+    for plan in plans:
+        target = linearized.get(_rows_key(plan)) if plan.kind in SHAREABLE else None
+        if target is None:
+            out.append(plan)
+            continue
+        moved = [c for c in plan.calls if can_share(c)]
+        target.calls += moved
+        plan.calls = [c for c in plan.calls if not can_share(c)]
+        if plan.calls:
+            out.append(plan)
+    return out
+
+
+def _rows_key(plan: PassPlan) -> tuple:
+    return (plan.x.sql("duckdb"), plan.trailing.sql("duckdb") if plan.trailing is not None else None,
+            plan.condition.sql("duckdb") if plan.condition is not None else None)

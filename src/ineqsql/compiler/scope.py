@@ -17,11 +17,13 @@ from ineqsql.compiler.calls import MeasureCall, call_key, is_aggregate, is_measu
 from ineqsql.compiler.context import CompileContext, text
 from ineqsql.compiler.keys import resolve_group_keys, same_key
 from ineqsql.compiler.passes.centred import lower_centred_pass
+from ineqsql.compiler.passes.bootstrap import lower_bootstrap_pass
 from ineqsql.compiler.passes.entity import lower_entity_pass
+from ineqsql.compiler.passes.linearized import can_share, lower_linearized_pass
 from ineqsql.compiler.passes.moment import MainAggregate, lower_moment_pass
 from ineqsql.compiler.passes.ordered import lower_ordered_pass
 from ineqsql.compiler.passes.source import Source, join_on_keys, key_name, table
-from ineqsql.compiler.plan import plan_passes
+from ineqsql.compiler.plan import plan_passes, share_passes
 from ineqsql.errors import UnsupportedSqlError
 
 
@@ -67,6 +69,8 @@ LOWERINGS = {
     "centred": ("cen", lower_centred_pass),
     "ordered": ("ord", lower_ordered_pass),
     "entity": ("ent", lower_entity_pass),
+    "linearized": ("lin", lower_linearized_pass),
+    "bootstrap": ("bs", lower_bootstrap_pass),
 }
 
 
@@ -74,7 +78,7 @@ def lower_passes(calls: list[MeasureCall], source: Source, main: MainAggregate, 
     """Lower every planned pass: (its CTEs, the CTEs the final SELECT joins on the keys, call key →
     result). The CTEs to join are those the results read, other than the main aggregate."""
     ctes, results = [], {}
-    for plan in plan_passes(calls):
+    for plan in share_passes(plan_passes(calls), can_share):
         prefix, lower = LOWERINGS[plan.kind]
         new, res = lower(source, main, plan, ctx.name(prefix) if prefix else None)
         ctes += new
