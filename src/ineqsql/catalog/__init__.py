@@ -2,11 +2,12 @@
 
 from __future__ import annotations
 
-from ineqsql.catalog import entity, moment, ordered, structure
+from ineqsql.catalog import entity, moment, ordered, structure, uncertainty
 from ineqsql.catalog.spec import Measure, Param
 
 MEASURES: dict[str, Measure] = {m.name: m for m in (*ordered.MEASURES, *moment.MEASURES, *entity.MEASURES,
                                                  *structure.MEASURES)}
+MEASURES.update({m.name: m for m in uncertainty.uncertainty_measures(MEASURES)})  # <m>_se, <m>_ci_lo/hi …
 
 
 def lookup(name: str) -> Measure | None:

@@ -8,7 +8,8 @@ from typing import Callable, Literal
 
 from sqlglot import exp
 
-PassKind = Literal["ordered", "moment", "centred", "entity", "subgroup", "ranked", "paired"]
+PassKind = Literal["ordered", "moment", "centred", "entity", "subgroup", "ranked", "paired", "linearized",
+                   "bootstrap"]
 
 
 @dataclass(frozen=True)
@@ -60,6 +61,10 @@ class Measure:
     # and the other column arguments, in order, as its columns (concentration(y, rank_by) sorts by 1)
     sort_arg: int = 0
     check: Callable[[tuple[float, ...]], str | None] | None = None  # relations between constants (lo < hi)
+    # named arguments that shape the pass (calls differing in them get passes of their own)
+    pass_options: tuple[str, ...] = ()
+    # read_options(options) -> settings: checks the named arguments' values, raises ValueError
+    read_options: Callable[[dict], dict] | None = None
 
     def pass_for(self, has_trailing: bool) -> PassKind:
         if isinstance(self.passes, tuple):

@@ -26,6 +26,7 @@ class MeasureCall:
     options: dict[str, exp.Expression] = field(default_factory=dict)
     filter: exp.Expression | None = None  # the condition of ``measure(...) FILTER (WHERE …)``
     strict: bool = False  # an undefined result stops the query with an error naming the group
+    settings: dict = field(default_factory=dict)  # named arguments as read by measure.read_options
     key: tuple = ()  # call_key(node), computed once
 
     def __post_init__(self):
@@ -207,7 +208,13 @@ def read_call(node: exp.Anonymous, ctx: CompileContext) -> MeasureCall:
             raise ctx.error(MeasureArgumentError, f"{name}(): strict must be true or false, got {text(flag)}",
                             node, name)
         strict = bool(flag.this)
+    settings = {}
+    if measure.read_options is not None:
+        try:
+            settings = measure.read_options(options)
+        except ValueError as e:
+            raise ctx.error(MeasureArgumentError, f"{name}(): {e}", node, name) from None
     cond = call_filter(node)
     return MeasureCall(node=node, measure=measure, x=x, params=tuple(params), trailing=trailing,
                        columns=tuple(columns), options=options,
-                       filter=cond.copy() if cond is not None else None, strict=strict)
+                       filter=cond.copy() if cond is not None else None, strict=strict, settings=settings)

@@ -21,6 +21,7 @@ class PassPlan:
     calls: list[MeasureCall] = field(default_factory=list)
     variant: str = "rows"  # ordered pass: "rows" (one row per input row) or "ties" (per distinct value)
     reason: str = ""  # why the planner chose the variant (shown by explain)
+    options: dict = field(default_factory=dict)  # the pass-shaping named arguments (strata, psu, …)
 
 
 def plan_passes(calls: list[MeasureCall]) -> list[PassPlan]:
@@ -35,10 +36,12 @@ def plan_passes(calls: list[MeasureCall]) -> list[PassPlan]:
         trailing = call.trailing
         cond = call.filter
         x, columns = call.pass_inputs
+        shaping = {k: call.options[k] for k in call.measure.pass_options if k in call.options}
         key = (kind, x.sql("duckdb"), trailing.sql("duckdb") if trailing is not None else None,
-               cond.sql("duckdb") if cond is not None else None, tuple(c.sql("duckdb") for c in columns))
+               cond.sql("duckdb") if cond is not None else None, tuple(c.sql("duckdb") for c in columns),
+               tuple(sorted((k, v.sql("duckdb")) for k, v in shaping.items())))
         if key not in plans:
-            plans[key] = PassPlan(kind, x, trailing, cond, columns)
+            plans[key] = PassPlan(kind, x, trailing, cond, columns, options=shaping)
         plans[key].calls.append(call)
     return list(plans.values())
 
@@ -89,3 +92,30 @@ def describe_pass(plan: PassPlan, ctes: list[str]) -> dict:
             "filter": text(plan.condition) if plan.condition is not None else None,
             "measures": list(dict.fromkeys(text(c.node) for c in plan.calls)), "ctes": ctes,
             "reason": plan.reason}
+SHAREABLE = {"ordered", "moment"}  # plain passes whose measures a linearized pass can also compute
+
+
+def share_passes(plans: list[PassPlan], can_share) -> list[PassPlan]:
+    """Move the calls of an ordered or moment pass onto a linearized pass of the same value, weight
+    and FILTER (when ``can_share(call)``), so an estimate and its standard error share one sort."""
+    linearized = {}
+    for plan in plans:
+        if plan.kind == "linearized":
+            linearized.setdefault(_rows_key(plan), plan)
+    out = []
+    for plan in plans:
+        target = linearized.get(_rows_key(plan)) if plan.kind in SHAREABLE else None
+        if target is None:
+            out.append(plan)
+            continue
+        moved = [c for c in plan.calls if can_share(c)]
+        target.calls += moved
+        plan.calls = [c for c in plan.calls if not can_share(c)]
+        if plan.calls:
+            out.append(plan)
+    return out
+
+
+def _rows_key(plan: PassPlan) -> tuple:
+    return (plan.x.sql("duckdb"), plan.trailing.sql("duckdb") if plan.trailing is not None else None,
+            plan.condition.sql("duckdb") if plan.condition is not None else None)

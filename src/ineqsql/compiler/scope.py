@@ -17,14 +17,16 @@ from ineqsql.compiler.calls import MeasureCall, call_key, is_aggregate, is_measu
 from ineqsql.compiler.context import CompileContext, text
 from ineqsql.compiler.keys import resolve_group_keys, same_key
 from ineqsql.compiler.passes.centred import lower_centred_pass
+from ineqsql.compiler.passes.bootstrap import lower_bootstrap_pass
 from ineqsql.compiler.passes.entity import lower_entity_pass
+from ineqsql.compiler.passes.linearized import can_share, lower_linearized_pass
 from ineqsql.compiler.passes.moment import MainAggregate, lower_moment_pass
 from ineqsql.compiler.passes.ordered import lower_ordered_pass
 from ineqsql.compiler.passes.paired import lower_paired_pass
 from ineqsql.compiler.passes.ranked import lower_ranked_pass
 from ineqsql.compiler.passes.subgroup import lower_subgroup_pass
 from ineqsql.compiler.passes.source import Source, join_on_keys, key_name, table
-from ineqsql.compiler.plan import choose_variant, describe_pass, plan_passes
+from ineqsql.compiler.plan import choose_variant, describe_pass, plan_passes, share_passes
 from ineqsql.errors import UnsupportedSqlError
 
 
@@ -73,6 +75,8 @@ LOWERINGS = {
     "subgroup": ("sub", lower_subgroup_pass),
     "ranked": ("rnk", lower_ranked_pass),
     "paired": ("pair", lower_paired_pass),
+    "linearized": ("lin", lower_linearized_pass),
+    "bootstrap": ("bs", lower_bootstrap_pass),
 }
 
 
@@ -80,7 +84,7 @@ def lower_passes(calls: list[MeasureCall], source: Source, main: MainAggregate, 
     """Lower every planned pass: (its CTEs, the CTEs the final SELECT joins on the keys, call key →
     result). The CTEs to join are those the results read, other than the main aggregate."""
     ctes, results = [], {}
-    for plan in plan_passes(calls):
+    for plan in share_passes(plan_passes(calls), can_share):
         choose_variant(plan, source.select, source.keys, ctx.tie_grouping, ctx.tie_probe)
         prefix, lower = LOWERINGS[plan.kind]
         new, res = lower(source, main, plan, ctx.name(prefix) if prefix else None)
