@@ -6,7 +6,7 @@ from sqlglot import exp
 
 from ineqsql.compiler.calls import check_position, find_calls, read_call
 from ineqsql.compiler.context import CompileContext, span, text
-from ineqsql.compiler.generate import check_dialect, generate
+from ineqsql.compiler.generate import check_dialect, check_read_dialect, generate
 from ineqsql.compiler.parse import parse_one_statement
 from ineqsql.compiler.scope import rewrite_scope
 from ineqsql.errors import MeasureUsageError
@@ -60,6 +60,7 @@ def compile_sql(sql: str, dialect: str = "duckdb", read: str = "duckdb", pretty:
     measure call strict (an undefined result stops the query, naming the group);
     ``source_columns(select)`` may tell the columns a SELECT's FROM provides (see keys.py)."""
     check_dialect(dialect)
+    check_read_dialect(read)
     ctx = CompileContext(sql=sql, strict=strict, source_columns=source_columns)
     tree = compile_tree(parse_one_statement(sql, read), ctx)
     return generate(tree, dialect, pretty=pretty)
