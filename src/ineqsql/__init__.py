@@ -5,12 +5,13 @@
 """
 
 from ineqsql.api import compile, measures, query  # noqa: A004
+from ineqsql.engine.sqlite import install_sqlite_functions
 from ineqsql.errors import (ExecutionError, IneqsqlError, InputDataError, MeasureArgumentError,
                             MeasureUsageError, SqlParseError, UndefinedResultError, UnsupportedDialectError,
                             UnsupportedSqlError)
 
 __version__ = "0.1.0"
 
-__all__ = ["compile", "query", "measures", "IneqsqlError", "SqlParseError", "MeasureUsageError",
+__all__ = ["compile", "query", "measures", "install_sqlite_functions", "IneqsqlError", "SqlParseError", "MeasureUsageError",
            "MeasureArgumentError", "UnsupportedSqlError", "ExecutionError", "InputDataError",
            "UndefinedResultError", "UnsupportedDialectError"]
