@@ -2,7 +2,14 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from engines import ENGINES, engine_or_skip
+from engines import ENGINES, engine_or_skip, shutdown_engines
+
+
+@pytest.fixture(scope="session", autouse=True)
+def _stop_engines_at_end():
+    """Servers and sessions start once per run, when a test first needs them, and stop here."""
+    yield
+    shutdown_engines()
 
 
 @pytest.fixture(params=sorted(ENGINES), scope="module")

@@ -1,19 +1,31 @@
-"""The backend test matrix: every engine the suite can run compiled SQL on.
+"""The backend test matrix: every engine the suite runs compiled SQL on.
 
-Each engine loads a pandas DataFrame as table ``t`` and runs a compiled query. DuckDB is always
-present; further engines join this list (and skip with a reason where they are absent; with
-INEQSQL_REQUIRE_ENGINES=1, as in CI, an absent engine fails instead).
+Each engine loads a pandas DataFrame as a table and runs a query compiled for its dialect,
+returning a DataFrame (list results as Python lists of dicts; SQLite's JSON text is left as text
+for the tests to decode). DuckDB is always present; PostgreSQL (a throwaway server, see
+pg_server.py), Spark (pyspark in local mode, tables read from Parquet) and SQLite (Python's
+sqlite3) start once per test run and are skipped with a reason where absent; with
+INEQSQL_REQUIRE_ENGINES=1, as in CI, an absent engine fails instead.
 """
 
 from __future__ import annotations
 
+import atexit
 import os
+import shutil
+import sqlite3
+import tempfile
+from pathlib import Path
 
 import duckdb
 import pandas as pd
 import pytest
 
 import ineqsql
+
+
+class EngineError(Exception):
+    """A query failed on the engine; ``str`` is the engine's message."""
 
 
 class DuckDBEngine:
@@ -28,15 +40,169 @@ class DuckDBEngine:
         self.con.execute(f'CREATE OR REPLACE TABLE "{table}" AS SELECT * FROM _iq_test_df')
         self.con.unregister("_iq_test_df")
 
-    def run(self, sql: str) -> pd.DataFrame:
-        compiled = ineqsql.compile(sql, dialect=self.dialect)
-        return self.con.execute(compiled).fetchdf()
+    def execute(self, compiled: str) -> pd.DataFrame:
+        try:
+            return self.con.execute(compiled).fetchdf()
+        except duckdb.Error as e:
+            raise EngineError(str(e)) from None
+
+    def run(self, sql: str, **options) -> pd.DataFrame:
+        return self.execute(ineqsql.compile(sql, dialect=self.dialect, **options))
 
     def close(self):
         self.con.close()
 
 
-ENGINES = {"duckdb": DuckDBEngine}
+# --- PostgreSQL ------------------------------------------------------------------------------
+
+_PG_TYPES = {"f": "double precision", "i": "bigint", "u": "bigint", "b": "boolean"}
+
+
+def _pg_type(dtype) -> str:
+    return _PG_TYPES.get(getattr(dtype, "kind", "O"), "text")
+
+
+def _plain(value):
+    """A DataFrame cell as a plain Python value (NULL for NA / NaN in a nullable column)."""
+    if value is None or value is pd.NA or (isinstance(value, float) and value != value):
+        return None
+    return value.item() if hasattr(value, "item") else value
+
+
+class PostgresEngine(DuckDBEngine):
+    name = "postgres"
+    dialect = "postgres"
+    server = None
+
+    def __init__(self):
+        import psycopg  # noqa: F401 (absent: the engine is skipped)
+        if PostgresEngine.server is None:
+            from pg_server import PostgresServer
+            PostgresEngine.server = PostgresServer()
+            atexit.register(PostgresEngine.server.stop)
+        self.psycopg = psycopg
+        self.con = psycopg.connect(PostgresEngine.server.dsn, autocommit=True)
+
+    def load(self, df: pd.DataFrame, table: str = "t") -> None:
+        cols = ", ".join(f'"{c}" {_pg_type(df[c].dtype)}' for c in df.columns)
+        with self.con.cursor() as cur:
+            cur.execute(f'DROP TABLE IF EXISTS "{table}"')
+            cur.execute(f'CREATE TABLE "{table}" ({cols})')
+            with cur.copy(f'COPY "{table}" FROM STDIN') as copy:
+                for row in df.itertuples(index=False):
+                    copy.write_row([_plain(v) for v in row])
+            cur.execute(f'ANALYZE "{table}"')
+
+    def execute(self, compiled: str) -> pd.DataFrame:
+        try:
+            with self.con.cursor() as cur:
+                cur.execute(compiled)
+                names = [d.name for d in cur.description]
+                return pd.DataFrame(cur.fetchall(), columns=names, dtype=object)
+        except self.psycopg.Error as e:
+            raise EngineError(str(e)) from None
+
+    def close(self):
+        self.con.close()
+
+
+# --- Spark -----------------------------------------------------------------------------------
+
+def _to_python(value):
+    """Spark Rows (structs) and lists of them as dicts and lists."""
+    if hasattr(value, "asDict"):
+        return {k: _to_python(v) for k, v in value.asDict().items()}
+    if isinstance(value, list):
+        return [_to_python(v) for v in value]
+    return value
+
+
+class SparkEngine(DuckDBEngine):
+    name = "spark"
+    dialect = "spark"
+    session = None
+    folder: Path | None = None
+
+    def __init__(self):
+        if SparkEngine.session is None:
+            from pyspark.sql import SparkSession
+            SparkEngine.folder = Path(tempfile.mkdtemp(prefix="ineqsql-spark-"))
+            SparkEngine.session = (
+                SparkSession.builder.master("local[2]").appName("ineqsql-tests")
+                .config("spark.sql.shuffle.partitions", "2").config("spark.default.parallelism", "2")
+                .config("spark.ui.enabled", "false").config("spark.ui.showConsoleProgress", "false")
+                .config("spark.driver.memory", "1g")
+                .config("spark.sql.session.timeZone", "UTC").config("spark.local.dir", str(SparkEngine.folder))
+                .config("spark.driver.extraJavaOptions", "-XX:+UseSerialGC")
+                .getOrCreate())
+            SparkEngine.session.sparkContext.setLogLevel("FATAL")  # the tests raise errors on purpose
+            atexit.register(SparkEngine.shutdown)
+        self.spark = SparkEngine.session
+
+    @classmethod
+    def shutdown(cls):
+        if cls.session is not None:
+            cls.session.stop()
+            cls.session = None
+        if cls.folder is not None:
+            shutil.rmtree(cls.folder, ignore_errors=True)
+            cls.folder = None
+
+    def load(self, df: pd.DataFrame, table: str = "t") -> None:
+        path = SparkEngine.folder / f"{table}.parquet"
+        shutil.rmtree(path, ignore_errors=True)
+        df.to_parquet(path, index=False)  # the engine reads the table from Parquet
+        self.spark.read.parquet(str(path)).createOrReplaceTempView(table)
+
+    def execute(self, compiled: str) -> pd.DataFrame:
+        from pyspark.errors import PySparkException
+        try:
+            result = self.spark.sql(compiled)
+            names = result.columns
+            rows = [[_to_python(v) for v in row] for row in result.collect()]
+        except (PySparkException, Exception) as e:  # py4j errors too
+            raise EngineError(str(e)) from None
+        return pd.DataFrame(rows, columns=names, dtype=object)
+
+    def close(self):
+        pass  # one session per test run (atexit)
+
+
+# --- SQLite ----------------------------------------------------------------------------------
+
+_SQLITE_TYPES = {"f": "REAL", "i": "INTEGER", "u": "INTEGER", "b": "INTEGER"}
+
+
+class SQLiteEngine(DuckDBEngine):
+    name = "sqlite"
+    dialect = "sqlite"
+
+    def __init__(self):
+        from ineqsql.engine.sqlite import raised_message
+        self.raised_message = raised_message
+        self.con = sqlite3.connect(":memory:")
+        ineqsql.install_sqlite_functions(self.con)
+
+    def load(self, df: pd.DataFrame, table: str = "t") -> None:
+        cols = ", ".join(f'"{c}" {_SQLITE_TYPES.get(df[c].dtype.kind, "TEXT")}' for c in df.columns)
+        self.con.execute(f'DROP TABLE IF EXISTS "{table}"')
+        self.con.execute(f'CREATE TABLE "{table}" ({cols})')
+        marks = ", ".join("?" for _ in df.columns)
+        self.con.executemany(f'INSERT INTO "{table}" VALUES ({marks})',
+                             [[_plain(v) for v in row] for row in df.itertuples(index=False)])
+
+    def execute(self, compiled: str) -> pd.DataFrame:
+        self.raised_message(self.con)  # forget a message left by an earlier query
+        try:
+            cur = self.con.execute(compiled)
+            names = [d[0] for d in cur.description]
+            return pd.DataFrame(cur.fetchall(), columns=names, dtype=object)
+        except sqlite3.Error as e:
+            raise EngineError(self.raised_message(self.con) or str(e)) from None
+
+
+ENGINES = {"duckdb": DuckDBEngine, "postgres": PostgresEngine, "spark": SparkEngine, "sqlite": SQLiteEngine}
+_FAILED: dict[str, str] = {}
 
 
 def require_engines() -> bool:
@@ -44,9 +210,19 @@ def require_engines() -> bool:
 
 
 def engine_or_skip(name: str):
-    try:
-        return ENGINES[name]()
-    except Exception as e:  # an engine absent on this machine
-        if require_engines():
-            pytest.fail(f"engine {name} is required (INEQSQL_REQUIRE_ENGINES=1) but could not start: {e}")
-        pytest.skip(f"engine {name} is not available here: {e}")
+    if name not in _FAILED:
+        try:
+            return ENGINES[name]()
+        except Exception as e:  # an engine absent on this machine  # noqa: BLE001
+            _FAILED[name] = f"{type(e).__name__}: {str(e).strip()[:300]}"
+    if require_engines():
+        pytest.fail(f"engine {name} is required (INEQSQL_REQUIRE_ENGINES=1) but could not start: {_FAILED[name]}")
+    pytest.skip(f"engine {name} is not available here: {_FAILED[name]}")
+
+
+def shutdown_engines() -> None:
+    """Stop the servers and sessions started for the run (also registered with atexit)."""
+    SparkEngine.shutdown()
+    if PostgresEngine.server is not None:
+        PostgresEngine.server.stop()
+        PostgresEngine.server = None

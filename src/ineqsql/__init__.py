@@ -5,6 +5,7 @@
 """
 
 from ineqsql.api import compile, explain, measures, query  # noqa: A004
+from ineqsql.engine.sqlite import install_sqlite_functions
 from ineqsql.influence import influence
 from ineqsql.structure import compare, decompose, gini_sources
 from ineqsql.errors import (ExecutionError, IneqsqlError, InputDataError, MeasureArgumentError,
@@ -15,6 +16,6 @@ from ineqsql.report import lorenz_points, plot_lorenz, write_report
 
 __version__ = "0.1.0"
 
-__all__ = ["compile", "query", "explain", "measures", "decompose", "gini_sources", "compare", "influence", "IneqsqlError", "SqlParseError", "MeasureUsageError",
+__all__ = ["compile", "query", "explain", "measures", "install_sqlite_functions", "decompose", "gini_sources", "compare", "influence", "IneqsqlError", "SqlParseError", "MeasureUsageError",
            "MeasureArgumentError", "UnsupportedSqlError", "ExecutionError", "InputDataError",
            "UndefinedResultError", "UnsupportedDialectError", "lorenz_points", "plot_lorenz", "write_report"]

@@ -9,6 +9,7 @@ from pathlib import Path
 
 import ineqsql
 from ineqsql.engine.output import FORMATS, format_text, write_result
+from ineqsql.compiler.dialects import EXECUTED_DIALECTS, SUPPORTED_DIALECTS
 from ineqsql.cli.common import add_engine_options, connection, read_sql, settings
 from ineqsql.errors import IneqsqlError
 
@@ -17,6 +18,7 @@ EPILOG = """examples:
   ineqsql query --format csv --output out.csv "SELECT gini(income) FROM 'survey.parquet'"
   ineqsql compile "SELECT region, theil(income) FROM t GROUP BY region"
   ineqsql explain --profile "SELECT region, gini(income, w) FROM 'x/*.parquet' GROUP BY region"
+  ineqsql compile --dialect postgres "SELECT region, gini(income, w) FROM t GROUP BY region"
   ineqsql measures
   ineqsql demo --rows 200000
 """
@@ -44,8 +46,12 @@ def build_parser() -> argparse.ArgumentParser:
     c = sub.add_parser("compile", help="print the plain SQL a query compiles to",
                        description="Print the plain SQL (no measure calls left) a query compiles to.")
     c.add_argument("sql", metavar="SQL", help="the query: its text, - for standard input, or @FILE")
-    c.add_argument("--dialect", default="duckdb", help="target SQL dialect (default: duckdb)")
-    c.add_argument("--read", default="duckdb", help="dialect the input is written in (default: duckdb)")
+    c.add_argument("--dialect", default="duckdb", metavar="NAME",
+                   help=f"target SQL dialect: {', '.join(SUPPORTED_DIALECTS)} (default: duckdb; "
+                   f"{', '.join(d for d in SUPPORTED_DIALECTS if d not in EXECUTED_DIALECTS)} are emitted, "
+                   "not executed in ineqsql's tests; see docs/engines.md)")
+    c.add_argument("--read", default="duckdb", metavar="NAME",
+                   help="dialect the input is written in, e.g. spark (default: duckdb)")
     c.add_argument("--strict", action="store_true", help="compile every measure call as strict")
 
     sub.add_parser("measures", help="list the measures with their arguments and formulas",

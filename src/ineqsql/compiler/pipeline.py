@@ -6,7 +6,7 @@ from sqlglot import exp
 
 from ineqsql.compiler.calls import check_position, find_calls, read_call
 from ineqsql.compiler.context import CompileContext, span, text
-from ineqsql.compiler.generate import check_dialect, generate
+from ineqsql.compiler.generate import check_dialect, check_read_dialect, generate
 from ineqsql.compiler.parse import parse_one_statement
 from ineqsql.compiler.plan import TIE_GROUPING
 from ineqsql.compiler.scope import rewrite_scope
@@ -70,6 +70,7 @@ def compile_with_plan(sql: str, dialect: str = "duckdb", read: str = "duckdb", p
     """``compile_sql`` and the planner's record of every pass (plan.describe_pass), innermost scope first."""
     check_dialect(dialect)
     check_tie_grouping(tie_grouping)
+    check_read_dialect(read)
     ctx = CompileContext(sql=sql, strict=strict, source_columns=source_columns, tie_grouping=tie_grouping,
                          tie_probe=tie_probe)
     tree = compile_tree(parse_one_statement(sql, read), ctx)
