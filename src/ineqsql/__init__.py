@@ -5,17 +5,37 @@
 """
 
 from ineqsql.api import compile, explain, measures, query  # noqa: A004
+from ineqsql.builder import BuilderError, from_
+from ineqsql.catalog.user import define_measure, remove_measure
+from ineqsql.duckdb_functions import FunctionConflictError, install, uninstall
 from ineqsql.engine.sqlite import install_sqlite_functions
-from ineqsql.influence import influence
-from ineqsql.structure import compare, decompose, gini_sources
 from ineqsql.errors import (ExecutionError, IneqsqlError, InputDataError, MeasureArgumentError,
                             MeasureUsageError, SqlParseError, UndefinedResultError, UnsupportedDialectError,
                             UnsupportedSqlError)
-
+from ineqsql.influence import influence
 from ineqsql.report import lorenz_points, plot_lorenz, write_report
+from ineqsql.structure import compare, decompose, gini_sources
 
 __version__ = "0.1.0"
 
-__all__ = ["compile", "query", "explain", "measures", "install_sqlite_functions", "decompose", "gini_sources", "compare", "influence", "IneqsqlError", "SqlParseError", "MeasureUsageError",
-           "MeasureArgumentError", "UnsupportedSqlError", "ExecutionError", "InputDataError",
-           "UndefinedResultError", "UnsupportedDialectError", "lorenz_points", "plot_lorenz", "write_report"]
+__all__ = [
+    # SQL text in, results or SQL out
+    "compile", "query", "explain", "measures",
+    # other front-ends: the builder, functions inside DuckDB, your own measures, SQLite support
+    "from_", "install", "uninstall", "define_measure", "remove_measure", "install_sqlite_functions",
+    # tables: decompositions, income sources, paired comparisons, outlier influence
+    "decompose", "gini_sources", "compare", "influence",
+    # pictures and reports
+    "lorenz_points", "plot_lorenz", "write_report",
+    # errors (all IneqsqlError)
+    "IneqsqlError", "SqlParseError", "MeasureUsageError", "MeasureArgumentError", "UnsupportedSqlError",
+    "ExecutionError", "InputDataError", "UndefinedResultError", "UnsupportedDialectError", "BuilderError",
+    "FunctionConflictError",
+]
+
+
+def __getattr__(name: str):
+    """``ineqsql.gini("income", weight="w")``: one builder measure per catalog entry (see builder/)."""
+    from ineqsql.builder.measures import measure_factory
+
+    return measure_factory(name)

@@ -27,7 +27,7 @@ def build_hhi(ctx, params=()):
 
 
 def build_cr(ctx, params):
-    k = int(params[0])
+    k = params[0] if hasattr(params[0], "to_expression") else int(params[0])  # run-time k: a macro argument
     top = s.agg_sum(s.case(s.lte(ctx.r, s.lit(k)), ctx.v, ZERO))
     return s.case(_defined(ctx), s.div(top, s.agg_sum(ctx.v)))
 

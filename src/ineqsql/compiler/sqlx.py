@@ -12,6 +12,8 @@ DOUBLE = exp.DataType.build("double")
 
 
 def lit(value: float | int | str) -> exp.Expression:
+    if hasattr(value, "to_expression"):  # a parameter known only at run time (registered functions)
+        return value.to_expression()
     if isinstance(value, str):
         return exp.Literal.string(value)
     if value < 0:

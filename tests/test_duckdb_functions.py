@@ -1,0 +1,190 @@
+"""Measures registered inside DuckDB (ineqsql.install): aggregate and table macros against the
+compiler (1e-12) and the numpy reference (1e-9), persistence in a database file read by a process
+that never imports ineqsql, install.sql kept up to date, and errors that name function and argument."""
+
+from __future__ import annotations
+
+import ast
+import math
+import subprocess
+import sys
+import textwrap
+
+import duckdb
+import numpy as np
+import pandas as pd
+import pytest
+
+import ineqsql
+from conftest import make_groups
+from ineqsql.duckdb_functions import install_sql, installed, uninstall
+from ineqsql.catalog import MEASURES
+from ineqsql.duckdb_functions.install import INSTALL_SQL, FunctionConflictError, has_macros
+from test_measures_engines import CASES, ENTITY_CASES, _expected, close
+
+# (template, reference, weighted); entity measures take no weight; lorenz_curve has no macro, nor do
+# the measures on passes a macro cannot express (has_macros; see docs)
+AGG_CASES = [(t, r, wt) for t, r in CASES + ENTITY_CASES
+             if not t.startswith("lorenz_curve") and has_macros(MEASURES[t.split("(")[0]])
+             for wt in ((False,) if t.startswith(("hhi", "cr")) else (False, True))]
+
+
+@pytest.fixture(scope="module")
+def con():
+    df = make_groups()
+    extra = pd.DataFrame({"grp": ["zeros"] * 3 + ["nulls"] * 2, "x": [0.0, 0.0, 0.0, None, None],
+                          "w": [1.0, 2.0, 1.0, 1.0, 1.0], "e": [1, 2, 3, 1, 2]})
+    extra["x"] = extra["x"].astype("Float64")
+    extra["w"] = extra["w"].astype("Float64")
+    df = pd.concat([df, extra], ignore_index=True)
+    c = duckdb.connect()
+    c.register("frame", df)
+    c.execute("CREATE TABLE t AS SELECT * FROM frame")
+    c.unregister("frame")
+    ineqsql.install(c)
+    yield c, df
+    c.close()
+
+
+def _rows(result: pd.DataFrame) -> dict:
+    return {(None if pd.isna(k) else k): (None if v is None or (isinstance(v, float) and math.isnan(v)) else v)
+            for k, v in zip(result["grp"], result["v"])}
+
+
+def _agree(a, b, tol=1e-12) -> bool:
+    if a is None or b is None:
+        return a is None and b is None
+    return abs(a - b) <= tol * max(1.0, abs(b))
+
+
+@pytest.mark.parametrize("template,ref,weighted", AGG_CASES,
+                         ids=[t + ("-weighted" if wt else "") for t, _, wt in AGG_CASES])
+def test_aggregate_form_equals_compiler_and_reference(con, template, ref, weighted):
+    c, df = con
+    entity = template.startswith(("hhi", "cr"))
+    call = template.format(w=", w" if weighted else "")
+    sql = f"SELECT grp, {call} AS v FROM t GROUP BY grp"
+    registered = _rows(c.execute(sql).fetchdf())  # plain DuckDB: the macro
+    compiled = _rows(ineqsql.query(sql, con=c))  # the compiler rewrites the call first
+    assert set(registered) == set(compiled)
+    for key in compiled:
+        assert _agree(registered[key], compiled[key]), (key, registered[key], compiled[key])
+    expected = _expected(df, ref, weighted, entity, "grp")  # numpy reference (ineqsql.reference)
+    for key, want in expected.items():
+        assert close(registered[None if pd.isna(key) else key], want), (key, registered, want)
+
+
+TABLE_CASES = [("gini", [], "w"), ("top_share", [0.1], "w"), ("quantile_w", [0.5], None), ("ge", [0.0], "w"),
+               ("ge", [2.0], None), ("atkinson", [1.0], "w"), ("cv", [], "w"), ("hoover", [], None),
+               ("cr", [2], "e"), ("hhi", [], None), ("percentile_ratio", [0.9, 0.1], "w"), ("theil", [], "w")]
+
+
+@pytest.mark.parametrize("name,params,trailing", TABLE_CASES, ids=[f"{c[0]}{c[1]}{c[2]}" for c in TABLE_CASES])
+def test_table_form_equals_compiler(con, name, params, trailing):
+    c, _ = con
+    args = ", ".join([repr(p) for p in params] + (["NULL"] if trailing is None else [f"'{trailing}'"]))
+    got = c.execute(f"SELECT grp, {name} AS v FROM {name}_by('t', 'x', {args}, ['grp'])").fetchdf()
+    call_args = ", ".join(["x", *map(str, params)] + ([trailing] if trailing else []))
+    want = ineqsql.query(f"SELECT grp, {name}({call_args}) AS v FROM t GROUP BY grp", con=c)
+    got, want = _rows(got), _rows(want)
+    assert set(got) == set(want)
+    for key in want:
+        assert _agree(got[key], want[key]), (key, got[key], want[key])
+
+
+def test_table_form_several_keys(con):
+    c, _ = con
+    got = c.execute("SELECT * FROM gini_by('t', 'x', 'w', ['grp', 'e']) ORDER BY grp, e").fetchdf()
+    want = ineqsql.query("SELECT grp, e, gini(x, w) AS gini FROM t GROUP BY grp, e ORDER BY grp, e", con=c)
+    assert list(got.columns) == ["grp", "e", "gini"]
+    assert np.allclose(got["gini"].to_numpy(float), want["gini"].to_numpy(float), rtol=1e-12, equal_nan=True)
+
+
+def test_every_measure_but_lorenz_curve_has_both_forms(con):
+    c, _ = con
+    names = {n for n, _, _ in installed(c)}
+    for m in ineqsql.measures():
+        if not has_macros(MEASURES[m["name"]]):  # standard errors, decompositions …: compiler only
+            assert m["name"] not in names
+            continue
+        if m["name"] == "lorenz_curve":  # k shapes the plan (k+1 grid points): no macro (see docs)
+            assert m["name"] not in names
+            continue
+        assert m["name"] in names and f"{m['name']}_by" in names
+
+
+def test_persists_in_a_file_for_a_process_without_ineqsql(tmp_path):
+    path = tmp_path / "survey.duckdb"
+    c = duckdb.connect(str(path))
+    c.execute("CREATE TABLE h AS SELECT i % 3 AS region, (i + 1)::DOUBLE AS income, 1 + i % 2 AS w "
+              "FROM range(30) r(i)")
+    ineqsql.install(c)
+    want = ineqsql.query("SELECT region, gini(income, w) AS g, top_share(income, 0.1) AS t FROM h "
+                         "GROUP BY region ORDER BY region", con=c)
+    c.close()
+    code = textwrap.dedent(f"""
+        import sys, duckdb
+        c = duckdb.connect({str(path)!r}, read_only=True)
+        rows = c.execute("SELECT region, gini(income, w), top_share(income, 0.1) FROM h GROUP BY region ORDER BY region").fetchall()
+        print(repr([list(r) for r in rows]))
+        print('ineqsql' in sys.modules)
+    """)
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True,
+                         env={"PATH": "/usr/bin:/bin", "PYTHONPATH": ""}).stdout.splitlines()
+    rows = ast.literal_eval(out[0])
+    assert out[1] == "False"
+    assert np.allclose([r[1] for r in rows], want["g"], rtol=1e-12)
+    assert np.allclose([r[2] for r in rows], want["t"], rtol=1e-12)
+
+
+def test_install_sql_is_up_to_date_and_runs_in_plain_duckdb():
+    assert INSTALL_SQL.read_text(encoding="utf-8") == install_sql(), \
+        "sql/duckdb/install.sql is stale: run python -m ineqsql.duckdb_functions"
+    c = duckdb.connect()
+    for statement in INSTALL_SQL.read_text(encoding="utf-8").split(";\n"):
+        if statement.strip() and not statement.strip().startswith("--") or "CREATE" in statement:
+            c.execute(statement)
+    # equal values: Gini 0; one unit holds everything among 4: (n-1)/n = 0.75 (facts of the trade)
+    assert c.execute("SELECT gini(x) FROM (VALUES (5), (5), (5)) v(x)").fetchone()[0] == pytest.approx(0, abs=1e-15)
+    assert c.execute("SELECT gini(x) FROM (VALUES (0), (0), (0), (8)) v(x)").fetchone()[0] == pytest.approx(0.75)
+
+
+def test_install_refuses_to_overwrite_a_users_macro_and_uninstall_drops_only_its_own():
+    c = duckdb.connect()
+    c.execute("CREATE MACRO gini(a) AS 42")
+    c.execute("CREATE MACRO my_own(a) AS a + 1")
+    with pytest.raises(FunctionConflictError, match="gini"):
+        ineqsql.install(c)
+    assert c.execute("SELECT gini(1)").fetchone()[0] == 42  # untouched
+    ineqsql.install(c, measures=["theil"])
+    ineqsql.install(c, measures=["theil"])  # again: its own macros are replaced quietly
+    ineqsql.install(c, replace=True)
+    assert c.execute("SELECT gini(x) FROM (VALUES (1), (1)) v(x)").fetchone()[0] == 0
+    dropped = uninstall(c)
+    assert "gini" in dropped and "theil_by" in dropped
+    assert c.execute("SELECT my_own(1)").fetchone()[0] == 2
+    assert not c.execute("SELECT count(*) FROM duckdb_functions() WHERE function_name = 'gini' "
+                         "AND NOT internal").fetchone()[0]
+
+
+@pytest.mark.parametrize("sql,words", [
+    ("SELECT gini(x, w) FROM (VALUES (1.0, -1.0), (2.0, 1.0)) v(x, w)", ["negative weight", "w", "gini"]),
+    ("SELECT gini(x, w) FROM (VALUES (1.0, 'a'), (2.0, 'b')) v(x, w)", ["gini", "weight w", "text"]),
+    ("SELECT top_share(x, 1.5) FROM (VALUES (1.0), (2.0)) v(x)", ["top_share", "p", "fraction"]),
+    ("SELECT cr(x, 0) FROM (VALUES (1.0), (2.0)) v(x)", ["cr", "k", "whole number"]),
+    ("SELECT gini(x, 1, 2, 3) FROM (VALUES (1.0)) v(x)", ["gini"]),
+    ("SELECT * FROM gini_by('t', 'x', 'w', ['grp']) WHERE gini < 0 AND x_by(1)", ["x_by"]),
+])
+def test_bad_input_errors_name_function_and_argument(con, sql, words):
+    c, _ = con
+    with pytest.raises(duckdb.Error) as err:
+        c.execute(sql).fetchall()
+    for word in words:
+        assert word in str(err.value)
+
+
+def test_null_for_undefined_groups_as_the_compiler(con):
+    c, _ = con
+    got = c.execute("SELECT grp, gini(x) AS g, theil(x, w) AS t, cv(x) AS c FROM t WHERE grp IN ('zeros', 'nulls') "
+                    "GROUP BY grp ORDER BY grp").fetchall()
+    assert got == [("nulls", None, None, None), ("zeros", None, None, None)]
