@@ -26,6 +26,7 @@ class MeasureCall:
     filter: exp.Expression | None = None  # the condition of ``measure(...) FILTER (WHERE …)``
     strict: bool = False  # an undefined result stops the query with an error naming the group
     key: tuple = ()  # call_key(node), computed once
+    pass_override: str | None = None  # set by method="bounded" (compiler/bounded.py)
 
     def __post_init__(self):
         if not self.key:
@@ -33,6 +34,8 @@ class MeasureCall:
 
     @property
     def pass_kind(self) -> str:
+        if self.pass_override:
+            return self.pass_override
         return self.measure.pass_for(self.trailing is not None)
 
 

@@ -9,6 +9,8 @@ from ineqsql.compiler.context import CompileContext, span, text
 from ineqsql.compiler.generate import check_dialect, generate
 from ineqsql.compiler.parse import parse_one_statement
 from ineqsql.compiler.scope import rewrite_scope
+from ineqsql.bounds import bins
+from ineqsql.compiler.bounded import check_method
 from ineqsql.errors import MeasureUsageError
 
 
@@ -55,11 +57,15 @@ def compile_tree(tree: exp.Expression, ctx: CompileContext) -> exp.Expression:
 
 
 def compile_sql(sql: str, dialect: str = "duckdb", read: str = "duckdb", pretty: bool = True,
-                strict: bool = False, source_columns=None) -> str:
+                strict: bool = False, source_columns=None, method: str = "exact",
+                resolution: float | None = None) -> str:
     """Compile SQL text with measure calls into plain SQL for ``dialect``; ``strict`` makes every
     measure call strict (an undefined result stops the query, naming the group);
-    ``source_columns(select)`` may tell the columns a SELECT's FROM provides (see keys.py)."""
+    ``method="bounded"`` gives each measure an interval from one-pass binned summaries of relative
+    bin width ``resolution`` (compiler/bounded.py); ``source_columns(select)`` may tell the columns a SELECT's FROM provides (see keys.py)."""
     check_dialect(dialect)
-    ctx = CompileContext(sql=sql, strict=strict, source_columns=source_columns)
+    ctx = CompileContext(sql=sql, strict=strict, source_columns=source_columns, method=check_method(method),
+                         resolution=bins.check_resolution(bins.DEFAULT_RESOLUTION if resolution is None
+                                                          else resolution))
     tree = compile_tree(parse_one_statement(sql, read), ctx)
     return generate(tree, dialect, pretty=pretty)

@@ -21,12 +21,16 @@ from ineqsql.compiler.passes.entity import lower_entity_pass
 from ineqsql.compiler.passes.moment import MainAggregate, lower_moment_pass
 from ineqsql.compiler.passes.ordered import lower_ordered_pass
 from ineqsql.compiler.passes.source import Source, join_on_keys, key_name, table
+from ineqsql.compiler.passes.summary import lower_summary_pass
+from ineqsql.compiler.bounded import bounded_items, route_bounded
 from ineqsql.compiler.plan import plan_passes
 from ineqsql.errors import UnsupportedSqlError
 
 
 def rewrite_scope(select: exp.Select, calls: list[MeasureCall], ctx: CompileContext) -> exp.Select:
     check_scope(select, ctx)
+    if ctx.method == "bounded":
+        route_bounded(select, calls, ctx)
     keys = resolve_group_keys(select, ctx)
     source = Source(select, keys)
     main = MainAggregate(ctx.name("agg"))
@@ -36,6 +40,8 @@ def rewrite_scope(select: exp.Select, calls: list[MeasureCall], ctx: CompileCont
     outputs = _output_aliases(select)
     final = exp.Select(expressions=[s.alias(replace(p.unalias()), outputs[i])
                                     for i, p in enumerate(select.expressions)])
+    if ctx.method == "bounded":
+        final.set("expressions", bounded_items(select, final.expressions, results, outputs))
     final.from_(table(main.name), copy=False)
     for name in pass_names:
         final.append("joins", join_on_keys(keys, name, left=main.name))
@@ -67,6 +73,7 @@ LOWERINGS = {
     "centred": ("cen", lower_centred_pass),
     "ordered": ("ord", lower_ordered_pass),
     "entity": ("ent", lower_entity_pass),
+    "summary": ("sum", lower_summary_pass),  # method="bounded" (bounds/, compiler/bounded.py)
 }
 
 
@@ -76,7 +83,8 @@ def lower_passes(calls: list[MeasureCall], source: Source, main: MainAggregate, 
     ctes, results = [], {}
     for plan in plan_passes(calls):
         prefix, lower = LOWERINGS[plan.kind]
-        new, res = lower(source, main, plan, ctx.name(prefix) if prefix else None)
+        extra = {"resolution": ctx.resolution} if plan.kind == "summary" else {}
+        new, res = lower(source, main, plan, ctx.name(prefix) if prefix else None, **extra)
         ctes += new
         results.update(res)
     for call in calls:
