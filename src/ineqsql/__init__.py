@@ -9,8 +9,10 @@ from ineqsql.errors import (ExecutionError, IneqsqlError, InputDataError, Measur
                             MeasureUsageError, SqlParseError, UndefinedResultError, UnsupportedDialectError,
                             UnsupportedSqlError)
 
+from ineqsql.summary import from_summary, merge_summaries, summarize
+
 __version__ = "0.1.0"
 
-__all__ = ["compile", "query", "measures", "IneqsqlError", "SqlParseError", "MeasureUsageError",
+__all__ = ["compile", "query", "measures", "summarize", "merge_summaries", "from_summary", "IneqsqlError", "SqlParseError", "MeasureUsageError",
            "MeasureArgumentError", "UnsupportedSqlError", "ExecutionError", "InputDataError",
            "UndefinedResultError", "UnsupportedDialectError"]

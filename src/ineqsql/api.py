@@ -7,7 +7,9 @@ import inspect
 import duckdb
 import pandas as pd
 
+from ineqsql.bounds.run import pick_resolution, run_bounded
 from ineqsql.catalog import MEASURES
+from ineqsql.compiler.bounded import check_method
 from ineqsql.compiler import compile_sql
 from ineqsql.engine.columns import duckdb_source_columns
 from ineqsql.engine.frames import register_caller_frames
@@ -15,30 +17,48 @@ from ineqsql.engine.runner import connect, execute_df
 
 
 def compile(sql: str, dialect: str = "duckdb", *, read: str = "duckdb", pretty: bool = True,  # noqa: A001
-            strict: bool = False) -> str:
+            strict: bool = False, method: str = "exact", tolerance: float | None = None,
+            resolution: float | None = None) -> str:
     """Compile SQL with measure calls into plain SQL for ``dialect`` (no measure calls left).
 
     ``strict=True``: a measure that is undefined for a group (NULL) stops the query with an error
     naming the group, as ``strict := true`` does for one call.
+
+    ``method="bounded"``: no sort; each measure column comes with ``<name>_lo`` and ``<name>_hi``,
+    a certified interval from one GROUP BY into log-spaced bins (docs/bounded.md). ``tolerance``
+    (a Gini interval width to aim at) or ``resolution`` (the relative bin width, default 0.01)
+    picks the bins.
     """
-    return compile_sql(sql, dialect=dialect, read=read, pretty=pretty, strict=strict)
+    return compile_sql(sql, dialect=dialect, read=read, pretty=pretty, strict=strict, method=method,
+                       resolution=pick_resolution(method, tolerance, resolution))
 
 
 def query(sql: str, con: duckdb.DuckDBPyConnection | None = None, *, memory_limit: str | None = None,
           threads: int | None = None, temp_directory: str | None = None,
-          progress: bool = False, strict: bool = False) -> pd.DataFrame:
+          progress: bool = False, strict: bool = False, method: str = "exact",
+          tolerance: float | None = None, resolution: float | None = None) -> pd.DataFrame:
     """Compile ``sql`` and run it on DuckDB (``con``, or a new in-memory connection).
 
     Tables the query names may also be pandas DataFrames or Arrow tables held by the calling code
     under that name, as with ``duckdb.sql``.
+
+    ``method="bounded"``: intervals instead of a sort (see ``compile``); the result's
+    ``attrs["ineqsql"]`` tells the resolution used and the widest interval of each measure. With a
+    ``tolerance``, a Gini interval wider than it makes the query run once more with finer bins.
     """
+    method = check_method(method)
+    chosen = pick_resolution(method, tolerance, resolution)
     connection = connect(con, memory_limit=memory_limit, threads=threads, temp_directory=temp_directory,
                          progress=progress)
     registered = register_caller_frames(connection, sql, inspect.currentframe().f_back)
     try:
-        compiled = compile_sql(sql, dialect="duckdb", pretty=False, strict=strict,
-                               source_columns=duckdb_source_columns(connection))
-        return execute_df(connection, compiled)
+        def run(res):
+            compiled = compile_sql(sql, dialect="duckdb", pretty=False, strict=strict, method=method,
+                                   resolution=res, source_columns=duckdb_source_columns(connection))
+            return execute_df(connection, compiled)
+        if method == "exact":
+            return run(None)
+        return run_bounded(run, chosen, tolerance, sql)
     finally:
         for name in registered:
             connection.unregister(name)

@@ -16,6 +16,7 @@ EPILOG = """examples:
   ineqsql query "SELECT region, gini(income, w), palma(income, w) FROM 'x/*.parquet' GROUP BY region"
   ineqsql query --format csv --output out.csv "SELECT gini(income) FROM 'survey.parquet'"
   ineqsql compile "SELECT region, theil(income) FROM t GROUP BY region"
+  ineqsql query --method bounded "SELECT region, gini(income, w) FROM 'x/*.parquet' GROUP BY region"
   ineqsql measures
   ineqsql demo --rows 200000
 """
@@ -38,6 +39,7 @@ def build_parser() -> argparse.ArgumentParser:
     q.add_argument("--force", action="store_true", help="replace FILE if it exists")
     q.add_argument("--strict", action="store_true",
                    help="stop with an error naming the group where a measure is undefined (instead of NULL)")
+    add_method_options(q)
     add_engine_options(q)
 
     c = sub.add_parser("compile", help="print the plain SQL a query compiles to",
@@ -46,6 +48,7 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("--dialect", default="duckdb", help="target SQL dialect (default: duckdb)")
     c.add_argument("--read", default="duckdb", help="dialect the input is written in (default: duckdb)")
     c.add_argument("--strict", action="store_true", help="compile every measure call as strict")
+    add_method_options(c)
 
     sub.add_parser("measures", help="list the measures with their arguments and formulas",
                    description="List every measure: arguments, formula, domain.")
@@ -62,8 +65,27 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def add_method_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--method", choices=("exact", "bounded"), default="exact",
+                   help="exact (sorts the rows) or bounded: one pass into log-spaced bins, no sort; each measure "
+                   "gets <name>_lo and <name>_hi columns, a guaranteed interval (docs/bounded.md)")
+    p.add_argument("--tolerance", type=float, metavar="WIDTH",
+                   help="with --method bounded: the Gini interval width to aim at (picks the resolution)")
+    p.add_argument("--resolution", type=float, metavar="R",
+                   help="with --method bounded: relative bin width (default 0.01)")
+
+
+def method_kwargs(args) -> dict:
+    return {"method": args.method, "tolerance": args.tolerance, "resolution": args.resolution}
+
+
 def cmd_query(args) -> int:
-    df = ineqsql.query(read_sql(args.sql), connection(args), strict=args.strict, **settings(args))
+    df = ineqsql.query(read_sql(args.sql), connection(args), strict=args.strict, **method_kwargs(args),
+                       **settings(args))
+    info = df.attrs.get("ineqsql")
+    if info:
+        widths = ", ".join(f"{k} {v:.3g}" for k, v in info["widths"].items())
+        print(f"bounded: resolution {info['resolution']:.3g}; widest intervals: {widths or 'none'}", file=sys.stderr)
     if args.output:
         write_result(df, args.output, args.format, overwrite=args.force)
         print(f"wrote {len(df)} rows to {args.output}", file=sys.stderr)
@@ -73,7 +95,8 @@ def cmd_query(args) -> int:
 
 
 def cmd_compile(args) -> int:
-    print(ineqsql.compile(read_sql(args.sql), dialect=args.dialect, read=args.read, strict=args.strict))
+    print(ineqsql.compile(read_sql(args.sql), dialect=args.dialect, read=args.read, strict=args.strict,
+                          **method_kwargs(args)))
     return 0
 
 
