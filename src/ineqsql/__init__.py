@@ -16,6 +16,8 @@ from ineqsql.influence import influence
 from ineqsql.report import lorenz_points, plot_lorenz, write_report
 from ineqsql.structure import compare, decompose, gini_sources
 
+from ineqsql.summary import from_summary, merge_summaries, summarize
+
 __version__ = "0.1.0"
 
 __all__ = [
@@ -25,6 +27,8 @@ __all__ = [
     "from_", "install", "uninstall", "define_measure", "remove_measure", "install_sqlite_functions",
     # tables: decompositions, income sources, paired comparisons, outlier influence
     "decompose", "gini_sources", "compare", "influence",
+    # bounded measures from stored, mergeable summaries
+    "summarize", "merge_summaries", "from_summary",
     # pictures and reports
     "lorenz_points", "plot_lorenz", "write_report",
     # errors (all IneqsqlError)

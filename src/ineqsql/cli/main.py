@@ -19,6 +19,7 @@ EPILOG = """examples:
   ineqsql compile "SELECT region, theil(income) FROM t GROUP BY region"
   ineqsql explain --profile "SELECT region, gini(income, w) FROM 'x/*.parquet' GROUP BY region"
   ineqsql compile --dialect postgres "SELECT region, gini(income, w) FROM t GROUP BY region"
+  ineqsql query --method bounded "SELECT region, gini(income, w) FROM 'x/*.parquet' GROUP BY region"
   ineqsql measures
   ineqsql demo --rows 200000
 """
@@ -41,6 +42,7 @@ def build_parser() -> argparse.ArgumentParser:
     q.add_argument("--force", action="store_true", help="replace FILE if it exists")
     q.add_argument("--strict", action="store_true",
                    help="stop with an error naming the group where a measure is undefined (instead of NULL)")
+    add_method_options(q)
     add_engine_options(q)
 
     c = sub.add_parser("compile", help="print the plain SQL a query compiles to",
@@ -53,6 +55,7 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("--read", default="duckdb", metavar="NAME",
                    help="dialect the input is written in, e.g. spark (default: duckdb)")
     c.add_argument("--strict", action="store_true", help="compile every measure call as strict")
+    add_method_options(c)
 
     sub.add_parser("measures", help="list the measures with their arguments and formulas",
                    description="List every measure: arguments, formula, domain.")
@@ -69,6 +72,20 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def add_method_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--method", choices=("exact", "bounded"), default="exact",
+                   help="exact (sorts the rows) or bounded: one pass into log-spaced bins, no sort; each measure "
+                   "gets <name>_lo and <name>_hi columns, a guaranteed interval (docs/bounded.md)")
+    p.add_argument("--tolerance", type=float, metavar="WIDTH",
+                   help="with --method bounded: the Gini interval width to aim at (picks the resolution)")
+    p.add_argument("--resolution", type=float, metavar="R",
+                   help="with --method bounded: relative bin width (default 0.01)")
+
+
+def method_kwargs(args) -> dict:
+    return {"method": args.method, "tolerance": args.tolerance, "resolution": args.resolution}
+
+
 def cmd_query(args) -> int:
     import duckdb
     from ineqsql.engine.progress import enable_tracking, run_watched, wants_progress
@@ -76,10 +93,14 @@ def cmd_query(args) -> int:
     con = connection(args) or duckdb.connect()
     show = wants_progress() and enable_tracking(con)  # a progress line on a terminal's stderr only
     try:
-        df = run_watched(con, lambda: ineqsql.query(sql, con, strict=args.strict, progress=show, **settings(args)),
-                         show=show)
+        df = run_watched(con, lambda: ineqsql.query(sql, con, strict=args.strict, progress=show,
+                                                    **method_kwargs(args), **settings(args)), show=show)
     finally:
         con.close()
+    info = df.attrs.get("ineqsql")
+    if info:
+        widths = ", ".join(f"{k} {v:.3g}" for k, v in info["widths"].items())
+        print(f"bounded: resolution {info['resolution']:.3g}; widest intervals: {widths or 'none'}", file=sys.stderr)
     if args.output:
         write_result(df, args.output, args.format, overwrite=args.force)
         print(f"wrote {len(df)} rows to {args.output}", file=sys.stderr)
@@ -89,7 +110,8 @@ def cmd_query(args) -> int:
 
 
 def cmd_compile(args) -> int:
-    print(ineqsql.compile(read_sql(args.sql), dialect=args.dialect, read=args.read, strict=args.strict))
+    print(ineqsql.compile(read_sql(args.sql), dialect=args.dialect, read=args.read, strict=args.strict,
+                          **method_kwargs(args)))
     return 0
 
 

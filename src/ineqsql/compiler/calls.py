@@ -28,6 +28,7 @@ class MeasureCall:
     strict: bool = False  # an undefined result stops the query with an error naming the group
     settings: dict = field(default_factory=dict)  # named arguments as read by measure.read_options
     key: tuple = ()  # call_key(node), computed once
+    pass_override: str | None = None  # set by method="bounded" (compiler/bounded.py)
 
     def __post_init__(self):
         if not self.key:
@@ -35,6 +36,8 @@ class MeasureCall:
 
     @property
     def pass_kind(self) -> str:
+        if self.pass_override:
+            return self.pass_override
         return self.measure.pass_for(self.trailing is not None)
 
     @property

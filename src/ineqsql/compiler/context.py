@@ -35,6 +35,8 @@ class CompileContext:
     strict: bool = False  # every measure call strict unless it says strict := false
     # columns the FROM clause of a SELECT provides, when an engine can say (None: unknown)
     source_columns: Callable[[exp.Select], set[str] | None] | None = None
+    method: str = "exact"  # or "bounded": intervals from one-pass binned summaries (compiler/bounded.py)
+    resolution: float = 0.01  # relative bin width of the summary pass (method="bounded")
     counters: dict[str, int] = field(default_factory=lambda: defaultdict(int))
     # planner options (compiler/plan.py): "auto" | "on" | "off", and the engine's tie probe
     tie_grouping: str = "auto"

@@ -10,6 +10,8 @@ from ineqsql.compiler.generate import check_dialect, check_read_dialect, generat
 from ineqsql.compiler.parse import parse_one_statement
 from ineqsql.compiler.plan import TIE_GROUPING
 from ineqsql.compiler.scope import rewrite_scope
+from ineqsql.bounds import bins
+from ineqsql.compiler.bounded import check_method
 from ineqsql.errors import MeasureUsageError
 
 
@@ -56,23 +58,30 @@ def compile_tree(tree: exp.Expression, ctx: CompileContext) -> exp.Expression:
 
 
 def compile_sql(sql: str, dialect: str = "duckdb", read: str = "duckdb", pretty: bool = True,
-                strict: bool = False, source_columns=None, tie_grouping: str = "auto", tie_probe=None) -> str:
+                strict: bool = False, source_columns=None, tie_grouping: str = "auto", tie_probe=None,
+                method: str = "exact", resolution: float | None = None) -> str:
     """Compile SQL text with measure calls into plain SQL for ``dialect``; ``strict`` makes every
     measure call strict (an undefined result stops the query, naming the group);
     ``source_columns(select)`` may tell the columns a SELECT's FROM provides (see keys.py);
-    ``tie_grouping`` and ``tie_probe`` steer the ordered pass's variant (see plan.py)."""
-    return compile_with_plan(sql, dialect, read, pretty, strict, source_columns, tie_grouping, tie_probe)[0]
+    ``tie_grouping`` and ``tie_probe`` steer the ordered pass's variant (see plan.py);
+    ``method="bounded"`` gives each measure an interval from one-pass binned summaries of relative
+    bin width ``resolution`` (compiler/bounded.py)."""
+    return compile_with_plan(sql, dialect, read, pretty, strict, source_columns, tie_grouping, tie_probe,
+                             method, resolution)[0]
 
 
 def compile_with_plan(sql: str, dialect: str = "duckdb", read: str = "duckdb", pretty: bool = True,
                       strict: bool = False, source_columns=None, tie_grouping: str = "auto",
-                      tie_probe=None) -> tuple[str, list[dict]]:
+                      tie_probe=None, method: str = "exact",
+                      resolution: float | None = None) -> tuple[str, list[dict]]:
     """``compile_sql`` and the planner's record of every pass (plan.describe_pass), innermost scope first."""
     check_dialect(dialect)
     check_tie_grouping(tie_grouping)
     check_read_dialect(read)
     ctx = CompileContext(sql=sql, strict=strict, source_columns=source_columns, tie_grouping=tie_grouping,
-                         tie_probe=tie_probe)
+                         tie_probe=tie_probe, method=check_method(method),
+                         resolution=bins.check_resolution(bins.DEFAULT_RESOLUTION if resolution is None
+                                                          else resolution))
     tree = compile_tree(parse_one_statement(sql, read), ctx)
     return generate(tree, dialect, pretty=pretty), ctx.chosen
 

@@ -26,12 +26,16 @@ from ineqsql.compiler.passes.paired import lower_paired_pass
 from ineqsql.compiler.passes.ranked import lower_ranked_pass
 from ineqsql.compiler.passes.subgroup import lower_subgroup_pass
 from ineqsql.compiler.passes.source import Source, join_on_keys, key_name, table
+from ineqsql.compiler.bounded import bounded_items, route_bounded
+from ineqsql.compiler.passes.summary import lower_summary_pass
 from ineqsql.compiler.plan import choose_variant, describe_pass, plan_passes, share_passes
 from ineqsql.errors import UnsupportedSqlError
 
 
 def rewrite_scope(select: exp.Select, calls: list[MeasureCall], ctx: CompileContext) -> exp.Select:
     check_scope(select, ctx)
+    if ctx.method == "bounded":
+        route_bounded(select, calls, ctx)
     keys = resolve_group_keys(select, ctx)
     source = Source(select, keys)
     main = MainAggregate(ctx.name("agg"))
@@ -41,6 +45,8 @@ def rewrite_scope(select: exp.Select, calls: list[MeasureCall], ctx: CompileCont
     outputs = _output_aliases(select)
     final = exp.Select(expressions=[s.alias(replace(p.unalias()), outputs[i])
                                     for i, p in enumerate(select.expressions)])
+    if ctx.method == "bounded":
+        final.set("expressions", bounded_items(select, final.expressions, results, outputs))
     final.from_(table(main.name), copy=False)
     for name in pass_names:
         final.append("joins", join_on_keys(keys, name, left=main.name))
@@ -77,6 +83,7 @@ LOWERINGS = {
     "paired": ("pair", lower_paired_pass),
     "linearized": ("lin", lower_linearized_pass),
     "bootstrap": ("bs", lower_bootstrap_pass),
+    "summary": ("sum", lower_summary_pass),  # method="bounded" (bounds/, compiler/bounded.py)
 }
 
 
@@ -87,7 +94,8 @@ def lower_passes(calls: list[MeasureCall], source: Source, main: MainAggregate, 
     for plan in share_passes(plan_passes(calls), can_share):
         choose_variant(plan, source.select, source.keys, ctx.tie_grouping, ctx.tie_probe)
         prefix, lower = LOWERINGS[plan.kind]
-        new, res = lower(source, main, plan, ctx.name(prefix) if prefix else None)
+        extra = {"resolution": ctx.resolution} if plan.kind == "summary" else {}
+        new, res = lower(source, main, plan, ctx.name(prefix) if prefix else None, **extra)
         ctx.chosen.append(describe_pass(plan, [c.alias for c in new] or [main.name]))
         ctes += new
         results.update(res)

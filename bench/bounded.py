@@ -1,0 +1,141 @@
+"""Benchmark method="bounded" against exact weighted Gini and a plain scan, in one run.
+
+    python bench/bounded.py                      # 20M x 1000 groups and 100M x 1 (bench/gen_data.py)
+    python bench/bounded.py --rows 2000000 --rows-one 5000000 --skip-exact-one
+
+Each case runs in a fresh Python subprocess (peak RSS = that process's ru_maxrss, imports included):
+
+  scan        SELECT grp, sum(x), sum(w), count(*) FROM f GROUP BY grp         (plain DuckDB)
+  exact       ineqsql.query("SELECT grp, gini(x, w) FROM read_parquet(f) GROUP BY grp")
+  bounded     the same with method="bounded" (default resolution 0.01)
+  bounded_tol the same with tolerance=1e-6
+  summary     ineqsql.summarize(f, "x", "w", by=["grp"]) to Parquet: rows and bytes per group
+
+Checks printed with the timings: every group's exact Gini lies in its bounded interval; the widest
+interval; the time ratios bounded/exact and bounded/scan. Results go to bench/results/bounded.json.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+BENCH_DIR = Path(__file__).resolve().parent
+sys.path.insert(0, str(BENCH_DIR))
+
+CHILD = r"""
+import json, resource, sys, time
+import duckdb
+import ineqsql
+case, path, tmp, limit = sys.argv[1:5]
+q = "SELECT grp, gini(x, w) AS g FROM read_parquet('" + path + "') GROUP BY grp ORDER BY grp"
+start = time.perf_counter()
+out = {}
+if case == "scan":
+    con = duckdb.connect(config={"threads": 2, "memory_limit": limit, "temp_directory": tmp})
+    con.execute("SET enable_progress_bar = false")
+    con.execute("SELECT grp, sum(x), sum(w), count(*) FROM read_parquet(?) GROUP BY grp", [path]).fetchall()
+elif case == "exact":
+    df = ineqsql.query(q, threads=2, memory_limit=limit, temp_directory=tmp)
+    out["values"] = df["g"].tolist()
+elif case in ("bounded", "bounded_tol"):
+    kw = {"tolerance": 1e-6} if case == "bounded_tol" else {}
+    df = ineqsql.query(q, method="bounded", threads=2, memory_limit=limit, temp_directory=tmp, **kw)
+    out["lo"], out["hi"], out["point"] = df["g_lo"].tolist(), df["g_hi"].tolist(), df["g"].tolist()
+    out["resolution"] = df.attrs["ineqsql"]["resolution"]
+    out["runs"] = df.attrs["ineqsql"]["runs"]
+elif case == "summary":
+    import os
+    target = tmp + "/summary.parquet"
+    con = duckdb.connect(config={"threads": 2, "memory_limit": limit, "temp_directory": tmp})
+    con.execute("SET enable_progress_bar = false")
+    ineqsql.summarize("read_parquet('" + path + "')", "x", "w", by=["grp"], parquet=target, replace=True, con=con)
+    rows, groups = con.execute("SELECT count(*), count(DISTINCT grp) FROM read_parquet(?)", [target]).fetchone()
+    out.update(rows=rows, groups=groups, bytes=os.path.getsize(target))
+out["seconds"] = time.perf_counter() - start
+out["peak_rss_mb"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+print(json.dumps(out))
+"""
+
+
+def run_case(case: str, path: Path, limit: str) -> dict:
+    with tempfile.TemporaryDirectory(dir=BENCH_DIR / "data") as tmp:
+        env = dict(os.environ)
+        proc = subprocess.run([sys.executable, "-c", CHILD, case, str(path), tmp, limit], capture_output=True,
+                              text=True, env=env)
+    if proc.returncode != 0:
+        raise SystemExit(f"case {case} failed:\n{proc.stderr}")
+    text = proc.stdout  # a progress bar may share the line: the result is the last JSON object
+    return json.loads(text[text.rindex('{"'):].strip())
+
+
+def check(exact: dict, bounded: dict) -> dict:
+    inside = sum(lo <= v <= hi for v, lo, hi in zip(exact["values"], bounded["lo"], bounded["hi"]))
+    widths = [hi - lo for lo, hi in zip(bounded["lo"], bounded["hi"])]
+    err = max(abs(p - v) for p, v in zip(bounded["point"], exact["values"]))
+    return {"groups": len(widths), "exact_inside": inside, "max_width": max(widths),
+            "max_point_error": err}
+
+
+def bench_file(label: str, path: Path, cases: list[str], limits: dict[str, str]) -> dict:
+    results = {}
+    for case in cases:
+        r = run_case(case, path, limits.get(case, limits["default"]))
+        results[case] = r
+        print(f"{label:6} {case:12} {r['seconds']:8.2f} s  peak RSS {r['peak_rss_mb']:7.0f} MB"
+              + (f"  resolution {r['resolution']:.4g} (runs {r['runs']})" if "resolution" in r else ""), flush=True)
+    if "summary" in results:
+        s = results["summary"]
+        print(f"{label:6} summary: {s['rows'] / s['groups']:.0f} bins and {s['bytes'] / s['groups'] / 1024:.1f} KiB "
+              f"(Parquet) per group", flush=True)
+    for case in ("bounded", "bounded_tol"):
+        if case in results and "exact" in results:
+            c = check(results["exact"], results[case])
+            results[case]["check"] = c
+            print(f"{label:6} {case}: exact inside {c['exact_inside']}/{c['groups']}, widest {c['max_width']:.3g}, "
+                  f"point error {c['max_point_error']:.3g}", flush=True)
+        if case in results:
+            for base in ("exact", "scan"):
+                if base in results:
+                    ratio = results[case]["seconds"] / results[base]["seconds"]
+                    results[case][f"ratio_{base}"] = ratio
+                    print(f"{label:6} {case} / {base}: {ratio:.3f}", flush=True)
+    for r in results.values():
+        for k in ("values", "lo", "hi", "point"):
+            r.pop(k, None)
+    return results
+
+
+def main(argv=None) -> int:
+    import gen_data
+    ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    ap.add_argument("--rows", type=int, default=20_000_000)
+    ap.add_argument("--rows-one", type=int, default=100_000_000)
+    ap.add_argument("--skip-one", action="store_true")
+    ap.add_argument("--skip-exact-one", action="store_true", help="skip the exact Gini on the one-group file")
+    args = ap.parse_args(argv)
+    started = time.time()
+    out = {"load_average_start": os.getloadavg()}
+    g = gen_data.ensure("g1000", args.rows)
+    out["g1000"] = bench_file("g1000", g, ["scan", "exact", "bounded", "bounded_tol", "summary"],
+                              {"default": "400MB", "exact": "2GB", "scan": "2GB"})
+    if not args.skip_one:
+        one = gen_data.ensure("one", args.rows_one)
+        cases = ["scan"] + ([] if args.skip_exact_one else ["exact"]) + ["bounded", "bounded_tol"]
+        out["one"] = bench_file("one", one, cases, {"default": "400MB", "exact": "1GB", "scan": "1GB"})
+    out["load_average_end"] = os.getloadavg()
+    out["wall_seconds"] = time.time() - started
+    (BENCH_DIR / "results").mkdir(exist_ok=True)
+    (BENCH_DIR / "results" / "bounded.json").write_text(json.dumps(out, indent=2))
+    print(f"load average at start {out['load_average_start']}, at end {out['load_average_end']}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
