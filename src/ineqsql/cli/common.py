@@ -6,6 +6,7 @@ import argparse
 import sys
 from pathlib import Path
 
+from ineqsql.engine.output import FORMATS, format_text, write_result
 from ineqsql.errors import IneqsqlError
 
 
@@ -42,3 +43,19 @@ def connection(args):
 
 def settings(args) -> dict:
     return {"memory_limit": args.memory_limit, "threads": args.threads, "temp_directory": args.temp_directory}
+
+
+def add_output_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--format", choices=FORMATS, default="table", help="output format (default: table)")
+    p.add_argument("--output", "-o", metavar="FILE", help="write to FILE (atomically) instead of the terminal")
+    p.add_argument("--force", action="store_true", help="replace FILE if it exists")
+
+
+def emit_result(df, args) -> int:
+    """Print a result table, or write it to --output (atomically, --force to replace)."""
+    if args.output:
+        write_result(df, args.output, args.format, overwrite=args.force)
+        print(f"wrote {len(df)} rows to {args.output}", file=sys.stderr)
+    else:
+        sys.stdout.write(format_text(df, args.format))
+    return 0

@@ -4,7 +4,8 @@ from __future__ import annotations
 
 import argparse
 
-from ineqsql.cli.tables import add_table_options, common, show
+from ineqsql.cli.common import emit_result
+from ineqsql.cli.tables import add_table_options, common
 
 
 def register(sub) -> None:
@@ -23,4 +24,4 @@ def register(sub) -> None:
 
 def run(args) -> int:
     from ineqsql.structure import compare
-    return show(compare(args.relation, args.first, args.second, **common(args)), args)
+    return emit_result(compare(args.relation, args.first, args.second, **common(args)), args)

@@ -4,7 +4,8 @@ from __future__ import annotations
 
 import argparse
 
-from ineqsql.cli.tables import add_table_options, common, show
+from ineqsql.cli.common import emit_result
+from ineqsql.cli.tables import add_table_options, common
 
 
 def register(sub) -> None:
@@ -25,4 +26,4 @@ def register(sub) -> None:
 
 def run(args) -> int:
     from ineqsql.structure import decompose
-    return show(decompose(args.relation, args.value, args.subgroup, alpha=args.alpha, **common(args)), args)
+    return emit_result(decompose(args.relation, args.value, args.subgroup, alpha=args.alpha, **common(args)), args)

@@ -4,7 +4,8 @@ from __future__ import annotations
 
 import argparse
 
-from ineqsql.cli.tables import add_table_options, common, show
+from ineqsql.cli.common import emit_result
+from ineqsql.cli.tables import add_table_options, common
 
 
 def register(sub) -> None:
@@ -26,5 +27,5 @@ def register(sub) -> None:
 
 def run(args) -> int:
     from ineqsql.influence import influence
-    return show(influence(args.relation, args.value, k=args.k, measure=args.measure, params=args.param,
+    return emit_result(influence(args.relation, args.value, k=args.k, measure=args.measure, params=args.param,
                           **common(args)), args)

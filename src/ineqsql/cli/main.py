@@ -5,12 +5,10 @@ from __future__ import annotations
 import argparse
 import importlib
 import sys
-from pathlib import Path
 
 import ineqsql
-from ineqsql.engine.output import FORMATS, format_text, write_result
 from ineqsql.compiler.dialects import EXECUTED_DIALECTS, SUPPORTED_DIALECTS
-from ineqsql.cli.common import add_engine_options, connection, read_sql, settings
+from ineqsql.cli.common import add_engine_options, add_output_options, connection, emit_result, read_sql, settings
 from ineqsql.errors import IneqsqlError
 
 EPILOG = """examples:
@@ -37,9 +35,7 @@ def build_parser() -> argparse.ArgumentParser:
                        description="Compile SQL with measure calls and run it on DuckDB. SQL is the text, "
                        "'-' for standard input, or @FILE.")
     q.add_argument("sql", metavar="SQL", help="the query: its text, - for standard input, or @FILE")
-    q.add_argument("--format", choices=FORMATS, default="table", help="output format (default: table)")
-    q.add_argument("--output", "-o", metavar="FILE", help="write to FILE (atomically) instead of the terminal")
-    q.add_argument("--force", action="store_true", help="replace FILE if it exists")
+    add_output_options(q)
     q.add_argument("--strict", action="store_true",
                    help="stop with an error naming the group where a measure is undefined (instead of NULL)")
     add_method_options(q)
@@ -101,12 +97,7 @@ def cmd_query(args) -> int:
     if info:
         widths = ", ".join(f"{k} {v:.3g}" for k, v in info["widths"].items())
         print(f"bounded: resolution {info['resolution']:.3g}; widest intervals: {widths or 'none'}", file=sys.stderr)
-    if args.output:
-        write_result(df, args.output, args.format, overwrite=args.force)
-        print(f"wrote {len(df)} rows to {args.output}", file=sys.stderr)
-    else:
-        sys.stdout.write(format_text(df, args.format))
-    return 0
+    return emit_result(df, args)
 
 
 def cmd_compile(args) -> int:

@@ -4,7 +4,8 @@ from __future__ import annotations
 
 import argparse
 
-from ineqsql.cli.tables import add_table_options, common, show
+from ineqsql.cli.common import emit_result
+from ineqsql.cli.tables import add_table_options, common
 
 
 def register(sub) -> None:
@@ -22,4 +23,4 @@ def register(sub) -> None:
 
 def run(args) -> int:
     from ineqsql.structure import gini_sources
-    return show(gini_sources(args.relation, args.sources, **common(args)), args)
+    return emit_result(gini_sources(args.relation, args.sources, **common(args)), args)
