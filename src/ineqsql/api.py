@@ -9,7 +9,7 @@ import pandas as pd
 
 from ineqsql.catalog import MEASURES
 from ineqsql.compiler import compile_sql
-from ineqsql.engine.columns import duckdb_source_columns
+from ineqsql.engine.columns import duckdb_expression_types, duckdb_source_columns
 from ineqsql.engine.frames import register_caller_frames
 from ineqsql.engine.runner import connect, execute_df
 
@@ -37,7 +37,8 @@ def query(sql: str, con: duckdb.DuckDBPyConnection | None = None, *, memory_limi
     registered = register_caller_frames(connection, sql, inspect.currentframe().f_back)
     try:
         compiled = compile_sql(sql, dialect="duckdb", pretty=False, strict=strict,
-                               source_columns=duckdb_source_columns(connection))
+                               source_columns=duckdb_source_columns(connection),
+                               expression_types=duckdb_expression_types(connection))
         return execute_df(connection, compiled)
     finally:
         for name in registered:

@@ -35,6 +35,8 @@ class CompileContext:
     strict: bool = False  # every measure call strict unless it says strict := false
     # columns the FROM clause of a SELECT provides, when an engine can say (None: unknown)
     source_columns: Callable[[exp.Select], set[str] | None] | None = None
+    # type names of expressions over a SELECT's FROM clause, when an engine can say (compiler/types.py)
+    expression_types: Callable[[exp.Select, list[exp.Expression]], list[str] | None] | None = None
     counters: dict[str, int] = field(default_factory=lambda: defaultdict(int))
 
     def name(self, kind: str) -> str:

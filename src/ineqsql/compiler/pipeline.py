@@ -9,6 +9,7 @@ from ineqsql.compiler.context import CompileContext, span, text
 from ineqsql.compiler.generate import check_dialect, generate
 from ineqsql.compiler.parse import parse_one_statement
 from ineqsql.compiler.scope import rewrite_scope
+from ineqsql.compiler.types import check_argument_types
 from ineqsql.errors import MeasureUsageError
 
 
@@ -44,6 +45,7 @@ def compile_tree(tree: exp.Expression, ctx: CompileContext) -> exp.Expression:
     for select, calls in order:
         _check_not_correlated(select, calls, ctx)
     for select, calls in order:
+        check_argument_types(select, calls, ctx)
         new = rewrite_scope(select, calls, ctx)
         if select is tree:
             tree = new
@@ -55,11 +57,12 @@ def compile_tree(tree: exp.Expression, ctx: CompileContext) -> exp.Expression:
 
 
 def compile_sql(sql: str, dialect: str = "duckdb", read: str = "duckdb", pretty: bool = True,
-                strict: bool = False, source_columns=None) -> str:
+                strict: bool = False, source_columns=None, expression_types=None) -> str:
     """Compile SQL text with measure calls into plain SQL for ``dialect``; ``strict`` makes every
     measure call strict (an undefined result stops the query, naming the group);
-    ``source_columns(select)`` may tell the columns a SELECT's FROM provides (see keys.py)."""
+    ``source_columns(select)`` may tell the columns a SELECT's FROM provides (see keys.py), and
+    ``expression_types(select, exprs)`` the types of measure arguments (see types.py)."""
     check_dialect(dialect)
-    ctx = CompileContext(sql=sql, strict=strict, source_columns=source_columns)
+    ctx = CompileContext(sql=sql, strict=strict, source_columns=source_columns, expression_types=expression_types)
     tree = compile_tree(parse_one_statement(sql, read), ctx)
     return generate(tree, dialect, pretty=pretty)

@@ -20,7 +20,7 @@ from ineqsql.compiler.passes.centred import lower_centred_pass
 from ineqsql.compiler.passes.entity import lower_entity_pass
 from ineqsql.compiler.passes.moment import MainAggregate, lower_moment_pass
 from ineqsql.compiler.passes.ordered import lower_ordered_pass
-from ineqsql.compiler.passes.source import Source, join_on_keys, key_name, table
+from ineqsql.compiler.passes.source import Source, finite_or_null, join_on_keys, key_name, table
 from ineqsql.compiler.plan import plan_passes
 from ineqsql.errors import UnsupportedSqlError
 
@@ -29,7 +29,7 @@ def rewrite_scope(select: exp.Select, calls: list[MeasureCall], ctx: CompileCont
     check_scope(select, ctx)
     keys = resolve_group_keys(select, ctx)
     source = Source(select, keys)
-    main = MainAggregate(ctx.name("agg"))
+    main = MainAggregate(ctx.name("agg"), keys)
     pass_ctes, pass_names, results = lower_passes(calls, source, main, ctx)
 
     replace = _replacer(results, main, keys)
@@ -79,7 +79,10 @@ def lower_passes(calls: list[MeasureCall], source: Source, main: MainAggregate, 
         new, res = lower(source, main, plan, ctx.name(prefix) if prefix else None)
         ctes += new
         results.update(res)
-    for call in calls:
+    unique = {call.key: call for call in calls}  # a call written twice is one result, wrapped once
+    for call in unique.values():
+        if call.measure.returns == "double":
+            results[call.key] = finite_or_null(results[call.key])
         if call.strict:
             results[call.key] = guard_strict(results[call.key], call, source.keys, main.name)
     names = []
