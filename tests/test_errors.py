@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import duckdb
 import pytest
 
 import ineqsql
@@ -74,9 +75,16 @@ def test_negative_weight_is_an_input_error():
         ineqsql.query("SELECT theil(x, w) FROM (VALUES (1.0, 1.0), (2.0, -1.0)) t(x, w)")
 
 
-def test_text_value_is_an_execution_error():
-    with pytest.raises(ExecutionError, match="DuckDB could not run the query"):
+def test_text_value_is_refused_before_running():
+    # query() asks DuckDB for the argument types first (compiler/types.py)
+    with pytest.raises(MeasureArgumentError, match="the value x is of type VARCHAR, not a number"):
         ineqsql.query("SELECT gini(x) FROM (VALUES ('a'), ('b')) t(x)")
+
+
+def test_text_value_with_compile_alone_fails_in_the_engine():
+    # compile() cannot see types: the engine's CAST refuses text that is not a number
+    with pytest.raises(duckdb.ConversionException):
+        duckdb.sql(ineqsql.compile("SELECT gini(x) FROM (VALUES ('a'), ('b')) t(x)")).fetchall()
 
 
 def test_missing_table_is_an_execution_error():

@@ -11,7 +11,7 @@ from ineqsql.bounds.run import pick_resolution, run_bounded
 from ineqsql.catalog import MEASURES
 from ineqsql.compiler.bounded import check_method
 from ineqsql.compiler import compile_sql
-from ineqsql.engine.columns import duckdb_source_columns
+from ineqsql.engine.columns import duckdb_expression_types, duckdb_source_columns
 from ineqsql.engine.frames import register_caller_frames
 from ineqsql.engine.runner import connect, execute_df
 from ineqsql.engine.ties import duckdb_tie_probe
@@ -62,7 +62,8 @@ def query(sql: str, con: duckdb.DuckDBPyConnection | None = None, *, memory_limi
         def run(res):
             compiled = compile_sql(sql, dialect="duckdb", pretty=False, strict=strict, method=method,
                                    resolution=res, source_columns=duckdb_source_columns(connection),
-                                   tie_grouping=tie_grouping, tie_probe=duckdb_tie_probe(connection))
+                                   tie_grouping=tie_grouping, tie_probe=duckdb_tie_probe(connection),
+                                   expression_types=duckdb_expression_types(connection))
             return execute_df(connection, compiled)
         if method == "exact":
             return run(None)

@@ -111,12 +111,24 @@ def cmd_measures(args) -> int:
     width = max(len(r["signature"]) for r in rows)
     for r in rows:
         print(f"{r['signature']:<{width}}  {r['formula']}  [{r['domain']}]")
-    print("\nx: the value; w: an optional weight (rows with NULL x or w are skipped, w = 0 changes nothing, "
-          "w < 0 is an error); p: a fraction in [0, 1]. A group where a measure is undefined gets NULL;\n"
-          "with strict := true in a call (or --strict for the query) it stops the query instead, naming the group.")
+    print(INPUT_POLICY)
     print("HHI and CR_k are estimates from the data given, not legal or regulatory findings; screening "
           "thresholds are for the competent authority to apply.")
     return 0
+
+
+INPUT_POLICY = """
+Input policy (docs/input-policy.md has every case):
+  x: the value; w: an optional weight; p: a fraction in [0, 1]; k: a whole number >= 1; eps >= 0.
+  NULL value or weight: the row is skipped.  Weight 0: the row changes nothing.
+  NaN or infinite value or weight, negative weight: an error naming the argument and the group.
+  Text, dates or booleans as value or weight: an error naming the argument (query; compile alone
+  leaves it to the engine's CAST).  Integers and decimals are summed as DOUBLE (no overflow).
+  Negative values: Gini, Lorenz, shares, quantiles and Hoover are defined (and may leave [0, 1]);
+  log and power measures are NULL outside their domain (shown in brackets above).
+  Empty group, total <= 0, bottom share 0, sums past the DOUBLE range: NULL.
+  With strict := true in a call (or --strict for the query) every such NULL stops the query
+  instead, naming the group."""
 
 
 def cmd_demo(args) -> int:

@@ -37,6 +37,8 @@ class CompileContext:
     source_columns: Callable[[exp.Select], set[str] | None] | None = None
     method: str = "exact"  # or "bounded": intervals from one-pass binned summaries (compiler/bounded.py)
     resolution: float = 0.01  # relative bin width of the summary pass (method="bounded")
+    # type names of expressions over a SELECT's FROM clause, when an engine can say (compiler/types.py)
+    expression_types: Callable[[exp.Select, list[exp.Expression]], list[str] | None] | None = None
     counters: dict[str, int] = field(default_factory=lambda: defaultdict(int))
     # planner options (compiler/plan.py): "auto" | "on" | "off", and the engine's tie probe
     tie_grouping: str = "auto"

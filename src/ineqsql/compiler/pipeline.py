@@ -12,6 +12,7 @@ from ineqsql.compiler.plan import TIE_GROUPING
 from ineqsql.compiler.scope import rewrite_scope
 from ineqsql.bounds import bins
 from ineqsql.compiler.bounded import check_method
+from ineqsql.compiler.types import check_argument_types
 from ineqsql.errors import MeasureUsageError
 
 
@@ -47,6 +48,7 @@ def compile_tree(tree: exp.Expression, ctx: CompileContext) -> exp.Expression:
     for select, calls in order:
         _check_not_correlated(select, calls, ctx)
     for select, calls in order:
+        check_argument_types(select, calls, ctx)
         new = rewrite_scope(select, calls, ctx)
         if select is tree:
             tree = new
@@ -59,21 +61,22 @@ def compile_tree(tree: exp.Expression, ctx: CompileContext) -> exp.Expression:
 
 def compile_sql(sql: str, dialect: str = "duckdb", read: str = "duckdb", pretty: bool = True,
                 strict: bool = False, source_columns=None, tie_grouping: str = "auto", tie_probe=None,
-                method: str = "exact", resolution: float | None = None) -> str:
+                method: str = "exact", resolution: float | None = None, expression_types=None) -> str:
     """Compile SQL text with measure calls into plain SQL for ``dialect``; ``strict`` makes every
     measure call strict (an undefined result stops the query, naming the group);
-    ``source_columns(select)`` may tell the columns a SELECT's FROM provides (see keys.py);
+    ``source_columns(select)`` may tell the columns a SELECT's FROM provides (see keys.py), and
+    ``expression_types(select, exprs)`` the types of measure arguments (see types.py);
     ``tie_grouping`` and ``tie_probe`` steer the ordered pass's variant (see plan.py);
     ``method="bounded"`` gives each measure an interval from one-pass binned summaries of relative
     bin width ``resolution`` (compiler/bounded.py)."""
     return compile_with_plan(sql, dialect, read, pretty, strict, source_columns, tie_grouping, tie_probe,
-                             method, resolution)[0]
+                             method, resolution, expression_types)[0]
 
 
 def compile_with_plan(sql: str, dialect: str = "duckdb", read: str = "duckdb", pretty: bool = True,
                       strict: bool = False, source_columns=None, tie_grouping: str = "auto",
-                      tie_probe=None, method: str = "exact",
-                      resolution: float | None = None) -> tuple[str, list[dict]]:
+                      tie_probe=None, method: str = "exact", resolution: float | None = None,
+                      expression_types=None) -> tuple[str, list[dict]]:
     """``compile_sql`` and the planner's record of every pass (plan.describe_pass), innermost scope first."""
     check_dialect(dialect)
     check_tie_grouping(tie_grouping)
@@ -81,7 +84,8 @@ def compile_with_plan(sql: str, dialect: str = "duckdb", read: str = "duckdb", p
     ctx = CompileContext(sql=sql, strict=strict, source_columns=source_columns, tie_grouping=tie_grouping,
                          tie_probe=tie_probe, method=check_method(method),
                          resolution=bins.check_resolution(bins.DEFAULT_RESOLUTION if resolution is None
-                                                          else resolution))
+                                                          else resolution),
+                         expression_types=expression_types)
     tree = compile_tree(parse_one_statement(sql, read), ctx)
     return generate(tree, dialect, pretty=pretty), ctx.chosen
 

@@ -25,7 +25,7 @@ from ineqsql.compiler.passes.ordered import lower_ordered_pass
 from ineqsql.compiler.passes.paired import lower_paired_pass
 from ineqsql.compiler.passes.ranked import lower_ranked_pass
 from ineqsql.compiler.passes.subgroup import lower_subgroup_pass
-from ineqsql.compiler.passes.source import Source, join_on_keys, key_name, table
+from ineqsql.compiler.passes.source import Source, finite_or_null, join_on_keys, key_name, table
 from ineqsql.compiler.bounded import bounded_items, route_bounded
 from ineqsql.compiler.passes.summary import lower_summary_pass
 from ineqsql.compiler.plan import choose_variant, describe_pass, plan_passes, share_passes
@@ -38,7 +38,7 @@ def rewrite_scope(select: exp.Select, calls: list[MeasureCall], ctx: CompileCont
         route_bounded(select, calls, ctx)
     keys = resolve_group_keys(select, ctx)
     source = Source(select, keys)
-    main = MainAggregate(ctx.name("agg"))
+    main = MainAggregate(ctx.name("agg"), keys)
     pass_ctes, pass_names, results = lower_passes(calls, source, main, ctx)
 
     replace = _replacer(results, main, keys)
@@ -99,7 +99,10 @@ def lower_passes(calls: list[MeasureCall], source: Source, main: MainAggregate, 
         ctx.chosen.append(describe_pass(plan, [c.alias for c in new] or [main.name]))
         ctes += new
         results.update(res)
-    for call in calls:
+    unique = {call.key: call for call in calls}  # a call written twice is one result, wrapped once
+    for call in unique.values():
+        if call.measure.returns == "double":
+            results[call.key] = finite_or_null(results[call.key])
         if call.strict:
             results[call.key] = guard_strict(results[call.key], call, source.keys, main.name)
     names = []

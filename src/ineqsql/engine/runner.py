@@ -57,6 +57,10 @@ def translate_error(e: Exception) -> Exception:
     m = re.search(r"ineqsql: (negative weight in .*?)(?:\n|$)", text)
     if m:
         return InputDataError(f"{m.group(1).rstrip()} (weights must be ≥ 0; rows with weight 0 change nothing and are skipped)")
+    m = re.search(r"ineqsql: (NaN or infinite (?:value|weight) in .*?)(?:\n|$)", text)
+    if m:
+        return InputDataError(f"{m.group(1).rstrip()} (values and weights must be finite numbers; NULLs are "
+                              "skipped: filter the rows, e.g. WHERE isfinite(x), or turn them into NULL)")
     m = re.search(r"ineqsql: (.*? is undefined \(NULL\) for .*?)(?:\n|$)", text)
     if m:
         return UndefinedResultError(f"{m.group(1).rstrip()} (strict mode: an empty group, a total ≤ 0 or "

@@ -1,7 +1,8 @@
 """Centred moment pass: sums of deviations from the group mean, for measures whose plain sums
 would cancel (a variance as Σw·x²/W − μ² loses every digit when the spread is small).
 
-mean CTE:    keys, μ = T/W                 (T and W ride on the scope's main aggregate)
+mean CTE:    keys, μ = T/W, and μ again where T > 0 (NULL elsewhere: the divisor of r = x/μ, so no
+             engine divides by zero)     (T and W ride on the scope's main aggregate)
 centred CTE: keys, Σ w·f(x, μ) …  over the scope's rows joined to their group's mean
 One extra scan of the source and a hash join on the group keys; no sort.
 """
@@ -23,13 +24,23 @@ class CentredContext(MomentContext):
         super().__init__(main, x, w, condition)
         self.name = name
         self.terms: dict[str, tuple[str, exp.Expression]] = {}
+        self.used: set[str] = set()
+
+    row_mean = True  # r = x/μ at row level: the log and power measures take their cancellation-free form
 
     @property
     def mu(self):
         return s.col("_iq_mu", f"{self.name}_mean")
 
+    @property
+    def r(self):
+        """x/μ at row level (NULL when the group's T ≤ 0)."""
+        self.used.add("ratio")
+        return s.div(self.x, s.col("_iq_mup", f"{self.name}_mean"))
+
     def sum(self, term: exp.Expression) -> exp.Expression:
-        agg = s.agg_sum(self._when_valid(term))
+        # the centred CTE reads only this pass's valid rows (its WHERE), so terms need no CASE
+        agg = s.agg_sum(term)
         key = agg.sql("duckdb")
         if key not in self.terms:
             self.terms[key] = (f"_iq_t{len(self.terms) + 1}", agg)
@@ -43,11 +54,13 @@ def lower_centred_pass(source: Source, main: MainAggregate, plan, name: str
     results = {call.key: call.measure.build(ctx, call.params) for call in plan.calls}
     mean_name = f"{name}_mean"
     nkeys = len(source.keys)
-    mean = exp.Select(expressions=[s.col(key_name(i)) for i in range(nkeys)]
-                      + [s.alias(s.div(ctx.T, ctx.W), "_iq_mu")]).from_(table(main.name))
+    means = [s.alias(s.div(ctx.T, ctx.W), "_iq_mu")]
+    if "ratio" in ctx.used:
+        means.append(s.alias(s.case(s.gt(ctx.T, s.lit(0.0)), s.div(ctx.T, ctx.W)), "_iq_mup"))
+    mean = exp.Select(expressions=[s.col(key_name(i)) for i in range(nkeys)] + means).from_(table(main.name))
     # the mean CTE reads the main aggregate's columns unqualified
     mean = mean.transform(lambda n: s.col(n.name) if isinstance(n, exp.Column) and n.table == main.name else n)
     rows = source.rows(source.key_projections() + [s.alias(e, n) for n, e in ctx.terms.values()],
-                       group_by=[k.copy() for k in source.keys] or None,
+                       ctx.valid_condition(), group_by=[k.copy() for k in source.keys] or None,
                        join=join_on_keys(source.keys, mean_name))
     return [cte(mean, mean_name), cte(rows, name)], results

@@ -10,7 +10,7 @@ from __future__ import annotations
 from sqlglot import exp
 
 from ineqsql.compiler import sqlx as s
-from ineqsql.compiler.passes.source import Source, build_results, cte, grouped, table
+from ineqsql.compiler.passes.source import Source, build_results, cte, grouped, table, valid_value
 
 
 class EntityContext:
@@ -33,7 +33,7 @@ def lower_entity_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
     ctx = EntityContext()
     out_cols, results = build_results(calls, ctx, name)
 
-    cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
+    cond = s.and_(s.paren(condition.copy()) if condition is not None else None, valid_value(x, source.keys))
     if entity is None:
         rows = source.rows(source.key_projections() + [s.alias(s.cast_double(x.copy()), "_iq_v")], cond)
     else:

@@ -18,7 +18,7 @@ from __future__ import annotations
 from sqlglot import exp
 
 from ineqsql.compiler import sqlx as s
-from ineqsql.compiler.passes.source import cte, table
+from ineqsql.compiler.passes.source import cte, finite_or_null, table
 
 
 def grid_table(name: str, k: int) -> str:
@@ -50,7 +50,7 @@ def lower_lorenz_grid(ctx, keys: list[exp.Expression], name: str, k: int) -> lis
         crossing = s.mul(s.sub(s.mul(s.lit(p), total_w.copy()), upto(s.agg_max, "_iq_cmax", j)), after)
         held = s.add(upto(s.agg_sum, "_iq_s", j), crossing)
         points.append(s.struct(p=s.lit(p), lorenz=s.cast_double(s.div(held, total_t.copy()))))
-    curve = s.case(s.gt(total_t.copy(), zero.copy()), s.array(*points))
+    curve = s.case(s.gt(finite_or_null(total_t), zero.copy()), s.array(*points))
     grid = exp.Select(expressions=[k_.copy() for k_ in keys] + [s.alias(curve, "_iq_curve")]).from_(
         table(f"{name}_cells_{k}"))
     if keys:

@@ -11,14 +11,15 @@ from __future__ import annotations
 from sqlglot import exp
 
 from ineqsql.compiler import sqlx as s
-from ineqsql.compiler.passes.source import Source, checked_weight, weight_label
+from ineqsql.compiler.passes.source import Source, checked_weight, finite_or_null, valid_value, weight_label
 
 
 class MainAggregate:
     """Collects the scope's aggregate columns and lowers them to the main CTE."""
 
-    def __init__(self, name: str):
+    def __init__(self, name: str, keys: list[exp.Expression] = ()):
         self.name = name
+        self.keys = list(keys)  # the scope's group keys (row level), named in data errors
         self.columns: dict[str, tuple[str, exp.Expression]] = {}  # sql → (column name, expression)
 
     def add(self, expr: exp.Expression, prefix: str = "_iq_t") -> exp.Column:
@@ -43,9 +44,9 @@ class MomentContext:
                  condition: exp.Expression | None = None):
         self.main = main
         self._x, self._w = x, w
-        valid = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
+        valid = s.and_(s.paren(condition.copy()) if condition is not None else None, valid_value(x, main.keys))
         if w is not None:
-            valid = s.and_(valid, s.gt(checked_weight(w, weight_label(w)), s.lit(0.0)))
+            valid = s.and_(valid, s.gt(checked_weight(w, weight_label(w), main.keys), s.lit(0.0)))
         self._valid = valid
 
     @property
@@ -55,6 +56,10 @@ class MomentContext:
     @property
     def w(self):
         return s.cast_double(self._w.copy()) if self._w is not None else s.lit(1.0)
+
+    def valid_condition(self) -> exp.Expression:
+        """The row condition of this pair: FILTER, value not NULL (and finite), weight > 0 (checked)."""
+        return self._valid.copy()
 
     def _when_valid(self, term):
         return s.case(self._valid.copy(), term)
@@ -74,7 +79,7 @@ class MomentContext:
 
     @property
     def T(self):
-        return self._main_sum(s.mul(self.w, self.x))
+        return finite_or_null(self._main_sum(s.mul(self.w, self.x)))
 
     @property
     def n(self):

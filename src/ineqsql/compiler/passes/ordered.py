@@ -15,8 +15,8 @@ from sqlglot import exp
 
 from ineqsql.compiler import sqlx as s
 from ineqsql.compiler.passes.grid import grid_table, lower_lorenz_grid
-from ineqsql.compiler.passes.source import (Source, build_results, checked_weight, cte, grouped, key_name,
-                                             table, weight_label)
+from ineqsql.compiler.passes.source import (Source, build_results, checked_value, checked_weight, cte,
+                                             finite_or_null, grouped, key_name, table, weight_label)
 
 
 class OrderedContext:
@@ -67,7 +67,7 @@ class OrderedContext:
 
     @property
     def T(self):
-        return s.agg_sum(s.mul(self.w, self.x))
+        return finite_or_null(s.agg_sum(s.mul(self.w, self.x)))
 
     @property
     def n(self):
@@ -124,10 +124,10 @@ def lower_ordered_pass(source: Source, main, plan, name: str) -> tuple[list[exp.
     out_cols, results = build_results(calls, ctx, name)
 
     xd = s.cast_double(x.copy())
-    proj = source.key_projections() + [s.alias(xd, "_iq_x")]
+    proj = source.key_projections() + [s.alias(checked_value(x, weight_label(x), source.keys), "_iq_x")]
     cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
     if w is not None:
-        cw = checked_weight(w, weight_label(w))
+        cw = checked_weight(w, weight_label(w), source.keys)
         proj.append(s.alias(cw, "_iq_w"))
         cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
     rows = source.rows(proj, cond)

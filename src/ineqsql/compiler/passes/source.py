@@ -45,10 +45,55 @@ class Source:
         return out
 
 
-def checked_weight(w: exp.Expression, label: str) -> exp.Expression:
-    """The weight as DOUBLE, aborting the query on a negative one (DuckDB ``error``)."""
+def checked_weight(w: exp.Expression, label: str, keys: list[exp.Expression] = ()) -> exp.Expression:
+    """The weight as DOUBLE, aborting the query on a negative, NaN or infinite one (DuckDB ``error``);
+    the message names the argument and, when ``keys`` are given, the group of the row."""
     wd = s.cast_double(w.copy())
-    return s.case(s.lt(wd, s.lit(0.0)), s.raise_error(f"ineqsql: negative weight in the weight argument {label}"), wd.copy())
+    return exp.Case(ifs=[
+        exp.If(this=s.lt(wd.copy(), s.lit(0.0)),
+               true=row_error(f"ineqsql: negative weight in the weight argument {label}", keys)),
+        exp.If(this=not_finite(wd), true=row_error(f"ineqsql: NaN or infinite weight in the weight argument "
+                                                    f"{label}", keys)),
+    ], default=wd.copy())
+
+
+def checked_value(x: exp.Expression, label: str, keys: list[exp.Expression] = ()) -> exp.Expression:
+    """The value as DOUBLE, aborting the query on NaN or ±infinity (a sum over them would be NaN or
+    infinite, never a usable measure); the message names the argument and the group of the row."""
+    xd = s.cast_double(x.copy())
+    return s.case(not_finite(xd), row_error(f"ineqsql: NaN or infinite value in the value argument {label}", keys),
+                  xd.copy())
+
+
+def valid_value(x: exp.Expression, keys: list[exp.Expression] = ()) -> exp.Expression:
+    """Row condition: the value is not NULL, and (checked) finite."""
+    return s.not_null(checked_value(x, weight_label(x), keys))
+
+
+def not_finite(xd: exp.Expression) -> exp.Expression:
+    """x·0 <> 0: true for NaN and ±infinity (their product with 0 is NaN), false for every finite x.
+    Portable: ``x <> x`` does not find NaN where NaN equals itself (DuckDB, PostgreSQL, Spark), and
+    isnan/isinf are not in every engine."""
+    return s.neq(s.mul(xd.copy(), s.lit(0.0)), s.lit(0.0))
+
+
+def finite_or_null(e: exp.Expression) -> exp.Expression:
+    """e where it is a finite number, else NULL (a sum past the DOUBLE range, about 1.8e308, is
+    infinite or NaN: no measure is defined from it)."""
+    return s.case(s.gt(s.lit(1.0), s.mul(e.copy(), s.lit(0.0))), e.copy())
+
+
+def row_error(message: str, keys: list[exp.Expression] = ()) -> exp.Expression:
+    """error('<message> (the group k1=…, k2=…)') with the row's key values; the group is left out
+    when the scope has no keys (one group: the whole input)."""
+    if not keys:
+        return s.raise_error(f"{message} (the whole input)")
+    parts: list[exp.Expression] = [s.lit(f"{message} (")]
+    for i, key in enumerate(keys):
+        shown = exp.Coalesce(this=exp.cast(key.copy(), "varchar"), expressions=[s.lit("NULL")])
+        parts += [s.lit(("the group " if i == 0 else ", ") + f"{key.sql('duckdb')}="), shown]
+    parts.append(s.lit(")"))
+    return s.raise_error_expr(exp.Concat(expressions=parts))
 
 
 def weight_label(w: exp.Expression) -> str:

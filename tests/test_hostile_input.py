@@ -1,0 +1,257 @@
+"""Hostile input: every case of the documented input policy (docs/input-policy.md) asserts its
+outcome — a defined value (from the numpy reference, ``ineqsql.reference``), NULL, or a clear
+error — on every engine of the backend matrix (tests/engines.py). The SQL of the cases avoids
+engine-specific syntax (NaN and infinity come from CAST('NaN' AS DOUBLE) and
+CAST('Infinity' AS DOUBLE)); cases that need the DuckDB runner (type probing) or a DuckDB-only
+type say so and run there only."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+import pytest
+
+import ineqsql
+from engines import ENGINES, engine_or_skip
+from ineqsql import reference as R
+from ineqsql.engine.runner import translate_error
+from ineqsql.errors import (IneqsqlError, InputDataError, MeasureArgumentError, MeasureUsageError, SqlParseError,
+                            UndefinedResultError, UnsupportedSqlError)
+
+NULL = object()  # the expected outcome "NULL"
+
+# invented rows: group a is ordinary, b has a NULL value and weight, c a single row; `tag` marks the
+# rows a case turns hostile inside its SQL
+BASE = pd.DataFrame({
+    "g": ["a"] * 6 + ["b"] * 4 + ["c"],
+    "x": pd.array([3.0, 1.0, 4.0, 1.0, 5.0, 9.0, 2.0, None, 6.0, 5.0, 7.0], dtype="Float64"),
+    "w": pd.array([1.0, 2.0, 1.0, 3.0, 1.0, 2.0, 1.0, 1.0, None, 2.0, 4.0], dtype="Float64"),
+    "tag": ["", "bad", "", "", "", "", "", "", "", "", ""],
+})
+A_X, A_W = np.array([3.0, 1, 4, 1, 5, 9]), np.array([1.0, 2, 1, 3, 1, 2])
+
+
+def hostile(expr: str) -> str:
+    """A source where the row tagged 'bad' holds ``expr`` as its value x."""
+    return f"(SELECT g, CASE WHEN tag = 'bad' THEN {expr} ELSE x END AS x, w, tag FROM t) s"
+
+
+def hostile_w(expr: str) -> str:
+    return f"(SELECT g, x, CASE WHEN tag = 'bad' THEN {expr} ELSE w END AS w, tag FROM t) s"
+
+
+NAN, INF = "CAST('NaN' AS DOUBLE)", "CAST('Infinity' AS DOUBLE)"
+
+
+@dataclass
+class Case:
+    id: str
+    sql: str
+    want: object  # a number, NULL, a list of numbers/NULL (one per row), or an exception class
+    match: str = ""  # for errors: text the message must contain
+    data: pd.DataFrame | None = None  # default BASE
+    only: tuple[str, ...] = ()  # engines the case runs on (empty: all)
+    via_query: bool = False  # run through ineqsql.query (type probing), DuckDB only
+    per_row: bool = False  # want: one value per result row, from the last column (else one row, all columns)
+
+
+def replicate(x, w):
+    return np.repeat(np.asarray(x, float), np.asarray(w, int))
+
+
+CASES = [
+    # ---- values --------------------------------------------------------------------------------
+    Case("null-values-skipped", "SELECT gini(x) FROM t WHERE g = 'b'", R.gini([2.0, 6.0, 5.0])),
+    Case("all-null-group-null", "SELECT g, gini(x) FROM t WHERE g = 'b' AND x IS NULL GROUP BY g", [NULL], per_row=True),
+    Case("nan-value-error", f"SELECT g, gini(x) FROM {hostile(NAN)} GROUP BY g", InputDataError,
+         "NaN or infinite value in the value argument x (the group g=a)"),
+    Case("inf-value-error", f"SELECT g, theil(x) FROM {hostile(INF)} GROUP BY g", InputDataError,
+         "NaN or infinite value in the value argument x (the group g=a)"),
+    Case("minus-inf-value-error", f"SELECT hhi(x) FROM {hostile('-' + INF)}", InputDataError,
+         "NaN or infinite value in the value argument x (the whole input)"),
+    Case("nan-value-cv-error", f"SELECT g, cv(x, w) FROM {hostile(NAN)} GROUP BY g", InputDataError,
+         "NaN or infinite value"),
+    Case("nan-value-cr-entity-error", f"SELECT cr(x, 1, g) FROM {hostile(NAN)}", InputDataError, "NaN or infinite"),
+    Case("nan-row-filtered-by-where", f"SELECT gini(x) FROM {hostile(NAN)} WHERE tag <> 'bad' AND g = 'a'",
+         R.gini(np.delete(A_X, 1))),
+    Case("nan-row-outside-filter", f"SELECT gini(x) FILTER (WHERE tag <> 'bad') FROM {hostile(NAN)} WHERE g = 'a'",
+         R.gini(np.delete(A_X, 1))),
+    Case("negative-values-gini-defined", f"SELECT gini(x) FROM {hostile('-20.0')} WHERE g = 'a'",
+         R.gini(np.where(np.arange(6) == 1, -20.0, A_X))),
+    Case("negative-values-share-above-one", f"SELECT top_share(x, 0.5) FROM {hostile('-20.0')} WHERE g = 'a'",
+         R.top_share(np.where(np.arange(6) == 1, -20.0, A_X), 0.5)),
+    Case("negative-value-theil-null", f"SELECT theil(x) FROM {hostile('-1.0')} WHERE g = 'a'", NULL),
+    Case("negative-value-atkinson-null", f"SELECT atkinson(x, 0.5) FROM {hostile('-1.0')} WHERE g = 'a'", NULL),
+    Case("zero-value-theil-defined", f"SELECT theil(x) FROM {hostile('0.0')} WHERE g = 'a'",
+         R.theil(np.where(np.arange(6) == 1, 0.0, A_X))),
+    Case("zero-value-mld-null", f"SELECT mld(x) FROM {hostile('0.0')} WHERE g = 'a'", NULL),
+    Case("zero-value-ge-minus-one-null", f"SELECT ge(x, -1) FROM {hostile('0.0')} WHERE g = 'a'", NULL),
+    Case("zero-value-atkinson-2-null", f"SELECT atkinson(x, 2) FROM {hostile('0.0')} WHERE g = 'a'", NULL),
+    Case("zero-value-atkinson-half", f"SELECT atkinson(x, 0.5) FROM {hostile('0.0')} WHERE g = 'a'",
+         R.atkinson(np.where(np.arange(6) == 1, 0.0, A_X), 0.5)),
+    Case("zero-total-gini-null", "SELECT gini(x * 0) FROM t", NULL),
+    Case("negative-total-gini-null", "SELECT gini(0 - x) FROM t", NULL),
+    Case("zero-total-shares-null", "SELECT top_share(x * 0, 0.1), palma(x * 0) FROM t", [NULL, NULL]),
+    Case("zero-bottom-share-palma-null", "SELECT palma(CASE WHEN x < 9 THEN 0 ELSE x END) FROM t", NULL),
+    Case("single-row-group", "SELECT gini(x), theil(x), cv(x), quantile_w(x, 0.3), gini_corrected(x) FROM t "
+         "WHERE g = 'c'", [0.0, 0.0, 0.0, 7.0, NULL]),
+    Case("empty-input-one-null-row", "SELECT gini(x), theil(x), hhi(x), count(*) FROM t WHERE 1 = 0",
+         [NULL, NULL, NULL, 0]),
+    Case("empty-group-no-row", "SELECT g, gini(x) FROM t WHERE 1 = 0 GROUP BY g", [], per_row=True),
+    Case("all-equal-values", "SELECT gini(x * 0 + 5), theil(x * 0 + 5), palma(x * 0 + 5) FROM t WHERE g = 'a'",
+         [0.0, 0.0, 0.25]),
+    Case("overflowing-sum-null", "SELECT gini(x * 1e307), theil(x * 1e307), cv(x * 1e307), top_share(x * 1e307, 0.5) "
+         "FROM t WHERE g = 'a'", [NULL, NULL, NULL, NULL]),
+    Case("tiny-values-defined", "SELECT gini(x * 1e-300) FROM t WHERE g = 'a'", R.gini(A_X * 1e-300)),
+    # ---- weights ---------------------------------------------------------------------------------
+    Case("null-weight-skipped", "SELECT gini(x, w) FROM t WHERE g = 'b'", R.gini([2.0, 5.0], [1.0, 2.0])),
+    Case("zero-weight-drops-row", f"SELECT gini(x, w) FROM {hostile_w('0.0')} WHERE g = 'a'",
+         R.gini(np.delete(A_X, 1), np.delete(A_W, 1))),
+    Case("all-zero-weights-null", "SELECT gini(x, w * 0), theil(x, w * 0) FROM t WHERE g = 'a'", [NULL, NULL]),
+    Case("negative-weight-error", f"SELECT g, gini(x, w) FROM {hostile_w('-1.0')} GROUP BY g", InputDataError,
+         "negative weight in the weight argument w (the group g=a)"),
+    Case("negative-weight-moment-error", f"SELECT mld(x, w) FROM {hostile_w('-1.0')}", InputDataError,
+         "negative weight in the weight argument w"),
+    Case("nan-weight-error", f"SELECT g, gini(x, w) FROM {hostile_w(NAN)} GROUP BY g", InputDataError,
+         "NaN or infinite weight in the weight argument w (the group g=a)"),
+    Case("inf-weight-error", f"SELECT theil(x, w) FROM {hostile_w(INF)}", InputDataError,
+         "NaN or infinite weight"),
+    Case("negative-weight-filtered-by-where", f"SELECT gini(x, w) FROM {hostile_w('-1.0')} WHERE tag = ''",
+         None),  # filled below: reference over the rows kept
+    Case("constant-weight-is-unweighted", "SELECT gini(x, 2) FROM t WHERE g = 'a'", R.gini(A_X)),
+    Case("integer-weights-replicate", "SELECT gini(x, w), theil(x, w) FROM t WHERE g = 'a'",
+         [R.gini(replicate(A_X, A_W)), R.theil(replicate(A_X, A_W))]),
+    # ---- parameters (compile-time errors) --------------------------------------------------------
+    Case("p-above-one", "SELECT lorenz(x, 1.5) FROM t", MeasureArgumentError, "p must be a fraction between 0 and 1"),
+    Case("p-negative", "SELECT top_share(x, -0.1) FROM t", MeasureArgumentError, "between 0 and 1"),
+    Case("p-null", "SELECT quantile_w(x, NULL) FROM t", MeasureArgumentError, "p must be a numeric constant"),
+    Case("p-column", "SELECT quantile_w(x, w) FROM t", MeasureArgumentError, "p must be a numeric constant"),
+    Case("p-bounds-defined", "SELECT lorenz(x, 0), lorenz(x, 1), quantile_w(x, 0), quantile_w(x, 1) FROM t "
+         "WHERE g = 'a'", [0.0, 1.0, 1.0, 9.0]),
+    Case("eps-negative", "SELECT atkinson(x, -1) FROM t", MeasureArgumentError, "eps must be at least 0"),
+    Case("alpha-division-by-zero", "SELECT ge(x, 1 / 0) FROM t", MeasureArgumentError, "alpha must be a finite number"),
+    Case("k-zero", "SELECT cr(x, 0, g) FROM t", MeasureArgumentError, "k must be a whole number of at least 1"),
+    Case("k-fraction", "SELECT cr(x, 2.5, g) FROM t", MeasureArgumentError, "k must be a whole number"),
+    Case("k-too-large", "SELECT lorenz_curve(x, 100000) FROM t", MeasureArgumentError, "k must be at most 1000"),
+    Case("too-few-arguments", "SELECT gini() FROM t", MeasureArgumentError, "gini() takes 1 or 2 arguments"),
+    Case("null-weight-literal", "SELECT gini(x, NULL) FROM t", MeasureArgumentError, "the weight cannot be NULL"),
+    # ---- strict mode ---------------------------------------------------------------------------
+    Case("strict-names-group", f"SELECT g, theil(x, strict := true) FROM {hostile('-1.0')} GROUP BY g ORDER BY g",
+         UndefinedResultError, "for the group g=a"),
+    Case("strict-empty-input", "SELECT gini(x, strict := true) FROM t WHERE 1 = 0", UndefinedResultError,
+         "for the whole input"),
+    Case("strict-overflow", "SELECT gini(x * 1e307, strict := true) FROM t", UndefinedResultError, "undefined"),
+    # ---- types (the DuckDB runner probes argument types) -----------------------------------------
+    Case("text-value", "SELECT gini(tag) FROM t", MeasureArgumentError, "the value tag is of type VARCHAR",
+         via_query=True, only=("duckdb",)),
+    Case("boolean-value", "SELECT gini(x > 2) FROM t", MeasureArgumentError, "is of type BOOLEAN",
+         via_query=True, only=("duckdb",)),
+    Case("date-weight", "SELECT gini(x, CAST('2024-01-02' AS DATE)) FROM t", MeasureArgumentError,
+         "the weight CAST('2024-01-02' AS DATE) is of type DATE", via_query=True, only=("duckdb",)),
+    Case("decimal-38-values", "SELECT gini(CAST(x * 1e20 AS DECIMAL(38, 4))), theil(CAST(x * 1e20 AS DECIMAL(38, 4))) "
+         "FROM t WHERE g = 'a'", [R.gini(A_X * 1e20), R.theil(A_X * 1e20)]),
+    Case("bigint-sum-past-int64", "SELECT gini(CAST(x AS BIGINT) * 1000000000000000000), "
+         "hhi(CAST(x AS BIGINT) * 1000000000000000000) FROM t WHERE g = 'a'", [R.gini(A_X), R.hhi(A_X)]),
+    Case("hugeint-values", "SELECT gini(CAST(x AS HUGEINT) * CAST('100000000000000000000000000000' AS HUGEINT)) "
+         "FROM t WHERE g = 'a'", R.gini(A_X), only=("duckdb",)),
+    # ---- SQL text and identifiers -----------------------------------------------------------------
+    Case("quoted-identifiers", 'SELECT "gr ""p""", gini("in come", "wé ight") FROM u GROUP BY "gr ""p""" '
+         'ORDER BY 1', [R.gini([1.0, 2.0, 4.0], [1.0, 1.0, 2.0])],
+         per_row=True, data=pd.DataFrame({'gr "p"': ["z"] * 3, "in come": [1.0, 2.0, 4.0], "wé ight": [1.0, 1.0, 2.0]})),
+    Case("reserved-word-columns", 'SELECT "select", gini("from", "group") FROM u GROUP BY "select"',
+         [R.gini([1.0, 2.0, 4.0], [1.0, 1.0, 2.0])],
+         per_row=True, data=pd.DataFrame({"select": ["z"] * 3, "from": [1.0, 2.0, 4.0], "group": [1.0, 1.0, 2.0]})),
+    Case("column-named-like-measure", "SELECT gini(gini) AS gini FROM u ORDER BY gini", R.gini([1.0, 2.0, 4.0]),
+         data=pd.DataFrame({"gini": [1.0, 2.0, 4.0]})),
+    Case("injection-looking-identifier", 'SELECT gini("x); DROP TABLE u; --") FROM u', R.gini([1.0, 2.0, 4.0]),
+         data=pd.DataFrame({"x); DROP TABLE u; --": [1.0, 2.0, 4.0]})),
+    Case("unicode-key-literal", "SELECT gini(x) FROM t WHERE g = 'ä' OR g = 'a'", R.gini(A_X)),
+    Case("multi-statement", "SELECT 1; SELECT gini(x) FROM t", UnsupportedSqlError, "expected one SQL statement"),
+    Case("parse-error-position", "SELECT gini(x\nFROM t", SqlParseError, "at line 2"),
+    Case("measure-in-where", "SELECT count(*) FROM t WHERE gini(x) > 0", MeasureUsageError, "cannot be used in WHERE"),
+    Case("null-group-key", "SELECT k, gini(x) FROM (SELECT CASE WHEN g = 'a' THEN NULL ELSE g END AS k, x FROM t) s "
+         "GROUP BY k ORDER BY k NULLS FIRST", [R.gini(A_X), R.gini([2.0, 6.0, 5.0]), R.gini([7.0])], per_row=True),
+]
+_kept = BASE[BASE["tag"] == ""]
+_kept = _kept[_kept["x"].notna() & _kept["w"].notna()]
+next(c for c in CASES if c.id == "negative-weight-filtered-by-where").want = R.gini(
+    _kept["x"].to_numpy(float), _kept["w"].to_numpy(float))
+
+
+def test_at_least_forty_cases():
+    assert len(CASES) >= 40 and len({c.id for c in CASES}) == len(CASES)
+
+
+@pytest.fixture(params=sorted(ENGINES), scope="module")
+def engine(request):
+    eng = engine_or_skip(request.param)
+    yield eng
+    eng.close()
+
+
+def _is_null(v) -> bool:
+    return v is None or v is pd.NA or (isinstance(v, float) and math.isnan(v))
+
+
+def _same(got, want) -> bool:
+    if want is NULL:
+        return _is_null(got)
+    if _is_null(got):
+        return False
+    return abs(float(got) - want) <= max(1e-9 * abs(want), 1e-12)
+
+
+def _run(engine, case: Case):
+    if case.via_query:
+        return ineqsql.query(case.sql, engine.con)
+    try:
+        return engine.run(case.sql)
+    except IneqsqlError:
+        raise
+    except Exception as e:  # the engine's own error: the runner's translation (as query() does)
+        raise translate_error(e) from None
+
+
+@pytest.mark.parametrize("case", CASES, ids=[c.id for c in CASES])
+def test_hostile_case(engine, case):
+    if case.only and engine.name not in case.only:
+        pytest.skip(f"{case.id} runs on {', '.join(case.only)} only")
+    engine.load(BASE if case.data is None else case.data, "t" if case.data is None else "u")
+    if isinstance(case.want, type) and issubclass(case.want, Exception):
+        with pytest.raises(case.want) as info:
+            _run(engine, case)
+        assert case.match in str(info.value), str(info.value)
+        return
+    df = _run(engine, case)
+    want = case.want
+    if case.per_row:
+        got = list(df.iloc[:, -1])
+    else:
+        assert len(df) == 1, df
+        got, want = list(df.iloc[0]), (want if isinstance(want, list) else [want])
+    assert len(got) == len(want), (got, want)
+    for g, w in zip(got, want):
+        assert _same(g, w), f"{case.id}: got {got}, want {want}"
+    if case.data is not None:  # source data never modified (the injection-looking name included)
+        assert engine.run("SELECT count(*) AS n FROM u").iloc[0, 0] == len(case.data)
+
+
+def _wide_query(n: int) -> str:
+    forms = ["gini(x)", "theil(x, w)", "top_share(x, {p})", "quantile_w(x, {p}, w)", "atkinson(x, {e})", "cv(x)",
+             "hhi(x, g)", "cr(x, {k}, g)", "gini(x, strict := true)"]
+    items = [forms[i % len(forms)].format(p=(i % 97) / 100, e=(i % 7) / 2, k=1 + i % 5) + f" AS m{i}" for i in range(n)]
+    return "SELECT g, " + ", ".join(items) + " FROM t GROUP BY g"
+
+
+def test_hundreds_of_measures_compile_linearly():
+    # a call written many times is one result: its wrappers (finite check, strict guard) are applied
+    # once, so the compiled SQL grows linearly with the number of calls
+    small, large = ineqsql.compile(_wide_query(40), pretty=False), ineqsql.compile(_wide_query(160), pretty=False)
+    assert len(large) < 4.5 * len(small)
+    con = __import__("duckdb").connect()
+    con.register("t", BASE)
+    row = con.execute(large).fetchall()
+    assert len(row) == 3 and len(row[0]) == 161
