@@ -21,6 +21,9 @@ from ineqsql.compiler.calls import _constant
 _XW = "STRUCT(x DOUBLE, w DOUBLE)[]"
 _XE = "STRUCT(x DOUBLE, e VARCHAR)[]"
 _CURVE = "STRUCT(p DOUBLE, lorenz DOUBLE)[]"
+# measures with a column argument (ranking variable, subgroup, second value) and/or a survey design:
+# a = the column argument as a number and as text, h/c = strata and PSU as text
+_XA = "STRUCT(x DOUBLE, w DOUBLE, anum DOUBLE, atxt VARCHAR, h VARCHAR, c VARCHAR)[]"
 
 
 def _ref_w(name: str, params: str, rows) -> float | None:
@@ -28,7 +31,8 @@ def _ref_w(name: str, params: str, rows) -> float | None:
         return None
     x = [r["x"] for r in rows]
     w = [r["w"] for r in rows]
-    return R.REFERENCES[name](x, *json.loads(params), w)
+    ref = R.REFERENCES.get(name) or catalog.lookup(name).reference  # e.g. <m>_se: reference_se
+    return ref(x, *json.loads(params), w)
 
 
 def _ref_e(name: str, params: str, rows) -> float | None:
@@ -45,7 +49,46 @@ def _ref_curve(name: str, params: str, rows):
     return None if value is None else [{"p": p, "lorenz": v} for p, v in value]
 
 
+def _ref_general(name: str, params: str, rows) -> float | None:
+    """A measure with column arguments and/or named options, through the catalog entry's reference:
+    reference(value, *params in declared order (columns as arrays), weight, **options)."""
+    if not rows:
+        return None
+    m = catalog.lookup(name)
+    spec = json.loads(params)
+    numbers, options = list(spec["params"]), spec["options"]
+    column = None
+    if any(r["atxt"] is not None for r in rows):
+        numeric = all(r["anum"] is not None for r in rows)
+        column = [r["anum"] if numeric else r["atxt"] for r in rows]
+    args = [column if p.kind == "column" else numbers.pop(0) for p in m.params]
+    kwargs = dict(options)
+    for key in ("strata", "psu"):
+        if spec.get(key):
+            kwargs[key] = [r["h" if key == "strata" else "c"] for r in rows]
+    return m.reference([r["x"] for r in rows], *args, [r["w"] for r in rows], **kwargs)
+
+
+def _general_rows(x, column, weight, strata, psu, extra):
+    """list({x, w, anum, atxt, h, c}) FILTER (WHERE the value, column argument and weight are present)."""
+    conds = [c for c in (extra, x, column, weight) if c is not None]
+    cond = exp.and_(*[exp.Paren(this=extra.copy())] if extra is not None else [],
+                    *[exp.Not(this=exp.Is(this=c.copy(), expression=exp.Null())) for c in conds if c is not extra])
+
+    def field(name, value, kind):
+        return exp.PropertyEQ(this=exp.to_identifier(name),
+                              expression=exp.cast(value.copy(), kind) if value is not None else exp.cast(exp.Null(), kind))
+    w = weight if weight is not None else exp.Literal.number(1)
+    an = exp.TryCast(this=column.copy(), to=exp.DataType.build("double")) if column is not None else None
+    struct = exp.Struct(expressions=[field("x", x, "double"), field("w", w, "double"), field("anum", an, "double"),
+                                     field("atxt", column, "varchar"), field("h", strata, "varchar"),
+                                     field("c", psu, "varchar")])
+    return exp.Filter(this=exp.Anonymous(this="list", expressions=[struct]), expression=exp.Where(this=cond))
+
+
 def install_oracle(con: duckdb.DuckDBPyConnection) -> None:
+    con.create_function("_iq_ref_general", _ref_general, ["VARCHAR", "VARCHAR", _XA], "DOUBLE",
+                        null_handling="special")
     con.create_function("_iq_ref_w", _ref_w, ["VARCHAR", "VARCHAR", _XW], "DOUBLE", null_handling="special")
     con.create_function("_iq_ref_e", _ref_e, ["VARCHAR", "VARCHAR", _XE], "DOUBLE", null_handling="special")
     con.create_function("_iq_ref_curve", _ref_curve, ["VARCHAR", "VARCHAR", _XW], _CURVE,
@@ -78,9 +121,20 @@ def oracle_sql(sql: str) -> str:
         if not (isinstance(node, exp.Anonymous) and catalog.lookup(node.name)):
             return node
         m = catalog.lookup(node.name)
+        named = {a.this.name.lower(): a.expression for a in node.expressions if type(a) in (exp.PropertyEQ, exp.Kwarg)}
         # named options (strict := …) do not change a defined value: the oracle leaves them out
         args = [a for a in node.expressions if type(a) not in (exp.PropertyEQ, exp.Kwarg)]
         nparams = len(m.params)
+        if any(p.kind == "column" for p in m.params) or set(named) & {"strata", "psu", "level"}:
+            cols = [a for a, p in zip(args[1:], m.params) if p.kind == "column"]
+            numbers = [_constant(a) for a, p in zip(args[1:], m.params) if p.kind != "column"]
+            options = {"level": _constant(named["level"])} if "level" in named else {}
+            spec = {"params": numbers, "options": options, "strata": "strata" in named, "psu": "psu" in named}
+            trailing = args[1 + nparams] if len(args) > 1 + nparams else None
+            return exp.Anonymous(this="_iq_ref_general", expressions=[
+                exp.Literal.string(m.name), exp.Literal.string(json.dumps(spec)),
+                _general_rows(args[0], cols[0] if cols else None, trailing, named.get("strata"), named.get("psu"),
+                              extra)])
         params = [_constant(a) for a in args[1:1 + nparams]]
         trailing = args[1 + nparams] if len(args) > 1 + nparams else None
         if m.trailing == "entity":

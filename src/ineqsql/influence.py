@@ -1,5 +1,6 @@
 """Does one record drive a result? Per group: a measure without the k largest rows, and the exact
-leave-one-out change of the Gini for the row whose removal changes it most.
+leave-one-out change of the Gini, Theil or MLD for the row whose removal changes it most
+(Theil/MLD: moment_leave_one_out_sql, from the group totals).
 
 Leave-one-out Gini from the ordered pass. With G = A / (W T), A = ½ Σ_i Σ_j w_i w_j |x_i − x_j|,
 removing row k takes its pairs out of A, its weight out of W and w_k x_k out of T:
@@ -77,27 +78,87 @@ def leave_one_out_sql(spec: _Spec, x: exp.Expression) -> exp.Select:
     loo = s.case(s.and_(s.gt(T.copy(), ZERO), s.gt(rest_w, ZERO), s.gt(rest_t, ZERO)),
                  s.div(s.sub(A.copy(), s.mul(wv.copy(), s.col("_iq_d"))), s.mul(rest_w.copy(), rest_t.copy())))
     change = exp.Select(expressions=part() + [s.alias(xv.copy(), "value"), s.alias(wv.copy(), "weight"),
-                                              s.alias(gini, "gini"), s.alias(loo, "gini_without_row")]
+                                              s.alias(gini, "_iq_all"), s.alias(loo, "_iq_without")]
                         ).from_(_table("_iq_loo_lin"))
-    size = s.absval(s.sub(s.col("gini_without_row"), s.col("gini")))
+    return _largest_change(part, [_cte(rows, "_iq_loo_rows"), _cte(win, "_iq_loo_win"), _cte(lin, "_iq_loo_lin")],
+                           change, "gini")
+
+
+def _largest_change(part, ctes: list[exp.CTE], change: exp.Select, name: str) -> exp.Select:
+    """From per-row (value, weight, _iq_all, _iq_without): the row whose removal changes the measure
+    most (ties: the larger value), as (keys, name, value, weight, name_without_row, change)."""
+    size = s.absval(s.sub(s.col("_iq_without"), s.col("_iq_all")))
     rank = s.window(exp.RowNumber(), part(), [exp.Ordered(this=size, desc=True, nulls_first=False),
                                               exp.Ordered(this=s.col("value"), desc=True, nulls_first=False)])
-    ranked = exp.Select(expressions=part() + [s.col("value"), s.col("weight"), s.col("gini"), s.col("gini_without_row"),
+    ranked = exp.Select(expressions=part() + [s.col("value"), s.col("weight"), s.col("_iq_all"), s.col("_iq_without"),
                                               s.alias(rank, "_iq_n")]).from_(_table("_iq_loo_change"))
-    final = exp.Select(expressions=part() + [s.col("gini"), s.col("value"), s.col("weight"), s.col("gini_without_row"),
-                                             s.alias(s.sub(s.col("gini_without_row"), s.col("gini")), "change")])
+    final = exp.Select(expressions=part() + [s.alias(s.col("_iq_all"), name), s.col("value"), s.col("weight"),
+                                             s.alias(s.col("_iq_without"), f"{name}_without_row"),
+                                             s.alias(s.sub(s.col("_iq_without"), s.col("_iq_all")), "change")])
     final = final.from_(_table("_iq_loo_ranked")).where(exp.EQ(this=s.col("_iq_n"), expression=exp.Literal.number(1)))
-    final.set("with_", exp.With(expressions=[_cte(rows, "_iq_loo_rows"), _cte(win, "_iq_loo_win"),
-                                             _cte(lin, "_iq_loo_lin"), _cte(change, "_iq_loo_change"),
-                                             _cte(ranked, "_iq_loo_ranked")]))
+    final.set("with_", exp.With(expressions=ctes + [_cte(change, "_iq_loo_change"), _cte(ranked, "_iq_loo_ranked")]))
     return final
+
+
+def _rows_cte(spec: _Spec, x: exp.Expression) -> exp.Select:
+    keys = spec.names()
+    w = s.cast_double(spec.weight.copy()) if spec.weight is not None else s.lit(1.0)
+    rows = exp.Select(expressions=[s.alias(b.copy(), n) for b, n in zip(spec.by, keys)]
+                      + [s.alias(s.cast_double(x.copy()), "_iq_x"), s.alias(w, "_iq_w")])
+    rows.set("from_", spec.source.copy())
+    cond = s.and_(s.not_null(x.copy()), *([s.not_null(spec.weight.copy()), s.gt(w.copy(), ZERO)]
+                                          if spec.weight is not None else []))
+    rows.set("where", exp.Where(this=cond))
+    return rows
+
+
+def moment_leave_one_out_sql(spec: _Spec, x: exp.Expression, name: str) -> exp.Select:
+    """Per group: Theil or MLD, and the row whose removal changes it most, from the group totals
+    W = Σw, T = Σw·x, A = Σw·x·ln x (x > 0), L = Σw·ln x (x > 0): without row k they are
+    W − w_k, T − w_k·x_k, A − w_k·x_k·ln x_k, L − w_k·ln x_k, and
+
+        Theil = A/T − ln(T/W),   MLD = ln(T/W) − L/W
+
+    (exact; NULL where the measure on all rows or on the rest is undefined)."""
+    keys = spec.names()
+    part = lambda: [s.col(k) for k in keys]  # noqa: E731
+    xv, wv = s.col("_iq_x"), s.col("_iq_w")
+    pos = s.gt(xv.copy(), ZERO)
+    xlnx = s.case(pos, s.mul(xv.copy(), s.ln(xv.copy())), ZERO.copy())
+    lnx = s.case(pos.copy(), s.ln(xv.copy()))
+    tot = lambda v: s.window(s.agg_sum(v), part())  # noqa: E731
+    win = exp.Select(expressions=part() + [xv, wv, s.alias(xlnx, "_iq_xlnx"), s.alias(lnx, "_iq_lnx"),
+        s.alias(tot(wv.copy()), "_iq_wt"), s.alias(tot(s.mul(wv.copy(), xv.copy())), "_iq_t"),
+        s.alias(tot(s.mul(wv.copy(), xlnx.copy())), "_iq_a"), s.alias(tot(s.mul(wv.copy(), lnx.copy())), "_iq_l"),
+        s.alias(s.window(s.agg_min(xv.copy()), part()), "_iq_mn")]).from_(_table("_iq_loo_rows"))
+    W, T, A, L, mn = (s.col(c) for c in ("_iq_wt", "_iq_t", "_iq_a", "_iq_l", "_iq_mn"))
+    W1, T1 = s.sub(W.copy(), wv.copy()), s.sub(T.copy(), s.mul(wv.copy(), xv.copy()))
+    if name == "theil":
+        ok = s.and_(s.gte(mn.copy(), ZERO), s.gt(T.copy(), ZERO))
+        full = s.sub(s.div(A.copy(), T.copy()), s.ln(s.div(T.copy(), W.copy())))
+        A1 = s.sub(A.copy(), s.mul(wv.copy(), s.col("_iq_xlnx")))
+        rest = s.sub(s.div(A1, T1.copy()), s.ln(s.div(T1.copy(), W1.copy())))
+    else:  # mld
+        ok = s.gt(mn.copy(), ZERO)
+        full = s.sub(s.ln(s.div(T.copy(), W.copy())), s.div(L.copy(), W.copy()))
+        L1 = s.sub(L.copy(), s.mul(wv.copy(), s.col("_iq_lnx")))
+        rest = s.sub(s.ln(s.div(T1.copy(), W1.copy())), s.div(L1, W1.copy()))
+    rest_ok = s.and_(ok.copy(), s.gt(W1.copy(), ZERO), s.gt(T1.copy(), ZERO))
+    change = exp.Select(expressions=part() + [s.alias(xv.copy(), "value"), s.alias(wv.copy(), "weight"),
+                                              s.alias(s.case(ok, full), "_iq_all"),
+                                              s.alias(s.case(rest_ok, rest), "_iq_without")]
+                        ).from_(_table("_iq_loo_win"))
+    return _largest_change(part, [_cte(_rows_cte(spec, x), "_iq_loo_rows"), _cte(win, "_iq_loo_win")], change, name)
+
+
+LEAVE_ONE_OUT = ("gini", "theil", "mld")
 
 
 def influence(relation: str, x: str, *, weight: str | None = None, by=(), k: int = 3, measure: str = "gini",
               params=(), con: duckdb.DuckDBPyConnection | None = None) -> pd.DataFrame:
     """Per group of ``by``: ``measure`` on all rows and without the 1…k largest rows (by value, then
-    weight), and for the Gini the exact leave-one-out change of the most influential row (its value,
-    weight, the Gini without it and the change). Rows with a NULL value or weight, or weight 0, are
+    weight), and for the Gini, Theil and MLD the exact leave-one-out change of the most influential
+    row (its value, weight, the measure without it and the change). Rows with a NULL value or weight, or weight 0, are
     skipped."""
     if isinstance(k, bool) or not isinstance(k, int) or not 0 <= k <= 100:
         raise MeasureArgumentError(f"influence: k must be a whole number from 0 to 100, got {k!r}")
@@ -123,10 +184,15 @@ def influence(relation: str, x: str, *, weight: str | None = None, by=(), k: int
         items.append(s.alias(cut, f"{name}_without_top_{j}"))
     with session(spec, con, inspect.currentframe().f_back) as run:
         out = run(ranked.select(items, []))
-        loo = run(leave_one_out_sql(spec, xv)).drop(columns=["gini"]) if name == "gini" else None
+        loo = None
+        if name == "gini":
+            loo = run(leave_one_out_sql(spec, xv))
+        elif name in LEAVE_ONE_OUT:
+            loo = run(moment_leave_one_out_sql(spec, xv, name))
     if loo is not None:
-        loo = loo.rename(columns={"value": "top_row_value", "weight": "top_row_weight",
-                                  "gini_without_row": "gini_without_top_row", "change": "top_row_change"})
+        loo = loo.drop(columns=[name]).rename(columns={
+            "value": "top_row_value", "weight": "top_row_weight",
+            f"{name}_without_row": f"{name}_without_top_row", "change": "top_row_change"})
         out = out.merge(loo, on=keys, how="left") if keys else pd.concat([out, loo], axis=1)
         if spec.weight is None:
             out = out.drop(columns=["top_row_weight"])

@@ -214,13 +214,38 @@ def _num(v):
 
 
 # ---------------------------------------------------------------------------- paired comparison
-def compare(relation: str, x1: str, x2: str, *, weight: str | None = None, by=(),
+def compare(relation: str, x1: str, x2: str | None = None, *, group: str | None = None, groups=None,
+            measure: str = "gini", params=(), se: str | None = None, strata: str | None = None,
+            psu: str | None = None, weight: str | None = None, by=(),
             con: duckdb.DuckDBPyConnection | None = None) -> pd.DataFrame:
-    """Gini of two values of the same rows (e.g. gross and disposable income), their difference and
-    its standard error accounting for the pairing (linearised Gini per row, with-replacement
-    variance of one stratum: a simple random sample or a design whose first-stage units are the
-    rows). Rows where either value or the weight is NULL are skipped."""
+    """Two forms.
+
+    Two values of the same rows (``compare(rel, "gross", "disposable")``): Gini of each, their
+    difference and its standard error accounting for the pairing (linearised Gini per row,
+    with-replacement variance of one stratum: a simple random sample or a design whose first-stage
+    units are the rows). Rows where either value or the weight is NULL are skipped.
+
+    Two groups of rows (``compare(rel, "income", group="sex", groups=("f", "m"))``): ``measure`` in
+    each group, the difference first − second and its standard error, ``se="design"`` (Gini; the
+    linearized difference under the design ``strata``/``psu`` shared by both groups, covariance
+    included) or ``se="independent"`` (any measure with an ``_se`` form: sqrt(se₁² + se₂²)); see
+    ``ineqsql.compare_groups``. The column ``se_method`` says which was computed."""
     fn = "compare"
+    if group is not None or groups is not None:
+        if x2 is not None:
+            raise MeasureArgumentError(f"{fn}: give either a second value (two values of the same rows) or "
+                                       "group= and groups= (two groups of rows), not both")
+        if group is None or groups is None:
+            raise MeasureArgumentError(f"{fn}: comparing two groups needs both group= (the column) and groups= "
+                                       "(its two values)")
+        from ineqsql.compare_groups import compare_groups
+        return compare_groups(relation, x1, group, groups, measure=measure, params=params, se=se, weight=weight,
+                              strata=strata, psu=psu, by=by, con=con, frame=inspect.currentframe().f_back)
+    if x2 is None:
+        raise MeasureArgumentError(f"{fn}: give a second value of the same rows, or group= and groups=")
+    if measure != "gini" or params or se not in (None, "design") or strata is not None or psu is not None:
+        raise MeasureArgumentError(f"{fn}: two values of the same rows are compared by their Gini with the "
+                                   "paired SE of one stratum (no measure, params, se, strata or psu options)")
     spec = _Spec(fn, relation, by, weight)
     a, b = _parse(x1, "first value", fn), _parse(x2, "second value", fn)
     items = [s.alias(exp.Count(this=exp.Star()), "rows"), s.alias(spec.measure("gini", a), "gini_1"),

@@ -11,8 +11,8 @@ from ineqsql.cli.tables import add_table_options, common
 def register(sub) -> None:
     p = sub.add_parser("influence", help="a measure without the largest rows; the most influential row",
                        description="Per group: the measure on all rows and without the 1..K largest rows (by "
-                       "value, then weight); for the Gini also the row whose removal changes it most, with "
-                       "the exact Gini without it.",
+                       "value, then weight); for the Gini, Theil and MLD also the row whose removal changes "
+                       "it most, with the exact measure without it.",
                        epilog="examples:\n  ineqsql influence 'survey.parquet' --value income --by province\n"
                        "  ineqsql influence sales.csv --value revenue --measure top_share --param 0.1 -k 5",
                        formatter_class=argparse.RawDescriptionHelpFormatter)
