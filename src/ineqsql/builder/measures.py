@@ -30,17 +30,34 @@ def column(name) -> exp.Expression:
     raise MeasureArgumentError(f"expected a column name (a non-empty string), got {name!r}")
 
 
+COLUMN_OPTIONS = ("strata", "psu", "key")  # named arguments naming a column; the others are constants
+
+
+def option_value(name: str, value) -> exp.Expression:
+    if name in COLUMN_OPTIONS:
+        return column(value)
+    if isinstance(value, bool):
+        return exp.Boolean(this=value)
+    if isinstance(value, numbers.Real):
+        return exp.Literal.number(repr(value))
+    if isinstance(value, str):
+        return exp.Literal.string(value)
+    raise MeasureArgumentError(f"{name} must be a number or a string, got {value!r}")
+
+
 @dataclass(frozen=True)
 class MeasureCall:
     name: str
     value: object
     params: tuple[float, ...]
     trailing: object = None
+    options: tuple[tuple[str, object], ...] = ()  # named arguments (name := value), e.g. psu, level
 
     def to_expression(self) -> exp.Anonymous:
         args = [column(self.value)] + [exp.Literal.number(repr(p)) for p in self.params]
         if self.trailing is not None:
             args.append(column(self.trailing))
+        args += [exp.PropertyEQ(this=exp.to_identifier(n), expression=option_value(n, v)) for n, v in self.options]
         return exp.Anonymous(this=self.name, expressions=args)
 
     def __repr__(self) -> str:
@@ -67,9 +84,15 @@ def measure_factory(name: str):
         for p in spec.params:  # parameters may also be given by name
             if p.name in named:
                 params = params + (named.pop(p.name),)
+        options = tuple((n, named.pop(n)) for n in list(named) if n in spec.options)
+        for n, v in options:
+            if n in COLUMN_OPTIONS and not isinstance(v, (str, exp.Expression)):
+                raise MeasureArgumentError(f"{fn}: {n} must be a column name, got {v!r}", function=spec.name)
+            option_value(n, v)
         if named:
-            raise MeasureArgumentError(f"{fn}: unknown argument {min(named)!r}; signature: {spec.signature}",
-                                       function=spec.name)
+            accepted = ", ".join(o for o in spec.options) or "none"
+            raise MeasureArgumentError(f"{fn}: unknown argument {min(named)!r}; signature: {spec.signature}; "
+                                       f"named options: {accepted}", function=spec.name)
         if len(params) != len(spec.params):
             raise MeasureArgumentError(f"{fn} takes {len(spec.params)} parameter(s) after the value "
                                        f"({spec.signature}); got {len(params)}", function=spec.name)
@@ -83,7 +106,7 @@ def measure_factory(name: str):
             if problem:
                 raise MeasureArgumentError(f"{fn}: {problem}", function=spec.name)
             checked.append(float(v))
-        return MeasureCall(spec.name, value, tuple(checked), trailing)
+        return MeasureCall(spec.name, value, tuple(checked), trailing, options)
 
     make.__name__ = spec.name
     make.__doc__ = f"{spec.signature}: {spec.formula} (domain: {spec.domain or 'any'}). " \
