@@ -68,10 +68,11 @@ def test_bootstrap_is_reproducible_and_seeded(con):
     c, _ = con
     q = "SELECT gini_boot_se(x, w, replicates := 20, key := id, seed := {s}) AS se FROM t"
     a, b, other = (ineqsql.query(q.format(s=s), c)["se"][0] for s in (5, 5, 6))
-    assert a == b and a != other
+    # the same draws; parallel sums may differ in the last bits only
+    assert a == pytest.approx(b, rel=1e-12) and abs(a - other) > 1e-9 * a
     # without a key: identical rows are numbered among themselves, so the draws still repeat
     q2 = "SELECT gini_boot_se(x, w, replicates := 20, seed := 5) AS se FROM t"
-    assert ineqsql.query(q2, c)["se"][0] == ineqsql.query(q2, c)["se"][0]
+    assert ineqsql.query(q2, c)["se"][0] == pytest.approx(ineqsql.query(q2, c)["se"][0], rel=1e-12)
 
 
 @pytest.mark.slow

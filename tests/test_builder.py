@@ -112,3 +112,15 @@ def test_bad_input_raises_ineqsql_errors(make, words):
         make()
     for word in words:
         assert word in str(err.value)
+
+
+def test_named_options_reach_the_compiler():
+    # design and interval options by name, as in SQL (name := value); the compiled query is the SQL one
+    call = ineqsql.gini_se("x", weight="w", strata="h", psu="c")
+    assert call.to_expression().sql("duckdb") == 'GINI_SE("x", "w", strata := "h", psu := "c")'
+    lo = ineqsql.gini_ci_lo("x", weight="w", level=0.9)
+    assert lo.to_expression().sql("duckdb") == 'GINI_CI_LO("x", "w", level := 0.9)'
+    with pytest.raises(ineqsql.IneqsqlError, match="unknown argument 'bogus'"):
+        ineqsql.gini_se("x", bogus=1)
+    with pytest.raises(ineqsql.IneqsqlError, match="psu must be a column name"):
+        ineqsql.gini_se("x", psu=3)

@@ -53,9 +53,8 @@ def gini(ctx, params=()) -> Lin:
     G = ordc.build_gini(ctx, ())
     W, T = ctx.W, ctx.T
     w, x = ctx.w, ctx.x
-    rank_term = s.mul(w, s.mul(s.lit(2.0), s.sub(s.mul(ctx.c, x), ctx.s)))
     return Lin(G, [
-        (rank_term, s.div(ONE, s.mul(W, T))),
+        (ordc.rank_term(ctx), s.div(ONE, s.mul(W, T))),
         (w.copy(), s.div(s.sub(ONE, G.copy()), ctx.W)),
         (s.mul(w.copy(), x.copy()), s.div(neg((s.add(ONE, G.copy()))), ctx.T)),
     ])

@@ -57,6 +57,12 @@ def quantile_at(ctx, p: float) -> exp.Expression:
     return exp.Coalesce(this=s.agg_min(s.case(reached, ctx.x)), expressions=[s.agg_max(ctx.x)])
 
 
+def rank_term(ctx) -> exp.Expression:
+    """w_k · 2(C_k x_k − S_k), with S the running Σ w·x: the rank term of the Gini's linearization.
+    C_k x_k − S_k = Σ_{j≤k} w_j (x_k − x_j) ≥ 0 does not depend on the order of tied values."""
+    return s.mul(ctx.w, s.mul(s.lit(2.0), s.sub(s.mul(ctx.c, ctx.x), ctx.s)))
+
+
 def build_gini(ctx, params):
     # Σ w_i x_i (2C_i − w_i − W) / (W·T). Shifting x by a per-group constant m leaves the numerator
     # unchanged (Σ w_i (2C_i − w_i − W) = 0), so it is computed on x − m with m the group's smallest

@@ -15,7 +15,9 @@ from __future__ import annotations
 import math
 import sqlite3
 
-from ineqsql.compiler.dialects.sqlite import RAISE_FUNCTION
+import hashlib
+
+from ineqsql.compiler.dialects.sqlite import HASH_FUNCTION, RAISE_FUNCTION
 
 
 _MESSAGES: dict[int, str] = {}
@@ -52,8 +54,16 @@ def _has(con: sqlite3.Connection, probe: str) -> bool:
         return False
 
 
+def hash64(*parts) -> int:
+    """``ineqsql_hash(a, b, …)``: a signed 64-bit hash of the values' text (BLAKE2b, 8 bytes), for the
+    bootstrap's replicate draws (SQLite has no hash function of its own)."""
+    text = "|".join("" if p is None else repr(p) for p in parts).encode()
+    return int.from_bytes(hashlib.blake2b(text, digest_size=8).digest(), "little", signed=True)
+
+
 def install_sqlite_functions(con: sqlite3.Connection) -> list[str]:
-    """Register ``ineqsql_raise`` and the math functions the SQLite build lacks; return their names."""
+    """Register ``ineqsql_raise``, ``ineqsql_hash`` and the math functions the SQLite build lacks;
+    return their names."""
     key = id(con)
 
     def raise_(message):
@@ -62,6 +72,8 @@ def install_sqlite_functions(con: sqlite3.Connection) -> list[str]:
 
     added = [RAISE_FUNCTION]
     con.create_function(RAISE_FUNCTION, 1, raise_)
+    con.create_function(HASH_FUNCTION, -1, hash64, deterministic=True)
+    added.append(HASH_FUNCTION)
     for name, (nargs, fn, probe) in MATH.items():
         if not _has(con, probe):
             con.create_function(name, nargs, _nullable(fn), deterministic=True)

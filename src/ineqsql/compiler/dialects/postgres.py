@@ -21,6 +21,7 @@ DIALECT = Dialect(
     "postgres",
     rules=(
         r.refuse({exp.ArgMin: "arg_min()", exp.ArgMax: "arg_max()"}),
+        r.uniform_from_hash("hashtextextended", signed=True, as_text=True),
         r.expand_group_by_all,
         r.raise_by_failed_cast,
         r.guard_math_domain,

@@ -306,3 +306,62 @@ def refuse(constructs: dict[type, str]) -> Rule:
 
     rule.__name__ = "refuse_" + "_".join(k.__name__.lower() for k in constructs)
     return rule
+
+
+# the bootstrap's uniform draws: ineqsql_uniform(parts…) → the engine's 64-bit hash scaled to [0, 1)
+UNIFORM = "ineqsql_uniform"
+_TWO_63, _TWO_64 = 9223372036854775808.0, 18446744073709551616.0
+
+
+def _uniform_calls(tree: exp.Expression, fn) -> exp.Expression:
+    def visit(node):
+        if isinstance(node, exp.Anonymous) and str(node.this).lower() == UNIFORM:
+            return fn([a.copy() for a in node.expressions])
+        return node
+    return tree.transform(visit)
+
+
+def uniform_from_hash(function: str, signed: bool, as_text: bool = False) -> Rule:
+    """``ineqsql_uniform(a, b, …)`` → hash/2^64 (unsigned hash, DuckDB ``hash``) or (hash + 2^63)/2^64
+    (signed 64-bit hash: Spark ``xxhash64``, SQLite's registered ``ineqsql_hash``). ``as_text``: the
+    hash takes one text and a seed (PostgreSQL ``hashtextextended(text, 0)``): the parts are joined
+    with '|' as text. Draws therefore differ between engines (each is reproducible on its own)."""
+
+    def build(parts):
+        if as_text:
+            texts = [exp.Cast(this=p, to=exp.DataType.build("text")) for p in parts]
+            joined = exp.Anonymous(this="concat_ws", expressions=[exp.Literal.string("|")] + texts)
+            h = exp.Anonymous(this=function, expressions=[joined, exp.Literal.number(0)])
+        else:
+            h = exp.Anonymous(this=function, expressions=parts)
+        value = s.cast_double(h)
+        if signed:
+            value = s.add(value, s.lit(_TWO_63))
+        return s.div(s.paren(value), s.lit(_TWO_64))
+
+    def rule(tree: exp.Expression, dialect: str) -> exp.Expression:
+        return _uniform_calls(tree, build)
+    return rule
+
+
+def uniform_refused(tree: exp.Expression, dialect: str) -> exp.Expression:
+    def fail(parts):
+        raise UnsupportedDialectError(
+            f"the bootstrap forms (<measure>_boot_se/_lo/_hi) are not offered for {dialect}: no hash "
+            f"function is mapped for its replicate draws; use the linearized forms (<measure>_se)")
+    return _uniform_calls(tree, fail)
+
+
+def values_columns_by_position(tree: exp.Expression, dialect: str) -> exp.Expression:
+    """``(VALUES …) AS t(a, b)`` → ``(SELECT column1 AS a, column2 AS b FROM (VALUES …)) AS t``: for
+    engines that name VALUES columns column1, column2 … and take no column list in a table alias
+    (SQLite)."""
+    def fn(node):
+        alias = node.args.get("alias") if isinstance(node, exp.Values) else None
+        if alias is None or not alias.columns:
+            return node
+        bare = exp.Values(expressions=[e.copy() for e in node.expressions])
+        cols = [exp.alias_(exp.column(f"column{i}"), c.copy()) for i, c in enumerate(alias.columns, start=1)]
+        select = exp.Select(expressions=cols).from_(exp.Subquery(this=bare), copy=False)
+        return exp.Subquery(this=select, alias=exp.TableAlias(this=alias.this.copy()))
+    return tree.transform(fn)

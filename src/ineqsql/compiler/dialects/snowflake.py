@@ -7,5 +7,5 @@
 from ineqsql.compiler.dialects import Dialect
 from ineqsql.compiler.dialects import rules as r
 
-DIALECT = Dialect("snowflake", rules=(r.expand_group_by_all, r.raise_by_failed_cast),
+DIALECT = Dialect("snowflake", rules=(r.uniform_refused, r.expand_group_by_all, r.raise_by_failed_cast),
                   notes="emitted, not executed here")

@@ -15,6 +15,7 @@ from ineqsql.compiler.dialects import Dialect
 from ineqsql.compiler.dialects import rules as r
 
 RAISE_FUNCTION = "ineqsql_raise"
+HASH_FUNCTION = "ineqsql_hash"  # registered by install_sqlite_functions: a signed 64-bit hash
 
 DIALECT = Dialect(
     "sqlite",
@@ -22,6 +23,8 @@ DIALECT = Dialect(
         r.refuse({exp.ArgMin: "arg_min()", exp.ArgMax: "arg_max()", exp.PercentileCont: "an exact quantile aggregate",
                   exp.PercentileDisc: "an exact quantile aggregate", exp.Quantile: "an exact quantile aggregate",
                   exp.Median: "median()", exp.ArrayAgg: "a list aggregate"}),
+        r.uniform_from_hash(HASH_FUNCTION, signed=True),
+        r.values_columns_by_position,
         r.expand_group_by_all,
         r.hoist_ctes_from_set_operations,
         r.raise_with(RAISE_FUNCTION),

@@ -14,6 +14,7 @@ from ineqsql.compiler.dialects import rules as r
 DIALECT = Dialect(
     "trino",
     rules=(
+        r.uniform_refused,
         r.refuse({exp.PercentileCont: "an exact quantile aggregate", exp.PercentileDisc: "an exact quantile aggregate",
                   exp.Quantile: "an exact quantile aggregate", exp.Median: "median()"}),
         r.expand_group_by_all,

@@ -131,21 +131,33 @@ def lower_linearized_pass(source: Source, main, plan, name: str) -> tuple[list[e
     keys = source.key_columns()
     row_terms = {terms.index(t): t for _, t in terms.items.values()}
 
-    # estimates and coefficients read the group's aggregates: lift them into columns first
+    # estimates and coefficients read the group's aggregates: lift them into columns first. The
+    # group CTE's own sums of the row terms (over rows, or over PSUs without strata) and its row
+    # count (without a design) serve the estimates too (e.g. Σ w, Σ w·x and the Gini's rank term)
+    if strata is None:
+        for j, t in row_terms.items():
+            aggs.reuse(s.agg_sum(t), _sum_name(j))
+        if psu is None:
+            aggs.reuse(s.agg_count_star(), "_iq_nu")
     lifted = []
     for call, lin, role, coefs in specs:
         est = aggs.lift(lin.estimate)
         lifted.append((call, est, role, {j: aggs.lift(c) for j, c in coefs.items()} if coefs is not None else None))
 
+    # the row terms once per row (_terms), so the sums and cross sums read columns
+    term_cols = [s.alias(t.copy(), f"_iq_t{j}") for j, t in row_terms.items()]
+    ctes.append(cte(exp.Select(expressions=[exp.Star()] + term_cols).from_(table(f"{name}_win"), copy=False),
+                    f"{name}_terms"))
+    row_cols = {j: s.col(f"_iq_t{j}") for j in row_terms}
     strata_keys = [s.col("_iq_h")] if strata is not None else []
     if psu is not None:
         # one row per PSU: the sums of the terms over its rows
-        units = [s.alias(s.agg_sum(t.copy()), f"_iq_U{j}") for j, t in row_terms.items()]
-        ctes.append(cte(grouped(keys + strata_keys + [s.col("_iq_psu")], units + aggs.partial(), f"{name}_win"),
+        units = [s.alias(s.agg_sum(c.copy()), f"_iq_U{j}") for j, c in row_cols.items()]
+        ctes.append(cte(grouped(keys + strata_keys + [s.col("_iq_psu")], units + aggs.partial(), f"{name}_terms"),
                         f"{name}_psu"))
         below, unit_cols, level_aggs = f"{name}_psu", {j: s.col(f"_iq_U{j}") for j in row_terms}, aggs.combined
     else:
-        below, unit_cols, level_aggs = f"{name}_win", row_terms, aggs.partial
+        below, unit_cols, level_aggs = f"{name}_terms", row_cols, aggs.partial
     if strata is not None:
         ctes.append(cte(grouped(keys + strata_keys, _stats(terms, unit_cols) + level_aggs(), below), f"{name}_str"))
         k_cols = [s.alias(s.agg_sum(_k_between(j, k, s.col("_iq_nu"))), f"_iq_K{j}_{k}") for j, k in terms.pairs]

@@ -24,6 +24,7 @@ from ineqsql.errors import MeasureUsageError
 class RowContext:
     """Row-level columns of the window CTE and aggregates over them."""
 
+
     def __init__(self, weighted: bool, name: str):
         self.weighted = weighted
         self.name = name
@@ -152,11 +153,18 @@ class Aggregates:
 
     def __init__(self):
         self.items: dict[str, tuple[str, exp.Expression]] = {}
+        self.known: dict[str, str] = {}
+
+    def reuse(self, agg: exp.Expression, column: str) -> None:
+        """An aggregate the group CTE already computes under ``column`` (lifted to it, not repeated)."""
+        self.known[agg.sql("duckdb")] = column
 
     def lift(self, expr: exp.Expression) -> exp.Expression:
         def fn(node):
             if type(node) in _COMBINE:
                 key = node.sql("duckdb")
+                if key in self.known:
+                    return s.col(self.known[key])
                 if key not in self.items:
                     self.items[key] = (f"_iq_g{len(self.items) + 1}", node.copy())
                 return s.col(self.items[key][0])
