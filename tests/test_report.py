@@ -19,6 +19,7 @@ import pytest
 
 import ineqsql
 from ineqsql import reference as R
+from ineqsql import reference_se as RS
 from ineqsql.cli.main import main
 from ineqsql.report import report_data
 from ineqsql.report.html import TABLE_HEAD
@@ -60,8 +61,12 @@ def test_report_numbers_match_the_reference(survey):
                      "median": R.quantile_w(x, 0.5, w), "gini": R.gini(x, w), "bottom40": R.bottom_share(x, 0.4, w),
                      "top10": R.top_share(x, 0.1, w), "palma": R.palma(x, w), "s80s20": R.s80s20(x, w),
                      "theil": R.theil(x, w)}
+    for key, part in latest.groupby("region"):  # the Gini's 95 % interval (reference_se: linearization)
+        lo, hi = RS.ci("gini", part.income.to_numpy(), (), part.w.to_numpy(), level=0.95)
+        want[key].update(gini_lo=lo, gini_hi=hi)
     for g in data.groups:
         assert g.values == pytest.approx(want[g.label], rel=1e-10)
+        assert g.values["gini_lo"] < g.values["gini"] < g.values["gini_hi"]
         assert [v for _, v in g.curve] == pytest.approx(
             [v for _, v in R.lorenz_curve(latest[latest.region == g.label].income.to_numpy(), K,
                                           latest[latest.region == g.label].w.to_numpy())], abs=1e-12)
@@ -127,7 +132,10 @@ def test_markdown_report_with_side_files(survey, tmp_path):
     for line in table[1:4]:
         cells = [c.strip() for c in line.strip("|").split("|")]
         part = survey[survey.region == cells[1]]
-        assert float(cells[6]) == pytest.approx(R.gini(part.income.to_numpy(), part.w.to_numpy()), abs=5e-5)
+        gini, interval = cells[6].split(" ", 1)  # "0.6515 [0.6094, 0.6937]": the value, then its 95 % interval
+        assert float(gini) == pytest.approx(R.gini(part.income.to_numpy(), part.w.to_numpy()), abs=5e-5)
+        lo, hi = RS.ci("gini", part.income.to_numpy(), (), part.w.to_numpy())
+        assert interval == f"[{lo:.4f}, {hi:.4f}]"
     ET.parse(tmp_path / "out-lorenz.svg")  # well-formed on its own
 
 
@@ -227,7 +235,7 @@ def test_many_groups_charts_show_the_extremes_and_the_table_lists_all(tmp_path):
 
 def test_an_interval_pair_is_shown_beside_its_value():
     from ineqsql.report.data import Column, format_value
-    col = Column("gini", "Gini", lambda s: None, "{:.3f}", interval=("gini_lo", "gini_hi"))
+    col = Column("gini", "Gini", lambda s: None, "{:.3f}", interval=(lambda s: None, lambda s: None))
     assert format_value(col, {"gini": 0.41234, "gini_lo": 0.4, "gini_hi": 0.425}) == "0.412 [0.400, 0.425]"
     assert format_value(col, {"gini": 0.41234}) == "0.412"  # no interval computed: the value alone
     assert format_value(col, {"gini": float("nan")}) == "—"

@@ -32,7 +32,8 @@ class Column:
     label: str
     build: Callable[[Spec], exp.Expression]
     fmt: str = "{:.3f}"
-    interval: tuple[str, str] | None = None  # result keys of the low and high end, when there are
+    # builders of the low and high end of an interval around the value (shown as value [low, high])
+    interval: tuple[Callable[[Spec], exp.Expression], Callable[[Spec], exp.Expression]] | None = None
     weighted_only: bool = False
     note: str = ""
 
@@ -57,7 +58,9 @@ COLUMNS: tuple[Column, ...] = (
            weighted_only=True),
     Column("mean", "mean", _m("generalized_lorenz", 1.0), "{:,.2f}", note="weighted mean μ = T/W"),
     Column("median", "median", _m("quantile_w", 0.5), "{:,.2f}", note="weighted median (inverted CDF)"),
-    Column("gini", "Gini", _m("gini"), "{:.4f}"),
+    Column("gini", "Gini", _m("gini"), "{:.4f}", interval=(_m("gini_ci_lo"), _m("gini_ci_hi")),
+           note="[low, high]: 95 % confidence interval by linearization (rows as independent draws; "
+                "docs/uncertainty.md)"),
     Column("bottom40", "bottom 40 % share", _m("bottom_share", 0.4), "{:.1%}"),
     Column("top10", "top 10 % share", _m("top_share", 0.1), "{:.1%}"),
     Column("palma", "Palma", _m("palma"), "{:.3f}", note="top 10 % share / bottom 40 % share"),
@@ -111,6 +114,8 @@ def _latest_filter(spec: Spec) -> exp.Expression:
 def measures_select(spec: Spec, columns: list[Column], points: int, keys: bool = True) -> exp.Select:
     items = [k.copy() for k in spec.keys] if keys else []
     items += [alias(c.build(spec), f"_iq_c_{c.key}") for c in columns]
+    items += [alias(b(spec), f"_iq_c_{c.key}_{end}") for c in columns if c.interval
+              for end, b in zip(("lo", "hi"), c.interval)]
     items.append(alias(call("lorenz_curve", spec.value, points, weight=spec.weight), "_iq_curve"))
     q = exp.select(*items).from_(spec.source.from_.copy())
     if spec.time is not None:
@@ -140,7 +145,8 @@ def _group(rec: dict, spec: Spec, columns: list[Column], label: str) -> Group:
     curve = rec["_iq_curve"]
     points = None if curve is None or isinstance(curve, float) else [
         (float(p["p"]), _number(p["lorenz"])) for p in curve]
-    return Group(label, {c.key: _number(rec[f"_iq_c_{c.key}"]) for c in columns}, points)
+    keys = [c.key for c in columns] + [f"{c.key}_{end}" for c in columns if c.interval for end in ("lo", "hi")]
+    return Group(label, {k: _number(rec[f"_iq_c_{k}"]) for k in keys}, points)
 
 
 def rank_groups(groups: list[Group]) -> list[Group]:
@@ -198,7 +204,7 @@ def format_value(column: Column, values: dict[str, float]) -> str:
         return "—"
     text = column.fmt.format(v)
     if column.interval is not None:
-        lo, hi = (values.get(k, math.nan) for k in column.interval)
+        lo, hi = (values.get(f"{column.key}_{end}", math.nan) for end in ("lo", "hi"))
         if lo == lo and hi == hi:
             text += f" [{column.fmt.format(lo)}, {column.fmt.format(hi)}]"
     return text
