@@ -124,3 +124,44 @@ def test_named_options_reach_the_compiler():
         ineqsql.gini_se("x", bogus=1)
     with pytest.raises(ineqsql.IneqsqlError, match="psu must be a column name"):
         ineqsql.gini_se("x", psu=3)
+
+
+# --- method="bounded" through the builder (intervals checked against the numpy reference) ----------
+
+def _inside_reference(df, frame):
+    for _, row in df.iterrows():
+        sub = frame[frame["province"] == row["province"]]
+        x, w = sub["income"].to_numpy(float), sub["w"].to_numpy(float)
+        for col, exact in (("g", R.gini(x, w)), ("t", R.top_share(x, 0.1)), ("th", R.theil(x, w))):
+            assert row[f"{col}_lo"] <= exact <= row[f"{col}_hi"], (row["province"], col)
+            assert row[f"{col}_lo"] <= row[col] <= row[f"{col}_hi"]
+
+
+def test_bounded_df_gives_intervals_around_the_reference(frame):
+    df = _built(ineqsql.from_(frame)).df(method="bounded")
+    assert list(df.columns) == ["province", "g", "g_lo", "g_hi", "t", "t_lo", "t_hi", "th", "th_lo", "th_hi"]
+    assert sorted(df["province"]) == ["Arvel", "Brisk", "Coldra"]
+    _inside_reference(df, frame)
+    assert df.attrs["ineqsql"]["method"] == "bounded" and df.attrs["ineqsql"]["resolution"] == 0.01
+
+
+def test_bounded_method_with_tolerance_reaches_it(frame):
+    q = _built(ineqsql.from_(frame)).method("bounded", tolerance=1e-6)
+    df = q.df()
+    _inside_reference(df, frame)
+    assert (df["g_hi"] - df["g_lo"]).max() <= 1e-6 and df.attrs["ineqsql"]["tolerance"] == 1e-6
+    table = q.arrow()
+    assert table.column_names == list(df.columns)
+    assert q.df(method="exact").columns.tolist() == ["province", "g", "t", "th"]  # a run's own option wins
+    assert "iq_bin" in q.sql() and "_iq_ord" not in q.sql()  # bins, no sorted pass
+    assert "iq_bin" in _built(ineqsql.from_(frame)).sql("postgres", method="bounded", resolution=0.1)
+
+
+def test_bounded_builder_errors(frame):
+    q = _built(ineqsql.from_(frame))
+    with pytest.raises(ineqsql.MeasureUsageError, match="method must be"):
+        q.method("approximate")
+    with pytest.raises(ineqsql.IneqsqlError, match="bounded' only"):
+        q.df(tolerance=1e-3)
+    with pytest.raises(ineqsql.IneqsqlError, match="resolution must"):
+        q.method("bounded", resolution=5)

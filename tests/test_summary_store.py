@@ -96,3 +96,14 @@ def test_summary_errors(sales, tmp_path):
         ineqsql.from_summary(str(a), ["hhi"])
     with pytest.raises(ineqsql.IneqsqlError, match="not an ineqsql summary"):
         ineqsql.from_summary("sales", ["gini"])
+
+
+def test_summarize_for_another_dialect_returns_its_sql():
+    sql = ineqsql.summarize("t", "x", "w", by=["g"], dialect="postgres")
+    assert isinstance(sql, str) and '"iq_bin"' in sql and "GROUP BY" in sql
+    # PostgreSQL has no error(): the negative-weight stop is a failing cast there (dialects/postgres.py)
+    assert "ERROR(" not in sql.upper() and "ineqsql: negative weight" in sql
+    with pytest.raises(ineqsql.IneqsqlError, match="dialect"):
+        ineqsql.summarize("t", "x", dialect="postgres", parquet="s.parquet")
+    with pytest.raises(ineqsql.IneqsqlError, match="not supported"):
+        ineqsql.summarize("t", "x", dialect="oracle")

@@ -19,6 +19,8 @@ from ineqsql.bounds.measures import BOUNDED, BinContext, Interval, widen
 from ineqsql.compiler import sqlx as s
 from ineqsql.compiler.passes.source import cte, grouped, table
 
+RUNNING = ("iq_w", "iq_wx", "iq_min", "iq_max")  # the bin columns running_sums itself reads (bins.W, WX, MIN, MAX)
+
 
 def _window(fn, keys, frame_end: str | None):
     """fn OVER (PARTITION BY keys ORDER BY min, max ROWS BETWEEN UNBOUNDED PRECEDING AND <end>)."""
@@ -56,16 +58,21 @@ def running_sums(source: str, keys: list[exp.Column], columns: list[str], name: 
     return cte(exp.Select(expressions=cols).from_(table(source)), name)
 
 
+def _named(e: exp.Expression, name: str) -> exp.Alias:
+    """``e AS "name"`` without copying ``e`` (the interval trees are fresh and large: copying them
+    was most of the compile time)."""
+    return exp.Alias(this=e, alias=exp.to_identifier(name, quoted=True))
+
+
 def lower_bounds(source: str, keys: list[exp.Column], columns: list[str], calls: list[tuple], name: str,
                  merge: bool) -> tuple[list[exp.CTE], dict, dict]:
     """CTEs computing intervals for ``calls`` = [(key, measure name, params)] from the bins table
     ``source`` (key columns ``keys``, bin columns ``columns``). Returns (ctes, {key: (point, lo, hi)
-    column names in ``name``}, {key: exact flag})."""
+    column names in ``name``}, {key: exact flag}, the bin columns the measures read)."""
     ctes = []
     if merge:
         ctes += join_overlaps(source, keys, columns, f"{name}_mrg")
         source = f"{name}_mrg"
-    ctes.append(running_sums(source, keys, columns, f"{name}_cum"))
     powers = {b.power_of_column(c) for c in columns if b.power_of_column(c) is not None}
     ctx = BinContext(powers)
     out, final, results, exact = [], [], {}, {}
@@ -75,13 +82,18 @@ def lower_bounds(source: str, keys: list[exp.Column], columns: list[str], calls:
         iv = BOUNDED[measure](ctx, tuple(params))
         i = len(results) + 1
         names = (f"_iq_r{i}", f"_iq_r{i}_lo", f"_iq_r{i}_hi")
-        out += [s.alias(e, n) for e, n in zip((iv.point, iv.lo, iv.hi), names)]
+        out += [_named(e, n) for e, n in zip((iv.point, iv.lo, iv.hi), names)]
         wide = widen(Interval(*(s.col(n) for n in names)))
-        final += [s.alias(e, n) for e, n in zip((wide.point, wide.lo, wide.hi), names)]
+        final += [_named(e, n) for e, n in zip((wide.point, wide.lo, wide.hi), names)]
         results[key], exact[key] = names, iv.exact
-    aggregates = [s.alias(e, n) for n, e in ctx.aggregates.values()]
+    aggregates = [_named(e.copy(), n) for n, e in ctx.aggregates.values()]
+    # the measures read bins only through these aggregates: bin columns none of them reads are left
+    # out of the window (and, in the summary pass, of the bins GROUP BY: less state per (group, bin))
+    read = {c.name for _, e in ctx.aggregates.values() for c in e.find_all(exp.Column)}
+    columns = [c for c in columns if c in RUNNING or c in read]
+    ctes.append(running_sums(source, keys, columns, f"{name}_cum"))
     ctes.append(cte(grouped(keys, aggregates, f"{name}_cum"), f"{name}_agg"))
     ctes.append(cte(exp.Select(expressions=[k.copy() for k in keys] + out).from_(table(f"{name}_agg")),
                     f"{name}_raw"))
     ctes.append(cte(exp.Select(expressions=[k.copy() for k in keys] + final).from_(table(f"{name}_raw")), name))
-    return ctes, results, exact
+    return ctes, results, exact, columns

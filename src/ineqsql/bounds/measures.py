@@ -41,15 +41,16 @@ class BinContext:
 
     def __init__(self, powers: set[float] = frozenset()):
         self.powers = set(powers)  # exponents whose Σw·x^a the bins store
-        self.aggregates: dict[str, tuple[str, exp.Expression]] = {}  # sql → (column, aggregate)
+        # aggregate tree → (column, aggregate); sqlglot trees hash and compare by structure, which is
+        # much cheaper than generating SQL text as the key
+        self.aggregates: dict[exp.Expression, tuple[str, exp.Expression]] = {}
 
     def agg(self, expr: exp.Expression) -> exp.Column:
         """Register an aggregate over the bins (computed once per group in the aggregate CTE) and
         return its column: measures combine columns, so shared parts are not repeated."""
-        key = expr.sql("duckdb")
-        if key not in self.aggregates:
-            self.aggregates[key] = (f"_iq_a{len(self.aggregates) + 1}", expr)
-        return s.col(self.aggregates[key][0])
+        if expr not in self.aggregates:
+            self.aggregates[expr] = (f"_iq_a{len(self.aggregates) + 1}", expr)
+        return s.col(self.aggregates[expr][0])
 
     # row level (one row per bin)
     a = property(lambda self: s.col(b.MIN))

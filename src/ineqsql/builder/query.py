@@ -16,8 +16,10 @@ import sqlglot
 from sqlglot import exp
 
 from ineqsql import catalog
+from ineqsql.bounds.run import pick_resolution, run_bounded
 from ineqsql.builder.measures import MeasureCall, column
 from ineqsql.compiler import compile_sql
+from ineqsql.compiler.bounded import check_method
 from ineqsql.engine.runner import connect, translate_error
 from ineqsql.errors import IneqsqlError, MeasureArgumentError, SqlParseError
 
@@ -38,6 +40,14 @@ class Query:
     conditions: tuple[exp.Expression, ...] = ()
     keys: tuple[exp.Expression, ...] = ()
     outputs: tuple[tuple[str, exp.Expression], ...] = field(default=())
+    how: tuple = ("exact", None, None)  # (method, tolerance, resolution), set by .method()
+
+    def method(self, name: str = "bounded", *, tolerance: float | None = None,
+               resolution: float | None = None) -> Query:
+        """How the measures are computed: ``"exact"`` (default) or ``"bounded"`` (each measure output
+        gets ``<name>_lo`` and ``<name>_hi``, a certified interval from one pass into log-spaced bins;
+        ``tolerance`` or ``resolution`` picks the bins, as in ``ineqsql.query``; docs/bounded.md)."""
+        return replace(self, how=_how(name, tolerance, resolution))
 
     def filter(self, *conditions) -> Query:
         """Keep rows meeting every condition: SQL text (parsed, as the user's own SQL) or sqlglot expressions."""
@@ -87,9 +97,19 @@ class Query:
             select = select.order_by(*[exp.Ordered(this=k.copy(), nulls_first=False) for k in self.keys])
         return select
 
-    def sql(self, dialect: str = "duckdb", *, pretty: bool = True) -> str:
-        """The compiled SQL (no measure calls left) for ``dialect``."""
-        return compile_sql(self.tree().sql("duckdb"), dialect=dialect, pretty=pretty)
+    def _how(self, method, tolerance, resolution) -> tuple:
+        """The method options of one run: the arguments given to it, else those of .method()."""
+        if method is None and tolerance is None and resolution is None:
+            return self.how
+        return _how(method if method is not None else self.how[0], tolerance, resolution)
+
+    def sql(self, dialect: str = "duckdb", *, pretty: bool = True, method: str | None = None,
+            tolerance: float | None = None, resolution: float | None = None) -> str:
+        """The compiled SQL (no measure calls left) for ``dialect``; ``method``, ``tolerance`` and
+        ``resolution`` as in ``.method()``."""
+        name, tol, res = self._how(method, tolerance, resolution)
+        return compile_sql(self.tree().sql("duckdb"), dialect=dialect, pretty=pretty, method=name,
+                           resolution=pick_resolution(name, tol, res))
 
     def _check_types(self, types: dict[str, str]) -> None:
         """A measure's value or weight column that holds text: an error naming function and argument."""
@@ -106,8 +126,9 @@ class Query:
                         raise MeasureArgumentError(f"{spec.name}(): the {what} column {arg.name!r} holds {kind}; "
                                                    "it must be numeric", function=spec.name)
 
-    def _run(self):
-        compiled = compile_sql(self.tree().sql("duckdb"), dialect="duckdb", pretty=False)
+    def _run(self, method: str = "exact", resolution: float | None = None):
+        compiled = compile_sql(self.tree().sql("duckdb"), dialect="duckdb", pretty=False, method=method,
+                               resolution=resolution)
         con = connect(self.con)
         try:
             if isinstance(self.frame, duckdb.DuckDBPyRelation):
@@ -121,19 +142,30 @@ class Query:
         except duckdb.Error as e:
             raise translate_error(e) from None
 
-    def df(self) -> pd.DataFrame:
+    def df(self, *, method: str | None = None, tolerance: float | None = None,
+           resolution: float | None = None) -> pd.DataFrame:
+        """Run on DuckDB. ``method="bounded"`` (or an earlier ``.method("bounded")``): intervals, as
+        ``ineqsql.query`` gives them, with the resolution and widths in ``attrs["ineqsql"]`` and one
+        run with finer bins when a share-scale interval is wider than ``tolerance``."""
+        name, tol, res = self._how(method, tolerance, resolution)
         try:
-            res = self._run()
-            return res.df()
+            if name == "exact":
+                return self._run().df()
+            return run_bounded(lambda r: self._run(name, r).df(), pick_resolution(name, tol, res), tol,
+                               self.tree().sql("duckdb"))
         except duckdb.Error as e:
             raise translate_error(e) from None
         finally:
             self._cleanup()
 
-    def arrow(self):
+    def arrow(self, *, method: str | None = None, tolerance: float | None = None, resolution: float | None = None):
+        """As ``df()``, as an Arrow table."""
+        name, tol, res = self._how(method, tolerance, resolution)
+        if name == "bounded" and tol is not None:  # the refinement reads the widths from a DataFrame
+            import pyarrow as pa
+            return pa.Table.from_pandas(self.df(method=name, tolerance=tol), preserve_index=False)
         try:
-            res = self._run()
-            return res.to_arrow_table()
+            return self._run(name, pick_resolution(name, tol, res)).to_arrow_table()
         except duckdb.Error as e:
             raise translate_error(e) from None
         finally:
@@ -145,6 +177,12 @@ class Query:
                 self.con.unregister(SOURCE)
             except duckdb.Error:
                 pass
+
+
+def _how(method, tolerance, resolution) -> tuple:
+    name = check_method(method)
+    pick_resolution(name, tolerance, resolution)  # checks the options now, not when the query runs
+    return (name, tolerance, resolution)
 
 
 def _is_path(text: str) -> bool:

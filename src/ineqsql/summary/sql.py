@@ -58,7 +58,7 @@ def measures_select(source: exp.Expression, keys: list[str], columns: list[str],
     rolled = exp.Select(expressions=[k.copy() for k in key_cols] + b.merged_aggregates(sums)).from_(source.copy())
     rolled.set("group", exp.Group(expressions=[k.copy() for k in key_cols] + [s.col(b.SIGN), s.col(b.BIN)]))
     ctes = [cte(rolled, "_iq_sm_bins")]
-    more, names, _ = lower_bounds("_iq_sm_bins", key_cols, sums, [(c[0], c[1], c[2]) for c in calls],
+    more, names, _, _ = lower_bounds("_iq_sm_bins", key_cols, sums, [(c[0], c[1], c[2]) for c in calls],
                                   "_iq_sm", merge=True)
     ctes += more
     final = exp.Select(expressions=[k.copy() for k in key_cols]).from_(table("_iq_sm"))

@@ -119,7 +119,7 @@ def _powers(powers) -> list[float]:
 def summarize(source, value: str, weight: str | None = None, *, by=(), where: str | None = None,
               resolution: float | None = None, tolerance: float | None = None, powers=(),
               parquet: str | Path | None = None, table: str | None = None, replace: bool = False,
-              con: duckdb.DuckDBPyConnection | None = None) -> pd.DataFrame | None:
+              con: duckdb.DuckDBPyConnection | None = None, dialect: str | None = None) -> pd.DataFrame | str | None:
     """One GROUP BY pass over ``source`` into a binned summary of ``value`` (and ``weight``) per ``by``.
 
     ``source``: a table name, a Parquet path or glob, a query, or a list of those (read together);
@@ -127,12 +127,20 @@ def summarize(source, value: str, weight: str | None = None, *, by=(), where: st
     ``powers``: exponents a whose Σw·x^a is stored, so GE(a) and Atkinson(1 − a) are exact later
     (others are bounded). Writes ``parquet`` (a file) or ``table`` (in ``con``), else returns a
     DataFrame. ``resolution`` (default 0.01) or ``tolerance`` picks the bins, as in ``query``.
+    With ``dialect`` (e.g. "postgres", "spark", "sqlite"), returns the summary's SELECT for that
+    engine instead (``source`` then names a table or query there); its result, stored as a table or
+    Parquet, merges with summaries made anywhere else at the same resolution.
     """
     res = pick_resolution("bounded", tolerance, resolution)
     x = _parse(value, "value")
     w = _parse(weight, "weight") if weight is not None else None
     cond = _parse(where, "condition") if where is not None else None
     select = summary_select(_source(source), x, w, _keys(by), res, _powers(powers), cond)
+    if dialect is not None:
+        if parquet is not None or table is not None:
+            raise IneqsqlError("with dialect, summarize returns SQL to run on that engine: parquet and table "
+                               "do not apply")
+        return generate(select, dialect)
     connection = connect(con)
     registered = register_caller_frames(connection, generate(select, "duckdb"), inspect.currentframe().f_back)
     try:

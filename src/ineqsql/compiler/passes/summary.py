@@ -39,12 +39,12 @@ def lower_summary_pass(source: Source, main, plan, name: str, resolution: float 
     powers = sorted({a for call in plan.calls for a in powers_needed(call.measure.name, call.params)})
     wcol = s.col("_iq_w") if w is not None else s.lit(1.0)
     aggs = b.bin_aggregates(s.col("_iq_x"), wcol, powers)
+    calls = [(call.key, call.measure.name, call.params) for call in plan.calls]
+    more, names, exact, read = lower_bounds(f"{name}_bins", keys, [a.alias for a in aggs], calls, name,
+                                            merge=False)
+    aggs = [a for a in aggs if a.alias in read]  # only what the calls read (e.g. Gini: no Σw·x², Σw·ln x)
     bins = exp.Select(expressions=[k.copy() for k in keys] + aggs).from_(table(f"{name}_rows"))
     bins.set("group", exp.Group(expressions=[k.copy() for k in keys] + [s.col(b.SIGN), s.col(b.BIN)]))
-    columns = [a.alias for a in aggs]
-
-    calls = [(call.key, call.measure.name, call.params) for call in plan.calls]
-    more, names, exact = lower_bounds(f"{name}_bins", keys, columns, calls, name, merge=False)
     results = {}
     for key, (point, lo, hi) in names.items():
         results[key] = s.col(point, name)
