@@ -123,7 +123,8 @@ def lower_bootstrap_pass(source: Source, main, plan, name: str) -> tuple[list[ex
                      + window_columns(ctx, part_keys)).from_(table(f"{name}_kept"), copy=False)
     ctes.append(cte(win, f"{name}_win"))
     # one row per (group, replicate): every call's estimate
-    est_cols = [rr.copy()] + [s.alias(theta, f"_iq_v{i}") for i, (_, theta) in enumerate(built, start=1)]
+    # (grouped() projects the keys, the replicate number among them, before these)
+    est_cols = [s.alias(theta, f"_iq_v{i}") for i, (_, theta) in enumerate(built, start=1)]
     ctes.append(cte(grouped(part_keys, est_cols, f"{name}_win"), f"{name}_boot"))
 
     # the full-sample estimate beside every replicate's (a window over the small table)
