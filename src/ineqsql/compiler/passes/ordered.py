@@ -3,8 +3,9 @@
 rows CTE:   keys, x, w                     (NULL x or weight, and zero weights, dropped)
 ties CTE:   keys, x, w = Σ w (or the row count), n = row count   GROUP BY keys, x
             (only in the "ties" variant the planner picks when values repeat: see plan.py)
-window CTE: … , C (running weight), m (group minimum), W (group weight)
-            (only the columns the measures use; C and m share one window specification)
+window CTE: … , C (running weight), m (group minimum), W (group weight), μ (group mean)
+            (only the columns the measures use; C and m share one window specification, W and μ
+            are partition totals)
 result CTE: keys, one aggregate per measure call
 grid CTEs:  Lorenz points on a grid (lorenz_curve), from the window rows (see grid.py)
 """
@@ -62,6 +63,29 @@ class OrderedContext:
         return s.col("_iq_wt")
 
     @property
+    def mu(self):
+        """The group mean T/W on every row (partition totals): lets centred measures (cv, hoover)
+        ride on this pass instead of a second scan joined to the group means (plan.fuse_centred)."""
+        self.used.add("mu")
+        return s.col("_iq_mu")
+
+    row_mean = True  # r = x/μ at row level: the log and power measures take their cancellation-free form
+
+    @property
+    def r(self):
+        """x/μ on every row. Where the group's T ≤ 0 the measures are NULL by their domain test,
+        whatever this gives (engines that raise on x/0 get NULLIF from their dialect rules)."""
+        return s.div(s.col("_iq_x"), self.mu)
+
+    def sum(self, term: exp.Expression) -> exp.Expression:
+        """Σ term over the group's rows (they are all valid here), for centred measures."""
+        return s.agg_sum(term)
+
+    @property
+    def min_x(self):
+        return s.agg_min(s.col("_iq_x"))
+
+    @property
     def W(self):
         return s.agg_sum(s.col("_iq_w")) if self.weighted else s.cast_double(s.agg_count_star())
 
@@ -98,6 +122,12 @@ def _window_columns(ctx: OrderedContext, keys: list[exp.Expression],
         total = (s.window(s.agg_sum(w.copy()), part()) if ctx.weighted
                  else s.cast_double(s.window(s.agg_count_star(), part())))
         cols.append(s.alias(total, "_iq_wt"))
+    if "mu" in ctx.used:
+        # Σ w·x / Σ w over the partition; only planned with group keys (plan.fuse_centred)
+        wx = s.mul(w.copy(), x.copy()) if ctx.weighted else x.copy()
+        total = (s.window(s.agg_sum(w.copy()), part()) if ctx.weighted
+                 else s.cast_double(s.window(s.agg_count_star(), part())))
+        cols.append(s.alias(s.div(s.window(s.agg_sum(wx), part()), total), "_iq_mu"))
     return cols
 
 
