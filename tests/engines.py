@@ -24,12 +24,18 @@ import pytest
 import ineqsql
 
 
+def quoted(name) -> str:
+    """A double-quoted SQL identifier (embedded quotes doubled): any column or table name works."""
+    return '"' + str(name).replace('"', '""') + '"'
+
+
 class EngineError(Exception):
     """A query failed on the engine; ``str`` is the engine's message."""
 
 
 class DuckDBEngine:
     name = "duckdb"
+    label = "DuckDB"  # the engine's name in error messages
     dialect = "duckdb"
 
     def __init__(self):
@@ -37,7 +43,7 @@ class DuckDBEngine:
 
     def load(self, df: pd.DataFrame, table: str = "t") -> None:
         self.con.register("_iq_test_df", df)
-        self.con.execute(f'CREATE OR REPLACE TABLE "{table}" AS SELECT * FROM _iq_test_df')
+        self.con.execute(f"CREATE OR REPLACE TABLE {quoted(table)} AS SELECT * FROM _iq_test_df")
         self.con.unregister("_iq_test_df")
 
     def execute(self, compiled: str) -> pd.DataFrame:
@@ -71,6 +77,7 @@ def _plain(value):
 
 class PostgresEngine(DuckDBEngine):
     name = "postgres"
+    label = "PostgreSQL"
     dialect = "postgres"
     server = None
 
@@ -84,14 +91,18 @@ class PostgresEngine(DuckDBEngine):
         self.con = psycopg.connect(PostgresEngine.server.dsn, autocommit=True)
 
     def load(self, df: pd.DataFrame, table: str = "t") -> None:
-        cols = ", ".join(f'"{c}" {_pg_type(df[c].dtype)}' for c in df.columns)
+        # identifiers composed by psycopg (any column name: quotes, spaces, reserved words)
+        sql = self.psycopg.sql
+        name = sql.Identifier(table)
+        cols = sql.SQL(", ").join(sql.SQL("{} {}").format(sql.Identifier(str(c)), sql.SQL(_pg_type(df[c].dtype)))
+                                  for c in df.columns)
         with self.con.cursor() as cur:
-            cur.execute(f'DROP TABLE IF EXISTS "{table}"')
-            cur.execute(f'CREATE TABLE "{table}" ({cols})')
-            with cur.copy(f'COPY "{table}" FROM STDIN') as copy:
+            cur.execute(sql.SQL("DROP TABLE IF EXISTS {}").format(name))
+            cur.execute(sql.SQL("CREATE TABLE {} ({})").format(name, cols))
+            with cur.copy(sql.SQL("COPY {} FROM STDIN").format(name)) as copy:
                 for row in df.itertuples(index=False):
                     copy.write_row([_plain(v) for v in row])
-            cur.execute(f'ANALYZE "{table}"')
+            cur.execute(sql.SQL("ANALYZE {}").format(name))
 
     def execute(self, compiled: str) -> pd.DataFrame:
         try:
@@ -119,6 +130,7 @@ def _to_python(value):
 
 class SparkEngine(DuckDBEngine):
     name = "spark"
+    label = "Spark"
     dialect = "spark"
     session = None
     folder: Path | None = None
@@ -175,6 +187,7 @@ _SQLITE_TYPES = {"f": "REAL", "i": "INTEGER", "u": "INTEGER", "b": "INTEGER"}
 
 class SQLiteEngine(DuckDBEngine):
     name = "sqlite"
+    label = "SQLite"
     dialect = "sqlite"
 
     def __init__(self):
@@ -184,11 +197,11 @@ class SQLiteEngine(DuckDBEngine):
         ineqsql.install_sqlite_functions(self.con)
 
     def load(self, df: pd.DataFrame, table: str = "t") -> None:
-        cols = ", ".join(f'"{c}" {_SQLITE_TYPES.get(df[c].dtype.kind, "TEXT")}' for c in df.columns)
-        self.con.execute(f'DROP TABLE IF EXISTS "{table}"')
-        self.con.execute(f'CREATE TABLE "{table}" ({cols})')
+        cols = ", ".join(f'{quoted(c)} {_SQLITE_TYPES.get(df[c].dtype.kind, "TEXT")}' for c in df.columns)
+        self.con.execute(f"DROP TABLE IF EXISTS {quoted(table)}")
+        self.con.execute(f"CREATE TABLE {quoted(table)} ({cols})")
         marks = ", ".join("?" for _ in df.columns)
-        self.con.executemany(f'INSERT INTO "{table}" VALUES ({marks})',
+        self.con.executemany(f"INSERT INTO {quoted(table)} VALUES ({marks})",
                              [[_plain(v) for v in row] for row in df.itertuples(index=False)])
 
     def execute(self, compiled: str) -> pd.DataFrame:

@@ -38,11 +38,17 @@ def _positive(ctx):
 # expm1/log1p), so nothing cancels there either.
 
 def _series(y, coefficients):
-    """y·(c0 + y·(c1 + y·(c2 + …))) (Horner)."""
-    acc = s.lit(coefficients[-1])
-    for c in reversed(coefficients[:-1]):
-        acc = s.add(s.lit(c), s.mul(y.copy(), acc))
-    return s.mul(y.copy(), acc)
+    """c0·y + c1·y² + c2·y³ + … as a flat sum of powers, smallest term first (for |y| < 1e-3 each
+    term is a few ulps and the sum rounds once per term). Flat rather than Horner's nested
+    y·(c0 + y·(c1 + …)): a left-deep sum without parentheses keeps the SQL nesting shallow (SQLite's
+    parser refuses expressions nested about 100 deep), and POWER with a whole exponent is exact to
+    an ulp on every engine."""
+    terms = [s.mul(s.lit(c), y.copy() if k == 0 else s.power(y.copy(), s.lit(float(k + 1))))
+             for k, c in enumerate(coefficients)]
+    acc = terms[-1]
+    for term in reversed(terms[:-1]):
+        acc = exp.Add(this=acc, expression=term)  # left-deep: a + b + c, no parentheses
+    return acc
 
 
 def expm1(y):

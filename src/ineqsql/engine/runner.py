@@ -52,8 +52,17 @@ def execute_df(con: duckdb.DuckDBPyConnection, sql: str) -> pd.DataFrame:
         raise translate_error(e) from None
 
 
-def translate_error(e: Exception) -> Exception:
-    text = str(e)
+# a check message inside an echo of the query: a SQL string literal, or Spark's plan of raise_error
+_ECHOED = re.compile(r"(?:'|map\(errorMessage, )ineqsql: ")
+
+
+def translate_error(e: Exception, engine: str = "DuckDB") -> Exception:
+    """An engine's error as an ``IneqsqlError``: the messages of the compiled SQL's own checks (error()
+    calls, the same text on every engine) become InputDataError / UndefinedResultError; anything else
+    is an ExecutionError naming ``engine`` (the runner is DuckDB; other engines' callers name theirs).
+    A check message is read where the engine raised it, not where it echoes the query (Spark prints
+    the analysed plan, string literals included, after an unrelated error such as a missing table)."""
+    text = _ECHOED.sub("", str(e))
     m = re.search(r"ineqsql: (negative weight in .*?)(?:\n|$)", text)
     if m:
         return InputDataError(f"{m.group(1).rstrip()} (weights must be ≥ 0; rows with weight 0 change nothing and are skipped)")
@@ -65,8 +74,12 @@ def translate_error(e: Exception) -> Exception:
     if m:
         return UndefinedResultError(f"{m.group(1).rstrip()} (strict mode: an empty group, a total ≤ 0 or "
                                     "values outside the measure's domain; see `ineqsql measures`)")
-    if "Out of Memory" in text:
+    if "value out of range: overflow" in text:  # PostgreSQL: double arithmetic past ±1.8e308 raises
+        return ExecutionError(f"{engine} could not run the query: {_first_line(e)} (a sum or product of the "
+                              "values exceeds the double range, about 1.8e308; this engine raises where others "
+                              "give infinity, which ineqsql turns into NULL: rescale the values, e.g. x / 1e6)")
+    if "Out of Memory" in text and engine == "DuckDB":
         return ExecutionError(f"DuckDB could not run the query: {_first_line(e)} (raise the memory limit, "
                               "e.g. --memory-limit 1GB; sorts and windows spill to the temp directory, but "
                               "one very large group needs room for its window)")
-    return ExecutionError(f"DuckDB could not run the query: {_first_line(e)}")
+    return ExecutionError(f"{engine} could not run the query: {_first_line(e)}")

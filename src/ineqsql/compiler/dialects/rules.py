@@ -218,6 +218,27 @@ def guard_math_domain(tree: exp.Expression, dialect: str) -> exp.Expression:
     return replace_all(tree, (exp.Ln, exp.Log, exp.Sqrt, exp.Pow), fn)
 
 
+def _unparen(e):
+    while isinstance(e, exp.Paren):
+        e = e.this
+    return e
+
+
+def infinity_by_magnitude(tree: exp.Expression, dialect: str) -> exp.Expression:
+    """The row check ``x·0 <> 0`` (NaN or ±inf, passes/source.py ``not_finite``) → ``ABS(x) >
+    1.7976931348623157e308`` (above the largest double: ±inf only). SQLite turns NaN into NULL, so
+    inf·0 is NULL there and the product test never fires; it has no NaN to find (a NaN stored or
+    computed is NULL, skipped like one)."""
+    def fn(node):
+        product = _unparen(node.this)
+        if (isinstance(product, exp.Mul) and _number(_unparen(product.expression)) == 0.0
+                and _number(_unparen(node.expression)) == 0.0):
+            return s.gt(exp.Abs(this=product.this.copy()), exp.Literal.number("1.7976931348623157e308"))
+        return node
+
+    return replace_all(tree, exp.NEQ, fn)
+
+
 def null_on_division_by_zero(tree: exp.Expression, dialect: str) -> exp.Expression:
     """``a / b`` → ``a / NULLIF(b, 0)``: engines that raise on division by zero (PostgreSQL, Spark
     in ANSI mode) give NULL instead, the undefined result every engine agrees on."""

@@ -6,6 +6,8 @@
   "no such function: ineqsql_raise", never with a wrong number.
 - No arrays or structs: list results (lorenz_curve) are JSON text (json_array of json_object).
 - Members of a UNION cannot be parenthesised: their CTEs move to one WITH clause in front.
+- No NaN (a NaN stored or computed is NULL, so inf·0 is NULL): the row check x·0 <> 0 becomes
+  ABS(x) > 1.7976931348623157e308, true for ±inf only.
 - GROUP BY ALL is expanded; exact quantile and arg-min aggregates have no SQLite form: refused.
 """
 
@@ -27,6 +29,7 @@ DIALECT = Dialect(
         r.values_columns_by_position,
         r.expand_group_by_all,
         r.hoist_ctes_from_set_operations,
+        r.infinity_by_magnitude,
         r.raise_with(RAISE_FUNCTION),
         r.structs_as_json("json_object", "json_array", every_array=True),
     ),
