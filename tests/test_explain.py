@@ -33,7 +33,7 @@ def test_passes_name_kind_inputs_measures_and_ctes(con):
     found = ineqsql.explain(SQL, con)
     got = [(p["kind"], p["value"], p["weight"], p["entity"], p["filter"], p["measures"]) for p in found.passes]
     assert got == [("ordered", "x", "w", None, None, ["gini(x, w)", "palma(x, w)"]),
-                   ("moment", "x", None, None, None, ["theil(x)"]),
+                   ("centred", "x", None, None, None, ["theil(x)"]),
                    ("entity", "x", None, "e", None, ["hhi(x, e)"]),
                    ("ordered", "x", None, None, "w > 1", ["gini(x)"])]
     assert found.passes[0]["ctes"] == ["_iq_ord_1_rows", "_iq_ord_1_win", "_iq_ord_1"]
