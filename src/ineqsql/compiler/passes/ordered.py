@@ -15,12 +15,13 @@ from __future__ import annotations
 from sqlglot import exp
 
 from ineqsql.compiler import sqlx as s
+from ineqsql.compiler.passes.columns import SortedColumns
 from ineqsql.compiler.passes.grid import grid_table, lower_lorenz_grid
 from ineqsql.compiler.passes.source import (Source, build_results, checked_value, checked_weight, cte,
                                              finite_or_null, grouped, key_name, table, weight_label)
 
 
-class OrderedContext:
+class OrderedContext(SortedColumns):
     """Columns of the window CTE that measure builders write against (see catalog/ordered.py)."""
 
     def __init__(self, weighted: bool, name: str = "_iq_ord", ties: bool = False):
@@ -38,29 +39,6 @@ class OrderedContext:
         if k not in self.grids:
             self.grids.append(k)
         return s.col("_iq_curve", grid_table(self.name, k))
-
-    @property
-    def x(self):
-        return s.col("_iq_x")
-
-    @property
-    def w(self):
-        return s.col("_iq_w") if self.weighted else s.lit(1.0)
-
-    @property
-    def c(self):
-        self.used.add("c")
-        return s.col("_iq_c")
-
-    @property
-    def min_row(self):
-        self.used.add("min")
-        return s.col("_iq_m")
-
-    @property
-    def W_row(self):
-        self.used.add("wt")
-        return s.col("_iq_wt")
 
     @property
     def mu(self):

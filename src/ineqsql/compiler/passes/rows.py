@@ -17,49 +17,25 @@ from __future__ import annotations
 from sqlglot import exp
 
 from ineqsql.compiler import sqlx as s
+from ineqsql.compiler.passes.columns import SortedColumns
 from ineqsql.compiler.passes.source import Source, checked_weight, cte, table, weight_label
 from ineqsql.errors import MeasureUsageError
 
 
-class RowContext:
+class RowContext(SortedColumns):
     """Row-level columns of the window CTE and aggregates over them."""
-
 
     def __init__(self, weighted: bool, name: str):
         self.weighted = weighted
         self.name = name
         self.used: set[str] = set()
 
-    # row level -----------------------------------------------------------------------------
-    @property
-    def x(self):
-        return s.col("_iq_x")
-
-    @property
-    def w(self):
-        return s.col("_iq_w") if self.weighted else s.lit(1.0)
-
-    @property
-    def c(self):
-        """C_i: the running weight up to and including row i (rows sorted by x)."""
-        self.used.add("c")
-        return s.col("_iq_c")
-
+    # row level (x, w, c, min_row, W_row: columns.SortedColumns) --------------------------------
     @property
     def s(self):
         """S_i: the running Σ w·x up to and including row i."""
         self.used.add("s")
         return s.col("_iq_s")
-
-    @property
-    def min_row(self):
-        self.used.add("min")
-        return s.col("_iq_m")
-
-    @property
-    def W_row(self):
-        self.used.add("wt")
-        return s.col("_iq_wt")
 
     @property
     def n_row(self):

@@ -11,24 +11,17 @@ from __future__ import annotations
 from sqlglot import exp
 
 from ineqsql.compiler import sqlx as s
+from ineqsql.compiler.passes.columns import RowColumns
 from ineqsql.compiler.passes.source import Source, build_results, checked_weight, cte, grouped, weight_label
 
 
-class SubgroupContext:
+class SubgroupContext(RowColumns):
     """Row-level ``x``, ``w``; subgroup-level ``Wg``, ``Tg`` and ``sub_sum(term)``; group-level
     ``W``, ``T``, ``min_x`` (aggregates over the subgroup rows)."""
 
     def __init__(self, weighted: bool):
         self.weighted = weighted
         self.sums: dict[str, tuple[str, exp.Expression]] = {}
-
-    @property
-    def x(self):
-        return s.col("_iq_x")
-
-    @property
-    def w(self):
-        return s.col("_iq_w") if self.weighted else s.lit(1.0)
 
     def sub_sum(self, term: exp.Expression) -> exp.Column:
         """Σ term over the rows of a subgroup: a column of the subgroup rows."""
