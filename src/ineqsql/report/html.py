@@ -23,10 +23,17 @@ p.meta { color: #555; margin: 2px 0; }
 table.measures { border-collapse: collapse; font-variant-numeric: tabular-nums; }
 table.measures th { background: TABLE_HEAD; text-align: right; padding: 5px 9px; border-bottom: 2px solid #9ab; }
 table.measures th.group, table.measures td.group { text-align: left; white-space: nowrap; }
-table.measures td { text-align: right; padding: 4px 9px; border-bottom: 1px solid #e4e4ea; }
+table.measures td { text-align: right; padding: 4px 9px; border-bottom: 1px solid #e4e4ea; white-space: nowrap; }
 table.measures tr.overall td { font-weight: 600; border-top: 2px solid #9ab; }
 .notes { color: #555; font-size: 13px; }
+table.measures .ci { color: #666; font-size: 80%; }
 """.replace("TABLE_HEAD", TABLE_HEAD)
+
+
+def _cell(column, values) -> str:
+    """A value, with its interval (if any) on a second, smaller line so the table stays narrow."""
+    value, sep, interval = format_value(column, values).partition(" [")
+    return f"<td>{escape(value)}" + (f'<br><span class="ci">[{escape(interval)}</span>' if sep else "") + "</td>"
 
 
 def _table(data: ReportData) -> str:
@@ -34,10 +41,10 @@ def _table(data: ReportData) -> str:
     head = "".join(f"<th>{escape(c.label)}</th>" for c in data.columns)
     rows = [f'<tr><th>rank</th><th class="group">{escape(group_head)}</th>{head}</tr>']
     for g in data.groups:
-        cells = "".join(f"<td>{escape(format_value(c, g.values))}</td>" for c in data.columns)
+        cells = "".join(_cell(c, g.values) for c in data.columns)
         rows.append(f'<tr><td>{g.rank if g.rank else "—"}</td><td class="group">{escape(g.label)}</td>{cells}</tr>')
     if data.overall is not None:
-        cells = "".join(f"<td>{escape(format_value(c, data.overall.values))}</td>" for c in data.columns)
+        cells = "".join(_cell(c, data.overall.values) for c in data.columns)
         rows.append(f'<tr class="overall"><td></td><td class="group">{escape(data.overall.label)}</td>{cells}</tr>')
     return '<table class="measures">\n' + "\n".join(rows) + "\n</table>"
 
