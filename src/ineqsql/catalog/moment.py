@@ -74,8 +74,42 @@ def _mld_term(r):
     return s.case(s.gt(r, ZERO), s.sub(s.sub(r.copy(), s.lit(1.0)), s.ln(r.copy())))
 
 
-def _power_term(r, a: float):
+def _closed_power_term(r, d, a: float):
+    """r^a − 1 − a(r − 1) for the usual parameters, factored through d² with d = r − 1 = (x − μ)/μ
+    (formed from x − μ, so it keeps its digits when x is near μ); no ln or exp (algebra: expand each
+    right-hand side; √r − 1 = d/(√r + 1)). Valid at r = 0 for a > 0 (each gives a − 1); None for
+    other parameters."""
+    d = s.paren(d)
+    if a == 2.0:  # (r − 1)²
+        return s.square(d)
+    if a == 3.0:  # (r − 1)²(r + 2)
+        return s.mul(s.square(d), s.paren(s.add(r.copy(), s.lit(2.0))))
+    if a == -1.0:  # (r − 1)² / r
+        return s.div(s.square(d), r.copy())
+    if a == -2.0:  # (r − 1)²(2r + 1) / r²
+        return s.div(s.mul(s.square(d), s.paren(s.add(s.mul(s.lit(2.0), r.copy()), s.lit(1.0)))),
+                     s.square(r.copy()))
+    root = s.paren(s.add(s.sqrt(r.copy()), s.lit(1.0)))
+    half = s.paren(s.div(d, root))  # √r − 1
+    if a == 0.5:  # −(√r − 1)² / 2
+        return s.mul(s.lit(-0.5), s.square(half))
+    if a == -0.5:  # (√r − 1)²(√r + 2) / (2√r)
+        return s.div(s.mul(s.square(half), s.paren(s.add(s.sqrt(r.copy()), s.lit(2.0)))),
+                     s.mul(s.lit(2.0), s.sqrt(r.copy())))
+    return None
+
+
+def _deviation(ctx):
+    """(x − μ)/μ at row level: r − 1 without the rounding of r next to 1."""
+    return s.div(s.sub(ctx.x, ctx.mu), ctx.mu_divisor)
+
+
+def _power_term(ctx, a: float):
     # r^a − 1 − a(r − 1) = expm1(a ln r) − a(r − 1); at r = 0 (a > 0 only): a − 1
+    r = ctx.r
+    closed = _closed_power_term(r, _deviation(ctx), a)
+    if closed is not None:
+        return closed if a > 0 else s.case(s.gt(r, ZERO), closed)
     y = s.mul(s.lit(a), s.ln(r.copy()))
     return s.case(s.gt(r, ZERO), s.sub(expm1(y), s.mul(s.lit(a), s.sub(r.copy(), s.lit(1.0)))), s.lit(a - 1.0))
 
@@ -145,7 +179,7 @@ def build_ge(ctx, params):
     if not _row_mean(ctx):
         return s.case(domain, s.div(s.sub(_moment_of(ctx, alpha), s.lit(1.0)), s.lit(alpha * (alpha - 1.0))))
     # (Σ w r^α / W − 1) / (α(α−1)) = Σ w (r^α − 1 − α(r − 1)) / W / (α(α−1))
-    return s.case(domain, s.div(_mean_of(ctx, _power_term(ctx.r, alpha)), s.lit(alpha * (alpha - 1.0))))
+    return s.case(domain, s.div(_mean_of(ctx, _power_term(ctx, alpha)), s.lit(alpha * (alpha - 1.0))))
 
 
 def build_atkinson(ctx, params):
@@ -162,7 +196,7 @@ def build_atkinson(ctx, params):
     beta = 1.0 - eps
     domain = _nonneg(ctx) if eps < 1 else _positive(ctx)
     # 1 − (Σ w r^β / W)^(1/β) = −expm1(log1p(u) / β) with u = Σ w (r^β − 1 − β(r − 1)) / W
-    u = _mean_of(ctx, _power_term(ctx.r, beta))
+    u = _mean_of(ctx, _power_term(ctx, beta))
     return s.case(domain, exp.Neg(this=s.paren(expm1(s.div(log1p(u), s.lit(beta))))))
 
 

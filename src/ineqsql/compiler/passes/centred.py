@@ -33,10 +33,15 @@ class CentredContext(MomentContext):
         return s.col("_iq_mu", f"{self.name}_mean")
 
     @property
+    def mu_divisor(self):
+        """μ where the group's T > 0, else NULL: the divisor of r = x/μ (no engine divides by 0)."""
+        self.used.add("ratio")
+        return s.col("_iq_mup", f"{self.name}_mean")
+
+    @property
     def r(self):
         """x/μ at row level (NULL when the group's T ≤ 0)."""
-        self.used.add("ratio")
-        return s.div(self.x, s.col("_iq_mup", f"{self.name}_mean"))
+        return s.div(self.x, self.mu_divisor)
 
     def sum(self, term: exp.Expression) -> exp.Expression:
         # the centred CTE reads only this pass's valid rows (its WHERE), so terms need no CASE
@@ -51,7 +56,7 @@ def lower_centred_pass(source: Source, main: MainAggregate, plan, name: str
                        ) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:
     """CTEs of one centred pass and, for each call key, its result expression (final SELECT)."""
     ctx = CentredContext(main, plan.x, plan.trailing, plan.condition, name)
-    results = {call.key: call.measure.build(ctx, call.params) for call in plan.calls}
+    results = {call.key: ctx.checked(call.measure.build(ctx, call.params)) for call in plan.calls}
     mean_name = f"{name}_mean"
     nkeys = len(source.keys)
     means = [s.alias(s.div(ctx.T, ctx.W), "_iq_mu")]

@@ -4,6 +4,12 @@ One CTE per scope (``_iq_agg_N``): the group keys, every ordinary aggregate the 
 (``count(*)``, ``avg(x)`` …) and every sum the moment measures register. Each sum counts only the
 rows valid for its (value, weight) pair: ``SUM(CASE WHEN x IS NOT NULL AND w > 0 THEN term END)``.
 Measure results are expressions over those sums, placed where the calls were.
+
+The input checks of a pair (NaN or infinite value or weight, negative weight: docs/input-policy.md)
+run once per row, in one aggregate of their own (``_iq_chkN``: MIN of 0.0, or an error), and every
+result of the pair reads it, so no engine prunes it. The sums test only NULL and w > 0: with the
+checks repeated inside each sum's CASE they cost half of a moment query (engines do not share
+subexpressions that can raise; bench/README.md, "Moment measures").
 """
 
 from __future__ import annotations
@@ -11,7 +17,7 @@ from __future__ import annotations
 from sqlglot import exp
 
 from ineqsql.compiler import sqlx as s
-from ineqsql.compiler.passes.source import Source, checked_weight, finite_or_null, valid_value, weight_label
+from ineqsql.compiler.passes.source import Source, finite_or_null, not_finite, row_error, weight_label
 
 
 class MainAggregate:
@@ -46,9 +52,18 @@ class MomentContext:
                  condition: exp.Expression | None = None):
         self.main = main
         self._x, self._w = x, w
-        valid = s.and_(s.paren(condition.copy()) if condition is not None else None, valid_value(x, main.keys))
+        present = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(self.x))
+        checks = [exp.If(this=not_finite(self.x), true=row_error(
+            f"ineqsql: NaN or infinite value in the value argument {weight_label(x)}", main.keys))]
+        valid = present
         if w is not None:
-            valid = s.and_(valid, s.gt(checked_weight(w, weight_label(w), main.keys), s.lit(0.0)))
+            checks += [exp.If(this=s.lt(self.w, s.lit(0.0)), true=row_error(
+                           f"ineqsql: negative weight in the weight argument {weight_label(w)}", main.keys)),
+                       exp.If(this=not_finite(self.w), true=row_error(
+                           f"ineqsql: NaN or infinite weight in the weight argument {weight_label(w)}", main.keys))]
+            valid = s.and_(present, s.gt(self.w, s.lit(0.0)))
+        # 0.0 on every present row unless a check raises (NULL where none is present)
+        self._row_check = s.case(present.copy(), exp.Case(ifs=checks, default=s.lit(0.0)))
         self._valid = valid
 
     @property
@@ -60,8 +75,19 @@ class MomentContext:
         return s.cast_double(self._w.copy()) if self._w is not None else s.lit(1.0)
 
     def valid_condition(self) -> exp.Expression:
-        """The row condition of this pair: FILTER, value not NULL (and finite), weight > 0 (checked)."""
+        """The row condition of this pair: FILTER, value not NULL, weight > 0 (the input checks are
+        ``checked``'s aggregate, which every result reads)."""
         return self._valid.copy()
+
+    def checked(self, result: exp.Expression) -> exp.Expression:
+        """``result``, once the pair's input checks have run over the group's rows: CASE WHEN the
+        check aggregate is 0.0 or NULL THEN result (it is nothing else: a failed check raises)."""
+        check = getattr(self, "_row_check", None)
+        if check is None:  # contexts whose rows are checked where they are read (DuckDB macros)
+            return result
+        column = self.main.add(s.agg_min(check.copy()), prefix="_iq_chk")
+        return s.case(exp.EQ(this=exp.Coalesce(this=column, expressions=[s.lit(0.0)]), expression=s.lit(0.0)),
+                      result)
 
     def _when_valid(self, term):
         return s.case(self._valid.copy(), term)
@@ -96,4 +122,4 @@ def lower_moment_pass(source: Source, main: MainAggregate, plan, name: str | Non
                       ) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:
     """No CTE of its own: register the pass's sums on the main aggregate; return each call's result."""
     ctx = MomentContext(main, plan.x, plan.trailing, plan.condition)
-    return [], {call.key: call.measure.build(ctx, call.params) for call in plan.calls}
+    return [], {call.key: ctx.checked(call.measure.build(ctx, call.params)) for call in plan.calls}

@@ -55,6 +55,10 @@ class OrderedContext(SortedColumns):
         whatever this gives (engines that raise on x/0 get NULLIF from their dialect rules)."""
         return s.div(s.col("_iq_x"), self.mu)
 
+    @property
+    def mu_divisor(self):
+        return self.mu
+
     def sum(self, term: exp.Expression) -> exp.Expression:
         """Σ term over the group's rows (they are all valid here), for centred measures."""
         return s.agg_sum(term)
