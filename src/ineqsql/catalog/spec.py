@@ -65,6 +65,10 @@ class Measure:
     pass_options: tuple[str, ...] = ()
     # read_options(options) -> settings: checks the named arguments' values, raises ValueError
     read_options: Callable[[dict], dict] | None = None
+    # error_bound(ctx, params, value) -> a bound on |value − exact| of the one-pass form ``value`` built
+    # on a moment context with compensated sums; with it a centred measure may skip the centred
+    # pass where the bound is small enough (the "adaptive" variant, compiler/passes/centred.py)
+    error_bound: Callable[..., exp.Expression] | None = None
 
     def pass_for(self, has_trailing: bool) -> PassKind:
         if isinstance(self.passes, tuple):

@@ -42,6 +42,7 @@ class CompileContext:
     counters: dict[str, int] = field(default_factory=lambda: defaultdict(int))
     # planner options (compiler/plan.py): "auto" | "on" | "off", and the engine's tie probe
     tie_grouping: str = "auto"
+    dialect: str = "duckdb"  # the target engine: some plan variants need one of its functions
     tie_probe: Callable | None = None
     # what the planner chose, one record per pass (read by explain)
     chosen: list[dict] = field(default_factory=list)

@@ -92,7 +92,7 @@ def lower_passes(calls: list[MeasureCall], source: Source, main: MainAggregate, 
     result). The CTEs to join are those the results read, other than the main aggregate."""
     ctes, results = [], {}
     for plan in fuse_centred(share_passes(plan_passes(calls), can_share), bool(source.keys)):
-        choose_variant(plan, source.select, source.keys, ctx.tie_grouping, ctx.tie_probe)
+        choose_variant(plan, source.select, source.keys, ctx.tie_grouping, ctx.tie_probe, ctx.dialect)
         prefix, lower = LOWERINGS[plan.kind]
         extra = {"resolution": ctx.resolution} if plan.kind == "summary" else {}
         new, res = lower(source, main, plan, ctx.name(prefix) if prefix else None, **extra)

@@ -145,6 +145,16 @@ def and_(*conds):
     return out
 
 
+def or_(*conds):
+    conds = [c for c in conds if c is not None]
+    if not conds:
+        return None
+    out = conds[0]
+    for c in conds[1:]:
+        out = exp.Or(this=out, expression=c)
+    return out
+
+
 def gt(a, b):
     return exp.GT(this=a, expression=b)
 

@@ -64,6 +64,7 @@ class RuntimeParam:
     def __truediv__(self, o): return self._new(exp.Div(this=self.to_expression(), expression=_expr(o)))
     def __rtruediv__(self, o): return self._new(exp.Div(this=_expr(o), expression=self.to_expression()))
     def __neg__(self): return self._new(exp.Neg(this=self.to_expression()))
+    def __abs__(self): return self._new(exp.Abs(this=self.expression.copy()))
 
     def _compare(self, cls, o) -> bool:
         return self.explorer.decide(cls(this=self.to_expression(), expression=_expr(o)))

@@ -64,7 +64,11 @@ def table_form(measure: Measure) -> tuple[str, exp.Create]:
     fn = f"{measure.name}_by"
     # exp.Var: a bare name (the macro argument) the compiler does not take for a column of the query
     params = [s.cast_double(exp.Var(this=p.name)) for p in measure.params]
-    runtime = dataclasses.replace(measure, build=lambda ctx, _: explore_build(lambda p: measure.build(ctx, p), params))
+    bound = measure.error_bound
+    runtime = dataclasses.replace(
+        measure, build=lambda ctx, _: explore_build(lambda p: measure.build(ctx, p), params),
+        error_bound=None if bound is None else
+        lambda ctx, _, value: explore_build(lambda p: bound(ctx, p, value), params))
     node = exp.Anonymous(this=measure.name, expressions=[s.col(X), s.col(T)])
     rows = exp.Subquery(this=_rows(measure, fn), alias=exp.TableAlias(this=exp.to_identifier("_iq_rows")))
     select = exp.Select(expressions=[s.col(KEY), s.alias(node, RESULT)]).from_(rows).group_by(s.col(KEY))

@@ -5,12 +5,19 @@ mean CTE:    keys, μ = T/W, and μ again where T > 0 (NULL elsewhere: the divis
              engine divides by zero)     (T and W ride on the scope's main aggregate)
 centred CTE: keys, Σ w·f(x, μ) …  over the scope's rows joined to their group's mean
 One extra scan of the source and a hash join on the group keys; no sort.
+
+Adaptive variant (DuckDB; plan.choose_variant): every call also has its one-pass form on compensated
+sums of the main aggregate (FSUM), with an error bound (catalog/moment.py). The mean CTE keeps only
+the groups where some bound exceeds ADAPTIVE_ACCURACY of its value, so the centred CTE scans and joins
+for those groups alone, and DuckDB skips that scan when there are none. Each result is the centred
+value where its group was centred, else the one-pass value.
 """
 
 from __future__ import annotations
 
 from sqlglot import exp
 
+from ineqsql.catalog.moment import ADAPTIVE_ACCURACY
 from ineqsql.compiler import sqlx as s
 from ineqsql.compiler.passes.moment import MainAggregate, MomentContext
 from ineqsql.compiler.passes.source import Source, cte, join_on_keys, key_name, table
@@ -55,17 +62,43 @@ class CentredContext(MomentContext):
 def lower_centred_pass(source: Source, main: MainAggregate, plan, name: str
                        ) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:
     """CTEs of one centred pass and, for each call key, its result expression (final SELECT)."""
+    adaptive = plan.variant == "adaptive"
     ctx = CentredContext(main, plan.x, plan.trailing, plan.condition, name)
-    results = {call.key: ctx.checked(call.measure.build(ctx, call.params)) for call in plan.calls}
+    ctx.compensated = adaptive  # μ from the same compensated W and T as the one-pass forms
+    results = {call.key: call.measure.build(ctx, call.params) for call in plan.calls}
+    need = None
+    if adaptive:
+        one = MomentContext(main, plan.x, plan.trailing, plan.condition)
+        one.compensated = True
+        centred_here = s.gt(exp.Coalesce(this=s.col("_iq_rows", name), expressions=[s.lit(0)]), s.lit(0))
+        for call in plan.calls:
+            value = call.measure.build(one, call.params)
+            bound = call.measure.error_bound(one, call.params, value)
+            need = s.or_(need, _needs_centring(value, bound))
+            results[call.key] = s.case(centred_here, results[call.key], value)
+    results = {key: ctx.checked(value) for key, value in results.items()}
     mean_name = f"{name}_mean"
     nkeys = len(source.keys)
     means = [s.alias(s.div(ctx.T, ctx.W), "_iq_mu")]
     if "ratio" in ctx.used:
         means.append(s.alias(s.case(s.gt(ctx.T, s.lit(0.0)), s.div(ctx.T, ctx.W)), "_iq_mup"))
     mean = exp.Select(expressions=[s.col(key_name(i)) for i in range(nkeys)] + means).from_(table(main.name))
+    if need is not None:
+        mean.set("where", exp.Where(this=need))
     # the mean CTE reads the main aggregate's columns unqualified
     mean = mean.transform(lambda n: s.col(n.name) if isinstance(n, exp.Column) and n.table == main.name else n)
-    rows = source.rows(source.key_projections() + [s.alias(e, n) for n, e in ctx.terms.values()],
+    marker = [s.alias(s.agg_count_star(), "_iq_rows")] if adaptive else []
+    rows = source.rows(source.key_projections() + [s.alias(e, n) for n, e in ctx.terms.values()] + marker,
                        ctx.valid_condition(), group_by=[k.copy() for k in source.keys] or None,
                        join=join_on_keys(source.keys, mean_name))
     return [cte(mean, mean_name), cte(rows, name)], results
+
+
+def _needs_centring(value: exp.Expression, bound: exp.Expression) -> exp.Expression:
+    """TRUE where the one-pass value is not finite, or its bound is not finite or exceeds
+    ADAPTIVE_ACCURACY·|value|; FALSE where the value is NULL (outside the measure's domain: so is the
+    centred value)."""
+    finite = lambda e: s.gt(s.lit(1.0), s.mul(e.copy(), s.lit(0.0)))  # noqa: E731 (NULL for NULL)
+    ok = s.and_(finite(value), finite(bound),
+                exp.LTE(this=bound.copy(), expression=s.mul(s.lit(ADAPTIVE_ACCURACY), s.absval(value.copy()))))
+    return exp.Coalesce(this=exp.Not(this=exp.Paren(this=ok)), expressions=[exp.false()])

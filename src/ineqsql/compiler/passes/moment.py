@@ -6,10 +6,10 @@ rows valid for its (value, weight) pair: ``SUM(CASE WHEN x IS NOT NULL AND w > 0
 Measure results are expressions over those sums, placed where the calls were.
 
 The input checks of a pair (NaN or infinite value or weight, negative weight: docs/input-policy.md)
-run once per row, in one aggregate of their own (``_iq_chkN``: MIN of 0.0, or an error), and every
-result of the pair reads it, so no engine prunes it. The sums test only NULL and w > 0: with the
-checks repeated inside each sum's CASE they cost half of a moment query (engines do not share
-subexpressions that can raise; bench/README.md, "Moment measures").
+run once per row, inside the pair's weight total W (the sum of the weights of the rows whose value is
+not NULL, or an error), and every result of the pair reads W, so no engine prunes it. The other sums
+test only NULL and w > 0: with the checks repeated inside each sum's CASE they cost half of a moment
+query (engines do not share subexpressions that can raise; bench/README.md, "Moment measures").
 """
 
 from __future__ import annotations
@@ -62,8 +62,8 @@ class MomentContext:
                        exp.If(this=not_finite(self.w), true=row_error(
                            f"ineqsql: NaN or infinite weight in the weight argument {weight_label(w)}", main.keys))]
             valid = s.and_(present, s.gt(self.w, s.lit(0.0)))
-        # 0.0 on every present row unless a check raises (NULL where none is present)
-        self._row_check = s.case(present.copy(), exp.Case(ifs=checks, default=s.lit(0.0)))
+        # the weight of every present row unless a check raises (a zero weight adds nothing to W)
+        self._checked_weight = s.case(present.copy(), exp.Case(ifs=checks, default=self.w))
         self._valid = valid
 
     @property
@@ -80,20 +80,25 @@ class MomentContext:
         return self._valid.copy()
 
     def checked(self, result: exp.Expression) -> exp.Expression:
-        """``result``, once the pair's input checks have run over the group's rows: CASE WHEN the
-        check aggregate is 0.0 or NULL THEN result (it is nothing else: a failed check raises)."""
-        check = getattr(self, "_row_check", None)
-        if check is None:  # contexts whose rows are checked where they are read (DuckDB macros)
+        """``result``, reading W, the sum that runs the pair's input checks: CASE WHEN W ≥ 0 (or NULL:
+        no row) THEN result (W is nothing else: a failed check raises)."""
+        if getattr(self, "_checked_weight", None) is None:  # rows checked where they are read (macros)
             return result
-        column = self.main.add(s.agg_min(check.copy()), prefix="_iq_chk")
-        return s.case(exp.EQ(this=exp.Coalesce(this=column, expressions=[s.lit(0.0)]), expression=s.lit(0.0)),
+        return s.case(exp.GTE(this=exp.Coalesce(this=self.W, expressions=[s.lit(0.0)]), expression=s.lit(0.0)),
                       result)
+
+    # sums as DuckDB's FSUM (compensated: within about 2u·Σ|terms| whatever the row count), for the
+    # one-pass forms of the adaptive centred variant (passes/centred.py)
+    compensated = False
 
     def _when_valid(self, term):
         return s.case(self._valid.copy(), term)
 
+    def _sum(self, e: exp.Expression) -> exp.Expression:
+        return exp.Anonymous(this="FSUM", expressions=[e]) if self.compensated else s.agg_sum(e)
+
     def _main_sum(self, term: exp.Expression) -> exp.Expression:
-        return self.main.add(s.agg_sum(self._when_valid(term)))
+        return self.main.add(self._sum(self._when_valid(term)))
 
     def sum(self, term: exp.Expression) -> exp.Expression:
         return self._main_sum(term)
@@ -101,9 +106,15 @@ class MomentContext:
     def min(self, term: exp.Expression) -> exp.Expression:
         return self.main.add(s.agg_min(self._when_valid(term)))
 
+    def max(self, term: exp.Expression) -> exp.Expression:
+        return self.main.add(exp.Max(this=self._when_valid(term)))
+
     @property
     def W(self):
-        return self._main_sum(self.w)
+        checked = getattr(self, "_checked_weight", None)
+        if checked is None:
+            return self._main_sum(self.w)
+        return self.main.add(self._sum(checked.copy()))
 
     @property
     def T(self):
