@@ -7,10 +7,11 @@ centred CTE: keys, Σ w·f(x, μ) …  over the scope's rows joined to their gro
 One extra scan of the source and a hash join on the group keys; no sort.
 
 Adaptive variant (DuckDB; plan.choose_variant): every call also has its one-pass form on compensated
-sums of the main aggregate (FSUM), with an error bound (catalog/moment.py). The mean CTE keeps only
-the groups where some bound exceeds ADAPTIVE_ACCURACY of its value, so the centred CTE scans and joins
-for those groups alone, and DuckDB skips that scan when there are none. Each result is the centred
-value where its group was centred, else the one-pass value.
+sums of the main aggregate (FSUM), with an error bound (catalog/moment.py); the one CTE holds both
+per group. The mean CTE keeps only the groups where some bound exceeds ADAPTIVE_ACCURACY of its
+value, so the centred CTE scans and joins for those groups alone, and DuckDB skips that scan when
+there are none. Each result is the centred value where its group was centred, else the one-pass
+value.
 """
 
 from __future__ import annotations
@@ -66,32 +67,43 @@ def lower_centred_pass(source: Source, main: MainAggregate, plan, name: str
     ctx = CentredContext(main, plan.x, plan.trailing, plan.condition, name)
     ctx.compensated = adaptive  # μ from the same compensated W and T as the one-pass forms
     results = {call.key: call.measure.build(ctx, call.params) for call in plan.calls}
-    need = None
-    if adaptive:
-        one = MomentContext(main, plan.x, plan.trailing, plan.condition)
-        one.compensated = True
-        centred_here = s.gt(exp.Coalesce(this=s.col("_iq_rows", name), expressions=[s.lit(0)]), s.lit(0))
-        for call in plan.calls:
-            value = call.measure.build(one, call.params)
-            bound = call.measure.error_bound(one, call.params, value)
-            need = s.or_(need, _needs_centring(value, bound))
-            results[call.key] = s.case(centred_here, results[call.key], value)
-    results = {key: ctx.checked(value) for key, value in results.items()}
-    mean_name = f"{name}_mean"
     nkeys = len(source.keys)
+    keys = [s.col(key_name(i)) for i in range(nkeys)]
     means = [s.alias(s.div(ctx.T, ctx.W), "_iq_mu")]
     if "ratio" in ctx.used:
         means.append(s.alias(s.case(s.gt(ctx.T, s.lit(0.0)), s.div(ctx.T, ctx.W)), "_iq_mup"))
-    mean = exp.Select(expressions=[s.col(key_name(i)) for i in range(nkeys)] + means).from_(table(main.name))
-    if need is not None:
-        mean.set("where", exp.Where(this=need))
-    # the mean CTE reads the main aggregate's columns unqualified
-    mean = mean.transform(lambda n: s.col(n.name) if isinstance(n, exp.Column) and n.table == main.name else n)
+    mean_name, one_name = f"{name}_mean", f"{name}_one"
+    ctes = []
+    if adaptive:
+        # _one: per group, μ and each call's one-pass value and error bound (from the main aggregate);
+        # _mean: the groups some bound sends to the centred pass
+        one = MomentContext(main, plan.x, plan.trailing, plan.condition)
+        one.compensated = True
+        centred_here = s.gt(exp.Coalesce(this=s.col("_iq_rows", name), expressions=[s.lit(0)]), s.lit(0))
+        columns, need = [], None
+        for i, call in enumerate(dict((c.key, c) for c in plan.calls).values()):
+            value = call.measure.build(one, call.params)
+            columns += [s.alias(value, f"_iq_v{i + 1}"),
+                        s.alias(call.measure.error_bound(one, call.params, value), f"_iq_b{i + 1}")]
+            need = s.or_(need, _needs_centring(s.col(f"_iq_v{i + 1}"), s.col(f"_iq_b{i + 1}")))
+            results[call.key] = s.case(centred_here, results[call.key], s.col(f"_iq_v{i + 1}", one_name))
+        ctes.append(cte(_from_main(exp.Select(expressions=keys + means + columns), main), one_name))
+        mean = exp.Select(expressions=[k.copy() for k in keys] + [s.col(m.alias) for m in means]
+                          ).from_(table(one_name)).where(need)
+    else:
+        mean = _from_main(exp.Select(expressions=keys + means), main)
+    results = {key: ctx.checked(value) for key, value in results.items()}
     marker = [s.alias(s.agg_count_star(), "_iq_rows")] if adaptive else []
     rows = source.rows(source.key_projections() + [s.alias(e, n) for n, e in ctx.terms.values()] + marker,
                        ctx.valid_condition(), group_by=[k.copy() for k in source.keys] or None,
                        join=join_on_keys(source.keys, mean_name))
-    return [cte(mean, mean_name), cte(rows, name)], results
+    return ctes + [cte(mean, mean_name), cte(rows, name)], results
+
+
+def _from_main(select: exp.Select, main: MainAggregate) -> exp.Select:
+    """``select`` FROM the main aggregate, whose columns it reads unqualified."""
+    select = select.from_(table(main.name))
+    return select.transform(lambda n: s.col(n.name) if isinstance(n, exp.Column) and n.table == main.name else n)
 
 
 def _needs_centring(value: exp.Expression, bound: exp.Expression) -> exp.Expression:

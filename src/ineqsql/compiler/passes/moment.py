@@ -109,24 +109,33 @@ class MomentContext:
     def max(self, term: exp.Expression) -> exp.Expression:
         return self.main.add(exp.Max(this=self._when_valid(term)))
 
+    def _once(self, name: str, make) -> exp.Expression:
+        """A group aggregate built once per context (building and hashing a sum's tree on every use
+        was most of a moment query's compile time)."""
+        cache = self.__dict__.setdefault("_aggregates", {})
+        key = (name, self.compensated)
+        if key not in cache:
+            cache[key] = make()
+        return cache[key].copy()
+
     @property
     def W(self):
         checked = getattr(self, "_checked_weight", None)
         if checked is None:
-            return self._main_sum(self.w)
-        return self.main.add(self._sum(checked.copy()))
+            return self._once("W", lambda: self._main_sum(self.w))
+        return self._once("W", lambda: self.main.add(self._sum(checked.copy())))
 
     @property
     def T(self):
-        return finite_or_null(self._main_sum(s.mul(self.w, self.x)))
+        return self._once("T", lambda: finite_or_null(self._main_sum(s.mul(self.w, self.x))))
 
     @property
     def n(self):
-        return self.main.add(exp.Count(this=self._when_valid(s.lit(1))))
+        return self._once("n", lambda: self.main.add(exp.Count(this=self._when_valid(s.lit(1)))))
 
     @property
     def min_x(self):
-        return self.min(self.x)
+        return self._once("min_x", lambda: self.min(self.x))
 
 
 def lower_moment_pass(source: Source, main: MainAggregate, plan, name: str | None = None
