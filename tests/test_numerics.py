@@ -122,14 +122,19 @@ def test_million_ties_exact():
 
 # ---- log and power measures against mpmath ----------------------------------------------------------
 
-def mp_measures(x, w):
+def mp_weighted(x, w):
+    """(μ, mean) in 60-digit arithmetic on the exact doubles: mean(f) = Σ w f(x) / Σ w."""
     xs, ws = [mp.mpf(float(v)) for v in x], [mp.mpf(float(v)) for v in w]
     W = sum(ws)
-    mu = sum(a * b for a, b in zip(xs, ws)) / W
 
     def mean(f):
         return sum(b * f(a) for a, b in zip(xs, ws)) / W
 
+    return mean(lambda v: v), mean
+
+
+def mp_measures(x, w):
+    mu, mean = mp_weighted(x, w)
     return {
         "theil": mean(lambda v: (v / mu) * mp.log(v / mu)),
         "mld": mean(lambda v: mp.log(mu / v)),
@@ -178,12 +183,7 @@ CLOSED_SQL = ("SELECT ge(x, 2, w), ge(x, 3, w), ge(x, -1, w), ge(x, -2, w), ge(x
 
 
 def mp_closed(x, w):
-    xs, ws = [mp.mpf(float(v)) for v in x], [mp.mpf(float(v)) for v in w]
-    W = sum(ws)
-    mu = sum(a * b for a, b in zip(xs, ws)) / W
-
-    def mean(f):
-        return sum(b * f(a) for a, b in zip(xs, ws)) / W
+    mu, mean = mp_weighted(x, w)
 
     def ge(a):  # the textbook definition (Shorrocks 1980; handbook form)
         return (mean(lambda v: (v / mu) ** a) - 1) / (a * (a - 1))

@@ -135,24 +135,23 @@ def case(cond, then, otherwise=None) -> exp.Case:
     return exp.Case(ifs=[exp.If(this=cond, true=then)], default=otherwise)
 
 
-def and_(*conds):
+def _connect(kind, conds):
+    """conds joined left-deep by AND or OR, the None ones left out (None when none is left)."""
     conds = [c for c in conds if c is not None]
     if not conds:
         return None
     out = conds[0]
     for c in conds[1:]:
-        out = exp.And(this=out, expression=c)
+        out = kind(this=out, expression=c)
     return out
+
+
+def and_(*conds):
+    return _connect(exp.And, conds)
 
 
 def or_(*conds):
-    conds = [c for c in conds if c is not None]
-    if not conds:
-        return None
-    out = conds[0]
-    for c in conds[1:]:
-        out = exp.Or(this=out, expression=c)
-    return out
+    return _connect(exp.Or, conds)
 
 
 def gt(a, b):
@@ -203,8 +202,10 @@ def array(*items: exp.Expression) -> exp.Array:
 
 
 def window(fn: exp.Expression, partition: list[exp.Expression], order: list[exp.Expression] | None = None,
-           running: bool = False) -> exp.Window:
-    """fn OVER (PARTITION BY ... [ORDER BY ... ROWS BETWEEN UNBOUNDED PRECEDING AND CURRENT ROW])."""
+           running: bool = False, whole: bool = False) -> exp.Window:
+    """fn OVER (PARTITION BY ... [ORDER BY ... ROWS BETWEEN UNBOUNDED PRECEDING AND CURRENT ROW]);
+    ``whole``: ROWS BETWEEN UNBOUNDED PRECEDING AND UNBOUNDED FOLLOWING (a partition total that
+    keeps the ORDER BY, so it shares the sort of the running columns)."""
     args = {"this": fn, "partition_by": partition or None, "over": "OVER"}
     if order:
         args["order"] = exp.Order(expressions=[o if isinstance(o, exp.Ordered) else exp.Ordered(this=o, nulls_first=False)
@@ -212,4 +213,7 @@ def window(fn: exp.Expression, partition: list[exp.Expression], order: list[exp.
     if running:
         args["spec"] = exp.WindowSpec(kind="ROWS", start="UNBOUNDED", start_side="PRECEDING",
                                       end="CURRENT ROW")
+    elif whole:
+        args["spec"] = exp.WindowSpec(kind="ROWS", start="UNBOUNDED", start_side="PRECEDING",
+                                      end="UNBOUNDED", end_side="FOLLOWING")
     return exp.Window(**args)

@@ -82,7 +82,7 @@ def window_columns(ctx: RowContext, keys: list[exp.Expression]) -> list[exp.Expr
         cols.append(s.alias(s.window(s.agg_sum(s.mul(w.copy(), x.copy())), part(), [x.copy()], running=True),
                             "_iq_s"))
     if "min" in ctx.used:
-        cols.append(s.alias(s.window(exp.FirstValue(this=x.copy()), part(), [x.copy()], running=True), "_iq_m"))
+        cols.append(s.alias(s.window(s.agg_min(x.copy()), part(), [x.copy()], whole=True), "_iq_m"))
     if "wt" in ctx.used:
         total = (s.window(s.agg_sum(w.copy()), part()) if ctx.weighted
                  else s.cast_double(s.window(s.agg_count_star(), part())))

@@ -1,0 +1,42 @@
+"""Every benchmark figure in one command: the measure families against the baselines (run.py, three
+repeats), the cost curves (curves.py), the out-of-core guarantee (ooc.py) and the bounded method
+(bounded.py), one after the other, at full size. Takes about an hour and a half on 2 cores and writes
+about 6 GB of data to bench/data (deleted per point for the curves).
+
+    python bench/all.py
+
+(tests/test_bench_smoke.py runs the parts at small sizes.)
+
+Exit status 1 if any part fails (a disagreement between results, a memory bound exceeded, …).
+"""
+
+from __future__ import annotations
+
+import argparse
+import subprocess
+import sys
+from pathlib import Path
+
+BENCH_DIR = Path(__file__).resolve().parent
+
+FULL = [
+    ["run.py", "--repeat", "3"],
+    ["curves.py", "--cleanup"],
+    ["ooc.py", "--rows", "100000000"],
+    ["bounded.py"],
+]
+def main(argv=None) -> int:
+    argparse.ArgumentParser(description="Run every benchmark part in sequence, at full size.").parse_args(argv)
+    failed = []
+    for part in FULL:
+        print(f"== python bench/{' '.join(part)}", flush=True)
+        if subprocess.run([sys.executable, str(BENCH_DIR / part[0]), *part[1:]]).returncode != 0:
+            failed.append(part[0])
+    if failed:
+        print("failed: " + ", ".join(failed), file=sys.stderr)
+        return 1
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
