@@ -72,24 +72,11 @@ def lower_centred_pass(source: Source, main: MainAggregate, plan, name: str
     means = [s.alias(s.div(ctx.T, ctx.W), "_iq_mu")]
     if "ratio" in ctx.used:
         means.append(s.alias(s.case(s.gt(ctx.T, s.lit(0.0)), s.div(ctx.T, ctx.W)), "_iq_mup"))
-    mean_name, one_name = f"{name}_mean", f"{name}_one"
+    mean_name = f"{name}_mean"
     ctes = []
     if adaptive:
-        # _one: per group, μ and each call's one-pass value and error bound (from the main aggregate);
-        # _mean: the groups some bound sends to the centred pass
-        one = MomentContext(main, plan.x, plan.trailing, plan.condition)
-        one.compensated = True
-        centred_here = s.gt(exp.Coalesce(this=s.col("_iq_rows", name), expressions=[s.lit(0)]), s.lit(0))
-        columns, need = [], None
-        for i, call in enumerate(dict((c.key, c) for c in plan.calls).values()):
-            value = call.measure.build(one, call.params)
-            columns += [s.alias(value, f"_iq_v{i + 1}"),
-                        s.alias(call.measure.error_bound(one, call.params, value), f"_iq_b{i + 1}")]
-            need = s.or_(need, _needs_centring(s.col(f"_iq_v{i + 1}"), s.col(f"_iq_b{i + 1}")))
-            results[call.key] = s.case(centred_here, results[call.key], s.col(f"_iq_v{i + 1}", one_name))
-        ctes.append(cte(_from_main(exp.Select(expressions=keys + means + columns), main), one_name))
-        mean = exp.Select(expressions=[k.copy() for k in keys] + [s.col(m.alias) for m in means]
-                          ).from_(table(one_name)).where(need)
+        one, mean = _one_pass(plan, main, name, keys, means, results)
+        ctes.append(one)
     else:
         mean = _from_main(exp.Select(expressions=keys + means), main)
     results = {key: ctx.checked(value) for key, value in results.items()}
@@ -98,6 +85,30 @@ def lower_centred_pass(source: Source, main: MainAggregate, plan, name: str
                        ctx.valid_condition(), group_by=[k.copy() for k in source.keys] or None,
                        join=join_on_keys(source.keys, mean_name))
     return ctes + [cte(mean, mean_name), cte(rows, name)], results
+
+
+def _one_pass(plan, main: MainAggregate, name: str, keys: list[exp.Expression], means: list[exp.Expression],
+              results: dict) -> tuple[exp.CTE, exp.Select]:
+    """The adaptive variant's ``_one`` CTE (per group: μ, and each call's one-pass value and error
+    bound over the main aggregate's compensated sums) and the mean SELECT that keeps the groups some
+    bound sends to the centred pass. Each result becomes the centred value where its group was
+    centred, else the one-pass value (``results`` is updated in place)."""
+    one_name = f"{name}_one"
+    one = MomentContext(main, plan.x, plan.trailing, plan.condition)
+    one.compensated = True
+    centred_here = s.gt(exp.Coalesce(this=s.col("_iq_rows", name), expressions=[s.lit(0)]), s.lit(0))
+    columns, need = [], None
+    for i, call in enumerate(dict((c.key, c) for c in plan.calls).values()):
+        value = call.measure.build(one, call.params)
+        columns += [s.alias(value, f"_iq_v{i + 1}"),
+                    s.alias(call.measure.error_bound(one, call.params, value), f"_iq_b{i + 1}")]
+        need = s.or_(need, _needs_centring(s.col(f"_iq_v{i + 1}"), s.col(f"_iq_b{i + 1}")))
+        results[call.key] = s.case(centred_here, results[call.key], s.col(f"_iq_v{i + 1}", one_name))
+    one_select = _from_main(exp.Select(expressions=[k.copy() for k in keys] + [m.copy() for m in means] + columns),
+                            main)
+    mean = exp.Select(expressions=[k.copy() for k in keys] + [s.col(m.alias) for m in means]
+                      ).from_(table(one_name)).where(need)
+    return cte(one_select, one_name), mean
 
 
 def _from_main(select: exp.Select, main: MainAggregate) -> exp.Select:
