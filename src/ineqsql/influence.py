@@ -53,13 +53,7 @@ def leave_one_out_sql(spec: _Spec, x: exp.Expression) -> exp.Select:
     """Per group: G, and the row (value, weight) whose removal changes the Gini most, with G₋ₖ."""
     keys = spec.names()
     part = lambda: [s.col(k) for k in keys]  # noqa: E731
-    w = s.cast_double(spec.weight.copy()) if spec.weight is not None else s.lit(1.0)
-    rows = exp.Select(expressions=[s.alias(b.copy(), n) for b, n in zip(spec.by, keys)]
-                      + [s.alias(s.cast_double(x.copy()), "_iq_x"), s.alias(w, "_iq_w")])
-    rows.set("from_", spec.source.copy())
-    cond = s.and_(s.not_null(x.copy()), *([s.not_null(spec.weight.copy()), s.gt(w.copy(), ZERO)]
-                                          if spec.weight is not None else []))
-    rows.set("where", exp.Where(this=cond))
+    rows = _rows_cte(spec, x)
     xv, wv = s.col("_iq_x"), s.col("_iq_w")
     win = exp.Select(expressions=part() + [xv, wv,
         s.alias(s.window(s.agg_sum(wv.copy()), part(), [xv.copy()], running=True), "_iq_c"),

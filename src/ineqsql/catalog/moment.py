@@ -220,9 +220,7 @@ def build_atkinson(ctx, params):
 ADAPTIVE_ACCURACY = 1e-11
 
 
-def _sum_error(ctx):
-    # the O(n u²) part is below u for any n < 2^53 rows: F = 1e-15 + u, rounded up
-    return s.lit(1.2e-15)
+SUM_ERROR = 1.2e-15  # F; the O(n u²) part is below u for any n < 2^53 rows: 1e-15 + u, rounded up
 
 
 def _log_range(ctx):
@@ -237,12 +235,12 @@ def _log_range(ctx):
 def _log_bound(ctx):
     # Σ w x ln x / T − ln μ (theil) or ln μ − Σ w ln x / W (mld): F·L from the sum, as much again from
     # T (or W) and the division, 3F + u|ln μ| from ln μ (coefficients rounded up)
-    return s.mul(_sum_error(ctx), s.add(s.add(s.mul(s.lit(3.0), _log_range(ctx)), s.absval(s.ln(_mean(ctx)))),
+    return s.mul(s.lit(SUM_ERROR), s.add(s.add(s.mul(s.lit(3.0), _log_range(ctx)), s.absval(s.ln(_mean(ctx)))),
                                         s.lit(4.0)))
 
 
 def bound_theil(ctx, params, value):
-    return s.case(s.and_(_nonneg(ctx), s.gt(ctx.max(ctx.x), ZERO)), _log_bound(ctx))
+    return s.case(_nonneg(ctx), _log_bound(ctx))
 
 
 def bound_mld(ctx, params, value):
@@ -258,7 +256,7 @@ def bound_ge(ctx, params, value):
         return bound_theil(ctx, (), value)
     domain = _nonneg(ctx) if alpha > 0 else _positive(ctx)
     q = _moment_of(ctx, alpha)
-    return s.case(domain, s.div(s.mul(s.mul(_sum_error(ctx), s.lit(4.0 + 3.0 * abs(alpha))), q),
+    return s.case(domain, s.div(s.mul(s.mul(s.lit(SUM_ERROR), s.lit(4.0 + 3.0 * abs(alpha))), q),
                                 s.lit(abs(alpha * (alpha - 1.0)))))
 
 
@@ -271,7 +269,7 @@ def bound_atkinson(ctx, params, value):
         factor = s.add(s.mul(s.lit(3.0), _log_range(ctx)), s.lit(4.0))
     else:
         factor = s.lit(4.0 / abs(1.0 - eps) + 4.0)
-    return s.mul(s.mul(_sum_error(ctx), factor), v)
+    return s.mul(s.mul(s.lit(SUM_ERROR), factor), v)
 
 
 def build_cv(ctx, params=()):

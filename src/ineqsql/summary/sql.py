@@ -9,7 +9,7 @@ from sqlglot import exp
 from ineqsql.bounds import bins as b
 from ineqsql.bounds.lower import lower_bounds
 from ineqsql.compiler import sqlx as s
-from ineqsql.compiler.passes.source import checked_weight, cte, table, weight_label
+from ineqsql.compiler.passes.source import cte, table, value_weight_rows
 
 RESERVED_PREFIX = "iq_"
 
@@ -18,14 +18,8 @@ def summary_select(source: exp.Expression, value: exp.Expression, weight: exp.Ex
                    keys: list[tuple[str, exp.Expression]], resolution: float, powers=(),
                    where: exp.Expression | None = None) -> exp.Select:
     """SELECT keys, sign, bin, <bin columns>, resolution FROM (rows of source) GROUP BY keys, sign, bin."""
-    xd = s.cast_double(value.copy())
-    proj = [s.alias(e.copy(), n) for n, e in keys] + [s.alias(xd, "_iq_x")]
-    cond = s.and_(s.paren(where.copy()) if where is not None else None, s.not_null(value.copy()))
-    if weight is not None:
-        cw = checked_weight(weight, weight_label(weight))
-        proj.append(s.alias(cw, "_iq_w"))
-        cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
-    proj += b.bin_keys(xd.copy(), resolution)
+    columns, cond = value_weight_rows(value, weight, where)
+    proj = [s.alias(e.copy(), n) for n, e in keys] + columns + b.bin_keys(s.cast_double(value.copy()), resolution)
     rows = exp.Select(expressions=proj).from_(source.copy())
     rows.set("where", exp.Where(this=cond))
     key_cols = [s.col(n) for n, _ in keys]

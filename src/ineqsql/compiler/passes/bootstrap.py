@@ -28,7 +28,7 @@ from sqlglot import exp
 from ineqsql.compiler import sqlx as s
 from ineqsql.compiler.passes.linearized import critical_value
 from ineqsql.compiler.passes.rows import RowContext, window_columns
-from ineqsql.compiler.passes.source import Source, checked_weight, cte, grouped, table, weight_label
+from ineqsql.compiler.passes.source import Source, cte, grouped, table, value_weight_rows
 
 # Poisson(1) cumulative probabilities F(k) = e^(−1) Σ_{j≤k} 1/j!, k = 0 … 9 (draws above 9 have
 # probability 1.1e−7 and count as 10)
@@ -82,12 +82,8 @@ def lower_bootstrap_pass(source: Source, main, plan, name: str) -> tuple[list[ex
 
     # rows: keys, x, w and the resampling unit
     x, w, condition = plan.x, plan.trailing, plan.condition
-    proj = source.key_projections() + [s.alias(s.cast_double(x.copy()), "_iq_x")]
-    cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
-    if w is not None:
-        cw = checked_weight(w, weight_label(w))
-        proj.append(s.alias(cw, "_iq_w0"))
-        cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
+    columns, cond = value_weight_rows(x, w, condition, weight_name="_iq_w0")
+    proj = source.key_projections() + columns
     unit = settings.get("psu") if settings.get("psu") is not None else settings.get("key")
     if unit is not None:
         proj.append(s.alias(unit.copy(), "_iq_b"))

@@ -18,7 +18,7 @@ from sqlglot import exp
 
 from ineqsql.compiler import sqlx as s
 from ineqsql.compiler.passes.columns import SortedColumns
-from ineqsql.compiler.passes.source import Source, checked_weight, cte, table, weight_label
+from ineqsql.compiler.passes.source import Source, cte, table, value_weight_rows
 from ineqsql.errors import MeasureUsageError
 
 
@@ -99,13 +99,8 @@ def lower_rows(source: Source, plan, name: str, ctx: RowContext,
     """The rows CTE (``{name}_rows``) and the window CTE (``{name}_win``); ``extra`` maps column
     names to row-level expressions carried along (strata, PSU, bootstrap key)."""
     x, w, condition = plan.x, plan.trailing, plan.condition
-    proj = source.key_projections() + [s.alias(s.cast_double(x.copy()), "_iq_x")]
-    cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
-    if w is not None:
-        cw = checked_weight(w, weight_label(w))
-        proj.append(s.alias(cw, "_iq_w"))
-        cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
-    proj += [s.alias(e.copy(), n) for n, e in extra.items()]
+    columns, cond = value_weight_rows(x, w, condition)
+    proj = source.key_projections() + columns + [s.alias(e.copy(), n) for n, e in extra.items()]
     rows = source.rows(proj, cond)
     keys = source.key_columns()
     base = keys + [s.col("_iq_x")] + ([s.col("_iq_w")] if w is not None else []) + [s.col(n) for n in extra]

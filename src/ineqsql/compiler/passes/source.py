@@ -65,6 +65,20 @@ def checked_value(x: exp.Expression, label: str, keys: list[exp.Expression] = ()
                   xd.copy())
 
 
+def value_weight_rows(x: exp.Expression, w: exp.Expression | None, condition: exp.Expression | None,
+                      weight_name: str = "_iq_w") -> tuple[list[exp.Expression], exp.Expression]:
+    """(projections, row condition) of a pass that reads (value, weight) rows: x as DOUBLE ``_iq_x``
+    and the checked weight as ``weight_name``; rows within ``condition`` (a FILTER or WHERE) whose
+    value is not NULL and whose weight is > 0."""
+    proj = [s.alias(s.cast_double(x.copy()), "_iq_x")]
+    cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
+    if w is not None:
+        cw = checked_weight(w, weight_label(w))
+        proj.append(s.alias(cw, weight_name))
+        cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
+    return proj, cond
+
+
 def valid_value(x: exp.Expression, keys: list[exp.Expression] = ()) -> exp.Expression:
     """Row condition: the value is not NULL, and (checked) finite."""
     return s.not_null(checked_value(x, weight_label(x), keys))

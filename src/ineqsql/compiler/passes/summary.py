@@ -16,7 +16,7 @@ from ineqsql.bounds import bins as b
 from ineqsql.bounds.lower import lower_bounds
 from ineqsql.bounds.measures import powers_needed
 from ineqsql.compiler import sqlx as s
-from ineqsql.compiler.passes.source import Source, checked_weight, cte, table, weight_label
+from ineqsql.compiler.passes.source import Source, cte, table, value_weight_rows
 
 
 def lower_summary_pass(source: Source, main, plan, name: str, resolution: float | None = None
@@ -25,14 +25,8 @@ def lower_summary_pass(source: Source, main, plan, name: str, resolution: float 
     (key, "hi") to its bounds. ``resolution``: relative bin width (default bins.DEFAULT_RESOLUTION)."""
     resolution = b.DEFAULT_RESOLUTION if resolution is None else resolution
     x, w, condition = plan.x, plan.trailing, plan.condition
-    xd = s.cast_double(x.copy())
-    proj = source.key_projections() + [s.alias(xd, "_iq_x")]
-    cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
-    if w is not None:
-        cw = checked_weight(w, weight_label(w))
-        proj.append(s.alias(cw, "_iq_w"))
-        cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
-    proj += b.bin_keys(xd.copy(), resolution)
+    columns, cond = value_weight_rows(x, w, condition)
+    proj = source.key_projections() + columns + b.bin_keys(s.cast_double(x.copy()), resolution)
     rows = source.rows(proj, cond)
 
     keys = source.key_columns()
