@@ -7,10 +7,10 @@
 Each case runs in a fresh Python subprocess (peak RSS = that process's ru_maxrss, imports included):
 
   scan        SELECT grp, sum(x), sum(w), count(*) FROM f GROUP BY grp         (plain DuckDB)
-  exact       ineqsql.query("SELECT grp, gini(x, w) FROM read_parquet(f) GROUP BY grp")
+  exact       uneven.query("SELECT grp, gini(x, w) FROM read_parquet(f) GROUP BY grp")
   bounded     the same with method="bounded" (default resolution 0.01)
   bounded_tol the same with tolerance=1e-6
-  summary     ineqsql.summarize(f, "x", "w", by=["grp"]) to Parquet: rows and bytes per group
+  summary     uneven.summarize(f, "x", "w", by=["grp"]) to Parquet: rows and bytes per group
 
 Checks printed with the timings: every group's exact Gini lies in its bounded interval; the widest
 interval; the time ratios bounded/exact and bounded/scan. Results go to bench/results/bounded.json.
@@ -33,7 +33,7 @@ sys.path.insert(0, str(BENCH_DIR))
 CHILD = r"""
 import json, resource, sys, time
 import duckdb
-import ineqsql
+import uneven
 case, path, tmp, limit = sys.argv[1:5]
 q = "SELECT grp, gini(x, w) AS g FROM read_parquet('" + path + "') GROUP BY grp ORDER BY grp"
 start = time.perf_counter()
@@ -43,20 +43,20 @@ if case == "scan":
     con.execute("SET enable_progress_bar = false")
     con.execute("SELECT grp, sum(x), sum(w), count(*) FROM read_parquet(?) GROUP BY grp", [path]).fetchall()
 elif case == "exact":
-    df = ineqsql.query(q, threads=2, memory_limit=limit, temp_directory=tmp)
+    df = uneven.query(q, threads=2, memory_limit=limit, temp_directory=tmp)
     out["values"] = df["g"].tolist()
 elif case in ("bounded", "bounded_tol"):
     kw = {"tolerance": 1e-6} if case == "bounded_tol" else {}
-    df = ineqsql.query(q, method="bounded", threads=2, memory_limit=limit, temp_directory=tmp, **kw)
+    df = uneven.query(q, method="bounded", threads=2, memory_limit=limit, temp_directory=tmp, **kw)
     out["lo"], out["hi"], out["point"] = df["g_lo"].tolist(), df["g_hi"].tolist(), df["g"].tolist()
-    out["resolution"] = df.attrs["ineqsql"]["resolution"]
-    out["runs"] = df.attrs["ineqsql"]["runs"]
+    out["resolution"] = df.attrs["uneven"]["resolution"]
+    out["runs"] = df.attrs["uneven"]["runs"]
 elif case == "summary":
     import os
     target = tmp + "/summary.parquet"
     con = duckdb.connect(config={"threads": 2, "memory_limit": limit, "temp_directory": tmp})
     con.execute("SET enable_progress_bar = false")
-    ineqsql.summarize("read_parquet('" + path + "')", "x", "w", by=["grp"], parquet=target, replace=True, con=con)
+    uneven.summarize("read_parquet('" + path + "')", "x", "w", by=["grp"], parquet=target, replace=True, con=con)
     rows, groups = con.execute("SELECT count(*), count(DISTINCT grp) FROM read_parquet(?)", [target]).fetchone()
     out.update(rows=rows, groups=groups, bytes=os.path.getsize(target))
 out["seconds"] = time.perf_counter() - start
@@ -68,7 +68,7 @@ print(json.dumps(out))
 CASES = ("scan", "exact", "bounded", "bounded_tol", "summary")
 # DuckDB's memory_limit for the bounded cases. The bins GROUP BY (about 1.8M (group, bin) pairs at
 # tolerance 1e-6 on 20M x 1000) fills its hash partitions up to the limit before spilling, so the
-# peak RSS is about limit + 170 MB (Python, pandas, sqlglot, ineqsql: ~130 MB): 400MB peaked at
+# peak RSS is about limit + 170 MB (Python, pandas, sqlglot, uneven: ~130 MB): 400MB peaked at
 # 572 MB, 300MB at 481 MB in one run, at the same speed (the spilled partitions are small).
 BOUNDED_LIMIT = "300MB"
 

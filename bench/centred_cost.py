@@ -18,7 +18,7 @@ import duckdb
 import mpmath as mp
 import numpy as np
 
-import ineqsql
+import uneven
 
 ONE_PASS = """
 SELECT g,
@@ -50,7 +50,7 @@ def main():
     con.execute(f"SET threads = {a.threads}")
     con.execute(f"CREATE TABLE t AS SELECT (i % {a.groups})::INTEGER AS g, exp(random() * 3) * 1000 AS x, "
                 f"0.5 + random() * 2.5 AS w FROM range({a.rows}) r(i)")
-    compiled = ineqsql.compile(CENTRED, pretty=False)
+    compiled = uneven.compile(CENTRED, pretty=False)
     one, cen = timed(con, ONE_PASS, a.repeat), timed(con, compiled, a.repeat)
     print(f"{a.rows} rows, {a.groups} groups, {a.threads} threads: one-pass {one:.2f} s, centred {cen:.2f} s, "
           f"ratio {cen / one:.2f}")

@@ -19,7 +19,7 @@ sys.path.insert(0, str(BENCH_DIR))
 
 import run  # noqa: E402  (bench/ is not a package)
 
-CASES = ["sort", "ineqsql_w", "ineqsql_u"]
+CASES = ["sort", "uneven_w", "uneven_u"]
 
 
 def ensure(rows: int, groups: int, a) -> Path:
@@ -54,8 +54,8 @@ def table(rows: list[dict], axis: str) -> str:
             return "-" if v is None else f"{v:.2f}"
         def q(v):
             return "-" if v is None or not r["sort"] else f"{v / r['sort']:.2f}"
-        lines.append(f"| {r[axis]:,} | {f(r['sort'])} | {f(r['ineqsql_w'])} | {q(r['ineqsql_w'])} | "
-                     f"{f(r['ineqsql_u'])} | {q(r['ineqsql_u'])} |")
+        lines.append(f"| {r[axis]:,} | {f(r['sort'])} | {f(r['uneven_w'])} | {q(r['uneven_w'])} | "
+                     f"{f(r['uneven_u'])} | {q(r['uneven_u'])} |")
     return "\n".join(lines)
 
 
@@ -65,7 +65,7 @@ def plot(by_rows: list[dict], by_groups: list[dict], path: Path) -> None:
     import matplotlib.pyplot as plt
 
     fig, axes = plt.subplots(1, 2, figsize=(10, 4))
-    labels = {"sort": "sort (DuckDB ORDER BY)", "ineqsql_w": "gini(x, w)", "ineqsql_u": "gini(x)"}
+    labels = {"sort": "sort (DuckDB ORDER BY)", "uneven_w": "gini(x, w)", "uneven_u": "gini(x)"}
     for ax, rows, axis, title in ((axes[0], by_rows, "rows", "time vs rows (1000 groups)"),
                                   (axes[1], by_groups, "groups", "time vs groups")):
         for case in CASES:

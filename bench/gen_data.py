@@ -74,9 +74,9 @@ def _chunk(kind: str, seed: int, index: int, n: int, scales: np.ndarray) -> pa.T
 
 
 def _metadata(kind: str, rows: int, seed: int) -> dict[bytes, bytes]:
-    return {b"ineqsql_bench_kind": kind.encode(), b"ineqsql_bench_rows": str(rows).encode(),
-            b"ineqsql_bench_seed": str(seed).encode(),
-            b"ineqsql_bench_version": FORMAT_VERSION.encode()}
+    return {b"uneven_bench_kind": kind.encode(), b"uneven_bench_rows": str(rows).encode(),
+            b"uneven_bench_seed": str(seed).encode(),
+            b"uneven_bench_version": FORMAT_VERSION.encode()}
 
 
 def path_for(kind: str, data_dir: Path = DATA_DIR, rows: int | None = None) -> Path:

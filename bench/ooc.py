@@ -37,7 +37,7 @@ def main(argv=None) -> int:
                     str(a.rows), "--kinds", "g10k", "--data-dir", str(run.DATA_DIR)], check=True)
     failures, out = 0, []
     for data in ("one", "g10k"):
-        for case in ("ineqsql_w", "ineqsql_u"):
+        for case in ("uneven_w", "uneven_u"):
             tmp = run.TMP_DIR / f"ooc_{data}_{case}"
             tmp.mkdir(parents=True, exist_ok=True)
             saved, run.TMP_DIR = run.TMP_DIR, tmp

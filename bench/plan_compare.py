@@ -44,7 +44,7 @@ def export_src(rev: str, into: Path) -> Path:
 
 
 def compile_with(src: Path, sql: str) -> str:
-    code = "import sys, ineqsql; sys.stdout.write(ineqsql.compile(sys.stdin.read()))"
+    code = "import sys, uneven; sys.stdout.write(uneven.compile(sys.stdin.read()))"
     return subprocess.run([sys.executable, "-c", code], input=sql, capture_output=True, text=True, check=True,
                           env={"PYTHONPATH": str(src), "PATH": "/usr/bin:/bin"}).stdout
 

@@ -4,7 +4,7 @@
     python bench/registered.py --rows 2000000 --sizes 1000000,2000000
 
 Part 1: weighted Gini per group on g1000.parquet, three ways, each in a fresh subprocess: the
-compiled query (ineqsql.query), the aggregate macro gini(x, w) and the table macro gini_by(...).
+compiled query (uneven.query), the aggregate macro gini(x, w) and the table macro gini_by(...).
 Reports wall time and peak RSS (VmHWM) of each process.
 Part 2: the largest single group the aggregate macro handles at memory_limit 1GB: one group of N
 rows (generated in SQL), N increasing until DuckDB runs out of memory (or the timeout).
@@ -25,7 +25,7 @@ SRC = str(HERE.parent / "src")
 CHILD = textwrap.dedent("""
     import json, sys, time
     sys.path.insert(0, {src!r})
-    import duckdb, ineqsql
+    import duckdb, uneven
     case, source, limit, threads = {case!r}, {source!r}, {limit!r}, {threads!r}
     con = duckdb.connect()
     con.execute("SET memory_limit = '" + limit + "'")
@@ -33,12 +33,12 @@ CHILD = textwrap.dedent("""
     con.execute("SET enable_progress_bar = false")
     con.execute("CREATE VIEW src AS " + source)
     if case != "compiled":
-        ineqsql.install(con)
+        uneven.install(con)
     t = time.perf_counter()
     ok, error = True, None
     try:
         if case == "compiled":
-            rows = len(ineqsql.query("SELECT grp, gini(x, w) AS g FROM src GROUP BY grp", con=con))
+            rows = len(uneven.query("SELECT grp, gini(x, w) AS g FROM src GROUP BY grp", con=con))
         elif case == "aggregate":
             rows = len(con.execute("SELECT grp, gini(x, w) AS g FROM src GROUP BY grp").fetchall())
         else:

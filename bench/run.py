@@ -1,4 +1,4 @@
-"""Benchmark exact Gini in ineqsql against plain baselines, in one run.
+"""Benchmark exact Gini in uneven against plain baselines, in one run.
 
     python bench/run.py                                   # full size: 20M x 1000 groups, 100M x 1
     python bench/run.py --rows 2000000 --rows-one 5000000 # quick run
@@ -18,11 +18,11 @@ Cases on g1000.parquet (f = the Parquet file):
   pandas        read_parquet, one sort_values(["grp", "x"]), grouped cumsum of w, grouped sums
   window_sql    textbook window SQL for the weighted Gini per group in DuckDB
   window_sql_u  textbook window SQL (row_number) for the unweighted Gini per group in DuckDB
-  ineqsql_w     ineqsql.query("SELECT grp, gini(x, w) FROM read_parquet('f') GROUP BY grp")
-  ineqsql_u     the same with gini(x)
-  compile       median time of 20 ineqsql.compile() calls of a 10-measure query
+  uneven_w     uneven.query("SELECT grp, gini(x, w) FROM read_parquet('f') GROUP BY grp")
+  uneven_u     the same with gini(x)
+  compile       median time of 20 uneven.compile() calls of a 10-measure query
 
-On one.parquet (one group): sort, scan, window_sql and ineqsql_w at --memory-limit-one.
+On one.parquet (one group): sort, scan, window_sql and uneven_w at --memory-limit-one.
 pandas is skipped there: it would hold the whole table (plus a sorted copy) in memory.
 
 Weighted Gini per group, x sorted ascending, C_i = running sum of w, W = sum w, T = sum w*x:
@@ -57,19 +57,19 @@ def gen_groups(data: str) -> int:
     return GROUPS_OF[data]
 
 G1000_CASES = ["startup", "sort", "scan", "pandas", "window_sql", "window_sql_u",
-               "ineqsql_w", "ineqsql_u", "ineqsql_ten", "ineqsql_moment", "ineqsql_centred",
-               "ineqsql_lorenz", "ineqsql_hhi", "compile"]
-G100K_CASES = ["sort", "scan", "pandas", "window_sql", "window_sql_u", "ineqsql_w", "ineqsql_u",
-               "ineqsql_ten", "ineqsql_moment"]
-TIES_CASES = ["sort", "scan", "pandas", "window_sql", "window_sql_u", "ineqsql_w", "ineqsql_u",
-              "ineqsql_w_rows", "ineqsql_u_rows", "ineqsql_ten"]
-ONE_CASES = ["sort", "scan", "window_sql", "ineqsql_w", "ineqsql_u"]
+               "uneven_w", "uneven_u", "uneven_ten", "uneven_moment", "uneven_centred",
+               "uneven_lorenz", "uneven_hhi", "compile"]
+G100K_CASES = ["sort", "scan", "pandas", "window_sql", "window_sql_u", "uneven_w", "uneven_u",
+               "uneven_ten", "uneven_moment"]
+TIES_CASES = ["sort", "scan", "pandas", "window_sql", "window_sql_u", "uneven_w", "uneven_u",
+              "uneven_w_rows", "uneven_u_rows", "uneven_ten"]
+ONE_CASES = ["sort", "scan", "window_sql", "uneven_w", "uneven_u"]
 # data kind -> cases run on it (the one-group file at --memory-limit-one, the others at --memory-limit)
 DATASETS = {"g1000": G1000_CASES, "g100k": G100K_CASES, "ties": TIES_CASES, "one": ONE_CASES}
 ALL_CASES = list(dict.fromkeys(G1000_CASES + G100K_CASES + TIES_CASES + ONE_CASES))
 # Gini-computing cases compared pairwise (weighted; unweighted)
-WEIGHTED_GINI = ["pandas", "window_sql", "ineqsql_w", "ineqsql_w_rows"]
-UNWEIGHTED_GINI = ["window_sql_u", "ineqsql_u", "ineqsql_u_rows"]
+WEIGHTED_GINI = ["pandas", "window_sql", "uneven_w", "uneven_w_rows"]
+UNWEIGHTED_GINI = ["window_sql_u", "uneven_u", "uneven_u_rows"]
 REL_TOL = 1e-9
 
 
@@ -199,12 +199,12 @@ def _case_pandas(a):
 
 def _case_compile(a):
     try:
-        import ineqsql
+        import uneven
     except ImportError as e:
-        return {"status": "n/a", "reason": f"ineqsql not importable: {e}"}, None
-    fn = getattr(ineqsql, "compile", None)
+        return {"status": "n/a", "reason": f"uneven not importable: {e}"}, None
+    fn = getattr(uneven, "compile", None)
     if fn is None:
-        return {"status": "n/a", "reason": "ineqsql.compile does not exist yet"}, None
+        return {"status": "n/a", "reason": "uneven.compile does not exist yet"}, None
     t0 = time.perf_counter()
     fn(COMPILE_SQL)
     first = time.perf_counter() - t0
@@ -264,7 +264,7 @@ def child_main(a) -> int:
 
 def run_case(case: str, data_kind: str, path: Path, memory_limit: str, a) -> dict:
     """Run one case in a fresh subprocess; return its report with per-process peak RSS."""
-    with tempfile.TemporaryDirectory(prefix="ineqsql-bench-") as td:
+    with tempfile.TemporaryDirectory(prefix="uneven-bench-") as td:
         out = Path(td) / "result.json"
         log = Path(td) / "log.txt"
         cmd = [sys.executable, str(Path(__file__).resolve()), "--child", case,
@@ -443,7 +443,7 @@ def environment() -> dict:
     from importlib import metadata
     env = {"python": platform.python_version(), "platform": platform.platform(),
            "cpu_count": os.cpu_count()}
-    for dist in ("duckdb", "numpy", "pandas", "pyarrow", "ineqsql"):
+    for dist in ("duckdb", "numpy", "pandas", "pyarrow", "uneven"):
         try:
             env[dist] = metadata.version(dist)
         except metadata.PackageNotFoundError:
@@ -561,7 +561,7 @@ def parent_main(a) -> int:
 
 
 def main(argv: list[str] | None = None) -> int:
-    p = argparse.ArgumentParser(description="Benchmark exact Gini in ineqsql against baselines.")
+    p = argparse.ArgumentParser(description="Benchmark exact Gini in uneven against baselines.")
     p.add_argument("--rows", type=int, default=20_000_000, help="rows of g1000.parquet")
     p.add_argument("--rows-one", type=int, default=100_000_000, help="rows of one.parquet")
     p.add_argument("--skip-one", action="store_true", help="skip the one-group cases")

@@ -1,4 +1,4 @@
-"""Spark local: exact weighted Gini per group (SQL compiled by ineqsql for Spark) against Spark's
+"""Spark local: exact weighted Gini per group (SQL compiled by uneven for Spark) against Spark's
 own ORDER BY of the same rows, in one Spark session, on invented data (fixed seed).
 
     python bench/spark_vs_sort.py                       # 10,000,000 rows x 100 groups
@@ -21,8 +21,8 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-import ineqsql
-from ineqsql import reference as R
+import uneven
+from uneven import reference as R
 
 HERE = Path(__file__).parent
 
@@ -66,14 +66,14 @@ def main() -> int:
     make_data(path, args.rows, args.groups)
 
     from pyspark.sql import SparkSession
-    spark = (SparkSession.builder.master("local[2]").appName("ineqsql-bench")
+    spark = (SparkSession.builder.master("local[2]").appName("uneven-bench")
              .config("spark.driver.memory", args.driver_memory).config("spark.ui.enabled", "false")
              .config("spark.ui.showConsoleProgress", "false").config("spark.sql.shuffle.partitions", "8")
              .getOrCreate())
     spark.sparkContext.setLogLevel("ERROR")
     spark.read.parquet(str(path)).createOrReplaceTempView("t")
 
-    compiled = ineqsql.compile("SELECT grp, gini(x, w) AS g FROM t GROUP BY grp", dialect="spark")
+    compiled = uneven.compile("SELECT grp, gini(x, w) AS g FROM t GROUP BY grp", dialect="spark")
     result: list = []
     t_gini = timed(lambda: result.__setitem__(slice(None), spark.sql(compiled).collect()), args.repeat)
     t_sort = timed(lambda: spark.sql("SELECT * FROM t ORDER BY grp, x").write.format("noop")

@@ -21,14 +21,14 @@ from pathlib import Path
 import duckdb
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-import ineqsql  # noqa: E402
+import uneven  # noqa: E402
 
 
 def timed(con, sql: str, repeat: int = 1) -> float:
     best = float("inf")
     for _ in range(repeat):
         started = time.perf_counter()
-        con.execute(ineqsql.compile(sql, pretty=False)).fetchall()
+        con.execute(uneven.compile(sql, pretty=False)).fetchall()
         best = min(best, time.perf_counter() - started)
     return best
 
@@ -65,7 +65,7 @@ def main(argv=None) -> int:
     t_scan = timed(con, f"SELECT grp, sum(x) FROM {sub} GROUP BY grp", args.repeat)
     t_gsub = timed(con, f"SELECT grp, gini(x, w) FROM {sub} GROUP BY grp", args.repeat)
     started = time.perf_counter()
-    compiled = ineqsql.compile(f"SELECT grp, gini_boot_se(x, w, replicates := {args.replicates}, seed := 1) "
+    compiled = uneven.compile(f"SELECT grp, gini_boot_se(x, w, replicates := {args.replicates}, seed := 1) "
                                f"FROM {sub} GROUP BY grp", pretty=False)
     t_compile = time.perf_counter() - started
     started = time.perf_counter()

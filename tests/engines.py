@@ -5,7 +5,7 @@ returning a DataFrame (list results as Python lists of dicts; SQLite's JSON text
 for the tests to decode). DuckDB is always present; PostgreSQL (a throwaway server, see
 pg_server.py), Spark (pyspark in local mode, tables read from Parquet) and SQLite (Python's
 sqlite3) start once per test run and are skipped with a reason where absent; with
-INEQSQL_REQUIRE_ENGINES=1, as in CI, an absent engine fails instead.
+UNEVEN_REQUIRE_ENGINES=1, as in CI, an absent engine fails instead.
 """
 
 from __future__ import annotations
@@ -21,7 +21,7 @@ import duckdb
 import pandas as pd
 import pytest
 
-import ineqsql
+import uneven
 
 
 def quoted(name) -> str:
@@ -42,9 +42,9 @@ class DuckDBEngine:
         self.con = duckdb.connect()
 
     def load(self, df: pd.DataFrame, table: str = "t") -> None:
-        self.con.register("_iq_test_df", df)
-        self.con.execute(f"CREATE OR REPLACE TABLE {quoted(table)} AS SELECT * FROM _iq_test_df")
-        self.con.unregister("_iq_test_df")
+        self.con.register("_uv_test_df", df)
+        self.con.execute(f"CREATE OR REPLACE TABLE {quoted(table)} AS SELECT * FROM _uv_test_df")
+        self.con.unregister("_uv_test_df")
 
     def execute(self, compiled: str) -> pd.DataFrame:
         try:
@@ -53,7 +53,7 @@ class DuckDBEngine:
             raise EngineError(str(e)) from None
 
     def run(self, sql: str, **options) -> pd.DataFrame:
-        return self.execute(ineqsql.compile(sql, dialect=self.dialect, **options))
+        return self.execute(uneven.compile(sql, dialect=self.dialect, **options))
 
     def close(self):
         self.con.close()
@@ -138,9 +138,9 @@ class SparkEngine(DuckDBEngine):
     def __init__(self):
         if SparkEngine.session is None:
             from pyspark.sql import SparkSession
-            SparkEngine.folder = Path(tempfile.mkdtemp(prefix="ineqsql-spark-"))
+            SparkEngine.folder = Path(tempfile.mkdtemp(prefix="uneven-spark-"))
             SparkEngine.session = (
-                SparkSession.builder.master("local[2]").appName("ineqsql-tests")
+                SparkSession.builder.master("local[2]").appName("uneven-tests")
                 .config("spark.sql.shuffle.partitions", "2").config("spark.default.parallelism", "2")
                 .config("spark.ui.enabled", "false").config("spark.ui.showConsoleProgress", "false")
                 .config("spark.driver.memory", "1g")
@@ -191,10 +191,10 @@ class SQLiteEngine(DuckDBEngine):
     dialect = "sqlite"
 
     def __init__(self):
-        from ineqsql.engine.sqlite import raised_message
+        from uneven.engine.sqlite import raised_message
         self.raised_message = raised_message
         self.con = sqlite3.connect(":memory:")
-        ineqsql.install_sqlite_functions(self.con)
+        uneven.install_sqlite_functions(self.con)
 
     def load(self, df: pd.DataFrame, table: str = "t") -> None:
         cols = ", ".join(f'{quoted(c)} {_SQLITE_TYPES.get(df[c].dtype.kind, "TEXT")}' for c in df.columns)
@@ -219,7 +219,7 @@ _FAILED: dict[str, str] = {}
 
 
 def require_engines() -> bool:
-    return os.environ.get("INEQSQL_REQUIRE_ENGINES") == "1"
+    return os.environ.get("UNEVEN_REQUIRE_ENGINES") == "1"
 
 
 def engine_or_skip(name: str):
@@ -229,7 +229,7 @@ def engine_or_skip(name: str):
         except Exception as e:  # an engine absent on this machine  # noqa: BLE001
             _FAILED[name] = f"{type(e).__name__}: {str(e).strip()[:300]}"
     if require_engines():
-        pytest.fail(f"engine {name} is required (INEQSQL_REQUIRE_ENGINES=1) but could not start: {_FAILED[name]}")
+        pytest.fail(f"engine {name} is required (UNEVEN_REQUIRE_ENGINES=1) but could not start: {_FAILED[name]}")
     pytest.skip(f"engine {name} is not available here: {_FAILED[name]}")
 
 

@@ -1,6 +1,6 @@
 """An independent way to evaluate a query with measure calls: DuckDB itself does the grouping,
 joins, HAVING and ORDER BY, and each measure call becomes a Python function over the group's
-rows, collected as a list, that calls the numpy reference (``ineqsql.reference``).
+rows, collected as a list, that calls the numpy reference (``uneven.reference``).
 
 Compiled results are compared with this on the golden fixtures (and by the fuzzer), so the
 compiler's passes, joins and key handling are checked by a path that shares none of them.
@@ -14,9 +14,9 @@ import duckdb
 import sqlglot
 from sqlglot import exp
 
-from ineqsql import catalog
-from ineqsql import reference as R
-from ineqsql.compiler.calls import _constant
+from uneven import catalog
+from uneven import reference as R
+from uneven.compiler.calls import _constant
 
 _XW = "STRUCT(x DOUBLE, w DOUBLE)[]"
 _XE = "STRUCT(x DOUBLE, e VARCHAR)[]"
@@ -87,11 +87,11 @@ def _general_rows(x, column, weight, strata, psu, extra):
 
 
 def install_oracle(con: duckdb.DuckDBPyConnection) -> None:
-    con.create_function("_iq_ref_general", _ref_general, ["VARCHAR", "VARCHAR", _XA], "DOUBLE",
+    con.create_function("_uv_ref_general", _ref_general, ["VARCHAR", "VARCHAR", _XA], "DOUBLE",
                         null_handling="special")
-    con.create_function("_iq_ref_w", _ref_w, ["VARCHAR", "VARCHAR", _XW], "DOUBLE", null_handling="special")
-    con.create_function("_iq_ref_e", _ref_e, ["VARCHAR", "VARCHAR", _XE], "DOUBLE", null_handling="special")
-    con.create_function("_iq_ref_curve", _ref_curve, ["VARCHAR", "VARCHAR", _XW], _CURVE,
+    con.create_function("_uv_ref_w", _ref_w, ["VARCHAR", "VARCHAR", _XW], "DOUBLE", null_handling="special")
+    con.create_function("_uv_ref_e", _ref_e, ["VARCHAR", "VARCHAR", _XE], "DOUBLE", null_handling="special")
+    con.create_function("_uv_ref_curve", _ref_curve, ["VARCHAR", "VARCHAR", _XW], _CURVE,
                         null_handling="special")
 
 
@@ -131,16 +131,16 @@ def oracle_sql(sql: str) -> str:
             options = {"level": _constant(named["level"])} if "level" in named else {}
             spec = {"params": numbers, "options": options, "strata": "strata" in named, "psu": "psu" in named}
             trailing = args[1 + nparams] if len(args) > 1 + nparams else None
-            return exp.Anonymous(this="_iq_ref_general", expressions=[
+            return exp.Anonymous(this="_uv_ref_general", expressions=[
                 exp.Literal.string(m.name), exp.Literal.string(json.dumps(spec)),
                 _general_rows(args[0], cols[0] if cols else None, trailing, named.get("strata"), named.get("psu"),
                               extra)])
         params = [_constant(a) for a in args[1:1 + nparams]]
         trailing = args[1 + nparams] if len(args) > 1 + nparams else None
         if m.trailing == "entity":
-            fname, field = "_iq_ref_e", "e"
+            fname, field = "_uv_ref_e", "e"
         else:
-            fname, field = ("_iq_ref_curve" if m.returns == "lorenz_points" else "_iq_ref_w"), "w"
+            fname, field = ("_uv_ref_curve" if m.returns == "lorenz_points" else "_uv_ref_w"), "w"
         if m.name == "cr":
             params = [int(p) for p in params]
         if m.name == "lorenz_curve":

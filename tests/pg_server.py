@@ -1,7 +1,7 @@
 """A throwaway PostgreSQL server for the tests: initdb in a temporary folder, a free port on
 127.0.0.1, trust authentication, stopped and removed at the end of the test run.
 
-INEQSQL_PG_DSN (a libpq connection string) uses an existing server instead. As root (CI), the
+UNEVEN_PG_DSN (a libpq connection string) uses an existing server instead. As root (CI), the
 server runs as the ``postgres`` OS user, since PostgreSQL refuses to run as root.
 """
 
@@ -33,13 +33,13 @@ def _free_port() -> int:
 class PostgresServer:
     def __init__(self):
         self.dir: Path | None = None
-        self.dsn = os.environ.get("INEQSQL_PG_DSN")
+        self.dsn = os.environ.get("UNEVEN_PG_DSN")
         if self.dsn:
             return
         initdb, pg_ctl = find_bin("initdb"), find_bin("pg_ctl")
         if not initdb or not pg_ctl:
             raise RuntimeError("PostgreSQL server binaries (initdb, pg_ctl) not found; install the "
-                               "postgresql package or set INEQSQL_PG_DSN")
+                               "postgresql package or set UNEVEN_PG_DSN")
         self.pg_ctl = pg_ctl
         self.as_user: list[str] = []
         if os.geteuid() == 0:  # PostgreSQL refuses to run as root
@@ -47,7 +47,7 @@ class PostgresServer:
             if not runuser:
                 raise RuntimeError("running as root, but runuser is missing to start PostgreSQL as postgres")
             self.as_user = [runuser, "-u", "postgres", "--"]
-        self.dir = Path(tempfile.mkdtemp(prefix="ineqsql-pg-"))
+        self.dir = Path(tempfile.mkdtemp(prefix="uneven-pg-"))
         self.data = self.dir / "data"
         try:
             self._start()

@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-import ineqsql
+import uneven
 
 mp.mp.dps = 60
 
@@ -47,14 +47,14 @@ def mp_values(x, w):
 def run(df: pd.DataFrame, sql: str = SQL):
     con = duckdb.connect()
     con.register("t", df)
-    return ineqsql.query(sql, con=con)
+    return uneven.query(sql, con=con)
 
 
 def centred_groups(df: pd.DataFrame, sql: str = SQL) -> int:
     """How many groups the plan sent through the centred CTE (its deterministic name)."""
-    compiled = ineqsql.compile(sql)
+    compiled = uneven.compile(sql)
     assert "FSUM(" in compiled
-    counted = compiled[:compiled.rindex("SELECT")] + 'SELECT count(*) FROM "_iq_cen_1"'
+    counted = compiled[:compiled.rindex("SELECT")] + 'SELECT count(*) FROM "_uv_cen_1"'
     con = duckdb.connect()
     con.register("t", df)
     return con.execute(counted).fetchone()[0]
@@ -74,12 +74,12 @@ def check_against_mpmath(df: pd.DataFrame, got: pd.DataFrame, rel_tol: float) ->
 
 
 def test_plan_is_adaptive_on_duckdb_only():
-    text = str(ineqsql.explain("SELECT g, theil(x, w), ge(x, 2, w) FROM t GROUP BY g"))
+    text = str(uneven.explain("SELECT g, theil(x, w), ge(x, 2, w) FROM t GROUP BY g"))
     assert "centred [adaptive]" in text, text
     # another engine has no compensated sum: every group centred, no FSUM in its SQL
-    assert "FSUM" not in ineqsql.compile("SELECT g, theil(x, w) FROM t GROUP BY g", dialect="postgres").upper()
+    assert "FSUM" not in uneven.compile("SELECT g, theil(x, w) FROM t GROUP BY g", dialect="postgres").upper()
     # cv and hoover have no one-pass form: with them in the pass, every group is centred
-    mixed = str(ineqsql.explain("SELECT theil(x, w), cv(x, w) FROM t"))
+    mixed = str(uneven.explain("SELECT theil(x, w), cv(x, w) FROM t"))
     assert "centred [centred]" in mixed and "cv" in mixed
 
 

@@ -20,7 +20,7 @@ def test_bench_runs_and_cases_agree(tmp_path):
                          timeout=1200)
     assert run.returncode == 0, run.stdout[-2000:] + run.stderr[-2000:]
     results = json.loads(out.read_text())["results"]
-    assert {r["case"] for r in results} >= {"sort", "scan", "pandas", "window_sql", "ineqsql_w", "ineqsql_u"}
+    assert {r["case"] for r in results} >= {"sort", "scan", "pandas", "window_sql", "uneven_w", "uneven_u"}
     assert all(r["status"] == "ok" for r in results)
 
 
@@ -31,5 +31,5 @@ def test_out_of_core_runs_stay_bounded_and_clean(tmp_path):
                          capture_output=True, text=True, timeout=1200)
     assert run.returncode == 0, run.stdout[-2000:] + run.stderr[-2000:]
     runs = json.loads(out.read_text())["runs"]
-    assert {(r["data"], r["case"]) for r in runs} == {(d, c) for d in ("one", "g10k") for c in ("ineqsql_w", "ineqsql_u")}
+    assert {(r["data"], r["case"]) for r in runs} == {(d, c) for d in ("one", "g10k") for c in ("uneven_w", "uneven_u")}
     assert all(r["ok"] and r["temp_files_left"] == [] for r in runs)

@@ -10,9 +10,9 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-import ineqsql
-from ineqsql import reference as R
-from ineqsql.errors import MeasureArgumentError
+import uneven
+from uneven import reference as R
+from uneven.errors import MeasureArgumentError
 
 TWO_64 = 2.0 ** 64
 
@@ -55,7 +55,7 @@ def test_bootstrap_matches_numpy_from_engine_draws(con, measure, params, ref, un
     sql = (f"SELECT {measure}_boot_se(x{args}, w, {opt}) AS se, {measure}_boot_lo(x{args}, w, {opt}) AS lo, "
            f"{measure}_boot_hi(x{args}, w, {opt}, level := 0.8) AS hi, "
            f"{measure}_boot_lo(x{args}, w, {opt}, interval := 'normal') AS nlo FROM t")
-    got = ineqsql.query(sql, c).iloc[0]
+    got = uneven.query(sql, c).iloc[0]
     # sd with R − 1 (common practice); percentile ends: inverted-CDF quantiles of the replicates (numpy)
     assert abs(got.se - thetas.std(ddof=1)) <= 1e-9 * thetas.std(ddof=1)
     assert abs(got.lo - np.quantile(thetas, 0.025, method="inverted_cdf")) < 1e-12
@@ -67,12 +67,12 @@ def test_bootstrap_matches_numpy_from_engine_draws(con, measure, params, ref, un
 def test_bootstrap_is_reproducible_and_seeded(con):
     c, _ = con
     q = "SELECT gini_boot_se(x, w, replicates := 20, key := id, seed := {s}) AS se FROM t"
-    a, b, other = (ineqsql.query(q.format(s=s), c)["se"][0] for s in (5, 5, 6))
+    a, b, other = (uneven.query(q.format(s=s), c)["se"][0] for s in (5, 5, 6))
     # the same draws; parallel sums may differ in the last bits only
     assert a == pytest.approx(b, rel=1e-12) and abs(a - other) > 1e-9 * a
     # without a key: identical rows are numbered among themselves, so the draws still repeat
     q2 = "SELECT gini_boot_se(x, w, replicates := 20, seed := 5) AS se FROM t"
-    assert ineqsql.query(q2, c)["se"][0] == pytest.approx(ineqsql.query(q2, c)["se"][0], rel=1e-12)
+    assert uneven.query(q2, c)["se"][0] == pytest.approx(uneven.query(q2, c)["se"][0], rel=1e-12)
 
 
 @pytest.mark.slow
@@ -82,7 +82,7 @@ def test_bootstrap_se_close_to_linearization_on_large_samples():
     n = 20_000
     df = pd.DataFrame({"g": np.repeat(np.arange(4), n), "x": rng.lognormal(0, 1, 4 * n),
                        "w": rng.uniform(1, 3, 4 * n), "id": np.arange(4 * n)})
-    res = ineqsql.query("SELECT g, gini_se(x, w) AS lin, gini_boot_se(x, w, replicates := 400, key := id, "
+    res = uneven.query("SELECT g, gini_se(x, w) AS lin, gini_boot_se(x, w, replicates := 400, key := id, "
                         "seed := 3) AS boot, theil_se(x) AS tl, theil_boot_se(x, replicates := 400, key := id, "
                         "seed := 3) AS tb FROM df GROUP BY g")
     assert (abs(res.boot / res.lin - 1) < 0.10).all(), res
@@ -97,5 +97,5 @@ def test_bootstrap_se_close_to_linearization_on_large_samples():
 ])
 def test_bootstrap_option_errors(sql, needle):
     with pytest.raises(MeasureArgumentError) as e:
-        ineqsql.compile(sql)
+        uneven.compile(sql)
     assert needle in str(e.value)

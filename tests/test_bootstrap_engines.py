@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from ineqsql import reference_se as RS
+from uneven import reference_se as RS
 
 R = 60  # replicates: the SE of a bootstrap SE is about 1/sqrt(2R) ≈ 9% of it
 

@@ -1,6 +1,6 @@
 """method="bounded": the exact value lies in every interval, on random data sets (hypothesis).
 
-Oracle: the numpy reference (``ineqsql.reference``, itself checked against exact fractions, brute
+Oracle: the numpy reference (``uneven.reference``, itself checked against exact fractions, brute
 force and closed forms in test_reference.py). The bounds are proved in docs/bounded.md; these tests
 look for a data set that breaks one: ties, zeros, negative values, one row, skewed weights, values
 at bin edges (powers of 1 + r), tiny and huge magnitudes.
@@ -19,8 +19,8 @@ import pytest
 from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
-import ineqsql
-from ineqsql import reference as ref
+import uneven
+from uneven import reference as ref
 
 # (select item, reference on (x, w)); weighted calls use w, and the same on unweighted data
 MEASURES = [
@@ -74,7 +74,7 @@ def check_inside(df: pd.DataFrame, data: pd.DataFrame, weighted: bool) -> None:
 
 @functools.lru_cache(maxsize=None)
 def compiled(weighted: bool, resolution: float) -> str:
-    return ineqsql.compile(bounded_query(weighted), method="bounded", resolution=resolution)
+    return uneven.compile(bounded_query(weighted), method="bounded", resolution=resolution)
 
 
 def run_bounded(con, data: pd.DataFrame, weighted: bool, resolution: float) -> pd.DataFrame:
@@ -133,9 +133,9 @@ PINNED = pd.DataFrame(
 # CI: 8 random examples of up to 8 data sets each (~35 data sets) at two resolutions, plus the pinned
 # data sets at two more; every example checks every measure of MEASURES, weighted or not. Each
 # (weighted, resolution) pair costs one compile of the 22-measure query, most of this test's time.
-# The wide search is test_exact_value_inside_interval_many (-m slow). INEQSQL_BOUNDED_EXAMPLES
+# The wide search is test_exact_value_inside_interval_many (-m slow). UNEVEN_BOUNDED_EXAMPLES
 # raises the CI count.
-CI_EXAMPLES = int(os.environ.get("INEQSQL_BOUNDED_EXAMPLES", "8"))
+CI_EXAMPLES = int(os.environ.get("UNEVEN_BOUNDED_EXAMPLES", "8"))
 
 
 @settings(max_examples=CI_EXAMPLES, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
@@ -170,41 +170,41 @@ def test_lognormal_width_at_default_resolution(con):
 def test_query_tolerance_reaches_1e6():
     rng = np.random.default_rng(7)
     t = pd.DataFrame({"x": rng.lognormal(0.0, 1.0, 3000)})  # noqa: F841 (read by the query)
-    df = ineqsql.query("SELECT gini(x) AS g FROM t", method="bounded", tolerance=1e-6)
-    info = df.attrs["ineqsql"]
+    df = uneven.query("SELECT gini(x) AS g FROM t", method="bounded", tolerance=1e-6)
+    info = df.attrs["uneven"]
     assert info["widths"]["g"] <= 1e-6
     assert df["g_lo"][0] <= ref.gini(t["x"].to_numpy()) <= df["g_hi"][0]
 
 
 def test_no_sort_of_the_rows():
-    sql = ineqsql.compile("SELECT g, gini(x, w) FROM t GROUP BY g", method="bounded")
-    assert '"_iq_x"' in sql and 'ORDER BY "_iq_x"' not in sql  # windows run over bins only
-    assert "ORDER BY \"iq_min\"" in sql
+    sql = uneven.compile("SELECT g, gini(x, w) FROM t GROUP BY g", method="bounded")
+    assert '"_uv_x"' in sql and 'ORDER BY "_uv_x"' not in sql  # windows run over bins only
+    assert "ORDER BY \"uv_min\"" in sql
 
 
 def test_bounded_errors():
-    with pytest.raises(ineqsql.MeasureUsageError, match="whole select item"):
-        ineqsql.compile("SELECT round(gini(x), 3) FROM t", method="bounded")
-    with pytest.raises(ineqsql.MeasureUsageError, match="no interval form"):
-        ineqsql.compile("SELECT lorenz_curve(x, 4) FROM t", method="bounded")
-    with pytest.raises(ineqsql.MeasureUsageError, match="method must be"):
-        ineqsql.compile("SELECT gini(x) FROM t", method="approx")
-    with pytest.raises(ineqsql.IneqsqlError, match="bounded. only"):
-        ineqsql.compile("SELECT gini(x) FROM t", tolerance=1e-3)
-    with pytest.raises(ineqsql.IneqsqlError, match="resolution must"):
-        ineqsql.compile("SELECT gini(x) FROM t", method="bounded", resolution=0)
+    with pytest.raises(uneven.MeasureUsageError, match="whole select item"):
+        uneven.compile("SELECT round(gini(x), 3) FROM t", method="bounded")
+    with pytest.raises(uneven.MeasureUsageError, match="no interval form"):
+        uneven.compile("SELECT lorenz_curve(x, 4) FROM t", method="bounded")
+    with pytest.raises(uneven.MeasureUsageError, match="method must be"):
+        uneven.compile("SELECT gini(x) FROM t", method="approx")
+    with pytest.raises(uneven.UnevenError, match="bounded. only"):
+        uneven.compile("SELECT gini(x) FROM t", tolerance=1e-3)
+    with pytest.raises(uneven.UnevenError, match="resolution must"):
+        uneven.compile("SELECT gini(x) FROM t", method="bounded", resolution=0)
 
 
 def test_entity_measures_stay_exact():
     t = pd.DataFrame({"x": [5.0, 3.0, 2.0, 7.0], "e": [1, 1, 2, 3]})  # noqa: F841
-    df = ineqsql.query("SELECT hhi(x, e) AS h, gini(x) AS g FROM t", method="bounded")
+    df = uneven.query("SELECT hhi(x, e) AS h, gini(x) AS g FROM t", method="bounded")
     exact = ref.hhi(np.array([5.0, 3.0, 2.0, 7.0]), np.array([1, 1, 2, 3]))
     assert df["h"][0] == pytest.approx(exact) and df["h_lo"][0] == df["h_hi"][0] == df["h"][0]
     assert df["g_lo"][0] <= ref.gini(np.array([5.0, 3.0, 2.0, 7.0])) <= df["g_hi"][0]
 
 
 def test_cli_bounded(capsys):
-    from ineqsql.cli.main import main
+    from uneven.cli.main import main
     code = main(["query", "--method", "bounded", "--format", "csv",
                  "SELECT gini(x) AS g FROM (VALUES (1.0), (2.0), (4.0), (10.0)) t(x)"])
     out, err = capsys.readouterr()
@@ -212,7 +212,7 @@ def test_cli_bounded(capsys):
     lo, hi = (float(v) for v in out.splitlines()[1].split(",")[1:3])
     assert lo <= ref.gini(np.array([1.0, 2.0, 4.0, 10.0])) <= hi
     assert main(["compile", "--method", "bounded", "SELECT gini(x) FROM t"]) == 0
-    assert "iq_bin" in capsys.readouterr().out
+    assert "uv_bin" in capsys.readouterr().out
     assert main(["query", "--tolerance", "1e-3", "SELECT gini(x) FROM (VALUES (1)) t(x)"]) == 2
 
 

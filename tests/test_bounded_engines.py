@@ -1,6 +1,6 @@
 """method="bounded" on every engine of the backend matrix (DuckDB, PostgreSQL, Spark, SQLite).
 
-The same check as test_bounded.py: the numpy reference (``ineqsql.reference``, itself checked
+The same check as test_bounded.py: the numpy reference (``uneven.reference``, itself checked
 against exact fractions and closed forms in test_reference.py) lies inside [lo, hi], and the point
 estimate too, for every measure with a bounded form, weighted and not, on groups with a NULL key,
 NULL values and weights, zero weights, ties, zeros and negative values. The intervals an engine
@@ -18,7 +18,7 @@ from conftest import make_groups
 from engines import EngineError, engine_or_skip
 from test_bounded import MEASURES, RATIOS
 
-import ineqsql
+import uneven
 
 # (output name, select item, weighted, reference): every call of MEASURES, weighted and unweighted
 ITEMS = [(f"w{i}", m, True, r) for i, (m, r) in enumerate(MEASURES)] + \
@@ -127,7 +127,7 @@ def test_negative_weight_stops_the_bounded_query(engine, batch):
         # one Spark query per run here (CI time); Spark's raise_error rule is the one
         # test_measures_engines.py checks on the exact method
         pytest.skip("Spark runs only the batched query of this file")
-    with pytest.raises(EngineError, match="ineqsql: negative weight"):
+    with pytest.raises(EngineError, match="uneven: negative weight"):
         engine.run("SELECT grp, gini(x, w - 3) FROM t GROUP BY grp", method="bounded")
 
 
@@ -140,18 +140,18 @@ def test_summaries_from_three_engines_merge_and_certify():
     parts = {name: data.iloc[i::3] for i, name in enumerate(("duckdb", "sqlite", "postgres"))}
     frames = []
     for name, part in parts.items():
-        if name == "duckdb":  # the DataFrame is read by its name, as ineqsql.query reads it
-            frames.append(ineqsql.summarize("part", "x", "w", by=["grp"], powers=[2]))
+        if name == "duckdb":  # the DataFrame is read by its name, as uneven.query reads it
+            frames.append(uneven.summarize("part", "x", "w", by=["grp"], powers=[2]))
             continue
         engine = engine_or_skip(name)
         engine.load(part, "part")
-        got = engine.execute(ineqsql.summarize("part", "x", "w", by=["grp"], powers=[2], dialect=name))
+        got = engine.execute(uneven.summarize("part", "x", "w", by=["grp"], powers=[2], dialect=name))
         frames.append(got.assign(**{c: pd.to_numeric(got[c]) for c in got.columns if c != "grp"}))
         engine.close()
     one, two, three = frames  # noqa: RUF059 (read by from_summary by name)
-    merged = ineqsql.from_summary(["one", "two", "three"], ["gini AS g", "top_share(0.1) AS t", "theil AS th",
+    merged = uneven.from_summary(["one", "two", "three"], ["gini AS g", "top_share(0.1) AS t", "theil AS th",
                                                            "quantile_w(0.5) AS q", "ge(2) AS ge2", "cv AS cv"])
-    from ineqsql import reference as R
+    from uneven import reference as R
     assert sorted(merged["grp"]) == sorted(data["grp"].unique())
     for _, row in merged.iterrows():
         sub = data[(data["grp"] == row["grp"]) & (data["w"] > 0)]

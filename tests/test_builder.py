@@ -1,6 +1,6 @@
 """The Python builder: every source kind gives the SQL front-end's numbers (itself checked against
 the numpy reference in test_measures_engines.py), column names are identifiers, bad input raises
-IneqsqlError subclasses naming function and argument."""
+UnevenError subclasses naming function and argument."""
 
 from __future__ import annotations
 
@@ -10,8 +10,8 @@ import pandas as pd
 import pyarrow as pa
 import pytest
 
-import ineqsql
-from ineqsql import reference as R
+import uneven
+from uneven import reference as R
 
 ODD = 'x"; DROP TABLE t; --'
 
@@ -26,13 +26,13 @@ def frame() -> pd.DataFrame:
 
 
 def _built(q):
-    return q.group_by("province").agg(g=ineqsql.gini("income", weight="w"), t=ineqsql.top_share("income", 0.1),
-                                      th=ineqsql.theil("income", weight="w"))
+    return q.group_by("province").agg(g=uneven.gini("income", weight="w"), t=uneven.top_share("income", 0.1),
+                                      th=uneven.theil("income", weight="w"))
 
 
 def _sql_front_end(frame, source="frame"):
-    # ineqsql.query reads the DataFrame named in the SQL from its caller's variables
-    return ineqsql.query(f"SELECT province, gini(income, w) AS g, top_share(income, 0.1) AS t, theil(income, w) AS th "
+    # uneven.query reads the DataFrame named in the SQL from its caller's variables
+    return uneven.query(f"SELECT province, gini(income, w) AS g, top_share(income, 0.1) AS t, theil(income, w) AS th "
                          f"FROM {source} WHERE year = 2024 GROUP BY province ORDER BY province")
 
 
@@ -56,20 +56,20 @@ def test_every_source_kind_matches_the_sql_front_end(frame, tmp_path):
     sources = [frame, pa.Table.from_pandas(frame), str(tmp_path / "a.parquet"), str(tmp_path / "a.csv"),
                str(tmp_path / "a.json"), str(tmp_path / "part*.parquet"), con.sql("SELECT * FROM households")]
     for src in sources:
-        _same(_built(ineqsql.from_(src).filter("year = 2024")).df(), want)
-    _same(_built(ineqsql.from_("households", con=con).filter("year = 2024")).df(), want)
+        _same(_built(uneven.from_(src).filter("year = 2024")).df(), want)
+    _same(_built(uneven.from_("households", con=con).filter("year = 2024")).df(), want)
     # against the numpy reference directly too
     d = frame[(frame.year == 2024) & (frame.province == "Arvel")]
-    got = _built(ineqsql.from_(frame).filter("year = 2024")).df().set_index("province")
+    got = _built(uneven.from_(frame).filter("year = 2024")).df().set_index("province")
     assert got.loc["Arvel", "g"] == pytest.approx(R.gini(d.income, d.w), rel=1e-9)
 
 
 def test_arrow_and_sql_outputs(frame):
-    q = _built(ineqsql.from_(frame))
+    q = _built(uneven.from_(frame))
     table = q.arrow()
     assert isinstance(table, pa.Table) and table.column_names == ["province", "g", "t", "th"]
     text = q.sql(dialect="duckdb")
-    assert "gini" not in text.lower().replace('"g"', "") or "_iq_" in text
+    assert "gini" not in text.lower().replace('"g"', "") or "_uv_" in text
     assert "OVER" in text
 
 
@@ -78,7 +78,7 @@ def test_a_hostile_column_name_is_just_a_column():
     con = duckdb.connect()
     con.execute("CREATE TABLE t AS SELECT 1 AS a")
     con.register("src", df)
-    out = ineqsql.from_("src", con=con).group_by("k").agg(g=ineqsql.gini(ODD)).df()
+    out = uneven.from_("src", con=con).group_by("k").agg(g=uneven.gini(ODD)).df()
     assert out["g"].tolist() == pytest.approx([R.gini([1, 2]), R.gini([3, 10])])
     assert con.execute("SELECT a FROM t").fetchone() == (1,)  # still there
 
@@ -87,28 +87,28 @@ def test_filter_takes_expressions_and_user_defined_measures_appear():
     from sqlglot import exp
     df = pd.DataFrame({"x": [1.0, 2.0, 3.0, 4.0]})
     cond = exp.column("x", quoted=True) > 1
-    assert ineqsql.from_(df).filter(cond).agg(g=ineqsql.gini("x")).df()["g"][0] == pytest.approx(R.gini([2, 3, 4]))
+    assert uneven.from_(df).filter(cond).agg(g=uneven.gini("x")).df()["g"][0] == pytest.approx(R.gini([2, 3, 4]))
 
 
 @pytest.mark.parametrize("make,words", [
-    (lambda: ineqsql.top_share("x", 1.5), ["top_share", "p", "fraction"]),
-    (lambda: ineqsql.top_share("x"), ["top_share", "1 parameter"]),
-    (lambda: ineqsql.gini("x", 0.5), ["gini", "0 parameter"]),
-    (lambda: ineqsql.gini(3), ["gini", "value"]),
-    (lambda: ineqsql.gini("x", wieght="w"), ["gini", "wieght"]),
-    (lambda: ineqsql.atkinson("x", "high"), ["atkinson", "eps", "number"]),
-    (lambda: ineqsql.ginni("x"), ["ginni", "measures"]),
-    (lambda: ineqsql.from_(pd.DataFrame({"x": [1.0]})).filter("x >>> 1"), ["filter", "parse"]),
-    (lambda: ineqsql.from_("nope/*.parquet"), ["no file"]),
-    (lambda: ineqsql.from_("households"), ["con="]),
-    (lambda: ineqsql.from_(pd.DataFrame({"x": [1.0]})).agg(g="gini(x)"), ["agg", "g="]),
-    (lambda: ineqsql.from_(pd.DataFrame({"x": [1.0], "w": ["a"]})).agg(g=ineqsql.gini("x", weight="w")).df(),
+    (lambda: uneven.top_share("x", 1.5), ["top_share", "p", "fraction"]),
+    (lambda: uneven.top_share("x"), ["top_share", "1 parameter"]),
+    (lambda: uneven.gini("x", 0.5), ["gini", "0 parameter"]),
+    (lambda: uneven.gini(3), ["gini", "value"]),
+    (lambda: uneven.gini("x", wieght="w"), ["gini", "wieght"]),
+    (lambda: uneven.atkinson("x", "high"), ["atkinson", "eps", "number"]),
+    (lambda: uneven.ginni("x"), ["ginni", "measures"]),
+    (lambda: uneven.from_(pd.DataFrame({"x": [1.0]})).filter("x >>> 1"), ["filter", "parse"]),
+    (lambda: uneven.from_("nope/*.parquet"), ["no file"]),
+    (lambda: uneven.from_("households"), ["con="]),
+    (lambda: uneven.from_(pd.DataFrame({"x": [1.0]})).agg(g="gini(x)"), ["agg", "g="]),
+    (lambda: uneven.from_(pd.DataFrame({"x": [1.0], "w": ["a"]})).agg(g=uneven.gini("x", weight="w")).df(),
      ["gini"]),
-    (lambda: ineqsql.from_(pd.DataFrame({"x": [1.0, 2.0], "w": [1.0, -1.0]})).agg(g=ineqsql.gini("x", weight="w")).df(),
+    (lambda: uneven.from_(pd.DataFrame({"x": [1.0, 2.0], "w": [1.0, -1.0]})).agg(g=uneven.gini("x", weight="w")).df(),
      ["negative weight", "w"]),
 ])
-def test_bad_input_raises_ineqsql_errors(make, words):
-    with pytest.raises(ineqsql.IneqsqlError) as err:
+def test_bad_input_raises_uneven_errors(make, words):
+    with pytest.raises(uneven.UnevenError) as err:
         make()
     for word in words:
         assert word in str(err.value)
@@ -116,14 +116,14 @@ def test_bad_input_raises_ineqsql_errors(make, words):
 
 def test_named_options_reach_the_compiler():
     # design and interval options by name, as in SQL (name := value); the compiled query is the SQL one
-    call = ineqsql.gini_se("x", weight="w", strata="h", psu="c")
+    call = uneven.gini_se("x", weight="w", strata="h", psu="c")
     assert call.to_expression().sql("duckdb") == 'GINI_SE("x", "w", strata := "h", psu := "c")'
-    lo = ineqsql.gini_ci_lo("x", weight="w", level=0.9)
+    lo = uneven.gini_ci_lo("x", weight="w", level=0.9)
     assert lo.to_expression().sql("duckdb") == 'GINI_CI_LO("x", "w", level := 0.9)'
-    with pytest.raises(ineqsql.IneqsqlError, match="unknown argument 'bogus'"):
-        ineqsql.gini_se("x", bogus=1)
-    with pytest.raises(ineqsql.IneqsqlError, match="psu must be a column name"):
-        ineqsql.gini_se("x", psu=3)
+    with pytest.raises(uneven.UnevenError, match="unknown argument 'bogus'"):
+        uneven.gini_se("x", bogus=1)
+    with pytest.raises(uneven.UnevenError, match="psu must be a column name"):
+        uneven.gini_se("x", psu=3)
 
 
 # --- method="bounded" through the builder (intervals checked against the numpy reference) ----------
@@ -138,30 +138,30 @@ def _inside_reference(df, frame):
 
 
 def test_bounded_df_gives_intervals_around_the_reference(frame):
-    df = _built(ineqsql.from_(frame)).df(method="bounded")
+    df = _built(uneven.from_(frame)).df(method="bounded")
     assert list(df.columns) == ["province", "g", "g_lo", "g_hi", "t", "t_lo", "t_hi", "th", "th_lo", "th_hi"]
     assert sorted(df["province"]) == ["Arvel", "Brisk", "Coldra"]
     _inside_reference(df, frame)
-    assert df.attrs["ineqsql"]["method"] == "bounded" and df.attrs["ineqsql"]["resolution"] == 0.01
+    assert df.attrs["uneven"]["method"] == "bounded" and df.attrs["uneven"]["resolution"] == 0.01
 
 
 def test_bounded_method_with_tolerance_reaches_it(frame):
-    q = _built(ineqsql.from_(frame)).method("bounded", tolerance=1e-6)
+    q = _built(uneven.from_(frame)).method("bounded", tolerance=1e-6)
     df = q.df()
     _inside_reference(df, frame)
-    assert (df["g_hi"] - df["g_lo"]).max() <= 1e-6 and df.attrs["ineqsql"]["tolerance"] == 1e-6
+    assert (df["g_hi"] - df["g_lo"]).max() <= 1e-6 and df.attrs["uneven"]["tolerance"] == 1e-6
     table = q.arrow()
     assert table.column_names == list(df.columns)
     assert q.df(method="exact").columns.tolist() == ["province", "g", "t", "th"]  # a run's own option wins
-    assert "iq_bin" in q.sql() and "_iq_ord" not in q.sql()  # bins, no sorted pass
-    assert "iq_bin" in _built(ineqsql.from_(frame)).sql("postgres", method="bounded", resolution=0.1)
+    assert "uv_bin" in q.sql() and "_uv_ord" not in q.sql()  # bins, no sorted pass
+    assert "uv_bin" in _built(uneven.from_(frame)).sql("postgres", method="bounded", resolution=0.1)
 
 
 def test_bounded_builder_errors(frame):
-    q = _built(ineqsql.from_(frame))
-    with pytest.raises(ineqsql.MeasureUsageError, match="method must be"):
+    q = _built(uneven.from_(frame))
+    with pytest.raises(uneven.MeasureUsageError, match="method must be"):
         q.method("approximate")
-    with pytest.raises(ineqsql.IneqsqlError, match="bounded' only"):
+    with pytest.raises(uneven.UnevenError, match="bounded' only"):
         q.df(tolerance=1e-3)
-    with pytest.raises(ineqsql.IneqsqlError, match="resolution must"):
+    with pytest.raises(uneven.UnevenError, match="resolution must"):
         q.method("bounded", resolution=5)

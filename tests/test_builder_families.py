@@ -11,31 +11,31 @@ import numpy as np
 import pandas as pd
 import pytest
 
-import ineqsql
-from ineqsql import reference_se as RSE
-from ineqsql import reference_structure as RS
-from ineqsql.errors import MeasureArgumentError
+import uneven
+from uneven import reference_se as RSE
+from uneven import reference_structure as RS
+from uneven.errors import MeasureArgumentError
 
 # (builder call, the same call in SQL text)
 FAMILIES = [
-    (lambda: ineqsql.concentration("y", "x", weight="w"), "concentration(y, x, w)"),
-    (lambda: ineqsql.concentration_erreygers("b", "x", 0, 1, weight="w"), "concentration_erreygers(b, x, 0, 1, w)"),
-    (lambda: ineqsql.concentration_wagstaff("b", "x", lo=0, hi=1), "concentration_wagstaff(b, x, 0, 1)"),
-    (lambda: ineqsql.kakwani("tax", "x", weight="w"), "kakwani(tax, x, w)"),
-    (lambda: ineqsql.reynolds_smolensky("x", "post", weight="w"), "reynolds_smolensky(x, post, w)"),
-    (lambda: ineqsql.ge_between("x", 0, "r"), "ge_between(x, 0, r)"),
-    (lambda: ineqsql.ge_within("x", 2, "r", weight="w"), "ge_within(x, 2, r, w)"),
-    (lambda: ineqsql.gini_diff("x", "post", weight="w"), "gini_diff(x, post, w)"),
-    (lambda: ineqsql.gini_diff_se("x", "post"), "gini_diff_se(x, post)"),
-    (lambda: ineqsql.gini_se("x", weight="w", strata="h", psu="c"), "gini_se(x, w, strata := h, psu := c)"),
-    (lambda: ineqsql.top_share_ci_hi("x", 0.1, weight="w", psu="c", level=0.9),
+    (lambda: uneven.concentration("y", "x", weight="w"), "concentration(y, x, w)"),
+    (lambda: uneven.concentration_erreygers("b", "x", 0, 1, weight="w"), "concentration_erreygers(b, x, 0, 1, w)"),
+    (lambda: uneven.concentration_wagstaff("b", "x", lo=0, hi=1), "concentration_wagstaff(b, x, 0, 1)"),
+    (lambda: uneven.kakwani("tax", "x", weight="w"), "kakwani(tax, x, w)"),
+    (lambda: uneven.reynolds_smolensky("x", "post", weight="w"), "reynolds_smolensky(x, post, w)"),
+    (lambda: uneven.ge_between("x", 0, "r"), "ge_between(x, 0, r)"),
+    (lambda: uneven.ge_within("x", 2, "r", weight="w"), "ge_within(x, 2, r, w)"),
+    (lambda: uneven.gini_diff("x", "post", weight="w"), "gini_diff(x, post, w)"),
+    (lambda: uneven.gini_diff_se("x", "post"), "gini_diff_se(x, post)"),
+    (lambda: uneven.gini_se("x", weight="w", strata="h", psu="c"), "gini_se(x, w, strata := h, psu := c)"),
+    (lambda: uneven.top_share_ci_hi("x", 0.1, weight="w", psu="c", level=0.9),
      "top_share_ci_hi(x, 0.1, w, psu := c, level := 0.9)"),
-    (lambda: ineqsql.theil_se("x", strata="h"), "theil_se(x, strata := h)"),
-    (lambda: ineqsql.gini_boot_se("x", weight="w", replicates=40, seed=5, key="id"),
+    (lambda: uneven.theil_se("x", strata="h"), "theil_se(x, strata := h)"),
+    (lambda: uneven.gini_boot_se("x", weight="w", replicates=40, seed=5, key="id"),
      "gini_boot_se(x, w, replicates := 40, seed := 5, key := id)"),
-    (lambda: ineqsql.gini_boot_lo("x", replicates=40, interval="normal"),
+    (lambda: uneven.gini_boot_lo("x", replicates=40, interval="normal"),
      "gini_boot_lo(x, replicates := 40, interval := 'normal')"),
-    (lambda: ineqsql.gini("x", weight="w", strict=True), "gini(x, w, strict := true)"),
+    (lambda: uneven.gini("x", weight="w", strict=True), "gini(x, w, strict := true)"),
 ]
 
 
@@ -61,10 +61,10 @@ def con(survey):
 
 
 def test_every_family_matches_the_sql_front_end(con):
-    built = ineqsql.from_("s", con=con).group_by("prov").agg(**{f"m{i}": f() for i, (f, _) in enumerate(FAMILIES)})
+    built = uneven.from_("s", con=con).group_by("prov").agg(**{f"m{i}": f() for i, (f, _) in enumerate(FAMILIES)})
     got = built.df().sort_values("prov").reset_index(drop=True)
     items = ", ".join(f"{sql} AS m{i}" for i, (_, sql) in enumerate(FAMILIES))
-    want = ineqsql.query(f"SELECT prov, {items} FROM s GROUP BY prov ORDER BY prov", con=con)
+    want = uneven.query(f"SELECT prov, {items} FROM s GROUP BY prov ORDER BY prov", con=con)
     assert list(got["prov"]) == ["Arvel", "Brisk"]
     for i, (_, sql) in enumerate(FAMILIES):
         assert want[f"m{i}"].notna().all(), sql  # every family is defined on this data
@@ -72,9 +72,9 @@ def test_every_family_matches_the_sql_front_end(con):
 
 
 def test_builder_against_numpy_references(con, survey):
-    out = ineqsql.from_("s", con=con).group_by("prov").agg(
-        c=ineqsql.concentration("y", "x", weight="w"), k=ineqsql.kakwani("tax", "x", weight="w"),
-        gb=ineqsql.ge_between("x", 0, "r"), se=ineqsql.gini_se("x", weight="w", strata="h", psu="c")).df()
+    out = uneven.from_("s", con=con).group_by("prov").agg(
+        c=uneven.concentration("y", "x", weight="w"), k=uneven.kakwani("tax", "x", weight="w"),
+        gb=uneven.ge_between("x", 0, "r"), se=uneven.gini_se("x", weight="w", strata="h", psu="c")).df()
     for prov, d in survey.groupby("prov"):
         row = out[out["prov"] == prov].iloc[0]
         x, w = d["x"].to_numpy(float), d["w"].to_numpy(float)
@@ -88,20 +88,20 @@ def test_builder_against_numpy_references(con, survey):
 
 
 def test_builder_sql_quotes_column_arguments(survey):
-    q = ineqsql.from_(survey).agg(c=ineqsql.concentration("y", 'x"; DROP TABLE s; --'),
-                               se=ineqsql.gini_se("x", psu="c c"))
+    q = uneven.from_(survey).agg(c=uneven.concentration("y", 'x"; DROP TABLE s; --'),
+                               se=uneven.gini_se("x", psu="c c"))
     text = q.sql()
     assert '"x""; DROP TABLE s; --"' in text and '"c c"' in text
 
 
 def test_builder_argument_errors():
     with pytest.raises(MeasureArgumentError, match=r"concentration\(\): rank_by must be a column name"):
-        ineqsql.concentration("y", 0.5)
+        uneven.concentration("y", 0.5)
     with pytest.raises(MeasureArgumentError, match=r"gini_se\(\): psu must be a column name"):
-        ineqsql.gini_se("x", psu=3)
+        uneven.gini_se("x", psu=3)
     with pytest.raises(MeasureArgumentError, match=r"gini\(\): unknown argument 'psu'"):
-        ineqsql.gini("x", psu="c")
+        uneven.gini("x", psu="c")
     with pytest.raises(MeasureArgumentError, match=r"lo must be below hi"):
-        ineqsql.concentration_wagstaff("b", "x", 1, 0)
+        uneven.concentration_wagstaff("b", "x", 1, 0)
     with pytest.raises(MeasureArgumentError, match=r"ge_between\(\): alpha must be a number"):
-        ineqsql.ge_between("x", "r", 0)
+        uneven.ge_between("x", "r", 0)

@@ -1,7 +1,7 @@
 """Centred measures (cv, hoover) computed on the ordered pass of the same value, weight and FILTER
 (the group mean as a partition total of the window) give the reference values: weighted and not,
 with tie grouping on and off, with a FILTER, and on data with a large common offset and a tiny
-spread (where Σw·x²/W − μ² would lose every digit). Reference: ``ineqsql.reference`` (numpy with
+spread (where Σw·x²/W − μ² would lose every digit). Reference: ``uneven.reference`` (numpy with
 ``math.fsum``, checked against outside sources in test_reference.py)."""
 
 from __future__ import annotations
@@ -11,8 +11,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-import ineqsql
-from ineqsql import reference as ref
+import uneven
+from uneven import reference as ref
 
 
 def frame(seed: int = 5, offset: float = 0.0, spread: float = 1.0) -> pd.DataFrame:
@@ -42,7 +42,7 @@ def expected(df: pd.DataFrame, measure, weighted: bool, where=None) -> dict:
 
 
 def run(con, sql: str, **options) -> dict:
-    got = ineqsql.query(sql, con=con, **options)
+    got = uneven.query(sql, con=con, **options)
     return {(k if isinstance(k, str) else None): v for k, v in zip(got.iloc[:, 0], got.iloc[:, 1])}
 
 
@@ -61,7 +61,7 @@ def test_fused_centred_matches_reference(name, weighted, tie_grouping):
     con.register("t", df)
     w = ", w" if weighted else ""
     sql = f"SELECT grp, {name}(x{w}), gini(x{w}) FROM t GROUP BY grp"
-    explained = ineqsql.explain(sql, con=con, tie_grouping=tie_grouping)
+    explained = uneven.explain(sql, con=con, tie_grouping=tie_grouping)
     kinds = [p["kind"] for p in explained.passes]
     assert "centred" not in kinds  # served by the ordered pass
     got = run(con, sql, tie_grouping=tie_grouping)
@@ -88,7 +88,7 @@ def test_fused_centred_with_filter_and_tiny_spread():
 def test_centred_pass_kept_without_keys_or_ordered_pass():
     con = duckdb.connect()
     con.register("t", frame())
-    one = ineqsql.explain("SELECT cv(x, w), gini(x, w) FROM t", con=con)
+    one = uneven.explain("SELECT cv(x, w), gini(x, w) FROM t", con=con)
     assert "centred" in [p["kind"] for p in one.passes]
-    alone = ineqsql.explain("SELECT grp, cv(x, w) FROM t GROUP BY grp", con=con)
+    alone = uneven.explain("SELECT grp, cv(x, w) FROM t GROUP BY grp", con=con)
     assert [p["kind"] for p in alone.passes] == ["centred"]

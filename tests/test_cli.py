@@ -1,4 +1,4 @@
-"""The ineqsql command: output formats, atomic writes, errors without tracebacks, the demo."""
+"""The uneven command: output formats, atomic writes, errors without tracebacks, the demo."""
 
 from __future__ import annotations
 
@@ -10,8 +10,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from ineqsql import reference as R
-from ineqsql.cli.main import main
+from uneven import reference as R
+from uneven.cli.main import main
 
 
 @pytest.fixture()
@@ -69,7 +69,7 @@ def test_failed_query_leaves_no_file(tmp_path, capsys):
 def test_errors_are_messages_not_tracebacks(capsys):
     assert main(["query", "SELECT top_share(x, 1.5) FROM t"]) == 2
     err = capsys.readouterr().err
-    assert err.startswith("ineqsql: error: top_share(): p must be a fraction")
+    assert err.startswith("uneven: error: top_share(): p must be a fraction")
     assert "line 1, column 8" in err and "Traceback" not in err
 
 
@@ -90,7 +90,7 @@ def test_compile_and_measures(capsys):
     out = capsys.readouterr().out
     assert "ROW_NUMBER() OVER" in out
     import sqlglot
-    from ineqsql.compiler.calls import find_calls
+    from uneven.compiler.calls import find_calls
     assert not find_calls(sqlglot.parse_one(out, read="duckdb"))  # only the output alias says gini
     assert main(["measures"]) == 0
     out = capsys.readouterr().out
@@ -112,7 +112,7 @@ def test_demo_small(tmp_path, capsys):
 
 
 def test_console_script_help():
-    out = subprocess.run([sys.executable, "-m", "ineqsql.cli.main", "--help"], capture_output=True, text=True)
+    out = subprocess.run([sys.executable, "-m", "uneven.cli.main", "--help"], capture_output=True, text=True)
     assert out.returncode == 0
     for word in ("query", "compile", "measures", "demo"):
         assert word in out.stdout
@@ -158,4 +158,4 @@ def test_unwritable_demo_folder_is_a_message(tmp_path, capsys):
     blocker.write_text("not a folder")
     assert main(["demo", "--rows", "10", "--dir", str(blocker / "sub")]) == 2
     err = capsys.readouterr().err
-    assert err.startswith("ineqsql: error:") and "Traceback" not in err
+    assert err.startswith("uneven: error:") and "Traceback" not in err

@@ -1,7 +1,7 @@
 """The difference of a measure between two groups of rows with its standard error
-(structure.compare with group=/groups=, and `ineqsql compare --group`), against an independent
+(structure.compare with group=/groups=, and `uneven compare --group`), against an independent
 numpy computation written here from the published formulas: the linearized Gini of each row
-(Langel & Tillé 2013, via ineqsql.reference_se.influence, itself checked against numerical
+(Langel & Tillé 2013, via uneven.reference_se.influence, itself checked against numerical
 derivatives in test_uncertainty.py) and the with-replacement variance of a total over strata and
 PSUs (Wolter 2007, §1.4); plus a small Monte Carlo check that the SE tracks the spread of the
 difference over repeated samples."""
@@ -14,10 +14,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from ineqsql import reference_se as RSE
-from ineqsql.cli.main import main
-from ineqsql.errors import MeasureArgumentError
-from ineqsql.structure import compare
+from uneven import reference_se as RSE
+from uneven.cli.main import main
+from uneven.errors import MeasureArgumentError
+from uneven.structure import compare
 
 
 @pytest.fixture(scope="module")

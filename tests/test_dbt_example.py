@@ -14,7 +14,7 @@ import duckdb
 import numpy as np
 import pytest
 
-from ineqsql import reference as R
+from uneven import reference as R
 
 EXAMPLE = Path(__file__).resolve().parents[1] / "examples" / "dbt_vareland"
 

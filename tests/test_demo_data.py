@@ -1,4 +1,4 @@
-"""Tests of the invented demo data generators (ineqsql.demo.data)."""
+"""Tests of the invented demo data generators (uneven.demo.data)."""
 
 from __future__ import annotations
 
@@ -7,7 +7,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from ineqsql.demo import data
+from uneven.demo import data
 
 ROWS = 20_000
 

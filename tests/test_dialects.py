@@ -8,7 +8,7 @@
   grouping with the numpy reference per group, tests/oracle.py), number by number.
 - Rules and errors: an unknown dialect, a construct an engine lacks, input read in another dialect.
 
-Refresh the emitted goldens after an intended change: INEQSQL_UPDATE_GOLDEN=1 pytest tests/test_dialects.py
+Refresh the emitted goldens after an intended change: UNEVEN_UPDATE_GOLDEN=1 pytest tests/test_dialects.py
 """
 
 from __future__ import annotations
@@ -22,11 +22,11 @@ import pandas as pd
 import pytest
 import sqlglot
 
-import ineqsql
+import uneven
 from engines import engine_or_skip
-from ineqsql.cli.main import main
-from ineqsql.compiler.calls import find_calls
-from ineqsql.compiler.dialects import EXECUTED_DIALECTS, SUPPORTED_DIALECTS
+from uneven.cli.main import main
+from uneven.compiler.calls import find_calls
+from uneven.compiler.dialects import EXECUTED_DIALECTS, SUPPORTED_DIALECTS
 from oracle import install_oracle, oracle_sql
 from test_golden import GOLDEN, ROOT, _same, read_fixture
 
@@ -40,9 +40,9 @@ FILE_SOURCES = {p.stem for p in GOLDEN if ".parquet'" in read_fixture(p)[0]}
 @pytest.mark.parametrize("path", GOLDEN, ids=[p.stem for p in GOLDEN])
 def test_emitted_dialect_golden(path, dialect):
     query, _ = read_fixture(path)
-    got = ineqsql.compile(query, dialect=dialect)
+    got = uneven.compile(query, dialect=dialect)
     target = DIALECT_GOLDEN / dialect / path.name
-    if os.environ.get("INEQSQL_UPDATE_GOLDEN") == "1":
+    if os.environ.get("UNEVEN_UPDATE_GOLDEN") == "1":
         target.parent.mkdir(parents=True, exist_ok=True)
         target.write_text(f"-- {path.name} compiled for {dialect} (emitted, not executed here)\n{got}\n")
     expected = target.read_text().split("\n", 1)[1].strip()
@@ -54,7 +54,7 @@ def test_emitted_dialect_golden(path, dialect):
 @pytest.mark.parametrize("dialect", [d for d in SUPPORTED_DIALECTS if d not in EMITTED])
 def test_executed_dialects_parse_back(dialect):
     for path in GOLDEN:
-        compiled = ineqsql.compile(read_fixture(path)[0], dialect=dialect)
+        compiled = uneven.compile(read_fixture(path)[0], dialect=dialect)
         assert not find_calls(sqlglot.parse_one(compiled, read=dialect)), path.name
 
 
@@ -121,16 +121,16 @@ def _plain(v):
 # --- rules and errors -------------------------------------------------------------------------
 
 def test_unknown_dialect_lists_the_supported_ones():
-    with pytest.raises(ineqsql.UnsupportedDialectError) as e:
-        ineqsql.compile("SELECT gini(x) FROM t", dialect="oracle")
+    with pytest.raises(uneven.UnsupportedDialectError) as e:
+        uneven.compile("SELECT gini(x) FROM t", dialect="oracle")
     for name in SUPPORTED_DIALECTS:
         assert name in str(e.value)
     assert set(EXECUTED_DIALECTS) == {"duckdb", "postgres", "spark", "sqlite"}
 
 
 def test_unknown_read_dialect_is_refused():
-    with pytest.raises(ineqsql.UnsupportedDialectError, match="cannot read SQL written in 'cobol'"):
-        ineqsql.compile("SELECT gini(x) FROM t", read="cobol")
+    with pytest.raises(uneven.UnsupportedDialectError, match="cannot read SQL written in 'cobol'"):
+        uneven.compile("SELECT gini(x) FROM t", read="cobol")
 
 
 @pytest.mark.parametrize("dialect,sql,construct", [
@@ -140,31 +140,31 @@ def test_unknown_read_dialect_is_refused():
     ("trino", "SELECT k, quantile_cont(x, 0.5), gini(x) FROM t GROUP BY k", "exact quantile"),
 ])
 def test_construct_an_engine_lacks_is_refused(dialect, sql, construct):
-    with pytest.raises(ineqsql.UnsupportedDialectError) as e:
-        ineqsql.compile(sql, dialect=dialect)
+    with pytest.raises(uneven.UnsupportedDialectError) as e:
+        uneven.compile(sql, dialect=dialect)
     assert construct in str(e.value) and dialect in str(e.value)
 
 
 def test_error_outside_a_case_branch_is_refused_without_a_raising_function():
-    with pytest.raises(ineqsql.UnsupportedDialectError, match="error\\(\\) outside a CASE branch .* postgres"):
-        ineqsql.compile("SELECT k, gini(x), error('boom') IS NULL FROM t GROUP BY k", dialect="postgres")
+    with pytest.raises(uneven.UnsupportedDialectError, match="error\\(\\) outside a CASE branch .* postgres"):
+        uneven.compile("SELECT k, gini(x), error('boom') IS NULL FROM t GROUP BY k", dialect="postgres")
 
 
 def test_group_by_all_is_expanded_where_it_means_something_else():
     sql = "SELECT k, upper(j) AS u, count(*) AS n FROM t GROUP BY ALL"  # no measure: passes through
     for dialect in ("postgres", "trino", "sqlite"):
-        tree = sqlglot.parse_one(ineqsql.compile(sql, dialect=dialect), read=dialect)
+        tree = sqlglot.parse_one(uneven.compile(sql, dialect=dialect), read=dialect)
         assert [g.sql(dialect) for g in tree.args["group"].expressions] == ["k", "UPPER(j)"], dialect
 
 
 def test_postgres_joins_pass_results_by_hashable_equalities():
-    compiled = ineqsql.compile("SELECT k, gini(x), cv(x) FROM t GROUP BY k", dialect="postgres")
+    compiled = uneven.compile("SELECT k, gini(x), cv(x) FROM t GROUP BY k", dialect="postgres")
     assert "IS NOT DISTINCT FROM" not in compiled
-    assert 'COALESCE(CAST("_iq_agg_1"."_iq_k1" AS TEXT), \'\')' in compiled
+    assert 'COALESCE(CAST("_uv_agg_1"."_uv_k1" AS TEXT), \'\')' in compiled
 
 
 def test_postgres_guards_every_log_and_divisor():
-    tree = sqlglot.parse_one(ineqsql.compile("SELECT k, theil(x), mld(x, w) FROM t GROUP BY k",
+    tree = sqlglot.parse_one(uneven.compile("SELECT k, theil(x), mld(x, w) FROM t GROUP BY k",
                                              dialect="postgres"), read="postgres")
     assert all(isinstance(ln.this, sqlglot.exp.Case) for ln in tree.find_all(sqlglot.exp.Ln))
     assert all(isinstance(d.expression, sqlglot.exp.Nullif) for d in tree.find_all(sqlglot.exp.Div))
@@ -173,11 +173,11 @@ def test_postgres_guards_every_log_and_divisor():
 def test_spark_sql_input_is_read_as_spark():
     # backticks and Spark's function names in the input; measure calls as in any dialect
     sql = "SELECT `region`, gini(income, w) AS g, nvl(max(income), 0) AS top FROM t GROUP BY `region`"
-    compiled = ineqsql.compile(sql, dialect="spark", read="spark")
+    compiled = uneven.compile(sql, dialect="spark", read="spark")
     assert not find_calls(sqlglot.parse_one(compiled, read="spark"))
     con = duckdb.connect()
     con.execute("CREATE TABLE t AS SELECT * FROM (VALUES ('a', 1.0, 1.0), ('a', 3.0, 1.0)) v(region, income, w)")
-    got = con.execute(ineqsql.compile(sql, dialect="duckdb", read="spark")).fetchall()
+    got = con.execute(uneven.compile(sql, dialect="duckdb", read="spark")).fetchall()
     assert got == [("a", pytest.approx(0.25), 3.0)]  # |1 − 3| / (2·2²·2)·2·1·1·… = 0.25 (pairwise form, by hand)
 
 

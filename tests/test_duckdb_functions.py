@@ -1,6 +1,6 @@
-"""Measures registered inside DuckDB (ineqsql.install): aggregate and table macros against the
+"""Measures registered inside DuckDB (uneven.install): aggregate and table macros against the
 compiler (1e-12) and the numpy reference (1e-9), persistence in a database file read by a process
-that never imports ineqsql, install.sql kept up to date, and errors that name function and argument."""
+that never imports uneven, install.sql kept up to date, and errors that name function and argument."""
 
 from __future__ import annotations
 
@@ -15,11 +15,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-import ineqsql
+import uneven
 from conftest import make_groups
-from ineqsql.duckdb_functions import install_sql, installed, uninstall
-from ineqsql.catalog import MEASURES
-from ineqsql.duckdb_functions.install import INSTALL_SQL, FunctionConflictError, has_macros
+from uneven.duckdb_functions import install_sql, installed, uninstall
+from uneven.catalog import MEASURES
+from uneven.duckdb_functions.install import INSTALL_SQL, FunctionConflictError, has_macros
 from test_measures_engines import CASES, ENTITY_CASES, _expected, close
 
 # (template, reference, weighted); entity measures take no weight; lorenz_curve has no macro, nor do
@@ -41,7 +41,7 @@ def con():
     c.register("frame", df)
     c.execute("CREATE TABLE t AS SELECT * FROM frame")
     c.unregister("frame")
-    ineqsql.install(c)
+    uneven.install(c)
     yield c, df
     c.close()
 
@@ -65,11 +65,11 @@ def test_aggregate_form_equals_compiler_and_reference(con, template, ref, weight
     call = template.format(w=", w" if weighted else "")
     sql = f"SELECT grp, {call} AS v FROM t GROUP BY grp"
     registered = _rows(c.execute(sql).fetchdf())  # plain DuckDB: the macro
-    compiled = _rows(ineqsql.query(sql, con=c))  # the compiler rewrites the call first
+    compiled = _rows(uneven.query(sql, con=c))  # the compiler rewrites the call first
     assert set(registered) == set(compiled)
     for key in compiled:
         assert _agree(registered[key], compiled[key]), (key, registered[key], compiled[key])
-    expected = _expected(df, ref, weighted, entity, "grp")  # numpy reference (ineqsql.reference)
+    expected = _expected(df, ref, weighted, entity, "grp")  # numpy reference (uneven.reference)
     for key, want in expected.items():
         assert close(registered[None if pd.isna(key) else key], want), (key, registered, want)
 
@@ -85,7 +85,7 @@ def test_table_form_equals_compiler(con, name, params, trailing):
     args = ", ".join([repr(p) for p in params] + (["NULL"] if trailing is None else [f"'{trailing}'"]))
     got = c.execute(f"SELECT grp, {name} AS v FROM {name}_by('t', 'x', {args}, ['grp'])").fetchdf()
     call_args = ", ".join(["x", *map(str, params)] + ([trailing] if trailing else []))
-    want = ineqsql.query(f"SELECT grp, {name}({call_args}) AS v FROM t GROUP BY grp", con=c)
+    want = uneven.query(f"SELECT grp, {name}({call_args}) AS v FROM t GROUP BY grp", con=c)
     got, want = _rows(got), _rows(want)
     assert set(got) == set(want)
     for key in want:
@@ -95,7 +95,7 @@ def test_table_form_equals_compiler(con, name, params, trailing):
 def test_table_form_several_keys(con):
     c, _ = con
     got = c.execute("SELECT * FROM gini_by('t', 'x', 'w', ['grp', 'e']) ORDER BY grp, e").fetchdf()
-    want = ineqsql.query("SELECT grp, e, gini(x, w) AS gini FROM t GROUP BY grp, e ORDER BY grp, e", con=c)
+    want = uneven.query("SELECT grp, e, gini(x, w) AS gini FROM t GROUP BY grp, e ORDER BY grp, e", con=c)
     assert list(got.columns) == ["grp", "e", "gini"]
     assert np.allclose(got["gini"].to_numpy(float), want["gini"].to_numpy(float), rtol=1e-12, equal_nan=True)
 
@@ -103,7 +103,7 @@ def test_table_form_several_keys(con):
 def test_every_measure_but_lorenz_curve_has_both_forms(con):
     c, _ = con
     names = {n for n, _, _ in installed(c)}
-    for m in ineqsql.measures():
+    for m in uneven.measures():
         if not has_macros(MEASURES[m["name"]]):  # standard errors, decompositions …: compiler only
             assert m["name"] not in names
             continue
@@ -113,13 +113,13 @@ def test_every_measure_but_lorenz_curve_has_both_forms(con):
         assert m["name"] in names and f"{m['name']}_by" in names
 
 
-def test_persists_in_a_file_for_a_process_without_ineqsql(tmp_path):
+def test_persists_in_a_file_for_a_process_without_uneven(tmp_path):
     path = tmp_path / "survey.duckdb"
     c = duckdb.connect(str(path))
     c.execute("CREATE TABLE h AS SELECT i % 3 AS region, (i + 1)::DOUBLE AS income, 1 + i % 2 AS w "
               "FROM range(30) r(i)")
-    ineqsql.install(c)
-    want = ineqsql.query("SELECT region, gini(income, w) AS g, top_share(income, 0.1) AS t FROM h "
+    uneven.install(c)
+    want = uneven.query("SELECT region, gini(income, w) AS g, top_share(income, 0.1) AS t FROM h "
                          "GROUP BY region ORDER BY region", con=c)
     c.close()
     code = textwrap.dedent(f"""
@@ -127,7 +127,7 @@ def test_persists_in_a_file_for_a_process_without_ineqsql(tmp_path):
         c = duckdb.connect({str(path)!r}, read_only=True)
         rows = c.execute("SELECT region, gini(income, w), top_share(income, 0.1) FROM h GROUP BY region ORDER BY region").fetchall()
         print(repr([list(r) for r in rows]))
-        print('ineqsql' in sys.modules)
+        print('uneven' in sys.modules)
     """)
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True,
                          env={"PATH": "/usr/bin:/bin", "PYTHONPATH": ""}).stdout.splitlines()
@@ -139,7 +139,7 @@ def test_persists_in_a_file_for_a_process_without_ineqsql(tmp_path):
 
 def test_install_sql_is_up_to_date_and_runs_in_plain_duckdb():
     assert INSTALL_SQL.read_text(encoding="utf-8") == install_sql(), \
-        "sql/duckdb/install.sql is stale: run python -m ineqsql.duckdb_functions"
+        "sql/duckdb/install.sql is stale: run python -m uneven.duckdb_functions"
     c = duckdb.connect()
     for statement in INSTALL_SQL.read_text(encoding="utf-8").split(";\n"):
         if statement.strip() and not statement.strip().startswith("--") or "CREATE" in statement:
@@ -154,11 +154,11 @@ def test_install_refuses_to_overwrite_a_users_macro_and_uninstall_drops_only_its
     c.execute("CREATE MACRO gini(a) AS 42")
     c.execute("CREATE MACRO my_own(a) AS a + 1")
     with pytest.raises(FunctionConflictError, match="gini"):
-        ineqsql.install(c)
+        uneven.install(c)
     assert c.execute("SELECT gini(1)").fetchone()[0] == 42  # untouched
-    ineqsql.install(c, measures=["theil"])
-    ineqsql.install(c, measures=["theil"])  # again: its own macros are replaced quietly
-    ineqsql.install(c, replace=True)
+    uneven.install(c, measures=["theil"])
+    uneven.install(c, measures=["theil"])  # again: its own macros are replaced quietly
+    uneven.install(c, replace=True)
     assert c.execute("SELECT gini(x) FROM (VALUES (1), (1)) v(x)").fetchone()[0] == 0
     dropped = uninstall(c)
     assert "gini" in dropped and "theil_by" in dropped

@@ -1,12 +1,12 @@
-"""Bad queries get an IneqsqlError subclass naming the function, with line and column."""
+"""Bad queries get an UnevenError subclass naming the function, with line and column."""
 
 from __future__ import annotations
 
 import duckdb
 import pytest
 
-import ineqsql
-from ineqsql.errors import (ExecutionError, InputDataError, MeasureArgumentError, MeasureUsageError,
+import uneven
+from uneven.errors import (ExecutionError, InputDataError, MeasureArgumentError, MeasureUsageError,
                             SqlParseError, UndefinedResultError, UnsupportedSqlError)
 
 
@@ -42,10 +42,10 @@ from ineqsql.errors import (ExecutionError, InputDataError, MeasureArgumentError
 ])
 def test_compile_errors(sql, cls, fragment, line, col):
     with pytest.raises(cls) as info:
-        ineqsql.compile(sql)
+        uneven.compile(sql)
     err = info.value
     assert fragment in str(err)
-    assert isinstance(err, ineqsql.IneqsqlError)
+    assert isinstance(err, uneven.UnevenError)
     if line is not None:
         assert err.line == line
     if col is not None:
@@ -55,7 +55,7 @@ def test_compile_errors(sql, cls, fragment, line, col):
 def test_error_shows_snippet_with_caret():
     sql = "SELECT region,\n       gini(income, w, extra)\nFROM t GROUP BY region"
     with pytest.raises(MeasureArgumentError) as info:
-        ineqsql.compile(sql)
+        uneven.compile(sql)
     text = str(info.value)
     assert info.value.line == 2 and info.value.column == 8
     assert "gini(income, w, extra)" in text
@@ -64,43 +64,43 @@ def test_error_shows_snippet_with_caret():
 
 
 def test_unknown_dialect_lists_supported():
-    with pytest.raises(ineqsql.IneqsqlError, match="supported: duckdb"):
-        ineqsql.compile("SELECT gini(x) FROM t", dialect="nosuchsql")
+    with pytest.raises(uneven.UnevenError, match="supported: duckdb"):
+        uneven.compile("SELECT gini(x) FROM t", dialect="nosuchsql")
 
 
 def test_negative_weight_is_an_input_error():
     with pytest.raises(InputDataError, match="negative weight"):
-        ineqsql.query("SELECT gini(x, w) FROM (VALUES (1.0, 1.0), (2.0, -1.0)) t(x, w)")
+        uneven.query("SELECT gini(x, w) FROM (VALUES (1.0, 1.0), (2.0, -1.0)) t(x, w)")
     with pytest.raises(InputDataError, match="negative weight"):
-        ineqsql.query("SELECT theil(x, w) FROM (VALUES (1.0, 1.0), (2.0, -1.0)) t(x, w)")
+        uneven.query("SELECT theil(x, w) FROM (VALUES (1.0, 1.0), (2.0, -1.0)) t(x, w)")
 
 
 def test_text_value_is_refused_before_running():
     # query() asks DuckDB for the argument types first (compiler/types.py)
     with pytest.raises(MeasureArgumentError, match="the value x is of type VARCHAR, not a number"):
-        ineqsql.query("SELECT gini(x) FROM (VALUES ('a'), ('b')) t(x)")
+        uneven.query("SELECT gini(x) FROM (VALUES ('a'), ('b')) t(x)")
 
 
 def test_text_value_with_compile_alone_fails_in_the_engine():
     # compile() cannot see types: the engine's CAST refuses text that is not a number
     with pytest.raises(duckdb.ConversionException):
-        duckdb.sql(ineqsql.compile("SELECT gini(x) FROM (VALUES ('a'), ('b')) t(x)")).fetchall()
+        duckdb.sql(uneven.compile("SELECT gini(x) FROM (VALUES ('a'), ('b')) t(x)")).fetchall()
 
 
 def test_missing_table_is_an_execution_error():
     with pytest.raises(ExecutionError, match="no_such_table"):
-        ineqsql.query("SELECT gini(x) FROM no_such_table")
+        uneven.query("SELECT gini(x) FROM no_such_table")
 
 
 def test_bad_setting_is_reported():
     with pytest.raises(ExecutionError, match="memory_limit"):
-        ineqsql.query("SELECT gini(x) FROM (VALUES (1.0)) t(x)", memory_limit="lots")
+        uneven.query("SELECT gini(x) FROM (VALUES (1.0)) t(x)", memory_limit="lots")
     with pytest.raises(ExecutionError, match="threads"):
-        ineqsql.query("SELECT gini(x) FROM (VALUES (1.0)) t(x)", threads=0)
+        uneven.query("SELECT gini(x) FROM (VALUES (1.0)) t(x)", threads=0)
 
 
 def test_measure_names_as_column_names_are_fine():
-    df = ineqsql.query("SELECT gini(gini) AS gini FROM (VALUES (1.0), (3.0)) t(gini)")
+    df = uneven.query("SELECT gini(gini) AS gini FROM (VALUES (1.0), (3.0)) t(gini)")
     # two values 1 and 3: Σ|xi−xj| over ordered pairs = 4, 2·n²·μ = 2·4·2 = 16 → 0.25 (pairwise definition)
     assert df["gini"][0] == pytest.approx(0.25, rel=1e-12)
 
@@ -112,19 +112,19 @@ STRICT_DATA = "(VALUES ('a', 1.0), ('a', 0.0), ('b', 2.0), ('b', 4.0), (NULL, -1
 def test_strict_call_names_the_group():
     # mld needs x > 0 (DESIGN domain rule): group 'a' holds a zero
     with pytest.raises(UndefinedResultError, match=r"mld\(x, strict := TRUE\) is undefined \(NULL\) for the group g=a"):
-        ineqsql.query(f"SELECT g, mld(x, strict := true) FROM {STRICT_DATA} WHERE g IS NOT NULL GROUP BY g")
+        uneven.query(f"SELECT g, mld(x, strict := true) FROM {STRICT_DATA} WHERE g IS NOT NULL GROUP BY g")
     # gini needs T > 0: the NULL group sums to −1
     with pytest.raises(UndefinedResultError, match="for the group g=NULL"):
-        ineqsql.query(f"SELECT g, gini(x) FROM {STRICT_DATA} GROUP BY g", strict=True)
+        uneven.query(f"SELECT g, gini(x) FROM {STRICT_DATA} GROUP BY g", strict=True)
 
 
 def test_strict_passes_defined_groups_and_can_be_turned_off_per_call():
-    df = ineqsql.query(f"SELECT g, mld(x) AS m FROM {STRICT_DATA} WHERE g = 'b' GROUP BY g", strict=True)
+    df = uneven.query(f"SELECT g, mld(x) AS m FROM {STRICT_DATA} WHERE g = 'b' GROUP BY g", strict=True)
     # (2, 4): μ = 3, MLD = ln 3 − (ln 2 + ln 4)/2 (definition)
     import math
     assert df["m"][0] == pytest.approx(math.log(3) - (math.log(2) + math.log(4)) / 2, rel=1e-12)
-    df = ineqsql.query(f"SELECT g, mld(x, strict := false) AS m FROM {STRICT_DATA} GROUP BY g ORDER BY g",
+    df = uneven.query(f"SELECT g, mld(x, strict := false) AS m FROM {STRICT_DATA} GROUP BY g ORDER BY g",
                        strict=True)
     assert df["m"].isna().tolist() == [True, False, True]
     with pytest.raises(UndefinedResultError, match="the whole input"):
-        ineqsql.query("SELECT theil(x) FROM (VALUES (-1.0), (2.0)) t(x)", strict=True)
+        uneven.query("SELECT theil(x) FROM (VALUES (-1.0), (2.0)) t(x)", strict=True)

@@ -1,4 +1,4 @@
-"""``ineqsql.explain`` and ``ineqsql explain``: the passes the planner chose, and DuckDB's profile."""
+"""``uneven.explain`` and ``uneven explain``: the passes the planner chose, and DuckDB's profile."""
 
 from __future__ import annotations
 
@@ -9,9 +9,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-import ineqsql
-from ineqsql import reference as R
-from ineqsql.cli.main import main
+import uneven
+from uneven import reference as R
+from uneven.cli.main import main
 
 SQL = ("SELECT g, gini(x, w), palma(x, w), theil(x), hhi(x, e), gini(x) FILTER (WHERE w > 1) "
        "FROM t GROUP BY g")
@@ -30,13 +30,13 @@ def con():
 
 
 def test_passes_name_kind_inputs_measures_and_ctes(con):
-    found = ineqsql.explain(SQL, con)
+    found = uneven.explain(SQL, con)
     got = [(p["kind"], p["value"], p["weight"], p["entity"], p["filter"], p["measures"]) for p in found.passes]
     assert got == [("ordered", "x", "w", None, None, ["gini(x, w)", "palma(x, w)"]),
                    ("centred", "x", None, None, None, ["theil(x)"]),
                    ("entity", "x", None, "e", None, ["hhi(x, e)"]),
                    ("ordered", "x", None, None, "w > 1", ["gini(x)"])]
-    assert found.passes[0]["ctes"] == ["_iq_ord_1_rows", "_iq_ord_1_win", "_iq_ord_1"]
+    assert found.passes[0]["ctes"] == ["_uv_ord_1_rows", "_uv_ord_1_win", "_uv_ord_1"]
     assert found.passes[0]["variant"] == "rows" and "not probed" in found.passes[0]["reason"]
     # every CTE explain names is in the compiled SQL, which is what query() runs
     for p in found.passes:
@@ -48,7 +48,7 @@ def test_passes_name_kind_inputs_measures_and_ctes(con):
 
 
 def test_profile_lists_operators_and_leaves_profiling_off(con):
-    found = ineqsql.explain(SQL, con, profile=True)
+    found = uneven.explain(SQL, con, profile=True)
     assert found.result_rows == 3
     names = {o["name"] for o in found.operators}
     assert "WINDOW" in names and any("GROUP_BY" in n for n in names)
@@ -59,7 +59,7 @@ def test_profile_lists_operators_and_leaves_profiling_off(con):
     assert con.execute("SELECT current_setting('enable_profiling')").fetchone()[0] in (None, "", "no_output")
     # and the query explain ran is the one query() runs: same numbers (reference: numpy)
     df = con.execute("SELECT * FROM t WHERE g = 0").fetchdf()
-    res = ineqsql.query("SELECT g, gini(x, w) AS v FROM t GROUP BY g ORDER BY g", con)
+    res = uneven.query("SELECT g, gini(x, w) AS v FROM t GROUP BY g ORDER BY g", con)
     assert res["v"][0] == pytest.approx(R.gini(df.x.to_numpy(), df.w.to_numpy()), rel=1e-12)
 
 
@@ -72,7 +72,7 @@ def test_cli_explain_text_json_and_errors(con, tmp_path, capsys):
     assert "ordered [rows]" in out and "gini(x, w)" in out and "compiled SQL" not in out
     assert main(["explain", "--show-sql", "--tie-grouping", "on", sql]) == 0
     out = capsys.readouterr().out
-    assert "ordered [ties]" in out and "_iq_ord_1_ties" in out and "compiled SQL:" in out
+    assert "ordered [ties]" in out and "_uv_ord_1_ties" in out and "compiled SQL:" in out
     assert main(["explain", "--json", "--profile", "--top", "3", sql]) == 0
     doc = json.loads(capsys.readouterr().out)
     assert doc["passes"][0]["kind"] == "ordered" and doc["result_rows"] == 3 and doc["operators"]

@@ -2,7 +2,7 @@
 and both the compiled query and the oracle (DuckDB grouping + numpy reference, tests/oracle.py)
 are executed on the fixture data and compared number by number.
 
-Refresh the expected text after an intended change: INEQSQL_UPDATE_GOLDEN=1 pytest tests/test_golden.py
+Refresh the expected text after an intended change: UNEVEN_UPDATE_GOLDEN=1 pytest tests/test_golden.py
 """
 
 from __future__ import annotations
@@ -15,7 +15,7 @@ import duckdb
 import numpy as np
 import pytest
 
-import ineqsql
+import uneven
 from oracle import install_oracle, oracle_sql
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -46,8 +46,8 @@ def con():
 @pytest.mark.parametrize("path", GOLDEN, ids=[p.stem for p in GOLDEN])
 def test_golden_sql(path):
     query, expected = read_fixture(path)
-    got = ineqsql.compile(query)
-    if os.environ.get("INEQSQL_UPDATE_GOLDEN") == "1":
+    got = uneven.compile(query)
+    if os.environ.get("UNEVEN_UPDATE_GOLDEN") == "1":
         head = path.read_text().partition(MARK)[0]
         path.write_text(head + MARK + got + "\n")
         return
@@ -75,7 +75,7 @@ def _same(a, b) -> bool:
 @pytest.mark.parametrize("path", GOLDEN, ids=[p.stem for p in GOLDEN])
 def test_golden_executes_like_oracle(path, con):
     query, _ = read_fixture(path)
-    got = con.execute(ineqsql.compile(query)).fetchall()
+    got = con.execute(uneven.compile(query)).fetchall()
     want = con.execute(oracle_sql(query)).fetchall()
     assert len(got) == len(want) and len(want) > 0
     if "order by" not in query.lower():
@@ -87,7 +87,7 @@ def test_golden_executes_like_oracle(path, con):
 
 
 def test_compiled_sql_has_no_measure_calls():
-    from ineqsql.compiler.calls import find_calls
+    from uneven.compiler.calls import find_calls
     import sqlglot
     for path in GOLDEN:
         tree = sqlglot.parse_one(read_fixture(path)[1], read="duckdb")

@@ -1,5 +1,5 @@
 """Hostile input: every case of the documented input policy (docs/input-policy.md) asserts its
-outcome — a defined value (from the numpy reference, ``ineqsql.reference``), NULL, or a clear
+outcome — a defined value (from the numpy reference, ``uneven.reference``), NULL, or a clear
 error — on every engine of the backend matrix (tests/engines.py). The SQL of the cases avoids
 engine-specific syntax (NaN and infinity come from CAST('NaN' AS DOUBLE) and
 CAST('Infinity' AS DOUBLE); SQLite reads both strings as 0.0, so infinity is the literal 9e999
@@ -16,11 +16,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-import ineqsql
+import uneven
 from engines import ENGINES, engine_or_skip
-from ineqsql import reference as R
-from ineqsql.engine.runner import translate_error
-from ineqsql.errors import (ExecutionError, IneqsqlError, InputDataError, MeasureArgumentError, MeasureUsageError, SqlParseError,
+from uneven import reference as R
+from uneven.engine.runner import translate_error
+from uneven.errors import (ExecutionError, UnevenError, InputDataError, MeasureArgumentError, MeasureUsageError, SqlParseError,
                             UndefinedResultError, UnsupportedSqlError)
 
 NULL = object()  # the expected outcome "NULL"
@@ -62,7 +62,7 @@ class Case:
     match: str = ""  # for errors: text the message must contain
     data: pd.DataFrame | None = None  # default BASE
     only: tuple[str, ...] = ()  # engines the case runs on (empty: all)
-    via_query: bool = False  # run through ineqsql.query (type probing), DuckDB only
+    via_query: bool = False  # run through uneven.query (type probing), DuckDB only
     per_row: bool = False  # want: one value per result row, from the last column (else one row, all columns)
     engines: dict | None = None  # engine → (want, match): that engine's documented outcome differs
     not_on: dict | None = None  # engine → why the case does not apply there
@@ -224,10 +224,10 @@ def _same(got, want) -> bool:
 
 def _run(engine, case: Case):
     if case.via_query:
-        return ineqsql.query(case.sql, engine.con)
+        return uneven.query(case.sql, engine.con)
     try:
         return engine.run(case.sql_for(engine.name))
-    except IneqsqlError:
+    except UnevenError:
         raise
     except Exception as e:  # the engine's own error: the runner's translation (as query() does)
         raise translate_error(e, engine=engine.label) from None
@@ -269,7 +269,7 @@ def _wide_query(n: int) -> str:
 def test_hundreds_of_measures_compile_linearly():
     # a call written many times is one result: its wrappers (finite check, strict guard) are applied
     # once, so the compiled SQL grows linearly with the number of calls
-    small, large = ineqsql.compile(_wide_query(40), pretty=False), ineqsql.compile(_wide_query(160), pretty=False)
+    small, large = uneven.compile(_wide_query(40), pretty=False), uneven.compile(_wide_query(160), pretty=False)
     assert len(large) < 4.5 * len(small)
     con = __import__("duckdb").connect()
     con.register("t", BASE)

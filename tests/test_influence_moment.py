@@ -1,5 +1,5 @@
 """Exact leave-one-out influence for Theil and MLD (influence(measure="theil"|"mld")) against a
-brute-force numpy recomputation without each row in turn (ineqsql.reference, itself checked in
+brute-force numpy recomputation without each row in turn (uneven.reference, itself checked in
 test_reference.py against closed forms)."""
 
 from __future__ import annotations
@@ -8,8 +8,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from ineqsql import reference as R
-from ineqsql.influence import influence
+from uneven import reference as R
+from uneven.influence import influence
 
 
 @pytest.mark.parametrize("measure", ["theil", "mld"])

@@ -1,6 +1,6 @@
 """Lorenz points per group from the database, and their plots (PNG/SVG via matplotlib).
 
-The points are compared with the numpy reference (ineqsql.reference, itself checked against exact
+The points are compared with the numpy reference (uneven.reference, itself checked against exact
 fractions in test_reference.py); the plotted curves are read back from the SVG and compared with
 the same reference."""
 
@@ -14,9 +14,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-import ineqsql
-from ineqsql import reference as R
-from ineqsql.cli.main import main
+import uneven
+from uneven import reference as R
+from uneven.cli.main import main
 
 K = 20
 
@@ -48,7 +48,7 @@ def test_points_from_a_parquet_glob_match_the_reference(tmp_path):
     df = _frame()
     df.iloc[:150].to_parquet(tmp_path / "part-1.parquet")
     df.iloc[150:].to_parquet(tmp_path / "part-2.parquet")
-    points = ineqsql.lorenz_points(str(tmp_path / "*.parquet"), "income", weight="w", by="region", points=K)
+    points = uneven.lorenz_points(str(tmp_path / "*.parquet"), "income", weight="w", by="region", points=K)
     assert list(points.columns) == ["Region", "p", "lorenz", "generalized_lorenz"]  # the source's spelling
     _check_points(points, df)
 
@@ -56,26 +56,26 @@ def test_points_from_a_parquet_glob_match_the_reference(tmp_path):
 def test_points_from_csv_frame_and_table(tmp_path):
     df = _frame(seed=4, groups=("a", "b"))
     df.to_csv(tmp_path / "d.csv", index=False)
-    _check_points(ineqsql.lorenz_points(str(tmp_path / "d.csv"), "income", weight="w", by=["Region"], points=K), df)
-    _check_points(ineqsql.lorenz_points(df, "income", weight="w", by="Region", points=K), df)
+    _check_points(uneven.lorenz_points(str(tmp_path / "d.csv"), "income", weight="w", by=["Region"], points=K), df)
+    _check_points(uneven.lorenz_points(df, "income", weight="w", by="Region", points=K), df)
     con = duckdb.connect()
     con.register("frame", df)
     con.execute('CREATE SCHEMA s; CREATE TABLE s."My Table" AS SELECT * FROM frame')
-    _check_points(ineqsql.lorenz_points("s.My Table", "income", weight="w", by="Region", points=K, con=con), df)
+    _check_points(uneven.lorenz_points("s.My Table", "income", weight="w", by="Region", points=K, con=con), df)
 
 
 def test_uniform_grid_closed_form():
     # equally spaced values 1..n: L(p) = p(pn+1)/(n+1) at p = j/k with pn whole
     # (handbook: the Lorenz curve of a discrete uniform distribution)
     n, k = 100, 10
-    points = ineqsql.lorenz_points(pd.DataFrame({"x": np.arange(1, n + 1)}), "x", points=k)
+    points = uneven.lorenz_points(pd.DataFrame({"x": np.arange(1, n + 1)}), "x", points=k)
     want = [(j / k) * (j * n / k + 1) / (n + 1) for j in range(k + 1)]
     assert points.lorenz.tolist() == pytest.approx(want, abs=1e-12)
 
 
 def test_group_with_no_positive_total_gets_no_curve():
     df = pd.DataFrame({"g": ["a", "a", "b", "b"], "x": [1.0, 3.0, -2.0, 1.0]})
-    points = ineqsql.lorenz_points(df, "x", by="g", points=4)
+    points = uneven.lorenz_points(df, "x", by="g", points=4)
     assert points[points.g == "a"].lorenz.tolist() == pytest.approx([0, 0.125, 0.25, 0.625, 1.0])  # by hand: (0.5·1, 1, 1 + 0.5·3, 4) / 4
     assert points[points.g == "b"].lorenz.isna().all()  # T ≤ 0: undefined, never a made-up number
 
@@ -87,17 +87,17 @@ def test_group_with_no_positive_total_gets_no_curve():
     ({"value": "income", "points": 0}, "points must be a whole number from 1 to 1000"),
 ])
 def test_clear_errors(kwargs, message):
-    with pytest.raises(ineqsql.IneqsqlError, match=re.escape(message)):
-        ineqsql.lorenz_points(_frame(), **kwargs)
+    with pytest.raises(uneven.UnevenError, match=re.escape(message)):
+        uneven.lorenz_points(_frame(), **kwargs)
 
 
 def test_source_errors(tmp_path):
-    with pytest.raises(ineqsql.IneqsqlError, match="no file matches"):
-        ineqsql.lorenz_points(str(tmp_path / "none*.parquet"), "x")
-    with pytest.raises(ineqsql.IneqsqlError, match="unknown file type"):
-        ineqsql.lorenz_points(str(tmp_path / "x.xlsx"), "x")
-    with pytest.raises(ineqsql.IneqsqlError, match="no table or view missing"):
-        ineqsql.lorenz_points("missing", "x")
+    with pytest.raises(uneven.UnevenError, match="no file matches"):
+        uneven.lorenz_points(str(tmp_path / "none*.parquet"), "x")
+    with pytest.raises(uneven.UnevenError, match="unknown file type"):
+        uneven.lorenz_points(str(tmp_path / "x.xlsx"), "x")
+    with pytest.raises(uneven.UnevenError, match="no table or view missing"):
+        uneven.lorenz_points("missing", "x")
 
 
 def _svg_curves(path):

@@ -1,6 +1,6 @@
 """Every catalog measure, weighted and not, per group (NULL key included, ties in the values), on
 every engine (tests/engines.py: DuckDB, PostgreSQL, Spark, SQLite), against the numpy reference
-(``ineqsql.reference``, itself checked in test_reference.py against brute force, exact fractions
+(``uneven.reference``, itself checked in test_reference.py against brute force, exact fractions
 and closed forms); then query shapes (WHERE, HAVING, CTE source, no GROUP BY, GROUP BY ALL over an
 expression) and the errors a query must raise. Tolerance 1e-9 relative (the contract).
 
@@ -17,8 +17,8 @@ import pandas as pd
 import pytest
 
 from conftest import make_groups
-from ineqsql import reference as R
-from ineqsql import reference_structure as RS
+from uneven import reference as R
+from uneven import reference_structure as RS
 
 # (SQL call template, reference call); {w} is ", w" or "" ; the reference gets (x, w) arrays
 CASES = [
@@ -195,12 +195,12 @@ def test_query_shape_matches_reference(engine, data, shape):
 def test_negative_weight_stops_the_query(engine, data):
     # the contract (DESIGN.md): a negative weight is an error where the engine can raise in SQL
     from engines import EngineError
-    with pytest.raises(EngineError, match="ineqsql: negative weight"):
+    with pytest.raises(EngineError, match="uneven: negative weight"):
         engine.run("SELECT grp, gini(x, w - 3) FROM t GROUP BY grp")
 
 
 def test_strict_names_the_undefined_group(engine, data):
     # no row has x > 1e9, so every group is empty and gini is undefined (NULL)
     from engines import EngineError
-    with pytest.raises(EngineError, match=r"ineqsql: gini\(x\) is undefined \(NULL\) for the group grp="):
+    with pytest.raises(EngineError, match=r"uneven: gini\(x\) is undefined \(NULL\) for the group grp="):
         engine.run("SELECT grp, gini(x) FILTER (WHERE x > 1e9) FROM t GROUP BY grp", strict=True)

@@ -10,10 +10,10 @@ import duckdb
 import pandas as pd
 import pytest
 
-import ineqsql
-from ineqsql.cli.main import main
-from ineqsql.engine import output
-from ineqsql.errors import InputDataError, OutputError
+import uneven
+from uneven.cli.main import main
+from uneven.engine import output
+from uneven.errors import InputDataError, OutputError
 
 DF = pd.DataFrame({"g": ["a", "b"], "gini": [0.25, 0.5]})
 
@@ -84,11 +84,11 @@ def test_spills_are_removed_and_source_untouched(tmp_path):
     before = _digest(src)
     spill = tmp_path / "spill"
     sql = f"SELECT g, gini(x, w), theil(x, w) FROM '{src}' GROUP BY g ORDER BY g"
-    df = ineqsql.query(sql, memory_limit="40MB", threads=1, temp_directory=str(spill))
+    df = uneven.query(sql, memory_limit="40MB", threads=1, temp_directory=str(spill))
     assert len(df) == 4 and df.iloc[:, 1].between(0, 1).all()
     # a run that fails half way (a negative weight in the last rows) leaves no spill either
     bad = f"SELECT g, gini(x, CASE WHEN x > 99990 THEN -1 ELSE w END) FROM '{src}' GROUP BY g"
     with pytest.raises(InputDataError, match="negative weight"):
-        ineqsql.query(bad, memory_limit="40MB", threads=1, temp_directory=str(spill))
+        uneven.query(bad, memory_limit="40MB", threads=1, temp_directory=str(spill))
     assert not spill.exists() or list(spill.rglob("*")) == []
     assert _digest(src) == before

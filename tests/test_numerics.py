@@ -16,7 +16,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-import ineqsql
+import uneven
 
 mp.mp.dps = 60
 
@@ -85,7 +85,7 @@ def _run(sql: str, x, w, threads: int | None = None) -> list:
     if threads:
         con.execute(f"SET threads = {threads}")
     con.register("t", pd.DataFrame({"x": x, "w": w}))
-    return list(con.execute(ineqsql.compile(sql)).fetchone())
+    return list(con.execute(uneven.compile(sql)).fetchone())
 
 
 @pytest.mark.parametrize("name", sorted(DATA))
@@ -110,7 +110,7 @@ def test_million_ties_exact():
     con.execute("CREATE TABLE t AS SELECT CASE WHEN i < 400000 THEN 0.5 WHEN i < 700000 THEN 3.0 "
                 "WHEN i < 850000 THEN 3.0000001 WHEN i < 950000 THEN 7.25 ELSE 1e6 END AS x "
                 "FROM range(1000000) r(i) ORDER BY hash(i)")
-    got = con.execute(ineqsql.compile("SELECT gini(x), lorenz(x, 0.55), quantile_w(x, 0.86), theil(x) FROM t")).fetchone()
+    got = con.execute(uneven.compile("SELECT gini(x), lorenz(x, 0.55), quantile_w(x, 0.86), theil(x) FROM t")).fetchone()
     assert rel(got[0], exact_gini(values, counts)) <= 1e-10
     assert rel(got[1], exact_lorenz(values, counts, 0.55)) <= 1e-10
     assert got[2] == 7.25  # C/W passes 0.86 inside the fourth value's block
@@ -239,4 +239,4 @@ def _run_grouped(df, threads):
     con = duckdb.connect()
     con.execute(f"SET threads = {threads}")
     con.register("t", df)
-    return con.execute(ineqsql.compile(DET_SQL)).fetchall()
+    return con.execute(uneven.compile(DET_SQL)).fetchall()

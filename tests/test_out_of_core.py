@@ -6,8 +6,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-import ineqsql
-from ineqsql import reference as R
+import uneven
+from uneven import reference as R
 
 
 def test_file_larger_than_memory_limit(tmp_path):
@@ -19,7 +19,7 @@ def test_file_larger_than_memory_limit(tmp_path):
     df.to_parquet(path, row_group_size=500_000)
     spill = tmp_path / "spill"
     # 4M rows × (x, w, running weight, keys) in the window is well over 10× this limit
-    res = ineqsql.query(f"SELECT g, gini(x, w) AS gw, gini(x) AS gu, top_share(x, 0.1, w) AS top "
+    res = uneven.query(f"SELECT g, gini(x, w) AS gw, gini(x) AS gu, top_share(x, 0.1, w) AS top "
                         f"FROM '{path}' GROUP BY g ORDER BY g",
                         memory_limit="40MB", threads=2, temp_directory=str(spill))
     assert len(res) == 3

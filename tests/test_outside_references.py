@@ -12,14 +12,14 @@ import pandas as pd
 import pytest
 from scipy.stats import norm
 
-import ineqsql
+import uneven
 
 
 def run(sql: str, **tables) -> pd.DataFrame:
     con = duckdb.connect()
     for name, df in tables.items():
         con.register(name, df)
-    return ineqsql.query(sql, con)
+    return uneven.query(sql, con)
 
 
 def test_exact_fractions_small_weighted_data_with_ties():
@@ -156,9 +156,9 @@ def test_same_digits_whatever_the_row_order_or_thread_count():
     df = pd.DataFrame({"g": rng.integers(0, 5, 200_000), "x": rng.lognormal(0, 1, 200_000),
                        "w": rng.uniform(0.5, 2, 200_000)})
     sql = "SELECT g, gini(x, w) AS a, palma(x) AS b, theil(x, w) AS c FROM t GROUP BY g ORDER BY g"
-    base = ineqsql.query(sql, _con(df), threads=1)
+    base = uneven.query(sql, _con(df), threads=1)
     for threads, frame in [(2, df.sample(frac=1.0, random_state=1)), (4, df.iloc[::-1])]:
-        other = ineqsql.query(sql, _con(frame), threads=threads)
+        other = uneven.query(sql, _con(frame), threads=threads)
         np.testing.assert_allclose(other[["a", "b", "c"]], base[["a", "b", "c"]], rtol=1e-12)
 
 

@@ -14,7 +14,7 @@ import duckdb
 import numpy as np
 import pytest
 
-from ineqsql.engine.progress import progress_line, run_watched
+from uneven.engine.progress import progress_line, run_watched
 
 # a query that never ends by itself: 10^12 rows through a Gini
 ENDLESS = ("SELECT gini(x) FROM (SELECT CAST(hash(a.range * 1000003 + b.range) % 1000 AS DOUBLE) AS x "
@@ -38,8 +38,8 @@ def _pairs_want(n_a, n_b):
 
 
 def test_progress_line_text():
-    assert progress_line(42.4, 3.2) == "ineqsql: running the query [########............]  42% 3 s"
-    assert progress_line(-1, 1.6, "computing") == "ineqsql: computing… 2 s"
+    assert progress_line(42.4, 3.2) == "uneven: running the query [########............]  42% 3 s"
+    assert progress_line(-1, 1.6, "computing") == "uneven: computing… 2 s"
 
 
 def test_progress_is_drawn_on_a_terminal_and_cleared():
@@ -48,7 +48,7 @@ def test_progress_is_drawn_on_a_terminal_and_cleared():
     got = run_watched(con, lambda: con.execute(_pairs_sql(20000, 4000)).fetchone()[0], stream=term, delay=0.0)
     assert got == _pairs_want(20000, 4000)
     text = term.getvalue()
-    assert "ineqsql: running the query" in text
+    assert "uneven: running the query" in text
     assert text.endswith("\r\x1b[2K")  # the line is wiped at the end
 
 
@@ -65,7 +65,7 @@ def test_no_progress_when_not_a_terminal_and_errors_pass_through():
 def _start_on_terminal(args, cwd):
     """Run the command with stderr on a pseudo-terminal and stdout on a pipe."""
     master, slave = os.openpty()
-    proc = subprocess.Popen([sys.executable, "-m", "ineqsql.cli.main", *args], stdout=subprocess.PIPE,
+    proc = subprocess.Popen([sys.executable, "-m", "uneven.cli.main", *args], stdout=subprocess.PIPE,
                             stderr=slave, stdin=subprocess.DEVNULL, cwd=cwd)
     os.close(slave)
     return proc, master
@@ -99,7 +99,7 @@ def _interrupt(proc, master, needle: bytes) -> tuple[int, bytes, bytes]:
 
 def test_query_shows_progress_then_ctrl_c_stops_it_cleanly(tmp_path):
     proc, master = _start_on_terminal(["query", ENDLESS], tmp_path)
-    rc, err, out = _interrupt(proc, master, b"ineqsql: running the query")
+    rc, err, out = _interrupt(proc, master, b"uneven: running the query")
     assert rc == 130
     assert b"interrupted" in err and b"Traceback" not in err
     assert out == b""  # the progress line never reaches stdout
@@ -112,6 +112,6 @@ def test_ctrl_c_during_a_report_leaves_no_file(tmp_path):
     con.close()
     proc, master = _start_on_terminal(["report", "big", "--database", "big.duckdb", "--value", "x", "--by", "g",
                                        "--output", "r.html"], tmp_path)
-    rc, err, _ = _interrupt(proc, master, b"ineqsql: computing the report")
+    rc, err, _ = _interrupt(proc, master, b"uneven: computing the report")
     assert rc == 130 and b"Traceback" not in err
     assert sorted(p.name for p in tmp_path.iterdir()) == ["big.duckdb"]

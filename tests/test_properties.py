@@ -11,8 +11,8 @@ import pandas as pd
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-import ineqsql
-from ineqsql import reference as R
+import uneven
+from uneven import reference as R
 
 POSITIVE = st.lists(st.floats(min_value=0.01, max_value=1e6, allow_nan=False), min_size=2, max_size=40)
 WEIGHTS = st.integers(1, 5)
@@ -101,7 +101,7 @@ def test_compiled_sql_keeps_the_properties(rows):
     df = pd.DataFrame({"x": [r[0] for r in rows], "w": [float(r[1]) for r in rows]})
     con = duckdb.connect()
     con.register("t", df)
-    got = con.execute(ineqsql.compile("SELECT gini(x, w), theil(x, w), atkinson(x, 2, w), cv(x, w) FROM t")).fetchone()
+    got = con.execute(uneven.compile("SELECT gini(x, w), theil(x, w), atkinson(x, 2, w), cv(x, w) FROM t")).fetchone()
     x, w = df["x"].to_numpy(), df["w"].to_numpy()
     for g, want in zip(got, (R.gini(x, w), R.theil(x, w), R.atkinson(x, 2.0, w), R.cv(x, w))):
         assert close(g, want), (g, want)

@@ -2,8 +2,8 @@
 grouping, HAVING, ORDER BY, CTEs and subqueries, with each measure evaluated by the numpy
 reference). Two sources: the survey fixture and ``rough``, invented rows with the same columns made
 hostile (NULL keys, values and weights, many ties, zeros, weights of 0, negative values, values from
-1e-9 to 1e12). Seeded: 200 shapes in CI; pytest -m slow runs 10,000 more (seed INEQSQL_SEED,
-default 1; INEQSQL_SHAPES sets the count). A mismatch found once becomes a golden fixture."""
+1e-9 to 1e12). Seeded: 200 shapes in CI; pytest -m slow runs 10,000 more (seed UNEVEN_SEED,
+default 1; UNEVEN_SHAPES sets the count). A mismatch found once becomes a golden fixture."""
 
 from __future__ import annotations
 
@@ -17,7 +17,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-import ineqsql
+import uneven
 from oracle import install_oracle, oracle_sql
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -119,7 +119,7 @@ def test_random_query_shapes_match_oracle(con):
 
 @pytest.mark.slow
 def test_many_random_query_shapes_match_oracle(con):
-    check_shapes(con, seed=int(os.environ.get("INEQSQL_SEED", "1")), count=int(os.environ.get("INEQSQL_SHAPES", "10000")))
+    check_shapes(con, seed=int(os.environ.get("UNEVEN_SEED", "1")), count=int(os.environ.get("UNEVEN_SHAPES", "10000")))
 
 
 def check_shapes(con, seed: int, count: int) -> None:
@@ -135,7 +135,7 @@ def check_shapes(con, seed: int, count: int) -> None:
 
 
 def compare_shape(con, sql: str) -> str | None:
-    got = con.execute(ineqsql.compile(sql)).fetchall()
+    got = con.execute(uneven.compile(sql)).fetchall()
     want = con.execute(oracle_sql(sql)).fetchall()
     if len(got) != len(want):
         return f"{len(got)} rows vs oracle {len(want)}"

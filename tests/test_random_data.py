@@ -14,8 +14,8 @@ import pytest
 from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
-import ineqsql
-from ineqsql import reference as R
+import uneven
+from uneven import reference as R
 
 MEASURES = [  # (SQL, reference taking (x, w))
     ("gini(x{w})", lambda x, w: R.gini(x, w)),
@@ -78,7 +78,7 @@ def check_random_groups(rows, weighted):
     curve = f"lorenz_curve(x, 7{', w' if weighted else ''})"
     sql = ("SELECT g, " + ", ".join(f"{c} AS m{i}" for i, c in enumerate(calls)) + f", {curve} AS curve, "
            + ", ".join(f"{c} AS e{i}" for i, (c, _) in enumerate(ENTITY)) + " FROM t GROUP BY g")
-    res = ineqsql.query(sql, con)
+    res = uneven.query(sql, con)
     assert len(res) == df["g"].nunique(dropna=False)
     for _, out in res.iterrows():
         key = out["g"]

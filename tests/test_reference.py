@@ -1,4 +1,4 @@
-"""Tests of the numpy reference (src/ineqsql/reference.py) against sources outside the project.
+"""Tests of the numpy reference (src/uneven/reference.py) against sources outside the project.
 
 Every check names its source in a comment:
   * exact rational arithmetic with ``fractions.Fraction`` (by a route other than the one the
@@ -24,7 +24,7 @@ import numpy as np
 import pytest
 from scipy.stats import norm
 
-from ineqsql import reference as ref
+from uneven import reference as ref
 
 
 # ---------------------------------------------------------------------------------------------

@@ -17,14 +17,14 @@ import numpy as np
 import pandas as pd
 import pytest
 
-import ineqsql
-from ineqsql import reference as R
-from ineqsql import reference_se as RS
-from ineqsql.cli.main import main
-from ineqsql.report import report_data
-from ineqsql.report.html import TABLE_HEAD
-from ineqsql.report.svg import BAR_COLOUR, PALETTE
-from tests.engines import require_engines
+import uneven
+from uneven import reference as R
+from uneven import reference_se as RS
+from uneven.cli.main import main
+from uneven.report import report_data
+from uneven.report.html import TABLE_HEAD
+from uneven.report.svg import BAR_COLOUR, PALETTE
+from engines import require_engines
 
 SVG = "{http://www.w3.org/2000/svg}"
 K = 50  # the report's default Lorenz grid
@@ -96,7 +96,7 @@ def _read_lorenz(svg: ET.Element) -> dict[str, np.ndarray]:
 
 
 def test_html_is_self_contained_and_its_charts_show_the_data(survey, tmp_path):
-    path = ineqsql.write_report(survey, "income", tmp_path / "r.html", weight="w", by="region", time="year")
+    path = uneven.write_report(survey, "income", tmp_path / "r.html", weight="w", by="region", time="year")
     html = path.read_text()
     # nothing fetched from elsewhere: no scripts, links, imports or URLs but the SVG namespace
     assert not re.search(r"<script|<link|<img|@import|url\(", html)
@@ -123,7 +123,7 @@ def test_html_is_self_contained_and_its_charts_show_the_data(survey, tmp_path):
 
 
 def test_markdown_report_with_side_files(survey, tmp_path):
-    path = ineqsql.write_report(survey, "income", tmp_path / "out.md", weight="w", by="region")
+    path = uneven.write_report(survey, "income", tmp_path / "out.md", weight="w", by="region")
     text = path.read_text()
     assert sorted(p.name for p in tmp_path.iterdir()) == ["out-lorenz.svg", "out-ranking.svg", "out.md"]
     assert "![Lorenz curves](out-lorenz.svg)" in text
@@ -174,7 +174,7 @@ def _chromium() -> str:
     path = shutil.which("chromium") or shutil.which("chromium-browser")
     if path is None:
         if require_engines():
-            pytest.fail("chromium is required (INEQSQL_REQUIRE_ENGINES=1) but is not installed "
+            pytest.fail("chromium is required (UNEVEN_REQUIRE_ENGINES=1) but is not installed "
                         "(apt-get install chromium)")
         pytest.skip("chromium is not installed here (apt-get install chromium)")
     return path
@@ -182,7 +182,7 @@ def _chromium() -> str:
 
 def screenshot(html: Path, png: Path, size=(1400, 1700)) -> np.ndarray:
     from matplotlib.image import imread
-    with tempfile.TemporaryDirectory(prefix="ineqsql-chromium-") as profile:
+    with tempfile.TemporaryDirectory(prefix="uneven-chromium-") as profile:
         subprocess.run([_chromium(), *CHROMIUM_FLAGS, f"--user-data-dir={profile}", f"--screenshot={png}",
                         f"--window-size={size[0]},{size[1]}", html.resolve().as_uri()],
                        check=True, capture_output=True, timeout=120, env={**os.environ, "HOME": profile})
@@ -224,7 +224,7 @@ def test_many_groups_charts_show_the_extremes_and_the_table_lists_all(tmp_path):
     spread = np.repeat(np.linspace(0.2, 1.5, 14), 40)  # Gini rises with the group number
     df = pd.DataFrame({"g": np.repeat([f"g{i:02d}" for i in range(14)], 40),
                        "x": np.exp(spread * rng.standard_normal(len(spread)))})
-    html = ineqsql.write_report(df, "x", tmp_path / "r.html", by="g").read_text()
+    html = uneven.write_report(df, "x", tmp_path / "r.html", by="g").read_text()
     gini = {k: R.gini(p.x.to_numpy()) for k, p in df.groupby("g")}
     ranked = sorted(gini, key=lambda k: -gini[k])
     curves = _read_lorenz(_svg(html, "lorenz-chart"))
@@ -234,7 +234,7 @@ def test_many_groups_charts_show_the_extremes_and_the_table_lists_all(tmp_path):
 
 
 def test_an_interval_pair_is_shown_beside_its_value():
-    from ineqsql.report.data import Column, format_value
+    from uneven.report.data import Column, format_value
     col = Column("gini", "Gini", lambda s: None, "{:.3f}", interval=(lambda s: None, lambda s: None))
     assert format_value(col, {"gini": 0.41234, "gini_lo": 0.4, "gini_hi": 0.425}) == "0.412 [0.400, 0.425]"
     assert format_value(col, {"gini": 0.41234}) == "0.412"  # no interval computed: the value alone

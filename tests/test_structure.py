@@ -19,12 +19,12 @@ import pandas as pd
 import pytest
 from scipy.stats import rankdata
 
-import ineqsql
-from ineqsql import reference as R
-from ineqsql import reference_structure as RS
-from ineqsql.errors import IneqsqlError, MeasureArgumentError
-from ineqsql.influence import influence
-from ineqsql.structure import compare, decompose, gini_sources
+import uneven
+from uneven import reference as R
+from uneven import reference_structure as RS
+from uneven.errors import UnevenError, MeasureArgumentError
+from uneven.influence import influence
+from uneven.structure import compare, decompose, gini_sources
 
 
 def _frame(seed=3, n=240):
@@ -100,7 +100,7 @@ def test_paired_se_covers_the_spread_of_repeated_samples():
 def test_ge_between_plus_within_is_ge(con, alpha):
     sql = (f"SELECT prov, ge(inc, {alpha}, w) AS t, ge_between(inc, {alpha}, hh, w) AS b, "
            f"ge_within(inc, {alpha}, hh, w) AS i FROM t GROUP BY prov")
-    res = con.execute(ineqsql.compile(sql)).fetchdf()
+    res = con.execute(uneven.compile(sql)).fetchdf()
     assert len(res) == 3
     for _, r in res.iterrows():
         assert abs(r["b"] + r["i"] - r["t"]) < 1e-12
@@ -108,7 +108,7 @@ def test_ge_between_plus_within_is_ge(con, alpha):
 
 
 def test_concentration_by_itself_is_gini(con):
-    res = con.execute(ineqsql.compile("SELECT prov, gini(inc, w) AS g, concentration(inc, inc, w) AS c, "
+    res = con.execute(uneven.compile("SELECT prov, gini(inc, w) AS g, concentration(inc, inc, w) AS c, "
                                       "concentration(hh, hh) AS ch, gini(hh) AS gh FROM t GROUP BY prov")).fetchdf()
     for _, r in res.iterrows():
         assert r["c"] == pytest.approx(r["g"], abs=1e-12)
@@ -121,19 +121,19 @@ def test_progressivity_signs(con):
         regr=lambda d: 6.0 + 0.02 * d.inc))  # a lump sum plus a low flat rate: falling average rate
     sql = ("SELECT kakwani(prog, inc) AS kp, kakwani(regr, inc) AS kr, reynolds_smolensky(inc, inc - prog) AS rp, "
            "reynolds_smolensky(inc, inc - regr) AS rr FROM tx")
-    r = con.execute(ineqsql.compile(sql)).fetchdf().iloc[0]
+    r = con.execute(uneven.compile(sql)).fetchdf().iloc[0]
     assert r["kp"] > 0 and r["rp"] > 0  # progressive: tax more concentrated than income, inequality falls
     assert r["kr"] < 0 and r["rr"] < 0  # regressive: the reverse
 
 
 def test_normalised_concentration_of_a_binary_outcome(con):
     con.register("bin", pd.DataFrame({"inc": np.arange(1.0, 41.0), "sick": ([1, 0, 1, 1, 0] * 8)[::-1]}))
-    r = con.execute(ineqsql.compile("SELECT concentration(sick, inc) AS c, avg(sick) AS mu, "
+    r = con.execute(uneven.compile("SELECT concentration(sick, inc) AS c, avg(sick) AS mu, "
                                     "concentration_wagstaff(sick, inc, 0, 1) AS wg, "
                                     "concentration_erreygers(sick, inc, 0, 1) AS er FROM bin")).fetchdf().iloc[0]
     assert r["wg"] == pytest.approx(r["c"] / (1 - r["mu"]), rel=1e-12)  # Wagstaff (2005), from memory
     assert r["er"] == pytest.approx(4 * r["mu"] * r["c"], rel=1e-12)  # Erreygers (2009), from memory
-    out = con.execute(ineqsql.compile("SELECT concentration_wagstaff(sick, inc, 0, 0.5) AS v FROM bin")).fetchone()
+    out = con.execute(uneven.compile("SELECT concentration_wagstaff(sick, inc, 0, 0.5) AS v FROM bin")).fetchone()
     assert out[0] is None  # a value above hi: undefined, not a made-up number
 
 
@@ -155,7 +155,7 @@ def _numpy_gini(x):
 
 def test_engel_food_spending_against_numpy(engel):
     inc, food = engel["income"].to_numpy(), engel["foodexp"].to_numpy()
-    got = ineqsql.query("SELECT gini(income) AS g, concentration(foodexp, income) AS c, kakwani(foodexp, income) AS k, "
+    got = uneven.query("SELECT gini(income) AS g, concentration(foodexp, income) AS c, kakwani(foodexp, income) AS k, "
                         "reynolds_smolensky(income, income - foodexp) AS rs FROM engel").iloc[0]
     assert got["g"] == pytest.approx(_numpy_gini(inc), rel=1e-10)
     assert got["c"] == pytest.approx(_numpy_concentration(food, inc), rel=1e-10)
@@ -259,14 +259,14 @@ def test_influence_of_one_huge_record():
     ("SELECT ge_within(inc, hh, hh) FROM t", "alpha must be a numeric constant"),
 ])
 def test_bad_calls_are_clear_errors(sql, needle):
-    with pytest.raises(MeasureArgumentError if "row-level" not in needle else IneqsqlError, match=needle):
-        ineqsql.compile(sql)
+    with pytest.raises(MeasureArgumentError if "row-level" not in needle else UnevenError, match=needle):
+        uneven.compile(sql)
 
 
 def test_table_argument_errors():
     with pytest.raises(MeasureArgumentError, match="at least two source"):
         gini_sources("t", ["inc"])
-    with pytest.raises(IneqsqlError, match="cannot read the relation"):
+    with pytest.raises(UnevenError, match="cannot read the relation"):
         decompose("a b c", "x", "g")
     with pytest.raises(MeasureArgumentError, match="measure must name"):
         influence("t", "x", measure="concentration")
@@ -274,7 +274,7 @@ def test_table_argument_errors():
 
 # --------------------------------------------------------------------------------- command line
 def test_cli_tables(tmp_path, capsys):
-    from ineqsql.cli.main import main
+    from uneven.cli.main import main
     path = tmp_path / "vl.parquet"
     df = _frame()
     df.to_parquet(path)

@@ -1,6 +1,6 @@
 """The ordered pass's "ties" variant (tied values grouped before the window) gives the same results
 as the plain variant: every ordered measure, weighted and not, on tie-heavy data, against the numpy
-reference (``ineqsql.reference``, itself checked in test_reference.py against brute force, exact
+reference (``uneven.reference``, itself checked in test_reference.py against brute force, exact
 fractions and closed forms); and the planner picks the variant by the rule in compiler/plan.py."""
 
 from __future__ import annotations
@@ -10,8 +10,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-import ineqsql
-from ineqsql.catalog import MEASURES
+import uneven
+from uneven.catalog import MEASURES
 from test_measures_engines import CASES, close
 
 ORDERED_CASES = [c for c in CASES if MEASURES[c[0].split("(")[0]].pass_for(False) == "ordered"]
@@ -59,8 +59,8 @@ def test_ties_variant_matches_reference(con, template, ref, weighted):
     c, df = con
     call = template.format(w=", w" if weighted else "")
     sql = f"SELECT grp, {call} AS m FROM t GROUP BY grp"
-    assert "_ties" in ineqsql.compile(sql, tie_grouping="on")
-    res = ineqsql.query(sql, c, tie_grouping="on")
+    assert "_ties" in uneven.compile(sql, tie_grouping="on")
+    res = uneven.query(sql, c, tie_grouping="on")
     want = _want(df, ref, weighted)
     assert len(res) == len(want) == 4
     for _, row in res.iterrows():
@@ -71,26 +71,26 @@ def test_ties_variant_matches_reference(con, template, ref, weighted):
 
 def test_auto_groups_ties_of_repeated_integers_only(con):
     c, _ = con
-    chosen = ineqsql.explain("SELECT grp, gini(x, w), theil(x) FROM t GROUP BY grp", c).passes
+    chosen = uneven.explain("SELECT grp, gini(x, w), theil(x) FROM t GROUP BY grp", c).passes
     assert [(p["kind"], p["variant"]) for p in chosen] == [("ordered", "ties"), ("centred", "adaptive")]
     assert "distinct" in chosen[0]["reason"]
     # floating-point values are not probed; compile() alone has no data to look at
-    assert ineqsql.explain("SELECT grp, gini(x) FROM t_double GROUP BY grp", c).passes[0]["variant"] == "rows"
-    assert "_ties" not in ineqsql.compile("SELECT grp, gini(x) FROM t GROUP BY grp")
-    assert ineqsql.explain("SELECT grp, gini(x) FROM t GROUP BY grp", c, tie_grouping="off").passes[0]["variant"] == "rows"
+    assert uneven.explain("SELECT grp, gini(x) FROM t_double GROUP BY grp", c).passes[0]["variant"] == "rows"
+    assert "_ties" not in uneven.compile("SELECT grp, gini(x) FROM t GROUP BY grp")
+    assert uneven.explain("SELECT grp, gini(x) FROM t GROUP BY grp", c, tie_grouping="off").passes[0]["variant"] == "rows"
 
 
 def test_auto_keeps_rows_when_integers_rarely_tie():
     c = duckdb.connect()
     c.execute("CREATE TABLE wide AS SELECT i % 3 AS g, (i * 7919) % 100003 AS x FROM range(20000) r(i)")
-    p = ineqsql.explain("SELECT g, gini(x) FROM wide GROUP BY g", c).passes[0]
+    p = uneven.explain("SELECT g, gini(x) FROM wide GROUP BY g", c).passes[0]
     assert p["variant"] == "rows" and "distinct" in p["reason"]
     # and both variants agree (reference: the plain pass, itself checked against numpy elsewhere)
-    a = ineqsql.query("SELECT g, gini(x) AS v FROM wide GROUP BY g ORDER BY g", c, tie_grouping="on")
-    b = ineqsql.query("SELECT g, gini(x) AS v FROM wide GROUP BY g ORDER BY g", c, tie_grouping="off")
+    a = uneven.query("SELECT g, gini(x) AS v FROM wide GROUP BY g ORDER BY g", c, tie_grouping="on")
+    b = uneven.query("SELECT g, gini(x) AS v FROM wide GROUP BY g ORDER BY g", c, tie_grouping="off")
     assert a["v"].tolist() == pytest.approx(b["v"].tolist(), rel=1e-12)
 
 
 def test_bad_tie_grouping_is_a_clear_error():
-    with pytest.raises(ineqsql.IneqsqlError, match="tie_grouping must be one of auto, on, off"):
-        ineqsql.compile("SELECT gini(x) FROM t", tie_grouping="yes")
+    with pytest.raises(uneven.UnevenError, match="tie_grouping must be one of auto, on, off"):
+        uneven.compile("SELECT gini(x) FROM t", tie_grouping="yes")

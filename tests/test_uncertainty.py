@@ -1,5 +1,5 @@
 """Standard errors and confidence intervals by linearization: SQL (every engine) against the numpy
-reference (ineqsql.reference_se), and the reference itself against independent routes — a
+reference (uneven.reference_se), and the reference itself against independent routes — a
 numerical derivative of the estimator, Davidson's (2009) variance, a hand-computed design
 variance and a Monte Carlo coverage check."""
 
@@ -13,11 +13,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-import ineqsql
+import uneven
 from conftest import make_groups
-from ineqsql import reference as R
-from ineqsql import reference_se as rse
-from ineqsql.errors import MeasureArgumentError
+from uneven import reference as R
+from uneven import reference_se as rse
+from uneven.errors import MeasureArgumentError
 
 # (SQL name, params, data: "groups" = make_groups (ties, zeros, NULLs) or "smooth" = tie-free)
 CASES = [
@@ -112,8 +112,8 @@ def test_interval_matches_reference(engine, datasets, name, params, data):
 
 
 def test_estimate_next_to_its_se_shares_one_sort():
-    sql = ineqsql.compile("SELECT g, gini(x, w), gini_se(x, w), gini_ci_hi(x, w) FROM t GROUP BY g")
-    assert "_iq_ord_" not in sql  # the plain gini rides on the linearized pass
+    sql = uneven.compile("SELECT g, gini(x, w), gini_se(x, w), gini_ci_hi(x, w) FROM t GROUP BY g")
+    assert "_uv_ord_" not in sql  # the plain gini rides on the linearized pass
     # C, S and the group minimum, in one window specification. The estimate keeps its centring on
     # the minimum (digits when values share a large offset), so it does not reuse the SE's C·x − S.
     assert sql.count("ORDER BY") == 3
@@ -226,7 +226,7 @@ def test_coverage_unweighted_lognormal_numpy_and_sql():
     assert 0.92 <= covered.mean() <= 0.98, covered.mean()
     # the same samples through SQL, as groups of one table: identical intervals
     df = pd.DataFrame({"s": np.repeat(np.arange(400), 1000), "x": x.reshape(-1)})
-    res = ineqsql.query("SELECT s, gini_ci_lo(x) AS lo, gini_ci_hi(x) AS hi FROM df GROUP BY s ORDER BY s")
+    res = uneven.query("SELECT s, gini_ci_lo(x) AS lo, gini_ci_hi(x) AS hi FROM df GROUP BY s ORDER BY s")
     assert np.allclose(res["lo"], G - 1.959963984540054 * se, rtol=1e-9)
     assert np.allclose(res["hi"], G + 1.959963984540054 * se, rtol=1e-9)
 
@@ -256,14 +256,14 @@ def test_coverage_weighted_pps_numpy():
 ])
 def test_bad_options_are_clear_errors(sql, needle):
     with pytest.raises(MeasureArgumentError) as e:
-        ineqsql.compile(sql)
+        uneven.compile(sql)
     assert needle in str(e.value)
     assert "line 1" in str(e.value)
 
 
 def test_single_psu_stratum_gives_null():
     df = pd.DataFrame({"x": [1.0, 2.0, 3.0, 4.0, 5.0], "h": [1, 1, 2, 2, 2], "c": [1, 1, 2, 3, 3]})
-    res = ineqsql.query("SELECT gini_se(x, strata := h, psu := c) AS a, gini_se(x, psu := c) AS b FROM df")
+    res = uneven.query("SELECT gini_se(x, strata := h, psu := c) AS a, gini_se(x, psu := c) AS b FROM df")
     assert pd.isna(res["a"][0])  # stratum 1 has one PSU
     want = rse.se("gini", df.x.to_numpy(), (), None, None, df.c.to_numpy())
     assert abs(res["b"][0] - want) < 1e-12
@@ -277,8 +277,8 @@ def test_estimate_next_to_its_se_keeps_digits_under_a_large_offset():
     x = [1e12 + k for k in (1.0, 2.0, 3.0, 5.0, 8.0, 13.0, 21.0)]
     con = duckdb.connect()
     con.execute("CREATE TABLE t AS SELECT unnest(?::DOUBLE[]) AS x", [x])
-    alone = ineqsql.query("SELECT gini(x) AS g FROM t", con)["g"][0]
-    shared = ineqsql.query("SELECT gini(x) AS g, gini_se(x) AS se FROM t", con)["g"][0]
+    alone = uneven.query("SELECT gini(x) AS g FROM t", con)["g"][0]
+    shared = uneven.query("SELECT gini(x) AS g, gini_se(x) AS se FROM t", con)["g"][0]
     from fractions import Fraction
 
     fx = [Fraction(v) for v in x]

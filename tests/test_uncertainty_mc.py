@@ -13,8 +13,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-import ineqsql
-from ineqsql import reference as R
+import uneven
+from uneven import reference as R
 
 pytestmark = pytest.mark.slow
 
@@ -24,7 +24,7 @@ def test_coverage_unweighted_lognormal_sql():
     true = 2 * NormalDist().cdf(1 / math.sqrt(2)) - 1
     samples, n = 1000, 1000
     df = pd.DataFrame({"s": np.repeat(np.arange(samples), n), "x": rng.lognormal(0, 1, samples * n)})
-    res = ineqsql.query("SELECT s, gini_ci_lo(x) AS lo, gini_ci_hi(x) AS hi FROM df GROUP BY s")
+    res = uneven.query("SELECT s, gini_ci_lo(x) AS lo, gini_ci_hi(x) AS hi FROM df GROUP BY s")
     rate = ((res.lo <= true) & (true <= res.hi)).mean()
     print(f"unweighted coverage {rate:.3f} over {samples} samples")
     assert 0.92 <= rate <= 0.98
@@ -40,7 +40,7 @@ def test_coverage_weighted_pps_sql():
     idx = rng.choice(N, (samples, n), p=p)  # with-replacement PPS draws, π_i = n p_i
     df = pd.DataFrame({"s": np.repeat(np.arange(samples), n), "x": y[idx].reshape(-1),
                        "w": (1 / (n * p[idx])).reshape(-1)})
-    res = ineqsql.query("SELECT s, gini_ci_lo(x, w) AS lo, gini_ci_hi(x, w) AS hi FROM df GROUP BY s")
+    res = uneven.query("SELECT s, gini_ci_lo(x, w) AS lo, gini_ci_hi(x, w) AS hi FROM df GROUP BY s")
     rate = ((res.lo <= true) & (true <= res.hi)).mean()
     print(f"weighted PPS coverage {rate:.3f} over {samples} samples")
     assert 0.92 <= rate <= 0.98
@@ -62,7 +62,7 @@ def test_coverage_clustered_design_sql():
         rows.append(pd.DataFrame({"s": s_, "h": np.repeat(np.arange(H), C * m),
                                   "c": np.repeat(np.arange(H * C), m), "x": x.reshape(-1)}))
     df = pd.concat(rows, ignore_index=True)
-    res = ineqsql.query("SELECT s, gini_ci_lo(x, strata := h, psu := c) AS lo, gini_ci_hi(x, strata := h, psu := c) "
+    res = uneven.query("SELECT s, gini_ci_lo(x, strata := h, psu := c) AS lo, gini_ci_hi(x, strata := h, psu := c) "
                         "AS hi, gini_ci_lo(x) AS lo0, gini_ci_hi(x) AS hi0 FROM df GROUP BY s")
     rate = ((res.lo <= true) & (true <= res.hi)).mean()
     naive = ((res.lo0 <= true) & (true <= res.hi0)).mean()

@@ -10,10 +10,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-import ineqsql
+import uneven
 from conftest import make_groups
-from ineqsql import reference as R
-from ineqsql.catalog.user import MeasureDefinitionError
+from uneven import reference as R
+from uneven.catalog.user import MeasureDefinitionError
 
 
 def middle_share_reference(x, lo, hi, w=None):
@@ -24,17 +24,17 @@ def middle_share_reference(x, lo, hi, w=None):
 
 @pytest.fixture()
 def middle_share():
-    m = ineqsql.define_measure("middle_share", params=["lo", "hi"], pass_="ordered",
+    m = uneven.define_measure("middle_share", params=["lo", "hi"], pass_="ordered",
                                result="lorenz(hi) - lorenz(lo)", reference=middle_share_reference,
                                formula="L(hi) − L(lo): share of the middle of the distribution")
     yield m
-    ineqsql.remove_measure("middle_share")
+    uneven.remove_measure("middle_share")
 
 
 def test_exact_small_case(middle_share):
     # x = 1, 2, 3, 4 (T = 10): the second quarter holds 2 of 10 (exact arithmetic with fractions)
     want = Fraction(2, 10)
-    got = ineqsql.query("SELECT middle_share(x, 0.25, 0.5) AS m FROM (VALUES (1), (2), (3), (4)) v(x)")["m"][0]
+    got = uneven.query("SELECT middle_share(x, 0.25, 0.5) AS m FROM (VALUES (1), (2), (3), (4)) v(x)")["m"][0]
     assert got == pytest.approx(float(want), abs=1e-15)
 
 
@@ -44,9 +44,9 @@ def test_three_doors_agree_with_the_reference(middle_share):
     con = duckdb.connect()
     con.register("src", df)
     con.execute("CREATE TABLE t AS SELECT * FROM src")
-    via_sql = ineqsql.query(sql, con=con)
-    via_builder = ineqsql.from_("t", con=con).group_by("grp").agg(m=ineqsql.middle_share("x", 0.4, 0.9, weight="w")).df()
-    ineqsql.install(con, measures=["middle_share"])
+    via_sql = uneven.query(sql, con=con)
+    via_builder = uneven.from_("t", con=con).group_by("grp").agg(m=uneven.middle_share("x", 0.4, 0.9, weight="w")).df()
+    uneven.install(con, measures=["middle_share"])
     via_macro = con.execute(sql).fetchdf()
     via_table = con.execute("SELECT grp, middle_share AS m FROM middle_share_by('t', 'x', 0.4, 0.9, 'w', ['grp']) "
                             "ORDER BY grp NULLS LAST").fetchdf()
@@ -62,17 +62,17 @@ def test_three_doors_agree_with_the_reference(middle_share):
 
 
 def test_moment_measure_and_definition_errors():
-    ineqsql.define_measure("mean_square_ratio", pass_="moment", params=[], result="sum(w * x * x) / total_weight / (mean * mean)",
+    uneven.define_measure("mean_square_ratio", pass_="moment", params=[], result="sum(w * x * x) / total_weight / (mean * mean)",
                            reference=lambda x, w=None: None)
     try:
-        got = ineqsql.query("SELECT mean_square_ratio(x) AS r FROM (VALUES (1), (3)) v(x)")["r"][0]
+        got = uneven.query("SELECT mean_square_ratio(x) AS r FROM (VALUES (1), (3)) v(x)")["r"][0]
         assert got == pytest.approx(5 / 4)  # E[x²]/μ² = 5/4 by hand
     finally:
-        ineqsql.remove_measure("mean_square_ratio")
+        uneven.remove_measure("mean_square_ratio")
     with pytest.raises(MeasureDefinitionError, match="built-in"):
-        ineqsql.define_measure("gini", result="lorenz(0.5)", reference=None)
+        uneven.define_measure("gini", result="lorenz(0.5)", reference=None)
     with pytest.raises(MeasureDefinitionError, match="unknown name 'foo'"):
-        ineqsql.define_measure("bad_one", result="lorenz(0.5) + foo", reference=None)
+        uneven.define_measure("bad_one", result="lorenz(0.5) + foo", reference=None)
     with pytest.raises(MeasureDefinitionError, match="pass_"):
-        ineqsql.define_measure("bad_two", pass_="sideways", result="1", reference=None)
-    assert "bad_one" not in {m["name"] for m in ineqsql.measures()}
+        uneven.define_measure("bad_two", pass_="sideways", result="1", reference=None)
+    assert "bad_one" not in {m["name"] for m in uneven.measures()}

@@ -1,7 +1,7 @@
 """User-defined measures on every engine of the backend matrix (DuckDB, PostgreSQL, Spark, SQLite):
 the worked example ``middle_share`` (ordered pass) and a moment-pass measure, weighted and not, per
 group (NULL key, ties, zero weights), in one batched query per engine, against numpy references.
-The references: ``middle_share`` = L(hi) − L(lo) from ``ineqsql.reference.lorenz`` (itself checked
+The references: ``middle_share`` = L(hi) − L(lo) from ``uneven.reference.lorenz`` (itself checked
 against exact fractions in test_reference.py); the moment measure E[x²]/μ² computed here with numpy."""
 
 from __future__ import annotations
@@ -14,8 +14,8 @@ import pytest
 from conftest import make_groups
 from test_user_measures import middle_share_reference
 
-import ineqsql
-from ineqsql import reference as R
+import uneven
+from uneven import reference as R
 
 
 def mean_square_ratio_reference(x, w=None):
@@ -42,15 +42,15 @@ CALLS = [  # (SQL call, reference(x, w))
 
 @pytest.fixture(scope="module")
 def user_measures():
-    ineqsql.define_measure("middle_share", params=["lo", "hi"], pass_="ordered",
+    uneven.define_measure("middle_share", params=["lo", "hi"], pass_="ordered",
                            result="lorenz(hi) - lorenz(lo)", reference=middle_share_reference,
                            formula="L(hi) − L(lo): share of the middle of the distribution")
-    ineqsql.define_measure("user_msr", pass_="moment", params=[],
+    uneven.define_measure("user_msr", pass_="moment", params=[],
                            result="sum(w * x * x) / total_weight / (mean * mean)",
                            reference=mean_square_ratio_reference, formula="E[x²]/μ²")
     yield
-    ineqsql.remove_measure("middle_share")
-    ineqsql.remove_measure("user_msr")
+    uneven.remove_measure("middle_share")
+    uneven.remove_measure("user_msr")
 
 
 def _null(v) -> bool:

@@ -1,4 +1,4 @@
-"""Compiled SQL runs in a DuckDB process that has never imported ineqsql."""
+"""Compiled SQL runs in a DuckDB process that has never imported uneven."""
 
 from __future__ import annotations
 
@@ -9,19 +9,19 @@ from pathlib import Path
 
 import pytest
 
-import ineqsql
-from ineqsql import reference as R
+import uneven
+from uneven import reference as R
 
 ROOT = Path(__file__).resolve().parents[1]
 
 
 def test_compiled_query_runs_in_plain_duckdb_process():
     data = ROOT / "fixtures" / "data" / "survey.parquet"
-    sql = ineqsql.compile(f"SELECT province, gini(gross, weight) AS g, theil(gross) AS t FROM '{data}' "
+    sql = uneven.compile(f"SELECT province, gini(gross, weight) AS g, theil(gross) AS t FROM '{data}' "
                           "WHERE province IS NOT NULL GROUP BY province ORDER BY province")
-    code = ("import duckdb, json, sys; assert 'ineqsql' not in sys.modules; "
+    code = ("import duckdb, json, sys; assert 'uneven' not in sys.modules; "
             "rows = duckdb.connect().execute(sys.stdin.read()).fetchall(); "
-            "assert 'ineqsql' not in sys.modules; print(json.dumps(rows))")
+            "assert 'uneven' not in sys.modules; print(json.dumps(rows))")
     out = subprocess.run([sys.executable, "-c", code], input=sql, capture_output=True, text=True, cwd="/")
     assert out.returncode == 0, out.stderr
     rows = json.loads(out.stdout)

@@ -1,5 +1,5 @@
 """Write the files this example is built from: the seed of invented households (fixed seed) and
-the dbt macro that creates ineqsql's measures in DuckDB (from ineqsql's generated install SQL).
+the dbt macro that creates uneven's measures in DuckDB (from uneven's generated install SQL).
 
     python prepare.py          # then: dbt build --profiles-dir .
 """
@@ -10,7 +10,7 @@ from pathlib import Path
 
 import numpy as np
 
-import ineqsql.duckdb_functions as functions
+import uneven.duckdb_functions as functions
 
 HERE = Path(__file__).resolve().parent
 PROVINCES = {"Ostrava Vale": 0.55, "Kelmar Coast": 0.75, "Durnholt": 0.65, "Sirreth Uplands": 0.9}
@@ -36,10 +36,10 @@ def write(root: Path = HERE) -> None:
     (root / "seeds").mkdir(exist_ok=True)
     (root / "seeds" / "households.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
     (root / "macros").mkdir(exist_ok=True)
-    macro = ("{% macro ineqsql_install() %}\n{% raw %}\n" + functions.install_sql() + "{% endraw %}\n{% endmacro %}\n")
-    (root / "macros" / "ineqsql_install.sql").write_text(macro, encoding="utf-8")
+    macro = ("{% macro uneven_install() %}\n{% raw %}\n" + functions.install_sql() + "{% endraw %}\n{% endmacro %}\n")
+    (root / "macros" / "uneven_install.sql").write_text(macro, encoding="utf-8")
 
 
 if __name__ == "__main__":
     write()
-    print("wrote seeds/households.csv and macros/ineqsql_install.sql")
+    print("wrote seeds/households.csv and macros/uneven_install.sql")

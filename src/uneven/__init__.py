@@ -1,0 +1,45 @@
+"""uneven: inequality measures in SQL, compiled to window-function SQL and run in DuckDB.
+
+>>> import uneven
+>>> uneven.query("SELECT gini(x) FROM (VALUES (1), (2), (3)) t(x)")  # doctest: +SKIP
+"""
+
+from uneven.api import compile, explain, measures, query  # noqa: A004
+from uneven.builder import BuilderError, from_
+from uneven.catalog.user import define_measure, remove_measure
+from uneven.duckdb_functions import FunctionConflictError, install, uninstall
+from uneven.engine.sqlite import install_sqlite_functions
+from uneven.errors import (ExecutionError, UnevenError, InputDataError, MeasureArgumentError,
+                            MeasureUsageError, SqlParseError, UndefinedResultError, UnsupportedDialectError,
+                            UnsupportedSqlError)
+from uneven.influence import influence
+from uneven.report import lorenz_points, plot_lorenz, write_report
+from uneven.structure import compare, decompose, gini_sources
+
+from uneven.summary import from_summary, merge_summaries, summarize
+
+__version__ = "0.1.0"
+
+__all__ = [
+    # SQL text in, results or SQL out
+    "compile", "query", "explain", "measures",
+    # other front-ends: the builder, functions inside DuckDB, your own measures, SQLite support
+    "from_", "install", "uninstall", "define_measure", "remove_measure", "install_sqlite_functions",
+    # tables: decompositions, income sources, paired comparisons, outlier influence
+    "decompose", "gini_sources", "compare", "influence",
+    # bounded measures from stored, mergeable summaries
+    "summarize", "merge_summaries", "from_summary",
+    # pictures and reports
+    "lorenz_points", "plot_lorenz", "write_report",
+    # errors (all UnevenError)
+    "UnevenError", "SqlParseError", "MeasureUsageError", "MeasureArgumentError", "UnsupportedSqlError",
+    "ExecutionError", "InputDataError", "UndefinedResultError", "UnsupportedDialectError", "BuilderError",
+    "FunctionConflictError",
+]
+
+
+def __getattr__(name: str):
+    """``uneven.gini("income", weight="w")``: one builder measure per catalog entry (see builder/)."""
+    from uneven.builder.measures import measure_factory
+
+    return measure_factory(name)

@@ -1,0 +1,98 @@
+"""The Python entry points: ``compile``, ``query`` and the catalog listing."""
+
+from __future__ import annotations
+
+import inspect
+
+import duckdb
+import pandas as pd
+
+from uneven.bounds.run import pick_resolution, run_bounded
+from uneven.catalog import MEASURES
+from uneven.compiler.bounded import check_method
+from uneven.compiler import compile_sql
+from uneven.engine.columns import duckdb_expression_types, duckdb_source_columns
+from uneven.engine.frames import register_caller_frames
+from uneven.engine.runner import connect, execute_df
+from uneven.engine.ties import duckdb_tie_probe
+from uneven.explain import Explanation, explain_query
+
+
+def compile(sql: str, dialect: str = "duckdb", *, read: str = "duckdb", pretty: bool = True,  # noqa: A001
+            strict: bool = False, tie_grouping: str = "auto", method: str = "exact",
+            tolerance: float | None = None, resolution: float | None = None) -> str:
+    """Compile SQL with measure calls into plain SQL for ``dialect`` (no measure calls left).
+
+    ``strict=True``: a measure that is undefined for a group (NULL) stops the query with an error
+    naming the group, as ``strict := true`` does for one call.
+    ``tie_grouping``: ``"on"`` groups tied values before the ordered pass's window (pays when values
+    repeat a lot, e.g. integer counts), ``"off"`` never; ``"auto"`` (default) needs an engine to
+    look at the data, so compile() alone keeps one row per input row.
+
+    ``method="bounded"``: no sort; each measure column comes with ``<name>_lo`` and ``<name>_hi``,
+    a certified interval from one GROUP BY into log-spaced bins (docs/bounded.md). ``tolerance``
+    (a Gini interval width to aim at) or ``resolution`` (the relative bin width, default 0.01)
+    picks the bins.
+    """
+    return compile_sql(sql, dialect=dialect, read=read, pretty=pretty, strict=strict, tie_grouping=tie_grouping,
+                       method=method, resolution=pick_resolution(method, tolerance, resolution))
+
+
+def query(sql: str, con: duckdb.DuckDBPyConnection | None = None, *, memory_limit: str | None = None,
+          threads: int | None = None, temp_directory: str | None = None,
+          progress: bool = False, strict: bool = False, tie_grouping: str = "auto", method: str = "exact",
+          tolerance: float | None = None, resolution: float | None = None) -> pd.DataFrame:
+    """Compile ``sql`` and run it on DuckDB (``con``, or a new in-memory connection).
+
+    Tables the query names may also be pandas DataFrames or Arrow tables held by the calling code
+    under that name, as with ``duckdb.sql``. ``tie_grouping``: see ``compile``; with ``"auto"``
+    an integer, decimal or boolean value is probed (one scan) and its ties grouped when the
+    distinct (group, value) pairs are at most a quarter of the rows.
+
+    ``method="bounded"``: intervals instead of a sort (see ``compile``); the result's
+    ``attrs["uneven"]`` tells the resolution used and the widest interval of each measure. With a
+    ``tolerance``, a Gini interval wider than it makes the query run once more with finer bins.
+    """
+    method = check_method(method)
+    chosen = pick_resolution(method, tolerance, resolution)
+    connection = connect(con, memory_limit=memory_limit, threads=threads, temp_directory=temp_directory,
+                         progress=progress)
+    registered = register_caller_frames(connection, sql, inspect.currentframe().f_back)
+    try:
+        def run(res):
+            compiled = compile_sql(sql, dialect="duckdb", pretty=False, strict=strict, method=method,
+                                   resolution=res, source_columns=duckdb_source_columns(connection),
+                                   tie_grouping=tie_grouping, tie_probe=duckdb_tie_probe(connection),
+                                   expression_types=duckdb_expression_types(connection))
+            return execute_df(connection, compiled)
+        if method == "exact":
+            return run(None)
+        return run_bounded(run, chosen, tolerance, sql)
+    finally:
+        for name in registered:
+            connection.unregister(name)
+        if con is None:
+            connection.close()
+
+
+def explain(sql: str, con: duckdb.DuckDBPyConnection | None = None, *, profile: bool = False,
+            memory_limit: str | None = None, threads: int | None = None, temp_directory: str | None = None,
+            strict: bool = False, tie_grouping: str = "auto") -> Explanation:
+    """The passes the planner chooses for ``sql`` on DuckDB (kind, variant, value, weight, FILTER,
+    measures served, CTE names, reason) and, with ``profile=True``, the time DuckDB spends per
+    operator when it runs the query once. ``print(explain(...))`` shows a readable summary."""
+    connection = connect(con, memory_limit=memory_limit, threads=threads, temp_directory=temp_directory)
+    registered = register_caller_frames(connection, sql, inspect.currentframe().f_back)
+    try:
+        return explain_query(sql, connection, profile=profile, strict=strict, tie_grouping=tie_grouping)
+    finally:
+        for name in registered:
+            connection.unregister(name)
+        if con is None:
+            connection.close()
+
+
+def measures() -> list[dict]:
+    """One row per catalog measure: name, signature, pass, formula, domain."""
+    return [{"name": m.name, "signature": m.signature, "pass": "/".join(m.passes) if isinstance(m.passes, tuple)
+             else m.passes, "formula": m.formula, "domain": m.domain} for m in MEASURES.values()]

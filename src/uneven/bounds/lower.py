@@ -1,0 +1,99 @@
+"""SQL over a bins table: join overlapping bins, add running sums, compute every interval.
+
+    [<name>_prev → <name>_isl → <name>_mrg]   only for stored summaries (bins may overlap after a merge):
+                    a bin starts a new island unless its min is below the largest max before it;
+                    the bins of one island are added up (min of mins, max of maxes)
+    <name>_cum      each bin with the running weight C_{<b} and value S_{<b} of the bins before it
+                    (ordered by min, then max) and the group totals W, T at row level
+    <name>_agg      GROUP BY keys: the aggregates over bins the measures use (each once)
+    <name>_raw      per call, point, lo and hi columns (expressions over those aggregates)
+    <name>          the same, lo and hi widened by the rounding allowance (measures.widen)
+"""
+
+from __future__ import annotations
+
+from sqlglot import exp
+
+from uneven.bounds import bins as b
+from uneven.bounds.measures import BOUNDED, BinContext, Interval, widen
+from uneven.compiler import sqlx as s
+from uneven.compiler.passes.source import cte, grouped, table
+
+RUNNING = ("uv_w", "uv_wx", "uv_min", "uv_max")  # the bin columns running_sums itself reads (bins.W, WX, MIN, MAX)
+
+
+def _window(fn, keys, frame_end: str | None):
+    """fn OVER (PARTITION BY keys ORDER BY min, max ROWS BETWEEN UNBOUNDED PRECEDING AND <end>)."""
+    args = {"this": fn, "partition_by": [k.copy() for k in keys] or None, "over": "OVER"}
+    if frame_end is not None:
+        args["order"] = exp.Order(expressions=[exp.Ordered(this=s.col(b.MIN)), exp.Ordered(this=s.col(b.MAX))])
+        end = {"end": "1", "end_side": "PRECEDING"} if frame_end == "previous" else {"end": "CURRENT ROW"}
+        args["spec"] = exp.WindowSpec(kind="ROWS", start="UNBOUNDED", start_side="PRECEDING", **end)
+    return exp.Window(**args)
+
+
+def join_overlaps(source: str, keys: list[exp.Column], columns: list[str], name: str) -> list[exp.CTE]:
+    """CTEs that join bins whose [min, max] ranges overlap (gaps and islands), ending in ``name``."""
+    base = [k.copy() for k in keys] + [s.col(c) for c in columns]
+    prev = exp.Select(expressions=base + [s.alias(_window(s.agg_max(s.col(b.MAX)), keys, "previous"), "_uv_pm")]
+                      ).from_(table(source))
+    starts = s.case(s.lt(s.col(b.MIN), s.col("_uv_pm")), s.lit(0), s.lit(1))
+    isl = exp.Select(expressions=[c.copy() for c in base] + [s.alias(_window(s.agg_sum(starts), keys, "current"),
+                                                                     "_uv_island")]).from_(table(f"{name}_prev"))
+    merged = exp.Select(expressions=[k.copy() for k in keys] + b.merged_aggregates(columns)).from_(
+        table(f"{name}_isl"))
+    merged.set("group", exp.Group(expressions=[k.copy() for k in keys] + [s.col("_uv_island")]))
+    return [cte(prev, f"{name}_prev"), cte(isl, f"{name}_isl"), cte(merged, name)]
+
+
+def running_sums(source: str, keys: list[exp.Column], columns: list[str], name: str) -> exp.CTE:
+    zero = s.lit(0.0)
+    before = lambda c: exp.Coalesce(this=_window(s.agg_sum(s.col(c)), keys, "previous"),  # noqa: E731
+                                    expressions=[zero.copy()])
+    mean = s.clamp(s.div(s.col(b.WX), s.col(b.W)), s.col(b.MIN), s.col(b.MAX))
+    cols = [k.copy() for k in keys] + [s.col(c) for c in columns] + [s.alias(mean, "_uv_m"),
+        s.alias(before(b.W), "_uv_cp"), s.alias(before(b.WX), "_uv_sp"),
+        s.alias(_window(s.agg_sum(s.col(b.W)), keys, None), "_uv_gw"),
+        s.alias(_window(s.agg_sum(s.col(b.WX)), keys, None), "_uv_gt")]
+    return cte(exp.Select(expressions=cols).from_(table(source)), name)
+
+
+def _named(e: exp.Expression, name: str) -> exp.Alias:
+    """``e AS "name"`` without copying ``e`` (the interval trees are fresh and large: copying them
+    was most of the compile time)."""
+    return exp.Alias(this=e, alias=exp.to_identifier(name, quoted=True))
+
+
+def lower_bounds(source: str, keys: list[exp.Column], columns: list[str], calls: list[tuple], name: str,
+                 merge: bool) -> tuple[list[exp.CTE], dict, dict]:
+    """CTEs computing intervals for ``calls`` = [(key, measure name, params)] from the bins table
+    ``source`` (key columns ``keys``, bin columns ``columns``). Returns (ctes, {key: (point, lo, hi)
+    column names in ``name``}, {key: exact flag}, the bin columns the measures read)."""
+    ctes = []
+    if merge:
+        ctes += join_overlaps(source, keys, columns, f"{name}_mrg")
+        source = f"{name}_mrg"
+    powers = {b.power_of_column(c) for c in columns if b.power_of_column(c) is not None}
+    ctx = BinContext(powers)
+    out, final, results, exact = [], [], {}, {}
+    for key, measure, params in calls:
+        if key in results:
+            continue
+        iv = BOUNDED[measure](ctx, tuple(params))
+        i = len(results) + 1
+        names = (f"_uv_r{i}", f"_uv_r{i}_lo", f"_uv_r{i}_hi")
+        out += [_named(e, n) for e, n in zip((iv.point, iv.lo, iv.hi), names)]
+        wide = widen(Interval(*(s.col(n) for n in names)))
+        final += [_named(e, n) for e, n in zip((wide.point, wide.lo, wide.hi), names)]
+        results[key], exact[key] = names, iv.exact
+    aggregates = [_named(e.copy(), n) for n, e in ctx.aggregates.values()]
+    # the measures read bins only through these aggregates: bin columns none of them reads are left
+    # out of the window (and, in the summary pass, of the bins GROUP BY: less state per (group, bin))
+    read = {c.name for _, e in ctx.aggregates.values() for c in e.find_all(exp.Column)}
+    columns = [c for c in columns if c in RUNNING or c in read]
+    ctes.append(running_sums(source, keys, columns, f"{name}_cum"))
+    ctes.append(cte(grouped(keys, aggregates, f"{name}_cum"), f"{name}_agg"))
+    ctes.append(cte(exp.Select(expressions=[k.copy() for k in keys] + out).from_(table(f"{name}_agg")),
+                    f"{name}_raw"))
+    ctes.append(cte(exp.Select(expressions=[k.copy() for k in keys] + final).from_(table(f"{name}_raw")), name))
+    return ctes, results, exact, columns

@@ -1,0 +1,230 @@
+"""Linearizations (influence functions) of the measures, written against ``RowContext``
+(compiler/passes/rows.py): each returns a ``Lin`` — the estimate and the per-row score
+u_k = w_k·z_k as a list of (row term, coefficient) pairs, where a row term is a row-level
+expression that includes the weight and a coefficient is built from group aggregates.
+
+z_k is the derivative of the estimator with respect to the weight of row k (Deville 1999,
+"Variance estimation for complex statistics and estimators: linearization and residual
+techniques", Survey Methodology 25(2)); the formulas and their sources are in docs/uncertainty.md.
+``LINEARIZE[name](ctx, params) -> Lin`` is the reusable entry point (e.g. for paired
+differences: the score of θ_a − θ_b is the difference of the two lists).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from statistics import NormalDist
+
+from sqlglot import exp
+
+from uneven.catalog import moment as mom
+from uneven.catalog import ordered as ordc
+from uneven.compiler import sqlx as s
+
+ZERO, ONE = s.lit(0.0), s.lit(1.0)
+
+
+def neg(e: exp.Expression) -> exp.Expression:
+    return exp.Neg(this=s.paren(e))
+
+
+@dataclass
+class Lin:
+    estimate: exp.Expression
+    terms: list[tuple[exp.Expression, exp.Expression]] = field(default_factory=list)
+    defined: bool = True  # False: no standard error exists for these parameters (NULL)
+
+    def scaled(self, factor: exp.Expression) -> list[tuple[exp.Expression, exp.Expression]]:
+        return [(t, s.mul(c, factor)) for t, c in self.terms]
+
+
+def combine(estimate: exp.Expression, *parts: tuple[exp.Expression, Lin]) -> Lin:
+    """The linearization of a smooth function of several measures: Σ (∂f/∂θ_i) · u_i."""
+    terms = []
+    for factor, lin in parts:
+        terms += lin.scaled(factor)
+    return Lin(estimate, terms, all(lin.defined for _, lin in parts))
+
+
+# --- ordered measures ------------------------------------------------------------------------
+
+def gini(ctx, params=()) -> Lin:
+    # z_k = [2 C_k x_k − 2 S_k + T − W x_k − G (T + W x_k)] / (W T)   (Langel & Tillé 2013)
+    G = ordc.build_gini(ctx, ())
+    W, T = ctx.W, ctx.T
+    w, x = ctx.w, ctx.x
+    return Lin(G, [
+        (ordc.rank_term(ctx), s.div(ONE, s.mul(W, T))),
+        (w.copy(), s.div(s.sub(ONE, G.copy()), ctx.W)),
+        (s.mul(w.copy(), x.copy()), s.div(neg((s.add(ONE, G.copy()))), ctx.T)),
+    ])
+
+
+def below_indicator(ctx, p: float) -> exp.Expression:
+    """1 when row k lies wholly within the poorest fraction p of the weight (C_k ≤ p·W)."""
+    return s.case(s.lte(ctx.c, s.mul(s.lit(p), ctx.W_row)), ONE, ZERO)
+
+
+def _below_mass_terms(ctx, p: float, Q: exp.Expression, T_factor: exp.Expression):
+    """Score of B(p) = Σ x_i clamp(pW − C_{i−1}, 0, w_i), times ``T_factor``:
+    ∂B/∂w_k = p·Q_p + (x_k − Q_p)·1(C_k ≤ pW)."""
+    ind = below_indicator(ctx, p)
+    return [(ctx.w, s.mul(s.mul(s.lit(p), Q), T_factor)),
+            (s.mul(ctx.w, s.mul(ctx.x, ind)), T_factor.copy()),
+            (s.mul(ctx.w, ind.copy()), s.mul(neg((Q.copy())), T_factor.copy()))]
+
+
+def lorenz(ctx, p: float) -> Lin:
+    # L = B/T: z_k = [p Q_p + (x_k − Q_p) 1(x_k ≤ Q_p) − L x_k] / T
+    L = ordc.lorenz_at(ctx, p)
+    Q = ordc.quantile_at(ctx, p)
+    inv_T = s.div(ONE, ctx.T)
+    terms = _below_mass_terms(ctx, p, Q, inv_T) + [(s.mul(ctx.w, ctx.x), s.mul(neg(L.copy()), inv_T.copy()))]
+    return Lin(L, terms)
+
+
+def top_share(ctx, p: float) -> Lin:
+    # 1 − L(1 − p): the negated score of L(1 − p)
+    low = lorenz(ctx, 1.0 - p)
+    return Lin(ordc.top_share_at(ctx, p), low.scaled(s.lit(-1.0)))
+
+
+def generalized_lorenz(ctx, p: float) -> Lin:
+    # GL = B/W: z_k = [∂B/∂w_k − GL] / W
+    GL = ordc.build_generalized_lorenz(ctx, (p,))
+    inv_W = s.div(ONE, ctx.W)
+    terms = _below_mass_terms(ctx, p, ordc.quantile_at(ctx, p), inv_W) + [(ctx.w, s.mul(neg(GL.copy()), inv_W.copy()))]
+    return Lin(GL, terms)
+
+
+def _ratio(num: Lin, den: Lin) -> Lin:
+    # r = a/b: z_r = (z_a − r z_b)/b
+    r = s.case(s.neq(den.estimate, ZERO), s.div(num.estimate, den.estimate))
+    return combine(r, (s.div(ONE, den.estimate), num), (s.div(neg(r.copy()), den.estimate), den))
+
+
+def palma(ctx, params=()) -> Lin:
+    return _ratio(top_share(ctx, 0.1), lorenz(ctx, 0.4))
+
+
+def s80s20(ctx, params=()) -> Lin:
+    return _ratio(top_share(ctx, 0.2), lorenz(ctx, 0.2))
+
+
+def hall_sheather(p: float, alpha: float = 0.05) -> float:
+    """The constant K(p) of the Hall & Sheather (1988) bandwidth h = K(p)·n^(−1/3):
+    K = z_{1−α/2}^(2/3) · [1.5 φ(Φ⁻¹(p))² / (2 Φ⁻¹(p)² + 1)]^(1/3)."""
+    nd = NormalDist()
+    q = nd.inv_cdf(p)
+    return nd.inv_cdf(1 - alpha / 2) ** (2 / 3) * (1.5 * nd.pdf(q) ** 2 / (2 * q * q + 1)) ** (1 / 3)
+
+
+def _quantile_at_expr(ctx, p: exp.Expression) -> exp.Expression:
+    reached = s.gte(s.div(ctx.c, ctx.W_row), p)
+    return exp.Coalesce(this=s.agg_min(s.case(reached, ctx.x)), expressions=[s.agg_max(ctx.x)])
+
+
+def density_at_quantile(ctx, p: float) -> exp.Expression:
+    """f̂(Q_p) = (p⁺ − p⁻) / (Q(p⁺) − Q(p⁻)), p± = p ± h clamped to [0, 1], h Hall–Sheather
+    (Siddiqui 1960; Bloch & Gastwirth 1968). NULL when the two quantiles coincide."""
+    K = hall_sheather(p)
+    h_row = s.mul(s.lit(K), s.power(ctx.n_row, s.lit(-1.0 / 3.0)))
+    h_grp = s.mul(s.lit(K), s.power(s.cast_double(ctx.n), s.lit(-1.0 / 3.0)))
+    hi_row, lo_row = s.least(s.add(s.lit(p), h_row), ONE), s.greatest(s.sub(s.lit(p), h_row.copy()), ZERO)
+    hi_grp, lo_grp = s.least(s.add(s.lit(p), h_grp), ONE), s.greatest(s.sub(s.lit(p), h_grp.copy()), ZERO)
+    spread = s.sub(_quantile_at_expr(ctx, hi_row), _quantile_at_expr(ctx, lo_row))
+    return s.case(s.gt(spread, ZERO), s.div(s.sub(hi_grp, lo_grp), spread.copy()))
+
+
+def quantile(ctx, p: float) -> Lin:
+    # z_k = (p − 1(x_k ≤ Q_p)) / (W f(Q_p))
+    Q = ordc.quantile_at(ctx, p)
+    if not 0.0 < p < 1.0:
+        return Lin(Q, defined=False)  # the sample minimum or maximum: not asymptotically normal
+    scale = s.div(ONE, s.mul(ctx.W, density_at_quantile(ctx, p)))
+    ind = below_indicator(ctx, p)
+    return Lin(Q, [(ctx.w, s.mul(s.lit(p), scale)), (s.mul(ctx.w, ind), s.mul(s.lit(-1.0), scale.copy()))])
+
+
+def percentile_ratio(ctx, hi: float, lo: float) -> Lin:
+    return _ratio(quantile(ctx, hi), quantile(ctx, lo))
+
+
+# --- moment measures -------------------------------------------------------------------------
+
+def _pos(ctx, value):
+    return s.case(s.gt(ctx.x, ZERO), value, ZERO)
+
+
+def theil(ctx, params=()) -> Lin:
+    # Th = A/T − ln(T/W), A = Σ w x ln x: z_k = [x_k ln x_k − (A/T + 1) x_k]/T + 1/W
+    est = mom.build_theil(ctx)
+    A, T = mom._sum_w_x_ln_x(ctx), ctx.T
+    return Lin(est, [(s.mul(ctx.w, _pos(ctx, s.mul(ctx.x, s.ln(ctx.x)))), s.div(ONE, T)),
+                     (s.mul(ctx.w, ctx.x), s.div(neg(s.add(s.div(A, T.copy()), ONE)), T.copy())),
+                     (ctx.w, s.div(ONE, ctx.W))])
+
+
+def mld(ctx, params=()) -> Lin:
+    # MLD = ln(T/W) − Lg/W, Lg = Σ w ln x: z_k = x_k/T − 1/W − ln x_k/W + Lg/W²
+    est = mom.build_mld(ctx)
+    Lg, W = mom._sum_w_ln_x(ctx), ctx.W
+    return Lin(est, [(s.mul(ctx.w, ctx.x), s.div(ONE, ctx.T)),
+                     (ctx.w, s.div(s.sub(s.div(Lg, W), ONE), W.copy())),
+                     (s.mul(ctx.w, _pos(ctx, s.ln(ctx.x))), s.div(s.lit(-1.0), W.copy()))])
+
+
+def ge(ctx, alpha: float) -> Lin:
+    if alpha == 0:
+        return mld(ctx)
+    if alpha == 1:
+        return theil(ctx)
+    # R = (V/W)/μ^α, V = Σ w x^α: z_k = [x_k^α R/V + (α−1) R/W − α R x_k/T] / (α(α−1))
+    est = mom.build_ge(ctx, (alpha,))
+    V, W, T = mom._sum_w_x_pow(ctx, alpha), ctx.W, ctx.T
+    R = s.div(s.div(V, W), s.power(s.div(T, W.copy()), s.lit(alpha)))
+    return Lin(est, [(s.mul(ctx.w, _pos(ctx, s.power(ctx.x, s.lit(alpha)))),
+                      s.div(R, s.mul(V.copy(), s.lit(alpha * (alpha - 1.0))))),
+                     (ctx.w, s.div(R.copy(), s.mul(W.copy(), s.lit(alpha)))),
+                     (s.mul(ctx.w, ctx.x), s.div(neg(R.copy()), s.mul(T.copy(), s.lit(alpha - 1.0))))])
+
+
+def atkinson(ctx, eps: float) -> Lin:
+    est = mom.build_atkinson(ctx, (eps,))
+    W, T = ctx.W, ctx.T
+    if eps == 1:
+        # E = exp(Lg/W): z_k = −[E ln x_k/T + E (1 − Lg/W)/T − E W x_k/T²]
+        Lg = mom._sum_w_ln_x(ctx)
+        E = s.func("exp", s.div(Lg, W))
+        return Lin(est, [(s.mul(ctx.w, _pos(ctx, s.ln(ctx.x))), s.div(neg(E), T)),
+                         (ctx.w, s.div(s.mul(E.copy(), s.sub(s.div(Lg.copy(), W.copy()), ONE)), T.copy())),
+                         (s.mul(ctx.w, ctx.x), s.div(s.mul(E.copy(), W.copy()), s.mul(T.copy(), T.copy())))])
+    # E = (V/W)^(1/(1−ε)), V = Σ w x^(1−ε), A = 1 − E W/T:
+    # z_k = −[E W/(T(1−ε)) (x_k^(1−ε)/V − 1/W) + E/T − E W x_k/T²]
+    b = 1.0 - eps
+    V = mom._sum_w_x_pow(ctx, b)
+    E = s.power(s.div(V, W), s.lit(1.0 / b))
+    return Lin(est, [(s.mul(ctx.w, _pos(ctx, s.power(ctx.x, s.lit(b)))),
+                      s.div(neg(s.mul(E, W.copy())), s.mul(s.mul(T.copy(), s.lit(b)), V.copy()))),
+                     (ctx.w, s.div(s.mul(E.copy(), s.lit(eps / b)), T.copy())),
+                     (s.mul(ctx.w, ctx.x), s.div(s.mul(E.copy(), W.copy()), s.mul(T.copy(), T.copy())))])
+
+
+# name → (linearize(ctx, params), how params are passed)
+LINEARIZE = {
+    "gini": lambda c, p: gini(c),
+    "lorenz": lambda c, p: lorenz(c, p[0]),
+    "bottom_share": lambda c, p: lorenz(c, p[0]),
+    "generalized_lorenz": lambda c, p: generalized_lorenz(c, p[0]),
+    "top_share": lambda c, p: top_share(c, p[0]),
+    "palma": lambda c, p: palma(c),
+    "s80s20": lambda c, p: s80s20(c),
+    "quantile_w": lambda c, p: quantile(c, p[0]),
+    "percentile_ratio": lambda c, p: percentile_ratio(c, p[0], p[1]),
+    "theil": lambda c, p: theil(c),
+    "mld": lambda c, p: mld(c),
+    "ge": lambda c, p: ge(c, p[0]),
+    "atkinson": lambda c, p: atkinson(c, p[0]),
+}
+
+__all__ = ["Lin", "LINEARIZE", "combine", "hall_sheather", "neg"]

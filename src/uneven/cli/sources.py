@@ -1,0 +1,26 @@
+"""uneven sources: the Gini of a total decomposed by income source (Lerman and Yitzhaki 1985)."""
+
+from __future__ import annotations
+
+import argparse
+
+from uneven.cli.common import emit_result
+from uneven.cli.tables import add_table_options, common
+
+
+def register(sub) -> None:
+    p = sub.add_parser("sources", help="Gini of a total decomposed by income source",
+                       description="The total is the sum of the SOURCE columns. Per source: its share, its Gini, "
+                       "its Gini correlation with the total, its contribution (contributions add up to the "
+                       "Gini of the total) and the change in the Gini when the source grows by 1%% "
+                       "(marginal_effect; marginal_effect_pct in percent of the Gini).",
+                       epilog="example: uneven sources 'survey.parquet' wages rents transfers --weight w --by year",
+                       formatter_class=argparse.RawDescriptionHelpFormatter)
+    add_table_options(p)
+    p.add_argument("sources", nargs="+", metavar="SOURCE", help="two or more source columns or expressions")
+    p.set_defaults(handler=run)
+
+
+def run(args) -> int:
+    from uneven.structure import gini_sources
+    return emit_result(gini_sources(args.relation, args.sources, **common(args)), args)

@@ -1,0 +1,209 @@
+"""The difference of a measure between two groups of rows (two provinces, men and women …), with a
+standard error, in one of two forms:
+
+``se="design"`` (Gini only): the linearized difference under one survey design. Every row of the
+relation (per block of ``by``) belongs to the design; a row of the first group carries
+u_k = w_k·z_k(G₁), a row of the second −w_k·z_k(G₂), every other row 0, with z_k the linearized
+Gini of its own group (Langel & Tillé 2013; docs/uncertainty.md):
+
+    z_k = [2 C_k x_k − 2 S_k + T − W x_k − G (T + W x_k)] / (W T)
+
+and v = Σ_h n_h/(n_h − 1) Σ_c (U_hc − Ū_h)² over the PSUs of the whole design (with-replacement
+variance of a total). The covariance of the two estimates through shared PSUs is included; PSUs
+with rows of neither group count as zeros (domain estimation, not a subset of the design).
+
+``se="independent"`` (any measure with an ``_se`` form): sqrt(se₁² + se₂²), each group's own
+linearized SE (with ``strata``/``psu`` applied within the group). Right for independent samples,
+or when the groups are unions of whole strata; it ignores any covariance through shared PSUs.
+"""
+
+from __future__ import annotations
+
+import inspect
+import math
+
+import pandas as pd
+from sqlglot import exp
+
+from uneven import catalog
+from uneven.compiler import sqlx as s
+from uneven.errors import MeasureArgumentError
+from uneven.influence import _cte, _table
+from uneven.structure import _by_labels, _parse, _Spec, session
+
+ZERO, ONE, TWO = s.lit(0.0), s.lit(1.0), s.lit(2.0)
+FN = "compare"
+
+
+def _levels(groups) -> tuple:
+    ok = (str, int, float)
+    if (isinstance(groups, (str, bytes)) or not isinstance(groups, (tuple, list)) or len(groups) != 2
+            or not all(isinstance(g, ok) and not isinstance(g, bool) for g in groups) or groups[0] == groups[1]
+            or any(isinstance(g, float) and not math.isfinite(g) for g in groups)):
+        raise MeasureArgumentError(f"{FN}: groups must be two different values of the group column "
+                                   f"(text or numbers), got {groups!r}")
+    return tuple(groups)
+
+
+def _measure(measure: str, params) -> tuple[str, tuple[float, ...]]:
+    def usable(m) -> bool:
+        return (m is not None and catalog.lookup(f"{m.name}_se") is not None and m.trailing == "weight"
+                and not any(p.kind == "column" for p in m.params))
+
+    m = catalog.lookup(measure) if isinstance(measure, str) else None
+    if not usable(m):
+        have = sorted(n[:-3] for n in catalog.MEASURES if n.endswith("_se") and usable(catalog.lookup(n[:-3])))
+        raise MeasureArgumentError(f"{FN}: measure must be one with a standard error ({', '.join(have)}), "
+                                   f"got {measure!r}")
+    params = tuple(float(p) for p in (params or ()))
+    if len(params) != len(m.params):
+        raise MeasureArgumentError(f"{FN}: {m.signature} needs {len(m.params)} parameter(s), got {len(params)}")
+    return m.name, params
+
+
+def design_difference_sql(spec: _Spec, x: exp.Expression, group: exp.Expression, levels: tuple,
+                          strata: exp.Expression | None, psu: exp.Expression | None) -> exp.Select:
+    """Per block of ``by``: rows and Gini of each group, and the linearized SE of G₁ − G₂ under the
+    shared design (strata, PSUs)."""
+    keys = spec.names()
+    part = lambda *extra: [s.col(k) for k in keys] + [s.col(e) for e in extra]  # noqa: E731
+    w = s.cast_double(spec.weight.copy()) if spec.weight is not None else ONE
+    member = s.and_(s.not_null(x.copy()), s.gt(w.copy(), ZERO))
+    d = s.case(s.and_(member, exp.EQ(this=group.copy(), expression=exp.convert(levels[0]))), s.lit(1))
+    d = d.when(s.and_(member.copy(), exp.EQ(this=group.copy(), expression=exp.convert(levels[1]))), s.lit(2))
+    unit = psu.copy() if psu is not None else s.window(exp.RowNumber(), [], [])  # no PSU: each row its own
+    rows = exp.Select(expressions=[s.alias(b.copy(), n) for b, n in zip(spec.by, keys)] + [
+        s.alias(s.cast_double(x.copy()), "_uv_x"), s.alias(w, "_uv_w"), s.alias(d, "_uv_d"),
+        s.alias(strata.copy() if strata is not None else s.lit(0), "_uv_h"),
+        s.alias(unit, "_uv_psu")])
+    rows.set("from_", spec.source.copy())
+    if spec.weight is not None:
+        rows.set("where", exp.Where(this=s.not_null(spec.weight.copy())))
+    xv, wv = s.col("_uv_x"), s.col("_uv_w")
+    run_sum = lambda v: s.window(s.agg_sum(v), part("_uv_d"), [xv.copy()], running=True)  # noqa: E731
+    tot_sum = lambda v: s.window(s.agg_sum(v), part("_uv_d"))  # noqa: E731
+    win = exp.Select(expressions=part("_uv_d", "_uv_h", "_uv_psu") + [xv, wv,
+        s.alias(run_sum(wv.copy()), "_uv_c"), s.alias(run_sum(s.mul(wv.copy(), xv.copy())), "_uv_s"),
+        s.alias(tot_sum(wv.copy()), "_uv_wt"), s.alias(tot_sum(s.mul(wv.copy(), xv.copy())), "_uv_t")]
+    ).from_(_table("_uv_cmp_rows"))
+    W, T, C, S = s.col("_uv_wt"), s.col("_uv_t"), s.col("_uv_c"), s.col("_uv_s")
+    gini_term = s.mul(s.mul(wv.copy(), xv.copy()), s.sub(s.sub(s.mul(TWO, C.copy()), wv.copy()), W.copy()))
+    lin = exp.Select(expressions=part("_uv_d", "_uv_h", "_uv_psu") + [xv.copy(), wv.copy(), C.copy(), S.copy(),
+        W.copy(), T.copy(), s.alias(s.case(s.gt(T.copy(), ZERO), s.div(tot_sum(gini_term), s.mul(W.copy(), T.copy()))),
+                                    "_uv_g")]).from_(_table("_uv_cmp_win"))
+    G = s.col("_uv_g")
+    z = s.div(s.sub(s.add(s.sub(s.mul(s.mul(TWO, C.copy()), xv.copy()), s.mul(TWO, S.copy())),
+                          s.sub(T.copy(), s.mul(W.copy(), xv.copy()))),
+                    s.mul(G.copy(), s.add(T.copy(), s.mul(W.copy(), xv.copy())))), s.mul(W.copy(), T.copy()))
+    dcol = s.col("_uv_d")
+    is_ = lambda v: exp.EQ(this=dcol.copy(), expression=s.lit(v))  # noqa: E731
+    u = s.case(is_(1), s.mul(wv.copy(), z)).when(is_(2), exp.Neg(this=exp.Paren(this=s.mul(wv.copy(), z.copy()))))
+    u = exp.Coalesce(this=u, expressions=[ZERO.copy()])
+    in_group = lambda v, val: s.case(is_(v), val)  # noqa: E731
+    per_psu = exp.Select(expressions=part("_uv_h", "_uv_psu") + [
+        s.alias(s.agg_sum(u), "_uv_u"),
+        s.alias(exp.Count(this=in_group(1, s.lit(1))), "_uv_n1"), s.alias(exp.Count(this=in_group(2, s.lit(1))), "_uv_n2"),
+        s.alias(exp.Max(this=in_group(1, G.copy())), "_uv_g1"), s.alias(exp.Max(this=in_group(2, G.copy())), "_uv_g2"),
+        s.alias(exp.Max(this=in_group(1, s.lit(1))), "_uv_has1"), s.alias(exp.Max(this=in_group(2, s.lit(1))), "_uv_has2"),
+        s.alias(exp.Max(this=s.case(s.and_(is_(1), exp.Is(this=G.copy(), expression=exp.Null())), s.lit(1))), "_uv_bad1"),
+        s.alias(exp.Max(this=s.case(s.and_(is_(2), exp.Is(this=G.copy(), expression=exp.Null())), s.lit(1))), "_uv_bad2"),
+    ]).from_(_table("_uv_cmp_lin")).group_by(*part("_uv_h", "_uv_psu"))
+    U = s.col("_uv_u")
+    carry = ["_uv_n1", "_uv_n2"]
+    highest = ["_uv_g1", "_uv_g2", "_uv_has1", "_uv_has2", "_uv_bad1", "_uv_bad2"]
+    per_stratum = exp.Select(expressions=part("_uv_h") + [
+        s.alias(s.agg_count_star(), "_uv_nu"), s.alias(s.agg_sum(U.copy()), "_uv_s1"),
+        s.alias(s.agg_sum(s.mul(U.copy(), U.copy())), "_uv_s2")]
+        + [s.alias(s.agg_sum(s.col(c)), c) for c in carry] + [s.alias(exp.Max(this=s.col(c)), c) for c in highest]
+    ).from_(_table("_uv_cmp_psu")).group_by(*part("_uv_h"))
+    n = s.cast_double(s.col("_uv_nu"))
+    v_h = s.case(s.gt(s.col("_uv_nu"), s.lit(1)),
+                 s.div(s.sub(s.mul(n, s.col("_uv_s2")), s.mul(s.col("_uv_s1"), s.col("_uv_s1"))), s.sub(n.copy(), ONE)))
+    fin = exp.Select(expressions=part() + [
+        s.alias(s.agg_sum(s.col("_uv_n1")), "rows_1"), s.alias(s.agg_sum(s.col("_uv_n2")), "rows_2"),
+        s.alias(exp.Max(this=s.col("_uv_g1")), "_uv_g1"), s.alias(exp.Max(this=s.col("_uv_g2")), "_uv_g2"),
+        s.alias(s.agg_sum(v_h), "_uv_v"), s.alias(exp.Min(this=s.col("_uv_nu")), "_uv_fewest"),
+        s.alias(exp.Max(this=s.col("_uv_bad1")), "_uv_bad1"), s.alias(exp.Max(this=s.col("_uv_bad2")), "_uv_bad2"),
+        s.alias(exp.Max(this=s.col("_uv_has1")), "_uv_has1"), s.alias(exp.Max(this=s.col("_uv_has2")), "_uv_has2"),
+    ]).from_(_table("_uv_cmp_str"))
+    if keys:
+        fin = fin.group_by(*part())
+    ok = s.and_(exp.Is(this=s.col("_uv_bad1"), expression=exp.Null()), exp.Is(this=s.col("_uv_bad2"), expression=exp.Null()),
+                s.not_null(s.col("_uv_has1")), s.not_null(s.col("_uv_has2")))
+    g1 = s.case(ok, s.col("_uv_g1"))
+    g2 = s.case(ok.copy(), s.col("_uv_g2"))
+    se = s.case(s.and_(ok.copy(), s.gt(s.col("_uv_fewest"), s.lit(1))),
+                s.sqrt(s.greatest(s.col("_uv_v"), ZERO.copy())))
+    final = exp.Select(expressions=part() + [s.col("rows_1"), s.col("rows_2"), s.alias(g1, "gini_1"), s.alias(g2, "gini_2"),
+                                             s.alias(s.sub(g1.copy(), g2.copy()), "difference"), s.alias(se, "se")]
+                       ).from_(_table("_uv_cmp_fin"))
+    final.set("with_", exp.With(expressions=[_cte(rows, "_uv_cmp_rows"), _cte(win, "_uv_cmp_win"),
+                                             _cte(lin, "_uv_cmp_lin"), _cte(per_psu, "_uv_cmp_psu"),
+                                             _cte(per_stratum, "_uv_cmp_str"), _cte(fin, "_uv_cmp_fin")]))
+    return final
+
+
+def compare_groups(relation: str, x: str, group: str, groups, *, measure: str = "gini", params=(),
+                   se: str | None = None, weight: str | None = None, strata: str | None = None,
+                   psu: str | None = None, by=(), con=None, frame=None) -> pd.DataFrame:
+    """``measure`` of ``x`` in the first and second of ``groups`` (values of ``group``), their
+    difference, its standard error and difference/se, per block of ``by``. ``se`` is ``"design"``
+    (Gini only, the default for it) or ``"independent"`` (the default for other measures); see the
+    module documentation for what each computes."""
+    levels = _levels(groups)
+    name, params = _measure(measure, params)
+    method = se or ("design" if name == "gini" else "independent")
+    if method not in ("design", "independent"):
+        raise MeasureArgumentError(f"{FN}: se must be 'design' or 'independent', got {se!r}")
+    if method == "design" and name != "gini":
+        raise MeasureArgumentError(f"{FN}: se='design' (the linearized difference under one design) is built "
+                                   f"for the Gini; use se='independent' for {name}")
+    spec = _Spec(FN, relation, by, weight)
+    xv, gv = _parse(x, "value", FN), _parse(group, "group column", FN)
+    h = _parse(strata, "strata", FN) if strata is not None else None
+    c = _parse(psu, "psu", FN) if psu is not None else None
+    keys = spec.names()
+    with session(spec, con, frame or inspect.currentframe().f_back) as run:
+        if method == "design":
+            out = run(design_difference_sql(spec, xv, gv, levels, h, c))
+        else:
+            out = _independent(spec, run, name, params, xv, gv, levels, h, c)
+    out = out.astype({"rows_1": "int64", "rows_2": "int64", "difference": float, "se": float})
+    out["z"] = out["difference"] / out["se"].where(out["se"] > 0)
+    out["se_method"] = method
+    if name != "gini":
+        out = out.rename(columns={"gini_1": f"{name}_1", "gini_2": f"{name}_2"})
+    out = out.sort_values(keys, kind="stable").reset_index(drop=True) if keys else out
+    return spec.rename(out, _by_labels(by))
+
+
+def _independent(spec, run, name, params, xv, gv, levels, h, c) -> pd.DataFrame:
+    keys = spec.names()
+    consts = [s.lit(p) for p in params]
+    opts = [exp.PropertyEQ(this=exp.to_identifier(k), expression=v.copy()) for k, v in (("strata", h), ("psu", c))
+            if v is not None]
+    se_call = spec.measure(f"{name}_se", xv, *consts)
+    se_call.set("expressions", se_call.expressions + opts)
+    items = [s.alias(exp.Count(this=exp.Star()), "rows"), s.alias(spec.measure(name, xv, *consts), "est"),
+             s.alias(se_call, "se")]
+    sel = spec.select(items, [xv, gv], [gv])
+    sel.expressions.append(s.alias(gv.copy(), "_uv_grp"))
+    where = exp.In(this=gv.copy(), expressions=[exp.convert(v) for v in levels])
+    sel.set("where", exp.Where(this=s.and_(sel.args["where"].this, where)))
+    res = run(sel)
+    label = {str(levels[0]): 1, str(levels[1]): 2}
+    res["_uv_side"] = res["_uv_grp"].map(lambda v: label.get(str(v)))
+    blocks = res[keys].drop_duplicates() if keys else pd.DataFrame(index=[0])
+    rows = []
+    for _, b in blocks.iterrows():
+        mine = res
+        for k in keys:
+            mine = mine[mine[k].isna()] if pd.isna(b[k]) else mine[mine[k] == b[k]]
+        side = {i: mine[mine["_uv_side"] == i] for i in (1, 2)}
+        def get(i, col, side=side):
+            return None if side[i].empty or pd.isna(side[i][col].iloc[0]) else float(side[i][col].iloc[0])
+        e1, e2, s1, s2 = get(1, "est"), get(2, "est"), get(1, "se"), get(2, "se")
+        rows.append({**{k: b[k] for k in keys}, "rows_1": int(side[1]["rows"].sum()), "rows_2": int(side[2]["rows"].sum()),
+                     "gini_1": e1, "gini_2": e2, "difference": e1 - e2 if None not in (e1, e2) else None,
+                     "se": math.hypot(s1, s2) if None not in (s1, s2) else None})
+    return pd.DataFrame(rows).astype({"difference": float, "se": float, "gini_1": float, "gini_2": float})

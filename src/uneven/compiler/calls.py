@@ -1,0 +1,223 @@
+"""Find measure calls in a tree, check where they stand, and read their arguments."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+from sqlglot import exp
+
+from uneven import catalog
+from uneven.catalog.spec import Measure
+from uneven.compiler.context import CompileContext, text
+from uneven.errors import MeasureArgumentError, MeasureUsageError
+
+
+@dataclass
+class MeasureCall:
+    """One measure call with its arguments read: value, constant parameters, optional trailing column."""
+
+    node: exp.Anonymous
+    measure: Measure
+    x: exp.Expression
+    params: tuple[float, ...]
+    trailing: exp.Expression | None
+    columns: tuple[exp.Expression, ...] = ()  # further row-level arguments (Param kind "column")
+    options: dict[str, exp.Expression] = field(default_factory=dict)
+    filter: exp.Expression | None = None  # the condition of ``measure(...) FILTER (WHERE …)``
+    strict: bool = False  # an undefined result stops the query with an error naming the group
+    settings: dict = field(default_factory=dict)  # named arguments as read by measure.read_options
+    key: tuple = ()  # call_key(node), computed once
+    pass_override: str | None = None  # set by method="bounded" (compiler/bounded.py)
+
+    def __post_init__(self):
+        if not self.key:
+            self.key = call_key(self.node)
+
+    @property
+    def pass_kind(self) -> str:
+        if self.pass_override:
+            return self.pass_override
+        return self.measure.pass_for(self.trailing is not None)
+
+    @property
+    def pass_inputs(self) -> tuple[exp.Expression, tuple[exp.Expression, ...]]:
+        """(the column the pass sorts or groups by, the other column arguments in order)."""
+        args = (self.x, *self.columns)
+        i = self.measure.sort_arg
+        return args[i], args[:i] + args[i + 1:]
+
+
+def call_key(node: exp.Expression) -> tuple:
+    """Identity of a call: name, arguments and FILTER condition (as SQL)."""
+    cond = call_filter(node)
+    return (node.name.lower(), tuple(a.sql("duckdb") for a in node.expressions),
+            cond.sql("duckdb") if cond is not None else None)
+
+
+def call_filter(node: exp.Expression) -> exp.Expression | None:
+    parent = node.parent
+    if isinstance(parent, exp.Filter) and node.arg_key == "this":
+        return parent.expression.this
+    return None
+
+
+def is_measure(node: exp.Expression) -> bool:
+    return isinstance(node, exp.Anonymous) and catalog.lookup(node.name) is not None
+
+
+def is_aggregate(node: exp.Expression) -> bool:
+    """An ordinary SQL aggregate call (not a window function, not a measure)."""
+    if not isinstance(node, exp.AggFunc):
+        return False
+    return not (isinstance(node.parent, exp.Window) and node.arg_key == "this")
+
+
+def find_calls(tree: exp.Expression) -> list[exp.Anonymous]:
+    return [n for n in tree.find_all(exp.Anonymous) if is_measure(n)]
+
+
+_FORBIDDEN_CLAUSES = {
+    "where": "WHERE (filter groups with HAVING, or compute the measure in a subquery)",
+    "group": "GROUP BY",
+    "joins": "a JOIN condition",
+    "from_": "FROM",
+    "limit": "LIMIT",
+    "offset": "OFFSET",
+}
+
+
+def check_position(node: exp.Anonymous, ctx: CompileContext) -> exp.Select:
+    """Return the SELECT the call belongs to, or raise if the call stands where it cannot work."""
+    name = node.name.lower()
+    child, anc = node, node.parent
+    if isinstance(anc, exp.Filter) and child.arg_key == "this":  # measure(...) FILTER (WHERE …)
+        for sub in anc.expression.walk():
+            if is_measure(sub) or isinstance(sub, (exp.AggFunc, exp.Window, exp.Select)):
+                raise ctx.error(MeasureUsageError, f"{name}(): the FILTER condition must be a row-level "
+                                "expression", node, name)
+        child, anc = anc, anc.parent
+    if isinstance(anc, exp.Window) and child.arg_key == "this":
+        raise ctx.error(MeasureUsageError, f"{name}() cannot be used as a window function (… OVER (…)); "
+                        "it is an aggregate over each group", node, name)
+    while anc is not None and not isinstance(anc, exp.Select):
+        if isinstance(anc, exp.AggFunc) or is_measure(anc):
+            outer = anc.name.lower() if is_measure(anc) else anc.sql_name().lower()
+            raise ctx.error(MeasureUsageError, f"{name}() cannot be nested inside {outer}(); "
+                            "compute it in a subquery first", node, name)
+        child, anc = anc, anc.parent
+    if anc is None:
+        raise ctx.error(MeasureUsageError, f"{name}() must be used in a SELECT", node, name)
+    if child.arg_key in _FORBIDDEN_CLAUSES:
+        raise ctx.error(MeasureUsageError, f"{name}() cannot be used in {_FORBIDDEN_CLAUSES[child.arg_key]}",
+                        node, name)
+    return anc
+
+
+def _constant(node: exp.Expression) -> float | None:
+    """Value of a numeric constant expression (literals, unary minus, + − × ÷), else None."""
+    if isinstance(node, exp.Paren):
+        return _constant(node.this)
+    if isinstance(node, exp.Literal) and not node.is_string:
+        return float(node.this)
+    if isinstance(node, exp.Neg):
+        v = _constant(node.this)
+        return None if v is None else -v
+    if isinstance(node, exp.Cast):
+        return _constant(node.this)
+    ops = {exp.Add: lambda a, b: a + b, exp.Sub: lambda a, b: a - b, exp.Mul: lambda a, b: a * b,
+           exp.Div: lambda a, b: a / b if b else math.nan}
+    for cls, op in ops.items():
+        if type(node) is cls:
+            a, b = _constant(node.this), _constant(node.expression)
+            return None if a is None or b is None else op(a, b)
+    return None
+
+
+def _check_row_level(arg: exp.Expression, what: str, name: str, node, ctx: CompileContext) -> None:
+    for sub in arg.walk():
+        if is_measure(sub) or isinstance(sub, exp.AggFunc):
+            raise ctx.error(MeasureUsageError, f"{name}(): the {what} must be a row-level expression, "
+                            f"not an aggregate ({text(sub)})", node, name)
+        if isinstance(sub, (exp.Window, exp.Subquery, exp.Select)):
+            raise ctx.error(MeasureUsageError, f"{name}(): the {what} cannot contain a window function or "
+                            "a subquery; compute it in a subquery first", node, name)
+        if isinstance(sub, exp.Star):
+            raise ctx.error(MeasureArgumentError, f"{name}(): the {what} cannot be *", node, name)
+
+
+def read_call(node: exp.Anonymous, ctx: CompileContext) -> MeasureCall:
+    """Read and check a call's arguments against its catalog entry."""
+    measure = catalog.lookup(node.name)
+    name = measure.name
+    positional, options = [], {}
+    for arg in node.expressions:
+        if isinstance(arg, (exp.Distinct, exp.Order)):
+            what = "DISTINCT" if isinstance(arg, exp.Distinct) else "ORDER BY"
+            raise ctx.error(MeasureArgumentError, f"{name}() does not take {what} inside its arguments "
+                            "(the measure orders the values itself)", node, name)
+        if type(arg) in (exp.PropertyEQ, exp.Kwarg):
+            options[arg.this.name.lower()] = arg.expression
+        else:
+            if options:
+                raise ctx.error(MeasureArgumentError, f"{name}(): positional arguments must come before "
+                                "named ones", node, name)
+            positional.append(arg)
+    for opt in options:
+        if opt not in measure.options:
+            allowed = ", ".join(measure.options) or "none"
+            raise ctx.error(MeasureArgumentError, f"{name}(): unknown named argument '{opt}' "
+                            f"(allowed: {allowed})", node, name)
+    need = 1 + len(measure.params)
+    most = need + (1 if measure.trailing else 0)
+    if not need <= len(positional) <= most:
+        expected = str(need) if need == most else f"{need} or {most}"
+        raise ctx.error(MeasureArgumentError, f"{name}() takes {expected} arguments: {measure.signature}; "
+                        f"got {len(positional)}", node, name)
+    x = positional[0]
+    _check_row_level(x, "value", name, node, ctx)
+    params, columns = [], []
+    for spec, arg in zip(measure.params, positional[1:need]):
+        if spec.kind == "column":
+            _check_row_level(arg, spec.name, name, node, ctx)
+            if isinstance(arg, exp.Null):
+                raise ctx.error(MeasureArgumentError, f"{name}(): {spec.name} cannot be NULL", node, name)
+            columns.append(arg)
+            continue
+        value = _constant(arg)
+        if value is None:
+            raise ctx.error(MeasureArgumentError, f"{name}(): {spec.name} must be a numeric constant, "
+                            f"got {text(arg)}", node, name)
+        problem = spec.check(value)
+        if problem is None and spec.kind == "count" and measure.max_count and value > measure.max_count:
+            problem = f"{spec.name} must be at most {measure.max_count}, got {value:g}"
+        if problem:
+            raise ctx.error(MeasureArgumentError, f"{name}(): {problem}", node, name)
+        params.append(value)
+    problem = measure.check(tuple(params)) if measure.check else None
+    if problem:
+        raise ctx.error(MeasureArgumentError, f"{name}(): {problem}", node, name)
+    trailing = positional[need] if len(positional) > need else None
+    if trailing is not None:
+        _check_row_level(trailing, measure.trailing, name, node, ctx)
+        if isinstance(trailing, exp.Literal) and measure.trailing == "weight" and not trailing.is_string:
+            pass  # a constant weight is allowed and acts like no weight
+        elif isinstance(trailing, exp.Null):
+            raise ctx.error(MeasureArgumentError, f"{name}(): the {measure.trailing} cannot be NULL", node, name)
+    strict = ctx.strict
+    if "strict" in options:
+        flag = options["strict"]
+        if not isinstance(flag, exp.Boolean):
+            raise ctx.error(MeasureArgumentError, f"{name}(): strict must be true or false, got {text(flag)}",
+                            node, name)
+        strict = bool(flag.this)
+    settings = {}
+    if measure.read_options is not None:
+        try:
+            settings = measure.read_options(options)
+        except ValueError as e:
+            raise ctx.error(MeasureArgumentError, f"{name}(): {e}", node, name) from None
+    cond = call_filter(node)
+    return MeasureCall(node=node, measure=measure, x=x, params=tuple(params), trailing=trailing,
+                       columns=tuple(columns), options=options,
+                       filter=cond.copy() if cond is not None else None, strict=strict, settings=settings)

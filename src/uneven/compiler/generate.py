@@ -1,0 +1,36 @@
+"""Generate SQL text for a target dialect: the dialect's lowering rules (compiler/dialects/), then
+sqlglot's generator, which refuses what it knows it cannot write."""
+
+from __future__ import annotations
+
+from sqlglot import exp
+from sqlglot.dialects.dialect import Dialect as SqlglotDialect
+from sqlglot.errors import ErrorLevel, UnsupportedError
+
+from uneven.compiler.dialects import EXECUTED_DIALECTS, SUPPORTED_DIALECTS, get_dialect
+from uneven.errors import UnsupportedDialectError
+
+__all__ = ["SUPPORTED_DIALECTS", "EXECUTED_DIALECTS", "check_dialect", "check_read_dialect", "generate"]
+
+
+def check_dialect(dialect: str) -> str:
+    return get_dialect(dialect).name
+
+
+def check_read_dialect(read: str) -> str:
+    """The dialect input SQL is written in: any dialect sqlglot reads (duckdb by default)."""
+    try:
+        SqlglotDialect.get_or_raise(read)
+    except (ValueError, TypeError):
+        raise UnsupportedDialectError(f"cannot read SQL written in {read!r}: not a known SQL dialect "
+                                      f"(e.g. {', '.join(SUPPORTED_DIALECTS)})") from None
+    return read
+
+
+def generate(tree: exp.Expression, dialect: str = "duckdb", pretty: bool = True) -> str:
+    target = get_dialect(dialect)
+    lowered = target.lower(tree.copy())
+    try:
+        return lowered.sql(dialect=target.name, pretty=pretty, unsupported_level=ErrorLevel.RAISE)
+    except UnsupportedError as e:
+        raise UnsupportedDialectError(f"the query cannot be written in {target.name}: {e}") from None

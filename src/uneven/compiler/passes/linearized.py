@@ -1,0 +1,204 @@
+"""Linearized pass: standard errors from influence functions, with optional strata and PSUs.
+
+A measure's linearization (catalog/uncertainty.py) is its estimate θ and its per-row score
+u_k = w_k·z_k written as Σ_j c_j·t_kj: row-level terms t_kj (window columns of the sorted rows)
+with coefficients c_j built from group aggregates (θ, W, T, quantiles …). The with-replacement
+variance of the weighted total of z is a quadratic form in the c_j:
+
+    v = Σ_h n_h/(n_h−1) · Σ_c (U_hc − Ū_h)²,   U_hc = Σ_{k in PSU c of stratum h} u_k
+      = Σ_j Σ_l c_j c_l · K_jl,   K_jl = Σ_h (n_h·Q_hjl − S_hj·S_hl)/(n_h − 1)
+
+with S_hj = Σ_c U_hcj and Q_hjl = Σ_c U_hcj·U_hcl. Every level is a plain GROUP BY, so the pass
+is one sort (shared with C and S) and aggregates — no join back to the rows:
+
+    _rows → _win (C, S, m [, W, n]) → [_psu: GROUP BY keys, h, c] → [_str: GROUP BY keys, h]
+          → _agg: GROUP BY keys → _coef: θ and the c_j per group → _lin: SE and intervals
+
+Plain measures on the same value, weight and FILTER (gini next to gini_se) ride on the pass too
+(plan.share_passes), so asking for an estimate and its SE costs one sort.
+
+Without a PSU every row is its own PSU; without strata there is one stratum. A stratum with one
+PSU has no variance estimate: the group's SE is then NULL.
+"""
+
+from __future__ import annotations
+
+from statistics import NormalDist
+
+from sqlglot import exp
+
+from uneven.catalog.linearize import Lin
+from uneven.compiler import sqlx as s
+from uneven.compiler.passes.rows import Aggregates, RowContext, lower_rows
+from uneven.compiler.passes.source import Source, cte, grouped, table
+
+
+class Terms:
+    """Distinct row terms of the pass (``_uv_u{j}``) and the pairs whose cross sums are needed."""
+
+    def __init__(self):
+        self.items: dict[str, tuple[str, exp.Expression]] = {}
+        self.pairs: list[tuple[int, int]] = []
+
+    def index(self, term: exp.Expression) -> int:
+        key = term.sql("duckdb")
+        if key not in self.items:
+            self.items[key] = (f"_uv_u{len(self.items) + 1}", term)
+        return list(self.items).index(key) + 1
+
+    def vector(self, terms) -> dict[int, exp.Expression]:
+        """{term index: coefficient} for a list of (term, coefficient), registering the pairs."""
+        out: dict[int, exp.Expression] = {}
+        for term, coef in terms:
+            j = self.index(term)
+            out[j] = s.add(out[j], coef) if j in out else coef
+        for j in out:
+            for k in out:
+                if j <= k and (j, k) not in self.pairs:
+                    self.pairs.append((j, k))
+        return out
+
+
+def _sum_name(j: int) -> str:
+    return f"_uv_su{j}"
+
+
+def _cross_name(j: int, k: int) -> str:
+    return f"_uv_q{j}_{k}"
+
+
+def _stats(terms: Terms, unit_cols: dict[int, exp.Expression]) -> list[exp.Expression]:
+    """n, Σ U_j and Σ U_j·U_l over the units (rows or PSUs) of a stratum or group."""
+    out = [s.alias(s.agg_count_star(), "_uv_nu")]
+    out += [s.alias(s.agg_sum(unit_cols[j].copy()), _sum_name(j)) for j in unit_cols]
+    out += [s.alias(s.agg_sum(s.mul(unit_cols[j].copy(), unit_cols[k].copy())), _cross_name(j, k))
+            for j, k in terms.pairs]
+    return out
+
+
+def _k_between(j: int, k: int, n: exp.Expression) -> exp.Expression:
+    """(n·Q_jk − S_j·S_k)/(n − 1): the centred cross product of one stratum's units."""
+    num = s.sub(s.mul(s.cast_double(n), s.col(_cross_name(j, k))), s.mul(s.col(_sum_name(j)), s.col(_sum_name(k))))
+    return s.case(s.gt(n, s.lit(1)), s.div(num, s.sub(s.cast_double(n), s.lit(1.0))))
+
+
+def variance(coefs: dict[int, exp.Expression], K) -> exp.Expression:
+    """Σ_j Σ_l c_j c_l K_jl from the upper triangle (K(j, l) for j ≤ l)."""
+    total = None
+    for j in coefs:
+        for k in coefs:
+            if j > k:
+                continue
+            part = s.mul(s.mul(coefs[j].copy(), coefs[k].copy()), K(j, k))
+            if j < k:
+                part = s.mul(s.lit(2.0), part)
+            total = part if total is None else s.add(total, part)
+    return total if total is not None else s.lit(0.0)
+
+
+def critical_value(level: float) -> float:
+    """z with P(|Z| ≤ z) = level for a standard normal Z."""
+    return NormalDist().inv_cdf(0.5 + level / 2.0)
+
+
+def output(role: str, estimate: exp.Expression, se: exp.Expression, level: float) -> exp.Expression:
+    if role == "se":
+        return se
+    z = s.mul(s.lit(critical_value(level)), se)
+    return s.sub(estimate, z) if role == "lo" else s.add(estimate, z)
+
+
+def lower_linearized_pass(source: Source, main, plan, name: str) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:
+    """CTEs of one linearized pass and, for each call key, the column holding its result."""
+    ctx = RowContext(weighted=plan.trailing is not None, name=name)
+    strata, psu = plan.options.get("strata"), plan.options.get("psu")
+    aggs, terms = Aggregates(), Terms()
+    specs = []
+    for call in plan.calls:
+        if call.measure.pass_for(plan.trailing is not None) == "linearized":
+            lin, role = call.measure.build(ctx, call.params)
+            coefs = terms.vector(lin.terms) if lin.defined else None
+        else:  # a plain measure on the same rows (see plan.share_passes): its estimate only
+            lin, role, coefs = Lin(call.measure.build(ctx, call.params)), None, None
+        specs.append((call, lin, role, coefs))
+
+    extra = {}
+    if strata is not None:
+        extra["_uv_h"] = strata
+    if psu is not None:
+        extra["_uv_psu"] = psu
+    ctes = lower_rows(source, plan, name, ctx, extra)
+    keys = source.key_columns()
+    row_terms = {terms.index(t): t for _, t in terms.items.values()}
+
+    # estimates and coefficients read the group's aggregates: lift them into columns first. The
+    # group CTE's own sums of the row terms (over rows, or over PSUs without strata) and its row
+    # count (without a design) serve the estimates too (e.g. Σ w, Σ w·x and the Gini's rank term)
+    if strata is None:
+        for j, t in row_terms.items():
+            aggs.reuse(s.agg_sum(t), _sum_name(j))
+        if psu is None:
+            aggs.reuse(s.agg_count_star(), "_uv_nu")
+    lifted = []
+    for call, lin, role, coefs in specs:
+        est = aggs.lift(lin.estimate)
+        lifted.append((call, est, role, {j: aggs.lift(c) for j, c in coefs.items()} if coefs is not None else None))
+
+    # the row terms once per row (_terms), so the sums and cross sums read columns
+    term_cols = [s.alias(t.copy(), f"_uv_t{j}") for j, t in row_terms.items()]
+    ctes.append(cte(exp.Select(expressions=[exp.Star()] + term_cols).from_(table(f"{name}_win"), copy=False),
+                    f"{name}_terms"))
+    row_cols = {j: s.col(f"_uv_t{j}") for j in row_terms}
+    strata_keys = [s.col("_uv_h")] if strata is not None else []
+    if psu is not None:
+        # one row per PSU: the sums of the terms over its rows
+        units = [s.alias(s.agg_sum(c.copy()), f"_uv_U{j}") for j, c in row_cols.items()]
+        ctes.append(cte(grouped(keys + strata_keys + [s.col("_uv_psu")], units + aggs.partial(), f"{name}_terms"),
+                        f"{name}_psu"))
+        below, unit_cols, level_aggs = f"{name}_psu", {j: s.col(f"_uv_U{j}") for j in row_terms}, aggs.combined
+    else:
+        below, unit_cols, level_aggs = f"{name}_terms", row_cols, aggs.partial
+    if strata is not None:
+        ctes.append(cte(grouped(keys + strata_keys, _stats(terms, unit_cols) + level_aggs(), below), f"{name}_str"))
+        k_cols = [s.alias(s.agg_sum(_k_between(j, k, s.col("_uv_nu"))), f"_uv_K{j}_{k}") for j, k in terms.pairs]
+        fewest = [s.alias(s.agg_min(s.col("_uv_nu")), "_uv_fewest")]
+        ctes.append(cte(grouped(keys, k_cols + fewest + aggs.combined(), f"{name}_str"), f"{name}_agg"))
+        K = lambda j, k: s.col(f"_uv_K{j}_{k}")  # noqa: E731
+        enough = s.gt(s.col("_uv_fewest"), s.lit(1))
+    else:
+        ctes.append(cte(grouped(keys, _stats(terms, unit_cols) + level_aggs(), below), f"{name}_agg"))
+        K = lambda j, k: _k_between(j, k, s.col("_uv_nu"))  # noqa: E731
+        enough = s.gt(s.col("_uv_nu"), s.lit(1))
+
+    # estimates and coefficients once per group (_coef), then the variance forms over them
+    named, columns, results = [], [], {}
+    for i, (call, est, role, coefs) in enumerate(lifted, start=1):
+        named.append(s.alias(est, f"_uv_e{i}"))
+        named += [s.alias(c, f"_uv_c{i}_{j}") for j, c in (coefs or {}).items()]
+        e = s.col(f"_uv_e{i}")
+        if role is None:
+            value = e
+        elif coefs is None:
+            value = output(role, e, exp.Cast(this=exp.Null(), to=s.DOUBLE), 0.95)
+        else:
+            v = variance({j: s.col(f"_uv_c{i}_{j}") for j in coefs}, K)
+            se = s.case(s.and_(s.not_null(e.copy()), enough.copy()), s.sqrt(s.greatest(v, s.lit(0.0))))
+            value = output(role, e.copy(), se, call.settings.get("level", 0.95))
+        col = f"_uv_r{len(columns) + 1}"
+        columns.append(s.alias(value, col))
+        results[call.key] = s.col(col, name)
+    coef = exp.Select(expressions=[exp.Star()] + named).from_(table(f"{name}_agg"), copy=False)
+    ctes.append(cte(coef, f"{name}_coef"))
+    final = exp.Select(expressions=[k.copy() for k in keys] + columns).from_(table(f"{name}_coef"), copy=False)
+    ctes.append(cte(final, name))
+    return ctes, results
+
+
+def can_share(call) -> bool:
+    """Whether a plain measure call can be computed on a linearized pass (its builder needs only the
+    sorted rows' columns and aggregates: no Lorenz grid, no centred mean, no entity)."""
+    return call.measure.name in SHARED
+
+
+SHARED = {"gini", "gini_corrected", "lorenz", "generalized_lorenz", "bottom_share", "top_share", "palma",
+          "s80s20", "quantile_w", "percentile_ratio", "theil", "mld", "ge", "atkinson"}

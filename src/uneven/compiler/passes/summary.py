@@ -1,0 +1,47 @@
+"""Summary pass (``method="bounded"``): one GROUP BY into log-spaced bins, then intervals per group.
+
+rows CTE:  keys, x, w, bin sign and index      (NULL x or weight, and zero weights, dropped)
+bins CTE:  GROUP BY keys, sign, index: count, Σw, Σw·x, min, max, Σw·x², Σw·ln x, Σw·x·ln x,
+           Σw·x^a for the GE/Atkinson parameters of the pass's calls (so those are exact)
+cum CTE and result CTE: see bounds/lower.py (no overlap joining: one GROUP BY gives disjoint bins)
+
+No sort of the rows: the only windows run over the bins (a few thousand per group at most).
+"""
+
+from __future__ import annotations
+
+from sqlglot import exp
+
+from uneven.bounds import bins as b
+from uneven.bounds.lower import lower_bounds
+from uneven.bounds.measures import powers_needed
+from uneven.compiler import sqlx as s
+from uneven.compiler.passes.source import Source, cte, table, value_weight_rows
+
+
+def lower_summary_pass(source: Source, main, plan, name: str, resolution: float | None = None
+                       ) -> tuple[list[exp.CTE], dict]:
+    """CTEs of one summary pass; results map each call key to its point column and (key, "lo"),
+    (key, "hi") to its bounds. ``resolution``: relative bin width (default bins.DEFAULT_RESOLUTION)."""
+    resolution = b.DEFAULT_RESOLUTION if resolution is None else resolution
+    x, w, condition = plan.x, plan.trailing, plan.condition
+    columns, cond = value_weight_rows(x, w, condition)
+    proj = source.key_projections() + columns + b.bin_keys(s.cast_double(x.copy()), resolution)
+    rows = source.rows(proj, cond)
+
+    keys = source.key_columns()
+    powers = sorted({a for call in plan.calls for a in powers_needed(call.measure.name, call.params)})
+    wcol = s.col("_uv_w") if w is not None else s.lit(1.0)
+    aggs = b.bin_aggregates(s.col("_uv_x"), wcol, powers)
+    calls = [(call.key, call.measure.name, call.params) for call in plan.calls]
+    more, names, exact, read = lower_bounds(f"{name}_bins", keys, [a.alias for a in aggs], calls, name,
+                                            merge=False)
+    aggs = [a for a in aggs if a.alias in read]  # only what the calls read (e.g. Gini: no Σw·x², Σw·ln x)
+    bins = exp.Select(expressions=[k.copy() for k in keys] + aggs).from_(table(f"{name}_rows"))
+    bins.set("group", exp.Group(expressions=[k.copy() for k in keys] + [s.col(b.SIGN), s.col(b.BIN)]))
+    results = {}
+    for key, (point, lo, hi) in names.items():
+        results[key] = s.col(point, name)
+        results[(key, "lo")] = s.col(lo, name)
+        results[(key, "hi")] = s.col(hi, name)
+    return [cte(rows, f"{name}_rows"), cte(bins, f"{name}_bins")] + more, results

@@ -1,0 +1,95 @@
+"""The compile pipeline: parse → find calls → rewrite every scope (innermost first) → generate."""
+
+from __future__ import annotations
+
+from sqlglot import exp
+
+from uneven.compiler.calls import check_position, find_calls, read_call
+from uneven.compiler.context import CompileContext, span, text
+from uneven.compiler.generate import check_dialect, check_read_dialect, generate
+from uneven.compiler.parse import parse_one_statement
+from uneven.compiler.plan import TIE_GROUPING
+from uneven.compiler.scope import rewrite_scope
+from uneven.bounds import bins
+from uneven.compiler.bounded import check_method
+from uneven.compiler.types import check_argument_types
+from uneven.errors import MeasureUsageError
+
+
+def _depth(node: exp.Expression) -> int:
+    d = 0
+    while node.parent is not None:
+        node, d = node.parent, d + 1
+    return d
+
+
+def _check_not_correlated(select: exp.Select, calls, ctx: CompileContext) -> None:
+    """A scope inside an expression (scalar or IN subquery) must not use columns of outer scopes."""
+    parent = select.parent
+    if not isinstance(parent, exp.Subquery) or isinstance(parent.parent, (exp.From, exp.Join)):
+        return  # a source (FROM, JOIN, CTE body) is evaluated on its own
+    visible = {t.alias_or_name for t in select.find_all(exp.Table)}
+    for col in select.find_all(exp.Column):
+        if col.table and col.table not in visible:
+            raise ctx.error(MeasureUsageError, f"{calls[0].measure.name}() is in a correlated subquery "
+                            f"(it uses {text(col)} of an outer query); join instead", calls[0].node,
+                            calls[0].measure.name)
+
+
+def compile_tree(tree: exp.Expression, ctx: CompileContext) -> exp.Expression:
+    """Rewrite every SELECT scope that calls measures; a tree without calls comes back unchanged."""
+    scopes: dict[int, tuple[exp.Select, list]] = {}
+    nodes = find_calls(tree)
+    selects = [check_position(node, ctx) for node in nodes]  # where calls stand, before their arguments
+    for node, select in zip(nodes, selects):
+        scopes.setdefault(id(select), (select, []))[1].append(read_call(node, ctx))
+    # innermost scopes first; among equals, in the order they are written
+    order = sorted(scopes.values(), key=lambda sc: (-_depth(sc[0]), span(sc[1][0].node)[0] or 0))
+    for select, calls in order:
+        _check_not_correlated(select, calls, ctx)
+    for select, calls in order:
+        check_argument_types(select, calls, ctx)
+        new = rewrite_scope(select, calls, ctx)
+        if select is tree:
+            tree = new
+        elif isinstance(select.parent, exp.SetOperation):
+            select.replace(exp.Subquery(this=new))
+        else:
+            select.replace(new)
+    return tree
+
+
+def compile_sql(sql: str, dialect: str = "duckdb", read: str = "duckdb", pretty: bool = True,
+                strict: bool = False, source_columns=None, tie_grouping: str = "auto", tie_probe=None,
+                method: str = "exact", resolution: float | None = None, expression_types=None) -> str:
+    """Compile SQL text with measure calls into plain SQL for ``dialect``; ``strict`` makes every
+    measure call strict (an undefined result stops the query, naming the group);
+    ``source_columns(select)`` may tell the columns a SELECT's FROM provides (see keys.py), and
+    ``expression_types(select, exprs)`` the types of measure arguments (see types.py);
+    ``tie_grouping`` and ``tie_probe`` steer the ordered pass's variant (see plan.py);
+    ``method="bounded"`` gives each measure an interval from one-pass binned summaries of relative
+    bin width ``resolution`` (compiler/bounded.py)."""
+    return compile_with_plan(sql, dialect, read, pretty, strict, source_columns, tie_grouping, tie_probe,
+                             method, resolution, expression_types)[0]
+
+
+def compile_with_plan(sql: str, dialect: str = "duckdb", read: str = "duckdb", pretty: bool = True,
+                      strict: bool = False, source_columns=None, tie_grouping: str = "auto",
+                      tie_probe=None, method: str = "exact", resolution: float | None = None,
+                      expression_types=None) -> tuple[str, list[dict]]:
+    """``compile_sql`` and the planner's record of every pass (plan.describe_pass), innermost scope first."""
+    check_dialect(dialect)
+    check_tie_grouping(tie_grouping)
+    check_read_dialect(read)
+    ctx = CompileContext(sql=sql, strict=strict, source_columns=source_columns, tie_grouping=tie_grouping,
+                         tie_probe=tie_probe, method=check_method(method),
+                         resolution=bins.check_resolution(bins.DEFAULT_RESOLUTION if resolution is None
+                                                          else resolution),
+                         expression_types=expression_types, dialect=dialect)
+    tree = compile_tree(parse_one_statement(sql, read), ctx)
+    return generate(tree, dialect, pretty=pretty), ctx.chosen
+
+
+def check_tie_grouping(value) -> None:
+    if value not in TIE_GROUPING:
+        raise MeasureUsageError(f"tie_grouping must be one of {', '.join(TIE_GROUPING)}, got {value!r}")

@@ -1,0 +1,175 @@
+"""Plan the passes of one scope: measure calls grouped by pass kind and shared input."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Callable
+
+from sqlglot import exp
+
+from uneven.compiler.calls import MeasureCall
+from uneven.compiler.context import text
+
+
+@dataclass
+class PassPlan:
+    kind: str  # "ordered" | "moment" | "entity"
+    x: exp.Expression
+    trailing: exp.Expression | None  # the weight (ordered, moment) or the entity (entity)
+    condition: exp.Expression | None = None  # a FILTER (WHERE …) shared by the pass's calls
+    columns: tuple[exp.Expression, ...] = ()  # further row-level arguments (rank_by, subgroup …)
+    calls: list[MeasureCall] = field(default_factory=list)
+    variant: str = "rows"  # ordered pass: "rows" (one row per input row) or "ties" (per distinct value)
+    reason: str = ""  # why the planner chose the variant (shown by explain)
+    options: dict = field(default_factory=dict)  # the pass-shaping named arguments (strata, psu, …)
+
+
+def plan_passes(calls: list[MeasureCall]) -> list[PassPlan]:
+    """One pass per (kind, value, weight-or-entity, FILTER condition, further columns), in order of
+    first appearance.
+
+    All measures on the same value and weight share one ordered pass, however many there are.
+    """
+    plans: dict[tuple, PassPlan] = {}
+    for call in calls:
+        kind = call.pass_kind
+        trailing = call.trailing
+        cond = call.filter
+        x, columns = call.pass_inputs
+        shaping = {k: call.options[k] for k in call.measure.pass_options if k in call.options}
+        key = (kind, x.sql("duckdb"), trailing.sql("duckdb") if trailing is not None else None,
+               cond.sql("duckdb") if cond is not None else None, tuple(c.sql("duckdb") for c in columns),
+               tuple(sorted((k, v.sql("duckdb")) for k, v in shaping.items())))
+        if key not in plans:
+            plans[key] = PassPlan(kind, x, trailing, cond, columns, options=shaping)
+        plans[key].calls.append(call)
+    return list(plans.values())
+
+
+# Tie grouping (the "ties" variant of the ordered pass) pays when the distinct (keys, value) pairs
+# are at most this share of the rows: measured on 4M rows x 1000 groups, weighted Gini, 2 threads,
+# the running-sum window over distinct values plus one hash aggregate took 0.95x DuckDB's sort
+# at 10% distinct pairs against 3.1x without grouping, but 5.6x against 3.3x at 100% distinct
+# pairs (the hash aggregate then has as many groups as rows); see bench/README.md.
+TIE_SHARE = 0.25
+
+TIE_GROUPING = ("auto", "on", "off")
+
+
+def choose_variant(plan: PassPlan, select: exp.Select, keys: list[exp.Expression], tie_grouping: str = "auto",
+                   tie_probe: Callable | None = None, dialect: str = "duckdb") -> PassPlan:
+    """Pick the ordered pass's variant: "ties" when asked (``on``), or, with ``auto``, when an engine
+    probe reports few distinct values (share of rows ≤ TIE_SHARE); else "rows". The centred pass is
+    "adaptive" on DuckDB when every call has a one-pass error bound (choose_centred). Other passes
+    keep their one form. ``tie_probe(select, x, condition, keys)`` returns (distinct pairs, rows) or
+    None (unknown, e.g. a value type where ties are rare and the probe is not worth a scan)."""
+    if plan.kind == "centred":
+        return choose_centred(plan, dialect)
+    if plan.kind != "ordered":
+        return plan
+    if tie_grouping == "on":
+        plan.variant, plan.reason = "ties", "tie grouping requested"
+    elif tie_grouping == "off":
+        plan.variant, plan.reason = "rows", "tie grouping turned off"
+    elif tie_probe is None:
+        plan.variant, plan.reason = "rows", "no engine to probe for ties (compile only)"
+    else:
+        found = tie_probe(select, plan.x, plan.condition, keys)
+        if found is None:
+            plan.variant, plan.reason = "rows", "value type rarely ties (not probed)"
+        else:
+            distinct, rows = found
+            share = distinct / rows if rows else 1.0
+            plan.variant = "ties" if share <= TIE_SHARE else "rows"
+            plan.reason = (f"about {distinct:,} distinct values in {rows:,} rows ({share:.0%}; "
+                           f"ties grouped at ≤ {TIE_SHARE:.0%})")
+    return plan
+
+
+# The adaptive centred variant: one scan of compensated sums (FSUM) for most groups. Measured on 20M rows
+# x 1000 groups, 2 threads (theil, mld, ge 2, atkinson 1; bench/README.md): the centred pass costs a
+# second scan, a hash join of every row and a second GROUP BY; with a filtered mean CTE that keeps no
+# group, DuckDB skips that scan. FSUM is DuckDB's; other engines keep the centred pass.
+ADAPTIVE_DIALECTS = ("duckdb",)
+
+
+def choose_centred(plan: PassPlan, dialect: str) -> PassPlan:
+    if dialect not in ADAPTIVE_DIALECTS:
+        plan.variant, plan.reason = "centred", f"every group centred (no compensated sum on {dialect})"
+    elif all(call.measure.error_bound is not None for call in plan.calls):
+        plan.variant, plan.reason = "adaptive", ("one pass of compensated sums; a group takes the centred "
+                                                 "pass only where an error bound exceeds 1e-11 of its value")
+    else:
+        plan.variant, plan.reason = "centred", "every group centred (a measure has no one-pass form: " + ", ".join(
+            dict.fromkeys(c.measure.name for c in plan.calls if c.measure.error_bound is None)) + ")"
+    return plan
+
+
+# Only centred calls move: moving the moment sums too (leaving the main aggregate with the group
+# list only) measured within noise (1.62x against 1.62x one Gini on 2M rows x 100k groups, best of
+# 5), and the moment pass keeps its own row-validity rules in one place (passes/moment.py).
+FUSED_KINDS = ("centred",)
+
+
+def fuse_centred(plans: list[PassPlan], keyed: bool) -> list[PassPlan]:
+    """Move the calls of a centred pass onto the ordered pass of the same value, weight and FILTER.
+
+    The ordered pass already sorts the group's valid rows in a window; the group mean as a
+    partition total (Σ w·x / Σ w OVER (PARTITION BY keys)) costs little there, and its GROUP BY
+    then sums the centred terms too: no second scan and no hash join of every row to its group's
+    mean (on 2M rows x 100k groups that join and GROUP BY took about 1.2 s of a 3.7 s ten-measure
+    query; bench/README.md). The deviations
+    x − μ are the same as on the centred pass, so the digits kept on a small spread are too.
+    Without group keys (one group) the centred pass stays: its join is to a single row, while a
+    whole-input window would carry μ through the sort.
+    """
+    if not keyed:
+        return plans
+    ordered = {_rows_key(p): p for p in plans if p.kind == "ordered" and not p.columns and not p.options}
+    out = []
+    for plan in plans:
+        target = ordered.get(_rows_key(plan)) if plan.kind in FUSED_KINDS and not plan.columns \
+            and not plan.options else None
+        if target is None:
+            out.append(plan)
+        else:
+            target.calls += plan.calls
+    return out
+
+
+def describe_pass(plan: PassPlan, ctes: list[str]) -> dict:
+    """What explain shows of one lowered pass."""
+    trailing = text(plan.trailing) if plan.trailing is not None else None
+    return {"kind": plan.kind, "variant": plan.variant if plan.kind in ("ordered", "centred") else "",
+            "value": text(plan.x), "weight": trailing if plan.kind != "entity" else None,
+            "entity": trailing if plan.kind == "entity" else None,
+            "filter": text(plan.condition) if plan.condition is not None else None,
+            "measures": list(dict.fromkeys(text(c.node) for c in plan.calls)), "ctes": ctes,
+            "reason": plan.reason}
+SHAREABLE = {"ordered", "moment"}  # plain passes whose measures a linearized pass can also compute
+
+
+def share_passes(plans: list[PassPlan], can_share) -> list[PassPlan]:
+    """Move the calls of an ordered or moment pass onto a linearized pass of the same value, weight
+    and FILTER (when ``can_share(call)``), so an estimate and its standard error share one sort."""
+    linearized = {}
+    for plan in plans:
+        if plan.kind == "linearized":
+            linearized.setdefault(_rows_key(plan), plan)
+    out = []
+    for plan in plans:
+        target = linearized.get(_rows_key(plan)) if plan.kind in SHAREABLE else None
+        if target is None:
+            out.append(plan)
+            continue
+        moved = [c for c in plan.calls if can_share(c)]
+        target.calls += moved
+        plan.calls = [c for c in plan.calls if not can_share(c)]
+        if plan.calls:
+            out.append(plan)
+    return out
+
+
+def _rows_key(plan: PassPlan) -> tuple:
+    return (plan.x.sql("duckdb"), plan.trailing.sql("duckdb") if plan.trailing is not None else None,
+            plan.condition.sql("duckdb") if plan.condition is not None else None)

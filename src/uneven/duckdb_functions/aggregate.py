@@ -1,0 +1,237 @@
+"""Aggregate forms: one DuckDB macro per catalog measure, usable in any GROUP BY.
+
+``gini(x)`` / ``gini(x, w)`` are macro overloads built from the same catalog ``build`` the compiler
+uses, written against contexts whose columns are list elements instead of window columns:
+
+* moment pass (theil, mld, ge, atkinson, hhi of rows): plain streaming aggregates (``sum(CASE …)``),
+  no list: memory per group is a few numbers.
+* ordered pass (gini, shares, quantiles …): the group's valid rows are collected into one sorted list
+  ``list({x, w} ORDER BY x)``; running weights come from prefix sums of that list (``_uv_scan``);
+  each aggregate of the build becomes ``list_sum(list_transform(rows, λ e, i: …))``. The whole group
+  is held in memory.
+* centred pass (cv, hoover): the group mean from streaming sums, the deviations over a list of the
+  group's values (in memory).
+* entity pass (hhi with an entity, cr): the group's values (with their entity) in a list, summed per
+  entity and sorted (in memory).
+
+Rows are skipped and groups give NULL exactly as in the compiled SQL (the same builds); a negative
+weight, a text value or weight and an out-of-range parameter stop the query with an error naming
+the function and the argument.
+"""
+
+from __future__ import annotations
+
+from sqlglot import exp
+
+from uneven.catalog.spec import Measure
+from uneven.compiler import sqlx as s
+from uneven.compiler.passes.moment import MomentContext
+from uneven.duckdb_functions import lists as L
+from uneven.duckdb_functions.symbolic import NeedsConstant, explore_build
+
+X, W = "_uv_x", "_uv_w"  # struct fields of a collected row
+E, I, G = "_uv_e", "_uv_i", "_uv_g"  # lambda parameters: element, its 1-based position, bound group
+
+
+class _Passthrough:
+    """Stands in for the compiler's main aggregate: a registered sum is just the aggregate itself."""
+
+    def add(self, expr, prefix=None):
+        return expr
+
+
+def _rows_to_list(expr: exp.Expression, lst: exp.Expression) -> exp.Expression:
+    """Each SQL aggregate in ``expr`` → the same aggregate over the list's elements."""
+    ops = {exp.Sum: "list_sum", exp.Min: "list_min", exp.Max: "list_max"}
+
+    def fn(node):
+        if isinstance(node, exp.Count) and isinstance(node.this, exp.Star):
+            return L.call("len", lst.copy())
+        for cls, name in ops.items():
+            if type(node) is cls:
+                return L.call(name, L.transform(lst.copy(), [E, I], node.this.copy()))
+        return node
+
+    return expr.transform(fn)
+
+
+class OrderedListContext:
+    """The ordered pass over the sorted list of a group's rows (see catalog/ordered.py)."""
+
+    def __init__(self, weighted: bool):
+        self.weighted = weighted
+        self.rows = L.field(L.var(G), "_uv_l")
+
+    x = property(lambda self: L.field(L.var(E), X))
+    w = property(lambda self: L.field(L.var(E), W) if self.weighted else s.lit(1.0))
+
+    @property
+    def c(self):
+        return L.element(L.var("_uv_cs"), L.var(I)) if self.weighted else s.cast_double(L.var(I))
+
+    @property
+    def min_row(self):
+        return L.field(L.element(self.rows.copy(), exp.Literal.number(1)), X)
+
+    @property
+    def W_row(self):
+        if self.weighted:
+            return L.element(L.var("_uv_cs"), L.call("len", L.var("_uv_cs")))
+        return s.cast_double(L.call("len", self.rows.copy()))
+
+    W = property(lambda self: s.agg_sum(self.w) if self.weighted else s.cast_double(s.agg_count_star()))
+    T = property(lambda self: s.agg_sum(s.mul(self.w, self.x)))
+    n = property(lambda self: s.agg_count_star())
+
+    def lorenz_grid(self, k):
+        raise NeedsConstant("the Lorenz grid needs its number of points when the plan is built")
+
+
+class EntityListContext:
+    """The entity pass over a group's entity totals, largest first (``_uv_v``)."""
+
+    v = property(lambda self: L.var(E))
+    r = property(lambda self: L.var(I))
+
+
+def _substitute(expr: exp.Expression, mapping: dict[str, exp.Expression]) -> exp.Expression:
+    """Replace the row markers ``_uv_x`` / ``_uv_w`` by the given expressions."""
+    return expr.transform(lambda n: mapping[n.name].copy() if isinstance(n, exp.Column) and not n.table
+                          and n.name in mapping else n)
+
+
+class MacroMomentContext(MomentContext):
+    """The moment pass as streaming aggregates over the macro's arguments (no list)."""
+
+    def __init__(self, x: exp.Expression, w: exp.Expression | None, cond: exp.Expression):
+        self.main = _Passthrough()
+        self.args = {X: x} | ({W: w} if w is not None else {})
+        self.weighted = w is not None
+        self._valid = cond
+
+    x = property(lambda self: L.var(X))
+    w = property(lambda self: L.var(W) if self.weighted else s.lit(1.0))
+
+    def _when_valid(self, term):
+        return s.case(self._valid.copy(), _substitute(term, self.args))
+
+
+class CentredListContext(MacroMomentContext):
+    """Moment sums stream; ``sum`` of a centred term runs over the group's list with ``mu`` bound."""
+
+    @property
+    def mu(self):
+        return L.field(L.var(G), "_uv_mu")
+
+    def sum(self, term):
+        on_rows = _substitute(term, {X: L.field(L.var(E), X), W: L.field(L.var(E), W)})
+        return L.call("list_sum", L.transform(L.field(L.var(G), "_uv_l"), [E, I], on_rows))
+
+
+def _row_inputs(name: str, trailing_kind: str | None, weighted: bool):
+    """(value, weight) as checked DOUBLE expressions over the macro arguments, and the row filter."""
+    x = _checked_numeric(L.var("x"), name, "value x")
+    cond = s.not_null(L.var("x"))
+    w = None
+    if weighted:
+        wd = _checked_numeric(L.var("w"), name, "weight w")
+        w = s.case(s.lt(wd, s.lit(0.0)), s.raise_error(f"uneven: negative weight in the weight argument w of "
+                                                       f"{name}()"), wd.copy())
+        cond = s.and_(cond, s.gt(w.copy(), s.lit(0.0)))
+    return x, w, cond
+
+
+def _checked_numeric(arg: exp.Expression, name: str, what: str) -> exp.Expression:
+    text = exp.EQ(this=L.call("typeof", arg.copy()), expression=s.lit("VARCHAR"))
+    return s.case(text, s.raise_error(f"uneven: {name}(): the {what} must be numeric, got text"),
+                  s.cast_double(arg.copy()))
+
+
+def build_aggregate(measure: Measure, has_trailing: bool, params: list[exp.Expression]) -> exp.Expression:
+    """The macro body of one overload (raises NeedsConstant when a parameter shapes the plan)."""
+    kind = measure.pass_for(has_trailing)
+    name = measure.name
+    weighted = has_trailing and measure.trailing == "weight"
+    x, w, cond = _row_inputs(name, measure.trailing, weighted)
+    if kind == "moment":
+        ctx = MacroMomentContext(x, w, cond)
+        return explore_build(lambda p: measure.build(ctx, p), params)
+    if kind == "centred":
+        ctx = CentredListContext(x, w, cond)
+        body = explore_build(lambda p: measure.build(ctx, p), params)
+        rows = L.collect(L.struct(**{X: x.copy(), W: (w or s.lit(1.0)).copy()}), None, cond.copy())
+        return L.bind(L.struct(_uv_l=rows, _uv_mu=s.div(ctx.T, ctx.W)), G, body)
+    if kind == "ordered":
+        ctx = OrderedListContext(weighted)
+        body = _rows_to_list(explore_build(lambda p: measure.build(ctx, p), params), ctx.rows)
+        if weighted:
+            sums = L.call(L.SCAN, L.transform(ctx.rows.copy(), [E], L.field(L.var(E), W)))
+            body = L.bind(sums, "_uv_cs", body)
+        fields = {X: x.copy()} | ({W: w.copy()} if weighted else {})
+        rows = L.collect(L.struct(**fields), x.copy(), cond)
+        return L.bind(L.struct(_uv_l=rows), G, body)
+    if kind == "entity":
+        ctx = EntityListContext()
+        body = _rows_to_list(explore_build(lambda p: measure.build(ctx, p), params), L.var("_uv_v"))
+        return L.bind(_entity_totals(x, has_trailing), "_uv_v", body)
+    raise NeedsConstant(f"no aggregate form for the {kind} pass")
+
+
+def _entity_totals(x: exp.Expression, with_entity: bool) -> exp.Expression:
+    """The group's entity totals, largest first (each row its own entity without an entity)."""
+    if not with_entity:
+        return L.collect(x.copy(), x.copy(), s.not_null(L.var("x")), desc=True)
+    rows = L.collect(L.struct(_uv_k=L.var("entity"), _uv_x=x.copy()), L.var("entity"),
+                     s.and_(s.not_null(L.var("x")), s.not_null(L.var("entity"))))
+    lst = L.var("_uv_r")
+    i = L.var(I)
+    last = exp.Or(this=exp.EQ(this=i, expression=L.call("len", lst.copy())),
+                  expression=exp.NullSafeNEQ(this=L.field(L.element(lst.copy(), i.copy()), "_uv_k"),
+                                             expression=L.field(L.element(lst.copy(), s.add(i.copy(), exp.Literal.number(1))),
+                                                                "_uv_k")))
+    ends = L.call("list_filter", L.call("range", exp.Literal.number(1), s.add(L.call("len", lst.copy()),
+                                                                              exp.Literal.number(1))),
+                  L.lam([I], last))
+    b = L.var("_uv_b")
+    start = s.add(exp.Coalesce(this=L.element(L.var("_uv_j"), s.sub(i.copy(), exp.Literal.number(1))),
+                               expressions=[exp.Literal.number(0)]), exp.Literal.number(1))
+    segment = L.call("list_slice", lst.copy(), start, b)
+    total = L.call("list_sum", L.transform(segment, [E], L.field(L.var(E), "_uv_x")))
+    totals = L.call("list_reverse_sort", L.transform(L.var("_uv_j"), ["_uv_b", I], total))
+    return L.bind(rows, "_uv_r", L.bind(ends, "_uv_j", totals))
+
+
+def param_checks(measure: Measure, body: exp.Expression) -> exp.Expression:
+    """CASE WHEN <a parameter is out of range> THEN error('…') … ELSE body END."""
+    case = exp.Case()
+    checks = 0
+    for p in measure.params:
+        v = L.var(p.name)
+        bad, what = None, None
+        if p.kind == "fraction":
+            bad, what = exp.Or(this=s.lt(v, s.lit(0.0)), expression=s.gt(v.copy(), s.lit(1.0))), "a fraction between 0 and 1"
+        elif p.kind == "nonnegative":
+            bad, what = s.lt(v, s.lit(0.0)), "at least 0"
+        elif p.kind == "count":
+            bad = exp.Or(this=s.lt(v, s.lit(1.0)), expression=s.neq(v.copy(), exp.Floor(this=v.copy())))
+            what = "a whole number of at least 1"
+            if measure.max_count:
+                bad = exp.Or(this=bad, expression=s.gt(v.copy(), s.lit(float(measure.max_count))))
+                what += f" and at most {measure.max_count}"
+        null = exp.Is(this=v.copy(), expression=exp.Null())
+        case = case.when(null, s.raise_error(f"uneven: {measure.name}(): {p.name} cannot be NULL"))
+        checks += 1
+        if bad is not None:
+            case = case.when(bad, s.raise_error(f"uneven: {measure.name}(): {p.name} must be {what}"))
+    return case.else_(body) if checks else body
+
+
+def aggregate_overloads(measure: Measure) -> list[tuple[list[str], exp.Expression]]:
+    """(arguments, body) per overload: without and with the trailing weight/entity."""
+    names = [p.name for p in measure.params]
+    out = []
+    for has_trailing in (False, True) if measure.trailing else (False,):
+        args = ["x", *names] + (["w" if measure.trailing == "weight" else "entity"] if has_trailing else [])
+        body = build_aggregate(measure, has_trailing, [s.cast_double(L.var(n)) for n in names])
+        out.append((args, param_checks(measure, body)))
+    return out

@@ -1,0 +1,45 @@
+"""Let ``query("SELECT gini(x) FROM df")`` read a DataFrame named ``df`` in the caller's code, as
+DuckDB's own Python API does for the frame that calls it (uneven calls DuckDB one frame deeper)."""
+
+from __future__ import annotations
+
+import types
+
+import sqlglot
+from sqlglot import exp
+
+_FRAME_TYPES = ("DataFrame", "Table", "RecordBatchReader", "DuckDBPyRelation", "Dataset")
+
+
+def _table_names(sql: str) -> set[str]:
+    try:
+        tree = sqlglot.parse_one(sql, read="duckdb")
+    except sqlglot.errors.SqlglotError:
+        return set()
+    ctes = {c.alias_or_name for c in tree.find_all(exp.CTE)}
+    return {t.name for t in tree.find_all(exp.Table)
+            if not t.args.get("db") and not t.args.get("catalog") and t.name and t.name not in ctes}
+
+
+def _is_frame(obj) -> bool:
+    return type(obj).__name__ in _FRAME_TYPES and type(obj).__module__.split(".")[0] in (
+        "pandas", "pyarrow", "polars", "duckdb", "_duckdb")
+
+
+def register_caller_frames(con, sql: str, frame: types.FrameType | None) -> list[str]:
+    """Register data frames the SQL names and the caller holds (locals, then globals), unless the
+    connection already has a table or view of that name. Returns the names registered."""
+    if frame is None:
+        return []
+    names = _table_names(sql)
+    if not names:
+        return []
+    existing = {r[0] for r in con.execute(
+        "SELECT table_name FROM information_schema.tables").fetchall()}
+    done = []
+    for name in sorted(names - existing):
+        obj = frame.f_locals.get(name, frame.f_globals.get(name))
+        if obj is not None and _is_frame(obj):
+            con.register(name, obj)
+            done.append(name)
+    return done

@@ -1,0 +1,140 @@
+"""``explain``: the passes the planner chose for a query and, on request, where DuckDB spends its time.
+
+The plan part is the compiler's own record (``compiler/plan.py: describe_pass``): per pass its
+kind, variant, value, weight or entity, FILTER, the measure calls it serves, the CTEs it adds and
+why the variant was chosen. The profile part runs the compiled SQL once with DuckDB's JSON
+profiling and sums operator times (self time of each physical operator, as DuckDB reports it).
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import tempfile
+from dataclasses import dataclass, field
+
+import duckdb
+
+from uneven.compiler.pipeline import compile_with_plan
+from uneven.engine.columns import duckdb_source_columns
+from uneven.engine.runner import translate_error
+from uneven.engine.ties import duckdb_tie_probe
+
+
+@dataclass
+class Explanation:
+    """What ``explain`` found: ``passes`` (one dict per pass), the compiled ``sql`` and, when
+    profiled, ``operators`` (name, seconds, rows, detail; slowest first), ``total_seconds``,
+    ``result_rows`` and ``system`` (peak buffer memory, spilled bytes)."""
+
+    passes: list[dict]
+    sql: str
+    operators: list[dict] | None = None
+    total_seconds: float | None = None
+    result_rows: int | None = None
+    system: dict = field(default_factory=dict)
+
+    def text(self, show_sql: bool = False, top: int = 15) -> str:
+        lines = [f"passes ({len(self.passes)}):"]
+        for i, p in enumerate(self.passes, 1):
+            kind = p["kind"] + (f" [{p['variant']}]" if p["variant"] else "")
+            lines.append(f"  {i}. {kind}  value: {p['value']}")
+            if p["weight"]:
+                lines.append(f"     weight: {p['weight']}")
+            if p["entity"]:
+                lines.append(f"     entity: {p['entity']}")
+            if p["filter"]:
+                lines.append(f"     filter: {p['filter']}")
+            lines.append(f"     measures: {', '.join(p['measures'])}")
+            lines.append(f"     CTEs: {', '.join(p['ctes'])}")
+            if p["reason"]:
+                lines.append(f"     chosen because: {p['reason']}")
+        if not self.passes:
+            lines.append("  (no measure calls: the query runs as written)")
+        if self.operators is not None:
+            lines.append(f"\nprofile: {self.total_seconds:.3f} s in DuckDB, {self.result_rows} result rows")
+            if self.system:
+                lines.append("  " + ", ".join(f"{k.replace('_', ' ')}: {_size(v)}" for k, v in self.system.items()))
+            lines.append(f"  {'operator':<24} {'seconds':>9} {'share':>6} {'rows':>12}  detail")
+            total = sum(o["seconds"] for o in self.operators) or 1.0
+            for o in self.operators[:top]:
+                lines.append(f"  {o['name']:<24} {o['seconds']:9.3f} {o['seconds'] / total:6.1%} {o['rows']:>12,}  "
+                             f"{o['detail']}")
+            if len(self.operators) > top:
+                rest = sum(o["seconds"] for o in self.operators[top:])
+                lines.append(f"  ({len(self.operators) - top} more operators, {rest:.3f} s)")
+        if show_sql:
+            lines += ["", "compiled SQL:", self.sql]
+        return "\n".join(lines)
+
+    def __str__(self) -> str:
+        return self.text()
+
+
+def _size(n) -> str:
+    if not isinstance(n, (int, float)):
+        return str(n)
+    for unit in ("B", "KB", "MB", "GB"):
+        if abs(n) < 1024 or unit == "GB":
+            return f"{n:.0f} {unit}" if unit == "B" else f"{n:.1f} {unit}"
+        n /= 1024
+    return str(n)
+
+
+def explain_query(sql: str, con: duckdb.DuckDBPyConnection, *, profile: bool = False, strict: bool = False,
+                  tie_grouping: str = "auto") -> Explanation:
+    """Compile ``sql`` as ``query`` would on ``con`` (same probes) and describe its passes; with
+    ``profile`` also run it once under DuckDB's profiler."""
+    compiled, passes = compile_with_plan(sql, dialect="duckdb", pretty=True, strict=strict,
+                                         source_columns=duckdb_source_columns(con),
+                                         tie_grouping=tie_grouping, tie_probe=duckdb_tie_probe(con))
+    out = Explanation(passes=passes, sql=compiled)
+    if profile:
+        run_profiled(con, compiled, out)
+    return out
+
+
+def run_profiled(con: duckdb.DuckDBPyConnection, sql: str, out: Explanation) -> None:
+    fd, path = tempfile.mkstemp(prefix="uneven-profile-", suffix=".json")
+    os.close(fd)
+    try:
+        con.execute("SET enable_profiling = 'json'")
+        con.execute("SET profiling_output = " + "'" + path.replace("'", "''") + "'")
+        try:
+            out.result_rows = len(con.execute(sql).fetchall())
+        except duckdb.Error as e:
+            raise translate_error(e) from None
+        finally:
+            con.execute("PRAGMA disable_profiling")
+        with open(path) as f:
+            doc = json.load(f)
+    finally:
+        os.unlink(path)
+    summarise_profile(doc, out)
+
+
+def summarise_profile(doc: dict, out: Explanation) -> None:
+    """Operators of DuckDB's JSON profile, slowest first (names of older and newer formats)."""
+    ops = []
+
+    def walk(node):
+        name = node.get("name") or node.get("operator_name") or node.get("operator_type")
+        seconds = node.get("timing", node.get("operator_timing"))
+        if name and seconds is not None:
+            info = node.get("extra_info") or {}
+            detail = info.get("Projections") or info.get("Aggregates") or info.get("Function") or info.get("Text") or ""
+            detail = " ".join(detail) if isinstance(detail, list) else str(detail)
+            ops.append({"name": name.strip(), "seconds": float(seconds),
+                        "rows": int(node.get("intermediate_rows", node.get("operator_cardinality", 0)) or 0),
+                        "detail": detail[:90].replace("\n", " ")})
+        for child in node.get("children", []) + node.get("operator", []):
+            walk(child)
+
+    walk(doc)
+    ops.sort(key=lambda o: -o["seconds"])
+    query = doc.get("query") or {}
+    out.operators = ops
+    out.total_seconds = float(query.get("total_time", doc.get("latency", doc.get("operator_timing", 0.0))) or 0.0)
+    system = doc.get("system") or {}
+    out.system = {k: system[k] for k in ("peak_buffer_memory", "peak_temp_dir_size", "total_bytes_spilled")
+                  if k in system}

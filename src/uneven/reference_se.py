@@ -1,0 +1,206 @@
+"""numpy reference ("oracle") for the standard errors, confidence intervals and bootstrap of
+uneven: each influence function written straight from its published formula (see
+docs/uncertainty.md), per row, and the with-replacement variance of its weighted total computed
+stratum by stratum, PSU by PSU. Written to be read, not to be fast; it shares no code with the
+SQL lowering (which expands the variance into sums of products instead).
+
+``influence(name, x, params, w)`` returns (estimate, z) with z in the input row order;
+``se(name, x, params, w, strata, psu)`` the linearization standard error.
+"""
+
+from __future__ import annotations
+
+import math
+from statistics import NormalDist
+
+import numpy as np
+
+from uneven import reference as R
+
+__all__ = ["influence", "design_variance", "se", "ci", "hall_sheather", "density_at_quantile", "SE_MEASURES"]
+
+
+def _sorted(x, w):
+    x = np.asarray(x, dtype=np.float64)
+    w = np.ones_like(x) if w is None else np.asarray(w, dtype=np.float64)
+    order = np.argsort(x, kind="stable")
+    return x, w, order
+
+
+def _unsort(values_sorted, order):
+    out = np.empty_like(values_sorted)
+    out[order] = values_sorted
+    return out
+
+
+def hall_sheather(p: float, n: int, alpha: float = 0.05) -> float:
+    """Hall & Sheather (1988) bandwidth: n^(−1/3) z_{1−α/2}^(2/3) [1.5 φ(Φ⁻¹p)² / (2(Φ⁻¹p)² + 1)]^(1/3)."""
+    nd = NormalDist()
+    q = nd.inv_cdf(p)
+    return n ** (-1 / 3) * nd.inv_cdf(1 - alpha / 2) ** (2 / 3) * (1.5 * nd.pdf(q) ** 2 / (2 * q * q + 1)) ** (1 / 3)
+
+
+def density_at_quantile(x, p, w=None) -> float | None:
+    """Siddiqui (1960) / Bloch–Gastwirth (1968) difference quotient with the Hall–Sheather bandwidth."""
+    h = hall_sheather(p, len(x))
+    hi, lo = min(p + h, 1.0), max(p - h, 0.0)
+    spread = R.quantile_w(x, hi, w) - R.quantile_w(x, lo, w)
+    return (hi - lo) / spread if spread > 0 else None
+
+
+def _gini(x, w):
+    # Langel & Tillé (2013) / Deville (1999): with N̂_k = C_k, Ŷ_k = S_k (running sums, rows sorted),
+    # z_k = [2 N̂_k x_k − 2 Ŷ_k + Ŷ − N̂ x_k − G (Ŷ + N̂ x_k)] / (N̂ Ŷ)
+    x, w, o = _sorted(x, w)
+    xs, ws = x[o], w[o]
+    C, S = np.cumsum(ws), np.cumsum(ws * xs)
+    W, T = ws.sum(), (ws * xs).sum()
+    G = R.gini(x, w)
+    z = (2 * C * xs - 2 * S + T - W * xs - G * (T + W * xs)) / (W * T)
+    return G, _unsort(z, o)
+
+
+def _lorenz(x, p, w):
+    # Binder & Kovacevic (1995) estimating-equation form: z_k = [p Q_p + (x_k − Q_p) 1(x_k ≤ Q_p) − L x_k] / T
+    x, w, o = _sorted(x, w)
+    xs, ws = x[o], w[o]
+    C = np.cumsum(ws)
+    W, T = C[-1], (ws * xs).sum()
+    L, Q = R.lorenz(x, p, w), R.quantile_w(x, p, w)
+    below = (C <= p * W).astype(float)
+    z = (p * Q + (xs - Q) * below - L * xs) / T
+    return L, _unsort(z, o)
+
+
+def _quantile(x, p, w):
+    # z_k = (p − 1(x_k ≤ Q_p)) / (W f(Q_p))   (e.g. Serfling 1980, §2.5; Francisco & Fuller 1991)
+    if not 0 < p < 1:
+        return R.quantile_w(x, p, w), None
+    x, w, o = _sorted(x, w)
+    xs, ws = x[o], w[o]
+    C = np.cumsum(ws)
+    W = C[-1]
+    f = density_at_quantile(x, p, w)
+    if f is None:
+        return R.quantile_w(x, p, w), None
+    below = (C <= p * W).astype(float)
+    return R.quantile_w(x, p, w), _unsort((p - below) / (W * f), o)
+
+
+def _ratio(a, b):
+    (ea, za), (eb, zb) = a, b
+    if eb == 0 or za is None or zb is None:
+        return (ea / eb if eb else None), None
+    r = ea / eb
+    return r, (za - r * zb) / eb
+
+
+def _moment(name, x, params, w):
+    x = np.asarray(x, dtype=np.float64)
+    w = np.ones_like(x) if w is None else np.asarray(w, dtype=np.float64)
+    W, T = w.sum(), (w * x).sum()
+    pos = x > 0
+    lnx = np.where(pos, np.log(np.where(pos, x, 1.0)), 0.0)
+    if name == "ge" and params[0] in (0.0, 1.0):
+        name = "mld" if params[0] == 0.0 else "theil"
+    if name == "theil":
+        A = (w * x * lnx).sum()
+        return R.theil(x, w), (x * lnx - (A / T + 1) * x) / T + 1 / W
+    if name == "mld":
+        Lg = (w * lnx).sum()
+        return R.mld(x, w), x / T - 1 / W - lnx / W + Lg / W ** 2
+    if name == "ge":
+        a = params[0]
+        xa = np.zeros_like(x)
+        xa[pos] = x[pos] ** a
+        V = (w * xa).sum()
+        Rm = (V / W) / (T / W) ** a
+        return R.ge(x, a, w), (xa * Rm / V + (a - 1) * Rm / W - a * Rm * x / T) / (a * (a - 1))
+    if name == "atkinson":
+        eps = params[0]
+        if eps == 1:
+            Lg = (w * lnx).sum()
+            E = math.exp(Lg / W)
+            dE = E * (lnx / W - Lg / W ** 2)
+        else:
+            b = 1 - eps
+            xb = np.zeros_like(x)
+            xb[pos] = x[pos] ** b
+            V = (w * xb).sum()
+            E = (V / W) ** (1 / b)
+            dE = E / b * (xb / V - 1 / W)
+        # A = 1 − E W / T
+        return R.atkinson(x, eps, w), -(dE * W / T + E / T - E * W * x / T ** 2)
+    raise KeyError(name)
+
+
+def influence(name: str, x, params=(), w=None):
+    """(estimate, z per row in input order); z is None where no standard error exists."""
+    if name == "gini":
+        return _gini(x, w)
+    if name in ("lorenz", "bottom_share"):
+        return _lorenz(x, params[0], w)
+    if name == "top_share":
+        L, z = _lorenz(x, 1 - params[0], w)
+        return R.top_share(x, params[0], w), -z
+    if name == "generalized_lorenz":
+        p = params[0]
+        L, zL = _lorenz(x, p, w)
+        x_, w_ = np.asarray(x, float), (np.ones(len(x)) if w is None else np.asarray(w, float))
+        W, T = w_.sum(), (w_ * x_).sum()
+        GL = L * T / W
+        # GL = L·T/W: z = (T z_L + L x_k − GL) / W
+        return GL, (T * zL + L * x_ - GL) / W
+    if name == "palma":
+        top = influence("top_share", x, (0.1,), w)
+        return _ratio(top, _lorenz(x, 0.4, w))
+    if name == "s80s20":
+        return _ratio(influence("top_share", x, (0.2,), w), _lorenz(x, 0.2, w))
+    if name == "quantile_w":
+        return _quantile(x, params[0], w)
+    if name == "percentile_ratio":
+        return _ratio(_quantile(x, params[0], w), _quantile(x, params[1], w))
+    return _moment(name, x, params, w)
+
+
+def design_variance(u, strata=None, psu=None) -> float | None:
+    """Σ_h n_h/(n_h − 1) Σ_c (U_hc − Ū_h)², U_hc the total of u over PSU c of stratum h (each row its
+    own PSU without ``psu``, one stratum without ``strata``): the with-replacement (ultimate
+    cluster) variance of a total (e.g. Wolter 2007, Introduction to Variance Estimation, §1.4)."""
+    u = np.asarray(u, dtype=np.float64)
+    n = len(u)
+    h = np.zeros(n, dtype=object) if strata is None else np.asarray(strata, dtype=object)
+    c = np.arange(n).astype(object) if psu is None else np.asarray(psu, dtype=object)
+    total = 0.0
+    for stratum in dict.fromkeys(h.tolist()):
+        in_h = h == stratum
+        units = {}
+        for cc, uu in zip(c[in_h].tolist(), u[in_h]):
+            units[cc] = units.get(cc, 0.0) + uu
+        U = np.array(list(units.values()))
+        if len(U) < 2:
+            return None
+        total += len(U) / (len(U) - 1) * ((U - U.mean()) ** 2).sum()
+    return total
+
+
+def se(name: str, x, params=(), w=None, strata=None, psu=None) -> float | None:
+    est, z = influence(name, x, params, w)
+    if est is None or z is None or len(x) < 2:
+        return None
+    wv = np.ones(len(x)) if w is None else np.asarray(w, dtype=np.float64)
+    v = design_variance(wv * z, strata, psu)
+    return None if v is None else math.sqrt(max(v, 0.0))
+
+
+def ci(name: str, x, params=(), w=None, level=0.95, strata=None, psu=None):
+    est = influence(name, x, params, w)[0]
+    sd = se(name, x, params, w, strata, psu)
+    if est is None or sd is None:
+        return None, None
+    zc = NormalDist().inv_cdf(0.5 + level / 2)
+    return est - zc * sd, est + zc * sd
+
+
+SE_MEASURES = ("gini", "lorenz", "bottom_share", "generalized_lorenz", "top_share", "palma", "s80s20",
+               "quantile_w", "percentile_ratio", "theil", "mld", "ge", "atkinson")

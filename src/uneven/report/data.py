@@ -1,0 +1,210 @@
+"""The numbers of a report, each fetched from the database by one query built as a tree:
+
+- per group (for the latest period when a time column is given): the measures of ``COLUMNS`` and
+  the Lorenz curve (``lorenz_curve`` rides on the same ordered pass as Gini and the shares);
+- the same for all groups together (the table's last row);
+- with a time column: Gini per group and period (the trend).
+
+Groups are ranked by Gini, most unequal first. A column may name an interval (two more result
+columns, e.g. a confidence interval or bounds): the table then shows ``value [low, high]``; no
+column of the first set has one, the field is where such a pair goes.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Callable
+
+import pandas as pd
+from sqlglot import exp
+
+from uneven.errors import UnevenError
+from uneven.report.lorenz import check_points
+from uneven.report.query import Spec, alias, call, group_label, run_tree
+
+MAX_CURVES = 12  # curves per chart; with more groups the charts show the most and least unequal
+
+
+@dataclass(frozen=True)
+class Column:
+    key: str
+    label: str
+    build: Callable[[Spec], exp.Expression]
+    fmt: str = "{:.3f}"
+    # builders of the low and high end of an interval around the value (shown as value [low, high])
+    interval: tuple[Callable[[Spec], exp.Expression], Callable[[Spec], exp.Expression]] | None = None
+    weighted_only: bool = False
+    note: str = ""
+
+
+def _used(spec: Spec, e: exp.Expression) -> exp.Expression:
+    """``e`` for the rows every measure uses (value not NULL, weight > 0), NULL for the others."""
+    cond = exp.Not(this=exp.Is(this=spec.value.copy(), expression=exp.Null()))
+    if spec.weight is not None:
+        cond = exp.GT(this=spec.weight.copy(), expression=exp.Literal.number(0))
+        cond = exp.and_(cond, exp.Not(this=exp.Is(this=spec.value.copy(), expression=exp.Null())))
+    return exp.Case(ifs=[exp.If(this=cond, true=e)])
+
+
+def _m(name, *params):
+    return lambda spec: call(name, spec.value, *params, weight=spec.weight)
+
+
+COLUMNS: tuple[Column, ...] = (
+    Column("rows", "rows", lambda s: exp.Count(this=_used(s, s.value.copy())), "{:,.0f}",
+           note="rows with a value (and a weight > 0)"),
+    Column("population", "population (Σ weight)", lambda s: exp.Sum(this=_used(s, s.weight.copy())), "{:,.0f}",
+           weighted_only=True),
+    Column("mean", "mean", _m("generalized_lorenz", 1.0), "{:,.2f}", note="weighted mean μ = T/W"),
+    Column("median", "median", _m("quantile_w", 0.5), "{:,.2f}", note="weighted median (inverted CDF)"),
+    Column("gini", "Gini", _m("gini"), "{:.4f}", interval=(_m("gini_ci_lo"), _m("gini_ci_hi")),
+           note="[low, high]: 95 % confidence interval by linearization (rows as independent draws; "
+                "docs/uncertainty.md)"),
+    Column("bottom40", "bottom 40 % share", _m("bottom_share", 0.4), "{:.1%}"),
+    Column("top10", "top 10 % share", _m("top_share", 0.1), "{:.1%}"),
+    Column("palma", "Palma", _m("palma"), "{:.3f}", note="top 10 % share / bottom 40 % share"),
+    Column("s80s20", "S80/S20", _m("s80s20"), "{:.3f}", note="top 20 % share / bottom 20 % share"),
+    Column("theil", "Theil", _m("theil"), "{:.4f}", note="NULL when a value is negative"),
+)
+
+
+@dataclass
+class Group:
+    label: str
+    values: dict[str, float]
+    curve: list[tuple[float, float]] | None
+    rank: int | None = None
+
+
+@dataclass
+class ReportData:
+    title: str
+    value: str
+    weight: str | None
+    by: list[str]
+    time: str | None
+    source: str
+    columns: list[Column]
+    groups: list[Group]             # ranked by Gini, most unequal first (undefined last)
+    overall: Group | None            # all groups together (None when there are no group columns)
+    period: str | None = None        # the latest period the table and curves are for
+    periods: list[str] = field(default_factory=list)
+    trend: dict[str, list[float]] = field(default_factory=dict)  # group label → Gini per period
+
+    def shown(self) -> list[Group]:
+        """The groups drawn in charts: all, or the most and least unequal when there are too many."""
+        if len(self.groups) <= MAX_CURVES:
+            return self.groups
+        half = MAX_CURVES // 2
+        return self.groups[:half] + self.groups[-half:]
+
+    def shown_note(self) -> str:
+        if len(self.groups) <= MAX_CURVES:
+            return ""
+        return (f"The charts show the {MAX_CURVES // 2} most and {MAX_CURVES // 2} least unequal of "
+                f"{len(self.groups)} groups; the table lists all.")
+
+
+def _latest_filter(spec: Spec) -> exp.Expression:
+    latest = exp.select(exp.Max(this=spec.time.copy())).from_(spec.source.from_.copy())
+    return exp.EQ(this=spec.time.copy(), expression=exp.Subquery(this=latest))
+
+
+def measures_select(spec: Spec, columns: list[Column], points: int, keys: bool = True) -> exp.Select:
+    items = [k.copy() for k in spec.keys] if keys else []
+    items += [alias(c.build(spec), f"_uv_c_{c.key}") for c in columns]
+    items += [alias(b(spec), f"_uv_c_{c.key}_{end}") for c in columns if c.interval
+              for end, b in zip(("lo", "hi"), c.interval)]
+    items.append(alias(call("lorenz_curve", spec.value, points, weight=spec.weight), "_uv_curve"))
+    q = exp.select(*items).from_(spec.source.from_.copy())
+    if spec.time is not None:
+        q = q.where(_latest_filter(spec))
+    if keys and spec.keys:
+        q = q.group_by(*[k.copy() for k in spec.keys])
+    return q
+
+
+def trend_select(spec: Spec) -> exp.Select:
+    keys = [k.copy() for k in spec.keys] + [spec.time.copy()]
+    q = exp.select(*keys, alias(call("gini", spec.value, weight=spec.weight), "_uv_gini")).from_(
+        spec.source.from_.copy()).group_by(*[k.copy() for k in keys])
+    return q.order_by(*[exp.Ordered(this=k.copy(), nulls_first=False) for k in keys])
+
+
+def _number(v) -> float:
+    if v is None or v is pd.NA:
+        return math.nan
+    try:
+        return float(v)
+    except (TypeError, ValueError):
+        return math.nan
+
+
+def _group(rec: dict, spec: Spec, columns: list[Column], label: str) -> Group:
+    curve = rec["_uv_curve"]
+    points = None if curve is None or isinstance(curve, float) else [
+        (float(p["p"]), _number(p["lorenz"])) for p in curve]
+    keys = [c.key for c in columns] + [f"{c.key}_{end}" for c in columns if c.interval for end in ("lo", "hi")]
+    return Group(label, {k: _number(rec[f"_uv_c_{k}"]) for k in keys}, points)
+
+
+def rank_groups(groups: list[Group]) -> list[Group]:
+    """Most unequal first; groups whose Gini is undefined come last, unranked."""
+    defined = sorted([g for g in groups if g.values["gini"] == g.values["gini"]],
+                     key=lambda g: (-g.values["gini"], g.label))
+    for i, g in enumerate(defined, 1):
+        g.rank = i
+    return defined + [g for g in groups if g.values["gini"] != g.values["gini"]]
+
+
+def collect(con, spec: Spec, *, points: int = 50, title: str | None = None) -> ReportData:
+    """Run the report's queries and gather their results."""
+    check_points(points)
+    columns = [c for c in COLUMNS if spec.weight is not None or not c.weighted_only]
+    names = spec.key_names
+    per_group = run_tree(con, measures_select(spec, columns, points))
+    if per_group.empty:
+        raise UnevenError(f"{spec.source.label} has no rows to report on")
+    groups = rank_groups([_group(r, spec, columns, group_label(r, names)) for r in per_group.to_dict("records")])
+    overall = None
+    if names:
+        rec = run_tree(con, measures_select(spec, columns, points, keys=False)).to_dict("records")[0]
+        overall = _group(rec, spec, columns, "all groups")
+    data = ReportData(title or f"Inequality of {spec.value.name}" + (f" by {', '.join(names)}" if names else ""),
+                      spec.value.name, spec.weight.name if spec.weight is not None else None, names,
+                      spec.time.name if spec.time is not None else None, spec.source.label, columns, groups, overall)
+    if spec.time is not None:
+        _add_trend(con, spec, data)
+    return data
+
+
+def _add_trend(con, spec: Spec, data: ReportData) -> None:
+    trend = run_tree(con, trend_select(spec))
+    t = spec.time.name
+    periods = [v for v in pd.unique(trend[t]) if not pd.isna(v)]
+    try:
+        periods = sorted(periods)
+    except TypeError:
+        pass
+    data.periods = [str(p) for p in periods]
+    data.period = data.periods[-1] if data.periods else None
+    index = {str(p): i for i, p in enumerate(periods)}
+    for rec in trend.to_dict("records"):
+        if pd.isna(rec[t]):
+            continue
+        label = group_label(rec, data.by)
+        series = data.trend.setdefault(label, [math.nan] * len(periods))
+        series[index[str(rec[t])]] = _number(rec["_uv_gini"])
+
+
+def format_value(column: Column, values: dict[str, float]) -> str:
+    v = values.get(column.key, math.nan)
+    if v != v:
+        return "—"
+    text = column.fmt.format(v)
+    if column.interval is not None:
+        lo, hi = (values.get(f"{column.key}_{end}", math.nan) for end in ("lo", "hi"))
+        if lo == lo and hi == hi:
+            text += f" [{column.fmt.format(lo)}, {column.fmt.format(hi)}]"
+    return text

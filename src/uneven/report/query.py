@@ -1,0 +1,93 @@
+"""Build and run the measure queries of plots and reports as sqlglot trees (no SQL text is
+assembled): measure calls go through the uneven compiler like any user query."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import duckdb
+import pandas as pd
+from sqlglot import exp
+
+from uneven.compiler import compile_sql
+from uneven.engine.columns import duckdb_source_columns
+from uneven.engine.runner import connect, execute_df
+from uneven.errors import UnevenError
+from uneven.report.source import Source, resolve_source
+
+
+def as_list(by) -> list[str]:
+    if by is None:
+        return []
+    names = [by] if isinstance(by, str) else list(by)
+    out = [n.strip() for name in names for n in str(name).split(",") if n.strip()]
+    if len({n.lower() for n in out}) != len(out):
+        raise UnevenError(f"a group column is named twice in {', '.join(out)}")
+    return out
+
+
+def call(name: str, value: exp.Expression, *params: float, weight: exp.Expression | None = None) -> exp.Expression:
+    """A measure call ``name(value, params…, weight)`` as a tree (compiled by the uneven compiler)."""
+    args = [value.copy()] + [exp.Literal.number(repr(float(p)) if isinstance(p, float) else str(p)) for p in params]
+    if weight is not None:
+        args.append(weight.copy())
+    return exp.Anonymous(this=name, expressions=args)
+
+
+def alias(e: exp.Expression, name: str) -> exp.Alias:
+    return exp.alias_(e, name, quoted=True)
+
+
+def run_tree(con: duckdb.DuckDBPyConnection, tree: exp.Expression) -> pd.DataFrame:
+    """Compile a tree with measure calls and run it on ``con``."""
+    compiled = compile_sql(tree.sql("duckdb"), pretty=False, source_columns=duckdb_source_columns(con))
+    return execute_df(con, compiled)
+
+
+@dataclass
+class Spec:
+    """What a plot or report is about: the source and the value, weight, group and time columns."""
+    source: Source
+    value: exp.Column
+    weight: exp.Column | None
+    keys: list[exp.Column]
+    time: exp.Column | None = None
+
+    @property
+    def key_names(self) -> list[str]:
+        return [k.name for k in self.keys]
+
+
+def make_spec(con: duckdb.DuckDBPyConnection, source, value: str, weight: str | None = None, by=None,
+              time: str | None = None) -> Spec:
+    if not value:
+        raise UnevenError("a value column is needed (--value COL)")
+    src = resolve_source(con, source)
+    keys = [src.column(name, "--by") for name in as_list(by)]
+    t = src.column(time, "--time") if time else None
+    if t is not None and t.name in [k.name for k in keys]:
+        raise UnevenError(f"--time {time} is also a group column (--by)")
+    return Spec(src, src.column(value, "--value", numeric=True),
+                src.column(weight, "--weight", numeric=True) if weight else None, keys, t)
+
+
+def open_connection(con=None, **settings) -> tuple[duckdb.DuckDBPyConnection, bool]:
+    """The connection to use and whether we opened it (and so must close it)."""
+    owned = con is None
+    progress = False
+    if not owned:  # keep the caller's progress setting (a progress line may be reading it)
+        try:
+            progress = bool(con.execute("SELECT current_setting('enable_progress_bar')").fetchone()[0])
+        except duckdb.Error:
+            progress = False
+    return connect(con, progress=progress, **{k: v for k, v in settings.items() if v is not None}), owned
+
+
+def group_label(row, names: list[str]) -> str:
+    if not names:
+        return "all rows"
+    parts = []
+    for name in names:
+        v = row[name]
+        parts.append("(null)" if v is None or (isinstance(v, float) and v != v) or v is pd.NA else str(v))
+    return " / ".join(parts)
