@@ -85,7 +85,7 @@ def compile_with_plan(sql: str, dialect: str = "duckdb", read: str = "duckdb", p
                          tie_probe=tie_probe, method=check_method(method),
                          resolution=bins.check_resolution(bins.DEFAULT_RESOLUTION if resolution is None
                                                           else resolution),
-                         expression_types=expression_types, dialect=dialect)
+                         expression_types=expression_types, dialect=dialect, read=read)
     tree = compile_tree(parse_one_statement(sql, read), ctx)
     return generate(tree, dialect, pretty=pretty), ctx.chosen
 
