@@ -8,7 +8,7 @@ from sqlglot import exp
 
 from uneven import catalog
 from uneven.catalog.spec import Measure
-from uneven.compiler.context import CompileContext, text
+from uneven.compiler.context import CompileContext, span, text
 from uneven.errors import MeasureArgumentError, MeasureUsageError
 from uneven.sqltree.constants import ConstantError, evaluate_constant, literal_value
 
@@ -120,7 +120,16 @@ def read_constant(arg: exp.Expression, what: str, name: str, node: exp.Anonymous
     try:
         return evaluate_constant(arg, ctx.read)
     except ConstantError as e:
-        raise ctx.error(MeasureArgumentError, f"{name}(): {what} {e.reason}", e.node if e.node is not None else arg, name) from None
+        raise ctx.error(MeasureArgumentError, f"{name}(): {what} {e.reason}", _positioned(e.node, arg, node),
+                        name) from None
+
+
+def _positioned(*nodes: exp.Expression | None) -> exp.Expression | None:
+    """The first node whose position sqlglot knows (a bare NULL has none: then its argument or call)."""
+    for n in nodes:
+        if n is not None and span(n)[0] is not None:
+            return n
+    return nodes[-1]
 
 
 def _check_row_level(arg: exp.Expression, what: str, name: str, node, ctx: CompileContext) -> None:
@@ -204,7 +213,7 @@ def read_call(node: exp.Anonymous, ctx: CompileContext) -> MeasureCall:
         try:
             settings = measure.read_options(options, read=ctx.read)
         except ConstantError as e:
-            raise ctx.error(MeasureArgumentError, f"{name}(): {e}", e.node if e.node is not None else node, name) from None
+            raise ctx.error(MeasureArgumentError, f"{name}(): {e}", _positioned(e.node, node), name) from None
         except ValueError as e:
             raise ctx.error(MeasureArgumentError, f"{name}(): {e}", node, name) from None
     cond = call_filter(node)

@@ -17,7 +17,10 @@ How a value is found:
   evaluation, so threads may share it). DuckDB's own rules then apply to casts: ``CAST(0.5 AS
   INTEGER)`` is 1 (a DECIMAL rounds half away from zero), ``CAST(0.25 AS DECIMAL(3,1))`` is 0.3.
   Read dialects whose integer casts truncate (Spark, Hive, Databricks, SQLite, T-SQL) get their cast
-  operand truncated first, so ``CAST(0.5 AS INT)`` read as Spark is 0, as the engine computes it.
+  operand truncated first, so ``CAST(0.5 AS INT)`` read as Spark is 0, as the engine computes it;
+  SQLite's ``CAST(v AS DECIMAL(p, s))`` keeps every digit (NUMERIC affinity), so it becomes DOUBLE.
+  Known gap: SQLite's dynamic typing makes ``CAST(2.0 AS NUMERIC) / 4`` an integer division (0);
+  here it is 0.5.
   An engine error (cast overflow, division by zero in ``//``) becomes a ConstantError.
 
 This module imports nothing from the compiler or the catalog: it is the bottom layer.
@@ -141,11 +144,25 @@ def _truncate_integer_casts(tree: exp.Expression) -> exp.Expression:
     return tree.transform(fn)
 
 
+def _unscaled_decimal_casts(tree: exp.Expression) -> exp.Expression:
+    """CAST(v AS DECIMAL(p, s)) → CAST(v AS DOUBLE): SQLite's NUMERIC affinity keeps every digit."""
+    def fn(node):
+        if isinstance(node, exp.Cast) and node.to.is_type(exp.DataType.Type.DECIMAL, exp.DataType.Type.BIGDECIMAL):
+            return node.__class__(**{**node.args, "to": exp.DataType.build("double")})
+        return node
+    return tree.transform(fn)
+
+
+# what a read dialect's casts mean where sqlglot's transpilation to DuckDB keeps DuckDB's meaning
+_READ_RULES = {name: (_truncate_integer_casts,) for name in TRUNCATING_INTEGER_CASTS}
+_READ_RULES["sqlite"] = (_truncate_integer_casts, _unscaled_decimal_casts)
+
+
 def duckdb_query(node: exp.Expression, read: str = "duckdb") -> str:
     """``SELECT CAST((<expr>) AS DOUBLE)`` in DuckDB's dialect, meaning what ``node`` means in ``read``."""
     tree = annotate_types(node.copy(), dialect=read)
-    if str(read).lower() in TRUNCATING_INTEGER_CASTS:
-        tree = annotate_types(_truncate_integer_casts(tree), dialect=read)
+    for rule in _READ_RULES.get(str(read).lower(), ()):
+        tree = annotate_types(rule(tree), dialect=read)
     query = exp.select(exp.cast(exp.Paren(this=tree), exp.DataType.Type.DOUBLE))
     return query.sql("duckdb", unsupported_level=ErrorLevel.RAISE)
 
