@@ -203,7 +203,7 @@ def evaluate_constant(node: exp.Expression, read: str = "duckdb") -> float:
             raise ConstantError("cannot be NULL", node)
         try:
             query = duckdb_query(node, read)
-        except SqlglotError as e:
+        except Exception as e:  # noqa: BLE001 - sqlglot cannot type or transpile it: our error, not a traceback
             raise ConstantError(f"could not be evaluated ({_shown(node, read)}): {e}", node) from None
         value, problem = _evaluate(query)
         if problem is not None:
