@@ -32,7 +32,7 @@ K = 50  # the report's default Lorenz grid
 
 def _survey(seed=11, n=90):
     rng = np.random.default_rng(seed)
-    groups = np.array(["Ashmere", "Brindle", "Corrow"], dtype=object)
+    groups = np.array(["Aplovique", "Bruzzelon", "Cravquell"], dtype=object)
     g = np.repeat(groups, n * 3)
     year = np.tile(np.repeat([2021, 2022, 2023], n), 3)
     spread = np.repeat([0.5, 0.9, 1.3], n * 3)
@@ -103,7 +103,7 @@ def test_html_is_self_contained_and_its_charts_show_the_data(survey, tmp_path):
     assert set(re.findall(r"https?://[^\s\"']+", html)) == {"http://www.w3.org/2000/svg"}
     latest = _latest(survey)
     curves = _read_lorenz(_svg(html, "lorenz-chart"))
-    assert set(curves) == {"Ashmere", "Brindle", "Corrow", "all groups"}
+    assert set(curves) == {"Aplovique", "Bruzzelon", "Cravquell", "all groups"}
     for key, xy in curves.items():
         part = latest if key == "all groups" else latest[latest.region == key]
         want = R.lorenz_curve(part.income.to_numpy(), K, part.w.to_numpy())
@@ -115,11 +115,11 @@ def test_html_is_self_contained_and_its_charts_show_the_data(survey, tmp_path):
     assert [k for k, _ in bars] == sorted(want_gini, key=lambda k: -want_gini[k])
     assert [v for _, v in bars] == pytest.approx([want_gini[k] for k, _ in bars], rel=1e-12)
     trend = {line.get("data-label"): line for line in _svg(html, "trend-chart").iter(f"{SVG}polyline")}
-    assert set(trend) == set(want_gini) and len(trend["Ashmere"].get("points").split()) == 3
+    assert set(trend) == set(want_gini) and len(trend["Aplovique"].get("points").split()) == 3
     # the table lists every group and the overall row, ranked
     rows = re.findall(r'<td>(\d)</td><td class="group">(\w+)</td><td>[\d,]+</td>', html)
     assert [r[1] for r in rows] == [k for k, _ in bars] and [r[0] for r in rows] == ["1", "2", "3"]
-    assert f"{want_gini['Corrow']:.4f}" in html and "all groups" in html
+    assert f"{want_gini['Cravquell']:.4f}" in html and "all groups" in html
 
 
 def test_markdown_report_with_side_files(survey, tmp_path):

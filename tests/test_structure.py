@@ -29,7 +29,7 @@ from uneven.structure import compare, decompose, gini_sources
 
 def _frame(seed=3, n=240):
     rng = np.random.default_rng(seed)
-    return pd.DataFrame({"prov": rng.choice(["Asterby", "Brell", "Corran"], n),
+    return pd.DataFrame({"prov": rng.choice(["Axquelle", "Blorvent", "Czamburo"], n),
                          "inc": np.round(rng.lognormal(3.0, 0.7, n), 0),
                          "aux": np.round(rng.lognormal(2.0, 0.4, n), 0),
                          "hh": rng.integers(0, 4, n), "w": rng.integers(1, 5, n).astype(float)})

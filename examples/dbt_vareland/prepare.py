@@ -13,7 +13,7 @@ import numpy as np
 import uneven.duckdb_functions as functions
 
 HERE = Path(__file__).resolve().parent
-PROVINCES = {"Ostrava Vale": 0.55, "Kelmar Coast": 0.75, "Durnholt": 0.65, "Sirreth Uplands": 0.9}
+PROVINCES = {"Zarnquill Vale": 0.55, "Plovexa Coast": 0.75, "Umbertrox": 0.65, "Snivvelgard Uplands": 0.9}
 
 
 def households(seed: int = 20240611, per_province: int = 60):

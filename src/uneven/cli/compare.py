@@ -24,7 +24,7 @@ def register(sub) -> None:
                        epilog="examples:\n  uneven compare 'survey.parquet' gross disposable --weight w --by province\n"
                        "  uneven compare 'survey.parquet' income --group sex --groups f m --weight w "
                        "--strata stratum --psu cluster\n"
-                       "  uneven compare 'survey.parquet' income --group province --groups Arvel Brisk "
+                       "  uneven compare 'survey.parquet' income --group province --groups Arquimbel Bozzlevar "
                        "--measure top_share --param 0.1",
                        formatter_class=argparse.RawDescriptionHelpFormatter)
     add_table_options(p)
