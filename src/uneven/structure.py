@@ -166,6 +166,12 @@ def _within_term(v: float, share: float, ge: float | None, alpha: float) -> floa
     return v ** (1 - alpha) * share ** alpha * ge
 
 
+#: Printed by ``uneven compare`` under its table (stderr) and shown in its help.
+MANY_COMPARISONS = ("z = difference / se. Comparing many pairs inflates false positives: with no real "
+                    "difference, one comparison in twenty still gives |z| > 1.96, so over many groups or pairs "
+                    "adjust the threshold (e.g. 5 % divided by the number of comparisons) or read z as a screen.")
+
+
 # ------------------------------------------------------------------------------ income sources
 def gini_sources(relation: str, sources: list[str], *, weight: str | None = None, by=(),
                  con: duckdb.DuckDBPyConnection | None = None) -> pd.DataFrame:
@@ -232,7 +238,10 @@ def compare(relation: str, x1: str, x2: str | None = None, *, group: str | None 
     each group, the difference first − second and its standard error, ``se="design"`` (Gini; the
     linearized difference under the design ``strata``/``psu`` shared by both groups, covariance
     included) or ``se="independent"`` (any measure with an ``_se`` form: sqrt(se₁² + se₂²)); see
-    ``uneven.compare_groups``. The column ``se_method`` says which was computed."""
+    ``uneven.compare_groups``. The column ``se_method`` says which was computed.
+
+    ``z`` = difference / se: with many comparisons (many ``by`` groups or pairs), some |z| > 1.96
+    turn up by chance alone (one in twenty where there is no difference): see MANY_COMPARISONS."""
     fn = "compare"
     if group is not None or groups is not None:
         if x2 is not None:
