@@ -1,9 +1,10 @@
 """The difference of a measure between two groups of rows with its standard error
 (structure.compare with group=/groups=, and `uneven compare --group`), against an independent
 numpy computation written here from the published formulas: the linearized Gini of each row
-(Langel & Tillé 2013, via uneven.reference_se.influence, itself checked against numerical
-derivatives in test_uncertainty.py) and the with-replacement variance of a total over strata and
-PSUs (Wolter 2007, §1.4); plus a small Monte Carlo check that the SE tracks the spread of the
+(Langel & Tillé 2013, cited from memory, via uneven.reference_se.influence, itself checked
+against numerical derivatives in test_uncertainty.py) and the with-replacement variance of a total
+over strata and PSUs (common practice of survey sampling; Wolter 2007, §1.4, cited from memory);
+plus a small Monte Carlo check that the SE tracks the spread of the
 difference over repeated samples."""
 
 from __future__ import annotations

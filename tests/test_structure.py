@@ -5,8 +5,9 @@ Outside references: exact rational arithmetic (``fractions``) of the pairwise de
 additivity identities of the published decompositions (Shorrocks 1980 for GE; Lerman and Yitzhaki
 1985 for sources); Kakwani, Wagstaff and van Doorslaer (1997) for the concentration index with
 fractional ranks; Wagstaff (2005) C/(1 − μ) for a binary outcome; Erreygers (2009) 4μC for an
-outcome in [0, 1] (both from memory); the Engel food expenditure data shipped with statsmodels,
-recomputed here with numpy and scipy; numerical differentiation; brute-force recomputation.
+outcome in [0, 1] (all these cited from memory, not consulted); Engel's law (common practice); the
+Engel food expenditure data shipped with statsmodels, recomputed here with numpy and scipy;
+numerical differentiation; brute-force recomputation.
 """
 
 from __future__ import annotations
@@ -45,7 +46,7 @@ def con():
 
 # ------------------------------------------------------------------ references against outside sources
 def _brute_concentration(y, r, w):
-    """Exact: Σ_i Σ_j w_i w_j y_i sign(r_i − r_j) / (W T) (mid-rank fractional ranks; KWvD 1997)."""
+    """Exact: Σ_i Σ_j w_i w_j y_i sign(r_i − r_j) / (W T) (mid-rank fractional ranks; KWvD 1997, from memory)."""
     y, r, w = [Fraction(v) for v in y], [Fraction(v) for v in r], [Fraction(v) for v in w]
     W, T = sum(w), sum(a * b for a, b in zip(w, y))
     num = sum(w[i] * w[j] * y[i] * ((r[i] > r[j]) - (r[i] < r[j])) for i in range(len(y)) for j in range(len(y)))
@@ -160,7 +161,7 @@ def test_engel_food_spending_against_numpy(engel):
     assert got["g"] == pytest.approx(_numpy_gini(inc), rel=1e-10)
     assert got["c"] == pytest.approx(_numpy_concentration(food, inc), rel=1e-10)
     assert got["k"] == pytest.approx(_numpy_concentration(food, inc) - _numpy_gini(inc), rel=1e-10)
-    assert got["k"] < 0  # Engel's law: food takes a smaller share of larger incomes
+    assert got["k"] < 0  # Engel's law (common practice): food takes a smaller share of larger incomes
     assert got["rs"] == pytest.approx(_numpy_gini(inc) - _numpy_concentration(inc - food, inc), rel=1e-10)
 
 
@@ -170,7 +171,7 @@ def test_engel_sources_and_decomposition_against_numpy(engel):
     tab = gini_sources("engel", ["foodexp", "income - foodexp"])
     G = _numpy_gini(inc)
     body = tab[tab["source"] != "total"]
-    assert body["gini_points"].sum() == pytest.approx(G, abs=1e-12)  # Lerman–Yitzhaki: sum to the Gini
+    assert body["gini_points"].sum() == pytest.approx(G, abs=1e-12)  # Lerman–Yitzhaki (from memory): sum to G
     for src, v in (("foodexp", food), ("income - foodexp", other)):
         row = body[body["source"] == src].iloc[0]
         S, C = v.sum() / inc.sum(), _numpy_concentration(v, inc)

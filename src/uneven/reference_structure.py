@@ -31,7 +31,7 @@ def _arrays(*cols: Any, w: Any = None) -> tuple[list[np.ndarray], np.ndarray]:
 
 
 # ---------------------------------------------------------------------------------------------
-# GE(α) decomposition by subgroup (Shorrocks 1980: GE = between + within, exactly)
+# GE(α) decomposition by subgroup (Shorrocks 1980, from memory: GE = between + within, exactly)
 # ---------------------------------------------------------------------------------------------
 
 def ge_parts(x, alpha, group, w=None) -> list[dict] | None:
@@ -84,7 +84,7 @@ def ge_between(x, alpha, group, w=None) -> float | None:
 def fractional_ranks(r, w=None) -> np.ndarray:
     """Weighted fractional rank of each row (in input order), mid-rank for ties:
     R = (weight strictly below + half the weight of the tie group) / W
-    (Kakwani, Wagstaff and van Doorslaer 1997)."""
+    (Kakwani, Wagstaff and van Doorslaer 1997, from memory)."""
     (rs,), ws = _arrays(r, w=w)
     W = math.fsum(ws)
     out = np.empty_like(rs)
@@ -113,7 +113,7 @@ def _bounds_ok(ys, lo, hi) -> bool:
 
 
 def concentration_wagstaff(y, rank_by, lo, hi, w=None) -> float | None:
-    """Wagstaff's normalisation for an outcome bounded in [lo, hi]: C·(hi − lo)·μ / ((hi − μ)(μ − lo)).
+    """Wagstaff's (2005, from memory) normalisation for an outcome bounded in [lo, hi]: C·(hi − lo)·μ / ((hi − μ)(μ − lo)).
     None when a value lies outside the bounds or μ sits on a bound."""
     (ys, _), ws = _arrays(y, rank_by, w=w)
     c = concentration(y, rank_by, w)
@@ -126,7 +126,7 @@ def concentration_wagstaff(y, rank_by, lo, hi, w=None) -> float | None:
 
 
 def concentration_erreygers(y, rank_by, lo, hi, w=None) -> float | None:
-    """Erreygers (2009) corrected index for an outcome bounded in [lo, hi]: 4·μ·C / (hi − lo)."""
+    """Erreygers (2009, from memory) corrected index for an outcome bounded in [lo, hi]: 4·μ·C / (hi − lo)."""
     (ys, _), ws = _arrays(y, rank_by, w=w)
     c = concentration(y, rank_by, w)
     if c is None or not _bounds_ok(ys, lo, hi):
@@ -197,7 +197,7 @@ def gini_se(x, w=None) -> float | None:
 
 
 # ---------------------------------------------------------------------------------------------
-# Gini by income source (Lerman and Yitzhaki 1985)
+# Gini by income source (Lerman and Yitzhaki 1985, from memory)
 # ---------------------------------------------------------------------------------------------
 
 def gini_sources(sources: dict[str, Any], w=None) -> list[dict] | None:

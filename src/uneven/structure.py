@@ -175,7 +175,7 @@ MANY_COMPARISONS = ("z = difference / se. Comparing many pairs inflates false po
 # ------------------------------------------------------------------------------ income sources
 def gini_sources(relation: str, sources: list[str], *, weight: str | None = None, by=(),
                  con: duckdb.DuckDBPyConnection | None = None) -> pd.DataFrame:
-    """Gini of the total of ``sources`` decomposed by source (Lerman and Yitzhaki 1985).
+    """Gini of the total of ``sources`` decomposed by source (Lerman and Yitzhaki 1985, cited from memory).
 
     Per source: ``part_of_total`` S_k (its share of the total), ``own_gini`` G_k,
     ``conc_by_total`` C_k (its concentration ranked by the total, mid-ranks for ties),

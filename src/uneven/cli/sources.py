@@ -1,4 +1,4 @@
-"""uneven sources: the Gini of a total decomposed by income source (Lerman and Yitzhaki 1985)."""
+"""uneven sources: the Gini of a total decomposed by income source (Lerman and Yitzhaki 1985, cited from memory)."""
 
 from __future__ import annotations
 
