@@ -41,7 +41,7 @@ FAMILIES = [
 
 @pytest.fixture(scope="module")
 def survey() -> pd.DataFrame:
-    rng = np.random.default_rng(23)  # invented Vareland survey: strata h, clusters c, regions r
+    rng = np.random.default_rng(23)  # invented Quembraland survey: strata h, clusters c, regions r
     n = 600
     x = np.round(rng.lognormal(3, 0.8, n), 1)
     return pd.DataFrame({"id": np.arange(n), "prov": rng.choice(["Arquimbel", "Bozzlevar"], n), "x": x,

@@ -128,9 +128,9 @@ def test_demo_small(tmp_path, capsys):
     assert main(["demo", "--rows", "20000", "--dir", str(tmp_path)]) == 0
     out = capsys.readouterr().out
     assert "Gini gross" in out and "(all provinces)" in out
-    assert (tmp_path / "vareland_survey.parquet").exists()
+    assert (tmp_path / "quembraland_survey.parquet").exists()
     # the report's overall weighted Gini of disposable income equals the reference on the file
-    df = pd.read_parquet(tmp_path / "vareland_survey.parquet")
+    df = pd.read_parquet(tmp_path / "quembraland_survey.parquet")
     d = df[df.year == df.year.max()]
     want = R.gini(d.disposable_income.to_numpy(), d.weight.to_numpy())
     line = [ln for ln in out.splitlines() if ln.strip().startswith("(all provinces)")][0]

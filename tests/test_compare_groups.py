@@ -23,7 +23,7 @@ from uneven.structure import compare
 
 @pytest.fixture(scope="module")
 def survey() -> pd.DataFrame:
-    rng = np.random.default_rng(31)  # invented Vareland survey: sex within shared households' clusters
+    rng = np.random.default_rng(31)  # invented Quembraland survey: sex within shared households' clusters
     n = 700
     return pd.DataFrame({"prov": rng.choice(["Arquimbel", "Bozzlevar"], n), "x": np.round(rng.lognormal(3, 0.8, n), 1),
                          "w": rng.integers(1, 5, n).astype(float), "h": rng.integers(0, 3, n),

@@ -205,7 +205,7 @@ def _pixels_like(img: np.ndarray, hex_colour: str, tol: float = 0.03) -> np.ndar
 def test_demo_report_renders_with_table_curves_and_ranking(tmp_path, capsys):
     assert main(["demo", "--rows", "12000", "--dir", str(tmp_path)]) == 0
     out = capsys.readouterr().out
-    report = tmp_path / "vareland_report.html"
+    report = tmp_path / "quembraland_report.html"
     assert str(report) in out.splitlines()[-1]
     img = screenshot(report, tmp_path / "shot.png")
     assert img.shape[:2] == (1700, 1400)

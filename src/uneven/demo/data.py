@@ -1,6 +1,6 @@
 """Invented demo data for uneven examples, tests and tutorials.
 
-Everything here is made up. The *Republic of Vareland* is a fictional country with eight
+Everything here is made up. The *Republic of Quembraland* is a fictional country with eight
 fictional provinces; its household survey below is produced by a random generator with a fixed
 seed and describes no real person, place or organisation. The same holds for the fictional online
 marketplace of :func:`write_marketplace`.
@@ -47,7 +47,7 @@ __all__ = [
     "write_marketplace",
 ]
 
-COUNTRY = "Republic of Vareland"
+COUNTRY = "Republic of Quembraland"
 
 #: Rows generated per chunk (and per Parquet row group). Part of the output's definition:
 #: changing it changes the data produced for a given seed.
@@ -79,7 +79,7 @@ _PROVINCES: tuple[_Province, ...] = (
     _Province("Isle of Quazzelan", 0.05, 0.08, 9.95, 0.80, 1.4),
 )
 
-#: Names of the fictional provinces of Vareland, largest first.
+#: Names of the fictional provinces of Quembraland, largest first.
 PROVINCES: list[str] = [p.name for p in _PROVINCES]
 
 #: Progressive income tax on household gross income: (lower bound of bracket, marginal rate).
@@ -190,7 +190,7 @@ def _survey_chunk(rng: np.random.Generator, first_id: int, n: int,
 
 def write_survey(path: str | os.PathLike, rows: int = 2_000_000, seed: int = 20261201,
                  years: tuple[int, ...] = (2022, 2023, 2024)) -> Path:
-    """Write the invented Vareland household survey to one Parquet file at ``path``.
+    """Write the invented Quembraland household survey to one Parquet file at ``path``.
 
     Columns: ``household_id`` (1..rows), ``province``, ``year``, ``household_size``,
     ``gross_income``, ``disposable_income`` and ``weight`` (survey weight, 50-2000).

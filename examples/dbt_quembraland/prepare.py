@@ -17,7 +17,7 @@ PROVINCES = {"Zarnquill Vale": 0.55, "Plovexa Coast": 0.75, "Umbertrox": 0.65, "
 
 
 def households(seed: int = 20240611, per_province: int = 60):
-    """Invented households of the Republic of Vareland: lognormal incomes, survey weights 1..5."""
+    """Invented households of the Republic of Quembraland: lognormal incomes, survey weights 1..5."""
     rng = np.random.default_rng(seed)
     rows, hid = [], 0
     for province, sigma in PROVINCES.items():
