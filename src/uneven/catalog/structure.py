@@ -112,7 +112,7 @@ MEASURES = [
             "α = 0: Σ v_g ln(μ/μ_g)", build_ge_between, rs.ge_between,
             domain="as ge; rows with a NULL subgroup are skipped"),
     Measure("ge_within", "subgroup", (ALPHA, SUBGROUP), "weight",
-            "Σ_g v_g^(1−α) s_g^α GE_g (v, s: population and income share); ge = ge_between + ge_within",
+            "Σ_g v_g^(1−α) s_g^α GE_g (v, s: the subgroup's weight share and value share); ge = ge_between + ge_within",
             build_ge_within, rs.ge_within, domain="as ge; rows with a NULL subgroup are skipped"),
     Measure("concentration", "ranked", (RANK_BY,), "weight",
             "Σ w y (2R − 1) / Σ w y, R the fractional rank of rank_by (mid-rank for ties)",
