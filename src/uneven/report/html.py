@@ -67,8 +67,10 @@ def few_rows_note(data: ReportData) -> str:
     if not few:
         return ""
     return (f"{FEW_FLAG}: {len(few)} group{'s' if len(few) > 1 else ''} with fewer than {FEW_ROWS} rows "
-            f"({', '.join(few[:8])}{', …' if len(few) > 8 else ''}): their figures rest on few records; "
-            "read them, and their place in the ranking, with care.")
+            f"({', '.join(few[:8])}{', …' if len(few) > 8 else ''}): "
+            + ("their figures rest on few records; read them, and their places in the ranking, with care."
+               if len(few) > 1 else "its figures rest on few records; read them, and its place in the ranking, "
+               "with care."))
 
 
 def cautions(data: ReportData) -> list[str]:
