@@ -6,8 +6,9 @@
 - with a time column: Gini per group and period (the trend).
 
 Groups are ranked by Gini, most unequal first. A column may name an interval (two more result
-columns, e.g. a confidence interval or bounds): the table then shows ``value [low, high]``; no
-column of the first set has one, the field is where such a pair goes.
+columns, e.g. a confidence interval or bounds): the table then shows ``value [low, high]``; the
+Gini, the shares, the ratios and Theil carry their 95 % intervals (``_ci``). Groups with fewer
+than ``FEW_ROWS`` rows are flagged, and ``CAUTIONS`` say what can mislead.
 """
 
 from __future__ import annotations
