@@ -104,7 +104,7 @@ def rough_rows(seed: int = 9, n: int = 600) -> pd.DataFrame:
     disposable = np.round(rng.normal(2000, 1500, n), 0)  # some negative
     weight = rng.integers(0, 5, n).astype(float)  # integer weights, zeros included
     frame = pd.DataFrame({
-        "hh_id": np.arange(n), "province": rng.choice(["North", "South", "Ébène", None], n),
+        "hh_id": np.arange(n), "province": rng.choice(["North", "South", "Évrazquelle", None], n),
         "year": rng.choice([2023, 2024], n), "gross": gross, "disposable": disposable, "weight": weight,
         "hh_size": rng.integers(1, 7, n)})
     for col, share in (("gross", 0.08), ("disposable", 0.05), ("weight", 0.06)):
