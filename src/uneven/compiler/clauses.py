@@ -19,7 +19,7 @@ from __future__ import annotations
 
 from sqlglot import exp
 
-from uneven.compiler.context import CompileContext
+from uneven.compiler.context import CompileContext, span
 from uneven.errors import UnsupportedSqlError
 
 CARRIED = "carried"
@@ -66,7 +66,7 @@ TABLE_ARGS: dict[str, str] = {
     "alias": SOURCE,
     "db": SOURCE,
     "catalog": SOURCE,
-    "laterals": SOURCE,
+    "laterals": "a LATERAL VIEW on a table",
     "joins": SOURCE,
     "pivots": SOURCE,  # PIVOT / UNPIVOT on a table: a deterministic function of the table
     "hints": "a table hint (WITH (NOLOCK), FORCE INDEX, …)",
@@ -97,16 +97,16 @@ JOIN_ARGS: dict[str, str] = {
     "nearest": "a NEAREST join",
     "directed": "a DIRECTED join",
     "expressions": "a join with column list",
-    "pivots": SOURCE,
+    "pivots": "PIVOT / UNPIVOT after a join (pivot in a subquery first)",
 }
 
 # values of Join.kind / side / method: carried everywhere, or only on the named target dialects
 JOIN_KINDS = {"": CARRIED, "INNER": CARRIED, "OUTER": CARRIED, "CROSS": CARRIED,
               "SEMI": ("duckdb", "spark"), "ANTI": ("duckdb", "spark"),
-              "STRAIGHT_JOIN": "STRAIGHT_JOIN", "ARRAY": "ARRAY JOIN"}
+              "STRAIGHT_JOIN": "STRAIGHT_JOIN", "ARRAY": "ARRAY JOIN", "ALL": "ALL JOIN", "ANY": "ANY JOIN",
+              "ASOF": "ASOF JOIN written as a join kind", "PASTE": "PASTE JOIN"}
 JOIN_SIDES = {"": CARRIED, "LEFT": CARRIED, "RIGHT": CARRIED, "FULL": CARRIED}
-JOIN_METHODS = {"": CARRIED, "NATURAL": CARRIED, "ASOF": ("duckdb",), "POSITIONAL": ("duckdb",),
-                "GLOBAL": "GLOBAL JOIN", "ANY": "ANY JOIN", "PASTE": "PASTE JOIN"}
+JOIN_METHODS = {"": CARRIED, "NATURAL": CARRIED, "ASOF": ("duckdb",), "POSITIONAL": ("duckdb",)}
 
 # sampling of the rows (TABLESAMPLE / USING SAMPLE): the targets that take each method, by percent
 # or by row count. DuckDB takes them all; PostgreSQL's built-in methods are SYSTEM and BERNOULLI,
@@ -129,6 +129,10 @@ VOLATILE_NAMES = {"random", "rand", "randn", "uuid", "gen_random_uuid", "uuid_ge
 
 
 def refuse(ctx: CompileContext, what: str, node: exp.Expression) -> UnsupportedSqlError:
+    """The error naming the construct, at its position (or, when sqlglot kept none for it, at the
+    nearest enclosing node that has one)."""
+    while span(node)[0] is None and node.parent is not None:
+        node = node.parent
     return ctx.error(UnsupportedSqlError, f"{what} cannot be combined with measure calls", node)
 
 

@@ -43,8 +43,10 @@ def materialize_scope(select: exp.Select, ctx: CompileContext) -> bool:
     if group is not None:
         select.set("group", exp.Group(expressions=keys))
     for item, out in zip(list(select.expressions), aliases):
-        if not isinstance(item, exp.Alias):
-            item.replace(exp.alias_(item.copy(), out, quoted=True))
+        if not isinstance(item, exp.Alias):  # the item itself moves under the alias: the measure
+            named = exp.Alias(alias=exp.to_identifier(out, quoted=True))  # calls found stay in the tree
+            item.replace(named)
+            named.set("this", item)
     outputs = {a.lower() for a in aliases}
     visible = _source_names(select)
     _check_no_outer_reads(select, visible, ctx)
