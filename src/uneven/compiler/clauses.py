@@ -60,6 +60,18 @@ SELECT_ARGS: dict[str, str] = {
     "for_": "FOR XML / FOR JSON",
 }
 
+FROM_ARGS: dict[str, str] = {"this": SOURCE}
+
+GROUPINGS = "GROUP BY ROLLUP / CUBE / GROUPING SETS (use one query per grouping)"
+GROUP_ARGS: dict[str, str] = {
+    "expressions": CARRIED,  # expressions, positions, select aliases (keys.py)
+    "all": CARRIED,  # GROUP BY ALL, expanded by keys.py
+    "grouping_sets": GROUPINGS,
+    "cube": GROUPINGS,
+    "rollup": GROUPINGS,
+    "totals": "GROUP BY … WITH TOTALS",
+}
+
 # a table (or table function) among the scope's sources
 TABLE_ARGS: dict[str, str] = {
     "this": SOURCE,
@@ -150,6 +162,12 @@ def check_clauses(select: exp.Select, ctx: CompileContext) -> None:
         if state not in (CARRIED, SOURCE):
             raise refuse(ctx, state, value[0] if isinstance(value, list) else value
                          if isinstance(value, exp.Expression) else select)
+    group = select.args.get("group")
+    if group is not None:
+        _check_args(group, GROUP_ARGS, ctx)
+        for e in group.expressions:
+            if isinstance(e, (exp.Rollup, exp.Cube, exp.GroupingSets)):
+                raise refuse(ctx, GROUPINGS, e)
     sample = select.args.get("sample")
     if sample is not None:
         check_sample(sample, ctx)
@@ -251,12 +269,12 @@ def _volatile_in(parts, ctes: dict[str, exp.Expression], seen: set[str]) -> exp.
         for node in part.walk():
             if isinstance(node, exp.TableSample) or is_volatile_call(node):
                 return node
-            if isinstance(node, exp.Select) and node is not part:
+            if isinstance(node, (exp.Select, exp.Subquery, exp.SetOperation, exp.Values)) and node is not part:
                 for arg in ("limit", "offset", "sample"):
                     if node.args.get(arg) is not None:
                         return node.args[arg]
                 distinct = node.args.get("distinct")
-                if distinct is not None and distinct.args.get("on") is not None:
+                if isinstance(distinct, exp.Distinct) and distinct.args.get("on") is not None:
                     return distinct
             if isinstance(node, exp.Table) and not node.db and node.name.lower() in ctes \
                     and node.name.lower() not in seen:
