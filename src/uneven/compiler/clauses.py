@@ -298,9 +298,10 @@ def _visible_ctes(select: exp.Select) -> dict[str, exp.Expression]:
 
 
 def volatile_outside_sources(select: exp.Select) -> exp.Expression | None:
-    """A volatile function inside an aggregate or measure call, or in a GROUP BY key: each pass would
-    evaluate it anew, so a measure and count(*) would not see the same values. (One in the select
-    list outside any aggregate, or in ORDER BY, is evaluated once by the final SELECT: carried.)"""
+    """A volatile function inside a measure call (its arguments or its FILTER) or in a GROUP BY key:
+    the measure's pass, or each pass for a key, would evaluate it anew, so a measure and count(*)
+    would not see the same values. (One inside an ordinary aggregate is evaluated by the main
+    aggregate alone, and one outside any aggregate or in ORDER BY by the final SELECT: carried.)"""
     from uneven.compiler.calls import is_measure
 
     for arg in ("expressions", "group", "having", "qualify", "order", "distinct"):
@@ -313,7 +314,7 @@ def volatile_outside_sources(select: exp.Select) -> exp.Expression | None:
                     return node
                 anc = node.parent
                 while anc is not None and anc is not select:
-                    if isinstance(anc, exp.AggFunc) or is_measure(anc):
+                    if is_measure(anc) or (isinstance(anc, exp.Filter) and is_measure(anc.this)):
                         return node
                     anc = anc.parent
     return None

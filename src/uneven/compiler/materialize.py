@@ -21,6 +21,7 @@ from uneven.compiler import clauses
 from uneven.compiler.context import CompileContext, text
 from uneven.compiler.keys import resolve_group_keys
 from uneven.compiler.passes.source import cte, table
+from uneven.compiler.scope import output_aliases
 from uneven.errors import UnsupportedSqlError
 
 _SCOPE_PARTS = ("expressions", "group", "having", "qualify", "order", "distinct")
@@ -37,7 +38,7 @@ def materialize_scope(select: exp.Select, ctx: CompileContext) -> bool:
                         "evaluate a CTE again for each use); compile for "
                         f"{', '.join(clauses.MATERIALIZING)}, or store the rows in a table first", reason)
     name = ctx.name("src")
-    aliases = _output_names(select)
+    aliases = output_aliases(select)  # the names the final SELECT gives its columns
     keys = resolve_group_keys(select, ctx)  # before the rewrite: source_columns reads the original FROM
     group = select.args.get("group")
     if group is not None:
@@ -88,19 +89,6 @@ def materialize_scope(select: exp.Select, ctx: CompileContext) -> bool:
     else:
         with_.append("expressions", materialized)
     return True
-
-
-def _output_names(select: exp.Select) -> list[str]:
-    """The output name of each item, as the final SELECT names them (scope._output_aliases)."""
-    names = []
-    for p in select.expressions:
-        if isinstance(p, exp.Alias):
-            names.append(p.alias)
-        elif isinstance(p, exp.Column):
-            names.append(p.name)
-        else:
-            names.append(p.sql("duckdb", normalize_functions="lower"))
-    return names
 
 
 def _scope_columns(part: exp.Expression):

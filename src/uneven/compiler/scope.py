@@ -42,7 +42,7 @@ def rewrite_scope(select: exp.Select, calls: list[MeasureCall], ctx: CompileCont
     pass_ctes, pass_names, results = lower_passes(calls, source, main, ctx)
 
     replace = _replacer(results, main, keys)
-    outputs = _output_aliases(select)
+    outputs = output_aliases(select)
     final = exp.Select(expressions=[s.alias(replace(p.unalias()), outputs[i])
                                     for i, p in enumerate(select.expressions)])
     if ctx.method == "bounded":
@@ -152,7 +152,7 @@ def _replacer(results, main: MainAggregate, keys):
     return lambda e: e.transform(fn)
 
 
-def _output_aliases(select: exp.Select) -> list[str]:
+def output_aliases(select: exp.Select) -> list[str]:
     names = []
     for p in select.expressions:
         if isinstance(p, exp.Alias):
@@ -162,6 +162,9 @@ def _output_aliases(select: exp.Select) -> list[str]:
         else:
             names.append(p.sql("duckdb", normalize_functions="lower"))
     return names
+
+
+_output_aliases = output_aliases  # the name bounds/run.py imports
 
 
 def _is_output_ref(node: exp.Expression, outputs: list[str]) -> bool:
