@@ -129,8 +129,9 @@ SAMPLE_METHODS = {
     "postgres": {"SYSTEM": ("percent",), "BERNOULLI": ("percent",)},
 }
 
-# targets that honour WITH … AS MATERIALIZED (…) (DuckDB; PostgreSQL ≥ 12; SQLite ≥ 3.35): a random
-# or volatile source is evaluated once there. Spark inlines every CTE (the keyword is not in its
+# targets that honour WITH … AS MATERIALIZED (…) (DuckDB; PostgreSQL ≥ 12; SQLite ≥ 3.35 — versions
+# from memory; tests/test_clauses.py checks each executed engine reads the rows once): a random or
+# volatile source is evaluated once there. Spark inlines every CTE (the keyword is not in its
 # grammar); Trino, BigQuery and Snowflake do not promise one evaluation either.
 MATERIALIZING = ("duckdb", "postgres", "sqlite")
 
