@@ -1,5 +1,6 @@
-"""Generate SQL text for a target dialect: the dialect's lowering rules (compiler/dialects/), then
-sqlglot's generator, which refuses what it knows it cannot write."""
+"""Generate SQL text for a target dialect: the dialect's lowering rules (compiler/dialects/), the
+parentheses the text needs to keep the tree's grouping (compiler/emit.py), then sqlglot's generator,
+which refuses what it knows it cannot write."""
 
 from __future__ import annotations
 
@@ -7,6 +8,7 @@ from sqlglot import exp
 from sqlglot.dialects.dialect import Dialect as SqlglotDialect
 from sqlglot.errors import ErrorLevel, UnsupportedError
 
+from uneven.compiler import emit
 from uneven.compiler.dialects import EXECUTED_DIALECTS, SUPPORTED_DIALECTS, get_dialect
 from uneven.errors import UnsupportedDialectError
 
@@ -29,8 +31,11 @@ def check_read_dialect(read: str) -> str:
 
 def generate(tree: exp.Expression, dialect: str = "duckdb", pretty: bool = True) -> str:
     target = get_dialect(dialect)
-    lowered = target.lower(tree.copy())
+    lowered = emit.parenthesize(target.lower(tree.copy()), copy=False)
     try:
-        return lowered.sql(dialect=target.name, pretty=pretty, unsupported_level=ErrorLevel.RAISE)
+        text = lowered.sql(dialect=target.name, pretty=pretty, unsupported_level=ErrorLevel.RAISE)
     except UnsupportedError as e:
         raise UnsupportedDialectError(f"the query cannot be written in {target.name}: {e}") from None
+    if emit.checking():
+        emit.check_emission(lowered, text, target.name)
+    return text
