@@ -24,8 +24,11 @@ CAST or a subquery delimit themselves and are never wrapped.
 ``emission_error`` is the check: the emitted text, parsed back with the same dialect, must give the
 same tree as a fully parenthesized rendering of the same tree (every operator operand wrapped, which
 is right whatever the precedence table says) parsed back the same way, once ``exp.Paren`` nodes are
-removed from both. Both texts go through the same generator, so a dialect's rewrites (a typed
-division, ``IS`` for null-safe equality in SQLite) appear on both sides and only grouping can differ.
+removed from both. Both texts go through the same generator, so a dialect's rewrites (``IS`` for
+null-safe equality in SQLite) appear on both sides and only grouping can differ; the one rewrite that
+depends on what the generator sees of an operand (a cast to a floating type around a division or on
+its left operand, which SQLite and PostgreSQL add unless the operand is visibly a double, and a
+parenthesis hides that) is removed from both sides too.
 ``generate`` runs it on every compile when ``UNEVEN_CHECK_EMISSION=1`` (tests/conftest.py sets it).
 """
 
@@ -129,15 +132,30 @@ def checking() -> bool:
     return os.environ.get("UNEVEN_CHECK_EMISSION") == "1"
 
 
-def _without_parens(tree: exp.Expression) -> exp.Expression:
+_FLOATS = {exp.DataType.Type.DOUBLE, exp.DataType.Type.FLOAT}
+
+
+def _typed_division(node: exp.Expression) -> bool:
+    """A cast to a floating type that wraps a division or is its left operand: generators add these
+    (SQLite, PostgreSQL: division of doubles) depending on what they can see of the operand's type,
+    which a parenthesis hides."""
+    if not (isinstance(node, exp.Cast) and node.to.this in _FLOATS):
+        return False
+    return isinstance(node.this, exp.Div) or (isinstance(node.parent, exp.Div) and node.arg_key == "this")
+
+
+def _normalised(tree: exp.Expression) -> exp.Expression:
+    """exp.Paren removed (their grouping is the tree's shape), and the generators' typed division."""
     for p in list(tree.find_all(exp.Paren)):
         if isinstance(p.this, exp.Expression) and not isinstance(p.this, exp.Query):
             p.replace(p.this)
+    for c in [n for n in tree.find_all(exp.Cast) if _typed_division(n)]:
+        c.replace(c.this)
     return tree
 
 
 def _parse(text: str, dialect: str) -> list[exp.Expression]:
-    return [_without_parens(t) for t in sqlglot.parse(text, read=dialect) if t is not None]
+    return [_normalised(t) for t in sqlglot.parse(text, read=dialect) if t is not None]
 
 
 def _first_difference(a: exp.Expression, b: exp.Expression) -> tuple[exp.Expression, exp.Expression]:

@@ -12,7 +12,8 @@ from uneven.compiler import emit
 from uneven.compiler.dialects import EXECUTED_DIALECTS, SUPPORTED_DIALECTS, get_dialect
 from uneven.errors import UnsupportedDialectError
 
-__all__ = ["SUPPORTED_DIALECTS", "EXECUTED_DIALECTS", "check_dialect", "check_read_dialect", "generate"]
+__all__ = ["SUPPORTED_DIALECTS", "EXECUTED_DIALECTS", "check_dialect", "check_read_dialect", "generate",
+           "lower_tree"]
 
 
 def check_dialect(dialect: str) -> str:
@@ -29,9 +30,15 @@ def check_read_dialect(read: str) -> str:
     return read
 
 
+def lower_tree(tree: exp.Expression, dialect: str = "duckdb") -> exp.Expression:
+    """The tree ``generate`` prints: a copy through the dialect's rules, then the parentheses its
+    text needs (emit.parenthesize)."""
+    return emit.parenthesize(get_dialect(dialect).lower(tree.copy()), copy=False)
+
+
 def generate(tree: exp.Expression, dialect: str = "duckdb", pretty: bool = True) -> str:
     target = get_dialect(dialect)
-    lowered = emit.parenthesize(target.lower(tree.copy()), copy=False)
+    lowered = lower_tree(tree, dialect)
     try:
         text = lowered.sql(dialect=target.name, pretty=pretty, unsupported_level=ErrorLevel.RAISE)
     except UnsupportedError as e:
