@@ -191,7 +191,7 @@ def test_cli_compile_for_a_dialect(capsys):
 
 # --- a user's OR beside the conditions the compiler adds, on every engine ----------------------
 
-OR_WHERE = "FROM survey WHERE province = 'Amberlee' OR province = 'Dunmere' GROUP BY year"
+OR_WHERE = "FROM survey WHERE province = 'Abrazzle' OR province = 'Dravquinth' GROUP BY year"
 OR_QUERIES = {
     "exact": f"SELECT year, gini(gross) AS g, gini(gross, weight) AS gw, theil(gross) AS t, "
              f"top_share(gross, 0.1) AS top {OR_WHERE}",
