@@ -64,11 +64,12 @@ class _Rows:
         # C[i] = sum of w over rows 1..i, with C[0] = 0 (so C has n + 1 entries).
         self.C: np.ndarray = np.concatenate(([0.0], np.cumsum(self.w)))
         self.W: float = float(self.C[-1]) if self.n else 0.0
-        # Every sum is taken on xs = x / s, s = max |x| (1 when all are 0): a per-group constant that
-        # cancels in every scale-free measure, so no product w·x or (x − μ)² overflows while the
-        # total itself fits in a double. Ts = Σ w·xs; T = s·Ts is inf when the total does not fit.
-        top = float(np.max(np.abs(xs))) if self.n else 0.0
-        self.s: float = top if top > 0 else 1.0
+        # Every sum is taken on xs = x / s, s the power of two at or below max |x| (1 when all are
+        # 0): a per-group constant that cancels in every scale-free measure, so no product w·x or
+        # (x − μ)² overflows while the total itself fits in a double, and (a power of two) exact:
+        # xs keeps every digit of x. Ts = Σ w·xs; T = s·Ts is inf when the total does not fit.
+        top = float(np.max(np.abs(self.x))) if self.n else 0.0
+        self.s: float = math.ldexp(1.0, math.frexp(top)[1] - 1) if top > 0 else 1.0
         self.xs: np.ndarray = self.x / self.s
         self.Ts: float = math.fsum(self.w * self.xs) if self.n else 0.0
         self.T: float = _times(self.Ts, self.s)
@@ -312,11 +313,11 @@ def _power_terms(d: np.ndarray, log_r: np.ndarray, a: float) -> np.ndarray:
 
 
 def _deviations(r: _Rows) -> tuple[np.ndarray, np.ndarray]:
-    """d = (x − μ)/μ (from x − μ: exact near the mean) and ln r = ln x − ln μ (−inf where x = 0:
-    r = x/μ itself may underflow when x is far below the mean), on the scaled values."""
+    """d = (x − μ)/μ (from x − μ: exact near the mean), on the scaled values, and ln r = ln x − ln μ
+    (−inf where x = 0; r = x/μ itself may underflow when x is far below the mean)."""
     d = (r.xs - r.mu_s) / r.mu_s
-    with np.errstate(divide="ignore"):
-        log_r = np.log(np.abs(r.xs)) - math.log(r.mu_s)
+    with np.errstate(divide="ignore"):  # from x itself: x/s may be subnormal far below the largest
+        log_r = np.log(np.abs(r.x)) - (math.log(r.mu_s) + math.log(r.s))
     return d, log_r
 
 
