@@ -122,7 +122,9 @@ def _check_count(k: Any, name: str = "k") -> int:
 def _ratio(num: float | None, den: float | None) -> float | None:
     if num is None or den is None or den == 0:
         return None
-    return float(num / den)
+    with np.errstate(over="ignore"):
+        value = float(np.float64(num) / np.float64(den))
+    return value if math.isfinite(value) else None  # past the double range: NULL, as the SQL
 
 
 # ---------------------------------------------------------------------------------------------
