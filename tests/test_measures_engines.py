@@ -93,7 +93,8 @@ def close(got, want, rel=1e-9, abs_=1e-12) -> bool:
 
 
 def _is_null(v) -> bool:
-    return v is None or v is pd.NA  # a NaN is not NULL (and is never a valid result)
+    """A missing group key (pandas groups a NULL key as nan); values go through close()."""
+    return v is None or v is pd.NA or (isinstance(v, float) and math.isnan(v))
 
 
 def _expected(df: pd.DataFrame, ref, weighted: bool, entity: bool, key=None):
