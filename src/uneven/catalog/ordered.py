@@ -72,7 +72,7 @@ def build_gini(ctx, params):
     # Divided by W, then by T: W·T may overflow where the ratio does not. Values whose products
     # overflow although T fits (x near 1e308) take the form on x·2⁻⁵¹² (catalog/scaling.py).
     def at(scale):
-        shifted = s.mul(ctx.w, times(s.sub(ctx.x, ctx.min_row), scale))
+        shifted = s.mul(ctx.w, times(s.sub(ctx.x, ctx.min_row), scale, 2.0 ** -400))
         num = s.sub(s.agg_sum(s.mul(shifted, s.sub(s.mul(s.lit(2.0), ctx.c), ctx.w))),
                     s.mul(ctx.W, s.agg_sum(shifted.copy())))
         return s.div(s.div(num, ctx.W), times(ctx.T, scale))

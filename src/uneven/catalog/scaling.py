@@ -31,5 +31,11 @@ def plain_or_scaled(build) -> exp.Expression:
     return exp.Coalesce(this=finite(build(1.0)), expressions=[finite(build(DOWN))])
 
 
-def times(e: exp.Expression, scale: float) -> exp.Expression:
-    return s.mul(e, s.lit(scale))
+def times(e: exp.Expression, scale: float, floor: float = 2.0 ** 100) -> exp.Expression:
+    """e·scale; in the scaled form (scale < 1) a magnitude below ``floor`` counts as 0. The scaled
+    form is used only where the plain one overflowed, so such terms are below 1e-200 of the largest;
+    dropping them keeps every product of the scaled form away from 0 (PostgreSQL raises "underflow"
+    when a product of non-zero doubles rounds to 0, and it evaluates both forms)."""
+    if scale == 1.0:
+        return e
+    return s.case(s.lt(s.absval(e.copy()), s.lit(floor)), s.lit(0.0), s.mul(e, s.lit(scale)))
