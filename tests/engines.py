@@ -47,8 +47,12 @@ class DuckDBEngine:
         self.con.unregister("_uv_test_df")
 
     def execute(self, compiled: str) -> pd.DataFrame:
+        # rows as Python values (object columns), as the other engines give them: a DOUBLE NULL is
+        # None and a NaN is nan (fetchdf would turn both into nan, hiding a NaN result)
         try:
-            return self.con.execute(compiled).fetchdf()
+            cur = self.con.execute(compiled)
+            names = [d[0] for d in cur.description]
+            return pd.DataFrame(cur.fetchall(), columns=names, dtype=object)
         except duckdb.Error as e:
             raise EngineError(str(e)) from None
 

@@ -199,7 +199,7 @@ def test_entity_measures_stay_exact():
     t = pd.DataFrame({"x": [5.0, 3.0, 2.0, 7.0], "e": [1, 1, 2, 3]})  # noqa: F841
     df = uneven.query("SELECT hhi(x, e) AS h, gini(x) AS g FROM t", method="bounded")
     exact = ref.hhi(np.array([5.0, 3.0, 2.0, 7.0]), np.array([1, 1, 2, 3]))
-    assert df["h"][0] == pytest.approx(exact) and df["h_lo"][0] == df["h_hi"][0] == df["h"][0]
+    assert df["h"][0] == pytest.approx(exact, rel=1e-9) and df["h_lo"][0] == df["h_hi"][0] == df["h"][0]
     assert df["g_lo"][0] <= ref.gini(np.array([5.0, 3.0, 2.0, 7.0])) <= df["g_hi"][0]
 
 

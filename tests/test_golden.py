@@ -59,10 +59,10 @@ def _same(a, b) -> bool:
         a = list(a)
     if isinstance(b, np.ndarray):
         b = list(b)
-    na = a is None or (isinstance(a, float) and math.isnan(a))
-    nb = b is None or (isinstance(b, float) and math.isnan(b))
-    if na or nb:
-        return na and nb
+    if any(isinstance(v, float) and math.isnan(v) for v in (a, b)):
+        return False  # a NaN is never a result (docs/input-policy.md), nor equal to NULL
+    if a is None or b is None:
+        return a is None and b is None
     if isinstance(a, dict):
         return a.keys() == b.keys() and all(_same(a[k], b[k]) for k in a)
     if isinstance(a, list):

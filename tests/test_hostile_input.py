@@ -74,6 +74,11 @@ class Case:
         return self.sql.replace(INF, INF_LITERAL[engine]) if engine in INF_LITERAL else self.sql
 
 
+# a value near the top of the double range whose group total still fits: products such as x², w·x·2C
+# and (x − μ)² overflow, the measures do not (docs/input-policy.md)
+HUGE = [1e308, 1.0, 2.0]
+
+
 def replicate(x, w):
     return np.repeat(np.asarray(x, float), np.asarray(w, int))
 
@@ -122,6 +127,14 @@ CASES = [
          [0.0, 0.0, 0.25]),
     Case("overflowing-sum-null", "SELECT gini(x * 1e307), theil(x * 1e307), cv(x * 1e307), top_share(x * 1e307, 0.5) "
          "FROM t WHERE g = 'a'", [NULL, NULL, NULL, NULL], engines=PG_OVERFLOW),
+    Case("huge-value-total-fits", "SELECT gini(x), cv(x), hhi(x), hhi(x, e), cr(x, 1, e), theil(x), ge(x, 2), "
+         "atkinson(x, 0.5), hoover(x), top_share(x, 0.2) FROM u",
+         [R.gini(HUGE), R.cv(HUGE), R.hhi(HUGE), R.hhi(HUGE, ["p", "q", "r"]), R.cr(HUGE, 1, ["p", "q", "r"]),
+          R.theil(HUGE), R.ge(HUGE, 2), R.atkinson(HUGE, 0.5), R.hoover(HUGE), R.top_share(HUGE, 0.2)],
+         data=pd.DataFrame({"x": HUGE, "e": ["p", "q", "r"]}), engines=PG_OVERFLOW),
+    Case("entity-total-overflow-null", "SELECT cr(x, 1, e), hhi(x, e), cr(x, 1), gini(x) FROM u",
+         [NULL, NULL, NULL, NULL], data=pd.DataFrame({"x": [1e308, 1e308, 2.0], "e": ["p", "p", "r"]}),
+         engines=PG_OVERFLOW),
     Case("tiny-values-defined", "SELECT gini(x * 1e-300) FROM t WHERE g = 'a'", R.gini(A_X * 1e-300)),
     # ---- weights ---------------------------------------------------------------------------------
     Case("null-weight-skipped", "SELECT gini(x, w) FROM t WHERE g = 'b'", R.gini([2.0, 5.0], [1.0, 2.0])),
@@ -211,10 +224,14 @@ def engine(request):
 
 
 def _is_null(v) -> bool:
-    return v is None or v is pd.NA or (isinstance(v, float) and math.isnan(v))
+    """SQL NULL as the engines return it (None; pd.NA from a nullable column). A NaN is not NULL:
+    the input policy never gives NaN, so a NaN result fails every comparison."""
+    return v is None or v is pd.NA
 
 
 def _same(got, want) -> bool:
+    if isinstance(got, float) and math.isnan(got):
+        return False
     if want is NULL:
         return _is_null(got)
     if _is_null(got):
@@ -300,3 +317,121 @@ def test_engine_errors_name_the_engine(name):
         eng.run("SELECT gini(x) FROM no_such_table_here")
     err = translate_error(info.value, engine=eng.label)
     assert isinstance(err, ExecutionError) and str(err).startswith(f"{eng.label} could not run the query: "), err
+
+
+# ---- three doors, one outcome (DuckDB) ------------------------------------------------------------
+# The same hostile rows go through the compiled query (uneven.query), the builder (uneven.from_) and
+# the functions installed in the database (uneven.install): each must give the reference's value
+# (1e-9 relative), NULL where the reference gives None, or an error where the reference refuses the
+# input (NaN or infinite value or weight): never NaN, never a value where another door gives NULL.
+
+DOOR_DATA = {
+    # name: (x as SQL literals, w, e); the reference sees the same rows
+    "ordinary": (["3.0", "1.0", "4.0", "1.0", "5.0", "9.0"], [1.0, 2.0, 1.0, 3.0, 1.0, 2.0], list("pqrpqs")),
+    "total-fits": (["1e308", "1.0", "2.0"], [1.0, 1.0, 1.0], list("pqr")),
+    "total-overflows": (["1e308", "1e308", "2.0"], [1.0, 1.0, 1.0], list("ppr")),
+    "small-spread": ([repr(1234.5 * (1 + 3e-6 * k)) for k in range(8)], [1.0, 2.0] * 4, list("pqrsptuv")),
+    "negative-value": (["-1.0", "1.0", "2.0"], [1.0, 1.0, 2.0], list("pqr")),
+    "zero-value": (["0.0", "1.0", "2.0"], [1.0, 1.0, 2.0], list("pqr")),
+    "zero-total": (["0.0", "0.0"], [1.0, 1.0], list("pq")),
+    "nan-value": ([NAN, "1.0", "2.0"], [1.0, 1.0, 1.0], list("pqr")),
+    "inf-value": ([INF, "1.0", "2.0"], [1.0, 1.0, 1.0], list("pqr")),
+    "nan-weight": (["3.0", "1.0", "2.0"], [math.nan, 1.0, 1.0], list("pqr")),
+}
+
+# (measure, parameters, trailing argument: None, "w" or "e")
+DOOR_CALLS = [("gini", (), None), ("gini", (), "w"), ("gini_corrected", (), None), ("lorenz", (0.4,), "w"),
+              ("top_share", (0.2,), None), ("palma", (), None), ("quantile_w", (0.5,), "w"),
+              ("generalized_lorenz", (0.5,), None), ("theil", (), None), ("theil", (), "w"), ("mld", (), "w"),
+              ("ge", (2.0,), None), ("ge", (-1.0,), None), ("ge", (1.7,), "w"), ("atkinson", (0.5,), None),
+              ("atkinson", (1.0,), "w"), ("atkinson", (2.0,), None), ("cv", (), None), ("cv", (), "w"),
+              ("hoover", (), None), ("hhi", (), None), ("hhi", (), "e"), ("cr", (1,), "e"), ("cr", (2,), None)]
+
+
+def _door_reference(name, params, trailing, data):
+    xs, ws, es = data
+    x = [float(v.replace("CAST('NaN' AS DOUBLE)", "nan").replace("CAST('Infinity' AS DOUBLE)", "inf")) for v in xs]
+    args = [x, *params]
+    if trailing == "w":
+        args.append(ws)
+    elif trailing == "e":
+        args.append(es)
+    try:
+        value = R.REFERENCES[name](*args)
+    except ValueError:  # the reference refuses NaN / infinite input: the doors must raise
+        return Exception
+    if name in ("hhi", "cr") and trailing != "w" and not all(math.isfinite(v) for v in ws):
+        return value  # the weight column is not read by these calls
+    if trailing != "w" and not all(math.isfinite(v) for v in ws):
+        return value
+    return NULL if value is None else value
+
+
+def _door_call(name, params, trailing) -> str:
+    args = ", ".join(["x", *(repr(float(p)) if not isinstance(p, int) else str(p) for p in params),
+                      *([trailing] if trailing else [])])
+    return f"{name}({args})"
+
+
+def _door_outcomes(con, calls):
+    """Per door, the outcome of each call in one query: a list of floats, None (NULL) or nan, or
+    the exception the whole query raised."""
+    texts = [_door_call(*c) for c in calls]
+    out = []
+    try:  # the compiled query; `IS NULL` beside each value tells NULL from NaN through pandas
+        items = [f"{t} AS v{i}, {t} IS NULL AS n{i}" for i, t in enumerate(texts)]
+        df = uneven.query(f"SELECT {', '.join(items)} FROM h", con)
+        out.append([None if bool(df[f"n{i}"][0]) else float(df[f"v{i}"][0]) for i in range(len(texts))])
+    except Exception as e:  # noqa: BLE001 (the outcome is compared, whatever it is)
+        out.append(e)
+    try:  # the builder, read as Arrow (NULL stays NULL)
+        measures = {}
+        for i, (name, params, trailing) in enumerate(calls):
+            named = {"weight": "w"} if trailing == "w" else ({"entity": "e"} if trailing == "e" else {})
+            measures[f"v{i}"] = getattr(uneven, name)("x", *params, **named)
+        table = uneven.from_("h", con).agg(**measures).arrow()
+        out.append([table.column(f"v{i}").to_pylist()[0] for i in range(len(calls))])
+    except Exception as e:  # noqa: BLE001
+        out.append(e)
+    try:  # the installed functions
+        out.append(list(con.execute(f"SELECT {', '.join(texts)} FROM h").fetchone()))
+    except Exception as e:  # noqa: BLE001
+        out.append(e)
+    return texts, out
+
+
+@pytest.fixture(scope="module")
+def door_con():
+    import duckdb
+    con = duckdb.connect()
+    uneven.install(con)
+    yield con
+    con.close()
+
+
+@pytest.mark.parametrize("data", sorted(DOOR_DATA))
+def test_three_doors_one_outcome(door_con, data):
+    xs, ws, es = DOOR_DATA[data]
+    rows = ", ".join(f"({x}, CAST({repr(w) if math.isfinite(w) else repr(str(w))} AS DOUBLE), '{e}')"
+                     for x, w, e in zip(xs, ws, es))
+    door_con.execute(f"CREATE OR REPLACE TABLE h AS SELECT * FROM (VALUES {rows}) v(x, w, e)")
+    wants = [_door_reference(*c, DOOR_DATA[data]) for c in DOOR_CALLS]
+    problems = []
+    # calls the reference refuses (NaN or infinite input) one by one, the others in one query per door
+    refused = [c for c, w in zip(DOOR_CALLS, wants) if w is Exception]
+    for call in refused[:6]:
+        texts, got = _door_outcomes(door_con, [call])
+        for door, g in zip(("compiled", "builder", "installed"), got):
+            if not (isinstance(g, Exception) and "NaN or infinite" in str(g)):
+                problems.append(f"{texts[0]} {door}: got {g!r}, want an error naming NaN or infinite input")
+    kept = [(c, w) for c, w in zip(DOOR_CALLS, wants) if w is not Exception]
+    if kept:
+        texts, got = _door_outcomes(door_con, [c for c, _ in kept])
+        for door, values in zip(("compiled", "builder", "installed"), got):
+            if isinstance(values, Exception):
+                problems.append(f"{door}: the query raised {values!r}")
+                continue
+            for text, (_, want), g in zip(texts, kept, values):
+                if not _same(g, want):
+                    problems.append(f"{text} {door}: got {g!r}, want {'NULL' if want is NULL else want}")
+    assert not problems, "\n".join(problems)

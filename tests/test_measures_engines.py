@@ -78,8 +78,12 @@ ENTITY_CASES = [
 
 
 def close(got, want, rel=1e-9, abs_=1e-12) -> bool:
+    """got equals the reference's want: NULL (None) only for None, a value within rel (or abs_ near 0).
+    A NaN never matches: the input policy never gives NaN (the engines return NULL as None)."""
+    if isinstance(got, float) and math.isnan(got):
+        return False
     if want is None:
-        return got is None or (isinstance(got, float) and math.isnan(got)) or got is pd.NA
+        return got is None or got is pd.NA
     if isinstance(want, list):
         if isinstance(got, str):
             got = json.loads(got)  # SQLite: list results are JSON text
@@ -89,6 +93,7 @@ def close(got, want, rel=1e-9, abs_=1e-12) -> bool:
 
 
 def _is_null(v) -> bool:
+    """A missing group key (pandas groups a NULL key as nan); values go through close()."""
     return v is None or v is pd.NA or (isinstance(v, float) and math.isnan(v))
 
 

@@ -853,3 +853,116 @@ def test_results_are_python_floats_never_nan():
         else:
             assert type(value) is float and not math.isnan(value), name
     assert type(ref.hhi(x)) is float and type(ref.cr(x, 3)) is float
+
+
+# ---------------------------------------------------------------------------------------------
+# Small spread: the reference keeps its digits (mpmath at 60 digits)
+# ---------------------------------------------------------------------------------------------
+
+def _narrow(spread: float, seed: int, n: int = 60):
+    """Values mean·(1 + spread·z), z standard normal (seeded), with weights in [0.5, 2)."""
+    rng = np.random.default_rng(seed)
+    mean = 1234.5
+    x = mean * (1.0 + spread * rng.standard_normal(n))
+    w = rng.uniform(0.5, 2.0, n)
+    return [float(v) for v in x], [float(v) for v in w]
+
+
+SPREADS = [1e-1, 1e-2, 1e-3, 1e-4, 1e-5, 1e-6, 1e-7, 1e-8, 1e-9]
+
+
+@pytest.mark.parametrize("spread", SPREADS)
+def test_log_and_power_measures_keep_digits_at_small_spread(spread):
+    # Source: mpmath at 60 significant digits, the direct (textbook) formulas on the exact binary
+    # values; at a spread of 1e-9 they cancel about 18 digits, leaving 40. The old one-pass
+    # reference was off by 2e-3 relative at a spread of 1e-6; the contract is 1e-9 relative.
+    x, w = _narrow(spread, seed=int(-math.log10(spread)))
+    with mpmath.workdps(60):
+        assert_rel(ref.theil(x, w), mp_theil(x, w), rel=1e-10)
+        assert_rel(ref.mld(x, w), mp_mld(x, w), rel=1e-10)
+        assert_rel(ref.theil(x), mp_theil(x, [1] * len(x)), rel=1e-10)
+        for alpha in (-2.0, -0.5, 0.5, 2.0, 3.0, 0.25, 7.5):
+            assert_rel(ref.ge(x, alpha, w), mp_ge(x, alpha, w), rel=1e-10)
+        for eps in (0.25, 0.5, 1.0, 1.5, 2.0, 3.5):
+            assert_rel(ref.atkinson(x, eps, w), mp_atkinson(x, eps, w), rel=1e-10)
+        X, Wt, W, T, mu = _mp_data(x, w)
+        var = mpmath.fsum(b * (a - mu) ** 2 for a, b in zip(X, Wt)) / W
+        assert_rel(ref.cv(x, w), mpmath.sqrt(var) / mu, rel=1e-10)
+
+
+def test_small_spread_with_a_zero_and_far_values():
+    # Source: mpmath at 60 digits, direct formulas. One zero (r = 0: the term's limit) and one value
+    # 1e6 times the others (far outside the series range) beside a tight cluster.
+    x = [0.0, 5e6] + [5.0 * (1 + 1e-7 * k) for k in range(20)]
+    w = [1.0] * len(x)
+    with mpmath.workdps(60):
+        assert_rel(ref.theil(x, w), mp_theil(x, w), rel=1e-12)
+        for alpha in (0.5, 2.0, 3.0):
+            assert_rel(ref.ge(x, alpha, w), mp_ge(x, alpha, w), rel=1e-12)
+        assert_rel(ref.atkinson(x, 0.5, w), mp_atkinson(x, 0.5, w), rel=1e-12)
+
+
+# ---------------------------------------------------------------------------------------------
+# Values near the double range: the reference honours its own contract
+# ---------------------------------------------------------------------------------------------
+
+HUGE = [1e308, 1.0, 2.0]  # its total (1e308 + 3) fits in a double; w·x·2C and x² do not
+
+
+def test_huge_value_whose_total_fits_gives_exact_values():
+    # Source: exact rational arithmetic (pairwise Gini, shares of sums) and mpmath at 60 digits
+    # for the rest; every measure is defined here, so every one gives a finite value.
+    assert_rel(ref.gini(HUGE), exact_gini_pairwise(HUGE))
+    exact = [Fraction(v) for v in HUGE]
+    total = sum(exact)
+    assert_rel(ref.hhi(HUGE), 10000 * sum((v / total) ** 2 for v in exact))
+    assert_rel(ref.hhi(HUGE, ["a", "b", "b"]), 10000 * ((exact[0] / total) ** 2 + ((exact[1] + exact[2]) / total) ** 2))
+    assert_rel(ref.cr(HUGE, 1), exact[0] / total)
+    assert_rel(ref.cr(HUGE, 2), (exact[0] + exact[2]) / total)
+    assert_rel(ref.hoover(HUGE), sum(abs(v / total - Fraction(1, 3)) for v in exact) / 2)
+    assert_rel(ref.lorenz(HUGE, 0.5), (exact[1] + exact[2] / 2) / total)
+    assert_rel(ref.top_share(HUGE, 0.2), (exact[0] * Fraction(3, 5)) / total)
+    with mpmath.workdps(60):
+        X, Wt, W, T, mu = _mp_data(HUGE, [1.0] * 3)
+        var = mpmath.fsum((a - mu) ** 2 for a in X) / W
+        assert_rel(ref.cv(HUGE), mpmath.sqrt(var) / mu)
+        assert_rel(ref.theil(HUGE), mp_theil(HUGE, [1.0] * 3))
+        assert_rel(ref.mld(HUGE), mp_mld(HUGE, [1.0] * 3))
+        for alpha in (-1.0, 0.5, 2.0, 3.0):
+            assert_rel(ref.ge(HUGE, alpha, None), mp_ge(HUGE, alpha, [1.0] * 3))
+        for eps in (0.5, 1.0, 2.0):
+            assert_rel(ref.atkinson(HUGE, eps), mp_atkinson(HUGE, eps, [1.0] * 3))
+
+
+def test_overflowing_total_gives_none():
+    # docs/input-policy.md: "sums past the DOUBLE range: NULL" (the reference's None); a quantile
+    # and a generalized Lorenz ordinate need no total and keep their values.
+    big = [1e308, 1e308, 2.0]
+    for name in ("gini", "gini_corrected", "palma", "s80s20", "theil", "mld", "cv", "hoover", "hhi"):
+        assert ref.REFERENCES[name](big) is None, name
+    assert ref.lorenz(big, 0.5) is None and ref.top_share(big, 0.1) is None
+    assert ref.ge(big, 2) is None and ref.atkinson(big, 0.5) is None
+    assert ref.cr(big, 1, ["p", "p", "q"]) is None and ref.cr(big, 1) is None and ref.hhi(big, ["p", "p", "q"]) is None
+    assert ref.quantile_w(big, 0.5) == 1e308
+    # sorted [2, 1e308, 1e308], half of W = 3 is 1.5 rows: (2 + 1e308/2) / 3 (exact arithmetic)
+    assert_rel(ref.generalized_lorenz(big, 0.5), (2 + Fraction(1e308) / 2) / 3)
+    # an entity total past the range (its rows fit one by one): None, not an exception
+    assert ref.hhi([1e308, 1e308, 1.0], ["a", "a", "b"]) is None
+
+
+def test_never_nan_never_raises_near_the_range():
+    # the reference's contract: a float or None, for every measure, on data at the edge of the range
+    rows = [HUGE, [1e308, 1e308, 2.0], [-1e308, 1e308, 5.0], [1e-308, 2e-308, 5e-324], [1.7e308, 0.0, 0.0]]
+    params = {"lorenz": (0.3,), "generalized_lorenz": (0.3,), "bottom_share": (0.3,), "top_share": (0.3,),
+              "quantile_w": (0.3,), "percentile_ratio": (0.9, 0.1), "lorenz_curve": (4,), "ge": (2.0,),
+              "atkinson": (0.5,), "cr": (1,)}
+    import warnings
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # no numpy overflow warning either
+        for x in rows:
+            for name, f in ref.REFERENCES.items():
+                value = f(x, *params.get(name, ()))
+                if name == "lorenz_curve":
+                    assert value is None or all(math.isfinite(v) for _, v in value), (name, x)
+                else:
+                    assert value is None or (type(value) is float and math.isfinite(value)), (name, x, value)

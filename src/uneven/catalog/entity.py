@@ -9,27 +9,36 @@ from __future__ import annotations
 
 from uneven import reference as ref
 from uneven.catalog.moment import build_hhi_rows
+from uneven.catalog.scaling import finite, times, plain_or_scaled
 from uneven.catalog.spec import Measure, Param
 from uneven.compiler import sqlx as s
 
 ZERO = s.lit(0.0)
 
 
+def _total(ctx):
+    # the group total, NULL past the double range: an infinite total (an entity's sum or the sum of
+    # the entities overflowing) passes a test "> 0" and would make every share 0
+    return finite(s.agg_sum(ctx.v))
+
+
 def _defined(ctx):
-    total = s.agg_sum(ctx.v)
-    return s.and_(s.gte(s.agg_min(ctx.v), ZERO), s.gt(total, ZERO))
+    return s.and_(s.gte(s.agg_min(ctx.v), ZERO), s.gt(_total(ctx), ZERO))
 
 
 def build_hhi(ctx, params=()):
-    total = s.agg_sum(ctx.v)
-    squares = s.agg_sum(s.mul(ctx.v, ctx.v))
-    return s.case(_defined(ctx), s.div(s.mul(s.lit(10000.0), squares), s.mul(total, total)))
+    # 10000 Σ v² / total², as (Σ v² / total) / total; on v·2⁻⁵¹² where v² overflows although the
+    # total fits (catalog/scaling.py)
+    def at(scale):
+        v = times(ctx.v, scale)
+        return s.div(s.div(s.agg_sum(s.mul(v, v.copy())), times(_total(ctx), scale)), times(_total(ctx), scale))
+    return s.case(_defined(ctx), s.mul(s.lit(10000.0), plain_or_scaled(at)))
 
 
 def build_cr(ctx, params):
     k = params[0] if hasattr(params[0], "to_expression") else int(params[0])  # run-time k: a macro argument
     top = s.agg_sum(s.case(s.lte(ctx.r, s.lit(k)), ctx.v, ZERO))
-    return s.case(_defined(ctx), s.div(top, s.agg_sum(ctx.v)))
+    return s.case(_defined(ctx), s.div(top, _total(ctx)))
 
 
 def _hhi(ctx, params=()):

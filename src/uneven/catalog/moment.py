@@ -12,6 +12,7 @@ from __future__ import annotations
 from sqlglot import exp
 
 from uneven import reference as ref
+from uneven.catalog.scaling import finite, plain_or_scaled, times
 from uneven.catalog.spec import Measure, Param
 from uneven.compiler import sqlx as s
 
@@ -273,10 +274,13 @@ def bound_atkinson(ctx, params, value):
 
 
 def build_cv(ctx, params=()):
-    # centred pass: sqrt(Σ w (x − μ)² / W) / μ, with μ joined per group (no cancellation)
-    mean = _mean(ctx)
-    spread = ctx.sum(s.mul(ctx.w, s.square(s.sub(ctx.x, ctx.mu))))
-    return s.case(s.gt(ctx.T, ZERO), s.div(s.sqrt(s.div(spread, ctx.W)), mean))
+    # centred: sqrt(Σ w d² / W) with d = (x − μ)/μ = sqrt(Σ w (x − μ)² / W) / μ, μ joined per group
+    # (no cancellation). Dividing by μ first keeps (x − μ)² from overflowing where the total fits
+    # (for x ≥ 0, |d| ≤ W); a sum that still overflows gives NULL.
+    divisor = getattr(ctx, "mu_divisor", None)
+    d = s.div(s.sub(ctx.x, ctx.mu), divisor if divisor is not None else ctx.mu)
+    spread = ctx.sum(s.mul(ctx.w, s.square(d)))
+    return s.case(s.gt(ctx.T, ZERO), finite(s.sqrt(s.div(spread, ctx.W))))
 
 
 def build_hoover(ctx, params=()):
@@ -286,9 +290,12 @@ def build_hoover(ctx, params=()):
 
 
 def build_hhi_rows(ctx, params=()):
-    # every row its own entity: 10000 Σ x² / (Σ x)²
-    squares = ctx.sum(s.mul(ctx.x, ctx.x))
-    return s.case(_nonneg(ctx), s.div(s.mul(s.lit(10000.0), squares), s.mul(ctx.T, ctx.T)))
+    # every row its own entity: 10000 Σ x² / T², as (Σ x² / T) / T; on x·2⁻⁵¹² where x² overflows
+    # although T fits (catalog/scaling.py)
+    def at(scale):
+        xs = times(ctx.x, scale)
+        return s.div(s.div(ctx.sum(s.mul(xs, xs.copy())), times(ctx.T, scale)), times(ctx.T, scale))
+    return s.case(_nonneg(ctx), s.mul(s.lit(10000.0), plain_or_scaled(at)))
 
 
 MEASURES = [

@@ -12,6 +12,7 @@ from __future__ import annotations
 from sqlglot import exp
 
 from uneven import reference as ref
+from uneven.catalog.scaling import plain_or_scaled, times
 from uneven.catalog.spec import Measure, Param
 from uneven.compiler import sqlx as s
 
@@ -68,10 +69,14 @@ def build_gini(ctx, params):
     # unchanged (Σ w_i (2C_i − w_i − W) = 0), so it is computed on x − m with m the group's smallest
     # value: Σ w (x − m)(2C − w) − W · Σ w (x − m). The shift removes a large common offset, so
     # the sums keep their digits, and it needs no group total at row level (one window spec only).
-    shifted = s.mul(ctx.w, s.sub(ctx.x, ctx.min_row))
-    num = s.sub(s.agg_sum(s.mul(shifted, s.sub(s.mul(s.lit(2.0), ctx.c), ctx.w))),
-                s.mul(ctx.W, s.agg_sum(shifted.copy())))
-    return _if_positive_total(ctx, s.div(num, s.mul(ctx.W, ctx.T)))
+    # Divided by W, then by T: W·T may overflow where the ratio does not. Values whose products
+    # overflow although T fits (x near 1e308) take the form on x·2⁻⁵¹² (catalog/scaling.py).
+    def at(scale):
+        shifted = s.mul(ctx.w, times(s.sub(ctx.x, ctx.min_row), scale, 2.0 ** -400))
+        num = s.sub(s.agg_sum(s.mul(shifted, s.sub(s.mul(s.lit(2.0), ctx.c), ctx.w))),
+                    s.mul(ctx.W, s.agg_sum(shifted.copy())))
+        return s.div(s.div(num, ctx.W), times(ctx.T, scale))
+    return _if_positive_total(ctx, plain_or_scaled(at))
 
 
 def build_gini_corrected(ctx, params):

@@ -23,9 +23,11 @@ from __future__ import annotations
 
 from sqlglot import exp
 
+from uneven.catalog.scaling import finite
 from uneven.catalog.spec import Measure
 from uneven.compiler import sqlx as s
 from uneven.compiler.passes.moment import MomentContext
+from uneven.compiler.passes.source import not_finite
 from uneven.duckdb_functions import lists as L
 from uneven.duckdb_functions.symbolic import NeedsConstant, explore_build
 
@@ -80,7 +82,8 @@ class OrderedListContext:
         return s.cast_double(L.call("len", self.rows.copy()))
 
     W = property(lambda self: s.agg_sum(self.w) if self.weighted else s.cast_double(s.agg_count_star()))
-    T = property(lambda self: s.agg_sum(s.mul(self.w, self.x)))
+    # NULL past the double range, as in the compiled pass: no measure from an infinite total
+    T = property(lambda self: finite(s.agg_sum(s.mul(self.w, self.x))))
     n = property(lambda self: s.agg_count_star())
 
     def lorenz_grid(self, k):
@@ -119,9 +122,23 @@ class MacroMomentContext(MomentContext):
 class CentredListContext(MacroMomentContext):
     """Moment sums stream; ``sum`` of a centred term runs over the group's list with ``mu`` bound."""
 
+    # r = x/μ inside each listed row: the log and power measures take the centred, cancellation-free
+    # forms the compiled centred pass uses (catalog/moment.py), so both give the same value (the
+    # one-pass forms overflow on x·ln x near 1e308 and lose digits at a small spread)
+    row_mean = True
+
     @property
     def mu(self):
         return L.field(L.var(G), "_uv_mu")
+
+    @property
+    def mu_divisor(self):
+        """μ where T > 0, else NULL (the divisor of r = x/μ)."""
+        return L.field(L.var(G), "_uv_mup")
+
+    @property
+    def r(self):
+        return s.div(self.x, self.mu_divisor)
 
     def sum(self, term):
         on_rows = _substitute(term, {X: L.field(L.var(E), X), W: L.field(L.var(E), W)})
@@ -142,9 +159,17 @@ def _row_inputs(name: str, trailing_kind: str | None, weighted: bool):
 
 
 def _checked_numeric(arg: exp.Expression, name: str, what: str) -> exp.Expression:
+    """The argument as DOUBLE; text, NaN and ±infinity stop the query (as in the compiled passes,
+    docs/input-policy.md: a sum over them is NaN or infinite, never a usable measure)."""
     text = exp.EQ(this=L.call("typeof", arg.copy()), expression=s.lit("VARCHAR"))
-    return s.case(text, s.raise_error(f"uneven: {name}(): the {what} must be numeric, got text"),
-                  s.cast_double(arg.copy()))
+    kind = what.split()[0]  # "value" or "weight"
+    label = what.split()[-1]
+    wd = s.cast_double(arg.copy())
+    return exp.Case(ifs=[
+        exp.If(this=text, true=s.raise_error(f"uneven: {name}(): the {what} must be numeric, got text")),
+        exp.If(this=not_finite(wd), true=s.raise_error(
+            f"uneven: {name}(): NaN or infinite {kind} in the {kind} argument {label}")),
+    ], default=wd.copy())
 
 
 def build_aggregate(measure: Measure, has_trailing: bool, params: list[exp.Expression]) -> exp.Expression:
@@ -160,7 +185,8 @@ def build_aggregate(measure: Measure, has_trailing: bool, params: list[exp.Expre
         ctx = CentredListContext(x, w, cond)
         body = explore_build(lambda p: measure.build(ctx, p), params)
         rows = L.collect(L.struct(**{X: x.copy(), W: (w or s.lit(1.0)).copy()}), None, cond.copy())
-        return L.bind(L.struct(_uv_l=rows, _uv_mu=s.div(ctx.T, ctx.W)), G, body)
+        means = {"_uv_mu": s.div(ctx.T, ctx.W), "_uv_mup": s.case(s.gt(ctx.T, s.lit(0.0)), s.div(ctx.T, ctx.W))}
+        return L.bind(L.struct(_uv_l=rows, **means), G, body)
     if kind == "ordered":
         ctx = OrderedListContext(weighted)
         body = _rows_to_list(explore_build(lambda p: measure.build(ctx, p), params), ctx.rows)
