@@ -158,11 +158,12 @@ class Shape:
 
 class Grammar:
     def __init__(self, rng: random.Random, features: set[str] | frozenset = frozenset({"limit"}),
-                 wide_params: bool = False, se_measures: bool = False):
+                 wide_params: bool = False, se_measures: bool = False, max_measures: int = 3):
         self.rng = rng
         self.features = set(features)
         self.params = {k: v + (WIDE_PARAMS[k] if wide_params else []) for k, v in PARAMS.items()}
         self.measures = MEASURES + (SE_MEASURES if se_measures else [])
+        self.max_measures = max_measures
         self.subqueries = True  # off inside measure arguments and FILTER (refused there by name)
 
     @contextlib.contextmanager
@@ -358,7 +359,7 @@ class Grammar:
         dim = src.join is not None
         keys = [self.key(dim) for _ in range(self.rng.randint(0, 2))]
         keys = list(dict.fromkeys(keys))
-        measures = [self.measure(dim) for _ in range(self.rng.randint(1, 3))]
+        measures = [self.measure(dim) for _ in range(self.rng.randint(1, self.max_measures))]
         items = [self.measure_item(m, dim) for m in measures]
         if self.chance(0.4):
             items.append(self.aggregate(dim))
