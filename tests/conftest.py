@@ -1,8 +1,14 @@
+import os
+
 import numpy as np
 import pandas as pd
 import pytest
 
 from engines import ENGINES, engine_or_skip, shutdown_engines
+
+# every SQL text the code under test emits is parsed back and compared with its tree
+# (src/uneven/compiler/emit.py): a lost grouping fails the test that compiled it
+os.environ.setdefault("UNEVEN_CHECK_EMISSION", "1")
 
 
 @pytest.fixture(scope="session", autouse=True)

@@ -24,6 +24,7 @@ from uneven.engine.columns import duckdb_source_columns
 from uneven.engine.frames import register_caller_frames
 from uneven.engine.runner import connect, execute_df
 from uneven.errors import MeasureArgumentError, SqlParseError
+from uneven.compiler.emit import to_sql
 
 
 def _parse(text: str, what: str, function: str) -> exp.Expression:
@@ -93,10 +94,10 @@ def session(spec: _Spec, con, frame):
     connection = connect(con)
     probe = exp.Select(expressions=[exp.Star()])
     probe.set("from_", spec.source.copy())
-    registered = register_caller_frames(connection, probe.sql("duckdb"), frame)
+    registered = register_caller_frames(connection, to_sql(probe), frame)
 
     def run(sel: exp.Select) -> pd.DataFrame:
-        compiled = compile_sql(sel.sql("duckdb"), dialect="duckdb", pretty=False,
+        compiled = compile_sql(to_sql(sel), dialect="duckdb", pretty=False,
                                source_columns=duckdb_source_columns(connection))
         return execute_df(connection, compiled)
 

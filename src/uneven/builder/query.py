@@ -22,6 +22,7 @@ from uneven.compiler import compile_sql
 from uneven.compiler.bounded import check_method
 from uneven.engine.runner import connect, translate_error
 from uneven.errors import UnevenError, MeasureArgumentError, SqlParseError
+from uneven.compiler.emit import to_sql
 
 SOURCE = "_uv_source"
 _READERS = {".parquet": "read_parquet", ".csv": "read_csv_auto", ".tsv": "read_csv_auto", ".json": "read_json_auto",
@@ -108,7 +109,7 @@ class Query:
         """The compiled SQL (no measure calls left) for ``dialect``; ``method``, ``tolerance`` and
         ``resolution`` as in ``.method()``."""
         name, tol, res = self._how(method, tolerance, resolution)
-        return compile_sql(self.tree().sql("duckdb"), dialect=dialect, pretty=pretty, method=name,
+        return compile_sql(to_sql(self.tree()), dialect=dialect, pretty=pretty, method=name,
                            resolution=pick_resolution(name, tol, res))
 
     def _check_types(self, types: dict[str, str]) -> None:
@@ -127,7 +128,7 @@ class Query:
                                                    "it must be numeric", function=spec.name)
 
     def _run(self, method: str = "exact", resolution: float | None = None):
-        compiled = compile_sql(self.tree().sql("duckdb"), dialect="duckdb", pretty=False, method=method,
+        compiled = compile_sql(to_sql(self.tree()), dialect="duckdb", pretty=False, method=method,
                                resolution=resolution)
         con = connect(self.con)
         try:
@@ -136,7 +137,7 @@ class Query:
                 return self.frame.query(SOURCE, compiled)
             if self.frame is not None:
                 con.register(SOURCE, self.frame)
-            probe = con.sql(exp.select("*").from_(self.source.copy()).limit(0).sql("duckdb"))
+            probe = con.sql(to_sql(exp.select("*").from_(self.source.copy()).limit(0)))
             self._check_types(dict(zip(probe.columns, map(str, probe.types))))
             return con.sql(compiled)
         except duckdb.Error as e:
@@ -152,7 +153,7 @@ class Query:
             if name == "exact":
                 return self._run().df()
             return run_bounded(lambda r: self._run(name, r).df(), pick_resolution(name, tol, res), tol,
-                               self.tree().sql("duckdb"))
+                               to_sql(self.tree()))
         except duckdb.Error as e:
             raise translate_error(e) from None
         finally:

@@ -1,5 +1,6 @@
-"""Generate SQL text for a target dialect: the dialect's lowering rules (compiler/dialects/), then
-sqlglot's generator, which refuses what it knows it cannot write."""
+"""Generate SQL text for a target dialect: the dialect's lowering rules (compiler/dialects/), the
+parentheses the text needs to keep the tree's grouping (compiler/emit.py), then sqlglot's generator,
+which refuses what it knows it cannot write."""
 
 from __future__ import annotations
 
@@ -7,10 +8,12 @@ from sqlglot import exp
 from sqlglot.dialects.dialect import Dialect as SqlglotDialect
 from sqlglot.errors import ErrorLevel, UnsupportedError
 
+from uneven.compiler import emit
 from uneven.compiler.dialects import EXECUTED_DIALECTS, SUPPORTED_DIALECTS, get_dialect
 from uneven.errors import UnsupportedDialectError
 
-__all__ = ["SUPPORTED_DIALECTS", "EXECUTED_DIALECTS", "check_dialect", "check_read_dialect", "generate"]
+__all__ = ["SUPPORTED_DIALECTS", "EXECUTED_DIALECTS", "check_dialect", "check_read_dialect", "generate",
+           "lower_tree"]
 
 
 def check_dialect(dialect: str) -> str:
@@ -27,10 +30,19 @@ def check_read_dialect(read: str) -> str:
     return read
 
 
+def lower_tree(tree: exp.Expression, dialect: str = "duckdb") -> exp.Expression:
+    """The tree ``generate`` prints: a copy through the dialect's rules, then the parentheses its
+    text needs (emit.parenthesize)."""
+    return emit.parenthesize(get_dialect(dialect).lower(tree.copy()), copy=False)
+
+
 def generate(tree: exp.Expression, dialect: str = "duckdb", pretty: bool = True) -> str:
     target = get_dialect(dialect)
-    lowered = target.lower(tree.copy())
+    lowered = lower_tree(tree, dialect)
     try:
-        return lowered.sql(dialect=target.name, pretty=pretty, unsupported_level=ErrorLevel.RAISE)
+        text = lowered.sql(dialect=target.name, pretty=pretty, unsupported_level=ErrorLevel.RAISE)
     except UnsupportedError as e:
         raise UnsupportedDialectError(f"the query cannot be written in {target.name}: {e}") from None
+    if emit.checking():
+        emit.check_emission(lowered, text, target.name)
+    return text

@@ -136,8 +136,12 @@ def case(cond, then, otherwise=None) -> exp.Case:
 
 
 def _connect(kind, conds):
-    """conds joined left-deep by AND or OR, the None ones left out (None when none is left)."""
-    conds = [c for c in conds if c is not None]
+    """conds joined left-deep by AND or OR, the None ones left out (None when none is left).
+    A condition that is itself a chain of the same connector is spliced in (AND and OR are
+    associative in SQL's three-valued logic too), so ``and_(p, and_(q, r))`` is the chain p, q, r
+    and prints without parentheses; any other operand keeps its grouping (compiler/emit.py)."""
+    conds = [part for c in conds if c is not None
+             for part in (c.flatten(unnest=False) if type(c) is kind else (c,))]
     if not conds:
         return None
     out = conds[0]

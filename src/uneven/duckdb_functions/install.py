@@ -24,6 +24,7 @@ from uneven.duckdb_functions.aggregate import aggregate_overloads
 from uneven.duckdb_functions.symbolic import NeedsConstant
 from uneven.duckdb_functions.table import table_form
 from uneven.errors import ExecutionError, UnevenError
+from uneven.compiler.emit import to_sql
 
 REGISTRY = "_uv_functions"
 INSTALL_SQL = Path(__file__).resolve().parents[3] / "sql" / "duckdb" / "install.sql"
@@ -83,7 +84,7 @@ def install_sql(measures: list[Measure] | None = None) -> str:
             "-- Run it in any DuckDB client (e.g. `.read sql/duckdb/install.sql`). Aggregate forms\n"
             "-- (gini(x[, w]) …) work in any GROUP BY; table forms (gini_by(source, value, weight, keys) …)\n"
             "-- run the out-of-core window plan. Note: CREATE OR REPLACE replaces macros of the same name.\n")
-    body = "\n\n".join(d.statement.sql("duckdb") + ";" for d in definitions(
+    body = "\n\n".join(to_sql(d.statement) + ";" for d in definitions(
         builtin_measures() if measures is None else measures))
     return head + "\n" + body + "\n"
 
@@ -115,7 +116,7 @@ def installed(con: duckdb.DuckDBPyConnection) -> list[tuple[str, str, str | None
     if not _recorded(con):
         return []
     query = exp.select("name", "kind", "measure").from_(REGISTRY).order_by("name")
-    return [tuple(r) for r in con.execute(query.sql("duckdb")).fetchall()]
+    return [tuple(r) for r in con.execute(to_sql(query)).fetchall()]
 
 
 def install(con: duckdb.DuckDBPyConnection, *, replace: bool = False,
@@ -147,7 +148,7 @@ def install(con: duckdb.DuckDBPyConnection, *, replace: bool = False,
             exp.ColumnDef(this=exp.to_identifier(c), kind=exp.DataType.build("varchar"))
             for c in ("name", "kind", "measure")]), kind="TABLE", exists=True).sql("duckdb"))
         for d in defs:
-            con.execute(d.statement.sql("duckdb"))
+            con.execute(to_sql(d.statement))
             con.execute(exp.delete(REGISTRY, where=exp.column("name").eq(exp.Literal.string(d.name))).sql("duckdb"))
             con.execute(exp.insert(exp.values([(d.name, d.kind, d.measure)]), REGISTRY).sql("duckdb"))
         con.execute("COMMIT")

@@ -6,6 +6,8 @@ from __future__ import annotations
 import duckdb
 from sqlglot import exp
 
+from uneven.compiler.emit import to_sql
+
 
 def duckdb_source_columns(con: duckdb.DuckDBPyConnection):
     """A ``source_columns`` callback for the compiler: runs ``SELECT * FROM <from> LIMIT 0``."""
@@ -27,7 +29,7 @@ def duckdb_source_columns(con: duckdb.DuckDBPyConnection):
             return cache[id(select)]
         probe.set("limit", exp.Limit(expression=exp.Literal.number(0)))
         try:
-            sql = compile_tree(probe, CompileContext()).sql("duckdb")
+            sql = to_sql(compile_tree(probe, CompileContext()))
             names = {d[0].lower() for d in con.execute(sql).description}
         except Exception:  # the probe is a help, never a failure of its own: fall back to aliases
             names = None

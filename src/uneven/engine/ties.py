@@ -19,6 +19,7 @@ import duckdb
 from sqlglot import exp
 
 from uneven.compiler import sqlx as s
+from uneven.compiler.emit import to_sql
 
 _TIE_PRONE = ("TINYINT", "SMALLINT", "INTEGER", "BIGINT", "HUGEINT", "UTINYINT", "USMALLINT", "UINTEGER",
               "UBIGINT", "UHUGEINT", "DECIMAL", "BOOLEAN")
@@ -50,13 +51,13 @@ def duckdb_tie_probe(con: duckdb.DuckDBPyConnection):
         try:
             typed = _over_source(select, [s.alias(x.copy(), "v")])
             typed.set("limit", exp.Limit(expression=exp.Literal.number(0)))
-            kind = con.execute(typed.sql("duckdb")).description[0][1]
+            kind = con.execute(to_sql(typed)).description[0][1]
             if not is_tie_prone(kind):
                 return None
             cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
             pairs = exp.ApproxDistinct(this=exp.Anonymous(this="hash", expressions=[k.copy() for k in keys] + [x.copy()]))
             counted = _over_source(select, [s.agg_count_star(), pairs], cond)
-            rows, distinct = con.execute(counted.sql("duckdb")).fetchone()
+            rows, distinct = con.execute(to_sql(counted)).fetchone()
         except Exception:  # noqa: BLE001  the probe never fails a query: keep the plain plan
             return None
         return int(distinct or 0), int(rows or 0)

@@ -14,6 +14,7 @@ from uneven.engine.columns import duckdb_source_columns
 from uneven.engine.runner import connect, execute_df
 from uneven.errors import UnevenError
 from uneven.report.source import Source, resolve_source
+from uneven.compiler.emit import to_sql
 
 
 def as_list(by) -> list[str]:
@@ -40,7 +41,7 @@ def alias(e: exp.Expression, name: str) -> exp.Alias:
 
 def run_tree(con: duckdb.DuckDBPyConnection, tree: exp.Expression) -> pd.DataFrame:
     """Compile a tree with measure calls and run it on ``con``."""
-    compiled = compile_sql(tree.sql("duckdb"), pretty=False, source_columns=duckdb_source_columns(con))
+    compiled = compile_sql(to_sql(tree), pretty=False, source_columns=duckdb_source_columns(con))
     return execute_df(con, compiled)
 
 
