@@ -34,7 +34,7 @@ from engines import DuckDBEngine
 from grammar import Grammar, fuzz_tables
 from test_query_shapes import compare_rows, outcome_compiled, same_value
 
-CI_SHAPES = 120
+CI_SHAPES = 100
 CI_SEED = 20261204
 MAX_MEASURES = 1  # the forms below do not depend on how many measures share a query; one keeps CI quick
 TABLES = ("survey", "rough", "dim")
