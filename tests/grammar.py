@@ -373,12 +373,14 @@ class Grammar:
             if self.chance(0.35):
                 shape.having = self.having(measures, dim)
             if self.chance(0.15):
-                shape.items.append(self.pick([f"rank() OVER (ORDER BY {measures[0]} NULLS LAST)",
+                # ranks order rounded values: groups whose measures tie exactly in arithmetic (e.g. the
+                # same mix of values) differ in the last bits between engines, and so would their ranks
+                shape.items.append(self.pick([f"rank() OVER (ORDER BY round({measures[0]}, 6) NULLS LAST)",
                                               "sum(count(*)) OVER ()",
-                                              f"rank() OVER (ORDER BY {measures[-1]} DESC NULLS LAST)"]))
+                                              f"rank() OVER (ORDER BY round({measures[-1]}, 6) DESC NULLS LAST)"]))
             elif self.chance(0.15):
                 shape.outer_window = self.pick(["q.m0 - avg(q.m0) OVER ()", "max(q.m0) OVER ()",
-                                                "rank() OVER (ORDER BY q.m0 NULLS LAST)",
+                                                "rank() OVER (ORDER BY round(q.m0, 6) NULLS LAST)",
                                                 "count(q.m0) OVER ()"])
         if "limit" in self.features and self.chance(0.15):
             shape.limit = self.pick([1, 3])
