@@ -247,8 +247,10 @@ class Grammar:
         if k == "insub":
             neg = "NOT " if self.chance(0.3) else ""
             if self.chance(0.5):
-                return f"{q}.province {neg}IN (SELECT province FROM dim WHERE {self.pick(['tier > 1', 'tier < 4', 'zone = ' + chr(39) + 'n' + chr(39), 'factor >= 1 OR tier = 2', 'province IS NOT NULL'])})"
-            return f"{q}.hh_size {neg}IN (SELECT tier FROM dim WHERE {self.pick(['factor > 1', 'NOT tier = 3', 'zone <> ' + chr(39) + 'z' + chr(39)])})"
+                inner = self.pick(["tier > 1", "tier < 4", "zone = 'n'", "factor >= 1 OR tier = 2", "province IS NOT NULL"])
+                return f"{q}.province {neg}IN (SELECT province FROM dim WHERE {inner})"
+            inner = self.pick(["factor > 1", "NOT tier = 3", "zone <> 'z'"])
+            return f"{q}.hh_size {neg}IN (SELECT tier FROM dim WHERE {inner})"
         if k == "between":
             lo, hi = sorted(self.rng.sample([0, 1, 2, 3, 4, 100, 1000, 5000], 2))
             neg = "NOT " if self.chance(0.3) else ""
