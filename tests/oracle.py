@@ -1,6 +1,8 @@
 """An independent way to evaluate a query with measure calls: DuckDB itself does the grouping,
 joins, HAVING and ORDER BY, and each measure call becomes a Python function over the group's
 rows, collected as a list, that calls the numpy reference (``uneven.reference``).
+Constant parameters (``top_share(x, CAST(0.5 AS INTEGER))``) are passed into those functions as
+SQL expressions, so DuckDB evaluates them (casts, integer division …): no compiler code reads them.
 
 Compiled results are compared with this on the golden fixtures (and by the fuzzer), so the
 compiler's passes, joins and key handling are checked by a path that shares none of them.
@@ -16,7 +18,6 @@ from sqlglot import exp
 
 from uneven import catalog
 from uneven import reference as R
-from uneven.compiler.calls import _constant
 
 _XW = "STRUCT(x DOUBLE, w DOUBLE)[]"
 _XE = "STRUCT(x DOUBLE, e VARCHAR)[]"
@@ -26,37 +27,44 @@ _CURVE = "STRUCT(p DOUBLE, lorenz DOUBLE)[]"
 _XA = "STRUCT(x DOUBLE, w DOUBLE, anum DOUBLE, atxt VARCHAR, h VARCHAR, c VARCHAR)[]"
 
 
-def _ref_w(name: str, params: str, rows) -> float | None:
+_WHOLE = ("cr", "lorenz_curve")  # measures whose parameter is a count, passed to the reference as int
+
+
+def _numbers(name: str, params) -> list:
+    return [int(p) for p in params] if name in _WHOLE else list(params)
+
+
+def _ref_w(name: str, params, rows) -> float | None:
     if not rows:
         return None
     x = [r["x"] for r in rows]
     w = [r["w"] for r in rows]
     ref = R.REFERENCES.get(name) or catalog.lookup(name).reference  # e.g. <m>_se: reference_se
-    return ref(x, *json.loads(params), w)
+    return ref(x, *_numbers(name, params), w)
 
 
-def _ref_e(name: str, params: str, rows) -> float | None:
+def _ref_e(name: str, params, rows) -> float | None:
     if not rows:
         return None
     entity = [r["e"] for r in rows]
     if all(e is None for e in entity):
         entity = None  # no entity argument: every row is its own entity
-    return R.REFERENCES[name]([r["x"] for r in rows], *json.loads(params), entity)
+    return R.REFERENCES[name]([r["x"] for r in rows], *_numbers(name, params), entity)
 
 
-def _ref_curve(name: str, params: str, rows):
+def _ref_curve(name: str, params, rows):
     value = _ref_w(name, params, rows)
     return None if value is None else [{"p": p, "lorenz": v} for p, v in value]
 
 
-def _ref_general(name: str, params: str, rows) -> float | None:
+def _ref_general(name: str, spec: str, numbers, level, rows) -> float | None:
     """A measure with column arguments and/or named options, through the catalog entry's reference:
     reference(value, *params in declared order (columns as arrays), weight, **options)."""
     if not rows:
         return None
     m = catalog.lookup(name)
-    spec = json.loads(params)
-    numbers, options = list(spec["params"]), spec["options"]
+    spec = json.loads(spec)
+    numbers, options = list(numbers), ({"level": level} if spec["level"] else {})
     column = None
     if any(r["atxt"] is not None for r in rows):
         numeric = all(r["anum"] is not None for r in rows)
@@ -87,12 +95,18 @@ def _general_rows(x, column, weight, strata, psu, extra):
 
 
 def install_oracle(con: duckdb.DuckDBPyConnection) -> None:
-    con.create_function("_uv_ref_general", _ref_general, ["VARCHAR", "VARCHAR", _XA], "DOUBLE",
+    con.create_function("_uv_ref_general", _ref_general, ["VARCHAR", "VARCHAR", "DOUBLE[]", "DOUBLE", _XA],
+                        "DOUBLE", null_handling="special")
+    con.create_function("_uv_ref_w", _ref_w, ["VARCHAR", "DOUBLE[]", _XW], "DOUBLE", null_handling="special")
+    con.create_function("_uv_ref_e", _ref_e, ["VARCHAR", "DOUBLE[]", _XE], "DOUBLE", null_handling="special")
+    con.create_function("_uv_ref_curve", _ref_curve, ["VARCHAR", "DOUBLE[]", _XW], _CURVE,
                         null_handling="special")
-    con.create_function("_uv_ref_w", _ref_w, ["VARCHAR", "VARCHAR", _XW], "DOUBLE", null_handling="special")
-    con.create_function("_uv_ref_e", _ref_e, ["VARCHAR", "VARCHAR", _XE], "DOUBLE", null_handling="special")
-    con.create_function("_uv_ref_curve", _ref_curve, ["VARCHAR", "VARCHAR", _XW], _CURVE,
-                        null_handling="special")
+
+
+def _engine_numbers(args: list[exp.Expression]) -> exp.Expression:
+    """The parameter expressions as one DOUBLE[] for DuckDB to evaluate: [CAST((p1) AS DOUBLE), …]."""
+    items = [exp.cast(exp.Paren(this=a.copy()), "double") for a in args]
+    return exp.cast(exp.Array(expressions=items), "double[]")
 
 
 def _rows_list(x: exp.Expression, t: exp.Expression | None, field: str,
@@ -127,26 +141,22 @@ def oracle_sql(sql: str) -> str:
         nparams = len(m.params)
         if any(p.kind == "column" for p in m.params) or set(named) & {"strata", "psu", "level"}:
             cols = [a for a, p in zip(args[1:], m.params) if p.kind == "column"]
-            numbers = [_constant(a) for a, p in zip(args[1:], m.params) if p.kind != "column"]
-            options = {"level": _constant(named["level"])} if "level" in named else {}
-            spec = {"params": numbers, "options": options, "strata": "strata" in named, "psu": "psu" in named}
+            numbers = [a for a, p in zip(args[1:], m.params) if p.kind != "column"]
+            level = exp.cast(exp.Paren(this=named["level"].copy()), "double") if "level" in named else exp.Null()
+            spec = {"level": "level" in named, "strata": "strata" in named, "psu": "psu" in named}
             trailing = args[1 + nparams] if len(args) > 1 + nparams else None
             return exp.Anonymous(this="_uv_ref_general", expressions=[
-                exp.Literal.string(m.name), exp.Literal.string(json.dumps(spec)),
+                exp.Literal.string(m.name), exp.Literal.string(json.dumps(spec)), _engine_numbers(numbers), level,
                 _general_rows(args[0], cols[0] if cols else None, trailing, named.get("strata"), named.get("psu"),
                               extra)])
-        params = [_constant(a) for a in args[1:1 + nparams]]
+        params = args[1:1 + nparams]
         trailing = args[1 + nparams] if len(args) > 1 + nparams else None
         if m.trailing == "entity":
             fname, field = "_uv_ref_e", "e"
         else:
             fname, field = ("_uv_ref_curve" if m.returns == "lorenz_points" else "_uv_ref_w"), "w"
-        if m.name == "cr":
-            params = [int(p) for p in params]
-        if m.name == "lorenz_curve":
-            params = [int(p) for p in params]
         return exp.Anonymous(this=fname, expressions=[
-            exp.Literal.string(m.name), exp.Literal.string(json.dumps(params)),
+            exp.Literal.string(m.name), _engine_numbers(params),
             _rows_list(args[0], trailing, field, extra)])
 
     return tree.transform(fn).sql("duckdb")

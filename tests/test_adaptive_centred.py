@@ -23,8 +23,8 @@ SQL = ("SELECT g, theil(x, w), mld(x, w), ge(x, 2, w), ge(x, -1, w), ge(x, 0.7, 
 
 
 def mp_values(x, w):
-    """The same eight measures by their textbook definitions (Theil 1967; Shorrocks 1980 for GE;
-    Atkinson 1970), in 60-digit arithmetic on the exact doubles."""
+    """The same eight measures by their usual definitions (common practice; Theil 1967, Shorrocks
+    1980 for GE and Atkinson 1970 cited from memory), in 60-digit arithmetic on the exact doubles."""
     xs, ws = [mp.mpf(float(v)) for v in x], [mp.mpf(float(v)) for v in w]
     W = sum(ws)
     mu = sum(a * b for a, b in zip(xs, ws)) / W

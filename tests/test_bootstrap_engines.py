@@ -4,7 +4,8 @@ Each engine draws its replicates from its own 64-bit hash (DuckDB hash, PostgreS
 hashtextextended, Spark xxhash64, SQLite a registered function), so the draws differ between
 engines and the exact numpy rebuild of tests/test_bootstrap.py is DuckDB's alone. What every engine
 must show: the same draws on a rerun (the seed fixes them), and a bootstrap standard error that
-agrees with the linearized one — the published variance of the Gini (Langel and Tillé 2013) computed
+agrees with the linearized one — the published variance of the Gini (Langel and Tillé 2013, cited
+from memory) computed
 independently in numpy by ``reference_se`` — within the sampling noise of R replicates.
 """
 

@@ -20,7 +20,7 @@ ODD = 'x"; DROP TABLE t; --'
 def frame() -> pd.DataFrame:
     rng = np.random.default_rng(11)  # invented data, fixed seed
     n = 400
-    return pd.DataFrame({"province": rng.choice(["Arvel", "Brisk", "Coldra"], n),
+    return pd.DataFrame({"province": rng.choice(["Arquimbel", "Bozzlevar", "Coxquarrin"], n),
                          "income": np.round(rng.lognormal(10, 0.7, n), 2), "w": rng.integers(1, 6, n).astype(float),
                          "year": rng.choice([2023, 2024], n)})
 
@@ -59,9 +59,9 @@ def test_every_source_kind_matches_the_sql_front_end(frame, tmp_path):
         _same(_built(uneven.from_(src).filter("year = 2024")).df(), want)
     _same(_built(uneven.from_("households", con=con).filter("year = 2024")).df(), want)
     # against the numpy reference directly too
-    d = frame[(frame.year == 2024) & (frame.province == "Arvel")]
+    d = frame[(frame.year == 2024) & (frame.province == "Arquimbel")]
     got = _built(uneven.from_(frame).filter("year = 2024")).df().set_index("province")
-    assert got.loc["Arvel", "g"] == pytest.approx(R.gini(d.income, d.w), rel=1e-9)
+    assert got.loc["Arquimbel", "g"] == pytest.approx(R.gini(d.income, d.w), rel=1e-9)
 
 
 def test_arrow_and_sql_outputs(frame):
@@ -140,7 +140,7 @@ def _inside_reference(df, frame):
 def test_bounded_df_gives_intervals_around_the_reference(frame):
     df = _built(uneven.from_(frame)).df(method="bounded")
     assert list(df.columns) == ["province", "g", "g_lo", "g_hi", "t", "t_lo", "t_hi", "th", "th_lo", "th_hi"]
-    assert sorted(df["province"]) == ["Arvel", "Brisk", "Coldra"]
+    assert sorted(df["province"]) == ["Arquimbel", "Bozzlevar", "Coxquarrin"]
     _inside_reference(df, frame)
     assert df.attrs["uneven"]["method"] == "bounded" and df.attrs["uneven"]["resolution"] == 0.01
 

@@ -41,10 +41,10 @@ FAMILIES = [
 
 @pytest.fixture(scope="module")
 def survey() -> pd.DataFrame:
-    rng = np.random.default_rng(23)  # invented Vareland survey: strata h, clusters c, regions r
+    rng = np.random.default_rng(23)  # invented Quembraland survey: strata h, clusters c, regions r
     n = 600
     x = np.round(rng.lognormal(3, 0.8, n), 1)
-    return pd.DataFrame({"id": np.arange(n), "prov": rng.choice(["Arvel", "Brisk"], n), "x": x,
+    return pd.DataFrame({"id": np.arange(n), "prov": rng.choice(["Arquimbel", "Bozzlevar"], n), "x": x,
                          "y": np.round(rng.lognormal(1, 0.5, n) + 0.01 * x, 2),
                          "b": rng.integers(0, 2, n).astype(float), "tax": np.round(0.05 * x + 0.002 * x ** 2, 3),
                          "post": np.round(x - (0.05 * x + 0.002 * x ** 2), 3), "w": rng.integers(1, 5, n).astype(float),
@@ -65,7 +65,7 @@ def test_every_family_matches_the_sql_front_end(con):
     got = built.df().sort_values("prov").reset_index(drop=True)
     items = ", ".join(f"{sql} AS m{i}" for i, (_, sql) in enumerate(FAMILIES))
     want = uneven.query(f"SELECT prov, {items} FROM s GROUP BY prov ORDER BY prov", con=con)
-    assert list(got["prov"]) == ["Arvel", "Brisk"]
+    assert list(got["prov"]) == ["Arquimbel", "Bozzlevar"]
     for i, (_, sql) in enumerate(FAMILIES):
         assert want[f"m{i}"].notna().all(), sql  # every family is defined on this data
         assert np.allclose(got[f"m{i}"], want[f"m{i}"], rtol=1e-12, atol=0), sql
@@ -81,7 +81,8 @@ def test_builder_against_numpy_references(con, survey):
         assert row["c"] == pytest.approx(RS.concentration(d["y"].to_numpy(float), x, w), rel=1e-10)
         assert row["k"] == pytest.approx(RS.kakwani(d["tax"].to_numpy(float), x, w), rel=1e-10)
         assert row["gb"] == pytest.approx(RS.ge_between(x, 0.0, d["r"].to_numpy(object)), rel=1e-10)
-        # linearized SE with strata and PSUs (reference_se: z per row + with-replacement design variance)
+        # linearized SE with strata and PSUs (reference_se: z per row + with-replacement design variance,
+        # the usual formula of survey practice: common practice, from memory)
         want = RSE.se("gini", x, (), w, d["h"].to_numpy(), d["c"].to_numpy())
         assert row["se"] == pytest.approx(want, rel=1e-9)
         assert row["c"] > 0 and row["k"] > 0  # y rises with x; the tax is progressive by construction

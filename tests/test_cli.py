@@ -96,15 +96,41 @@ def test_compile_and_measures(capsys):
     out = capsys.readouterr().out
     for name in R.REFERENCES:
         assert f"\n{name}(" in "\n" + out
+    # the cautions where numbers can mislead close the list
+    tail = out[out.index("Read with care"):]
+    for words in ("biased downward", "few largest records", "independent draws", "false positives",
+                  "not legal or regulatory findings", "competent authority"):
+        assert words in " ".join(tail.split()), words
+
+
+def test_help_texts_print_percent_signs_once(capsys):
+    helps = {}
+    for command in ("sources", "compare"):
+        with pytest.raises(SystemExit):
+            main([command, "--help"])
+        helps[command] = " ".join(capsys.readouterr().out.split())
+        assert "%%" not in helps[command]
+    assert "grows by 1% for everyone" in helps["sources"]
+    assert "inflates false positives" in helps["compare"]
+
+
+def test_compare_says_many_comparisons_inflate_false_positives(parquet, capsys):
+    path, df = parquet
+    assert main(["compare", str(path), "x", "x * x", "--format", "csv"]) == 0
+    cap = capsys.readouterr()
+    assert "inflates false positives" in cap.err and "inflates" not in cap.out
+    out = pd.read_csv(__import__("io").StringIO(cap.out))  # stdout holds the table only
+    x = df.x.to_numpy()
+    assert out["difference"].iloc[0] == pytest.approx(R.gini(x) - R.gini(x * x), rel=1e-10)  # numpy reference
 
 
 def test_demo_small(tmp_path, capsys):
     assert main(["demo", "--rows", "20000", "--dir", str(tmp_path)]) == 0
     out = capsys.readouterr().out
     assert "Gini gross" in out and "(all provinces)" in out
-    assert (tmp_path / "vareland_survey.parquet").exists()
+    assert (tmp_path / "quembraland_survey.parquet").exists()
     # the report's overall weighted Gini of disposable income equals the reference on the file
-    df = pd.read_parquet(tmp_path / "vareland_survey.parquet")
+    df = pd.read_parquet(tmp_path / "quembraland_survey.parquet")
     d = df[df.year == df.year.max()]
     want = R.gini(d.disposable_income.to_numpy(), d.weight.to_numpy())
     line = [ln for ln in out.splitlines() if ln.strip().startswith("(all provinces)")][0]

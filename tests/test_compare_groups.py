@@ -1,9 +1,10 @@
 """The difference of a measure between two groups of rows with its standard error
 (structure.compare with group=/groups=, and `uneven compare --group`), against an independent
 numpy computation written here from the published formulas: the linearized Gini of each row
-(Langel & Tillé 2013, via uneven.reference_se.influence, itself checked against numerical
-derivatives in test_uncertainty.py) and the with-replacement variance of a total over strata and
-PSUs (Wolter 2007, §1.4); plus a small Monte Carlo check that the SE tracks the spread of the
+(Langel & Tillé 2013, cited from memory, via uneven.reference_se.influence, itself checked
+against numerical derivatives in test_uncertainty.py) and the with-replacement variance of a total
+over strata and PSUs (common practice of survey sampling; Wolter 2007, §1.4, cited from memory);
+plus a small Monte Carlo check that the SE tracks the spread of the
 difference over repeated samples."""
 
 from __future__ import annotations
@@ -22,9 +23,9 @@ from uneven.structure import compare
 
 @pytest.fixture(scope="module")
 def survey() -> pd.DataFrame:
-    rng = np.random.default_rng(31)  # invented Vareland survey: sex within shared households' clusters
+    rng = np.random.default_rng(31)  # invented Quembraland survey: sex within shared households' clusters
     n = 700
-    return pd.DataFrame({"prov": rng.choice(["Arvel", "Brisk"], n), "x": np.round(rng.lognormal(3, 0.8, n), 1),
+    return pd.DataFrame({"prov": rng.choice(["Arquimbel", "Bozzlevar"], n), "x": np.round(rng.lognormal(3, 0.8, n), 1),
                          "w": rng.integers(1, 5, n).astype(float), "h": rng.integers(0, 3, n),
                          "c": rng.integers(0, 9, n), "sex": rng.choice(["f", "m", "x"], n, p=[0.45, 0.45, 0.1])})
 
@@ -45,7 +46,7 @@ def design_se(d: pd.DataFrame, a, b, strata=True, psu=True) -> tuple[float, floa
 
 def test_design_difference_matches_numpy(survey):
     out = compare("survey", "x", group="sex", groups=("f", "m"), weight="w", strata="h", psu="c", by="prov")
-    assert list(out["prov"]) == ["Arvel", "Brisk"] and set(out["se_method"]) == {"design"}
+    assert list(out["prov"]) == ["Arquimbel", "Bozzlevar"] and set(out["se_method"]) == {"design"}
     for _, row in out.iterrows():
         d = survey[survey["prov"] == row["prov"]].reset_index(drop=True)
         diff, se = design_se(d, "f", "m")

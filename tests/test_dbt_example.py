@@ -1,4 +1,4 @@
-"""examples/dbt_vareland: a real `dbt build` (dbt-duckdb) in a temporary copy; models call the
+"""examples/dbt_quembraland: a real `dbt build` (dbt-duckdb) in a temporary copy; models call the
 macros created by the on-run-start hook; numbers checked against the numpy reference."""
 
 from __future__ import annotations
@@ -16,7 +16,7 @@ import pytest
 
 from uneven import reference as R
 
-EXAMPLE = Path(__file__).resolve().parents[1] / "examples" / "dbt_vareland"
+EXAMPLE = Path(__file__).resolve().parents[1] / "examples" / "dbt_quembraland"
 
 
 @pytest.mark.skipif(importlib.util.find_spec("dbt") is None or importlib.util.find_spec("dbt.adapters.duckdb") is None,
@@ -25,7 +25,7 @@ def test_dbt_build_computes_the_reference_numbers(tmp_path):
     project = tmp_path / "project"
     shutil.copytree(EXAMPLE, project, ignore=shutil.ignore_patterns("target", "logs", "*.duckdb"))
     src = str(Path(__file__).resolve().parents[1] / "src")
-    env = {**os.environ, "PYTHONPATH": src, "VARELAND_DB": str(tmp_path / "vareland.duckdb"),
+    env = {**os.environ, "PYTHONPATH": src, "QUEMBRALAND_DB": str(tmp_path / "quembraland.duckdb"),
            "DBT_SEND_ANONYMOUS_USAGE_STATS": "false", "DO_NOT_TRACK": "1"}
     subprocess.run([sys.executable, "prepare.py"], cwd=project, env=env, check=True, capture_output=True)
     run = subprocess.run([sys.executable, "-c", "from dbt.cli.main import cli; cli()", "build", "--profiles-dir", ".",
@@ -40,7 +40,7 @@ def test_dbt_build_computes_the_reference_numbers(tmp_path):
     finally:
         sys.path.remove(str(project))
     rows = households()
-    con = duckdb.connect(str(tmp_path / "vareland.duckdb"), read_only=True)
+    con = duckdb.connect(str(tmp_path / "quembraland.duckdb"), read_only=True)
     got = con.execute("SELECT province, year, households, gini, top10_share, palma, theil FROM province_inequality").fetchall()
     assert len(got) == 8
     for province, year, n, gini, top10, palma, theil in got:

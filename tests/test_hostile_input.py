@@ -144,7 +144,7 @@ CASES = [
     # ---- parameters (compile-time errors) --------------------------------------------------------
     Case("p-above-one", "SELECT lorenz(x, 1.5) FROM t", MeasureArgumentError, "p must be a fraction between 0 and 1"),
     Case("p-negative", "SELECT top_share(x, -0.1) FROM t", MeasureArgumentError, "between 0 and 1"),
-    Case("p-null", "SELECT quantile_w(x, NULL) FROM t", MeasureArgumentError, "p must be a numeric constant"),
+    Case("p-null", "SELECT quantile_w(x, NULL) FROM t", MeasureArgumentError, "p cannot be NULL"),
     Case("p-column", "SELECT quantile_w(x, w) FROM t", MeasureArgumentError, "p must be a numeric constant"),
     Case("p-bounds-defined", "SELECT lorenz(x, 0), lorenz(x, 1), quantile_w(x, 0), quantile_w(x, 1) FROM t "
          "WHERE g = 'a'", [0.0, 1.0, 1.0, 9.0]),

@@ -66,7 +66,8 @@ def test_points_from_csv_frame_and_table(tmp_path):
 
 def test_uniform_grid_closed_form():
     # equally spaced values 1..n: L(p) = p(pn+1)/(n+1) at p = j/k with pn whole
-    # (handbook: the Lorenz curve of a discrete uniform distribution)
+    # (handbook: the Lorenz curve of a discrete uniform distribution; derived from the running sums
+    # j(j+1)/2 over n(n+1)/2, common practice)
     n, k = 100, 10
     points = uneven.lorenz_points(pd.DataFrame({"x": np.arange(1, n + 1)}), "x", points=k)
     want = [(j / k) * (j * n / k + 1) / (n + 1) for j in range(k + 1)]

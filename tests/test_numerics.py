@@ -185,10 +185,10 @@ CLOSED_SQL = ("SELECT ge(x, 2, w), ge(x, 3, w), ge(x, -1, w), ge(x, -2, w), ge(x
 def mp_closed(x, w):
     mu, mean = mp_weighted(x, w)
 
-    def ge(a):  # the textbook definition (Shorrocks 1980; handbook form)
+    def ge(a):  # the usual definition (common practice; Shorrocks 1980, from memory)
         return (mean(lambda v: (v / mu) ** a) - 1) / (a * (a - 1))
 
-    def atk(e):  # Atkinson (1970): 1 − (mean of x^(1−ε))^(1/(1−ε)) / μ
+    def atk(e):  # Atkinson (1970, from memory): 1 − (mean of x^(1−ε))^(1/(1−ε)) / μ
         return 1 - mean(lambda v: v ** (1 - e)) ** (1 / (1 - e)) / mu
 
     return [ge(2), ge(3), ge(-1), ge(-2), ge(mp.mpf(0.5)), ge(mp.mpf(-0.5)), atk(mp.mpf(0.5)),

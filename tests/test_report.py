@@ -32,7 +32,7 @@ K = 50  # the report's default Lorenz grid
 
 def _survey(seed=11, n=90):
     rng = np.random.default_rng(seed)
-    groups = np.array(["Ashmere", "Brindle", "Corrow"], dtype=object)
+    groups = np.array(["Aplovique", "Bruzzelon", "Cravquell"], dtype=object)
     g = np.repeat(groups, n * 3)
     year = np.tile(np.repeat([2021, 2022, 2023], n), 3)
     spread = np.repeat([0.5, 0.9, 1.3], n * 3)
@@ -61,12 +61,19 @@ def test_report_numbers_match_the_reference(survey):
                      "median": R.quantile_w(x, 0.5, w), "gini": R.gini(x, w), "bottom40": R.bottom_share(x, 0.4, w),
                      "top10": R.top_share(x, 0.1, w), "palma": R.palma(x, w), "s80s20": R.s80s20(x, w),
                      "theil": R.theil(x, w)}
-    for key, part in latest.groupby("region"):  # the Gini's 95 % interval (reference_se: linearization)
-        lo, hi = RS.ci("gini", part.income.to_numpy(), (), part.w.to_numpy(), level=0.95)
-        want[key].update(gini_lo=lo, gini_hi=hi)
+    # the 95 % intervals of the Gini, the shares, the ratios and Theil (reference_se: linearization,
+    # rows as independent draws; numpy written from the influence functions)
+    intervals = {"gini": ("gini", ()), "bottom40": ("bottom_share", (0.4,)), "top10": ("top_share", (0.1,)),
+                 "palma": ("palma", ()), "s80s20": ("s80s20", ()), "theil": ("theil", ())}
+    for key, part in latest.groupby("region"):
+        for col, (name, params) in intervals.items():
+            lo, hi = RS.ci(name, part.income.to_numpy(), params, part.w.to_numpy(), level=0.95)
+            want[key].update({f"{col}_lo": lo, f"{col}_hi": hi})
     for g in data.groups:
         assert g.values == pytest.approx(want[g.label], rel=1e-10)
-        assert g.values["gini_lo"] < g.values["gini"] < g.values["gini_hi"]
+        for col in intervals:
+            assert g.values[f"{col}_lo"] < g.values[col] < g.values[f"{col}_hi"]
+        assert g.few_rows  # 90 rows per group in the latest year: under the report's threshold of 100
         assert [v for _, v in g.curve] == pytest.approx(
             [v for _, v in R.lorenz_curve(latest[latest.region == g.label].income.to_numpy(), K,
                                           latest[latest.region == g.label].w.to_numpy())], abs=1e-12)
@@ -103,7 +110,7 @@ def test_html_is_self_contained_and_its_charts_show_the_data(survey, tmp_path):
     assert set(re.findall(r"https?://[^\s\"']+", html)) == {"http://www.w3.org/2000/svg"}
     latest = _latest(survey)
     curves = _read_lorenz(_svg(html, "lorenz-chart"))
-    assert set(curves) == {"Ashmere", "Brindle", "Corrow", "all groups"}
+    assert set(curves) == {"Aplovique", "Bruzzelon", "Cravquell", "all groups"}
     for key, xy in curves.items():
         part = latest if key == "all groups" else latest[latest.region == key]
         want = R.lorenz_curve(part.income.to_numpy(), K, part.w.to_numpy())
@@ -115,11 +122,12 @@ def test_html_is_self_contained_and_its_charts_show_the_data(survey, tmp_path):
     assert [k for k, _ in bars] == sorted(want_gini, key=lambda k: -want_gini[k])
     assert [v for _, v in bars] == pytest.approx([want_gini[k] for k, _ in bars], rel=1e-12)
     trend = {line.get("data-label"): line for line in _svg(html, "trend-chart").iter(f"{SVG}polyline")}
-    assert set(trend) == set(want_gini) and len(trend["Ashmere"].get("points").split()) == 3
+    assert set(trend) == set(want_gini) and len(trend["Aplovique"].get("points").split()) == 3
     # the table lists every group and the overall row, ranked
-    rows = re.findall(r'<td>(\d)</td><td class="group">(\w+)</td><td>[\d,]+</td>', html)
+    rows = re.findall(r'<td>(\d)</td><td class="group">(\w+) <span class="flag"[^>]*>\(few rows\)</span></td>'
+                      r'<td>[\d,]+</td>', html)  # 90 rows per group: each flagged
     assert [r[1] for r in rows] == [k for k, _ in bars] and [r[0] for r in rows] == ["1", "2", "3"]
-    assert f"{want_gini['Corrow']:.4f}" in html and "all groups" in html
+    assert f"{want_gini['Cravquell']:.4f}" in html and "all groups" in html
 
 
 def test_markdown_report_with_side_files(survey, tmp_path):
@@ -197,7 +205,7 @@ def _pixels_like(img: np.ndarray, hex_colour: str, tol: float = 0.03) -> np.ndar
 def test_demo_report_renders_with_table_curves_and_ranking(tmp_path, capsys):
     assert main(["demo", "--rows", "12000", "--dir", str(tmp_path)]) == 0
     out = capsys.readouterr().out
-    report = tmp_path / "vareland_report.html"
+    report = tmp_path / "quembraland_report.html"
     assert str(report) in out.splitlines()[-1]
     img = screenshot(report, tmp_path / "shot.png")
     assert img.shape[:2] == (1700, 1400)
@@ -230,7 +238,30 @@ def test_many_groups_charts_show_the_extremes_and_the_table_lists_all(tmp_path):
     curves = _read_lorenz(_svg(html, "lorenz-chart"))
     assert set(curves) == set(ranked[:6] + ranked[-6:] + ["all groups"])
     assert "show the 6 most and 6 least unequal of 14 groups" in html
-    assert len(re.findall(r'<td class="group">g\d\d</td>', html)) == 14
+    assert len(re.findall(r'<td class="group">g\d\d <span class="flag"[^>]*>\(few rows\)</span></td>', html)) == 14
+    assert "14 groups with fewer than 100 rows" in html  # 40 rows each; the 560 of all groups are not flagged
+
+
+def test_groups_with_few_rows_are_flagged_and_the_cautions_printed(tmp_path):
+    rng = np.random.default_rng(9)
+    sizes = {"Quezzlewort": 99, "Plimbrasco": 100, "Dorvankipple": 12}  # the threshold is 100 rows
+    df = pd.DataFrame({"g": np.repeat(list(sizes), list(sizes.values())),
+                       "x": np.exp(rng.standard_normal(sum(sizes.values())))})
+    df.loc[0, "x"] = None  # a row without a value does not count: Quezzlewort uses 98 rows
+    df = pd.concat([df, pd.DataFrame({"g": ["Plimbrasco"], "x": [None]})], ignore_index=True)
+    data = report_data(df, "x", by="g")
+    flags = {g.label: (g.values["rows"], g.few_rows) for g in data.groups}
+    assert flags == {"Quezzlewort": (98, True), "Plimbrasco": (100, False), "Dorvankipple": (12, True)}
+    assert not data.overall.few_rows
+    html = uneven.write_report(df, "x", tmp_path / "r.html", by="g").read_text()
+    flagged = re.findall(r'<td class="group">(\w+) <span class="flag"', html)
+    assert sorted(flagged) == ["Dorvankipple", "Quezzlewort"]
+    assert "2 groups with fewer than 100 rows" in html
+    for words in ("biased downward in small samples", "too narrow", "rests on the few largest records"):
+        assert words in html
+    text = uneven.write_report(df, "x", tmp_path / "r.md", by="g").read_text()
+    assert "| Dorvankipple (few rows) |" in text and "| Plimbrasco |" in text
+    assert "biased downward in small samples" in text and "2 groups with fewer than 100 rows" in text
 
 
 def test_an_interval_pair_is_shown_beside_its_value():

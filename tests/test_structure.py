@@ -5,8 +5,9 @@ Outside references: exact rational arithmetic (``fractions``) of the pairwise de
 additivity identities of the published decompositions (Shorrocks 1980 for GE; Lerman and Yitzhaki
 1985 for sources); Kakwani, Wagstaff and van Doorslaer (1997) for the concentration index with
 fractional ranks; Wagstaff (2005) C/(1 − μ) for a binary outcome; Erreygers (2009) 4μC for an
-outcome in [0, 1] (both from memory); the Engel food expenditure data shipped with statsmodels,
-recomputed here with numpy and scipy; numerical differentiation; brute-force recomputation.
+outcome in [0, 1] (all these cited from memory, not consulted); Engel's law (common practice); the
+Engel food expenditure data shipped with statsmodels, recomputed here with numpy and scipy;
+numerical differentiation; brute-force recomputation.
 """
 
 from __future__ import annotations
@@ -29,7 +30,7 @@ from uneven.structure import compare, decompose, gini_sources
 
 def _frame(seed=3, n=240):
     rng = np.random.default_rng(seed)
-    return pd.DataFrame({"prov": rng.choice(["Asterby", "Brell", "Corran"], n),
+    return pd.DataFrame({"prov": rng.choice(["Axquelle", "Blorvent", "Czamburo"], n),
                          "inc": np.round(rng.lognormal(3.0, 0.7, n), 0),
                          "aux": np.round(rng.lognormal(2.0, 0.4, n), 0),
                          "hh": rng.integers(0, 4, n), "w": rng.integers(1, 5, n).astype(float)})
@@ -45,7 +46,7 @@ def con():
 
 # ------------------------------------------------------------------ references against outside sources
 def _brute_concentration(y, r, w):
-    """Exact: Σ_i Σ_j w_i w_j y_i sign(r_i − r_j) / (W T) (mid-rank fractional ranks; KWvD 1997)."""
+    """Exact: Σ_i Σ_j w_i w_j y_i sign(r_i − r_j) / (W T) (mid-rank fractional ranks; KWvD 1997, from memory)."""
     y, r, w = [Fraction(v) for v in y], [Fraction(v) for v in r], [Fraction(v) for v in w]
     W, T = sum(w), sum(a * b for a, b in zip(w, y))
     num = sum(w[i] * w[j] * y[i] * ((r[i] > r[j]) - (r[i] < r[j])) for i in range(len(y)) for j in range(len(y)))
@@ -160,7 +161,7 @@ def test_engel_food_spending_against_numpy(engel):
     assert got["g"] == pytest.approx(_numpy_gini(inc), rel=1e-10)
     assert got["c"] == pytest.approx(_numpy_concentration(food, inc), rel=1e-10)
     assert got["k"] == pytest.approx(_numpy_concentration(food, inc) - _numpy_gini(inc), rel=1e-10)
-    assert got["k"] < 0  # Engel's law: food takes a smaller share of larger incomes
+    assert got["k"] < 0  # Engel's law (common practice): food takes a smaller share of larger incomes
     assert got["rs"] == pytest.approx(_numpy_gini(inc) - _numpy_concentration(inc - food, inc), rel=1e-10)
 
 
@@ -170,26 +171,26 @@ def test_engel_sources_and_decomposition_against_numpy(engel):
     tab = gini_sources("engel", ["foodexp", "income - foodexp"])
     G = _numpy_gini(inc)
     body = tab[tab["source"] != "total"]
-    assert body["contribution"].sum() == pytest.approx(G, abs=1e-12)  # Lerman–Yitzhaki: sum to the Gini
+    assert body["gini_points"].sum() == pytest.approx(G, abs=1e-12)  # Lerman–Yitzhaki (from memory): sum to G
     for src, v in (("foodexp", food), ("income - foodexp", other)):
         row = body[body["source"] == src].iloc[0]
         S, C = v.sum() / inc.sum(), _numpy_concentration(v, inc)
-        assert row["share"] == pytest.approx(S, rel=1e-12)
-        assert row["gini"] == pytest.approx(_numpy_gini(v), rel=1e-10)
-        assert row["gini_correlation"] == pytest.approx(C / _numpy_gini(v), rel=1e-10)
-        assert row["marginal_effect"] == pytest.approx(0.01 * S * (C - G), rel=1e-9)
+        assert row["part_of_total"] == pytest.approx(S, rel=1e-12)
+        assert row["own_gini"] == pytest.approx(_numpy_gini(v), rel=1e-10)
+        assert row["corr_with_total"] == pytest.approx(C / _numpy_gini(v), rel=1e-10)
+        assert row["gini_change_1pct"] == pytest.approx(0.01 * S * (C - G), rel=1e-9)
     # GE(2) = CV²/2 split at the median food spending, against numpy
     engel2 = engel.assign(high=(food > np.median(food)).astype(int))  # noqa: F841 (read by name)
     dec = decompose("engel2", "income", "high", alpha=2)
     cv2 = inc.var() / inc.mean() ** 2 / 2
-    parts = dec.set_index("component")["contribution"]
+    parts = dec.set_index("component")["ge_term"]
     assert parts["total"] == pytest.approx(cv2, rel=1e-10)
     means = np.array([inc[food <= np.median(food)].mean(), inc[food > np.median(food)].mean()])
     shares = np.array([(food <= np.median(food)).mean(), (food > np.median(food)).mean()])
     between = (np.sum(shares * (means / inc.mean()) ** 2) - 1) / 2
     assert parts["between"] == pytest.approx(between, rel=1e-10)
     assert parts["between"] + parts["within"] == pytest.approx(parts["total"], abs=1e-12)
-    assert dec[dec["component"] == "subgroup"]["contribution"].sum() == pytest.approx(parts["within"], abs=1e-12)
+    assert dec[dec["component"] == "subgroup"]["ge_term"].sum() == pytest.approx(parts["within"], abs=1e-12)
 
 
 # --------------------------------------------------------------------------------- tables
@@ -199,12 +200,21 @@ def test_decompose_table_per_group(con):
     for prov, d in df.groupby("prov"):
         mine = dec[dec["prov"] == prov]
         sub = mine[mine["component"] == "subgroup"]
-        assert sub["pop_share"].sum() == pytest.approx(1.0, abs=1e-12)
-        assert sub["income_share"].sum() == pytest.approx(1.0, abs=1e-12)
-        parts = mine.set_index("component")["contribution"]
+        assert sub["weight_share"].sum() == pytest.approx(1.0, abs=1e-12)
+        assert sub["value_share"].sum() == pytest.approx(1.0, abs=1e-12)
+        parts = mine.set_index("component")["ge_term"]
         assert parts["total"] == pytest.approx(R.theil(d.inc, d.w), rel=1e-12)
         assert parts["within"] == pytest.approx(RS.ge_within(d.inc, 1.0, d.hh, d.w), rel=1e-10)
-        assert sub["contribution"].sum() == pytest.approx(parts["within"], abs=1e-12)
+        assert sub["ge_term"].sum() == pytest.approx(parts["within"], abs=1e-12)
+        # each subgroup's columns against the numpy reference of Shorrocks' terms (from memory)
+        want = {p["subgroup"]: p for p in RS.ge_parts(d.inc, 1.0, d.hh, d.w)}
+        for _, r in sub.iterrows():
+            ref = want[r["subgroup"]]
+            for col, key in (("group_mean", "group_mean"), ("weight_share", "weight_share"),
+                             ("value_share", "value_share"), ("group_ge", "group_ge"), ("ge_term", "within_term")):
+                assert r[col] == pytest.approx(ref[key], rel=1e-10), col
+    assert list(dec.columns) == ["prov", "component", "subgroup", "group_mean", "weight_share", "value_share",
+                                 "group_ge", "ge_term"]  # the documented order (docs/structure.md)
 
 
 def test_sources_table_matches_reference(con):
@@ -214,9 +224,17 @@ def test_sources_table_matches_reference(con):
         want = RS.gini_sources({"inc": d.inc, "aux": d.aux}, d.w)
         mine = tab[tab["prov"] == prov].set_index("source")
         for row in want:
-            for field in ("share", "gini", "gini_correlation", "contribution", "marginal_effect"):
+            for field in ("part_of_total", "own_gini", "corr_with_total", "gini_points", "gini_change_1pct"):
                 assert mine.loc[row["source"], field] == pytest.approx(row[field], rel=1e-10)
-        assert mine.loc["total", "gini"] == pytest.approx(R.gini(d.inc + d.aux, d.w), rel=1e-12)
+        assert mine.loc["total", "own_gini"] == pytest.approx(R.gini(d.inc + d.aux, d.w), rel=1e-12)
+        G = R.gini(d.inc + d.aux, d.w)
+        for row in want:  # the two columns the reference leaves out, from its S_k and C_k
+            got = mine.loc[row["source"]]
+            assert got["conc_by_total"] == pytest.approx(row["conc_by_total"], rel=1e-10)
+            assert got["part_of_gini"] == pytest.approx(row["gini_points"] / G, rel=1e-10)
+            assert got["gini_pct_change_1pct"] == pytest.approx(100 * row["gini_change_1pct"] / G, rel=1e-9)
+    assert list(tab.columns) == ["prov", "source", "part_of_total", "own_gini", "conc_by_total", "corr_with_total",
+                                 "gini_points", "part_of_gini", "gini_change_1pct", "gini_pct_change_1pct"]
 
 
 def test_compare_table_matches_reference(con):
@@ -280,10 +298,10 @@ def test_cli_tables(tmp_path, capsys):
     df.to_parquet(path)
     assert main(["decompose", str(path), "-x", "inc", "-g", "hh", "--alpha", "2", "-w", "w", "--format", "csv"]) == 0
     out = pd.read_csv(__import__("io").StringIO(capsys.readouterr().out))
-    assert out.set_index("component").loc["total", "contribution"] == pytest.approx(R.ge(df.inc, 2.0, df.w), rel=1e-9)
+    assert out.set_index("component").loc["total", "ge_term"] == pytest.approx(R.ge(df.inc, 2.0, df.w), rel=1e-9)
     assert main(["sources", str(path), "inc", "aux", "--format", "csv"]) == 0
     out = pd.read_csv(__import__("io").StringIO(capsys.readouterr().out)).set_index("source")
-    assert out.loc[["inc", "aux"], "contribution"].sum() == pytest.approx(R.gini(df.inc + df.aux), rel=1e-9)
+    assert out.loc[["inc", "aux"], "gini_points"].sum() == pytest.approx(R.gini(df.inc + df.aux), rel=1e-9)
     assert main(["compare", str(path), "inc", "aux", "--by", "prov", "--format", "csv"]) == 0
     assert len(pd.read_csv(__import__("io").StringIO(capsys.readouterr().out))) == 3
     assert main(["influence", str(path), "-x", "inc", "-k", "1", "--format", "csv"]) == 0

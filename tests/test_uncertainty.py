@@ -1,7 +1,8 @@
 """Standard errors and confidence intervals by linearization: SQL (every engine) against the numpy
 reference (uneven.reference_se), and the reference itself against independent routes — a
-numerical derivative of the estimator, Davidson's (2009) variance, a hand-computed design
-variance and a Monte Carlo coverage check."""
+numerical derivative of the estimator, Davidson's (2009) variance (written from memory), a
+hand-computed design variance (the with-replacement variance of a total over strata and PSUs:
+common practice, formula quoted from memory) and a Monte Carlo coverage check."""
 
 from __future__ import annotations
 
@@ -133,7 +134,8 @@ def test_se_results_agree_with_estimate_column(engine, datasets):
 # --- the reference against independent routes -------------------------------------------------
 
 def _numerical_influence(estimator, x, w, k, step=1e-6):
-    """∂θ/∂w_k by central differences: the linearized variable is this derivative (Deville 1999)."""
+    """∂θ/∂w_k by central differences: the linearized variable is this derivative (Deville 1999,
+    from memory)."""
     up, down = w.copy(), w.copy()
     up[k] += step
     down[k] -= step
@@ -182,7 +184,8 @@ def test_gini_variance_agrees_with_davidson_2009():
 
 def test_design_variance_by_hand():
     # two strata, PSUs (a, b) in stratum 1 and (c, d, e) in stratum 2, exact fractions:
-    # v = Σ_h n_h/(n_h − 1) Σ_c (U_hc − Ū_h)²  (ultimate-cluster, with replacement)
+    # v = Σ_h n_h/(n_h − 1) Σ_c (U_hc − Ū_h)²  (ultimate-cluster, with replacement: the usual
+    # design-variance formula of survey practice, common practice, quoted from memory)
     u = [Fraction(1), Fraction(2), Fraction(-1), Fraction(4), Fraction(3), Fraction(0), Fraction(5)]
     h = [1, 1, 1, 2, 2, 2, 2]
     c = ["a", "a", "b", "c", "d", "d", "e"]
@@ -194,11 +197,13 @@ def test_design_variance_by_hand():
 
 
 def test_quantile_density_uses_hall_sheather_bandwidth():
-    # Hall & Sheather (1988) at p = 1/2 and α = 0.05: h = n^(−1/3) · 1.96^(2/3) · (1.5 φ(0)²)^(1/3)
+    # Hall & Sheather (1988; bandwidth formula from memory) at p = 1/2 and α = 0.05:
+    # h = n^(−1/3) · 1.96^(2/3) · (1.5 φ(0)²)^(1/3)
     nd = NormalDist()
     want = 1000 ** (-1 / 3) * nd.inv_cdf(0.975) ** (2 / 3) * (1.5 / (2 * math.pi)) ** (1 / 3)
     assert abs(rse.hall_sheather(0.5, 1000) - want) < 1e-15
-    # the quantile SE on a large uniform(0, 1) sample ≈ sqrt(p(1−p)/n) / f, f = 1 (textbook)
+    # the quantile SE on a large uniform(0, 1) sample ≈ sqrt(p(1−p)/n) / f, f = 1 (the asymptotic
+    # variance of a sample quantile: common practice, from memory)
     x = np.random.default_rng(4).uniform(0, 1, 200_000)
     assert abs(rse.se("quantile_w", x, (0.5,)) / math.sqrt(0.25 / len(x)) - 1) < 0.1
 
@@ -217,7 +222,8 @@ def _gini_se_vectorised(x, w):
 
 
 def test_coverage_unweighted_lognormal_numpy_and_sql():
-    # 400 samples of n = 1000 from lognormal σ = 1; true Gini 2Φ(σ/√2) − 1 (handbook closed form)
+    # 400 samples of n = 1000 from lognormal σ = 1; true Gini 2Φ(σ/√2) − 1 (handbook closed form of
+    # the lognormal Gini, quoted from memory)
     rng = np.random.default_rng(20240601)
     true = 2 * NormalDist().cdf(1 / math.sqrt(2)) - 1
     x = rng.lognormal(0, 1, (400, 1000))

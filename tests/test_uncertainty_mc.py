@@ -1,7 +1,7 @@
 """Monte Carlo coverage of the 95% intervals computed in SQL (slow: run with ``pytest -m slow``).
 
 Each run puts every sample in one table as a group, so one query gives all the intervals.
-True values: lognormal σ = 1 Gini 2Φ(σ/√2) − 1 (handbook closed form); the population Gini of a
+True values: lognormal σ = 1 Gini 2Φ(σ/√2) − 1 (handbook closed form, quoted from memory); the population Gini of a
 fixed invented population of 10^6 for the weighted design (numpy reference)."""
 
 from __future__ import annotations

@@ -4,7 +4,7 @@ standard error, in one of two forms:
 ``se="design"`` (Gini only): the linearized difference under one survey design. Every row of the
 relation (per block of ``by``) belongs to the design; a row of the first group carries
 u_k = w_k·z_k(G₁), a row of the second −w_k·z_k(G₂), every other row 0, with z_k the linearized
-Gini of its own group (Langel & Tillé 2013; docs/uncertainty.md):
+Gini of its own group (Langel & Tillé 2013, from memory; docs/uncertainty.md):
 
     z_k = [2 C_k x_k − 2 S_k + T − W x_k − G (T + W x_k)] / (W T)
 

@@ -34,14 +34,14 @@ def _unsort(values_sorted, order):
 
 
 def hall_sheather(p: float, n: int, alpha: float = 0.05) -> float:
-    """Hall & Sheather (1988) bandwidth: n^(−1/3) z_{1−α/2}^(2/3) [1.5 φ(Φ⁻¹p)² / (2(Φ⁻¹p)² + 1)]^(1/3)."""
+    """Hall & Sheather (1988, from memory) bandwidth: n^(−1/3) z_{1−α/2}^(2/3) [1.5 φ(Φ⁻¹p)² / (2(Φ⁻¹p)² + 1)]^(1/3)."""
     nd = NormalDist()
     q = nd.inv_cdf(p)
     return n ** (-1 / 3) * nd.inv_cdf(1 - alpha / 2) ** (2 / 3) * (1.5 * nd.pdf(q) ** 2 / (2 * q * q + 1)) ** (1 / 3)
 
 
 def density_at_quantile(x, p, w=None) -> float | None:
-    """Siddiqui (1960) / Bloch–Gastwirth (1968) difference quotient with the Hall–Sheather bandwidth."""
+    """Siddiqui (1960) / Bloch–Gastwirth (1968) (from memory) difference quotient with the Hall–Sheather bandwidth."""
     h = hall_sheather(p, len(x))
     hi, lo = min(p + h, 1.0), max(p - h, 0.0)
     spread = R.quantile_w(x, hi, w) - R.quantile_w(x, lo, w)
@@ -49,7 +49,7 @@ def density_at_quantile(x, p, w=None) -> float | None:
 
 
 def _gini(x, w):
-    # Langel & Tillé (2013) / Deville (1999): with N̂_k = C_k, Ŷ_k = S_k (running sums, rows sorted),
+    # Langel & Tillé (2013) / Deville (1999), from memory: with N̂_k = C_k, Ŷ_k = S_k (running sums, rows sorted),
     # z_k = [2 N̂_k x_k − 2 Ŷ_k + Ŷ − N̂ x_k − G (Ŷ + N̂ x_k)] / (N̂ Ŷ)
     x, w, o = _sorted(x, w)
     xs, ws = x[o], w[o]
@@ -61,7 +61,7 @@ def _gini(x, w):
 
 
 def _lorenz(x, p, w):
-    # Binder & Kovacevic (1995) estimating-equation form: z_k = [p Q_p + (x_k − Q_p) 1(x_k ≤ Q_p) − L x_k] / T
+    # Binder & Kovacevic (1995, from memory) estimating-equation form: z_k = [p Q_p + (x_k − Q_p) 1(x_k ≤ Q_p) − L x_k] / T
     x, w, o = _sorted(x, w)
     xs, ws = x[o], w[o]
     C = np.cumsum(ws)
@@ -73,7 +73,7 @@ def _lorenz(x, p, w):
 
 
 def _quantile(x, p, w):
-    # z_k = (p − 1(x_k ≤ Q_p)) / (W f(Q_p))   (e.g. Serfling 1980, §2.5; Francisco & Fuller 1991)
+    # z_k = (p − 1(x_k ≤ Q_p)) / (W f(Q_p))   (common practice; e.g. Serfling 1980, §2.5; Francisco & Fuller 1991; from memory)
     if not 0 < p < 1:
         return R.quantile_w(x, p, w), None
     x, w, o = _sorted(x, w)
@@ -166,7 +166,8 @@ def influence(name: str, x, params=(), w=None):
 def design_variance(u, strata=None, psu=None) -> float | None:
     """Σ_h n_h/(n_h − 1) Σ_c (U_hc − Ū_h)², U_hc the total of u over PSU c of stratum h (each row its
     own PSU without ``psu``, one stratum without ``strata``): the with-replacement (ultimate
-    cluster) variance of a total (e.g. Wolter 2007, Introduction to Variance Estimation, §1.4)."""
+    cluster) variance of a total (common practice; e.g. Wolter 2007, Introduction to Variance
+    Estimation, §1.4, cited from memory)."""
     u = np.asarray(u, dtype=np.float64)
     n = len(u)
     h = np.zeros(n, dtype=object) if strata is None else np.asarray(strata, dtype=object)

@@ -31,12 +31,12 @@ def _arrays(*cols: Any, w: Any = None) -> tuple[list[np.ndarray], np.ndarray]:
 
 
 # ---------------------------------------------------------------------------------------------
-# GE(α) decomposition by subgroup (Shorrocks 1980: GE = between + within, exactly)
+# GE(α) decomposition by subgroup (Shorrocks 1980, from memory: GE = between + within, exactly)
 # ---------------------------------------------------------------------------------------------
 
 def ge_parts(x, alpha, group, w=None) -> list[dict] | None:
-    """One dict per subgroup: pop_share v, income_share s, mean, ge (own GE) and the within term
-    v^(1−α) s^α GE_g. None when the total GE is undefined."""
+    """One dict per subgroup: group_mean, weight_share v, value_share s, group_ge (own GE) and the
+    within term v^(1−α) s^α GE_g. None when the total GE is undefined."""
     (xs,), ws = _arrays(x, w=w)
     g = np.asarray(group, dtype=object).reshape(-1)[(np.ones(len(group), bool) if w is None
                                                       else np.asarray(w, dtype=np.float64) > 0)]
@@ -53,7 +53,7 @@ def ge_parts(x, alpha, group, w=None) -> list[dict] | None:
             term = 0.0
         else:
             term = v ** (1 - alpha) * s ** alpha * own if s > 0 else 0.0
-        out.append({"subgroup": key, "pop_share": v, "income_share": s, "mean": Tg / Wg, "ge": own,
+        out.append({"subgroup": key, "group_mean": Tg / Wg, "weight_share": v, "value_share": s, "group_ge": own,
                     "within_term": term})
     return out
 
@@ -84,7 +84,7 @@ def ge_between(x, alpha, group, w=None) -> float | None:
 def fractional_ranks(r, w=None) -> np.ndarray:
     """Weighted fractional rank of each row (in input order), mid-rank for ties:
     R = (weight strictly below + half the weight of the tie group) / W
-    (Kakwani, Wagstaff and van Doorslaer 1997)."""
+    (Kakwani, Wagstaff and van Doorslaer 1997, from memory)."""
     (rs,), ws = _arrays(r, w=w)
     W = math.fsum(ws)
     out = np.empty_like(rs)
@@ -113,7 +113,7 @@ def _bounds_ok(ys, lo, hi) -> bool:
 
 
 def concentration_wagstaff(y, rank_by, lo, hi, w=None) -> float | None:
-    """Wagstaff's normalisation for an outcome bounded in [lo, hi]: C·(hi − lo)·μ / ((hi − μ)(μ − lo)).
+    """Wagstaff's (2005, from memory) normalisation for an outcome bounded in [lo, hi]: C·(hi − lo)·μ / ((hi − μ)(μ − lo)).
     None when a value lies outside the bounds or μ sits on a bound."""
     (ys, _), ws = _arrays(y, rank_by, w=w)
     c = concentration(y, rank_by, w)
@@ -126,7 +126,7 @@ def concentration_wagstaff(y, rank_by, lo, hi, w=None) -> float | None:
 
 
 def concentration_erreygers(y, rank_by, lo, hi, w=None) -> float | None:
-    """Erreygers (2009) corrected index for an outcome bounded in [lo, hi]: 4·μ·C / (hi − lo)."""
+    """Erreygers (2009, from memory) corrected index for an outcome bounded in [lo, hi]: 4·μ·C / (hi − lo)."""
     (ys, _), ws = _arrays(y, rank_by, w=w)
     c = concentration(y, rank_by, w)
     if c is None or not _bounds_ok(ys, lo, hi):
@@ -197,13 +197,14 @@ def gini_se(x, w=None) -> float | None:
 
 
 # ---------------------------------------------------------------------------------------------
-# Gini by income source (Lerman and Yitzhaki 1985)
+# Gini by income source (Lerman and Yitzhaki 1985, from memory)
 # ---------------------------------------------------------------------------------------------
 
 def gini_sources(sources: dict[str, Any], w=None) -> list[dict] | None:
-    """One dict per source: share S_k, gini G_k, gini correlation R_k = C_k/G_k (C_k the concentration
-    of the source ranked by the total), contribution S_k·C_k, relative contribution S_k·C_k/G and
-    the change of G when the source grows by 1%: 0.01·S_k·(C_k − G)."""
+    """One dict per source: part_of_total S_k, own_gini G_k, conc_by_total C_k (the concentration of
+    the source ranked by the total), corr_with_total R_k = C_k/G_k, gini_points S_k·C_k,
+    part_of_gini S_k·C_k/G and the change of G when the source grows by 1%:
+    gini_change_1pct 0.01·S_k·(C_k − G)."""
     names = list(sources)
     cols, ws = _arrays(*sources.values(), w=w)
     total = np.sum(np.vstack(cols), axis=0)
@@ -215,9 +216,9 @@ def gini_sources(sources: dict[str, Any], w=None) -> list[dict] | None:
         S = math.fsum(ws * c) / T
         Gk = ref.gini(c, ws)
         Ck = concentration(c, total, ws)
-        out.append({"source": name, "share": S, "gini": Gk, "gini_correlation": None if not Gk else Ck / Gk,
-                    "concentration": Ck, "contribution": S * Ck, "relative_contribution": S * Ck / G,
-                    "marginal_effect": 0.01 * S * (Ck - G)})
+        out.append({"source": name, "part_of_total": S, "own_gini": Gk, "conc_by_total": Ck,
+                    "corr_with_total": None if not Gk else Ck / Gk, "gini_points": S * Ck,
+                    "part_of_gini": S * Ck / G, "gini_change_1pct": 0.01 * S * (Ck - G)})
     return out
 
 

@@ -119,10 +119,12 @@ def decompose(relation: str, x: str, subgroup: str, *, alpha: float = 0.0, weigh
               by=(), con: duckdb.DuckDBPyConnection | None = None) -> pd.DataFrame:
     """GE(α) of ``x`` split into between- and within-subgroup parts, per group of ``by``.
 
-    One row per subgroup (component ``subgroup``: population share, income share, mean, own GE and
-    its within term v^(1−α)·s^α·GE_g) and three summary rows (``within``, ``between``, ``total``:
-    the value in ``contribution``). Subgroup terms add up to ``within``; within + between = total.
-    Rows with a NULL value, weight or subgroup are skipped.
+    One row per subgroup (component ``subgroup``: ``group_mean``, ``weight_share`` v (share of the
+    group's weight; of its rows when unweighted), ``value_share`` s (share of the group's total of
+    ``x``), ``group_ge`` (the subgroup's own GE) and ``ge_term``, its within term v^(1−α)·s^α·GE_g)
+    and three summary rows (``within``, ``between``, ``total``: the value in ``ge_term``). Subgroup
+    terms add up to ``within``; within + between = total. Columns: docs/structure.md. Rows with a
+    NULL value, weight or subgroup are skipped.
     """
     fn = "decompose"
     if not isinstance(alpha, (int, float)) or not math.isfinite(alpha):
@@ -145,14 +147,14 @@ def decompose(relation: str, x: str, subgroup: str, *, alpha: float = 0.0, weigh
         W, T = mine["_uv_wg"].sum(), mine["_uv_tg"].sum()
         sub = mine[keys + ["subgroup"]].copy()
         sub.insert(len(keys), "component", "subgroup")
-        sub["pop_share"] = mine["_uv_wg"] / W
-        sub["income_share"] = mine["_uv_tg"] / T if T else float("nan")
-        sub["mean"] = mine["_uv_tg"] / mine["_uv_wg"]
-        sub["ge"] = mine["ge"]
+        sub["group_mean"] = mine["_uv_tg"] / mine["_uv_wg"]
+        sub["weight_share"] = mine["_uv_wg"] / W
+        sub["value_share"] = mine["_uv_tg"] / T if T else float("nan")
+        sub["group_ge"] = mine["ge"]
         defined = not pd.isna(row["total"])
-        sub["contribution"] = [_within_term(v, sh, g, alpha) if defined else None
-                               for v, sh, g in zip(sub["pop_share"], sub["income_share"], sub["ge"])]
-        summary = pd.DataFrame([{**{k: row[k] for k in keys}, "component": c, "contribution": row[c]}
+        sub["ge_term"] = [_within_term(v, sh, g, alpha) if defined else None
+                          for v, sh, g in zip(sub["weight_share"], sub["value_share"], sub["group_ge"])]
+        summary = pd.DataFrame([{**{k: row[k] for k in keys}, "component": c, "ge_term": row[c]}
                                 for c in ("within", "between", "total")])
         frames += [sub.sort_values("subgroup", kind="stable"), summary]
     out = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=keys + ["component"])
@@ -165,17 +167,24 @@ def _within_term(v: float, share: float, ge: float | None, alpha: float) -> floa
     return v ** (1 - alpha) * share ** alpha * ge
 
 
+#: Printed by ``uneven compare`` under its table (stderr) and shown in its help.
+MANY_COMPARISONS = ("z = difference / se. Comparing many pairs inflates false positives: with no real "
+                    "difference, one comparison in twenty still gives |z| > 1.96, so over many groups or pairs "
+                    "adjust the threshold (e.g. 5 % divided by the number of comparisons) or read z as a screen.")
+
+
 # ------------------------------------------------------------------------------ income sources
 def gini_sources(relation: str, sources: list[str], *, weight: str | None = None, by=(),
                  con: duckdb.DuckDBPyConnection | None = None) -> pd.DataFrame:
-    """Gini of the total of ``sources`` decomposed by source (Lerman and Yitzhaki 1985).
+    """Gini of the total of ``sources`` decomposed by source (Lerman and Yitzhaki 1985, cited from memory).
 
-    Per source: share S_k of the total, its own Gini G_k, its Gini correlation with the total
-    R_k = C_k / G_k (C_k: concentration of the source ranked by the total, mid-ranks for ties),
-    contribution S_k·C_k (the contributions add up to the Gini of the total), relative contribution,
-    and the change in the Gini when the source grows by 1% for everyone (0.01·S_k·(C_k − G); in
-    percent of G: S_k·C_k/G − S_k). A ``total`` row closes each group. Rows with a NULL source or
-    weight are skipped.
+    Per source: ``part_of_total`` S_k (its share of the total), ``own_gini`` G_k,
+    ``conc_by_total`` C_k (its concentration ranked by the total, mid-ranks for ties),
+    ``corr_with_total`` R_k = C_k / G_k (the Gini correlation), ``gini_points`` S_k·C_k (they add
+    up to the Gini of the total), ``part_of_gini`` S_k·C_k/G, and the change in the Gini when the
+    source grows by 1% for everyone: ``gini_change_1pct`` 0.01·S_k·(C_k − G) and
+    ``gini_pct_change_1pct`` S_k·C_k/G − S_k (in percent of G). A ``total`` row closes each group.
+    Columns: docs/structure.md. Rows with a NULL source or weight are skipped.
     """
     fn = "gini_sources"
     if isinstance(sources, str) or len(sources or ()) < 2:
@@ -198,15 +207,15 @@ def gini_sources(relation: str, sources: list[str], *, weight: str | None = None
             S = r[f"_uv_t{i}"] / T if T else None
             Gk, Ck = _num(r[f"_uv_g{i}"]), _num(r[f"_uv_c{i}"])
             ok = S is not None and Ck is not None and not pd.isna(G)
-            rows.append({**{k: r[k] for k in keys}, "source": name, "share": S, "gini": Gk,
-                         "gini_correlation": Ck / Gk if Ck is not None and Gk else None,
-                         "concentration": Ck, "contribution": S * Ck if ok else None,
-                         "relative_contribution": S * Ck / G if ok and G else None,
-                         "marginal_effect": 0.01 * S * (Ck - G) if ok else None,
-                         "marginal_effect_pct": S * Ck / G - S if ok and G else None})
-        rows.append({**{k: r[k] for k in keys}, "source": "total", "share": 1.0, "gini": _num(G),
-                     "gini_correlation": 1.0, "concentration": _num(G), "contribution": _num(G),
-                     "relative_contribution": 1.0 if not pd.isna(G) else None})
+            rows.append({**{k: r[k] for k in keys}, "source": name, "part_of_total": S, "own_gini": Gk,
+                         "conc_by_total": Ck, "corr_with_total": Ck / Gk if Ck is not None and Gk else None,
+                         "gini_points": S * Ck if ok else None,
+                         "part_of_gini": S * Ck / G if ok and G else None,
+                         "gini_change_1pct": 0.01 * S * (Ck - G) if ok else None,
+                         "gini_pct_change_1pct": S * Ck / G - S if ok and G else None})
+        rows.append({**{k: r[k] for k in keys}, "source": "total", "part_of_total": 1.0, "own_gini": _num(G),
+                     "conc_by_total": _num(G), "corr_with_total": 1.0, "gini_points": _num(G),
+                     "part_of_gini": 1.0 if not pd.isna(G) else None})
     return spec.rename(pd.DataFrame(rows), _by_labels(by))
 
 
@@ -230,7 +239,10 @@ def compare(relation: str, x1: str, x2: str | None = None, *, group: str | None 
     each group, the difference first − second and its standard error, ``se="design"`` (Gini; the
     linearized difference under the design ``strata``/``psu`` shared by both groups, covariance
     included) or ``se="independent"`` (any measure with an ``_se`` form: sqrt(se₁² + se₂²)); see
-    ``uneven.compare_groups``. The column ``se_method`` says which was computed."""
+    ``uneven.compare_groups``. The column ``se_method`` says which was computed.
+
+    ``z`` = difference / se: with many comparisons (many ``by`` groups or pairs), some |z| > 1.96
+    turn up by chance alone (one in twenty where there is no difference): see MANY_COMPARISONS."""
     fn = "compare"
     if group is not None or groups is not None:
         if x2 is not None:

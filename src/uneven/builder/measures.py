@@ -15,6 +15,7 @@ from sqlglot import exp
 
 from uneven import catalog
 from uneven.errors import UnevenError, MeasureArgumentError
+from uneven.sqltree.constants import ConstantError, evaluate_constant
 
 
 class UnknownMeasureError(UnevenError, AttributeError):
@@ -99,6 +100,11 @@ def _check_param(spec, fn: str, p, v):
         if not isinstance(v, (str, exp.Expression)) or (isinstance(v, str) and not v):
             raise MeasureArgumentError(f"{fn}: {p.name} must be a column name, got {v!r}", function=spec.name)
         return ColumnArg(v)
+    if isinstance(v, exp.Expression):  # a constant expression (exp.cast(0.5, "int")): its value as DuckDB computes it
+        try:
+            v = evaluate_constant(v, "duckdb")
+        except ConstantError as e:
+            raise MeasureArgumentError(f"{fn}: {p.name} {e.reason}", function=spec.name) from None
     if isinstance(v, bool) or not isinstance(v, numbers.Real) or math.isnan(float(v)):
         raise MeasureArgumentError(f"{fn}: {p.name} must be a number, got {v!r}", function=spec.name)
     problem = p.check(float(v))

@@ -5,7 +5,8 @@ expression that includes the weight and a coefficient is built from group aggreg
 
 z_k is the derivative of the estimator with respect to the weight of row k (Deville 1999,
 "Variance estimation for complex statistics and estimators: linearization and residual
-techniques", Survey Methodology 25(2)); the formulas and their sources are in docs/uncertainty.md.
+techniques", Survey Methodology 25(2); cited from memory); the formulas and their sources are in
+docs/uncertainty.md.
 ``LINEARIZE[name](ctx, params) -> Lin`` is the reusable entry point (e.g. for paired
 differences: the score of θ_a − θ_b is the difference of the two lists).
 """
@@ -49,7 +50,7 @@ def combine(estimate: exp.Expression, *parts: tuple[exp.Expression, Lin]) -> Lin
 # --- ordered measures ------------------------------------------------------------------------
 
 def gini(ctx, params=()) -> Lin:
-    # z_k = [2 C_k x_k − 2 S_k + T − W x_k − G (T + W x_k)] / (W T)   (Langel & Tillé 2013)
+    # z_k = [2 C_k x_k − 2 S_k + T − W x_k − G (T + W x_k)] / (W T)   (Langel & Tillé 2013, from memory)
     G = ordc.build_gini(ctx, ())
     W, T = ctx.W, ctx.T
     w, x = ctx.w, ctx.x
@@ -112,7 +113,7 @@ def s80s20(ctx, params=()) -> Lin:
 
 
 def hall_sheather(p: float, alpha: float = 0.05) -> float:
-    """The constant K(p) of the Hall & Sheather (1988) bandwidth h = K(p)·n^(−1/3):
+    """The constant K(p) of the Hall & Sheather (1988; from memory) bandwidth h = K(p)·n^(−1/3):
     K = z_{1−α/2}^(2/3) · [1.5 φ(Φ⁻¹(p))² / (2 Φ⁻¹(p)² + 1)]^(1/3)."""
     nd = NormalDist()
     q = nd.inv_cdf(p)
@@ -126,7 +127,7 @@ def _quantile_at_expr(ctx, p: exp.Expression) -> exp.Expression:
 
 def density_at_quantile(ctx, p: float) -> exp.Expression:
     """f̂(Q_p) = (p⁺ − p⁻) / (Q(p⁺) − Q(p⁻)), p± = p ± h clamped to [0, 1], h Hall–Sheather
-    (Siddiqui 1960; Bloch & Gastwirth 1968). NULL when the two quantiles coincide."""
+    (Siddiqui 1960; Bloch & Gastwirth 1968; both from memory). NULL when the two quantiles coincide."""
     K = hall_sheather(p)
     h_row = s.mul(s.lit(K), s.power(ctx.n_row, s.lit(-1.0 / 3.0)))
     h_grp = s.mul(s.lit(K), s.power(s.cast_double(ctx.n), s.lit(-1.0 / 3.0)))

@@ -63,8 +63,9 @@ class Measure:
     check: Callable[[tuple[float, ...]], str | None] | None = None  # relations between constants (lo < hi)
     # named arguments that shape the pass (calls differing in them get passes of their own)
     pass_options: tuple[str, ...] = ()
-    # read_options(options) -> settings: checks the named arguments' values, raises ValueError
-    read_options: Callable[[dict], dict] | None = None
+    # read_options(options, read=dialect) -> settings: checks the named arguments' values (constants
+    # through sqltree/constants.py, in the read dialect), raises ValueError
+    read_options: Callable[..., dict] | None = None
     # error_bound(ctx, params, value) -> a bound on |value − exact| of the one-pass form ``value`` built
     # on a moment context with compensated sums; with it a centred measure may skip the centred
     # pass where the bound is small enough (the "adaptive" variant, compiler/passes/centred.py)

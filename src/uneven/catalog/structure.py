@@ -5,7 +5,7 @@ Subgroup context (passes/subgroup.py): subgroup-level ``Wg``, ``Tg``, ``sub_sum(
 ``x``, ``w``; group-level ``W``, ``T``, ``min_x``. With v_g = W_g/W, s_g = T_g/T, μ_g = T_g/W_g:
   between = GE of the subgroup means = (Σ_g W_g (μ_g/μ)^α / W − 1) / (α(α−1))
   within  = Σ_g v_g^(1−α) s_g^α GE_g = Σ_g (Σ_{i∈g} w x^α − W_g μ_g^α) / (W μ^α α(α−1))
-so between + within = GE(α) term by term (Shorrocks 1980); α = 1 (Theil) and α = 0 (MLD) are the
+so between + within = GE(α) term by term (Shorrocks 1980, cited from memory); α = 1 (Theil) and α = 0 (MLD) are the
 limits: between = Σ_g s_g ln(μ_g/μ) resp. Σ_g v_g ln(μ/μ_g).
 """
 
@@ -112,14 +112,14 @@ MEASURES = [
             "α = 0: Σ v_g ln(μ/μ_g)", build_ge_between, rs.ge_between,
             domain="as ge; rows with a NULL subgroup are skipped"),
     Measure("ge_within", "subgroup", (ALPHA, SUBGROUP), "weight",
-            "Σ_g v_g^(1−α) s_g^α GE_g (v, s: population and income share); ge = ge_between + ge_within",
+            "Σ_g v_g^(1−α) s_g^α GE_g (v, s: the subgroup's weight share and value share); ge = ge_between + ge_within",
             build_ge_within, rs.ge_within, domain="as ge; rows with a NULL subgroup are skipped"),
     Measure("concentration", "ranked", (RANK_BY,), "weight",
             "Σ w y (2R − 1) / Σ w y, R the fractional rank of rank_by (mid-rank for ties)",
             lambda c, p: c.conc(1), rs.concentration, value="y", sort_arg=1,
             domain="any y; NULL when Σ w y = 0"),
     Measure("concentration_wagstaff", "ranked", (RANK_BY, LO, HI), "weight",
-            "C · (hi − lo) · μ / ((hi − μ)(μ − lo)) for y bounded in [lo, hi] (Wagstaff)", build_wagstaff,
+            "C · (hi − lo) · μ / ((hi − μ)(μ − lo)) for y bounded in [lo, hi] (Wagstaff 2005)", build_wagstaff,
             rs.concentration_wagstaff, value="y", sort_arg=1, check=_bounds_check,
             domain="lo ≤ y ≤ hi, lo < μ < hi"),
     Measure("concentration_erreygers", "ranked", (RANK_BY, LO, HI), "weight",

@@ -16,6 +16,7 @@ from sqlglot import exp
 from uneven import reference_se as rse
 from uneven.catalog.linearize import LINEARIZE
 from uneven.catalog.spec import Measure
+from uneven.sqltree.constants import ConstantError, evaluate_constant, literal_value
 
 DESIGN = ("strata", "psu")
 
@@ -28,45 +29,57 @@ def check_row_level(name: str, value: exp.Expression) -> None:
         raise ValueError(f"{name} cannot be NULL")
 
 
-def read_level(value: exp.Expression | None, default: float = 0.95) -> float:
-    from uneven.compiler.calls import _constant
+def read_level(value: exp.Expression | None, default: float = 0.95, read: str = "duckdb") -> float:
+    """The confidence level: a constant (sqltree/constants.py) strictly between 0 and 1."""
     if value is None:
         return default
-    level = _constant(value)
-    if level is None or not 0.0 < level < 1.0:
-        raise ValueError(f"level must be a number strictly between 0 and 1 (e.g. 0.95), got {value.sql('duckdb')}")
+    level = _constant("level", value, read)
+    if not 0.0 < level < 1.0:
+        raise ValueError(f"level must be a number strictly between 0 and 1 (e.g. 0.95), got {_shown(value, level)}")
     return level
 
 
-def read_design(options: dict) -> dict:
+def _constant(name: str, value: exp.Expression, read: str) -> float:
+    """A named option's constant value; a ConstantError (a ValueError) names the option and the offending part."""
+    try:
+        return evaluate_constant(value, read)
+    except ConstantError as e:
+        raise ConstantError(f"{name} {e.reason}", e.node) from None
+
+
+def _shown(value: exp.Expression, v: float) -> str:
+    plain = literal_value(value) is not None
+    return value.sql("duckdb") if plain else f"{value.sql('duckdb')} = {v:g}"
+
+
+def read_design(options: dict, read: str = "duckdb") -> dict:
     settings = {}
     for name in DESIGN:
         if name in options:
             check_row_level(name, options[name])
     if "level" in options:
-        settings["level"] = read_level(options["level"])
+        settings["level"] = read_level(options["level"], read=read)
     return settings
 
 
-def _constant_int(name: str, value: exp.Expression, low: int, high: int) -> int:
-    from uneven.compiler.calls import _constant
-    v = _constant(value)
-    if v is None or v != int(v) or not low <= v <= high:
-        raise ValueError(f"{name} must be a whole number from {low} to {high}, got {value.sql('duckdb')}")
+def _constant_int(name: str, value: exp.Expression, low: int, high: int, read: str = "duckdb") -> int:
+    v = _constant(name, value, read)
+    if v != int(v) or not low <= v <= high:
+        raise ValueError(f"{name} must be a whole number from {low} to {high}, got {_shown(value, v)}")
     return int(v)
 
 
-def read_bootstrap(options: dict) -> dict:
+def read_bootstrap(options: dict, read: str = "duckdb") -> dict:
     settings = {"replicates": 200, "seed": 0, "key": options.get("key"), "psu": options.get("psu")}
     for name in ("key", "psu"):
         if name in options:
             check_row_level(name, options[name])
     if "replicates" in options:
-        settings["replicates"] = _constant_int("replicates", options["replicates"], 2, MAX_REPLICATES)
+        settings["replicates"] = _constant_int("replicates", options["replicates"], 2, MAX_REPLICATES, read)
     if "seed" in options:
-        settings["seed"] = _constant_int("seed", options["seed"], 0, 2 ** 31 - 1)
+        settings["seed"] = _constant_int("seed", options["seed"], 0, 2 ** 31 - 1, read)
     if "level" in options:
-        settings["level"] = read_level(options["level"])
+        settings["level"] = read_level(options["level"], read=read)
     if "interval" in options:
         value = options["interval"]
         if not (isinstance(value, exp.Literal) and value.is_string and value.this in ("percentile", "normal")):

@@ -30,6 +30,7 @@ from uneven.catalog import ordered
 from uneven.catalog.spec import Measure, Param
 from uneven.compiler import sqlx as s
 from uneven.errors import UnevenError
+from uneven.sqltree.constants import ConstantError, evaluate_constant
 
 _USER: set[str] = set()
 
@@ -55,11 +56,12 @@ def _ordered_names(ctx, params: dict):
 
 
 def _constant_value(node: exp.Expression) -> float:
-    if isinstance(node, exp.Neg):
-        return -_constant_value(node.this)
-    if isinstance(node, exp.Literal) and not node.is_string:
-        return float(node.this)
-    raise MeasureDefinitionError(f"expected a number or a parameter name, got {node.sql('duckdb')}")
+    """A constant in the result text (parsed as DuckDB SQL), as DuckDB computes it (sqltree/constants.py)."""
+    try:
+        return evaluate_constant(node, "duckdb")
+    except ConstantError as e:
+        raise MeasureDefinitionError(f"expected a number or a parameter name, got {node.sql('duckdb')}: "
+                                     f"the argument {e.reason}") from None
 
 
 def _moment_names(ctx, params: dict):

@@ -4,9 +4,11 @@ difference and its standard error."""
 from __future__ import annotations
 
 import argparse
+import sys
 
 from uneven.cli.common import emit_result
 from uneven.cli.tables import add_table_options, common
+from uneven.structure import MANY_COMPARISONS
 
 
 def register(sub) -> None:
@@ -20,11 +22,11 @@ def register(sub) -> None:
                        "default for it) linearizes the difference under the survey design shared by both "
                        "groups (--strata/--psu; covariance through shared PSUs included); --se independent "
                        "(any measure with an SE) is sqrt(se_A² + se_B²), each group's own linearized SE. "
-                       "The column se_method says which was computed.",
+                       "The column se_method says which was computed.\n\n" + MANY_COMPARISONS,
                        epilog="examples:\n  uneven compare 'survey.parquet' gross disposable --weight w --by province\n"
                        "  uneven compare 'survey.parquet' income --group sex --groups f m --weight w "
                        "--strata stratum --psu cluster\n"
-                       "  uneven compare 'survey.parquet' income --group province --groups Arvel Brisk "
+                       "  uneven compare 'survey.parquet' income --group province --groups Arquimbel Bozzlevar "
                        "--measure top_share --param 0.1",
                        formatter_class=argparse.RawDescriptionHelpFormatter)
     add_table_options(p)
@@ -46,10 +48,14 @@ def register(sub) -> None:
 def run(args) -> int:
     from uneven.structure import compare
     if args.group is None and args.groups is None:
-        return emit_result(compare(args.relation, args.first, args.second, **common(args)), args)
-    return emit_result(compare(args.relation, args.first, args.second, group=args.group, groups=_values(args.groups),
-                        measure=args.measure, params=args.param, se=args.se, strata=args.strata, psu=args.psu,
-                        **common(args)), args)
+        out = compare(args.relation, args.first, args.second, **common(args))
+    else:
+        out = compare(args.relation, args.first, args.second, group=args.group, groups=_values(args.groups),
+                      measure=args.measure, params=args.param, se=args.se, strata=args.strata, psu=args.psu,
+                      **common(args))
+    code = emit_result(out, args)
+    print(MANY_COMPARISONS, file=sys.stderr)  # stderr: the table on stdout stays machine-readable
+    return code
 
 
 def _values(pair):

@@ -12,8 +12,9 @@ def register(sub) -> None:
     p = sub.add_parser("decompose", help="split GE(alpha) into between- and within-subgroup parts",
                        description="GE(alpha) of VALUE split exactly into a between-subgroup part (the GE of the "
                        "subgroup means) and a within-subgroup part (the subgroups' own GE weighted by "
-                       "v^(1-alpha) s^alpha, v and s their population and income shares). One row per "
-                       "subgroup, then within, between and total.",
+                       "v^(1-alpha) s^alpha, v and s their weight and value shares). One row per subgroup "
+                       "(group_mean, weight_share, value_share, group_ge, ge_term), then within, between "
+                       "and total (in ge_term). See docs/structure.md.",
                        epilog="example: uneven decompose 'survey.parquet' --value income --subgroup province "
                        "--alpha 1 --weight w", formatter_class=argparse.RawDescriptionHelpFormatter)
     add_table_options(p)

@@ -112,8 +112,7 @@ def cmd_measures(args) -> int:
     for r in rows:
         print(f"{r['signature']:<{width}}  {r['formula']}  [{r['domain']}]")
     print(INPUT_POLICY)
-    print("HHI and CR_k are estimates from the data given, not legal or regulatory findings; screening "
-          "thresholds are for the competent authority to apply.")
+    print(CAUTIONS)
     return 0
 
 
@@ -129,6 +128,18 @@ Input policy (docs/input-policy.md has every case):
   Empty group, total <= 0, bottom share 0, sums past the DOUBLE range: NULL.
   With strict := true in a call (or --strict for the query) every such NULL stops the query
   instead, naming the group."""
+
+
+CAUTIONS = """
+Read with care (docs/uncertainty.md):
+  Small samples: the Gini is biased downward (expected value about (n-1)/n of the population's);
+  gini_corrected applies n/(n-1). A top share rests on the few largest records: the top 10 % of
+  200 rows is 20 records, and one of them can move it by points (uneven influence shows how much).
+  Intervals (_se, _ci_lo/_ci_hi) without psu := / strata := treat rows as independent draws: too
+  narrow for a clustered or stratified survey design.  Comparing many pairs (z values) inflates
+  false positives.
+  HHI and CR_k are estimates from the data given, not legal or regulatory findings; screening
+  thresholds are for the competent authority to apply."""
 
 
 def cmd_demo(args) -> int:

@@ -1,4 +1,4 @@
-"""uneven sources: the Gini of a total decomposed by income source (Lerman and Yitzhaki 1985)."""
+"""uneven sources: the Gini of a total decomposed by income source (Lerman and Yitzhaki 1985, cited from memory)."""
 
 from __future__ import annotations
 
@@ -10,10 +10,12 @@ from uneven.cli.tables import add_table_options, common
 
 def register(sub) -> None:
     p = sub.add_parser("sources", help="Gini of a total decomposed by income source",
-                       description="The total is the sum of the SOURCE columns. Per source: its share, its Gini, "
-                       "its Gini correlation with the total, its contribution (contributions add up to the "
-                       "Gini of the total) and the change in the Gini when the source grows by 1%% "
-                       "(marginal_effect; marginal_effect_pct in percent of the Gini).",
+                       description="The total is the sum of the SOURCE columns. Columns per source: "
+                       "part_of_total (its share of the total), own_gini, conc_by_total (its concentration "
+                       "ranked by the total), corr_with_total (the Gini correlation), gini_points (they add up "
+                       "to the Gini of the total), part_of_gini, and the change in the Gini when the source "
+                       "grows by 1% for everyone (gini_change_1pct; gini_pct_change_1pct in percent of the "
+                       "Gini). See docs/structure.md.",
                        epilog="example: uneven sources 'survey.parquet' wages rents transfers --weight w --by year",
                        formatter_class=argparse.RawDescriptionHelpFormatter)
     add_table_options(p)

@@ -2,15 +2,15 @@
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 
 from sqlglot import exp
 
 from uneven import catalog
 from uneven.catalog.spec import Measure
-from uneven.compiler.context import CompileContext, text
+from uneven.compiler.context import CompileContext, span, text
 from uneven.errors import MeasureArgumentError, MeasureUsageError
+from uneven.sqltree.constants import ConstantError, evaluate_constant, literal_value
 
 
 @dataclass
@@ -114,24 +114,22 @@ def check_position(node: exp.Anonymous, ctx: CompileContext) -> exp.Select:
     return anc
 
 
-def _constant(node: exp.Expression) -> float | None:
-    """Value of a numeric constant expression (literals, unary minus, + − × ÷), else None."""
-    if isinstance(node, exp.Paren):
-        return _constant(node.this)
-    if isinstance(node, exp.Literal) and not node.is_string:
-        return float(node.this)
-    if isinstance(node, exp.Neg):
-        v = _constant(node.this)
-        return None if v is None else -v
-    if isinstance(node, exp.Cast):
-        return _constant(node.this)
-    ops = {exp.Add: lambda a, b: a + b, exp.Sub: lambda a, b: a - b, exp.Mul: lambda a, b: a * b,
-           exp.Div: lambda a, b: a / b if b else math.nan}
-    for cls, op in ops.items():
-        if type(node) is cls:
-            a, b = _constant(node.this), _constant(node.expression)
-            return None if a is None or b is None else op(a, b)
-    return None
+def read_constant(arg: exp.Expression, what: str, name: str, node: exp.Anonymous, ctx: CompileContext) -> float:
+    """The value of a constant parameter as the engine computes it in the read dialect
+    (sqltree/constants.py); a refusal names the function, the argument and the offending part."""
+    try:
+        return evaluate_constant(arg, ctx.read)
+    except ConstantError as e:
+        raise ctx.error(MeasureArgumentError, f"{name}(): {what} {e.reason}", _positioned(e.node, arg, node),
+                        name) from None
+
+
+def _positioned(*nodes: exp.Expression | None) -> exp.Expression | None:
+    """The first node whose position sqlglot knows (a bare NULL has none: then its argument or call)."""
+    for n in nodes:
+        if n is not None and span(n)[0] is not None:
+            return n
+    return nodes[-1]
 
 
 def _check_row_level(arg: exp.Expression, what: str, name: str, node, ctx: CompileContext) -> None:
@@ -184,14 +182,13 @@ def read_call(node: exp.Anonymous, ctx: CompileContext) -> MeasureCall:
                 raise ctx.error(MeasureArgumentError, f"{name}(): {spec.name} cannot be NULL", node, name)
             columns.append(arg)
             continue
-        value = _constant(arg)
-        if value is None:
-            raise ctx.error(MeasureArgumentError, f"{name}(): {spec.name} must be a numeric constant, "
-                            f"got {text(arg)}", node, name)
+        value = read_constant(arg, spec.name, name, node, ctx)
         problem = spec.check(value)
         if problem is None and spec.kind == "count" and measure.max_count and value > measure.max_count:
             problem = f"{spec.name} must be at most {measure.max_count}, got {value:g}"
         if problem:
+            if literal_value(arg) is None:  # an expression: say what it evaluated from
+                problem += f" (the value of {text(arg)})"
             raise ctx.error(MeasureArgumentError, f"{name}(): {problem}", node, name)
         params.append(value)
     problem = measure.check(tuple(params)) if measure.check else None
@@ -214,7 +211,9 @@ def read_call(node: exp.Anonymous, ctx: CompileContext) -> MeasureCall:
     settings = {}
     if measure.read_options is not None:
         try:
-            settings = measure.read_options(options)
+            settings = measure.read_options(options, read=ctx.read)
+        except ConstantError as e:
+            raise ctx.error(MeasureArgumentError, f"{name}(): {e}", _positioned(e.node, node), name) from None
         except ValueError as e:
             raise ctx.error(MeasureArgumentError, f"{name}(): {e}", node, name) from None
     cond = call_filter(node)

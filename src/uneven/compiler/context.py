@@ -43,6 +43,7 @@ class CompileContext:
     # planner options (compiler/plan.py): "auto" | "on" | "off", and the engine's tie probe
     tie_grouping: str = "auto"
     dialect: str = "duckdb"  # the target engine: some plan variants need one of its functions
+    read: str = "duckdb"  # the dialect the SQL text is written in: constant parameters mean what it says
     tie_probe: Callable | None = None
     # what the planner chose, one record per pass (read by explain)
     chosen: list[dict] = field(default_factory=list)

@@ -13,7 +13,9 @@ from uneven.compiler.scope import rewrite_scope
 from uneven.bounds import bins
 from uneven.compiler.bounded import check_method
 from uneven.compiler.types import check_argument_types
-from uneven.errors import MeasureUsageError
+from uneven.compiler.clauses import check_clauses, volatile_outside_sources
+from uneven.compiler.materialize import materialize_scope
+from uneven.errors import MeasureUsageError, UnsupportedSqlError
 
 
 def _depth(node: exp.Expression) -> int:
@@ -36,11 +38,26 @@ def _check_not_correlated(select: exp.Select, calls, ctx: CompileContext) -> Non
                             calls[0].measure.name)
 
 
+def prepare_scope(select: exp.Select, ctx: CompileContext) -> None:
+    """Refuse the clauses the compiler cannot carry (clauses.py), and read a random or volatile source
+    once (materialize.py), before the calls' arguments are read."""
+    check_clauses(select, ctx)
+    volatile = volatile_outside_sources(select)
+    if volatile is not None:
+        raise ctx.error(UnsupportedSqlError, f"{text(volatile)} inside an aggregate, a measure call or a group "
+                        "key would be evaluated anew by each pass of the compiled query; compute it in a "
+                        f"subquery in FROM (SELECT …, {text(volatile)} AS r FROM …): the compiler then "
+                        "evaluates it once", volatile)
+    materialize_scope(select, ctx)
+
+
 def compile_tree(tree: exp.Expression, ctx: CompileContext) -> exp.Expression:
     """Rewrite every SELECT scope that calls measures; a tree without calls comes back unchanged."""
     scopes: dict[int, tuple[exp.Select, list]] = {}
     nodes = find_calls(tree)
     selects = [check_position(node, ctx) for node in nodes]  # where calls stand, before their arguments
+    for select in {id(sel): sel for sel in selects}.values():
+        prepare_scope(select, ctx)
     for node, select in zip(nodes, selects):
         scopes.setdefault(id(select), (select, []))[1].append(read_call(node, ctx))
     # innermost scopes first; among equals, in the order they are written
@@ -85,7 +102,7 @@ def compile_with_plan(sql: str, dialect: str = "duckdb", read: str = "duckdb", p
                          tie_probe=tie_probe, method=check_method(method),
                          resolution=bins.check_resolution(bins.DEFAULT_RESOLUTION if resolution is None
                                                           else resolution),
-                         expression_types=expression_types, dialect=dialect)
+                         expression_types=expression_types, dialect=dialect, read=read)
     tree = compile_tree(parse_one_statement(sql, read), ctx)
     return generate(tree, dialect, pretty=pretty), ctx.chosen
 

@@ -42,7 +42,7 @@ def rewrite_scope(select: exp.Select, calls: list[MeasureCall], ctx: CompileCont
     pass_ctes, pass_names, results = lower_passes(calls, source, main, ctx)
 
     replace = _replacer(results, main, keys)
-    outputs = _output_aliases(select)
+    outputs = output_aliases(select)
     final = exp.Select(expressions=[s.alias(replace(p.unalias()), outputs[i])
                                     for i, p in enumerate(select.expressions)])
     if ctx.method == "bounded":
@@ -57,10 +57,10 @@ def rewrite_scope(select: exp.Select, calls: list[MeasureCall], ctx: CompileCont
     if order is not None:
         items = [o if _is_output_ref(o.this, outputs) else _expand_aliases(o, select, keys) for o in order.expressions]
         final.set("order", exp.Order(expressions=[replace(o) for o in items]))
-    for arg in ("qualify",):
+    for arg in ("qualify", "distinct"):  # DISTINCT ON (…) reads keys and aliases like QUALIFY
         if select.args.get(arg) is not None:
             final.set(arg, replace(_expand_aliases(select.args[arg], select, keys)))
-    for arg in ("limit", "offset", "distinct"):
+    for arg in ("limit", "offset"):
         if select.args.get(arg) is not None:
             final.set(arg, select.args[arg].copy())
     check_leftover_columns(final, {main.name, *pass_names}, set(outputs), ctx)
@@ -130,8 +130,6 @@ def check_scope(select: exp.Select, ctx: CompileContext) -> None:
         if isinstance(p, exp.Star) or (isinstance(p, exp.Column) and isinstance(p.this, exp.Star)):
             raise ctx.error(UnsupportedSqlError, "SELECT * cannot be combined with measure calls; "
                             "list the group keys", p)
-    if select.args.get("windows"):
-        raise ctx.error(UnsupportedSqlError, "a WINDOW clause cannot be combined with measure calls", select)
 
 
 def _replacer(results, main: MainAggregate, keys):
@@ -154,7 +152,7 @@ def _replacer(results, main: MainAggregate, keys):
     return lambda e: e.transform(fn)
 
 
-def _output_aliases(select: exp.Select) -> list[str]:
+def output_aliases(select: exp.Select) -> list[str]:
     names = []
     for p in select.expressions:
         if isinstance(p, exp.Alias):
@@ -164,6 +162,9 @@ def _output_aliases(select: exp.Select) -> list[str]:
         else:
             names.append(p.sql("duckdb", normalize_functions="lower"))
     return names
+
+
+_output_aliases = output_aliases  # the name bounds/run.py imports
 
 
 def _is_output_ref(node: exp.Expression, outputs: list[str]) -> bool:
@@ -189,7 +190,7 @@ def _expand_aliases(expr: exp.Expression, select: exp.Select, keys) -> exp.Expre
 
 def check_leftover_columns(final: exp.Select, tables: set[str], outputs: set[str], ctx: CompileContext) -> None:
     """Every column left must come from a pass; others were neither grouped nor aggregated."""
-    for arg in ("expressions", "where", "order", "qualify"):
+    for arg in ("expressions", "where", "order", "qualify", "distinct"):
         value = final.args.get(arg)
         for part in (value if isinstance(value, list) else [value] if value is not None else []):
             for node in part.walk(prune=lambda n: isinstance(n, (exp.Select, exp.Subquery))):

@@ -1,6 +1,6 @@
 """Invented demo data for uneven examples, tests and tutorials.
 
-Everything here is made up. The *Republic of Vareland* is a fictional country with eight
+Everything here is made up. The *Republic of Quembraland* is a fictional country with eight
 fictional provinces; its household survey below is produced by a random generator with a fixed
 seed and describes no real person, place or organisation. The same holds for the fictional online
 marketplace of :func:`write_marketplace`.
@@ -47,7 +47,7 @@ __all__ = [
     "write_marketplace",
 ]
 
-COUNTRY = "Republic of Vareland"
+COUNTRY = "Republic of Quembraland"
 
 #: Rows generated per chunk (and per Parquet row group). Part of the output's definition:
 #: changing it changes the data produced for a given seed.
@@ -69,17 +69,17 @@ class _Province:
 
 # Eight invented provinces of different sizes and income levels.
 _PROVINCES: tuple[_Province, ...] = (
-    _Province("Kestrelmark", 0.24, 0.18, 10.45, 0.98, 1.0),
-    _Province("Amberfell", 0.17, 0.15, 10.25, 0.85, 1.3),
-    _Province("Lowenreach", 0.14, 0.13, 10.05, 0.78, 1.5),
-    _Province("Silverbrook Vale", 0.12, 0.12, 10.20, 0.72, 1.2),
-    _Province("Duskmoor", 0.11, 0.12, 9.80, 0.90, 1.8),
-    _Province("Tarnwyck", 0.09, 0.11, 9.90, 0.66, 1.6),
-    _Province("Glimmerholt", 0.08, 0.11, 9.65, 0.62, 2.0),
-    _Province("Isle of Quellan", 0.05, 0.08, 9.95, 0.80, 1.4),
+    _Province("Vexquormark", 0.24, 0.18, 10.45, 0.98, 1.0),
+    _Province("Zumbrafell", 0.17, 0.15, 10.25, 0.85, 1.3),
+    _Province("Plonquireach", 0.14, 0.13, 10.05, 0.78, 1.5),
+    _Province("Quivvelbrook Vale", 0.12, 0.12, 10.20, 0.72, 1.2),
+    _Province("Druzzlemoor", 0.11, 0.12, 9.80, 0.90, 1.8),
+    _Province("Oxtarnvick", 0.09, 0.11, 9.90, 0.66, 1.6),
+    _Province("Glomvizzholt", 0.08, 0.11, 9.65, 0.62, 2.0),
+    _Province("Isle of Quazzelan", 0.05, 0.08, 9.95, 0.80, 1.4),
 )
 
-#: Names of the fictional provinces of Vareland, largest first.
+#: Names of the fictional provinces of Quembraland, largest first.
 PROVINCES: list[str] = [p.name for p in _PROVINCES]
 
 #: Progressive income tax on household gross income: (lower bound of bracket, marginal rate).
@@ -120,7 +120,7 @@ _CATEGORIES: tuple[tuple[str, float], ...] = (
     ("Moss Textiles", 1.4),
     ("Skyfruit Preserves", 1.7),
     ("Tinker Kits", 1.2),
-    ("Glowware", 2.2),
+    ("Glow Trinkets", 2.2),
 )
 CATEGORIES: list[str] = [c[0] for c in _CATEGORIES]
 
@@ -190,7 +190,7 @@ def _survey_chunk(rng: np.random.Generator, first_id: int, n: int,
 
 def write_survey(path: str | os.PathLike, rows: int = 2_000_000, seed: int = 20261201,
                  years: tuple[int, ...] = (2022, 2023, 2024)) -> Path:
-    """Write the invented Vareland household survey to one Parquet file at ``path``.
+    """Write the invented Quembraland household survey to one Parquet file at ``path``.
 
     Columns: ``household_id`` (1..rows), ``province``, ``year``, ``household_size``,
     ``gross_income``, ``disposable_income`` and ``weight`` (survey weight, 50-2000).

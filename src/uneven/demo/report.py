@@ -1,4 +1,4 @@
-"""``uneven demo``: write the invented Vareland household survey and print a per-province report."""
+"""``uneven demo``: write the invented Quembraland household survey and print a per-province report."""
 
 from __future__ import annotations
 
@@ -45,7 +45,7 @@ def run_demo(rows: int = 2_000_000, folder: str = "uneven-demo", seed: int = 202
         raise uneven.UnevenError("--rows must be at least 1")
     out = Path(folder)
     out.mkdir(parents=True, exist_ok=True)
-    path = out / "vareland_survey.parquet"
+    path = out / "quembraland_survey.parquet"
     t0 = time.perf_counter()
     write_survey(path, rows=rows, seed=seed)
     print(f"Wrote {rows:,} invented households of the {COUNTRY} to {path} "
@@ -68,7 +68,7 @@ def run_demo(rows: int = 2_000_000, folder: str = "uneven-demo", seed: int = 202
           "Invented data: no real country, person or organisation.")
     print(f"\nTry your own: uneven query \"SELECT year, gini(disposable_income, weight) FROM '{path}' "
           "GROUP BY year ORDER BY year\"")
-    report = write_demo_report(con, path, out / "vareland_report.html")
+    report = write_demo_report(con, path, out / "quembraland_report.html")
     print(f"\nReport (measures, ranking, Lorenz curves, trend; one self-contained HTML file): {report}")
     return 0
 

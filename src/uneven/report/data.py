@@ -6,8 +6,9 @@
 - with a time column: Gini per group and period (the trend).
 
 Groups are ranked by Gini, most unequal first. A column may name an interval (two more result
-columns, e.g. a confidence interval or bounds): the table then shows ``value [low, high]``; no
-column of the first set has one, the field is where such a pair goes.
+columns, e.g. a confidence interval or bounds): the table then shows ``value [low, high]``; the
+Gini, the shares, the ratios and Theil carry their 95 % intervals (``_ci``). Groups with fewer
+than ``FEW_ROWS`` rows are flagged, and ``CAUTIONS`` say what can mislead.
 """
 
 from __future__ import annotations
@@ -51,6 +52,11 @@ def _m(name, *params):
     return lambda spec: call(name, spec.value, *params, weight=spec.weight)
 
 
+def _ci(name: str, *params):
+    """The builders of the 95 % interval of measure ``name`` (its ``_ci_lo`` / ``_ci_hi`` entries)."""
+    return (_m(f"{name}_ci_lo", *params), _m(f"{name}_ci_hi", *params))
+
+
 COLUMNS: tuple[Column, ...] = (
     Column("rows", "rows", lambda s: exp.Count(this=_used(s, s.value.copy())), "{:,.0f}",
            note="rows with a value (and a weight > 0)"),
@@ -58,14 +64,32 @@ COLUMNS: tuple[Column, ...] = (
            weighted_only=True),
     Column("mean", "mean", _m("generalized_lorenz", 1.0), "{:,.2f}", note="weighted mean μ = T/W"),
     Column("median", "median", _m("quantile_w", 0.5), "{:,.2f}", note="weighted median (inverted CDF)"),
-    Column("gini", "Gini", _m("gini"), "{:.4f}", interval=(_m("gini_ci_lo"), _m("gini_ci_hi")),
-           note="[low, high]: 95 % confidence interval by linearization (rows as independent draws; "
-                "docs/uncertainty.md)"),
-    Column("bottom40", "bottom 40 % share", _m("bottom_share", 0.4), "{:.1%}"),
-    Column("top10", "top 10 % share", _m("top_share", 0.1), "{:.1%}"),
-    Column("palma", "Palma", _m("palma"), "{:.3f}", note="top 10 % share / bottom 40 % share"),
-    Column("s80s20", "S80/S20", _m("s80s20"), "{:.3f}", note="top 20 % share / bottom 20 % share"),
-    Column("theil", "Theil", _m("theil"), "{:.4f}", note="NULL when a value is negative"),
+    Column("gini", "Gini", _m("gini"), "{:.4f}", interval=_ci("gini")),
+    Column("bottom40", "bottom 40 % share", _m("bottom_share", 0.4), "{:.1%}", interval=_ci("bottom_share", 0.4)),
+    Column("top10", "top 10 % share", _m("top_share", 0.1), "{:.1%}", interval=_ci("top_share", 0.1)),
+    Column("palma", "Palma", _m("palma"), "{:.3f}", interval=_ci("palma"),
+           note="top 10 % share / bottom 40 % share"),
+    Column("s80s20", "S80/S20", _m("s80s20"), "{:.3f}", interval=_ci("s80s20"),
+           note="top 20 % share / bottom 20 % share"),
+    Column("theil", "Theil", _m("theil"), "{:.4f}", interval=_ci("theil"), note="NULL when a value is negative"),
+)
+
+#: A group with fewer rows than this is flagged in the report: below 100 rows the top 10 % share
+#: rests on fewer than 10 records, and the Gini's downward small-sample bias (about G/n) and the
+#: normal intervals' coverage are no longer negligible (docs/pictures-and-reports.md).
+FEW_ROWS = 100
+
+INTERVAL_NOTE = ("[low, high] under a value: 95 % confidence interval by linearization, the rows taken as "
+                 "independent draws (docs/uncertainty.md)")
+
+#: The cautions every report prints (shared by the HTML and Markdown renderings).
+CAUTIONS: tuple[str, ...] = (
+    "The intervals treat the rows as independent draws: for a clustered or stratified survey design "
+    "they are too narrow (query gini_se(x, w, psu := …, strata := …) for the design's standard error).",
+    "The Gini is biased downward in small samples (its expected value falls short by roughly G/n for "
+    "n rows), so small groups look more equal than they are; gini_corrected gives the n/(n − 1) version.",
+    "A top share rests on the few largest records: the top 10 % of 200 rows is 20 records, and one "
+    "unusual record can move it by several points.",
 )
 
 
@@ -75,6 +99,12 @@ class Group:
     values: dict[str, float]
     curve: list[tuple[float, float]] | None
     rank: int | None = None
+
+    @property
+    def few_rows(self) -> bool:
+        """Fewer rows than FEW_ROWS used by the measures (flagged in the table)."""
+        n = self.values.get("rows", math.nan)
+        return n == n and n < FEW_ROWS
 
 
 @dataclass

@@ -8,7 +8,7 @@ from html import escape
 
 import uneven
 from uneven.report.charts import all_charts
-from uneven.report.data import ReportData, format_value
+from uneven.report.data import CAUTIONS, FEW_ROWS, INTERVAL_NOTE, ReportData, format_value
 
 TABLE_HEAD = "#dce6f2"  # the table header's background (the screenshot test looks for it)
 
@@ -20,13 +20,17 @@ h2 { font-size: 18px; margin: 28px 0 8px; border-bottom: 1px solid #ccd; padding
 p.meta { color: #555; margin: 2px 0; }
 .charts { display: flex; flex-wrap: wrap; gap: 16px; align-items: flex-start; }
 .charts figure { margin: 0; border: 1px solid #dde; }
-table.measures { border-collapse: collapse; font-variant-numeric: tabular-nums; }
-table.measures th { background: TABLE_HEAD; text-align: right; padding: 5px 9px; border-bottom: 2px solid #9ab; }
+.table-wrap { overflow-x: auto; }
+table.measures { border-collapse: collapse; font-variant-numeric: tabular-nums; font-size: 14px; }
+table.measures th { background: TABLE_HEAD; text-align: right; padding: 5px 7px; border-bottom: 2px solid #9ab; }
 table.measures th.group, table.measures td.group { text-align: left; white-space: nowrap; }
-table.measures td { text-align: right; padding: 4px 9px; border-bottom: 1px solid #e4e4ea; white-space: nowrap; }
+table.measures td { text-align: right; padding: 4px 7px; border-bottom: 1px solid #e4e4ea; white-space: nowrap; }
 table.measures tr.overall td { font-weight: 600; border-top: 2px solid #9ab; }
 .notes { color: #555; font-size: 13px; }
 table.measures .ci { color: #666; font-size: 80%; }
+table.measures tr.few td { background: #fff6e0; }
+table.measures .flag { color: #a05a00; font-weight: 600; }
+.cautions { font-size: 13px; background: #fff6e0; border-left: 4px solid #d9a441; padding: 6px 12px 6px 28px; }
 """.replace("TABLE_HEAD", TABLE_HEAD)
 
 
@@ -42,11 +46,37 @@ def _table(data: ReportData) -> str:
     rows = [f'<tr><th>rank</th><th class="group">{escape(group_head)}</th>{head}</tr>']
     for g in data.groups:
         cells = "".join(_cell(c, g.values) for c in data.columns)
-        rows.append(f'<tr><td>{g.rank if g.rank else "—"}</td><td class="group">{escape(g.label)}</td>{cells}</tr>')
+        flag = f' <span class="flag" title="fewer than {FEW_ROWS} rows">{FEW_FLAG}</span>' if g.few_rows else ""
+        few = ' class="few"' if g.few_rows else ""
+        rows.append(f'<tr{few}><td>{g.rank if g.rank else "—"}</td><td class="group">{escape(g.label)}{flag}</td>'
+                    f'{cells}</tr>')
     if data.overall is not None:
         cells = "".join(_cell(c, data.overall.values) for c in data.columns)
         rows.append(f'<tr class="overall"><td></td><td class="group">{escape(data.overall.label)}</td>{cells}</tr>')
-    return '<table class="measures">\n' + "\n".join(rows) + "\n</table>"
+    return '<div class="table-wrap"><table class="measures">\n' + "\n".join(rows) + "\n</table></div>"
+
+
+FEW_FLAG = "(few rows)"  # after the label of a group with fewer than FEW_ROWS rows
+
+
+def few_rows_note(data: ReportData) -> str:
+    """The sentence on flagged groups ("" when no group is flagged)."""
+    few = [g.label for g in data.groups if g.few_rows]
+    if data.overall is not None and data.overall.few_rows:
+        few.append(data.overall.label)
+    if not few:
+        return ""
+    return (f"{FEW_FLAG}: {len(few)} group{'s' if len(few) > 1 else ''} with fewer than {FEW_ROWS} rows "
+            f"({', '.join(few[:8])}{', …' if len(few) > 8 else ''}): "
+            + ("their figures rest on few records; read them, and their places in the ranking, with care."
+               if len(few) > 1 else "its figures rest on few records; read them, and its place in the ranking, "
+               "with care."))
+
+
+def cautions(data: ReportData) -> list[str]:
+    """What can mislead in these numbers: the flagged groups first, then the general cautions."""
+    note = few_rows_note(data)
+    return ([note] if note else []) + list(CAUTIONS)
 
 
 def describe(data: ReportData) -> list[str]:
@@ -61,7 +91,7 @@ def describe(data: ReportData) -> list[str]:
 
 
 def notes(data: ReportData) -> list[str]:
-    out = [f"{c.label}: {c.note}." for c in data.columns if c.note]
+    out = [f"{c.label}: {c.note}." for c in data.columns if c.note] + [f"{INTERVAL_NOTE}."]
     out.append("Gini = Σ w_i x_i (2C_i − w_i − W) / (W·T) over rows sorted by value (C_i running weight, "
                "W total weight, T weighted total); the Lorenz curve joins (C_i/W, S_i/T). — marks a "
                "measure that is undefined for the group (e.g. total ≤ 0).")
@@ -84,6 +114,8 @@ def render_html(data: ReportData) -> str:
               f'<figure id="ranking-chart">{charts["ranking"]}</figure>',
               f'<figure id="lorenz-chart">{charts["lorenz"]}</figure>', "</div>"]
     parts += ['<h2 id="measures">Measures per group</h2>', _table(data)]
+    parts.append('<ul class="cautions" id="cautions">'
+                 + "".join(f"<li>{escape(n)}</li>" for n in cautions(data)) + "</ul>")
     if "trend" in charts:
         parts += [f'<h2 id="trend">Trend by {escape(data.time)}</h2>',
                   f'<div class="charts"><figure id="trend-chart">{charts["trend"]}</figure></div>']

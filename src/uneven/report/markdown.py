@@ -8,7 +8,7 @@ from pathlib import Path
 
 from uneven.report.charts import all_charts
 from uneven.report.data import ReportData, format_value
-from uneven.report.html import describe, notes
+from uneven.report.html import FEW_FLAG, cautions, describe, notes
 
 
 def _cell(text: str) -> str:
@@ -25,6 +25,7 @@ def _table(data: ReportData) -> list[str]:
         rows.append(("", data.overall))
     for rank, g in rows:
         label = f"**{g.label}**" if g is data.overall else g.label
+        label += f" {FEW_FLAG}" if g.few_rows else ""
         lines.append("| " + " | ".join([rank, _cell(label)] + [_cell(format_value(c, g.values))
                                                                for c in data.columns]) + " |")
     return lines
@@ -38,9 +39,10 @@ def render_markdown(data: ReportData, stem: str) -> tuple[str, dict[str, str]]:
     out += ["## Ranking by Gini", ""]
     for g in data.groups:
         if g.rank:
-            out.append(f"{g.rank}. {g.label} — Gini {g.values['gini']:.4f}")
+            out.append(f"{g.rank}. {g.label} — Gini {g.values['gini']:.4f}" + (f" {FEW_FLAG}" if g.few_rows else ""))
     out += ["", f"![Groups ranked by Gini]({stem}-ranking.svg)", "", "## Lorenz curves", "",
             f"![Lorenz curves]({stem}-lorenz.svg)", "", "## Measures per group", ""] + _table(data)
+    out += ["", "**Read with care:**", ""] + [f"- {n}" for n in cautions(data)]
     if "trend" in charts:
         out += ["", f"## Trend by {data.time}", "", f"![Gini by {data.time}]({stem}-trend.svg)"]
     out += ["", "## Notes", ""] + [f"- {n}" for n in notes(data)] + [""]

@@ -14,5 +14,5 @@ DIALECT = Dialect(
     rules=(r.uniform_from_hash("xxhash64", signed=True), r.expand_group_by_all, r.raise_with("raise_error"), r.null_on_division_by_zero),
     executed=True,
     notes="list results are arrays of structs; negative weights and strict mode raise through raise_error()",
-    aliases=("sparksql", "databricks"),
+    aliases=("sparksql",),
 )

@@ -22,5 +22,4 @@ DIALECT = Dialect(
         r.structs_as_typed_rows,
     ),
     notes="emitted, not executed here",
-    aliases=("presto",),
 )

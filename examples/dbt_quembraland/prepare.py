@@ -13,11 +13,11 @@ import numpy as np
 import uneven.duckdb_functions as functions
 
 HERE = Path(__file__).resolve().parent
-PROVINCES = {"Ostrava Vale": 0.55, "Kelmar Coast": 0.75, "Durnholt": 0.65, "Sirreth Uplands": 0.9}
+PROVINCES = {"Zarnquill Vale": 0.55, "Plovexa Coast": 0.75, "Umbertrox": 0.65, "Snivvelgard Uplands": 0.9}
 
 
 def households(seed: int = 20240611, per_province: int = 60):
-    """Invented households of the Republic of Vareland: lognormal incomes, survey weights 1..5."""
+    """Invented households of the Republic of Quembraland: lognormal incomes, survey weights 1..5."""
     rng = np.random.default_rng(seed)
     rows, hid = [], 0
     for province, sigma in PROVINCES.items():

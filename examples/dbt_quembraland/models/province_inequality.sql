@@ -1,4 +1,4 @@
--- Inequality of household income per province and year in the Republic of Vareland (invented data).
+-- Inequality of household income per province and year in the Republic of Quembraland (invented data).
 -- gini, top_share, palma and theil are DuckDB macros created by the on-run-start hook.
 select
     province,

@@ -1,0 +1,7 @@
+"""The bottom layer for SQL trees: helpers over sqlglot trees that know nothing of measures.
+
+Modules here import sqlglot, duckdb and ``uneven.errors`` only, never the compiler or the catalog,
+so every other layer (compiler, catalog, builder, tests' oracle) may use them.
+
+* ``constants``: the value of a constant parameter expression, with the meaning the engine gives it.
+"""
