@@ -71,8 +71,8 @@ RATIOS = [("0.9", "0.1"), ("0.8", "0.2"), ("0.75", "0.25"), ("0.5 + 0.4", "0.1")
 
 MAIN_NUM = ["gross", "disposable", "weight"]
 MAIN_INT = ["hh_size", "year", "hh_id"]
-PROVINCES = ["'North'", "'South'", "'Brisca'", "'Amberlee'", "'Dunmere'", "'Évrazquelle'", "'Corvald'", "'Nowhere'"]
-LIKES = ["'B%'", "'%ee'", "'%o%'", "'N%'", "'_r%'", "'%a'", "'É%'"]
+PROVINCES = ["'North'", "'South'", "'Bronquivet'", "'Abrazzle'", "'Dravquinth'", "'Évrazquelle'", "'Cuzzlemoor'", "'Nowhere'"]
+LIKES = ["'B%'", "'%zz%'", "'%o%'", "'N%'", "'_r%'", "'%t'", "'É%'"]
 
 # what each engine can be compared on against an oracle that runs on DuckDB
 ENGINE_FEATURES = {
@@ -336,7 +336,7 @@ class Grammar:
     def key(self, dim: bool) -> str:
         forms = ["t.province", "t.year", "t.hh_size > 2", "t.year % 2", "length(t.province)",
                  "COALESCE(t.province, 'none')", f"CASE WHEN {self.cond('t', dim, 1)} THEN 'a' ELSE 'b' END",
-                 "t.hh_size BETWEEN 2 AND 4", "t.province IS NULL", "t.province IN ('North', 'Brisca')",
+                 "t.hh_size BETWEEN 2 AND 4", "t.province IS NULL", "t.province IN ('North', 'Bronquivet')",
                  "t.hh_size + 1", "-t.hh_size", "t.hh_size"]
         return self.pick(forms + (["d.zone", "d.tier"] if dim else []))
 
@@ -438,7 +438,7 @@ def rough_rows(seed: int = 9, n: int = 600) -> "pd.DataFrame":
 def dim_frame() -> "pd.DataFrame":
     """A small invented dimension table: a NULL key, a key no row has, keys only one table has."""
     import pandas as pd
-    frame = pd.DataFrame({"province": ["North", "South", "Amberlee", None, "Nowhere", "Brisca"],
+    frame = pd.DataFrame({"province": ["North", "South", "Abrazzle", None, "Nowhere", "Bronquivet"],
                           "zone": ["n", "s", "n", "x", "z", None], "factor": [1.5, 0.5, 2.0, 1.0, 3.0, 0.25],
                           "tier": [1, 2, 3, 4, 5, 2]})
     return _nullable(frame)
