@@ -324,8 +324,9 @@ class Grammar:
         if self.chance(0.25):
             with self.row_level():
                 m = f"{m} FILTER (WHERE {self.cond('t', dim, 2)})"
+        # thresholds avoid round values a measure can equal exactly (0.3 vs 0.30000000000000004)
         form = self.pick(["{m}", "{m}", "{m}", "round({m}, 6)", "{m} * 100", "coalesce({m}, -1)", "-{m}",
-                          "CASE WHEN {m} > 0.3 THEN 1 ELSE 0 END", "{m} + 1"])
+                          "CASE WHEN {m} > 0.3137 THEN 1 ELSE 0 END", "{m} + 1"])
         return form.format(m=m)
 
     def aggregate(self, dim: bool) -> str:
