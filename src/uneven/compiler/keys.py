@@ -7,6 +7,7 @@ from sqlglot import exp
 from uneven.compiler.calls import is_aggregate, is_measure
 from uneven.compiler.context import CompileContext
 from uneven.errors import UnsupportedSqlError
+from uneven.sqltree.grouping import reads_source_column
 
 
 def _aggregated(e: exp.Expression) -> bool:
@@ -24,7 +25,7 @@ def resolve_group_keys(select: exp.Select, ctx: CompileContext) -> list[exp.Expr
                             "with measure calls yet; use one query per grouping", group)
     projections = select.expressions
     if group.args.get("all"):
-        return [p.unalias().copy() for p in projections if not _aggregated(p)]
+        return [p.unalias().copy() for p in projections if not _aggregated(p) and reads_source_column(p)]
     aliases = {p.alias_or_name: p.unalias() for p in projections if isinstance(p, exp.Alias)}
     keys = []
     for e in group.expressions:

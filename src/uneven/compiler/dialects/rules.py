@@ -15,6 +15,7 @@ from sqlglot.optimizer.annotate_types import annotate_types
 
 from uneven.compiler import sqlx as s
 from uneven.errors import UnsupportedDialectError
+from uneven.sqltree.grouping import reads_source_column
 
 Rule = Callable[[exp.Expression, str], exp.Expression]
 
@@ -45,12 +46,13 @@ def _aggregated(e: exp.Expression) -> bool:
 # --- GROUP BY ALL ----------------------------------------------------------------------------
 
 def expand_group_by_all(tree: exp.Expression, dialect: str) -> exp.Expression:
-    """GROUP BY ALL → GROUP BY every select item that holds no aggregate (as DuckDB reads it)."""
+    """GROUP BY ALL → GROUP BY every select item that holds no aggregate and reads a column (as DuckDB
+    reads it: constant items are left out)."""
     for group in list(tree.find_all(exp.Group)):
         if not group.args.get("all"):
             continue
         select = group.parent
-        keys = [p.unalias().copy() for p in select.expressions if not _aggregated(p)]
+        keys = [p.unalias().copy() for p in select.expressions if not _aggregated(p) and reads_source_column(p)]
         group.set("all", None)
         group.set("expressions", keys)
         if not keys:
