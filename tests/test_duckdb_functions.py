@@ -17,6 +17,7 @@ import pytest
 
 import uneven
 from conftest import make_groups
+from roundtrip import emission_checked
 from uneven.duckdb_functions import install_sql, installed, uninstall
 from uneven.catalog import MEASURES
 from uneven.duckdb_functions.install import INSTALL_SQL, FunctionConflictError, has_macros
@@ -138,8 +139,9 @@ def test_persists_in_a_file_for_a_process_without_uneven(tmp_path):
 
 
 def test_install_sql_is_up_to_date_and_runs_in_plain_duckdb():
-    assert INSTALL_SQL.read_text(encoding="utf-8") == install_sql(), \
-        "sql/duckdb/install.sql is stale: run python -m uneven.duckdb_functions"
+    with emission_checked():  # every macro's text parsed back gives the tree it was printed from
+        assert INSTALL_SQL.read_text(encoding="utf-8") == install_sql(), \
+            "sql/duckdb/install.sql is stale: run python -m uneven.duckdb_functions"
     c = duckdb.connect()
     for statement in INSTALL_SQL.read_text(encoding="utf-8").split(";\n"):
         if statement.strip() and not statement.strip().startswith("--") or "CREATE" in statement:

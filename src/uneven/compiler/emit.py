@@ -29,7 +29,8 @@ null-safe equality in SQLite) appear on both sides and only grouping can differ;
 depends on what the generator sees of an operand (a cast to a floating type around a division or on
 its left operand, which SQLite and PostgreSQL add unless the operand is visibly a double, and a
 parenthesis hides that) is removed from both sides too.
-``generate`` runs it on every compile when ``UNEVEN_CHECK_EMISSION=1`` (tests/conftest.py sets it).
+``generate`` runs it on every compile when ``UNEVEN_CHECK_EMISSION=1`` (off by default in the tests,
+which check goldens, fuzzed shapes and the macros explicitly).
 """
 
 from __future__ import annotations
@@ -118,9 +119,11 @@ def parenthesize_all(tree: exp.Expression, copy: bool = True) -> exp.Expression:
     return _wrap(tree.copy() if copy else tree, lambda p, k, c: isinstance(c, OPERATORS))
 
 
-def to_sql(tree: exp.Expression, dialect: str = "duckdb", **options) -> str:
-    """``tree.sql(dialect, **options)`` after ``parenthesize``: the one way our trees become text."""
-    text = parenthesize(tree).sql(dialect=dialect, **options)
+def to_sql(tree: exp.Expression, dialect: str = "duckdb", copy: bool = True, **options) -> str:
+    """``tree.sql(dialect, **options)`` after ``parenthesize``: the one way our trees become text.
+    ``copy=False`` parenthesizes the tree in place (for large trees built only to be printed, such as
+    the installed macros: the rule is idempotent, so a tree printed twice is unchanged)."""
+    text = parenthesize(tree, copy=copy).sql(dialect=dialect, **options)
     if checking():
         check_emission(tree, text, dialect, **options)
     return text

@@ -228,9 +228,9 @@ def _entity_totals(x: exp.Expression, with_entity: bool) -> exp.Expression:
 
 
 def param_checks(measure: Measure, body: exp.Expression) -> exp.Expression:
-    """CASE WHEN <a parameter is out of range> THEN error('…') … ELSE body END."""
-    case = exp.Case()
-    checks = 0
+    """CASE WHEN <a parameter is out of range> THEN error('…') … ELSE body END (the CASE built directly:
+    Case.when() copies the whole body at every branch)."""
+    ifs = []
     for p in measure.params:
         v = L.var(p.name)
         bad, what = None, None
@@ -245,11 +245,10 @@ def param_checks(measure: Measure, body: exp.Expression) -> exp.Expression:
                 bad = exp.Or(this=bad, expression=s.gt(v.copy(), s.lit(float(measure.max_count))))
                 what += f" and at most {measure.max_count}"
         null = exp.Is(this=v.copy(), expression=exp.Null())
-        case = case.when(null, s.raise_error(f"uneven: {measure.name}(): {p.name} cannot be NULL"))
-        checks += 1
+        ifs.append(exp.If(this=null, true=s.raise_error(f"uneven: {measure.name}(): {p.name} cannot be NULL")))
         if bad is not None:
-            case = case.when(bad, s.raise_error(f"uneven: {measure.name}(): {p.name} must be {what}"))
-    return case.else_(body) if checks else body
+            ifs.append(exp.If(this=bad, true=s.raise_error(f"uneven: {measure.name}(): {p.name} must be {what}")))
+    return exp.Case(ifs=ifs, default=body) if ifs else body
 
 
 def aggregate_overloads(measure: Measure) -> list[tuple[list[str], exp.Expression]]:

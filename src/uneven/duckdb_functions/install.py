@@ -84,7 +84,7 @@ def install_sql(measures: list[Measure] | None = None) -> str:
             "-- Run it in any DuckDB client (e.g. `.read sql/duckdb/install.sql`). Aggregate forms\n"
             "-- (gini(x[, w]) …) work in any GROUP BY; table forms (gini_by(source, value, weight, keys) …)\n"
             "-- run the out-of-core window plan. Note: CREATE OR REPLACE replaces macros of the same name.\n")
-    body = "\n\n".join(to_sql(d.statement) + ";" for d in definitions(
+    body = "\n\n".join(to_sql(d.statement, copy=False) + ";" for d in definitions(
         builtin_measures() if measures is None else measures))
     return head + "\n" + body + "\n"
 
@@ -148,7 +148,7 @@ def install(con: duckdb.DuckDBPyConnection, *, replace: bool = False,
             exp.ColumnDef(this=exp.to_identifier(c), kind=exp.DataType.build("varchar"))
             for c in ("name", "kind", "measure")]), kind="TABLE", exists=True).sql("duckdb"))
         for d in defs:
-            con.execute(to_sql(d.statement))
+            con.execute(to_sql(d.statement, copy=False))
             con.execute(exp.delete(REGISTRY, where=exp.column("name").eq(exp.Literal.string(d.name))).sql("duckdb"))
             con.execute(exp.insert(exp.values([(d.name, d.kind, d.measure)]), REGISTRY).sql("duckdb"))
         con.execute("COMMIT")

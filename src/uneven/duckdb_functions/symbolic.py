@@ -100,8 +100,9 @@ def explore_build(build, param_exprs: list[exp.Expression]) -> exp.Expression:
             raise NeedsConstant("too many branches on run-time parameters")
     if len(paths) == 1:
         return paths[0][1]
-    case = exp.Case()
+    # built directly: Case.when() copies the whole CASE at every branch (quadratic in big macros)
+    ifs = []
     for taken, result in paths:
         conds = [c if v else exp.Not(this=exp.Paren(this=c)) for c, v in taken]
-        case = case.when(s.and_(*conds), result)
-    return case
+        ifs.append(exp.If(this=s.and_(*conds), true=result))
+    return exp.Case(ifs=ifs)
