@@ -966,3 +966,17 @@ def test_never_nan_never_raises_near_the_range():
                     assert value is None or all(math.isfinite(v) for _, v in value), (name, x)
                 else:
                     assert value is None or (type(value) is float and math.isfinite(value)), (name, x, value)
+
+
+def test_standard_error_reference_where_the_measure_is_undefined_or_weights_are_zero():
+    """The SE reference follows the measure contract (shared/DESIGN.md): where the measure is NULL
+    (no positive total) its standard error is NULL, never an exception; rows of weight 0 change
+    nothing; equal values give Gini 0 in every sample, so its standard error is 0 (common practice)."""
+    from uneven import reference_se as S
+    assert S.se("gini", [1.0, 2.0, 3.0], (), [0.0, 0.0, 0.0]) is None
+    assert S.se("lorenz", [-1.0, -2.0, 1.0], (0.4,), [1.0, 1.0, 1.0]) is None
+    assert S.ci("top_share", [-1.0, -2.0, 1.0], (0.1,), [1.0, 1.0, 1.0]) == (None, None)
+    assert S.se("generalized_lorenz", [-1.0, -2.0, 1.0], (0.5,), [1.0, 1.0, 1.0]) is None
+    assert S.se("gini", [1.0, 2.0, 3.0, 4.0], (), [1.0, 0.0, 2.0, 1.0]) == \
+        S.se("gini", [1.0, 3.0, 4.0], (), [1.0, 2.0, 1.0])
+    assert S.se("gini", [5.0, 5.0, 5.0, 5.0], (), [1.0, 2.0, 1.0, 3.0]) == 0.0

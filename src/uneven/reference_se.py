@@ -56,6 +56,8 @@ def _gini(x, w):
     C, S = np.cumsum(ws), np.cumsum(ws * xs)
     W, T = ws.sum(), (ws * xs).sum()
     G = R.gini(x, w)
+    if G is None:  # no positive total: no estimate, so no standard error (NULL, as the SQL gives)
+        return None, None
     z = (2 * C * xs - 2 * S + T - W * xs - G * (T + W * xs)) / (W * T)
     return G, _unsort(z, o)
 
@@ -146,6 +148,8 @@ def influence(name: str, x, params=(), w=None):
     if name == "generalized_lorenz":
         p = params[0]
         L, zL = _lorenz(x, p, w)
+        if L is None or zL is None:  # no positive total: its linearization is undefined
+            return None, None
         x_, w_ = np.asarray(x, float), (np.ones(len(x)) if w is None else np.asarray(w, float))
         W, T = w_.sum(), (w_ * x_).sum()
         GL = L * T / W
@@ -185,7 +189,27 @@ def design_variance(u, strata=None, psu=None) -> float | None:
     return total
 
 
+def _defined(name: str, x, params, w) -> bool:
+    """The measure itself has a value here (a positive total, x in its domain): where it is NULL,
+    so is its standard error."""
+    if name not in SE_MEASURES:
+        return False
+    return R.REFERENCES[name](list(x), *params, None if w is None else list(w)) is not None
+
+
+def _kept(x, w, strata, psu):
+    """Rows with weight 0 change nothing and are dropped (the measure contract), before n is counted."""
+    if w is None:
+        return x, w, strata, psu
+    keep = [i for i, wi in enumerate(w) if wi != 0]
+    pick = (lambda v: None if v is None else [v[i] for i in keep])
+    return pick(x), pick(w), pick(strata), pick(psu)
+
+
 def se(name: str, x, params=(), w=None, strata=None, psu=None) -> float | None:
+    x, w, strata, psu = _kept(list(x), None if w is None else list(w), strata, psu)
+    if not x or not _defined(name, x, params, w):
+        return None
     est, z = influence(name, x, params, w)
     if est is None or z is None or len(x) < 2:
         return None
@@ -195,8 +219,10 @@ def se(name: str, x, params=(), w=None, strata=None, psu=None) -> float | None:
 
 
 def ci(name: str, x, params=(), w=None, level=0.95, strata=None, psu=None):
-    est = influence(name, x, params, w)[0]
     sd = se(name, x, params, w, strata, psu)
+    if sd is None:
+        return None, None
+    est = influence(name, x, params, w)[0]
     if est is None or sd is None:
         return None, None
     zc = NormalDist().inv_cdf(0.5 + level / 2)
