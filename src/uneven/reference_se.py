@@ -69,6 +69,8 @@ def _lorenz(x, p, w):
     C = np.cumsum(ws)
     W, T = C[-1], (ws * xs).sum()
     L, Q = R.lorenz(x, p, w), R.quantile_w(x, p, w)
+    if L is None or Q is None:  # no positive total: no linearization
+        return None, None
     below = (C <= p * W).astype(float)
     z = (p * Q + (xs - Q) * below - L * xs) / T
     return L, _unsort(z, o)
