@@ -56,6 +56,8 @@ def compile_tree(tree: exp.Expression, ctx: CompileContext) -> exp.Expression:
     scopes: dict[int, tuple[exp.Select, list]] = {}
     nodes = find_calls(tree)
     selects = [check_position(node, ctx) for node in nodes]  # where calls stand, before their arguments
+    for node in nodes:  # each call's own argument errors first (a parameter that is not constant)
+        read_call(node, ctx)
     for select in {id(sel): sel for sel in selects}.values():
         prepare_scope(select, ctx)
     for node, select in zip(nodes, selects):
