@@ -44,8 +44,8 @@ PARAMS = {
     "eps": ["0", "0.5", "1", "2", "1.5", "0.25 + 0.25", "CAST(1 AS DOUBLE)"],
     "count": ["1", "2", "3", "1 + 1"],
 }
-# forms whose value depends on how constants are folded (integer division, casts to INTEGER);
-# compiled SQL and oracle must agree on them once constants are evaluated the engine's way
+# forms whose value depends on how constants are folded (integer division, casts to INTEGER), drawn by
+# default: compiled SQL and oracle agree on them since constants are evaluated the engine's way
 WIDE_PARAMS = {
     "fraction": ["1/4", "CAST(0.5 AS INTEGER)", "CAST(0.4 AS INTEGER)", "2 * 0.1", "1/2"],
     "alpha": ["CAST(1.6 AS INTEGER)", "4/2"],

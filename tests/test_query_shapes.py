@@ -43,7 +43,7 @@ CI_SEED = 20261203
 CI_MAX_MEASURES = 2  # compiling costs ~0.1 s per measure call; the slow run draws up to 3
 REL = 1e-9  # the contract's relative tolerance
 NEAR_ZERO = 1e-12  # absolute floor for an expected exact zero (e.g. Gini of equal values: 0 vs 1e-17)
-WIDE_PARAMS = os.environ.get("UNEVEN_WIDE_PARAMS") == "1"  # constant forms that depend on folding
+WIDE_PARAMS = os.environ.get("UNEVEN_WIDE_PARAMS", "1") == "1"  # casts, integer division (0 turns off)
 SE_MEASURES = os.environ.get("UNEVEN_FUZZ_SE") == "1"  # standard errors too (not exact: see the report)
 
 
