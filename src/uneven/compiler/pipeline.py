@@ -38,12 +38,14 @@ def _check_not_correlated(select: exp.Select, calls, ctx: CompileContext) -> Non
                             calls[0].measure.name)
 
 
-def prepare_scope(select: exp.Select, ctx: CompileContext) -> None:
+def prepare_scope(select: exp.Select, nodes: list, ctx: CompileContext) -> None:
     """Refuse the clauses the compiler cannot carry (clauses.py), and read a random or volatile source
     once (materialize.py), before the calls' arguments are read."""
     check_clauses(select, ctx)
     volatile = volatile_outside_sources(select)
     if volatile is not None:
+        for node in nodes:  # a call's own argument error comes first (ge(x, 1 + random()): not a constant)
+            read_call(node, ctx)
         raise ctx.error(UnsupportedSqlError, f"{text(volatile)} inside an aggregate, a measure call or a group "
                         "key would be evaluated anew by each pass of the compiled query; compute it in a "
                         f"subquery in FROM (SELECT …, {text(volatile)} AS r FROM …): the compiler then "
@@ -56,10 +58,8 @@ def compile_tree(tree: exp.Expression, ctx: CompileContext) -> exp.Expression:
     scopes: dict[int, tuple[exp.Select, list]] = {}
     nodes = find_calls(tree)
     selects = [check_position(node, ctx) for node in nodes]  # where calls stand, before their arguments
-    for node in nodes:  # each call's own argument errors first (a parameter that is not constant)
-        read_call(node, ctx)
     for select in {id(sel): sel for sel in selects}.values():
-        prepare_scope(select, ctx)
+        prepare_scope(select, [n for n, sel in zip(nodes, selects) if sel is select], ctx)
     for node, select in zip(nodes, selects):
         scopes.setdefault(id(select), (select, []))[1].append(read_call(node, ctx))
     # innermost scopes first; among equals, in the order they are written
