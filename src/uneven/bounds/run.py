@@ -43,13 +43,13 @@ SHARE_SCALE = {"gini", "gini_corrected", "lorenz", "bottom_share", "top_share", 
 def share_outputs(sql: str) -> set[str]:
     """Output names of the outermost SELECT's items that are calls of share-scale measures."""
     from uneven.compiler.parse import parse_one_statement
-    from uneven.compiler.scope import _output_aliases
+    from uneven.compiler.scope import output_aliases
     tree = parse_one_statement(sql, "duckdb")
     select = tree if isinstance(tree, exp.Select) else tree.find(exp.Select)
     if select is None:
         return set()
     out = set()
-    for item, name in zip(select.expressions, _output_aliases(select)):
+    for item, name in zip(select.expressions, output_aliases(select)):
         node = item.unalias()
         node = node.this if isinstance(node, exp.Filter) else node
         if isinstance(node, exp.Anonymous) and node.name.lower() in SHARE_SCALE:

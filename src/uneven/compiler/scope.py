@@ -164,7 +164,6 @@ def output_aliases(select: exp.Select) -> list[str]:
     return names
 
 
-_output_aliases = output_aliases  # the name bounds/run.py imports
 
 
 def _is_output_ref(node: exp.Expression, outputs: list[str]) -> bool:
