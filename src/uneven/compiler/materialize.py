@@ -23,6 +23,7 @@ from uneven.compiler.keys import resolve_group_keys
 from uneven.compiler.passes.source import cte, table
 from uneven.compiler.scope import output_aliases
 from uneven.errors import UnsupportedSqlError
+from uneven.sqltree.grouping import scope_columns
 
 _SCOPE_PARTS = ("expressions", "group", "having", "qualify", "order", "distinct")
 
@@ -56,20 +57,18 @@ def materialize_scope(select: exp.Select, ctx: CompileContext) -> bool:
     # messages and output names read as written), a qualified t.x becomes the column "t.x"
     seen: set[tuple[str, bool]] = set()
     projections: list[exp.Expression] = []
-    for arg in _SCOPE_PARTS:
-        value = select.args.get(arg)
-        for part in (value if isinstance(value, list) else [value] if value is not None else []):
-            for col in list(_scope_columns(part)):
-                if not col.table and arg in ("having", "qualify", "order") and col.name.lower() in outputs:
-                    continue  # a reference to an output column, resolved by the final SELECT
-                kept = f"{col.table}.{col.name}" if col.table else col.name
-                quoted = bool(col.table) or col.this.quoted
-                k = (kept if quoted else kept.lower(), quoted)
-                if k not in seen:
-                    seen.add(k)
-                    projections.append(exp.alias_(col.copy(), exp.to_identifier(kept, quoted=quoted)))
-                if col.table:
-                    col.replace(exp.column(exp.to_identifier(kept, quoted=True)))
+    for arg, part in _scope_parts(select):
+        for col in list(scope_columns(part)):
+            if not col.table and arg in ("having", "qualify", "order") and col.name.lower() in outputs:
+                continue  # a reference to an output column, resolved by the final SELECT
+            kept = f"{col.table}.{col.name}" if col.table else col.name
+            quoted = bool(col.table) or col.this.quoted
+            k = (kept if quoted else kept.lower(), quoted)
+            if k not in seen:
+                seen.add(k)
+                projections.append(exp.alias_(col.copy(), exp.to_identifier(kept, quoted=quoted)))
+            if col.table:
+                col.replace(exp.column(exp.to_identifier(kept, quoted=True)))
     if not projections:
         projections.append(exp.alias_(exp.Literal.number(1), "_uv_c0", quoted=True))
 
@@ -91,11 +90,12 @@ def materialize_scope(select: exp.Select, ctx: CompileContext) -> bool:
     return True
 
 
-def _scope_columns(part: exp.Expression):
-    """Columns of the scope itself (not of subqueries inside it)."""
-    for node in part.walk(prune=lambda n: isinstance(n, (exp.Select, exp.Subquery)) and n is not part):
-        if isinstance(node, exp.Column) and not isinstance(node.this, exp.Star):
-            yield node
+def _scope_parts(select: exp.Select):
+    """(clause, expression) for every expression of the scope's own clauses (select list, GROUP BY …)."""
+    for arg in _SCOPE_PARTS:
+        value = select.args.get(arg)
+        for part in (value if isinstance(value, list) else [value] if value is not None else []):
+            yield arg, part
 
 
 def _source_names(select: exp.Select) -> set[str]:
@@ -110,16 +110,14 @@ def _source_names(select: exp.Select) -> set[str]:
 def _check_no_outer_reads(select: exp.Select, visible: set[str], ctx: CompileContext) -> None:
     """A subquery in the select list, HAVING … that reads a column of the scope's sources by its table
     name would lose it once the sources move to the CTE."""
-    for arg in _SCOPE_PARTS:
-        value = select.args.get(arg)
-        for part in (value if isinstance(value, list) else [value] if value is not None else []):
-            for sub in part.find_all(exp.Select):
-                inner = {t.alias_or_name.lower() for t in sub.find_all(exp.Table)}
-                for col in sub.find_all(exp.Column):
-                    if col.table and col.table.lower() in visible and col.table.lower() not in inner:
-                        raise ctx.error(UnsupportedSqlError, "a subquery that reads a column of a sampled or "
-                                        f"volatile source ({text(col)}) cannot be combined with measure "
-                                        "calls; join its result instead", col)
+    for _, part in _scope_parts(select):
+        for sub in part.find_all(exp.Select):
+            inner = {t.alias_or_name.lower() for t in sub.find_all(exp.Table)}
+            for col in sub.find_all(exp.Column):
+                if col.table and col.table.lower() in visible and col.table.lower() not in inner:
+                    raise ctx.error(UnsupportedSqlError, "a subquery that reads a column of a sampled or "
+                                    f"volatile source ({text(col)}) cannot be combined with measure "
+                                    "calls; join its result instead", col)
 
 
 def _place_sample(body: exp.Select, ctx: CompileContext) -> None:

@@ -4,5 +4,6 @@ Modules here import sqlglot, duckdb and ``uneven.errors`` only, never the compil
 so every other layer (compiler, catalog, builder, tests' oracle) may use them.
 
 * ``constants``: the value of a constant parameter expression, with the meaning the engine gives it.
-* ``grouping``: which select items GROUP BY ALL groups by (DuckDB leaves constant items out).
+* ``grouping``: a scope's own column references (scope_columns) and which select items GROUP BY ALL
+  groups by (DuckDB leaves constant items out).
 """
