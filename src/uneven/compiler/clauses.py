@@ -20,6 +20,7 @@ from __future__ import annotations
 from sqlglot import exp
 
 from uneven.compiler.context import CompileContext, span
+from uneven.sqltree.volatile import is_volatile_call
 from uneven.errors import UnsupportedSqlError
 
 CARRIED = "carried"
@@ -135,10 +136,6 @@ SAMPLE_METHODS = {
 # grammar); Trino, BigQuery and Snowflake do not promise one evaluation either.
 MATERIALIZING = ("duckdb", "postgres", "sqlite")
 
-# functions whose value changes from one evaluation to the next (or that change state)
-VOLATILE_CLASSES = (exp.Rand, exp.Randn, exp.Randstr, exp.Uuid, exp.NextValueFor)
-VOLATILE_NAMES = {"random", "rand", "randn", "uuid", "gen_random_uuid", "uuid_generate_v4", "setseed",
-                  "randomblob", "random_bytes", "nextval", "newid", "uniform", "normal", "random_normal"}
 
 
 def refuse(ctx: CompileContext, what: str, node: exp.Expression) -> UnsupportedSqlError:
@@ -244,12 +241,6 @@ def check_sample(sample: exp.TableSample, ctx: CompileContext) -> None:
         raise ctx.error(UnsupportedSqlError, f"sampling {method} by {kind} cannot be compiled for {ctx.dialect} "
                         f"(it takes: {', '.join(f'{m} by ' + ' or '.join(k) for m, k in methods.items())})",
                         sample)
-
-
-def is_volatile_call(node: exp.Expression) -> bool:
-    if isinstance(node, VOLATILE_CLASSES):
-        return True
-    return isinstance(node, exp.Anonymous) and node.name.lower() in VOLATILE_NAMES
 
 
 def volatile_reason(select: exp.Select) -> exp.Expression | None:

@@ -6,4 +6,5 @@ so every other layer (compiler, catalog, builder, tests' oracle) may use them.
 * ``constants``: the value of a constant parameter expression, with the meaning the engine gives it.
 * ``grouping``: a scope's own column references (scope_columns) and which select items GROUP BY ALL
   groups by (DuckDB leaves constant items out).
+* ``volatile``: the functions whose value changes between evaluations (random(), uuid(), nextval …).
 """

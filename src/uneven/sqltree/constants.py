@@ -37,16 +37,14 @@ from sqlglot import exp
 from sqlglot.errors import ErrorLevel, SqlglotError
 from sqlglot.optimizer.annotate_types import annotate_types
 
+from uneven.sqltree.volatile import CLOCK_CLASSES, CLOCK_NAMES, VOLATILE_NAMES, is_volatile_call
+
 # deterministic scalar functions a constant parameter may call, by sqlglot node (SQL name shown in messages)
 ALLOWED_FUNCTIONS: dict[type[exp.Expression], str] = {
     exp.Abs: "abs", exp.Round: "round", exp.Pow: "power", exp.Sqrt: "sqrt", exp.Ln: "ln", exp.Exp: "exp",
     exp.Least: "least", exp.Greatest: "greatest", exp.Floor: "floor", exp.Ceil: "ceil",
 }
 _OPERATORS = (exp.Paren, exp.Neg, exp.Add, exp.Sub, exp.Mul, exp.Div, exp.IntDiv, exp.Mod)
-# functions whose value changes from call to call (or with the clock): never a constant
-_VOLATILE_NODES = (exp.Rand, exp.Randn, exp.Uuid, exp.CurrentDate, exp.CurrentTimestamp, exp.CurrentTime)
-_VOLATILE_NAMES = {"random", "rand", "randn", "uuid", "gen_random_uuid", "setseed", "now", "nextval",
-                   "current_timestamp", "current_date", "get_current_time", "clock_timestamp"}
 # read dialects whose CAST of a fraction to an integer type truncates toward zero (Spark, SQLite:
 # checked against the engines in tests/test_constants.py; Hive, Databricks, T-SQL: from memory)
 TRUNCATING_INTEGER_CASTS = frozenset({"spark", "spark2", "databricks", "hive", "sqlite", "tsql"})
@@ -104,7 +102,8 @@ def check_constant(node: exp.Expression, read: str = "duckdb") -> None:
         raise ConstantError(f"must be a numeric constant, not a window function ({shown})", node)
     if isinstance(node, exp.AggFunc):
         raise ConstantError(f"must be a numeric constant, not an aggregate ({shown})", node)
-    if isinstance(node, _VOLATILE_NODES) or (isinstance(node, exp.Func) and _function_name(node) in _VOLATILE_NAMES):
+    if is_volatile_call(node) or isinstance(node, CLOCK_CLASSES) or (
+            isinstance(node, exp.Func) and _function_name(node) in VOLATILE_NAMES | CLOCK_NAMES):
         raise ConstantError(f"must be a numeric constant; {_function_name(node)}() gives a different value "
                             "on each call", node)
     if isinstance(node, exp.Func):
