@@ -1,0 +1,11 @@
+"""Measures from bracket tables (published tabulations: from–to, units, total per bracket).
+
+table.py     one group's brackets: checks, identical brackets added, overlapping ones joined
+bounds.py    certified bounds (every unit at its bracket's mean / split between the ends)
+estimate.py  the point estimate: linear densities within brackets, a Pareto tail on an open top
+run.py       from_brackets(), merge_brackets(): reading the table on DuckDB, one row per group
+"""
+
+from uneven.brackets.run import CAUTION, from_brackets, merge_brackets
+
+__all__ = ["from_brackets", "merge_brackets", "CAUTION"]

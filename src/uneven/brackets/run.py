@@ -1,0 +1,222 @@
+"""``from_brackets`` and ``merge_brackets``: measures with bounds from bracket tables.
+
+The bracket table is read with one SELECT on DuckDB (any relation: a table, a file, a query, a
+DataFrame the caller holds); the bounds and the point estimate are computed in Python per group,
+because a group has tens of brackets, not millions of rows, and the point estimate solves per
+bracket (a density's shape, a Pareto index) and per measure (which bracket holds p).
+"""
+
+from __future__ import annotations
+
+import inspect
+import math
+
+import duckdb
+import numpy as np
+import pandas as pd
+import sqlglot
+from sqlglot import exp
+
+from uneven.brackets import bounds as bd
+from uneven.brackets.estimate import Estimate
+from uneven.brackets.table import check_brackets, join_overlapping
+from uneven.compiler import sqlx as s
+from uneven.compiler.emit import to_sql
+from uneven.engine.frames import register_caller_frames
+from uneven.engine.runner import connect, execute_df
+from uneven.errors import InputDataError, MeasureArgumentError, SqlParseError, UnevenError
+
+# measure name → number of parameters (all fractions in [0, 1])
+MEASURES = {"gini": 0, "lorenz": 1, "bottom_share": 1, "top_share": 1, "palma": 0, "s80s20": 0,
+            "quantile_w": 1, "percentile_ratio": 2, "mean": 0}
+DEFAULT_MEASURES = ("gini", "top_share(0.1)", "bottom_share(0.4)", "palma", "s80s20", "quantile_w(0.5)")
+CAUTION = ("Figures from a bracket table are approximate: the bounds hold for every distribution the table "
+           "allows, the point estimate is one such distribution (linear within brackets, a Pareto tail on "
+           "an open top bracket), not the data.")
+_COLUMNS = ("low", "high", "units", "total")
+
+
+def _parse(text, what: str) -> exp.Expression:
+    if not isinstance(text, str) or not text.strip():
+        raise MeasureArgumentError(f"from_brackets: {what} must be a column name or SQL expression, got {text!r}")
+    try:
+        return sqlglot.parse_one(text, read="duckdb")
+    except sqlglot.errors.ParseError as e:
+        raise SqlParseError(f"from_brackets: cannot read the {what} {text!r}: {str(e).splitlines()[0]}") from None
+
+
+def _relation(text) -> exp.From:
+    try:
+        return exp.select("*").from_(text, dialect="duckdb").args["from_"]
+    except (sqlglot.errors.ParseError, TypeError, ValueError):
+        if isinstance(text, str) and text.strip() and not any(ch.isspace() for ch in text):
+            return exp.From(this=exp.Table(this=exp.to_identifier(text, quoted=True)))
+        raise SqlParseError(f"from_brackets: cannot read the relation {text!r} (a table name, a quoted file "
+                            "path, a table function or a parenthesised query with an alias)") from None
+
+
+def read_measure(text: str) -> tuple[str, str, tuple[float, ...]]:
+    """'top_share(0.1)' or 'gini AS g' → (label, name, params)."""
+    node = _parse(text, "measure")
+    label = node.alias if isinstance(node, exp.Alias) else text.strip()
+    call = node.unalias()
+    if isinstance(call, exp.Column):
+        name, args = call.name.lower(), []
+    elif isinstance(call, (exp.Anonymous, exp.Func)):
+        name = (call.name if isinstance(call, exp.Anonymous) else call.sql_name()).lower()
+        args = call.expressions if isinstance(call, exp.Anonymous) else [a for a in call.args.values()
+                                                                         if isinstance(a, exp.Expression)]
+    else:
+        name, args = "", []
+    if name not in MEASURES:
+        raise MeasureArgumentError(f"from_brackets: {text!r} cannot be computed from brackets (these can: "
+                                   f"{', '.join(MEASURES)})")
+    if len(args) != MEASURES[name]:
+        raise MeasureArgumentError(f"from_brackets: {name} takes {MEASURES[name]} parameter(s), got {len(args)}")
+    params = []
+    for arg in args:
+        try:
+            v = float(arg.sql())
+        except ValueError:
+            raise MeasureArgumentError(f"from_brackets: {name}: a parameter must be a number, got {arg.sql()}") from None
+        if not 0 <= v <= 1:
+            raise MeasureArgumentError(f"from_brackets: {name}: p must be a fraction in [0, 1], got {v:g}")
+        params.append(v)
+    return label, name, tuple(params)
+
+
+def measure_group(br, est: Estimate, name: str, params) -> tuple[float, float, float]:
+    """(point, lo, hi) of one measure for one group's brackets."""
+    if name == "gini":
+        return (est.gini(), *bd.gini_interval(br))
+    if name in ("lorenz", "bottom_share"):
+        return (est.lorenz(params[0]), *bd.lorenz_interval(br, params[0]))
+    if name == "top_share":
+        return (est.top_share(params[0]), *bd.top_interval(br, params[0]))
+    if name == "palma":
+        return (est.top_share(0.1) / est.lorenz(0.4) if est.lorenz(0.4) > 0 else math.nan,
+                *bd.ratio_interval(bd.top_interval(br, 0.1), bd.lorenz_interval(br, 0.4)))
+    if name == "s80s20":
+        return (est.top_share(0.2) / est.lorenz(0.2) if est.lorenz(0.2) > 0 else math.nan,
+                *bd.ratio_interval(bd.top_interval(br, 0.2), bd.lorenz_interval(br, 0.2)))
+    if name == "quantile_w":
+        return (est.quantile(params[0]), *bd.quantile_interval(br, params[0]))
+    if name == "percentile_ratio":
+        hi_q, lo_q = est.quantile(params[0]), est.quantile(params[1])
+        return (hi_q / lo_q if lo_q > 0 else math.nan,
+                *bd.ratio_interval(bd.quantile_interval(br, params[0]), bd.quantile_interval(br, params[1])))
+    if name == "mean":
+        return (est.mean(), *bd.mean_interval(br))
+    raise AssertionError(name)
+
+
+def _read(relation, columns: dict, by, con, frame) -> tuple[pd.DataFrame, list[str]]:
+    """SELECT by…, low, high, units, total FROM relation (values cast to DOUBLE)."""
+    keys = [_parse(k, "group key") for k in ([by] if isinstance(by, str) else list(by or ()))]
+    names = [k.alias_or_name or f"key{i + 1}" for i, k in enumerate(keys)]
+    items = [s.alias(k.unalias(), f"_uv_by{i + 1}") for i, k in enumerate(keys)]
+    for role in _COLUMNS:
+        items.append(s.alias(s.cast_double(_parse(columns[role], f"{role} column").unalias()), f"_uv_{role}"))
+    select = exp.Select(expressions=items)
+    select.set("from_", _relation(relation))
+    connection = connect(con)
+    sql = to_sql(select)
+    registered = register_caller_frames(connection, sql, frame)
+    try:
+        df = execute_df(connection, sql)
+    finally:
+        for name in registered:
+            connection.unregister(name)
+        if con is None:
+            connection.close()
+    return df, names
+
+
+def _group_label(names, values) -> str:
+    return ", ".join(f"{n} = {v!r}" for n, v in zip(names, values))
+
+
+def _groups(df: pd.DataFrame, names):
+    keys = [f"_uv_by{i + 1}" for i in range(len(names))]
+    if not keys:
+        yield (), df
+        return
+    for values, part in df.groupby(keys, dropna=False, sort=True):
+        yield (values if isinstance(values, tuple) else (values,)), part
+
+
+def from_brackets(relation, measures=DEFAULT_MEASURES, *, low: str = "low", high: str = "high",
+                  units: str = "units", total: str = "total", by=(),
+                  con: duckdb.DuckDBPyConnection | None = None) -> pd.DataFrame:
+    """Inequality measures with certified bounds and a point estimate from a bracket table.
+
+    ``relation``: the bracket table (table name, quoted file path, table function, parenthesised query
+    with an alias, or a DataFrame the caller holds by that name). One row per bracket: ``low`` and
+    ``high`` its ends (high NULL: the open top bracket), ``units`` how many units (people, households,
+    or a weighted count), ``total`` the sum of their values (NULL when not published). ``by``: group
+    keys; rows of a group naming the same bracket add up, so ``by`` a subset of the table's keys rolls
+    the table up. ``measures``: e.g. ``["gini", "top_share(0.1) AS top10", "quantile_w(0.5)"]``
+    (gini, lorenz(p), bottom_share(p), top_share(p), palma, s80s20, quantile_w(p),
+    percentile_ratio(hi, lo), mean).
+
+    Per group: the keys, ``units``, ``brackets``, ``missing_totals`` (brackets without a total: their
+    bounds use the bracket's ends, their point estimate its midpoint), ``open_top``, then per measure
+    its point estimate, ``<label>_lo`` and ``<label>_hi`` (inf where unlimited).
+    """
+    calls = [read_measure(m) for m in ([measures] if isinstance(measures, str) else list(measures))]
+    if not calls:
+        raise MeasureArgumentError("from_brackets needs at least one measure")
+    labels = [c[0] for c in calls]
+    if len(set(labels)) != len(labels):
+        raise MeasureArgumentError("from_brackets: two measures have the same label; name them with AS")
+    frame = inspect.currentframe().f_back
+    df, names = _read(relation, {"low": low, "high": high, "units": units, "total": total}, by, con, frame)
+    rows = []
+    for values, part in _groups(df, names):
+        br = check_brackets(part["_uv_low"], part["_uv_high"], part["_uv_units"], part["_uv_total"],
+                            _group_label(names, values))
+        est = Estimate(br)
+        row = dict(zip(names, values))
+        row.update(units=float(br.units.sum()), brackets=len(br.units), missing_totals=br.missing,
+                   open_top=br.open_top)
+        for label, name, params in calls:
+            point, lo, hi = measure_group(br, est, name, params)
+            row.update({label: _num(point), f"{label}_lo": _num(lo), f"{label}_hi": _num(hi)})
+        rows.append(row)
+    if not rows:
+        raise InputDataError("from_brackets: the bracket table has no rows")
+    out = pd.DataFrame(rows)
+    out.attrs["uneven"] = {"method": "brackets", "caution": CAUTION}
+    return out
+
+
+def _num(v: float):
+    return None if v is None or (isinstance(v, float) and math.isnan(v)) else float(v)
+
+
+def merge_brackets(parts, *, low: str = "low", high: str = "high", units: str = "units", total: str = "total",
+                   by=(), con: duckdb.DuckDBPyConnection | None = None) -> pd.DataFrame:
+    """Combine bracket tables of disjoint parts (regions, years' halves, sources) into one table per
+    group of ``by``: brackets with the same ends add their units and totals (a total is missing
+    when any part's is); brackets that overlap without being equal are joined into one bracket
+    from the lowest low to the highest high, as a stored summary's overlapping bins are. The result
+    has the columns ``by``…, low, high, units, total, ready for ``from_brackets``."""
+    items = list(parts) if isinstance(parts, (list, tuple)) else [parts]
+    if not items:
+        raise UnevenError("merge_brackets: no tables given")
+    frame = inspect.currentframe().f_back
+    cols = {"low": low, "high": high, "units": units, "total": total}
+    frames, names = [], None
+    for part in items:
+        df, names = _read(part, cols, by, con, frame)
+        frames.append(df)
+    df = pd.concat(frames, ignore_index=True)
+    out = []
+    for values, part in _groups(df, names):
+        lo = part["_uv_low"].to_numpy(float)
+        hi = np.where(np.isnan(part["_uv_high"].to_numpy(float)), np.inf, part["_uv_high"].to_numpy(float))
+        joined = join_overlapping(lo, hi, part["_uv_units"].to_numpy(float), part["_uv_total"].to_numpy(float))
+        for a, c, n, t in zip(*joined):
+            out.append({**dict(zip(names, values)), "low": a, "high": None if math.isinf(c) else c,
+                        "units": n, "total": None if math.isnan(t) else t})
+    return pd.DataFrame(out, columns=[*names, "low", "high", "units", "total"])

@@ -1,0 +1,136 @@
+"""One group's bracket table as arrays, its checks, and the joining of overlapping brackets.
+
+A bracket b holds ``units`` n_b ≥ 0 (a count or a weighted count) whose values lie in
+[low_b, high_b] (published as "from … to"; high_b = +inf for an open top bracket) and whose values
+add up to ``total`` t_b (NaN when the table does not give it). Values are taken to be ≥ 0.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from uneven.errors import InputDataError
+
+TOTAL_SLACK = 1e-9  # a total may exceed [low·n, high·n] by this relative amount (rounding of published totals)
+
+
+@dataclass
+class Brackets:
+    """One group's brackets, sorted by ``low``, brackets with no units left out."""
+
+    low: np.ndarray
+    high: np.ndarray      # +inf for the open top bracket
+    units: np.ndarray
+    total: np.ndarray     # NaN where missing
+
+    @property
+    def known(self) -> np.ndarray:
+        return ~np.isnan(self.total)
+
+    @property
+    def open_top(self) -> bool:
+        return bool(len(self.high)) and math.isinf(self.high[-1])
+
+    @property
+    def missing(self) -> int:
+        return int((~self.known).sum())
+
+
+def _where(group: str) -> str:
+    return f" (group {group})" if group else ""
+
+
+def _bracket(low: float, high: float) -> str:
+    hi = "open" if math.isinf(high) else f"{high:g}"
+    return f"[{low:g}, {hi})"
+
+
+def check_brackets(low, high, units, total, group: str = "") -> Brackets:
+    """Validate one group's rows (any order) and return them sorted, empty brackets dropped.
+
+    Rows with the same (low, high) are one bracket: their units and totals add (a total is missing
+    when any part's is). Raises InputDataError naming the group and the bracket for: a missing or
+    non-finite low, a negative low, high ≤ low, an open high anywhere but the top, brackets that
+    overlap, missing/negative/non-finite units, a total outside [low·n, high·n], and an open top
+    bracket with units but no total (its mean, hence every bound, would be unlimited).
+    """
+    low = np.array(low, dtype=float)
+    high = np.array(high, dtype=float)
+    units = np.array(units, dtype=float)
+    total = np.array(total, dtype=float)
+    where = _where(group)
+    if len(low) == 0:
+        raise InputDataError(f"from_brackets: no brackets{where}")
+    for i in range(len(low)):
+        lo, hi, n, t = low[i], high[i], units[i], total[i]
+        if math.isnan(lo) or math.isinf(lo):
+            raise InputDataError(f"from_brackets: a bracket's low end must be a finite number, got {lo}{where}")
+        if lo < 0:
+            raise InputDataError(f"from_brackets: bracket {_bracket(lo, hi)} starts below 0{where}; bracket "
+                                 "tables of negative values are not supported")
+        if math.isnan(hi) or (math.isinf(hi) and hi < 0):
+            hi = high[i] = math.inf
+        if hi <= lo:
+            raise InputDataError(f"from_brackets: bracket from {lo:g} to {hi:g} ends where it starts or "
+                                 f"before{where}: the high end must be above the low end")
+        if math.isnan(n) or math.isinf(n) or n < 0:
+            raise InputDataError(f"from_brackets: bracket {_bracket(lo, hi)} has units {n}{where}: units "
+                                 "must be a finite number ≥ 0")
+        if math.isinf(t):
+            raise InputDataError(f"from_brackets: bracket {_bracket(lo, hi)} has a total of {t}{where}")
+        if not math.isnan(t):
+            slack = TOTAL_SLACK * max(abs(t), abs(lo * n), 1.0)
+            top = hi * n if not math.isinf(hi) else math.inf
+            if t < lo * n - slack or (n == 0 and t > slack) or t > top + slack:
+                raise InputDataError(
+                    f"from_brackets: bracket {_bracket(lo, hi)} has {n:g} units and a total of {t:g}{where}: "
+                    f"the total must lie between low·units = {lo * n:g} and high·units = "
+                    f"{'unlimited' if math.isinf(top) else f'{top:g}'}")
+    order = np.lexsort((high, low))
+    low, high, units, total = low[order], high[order], units[order], total[order]
+    # rows naming the same bracket add up
+    keep_low, keep_high, keep_n, keep_t = [], [], [], []
+    for i in range(len(low)):
+        if keep_low and low[i] == keep_low[-1] and high[i] == keep_high[-1]:
+            keep_n[-1] += units[i]
+            keep_t[-1] = keep_t[-1] + total[i]  # NaN if either is missing
+            continue
+        keep_low.append(low[i]), keep_high.append(high[i]), keep_n.append(units[i]), keep_t.append(total[i])
+    low, high, units, total = map(np.array, (keep_low, keep_high, keep_n, keep_t))
+    for i in range(1, len(low)):
+        if low[i] < high[i - 1]:
+            raise InputDataError(
+                f"from_brackets: brackets {_bracket(low[i - 1], high[i - 1])} and {_bracket(low[i], high[i])} "
+                f"overlap{where}. A table's brackets must not overlap; tables with different bracket edges "
+                "are combined with merge_brackets, which joins overlapping brackets into one")
+    if any(math.isinf(h) for h in high[:-1]):
+        raise InputDataError(f"from_brackets: only the top bracket may be open (no high end){where}")
+    if math.isinf(high[-1]) and math.isnan(total[-1]) and units[-1] > 0:
+        raise InputDataError(f"from_brackets: the open top bracket {_bracket(low[-1], high[-1])} has no "
+                             f"total{where}: without it the top bracket's mean, and so every bound, is "
+                             "unlimited; give its total (or a high end)")
+    used = units > 0
+    if not used.any():
+        raise InputDataError(f"from_brackets: every bracket has 0 units{where}")
+    return Brackets(low[used], high[used], units[used], total[used])
+
+
+def join_overlapping(low, high, units, total):
+    """Join brackets whose ranges overlap into one (their islands): low the smallest, high the
+    largest, units and totals added (missing if any part's is). Brackets that only touch stay apart.
+    The same rule joins a stored summary's overlapping bins (bounds/lower.py)."""
+    order = np.lexsort((np.asarray(high, float), np.asarray(low, float)))
+    out: list[list[float]] = []
+    for i in order:
+        lo, hi, n, t = float(low[i]), float(high[i]), float(units[i]), float(total[i])
+        if out and lo < out[-1][1]:
+            last = out[-1]
+            last[1] = max(last[1], hi)
+            last[2] += n
+            last[3] += t
+            continue
+        out.append([lo, hi, n, t])
+    return [np.array([r[j] for r in out], dtype=float) for j in range(4)] if out else [np.array([])] * 4
