@@ -17,6 +17,7 @@ from uneven.report import lorenz_points, plot_lorenz, write_report
 from uneven.structure import compare, decompose, gini_sources
 
 from uneven.summary import from_summary, merge_summaries, summarize
+from uneven.brackets import from_brackets, merge_brackets
 
 __version__ = "0.1.0"
 
@@ -29,6 +30,8 @@ __all__ = [
     "decompose", "gini_sources", "compare", "influence",
     # bounded measures from stored, mergeable summaries
     "summarize", "merge_summaries", "from_summary",
+    # measures with bounds from published bracket tables
+    "from_brackets", "merge_brackets",
     # pictures and reports
     "lorenz_points", "plot_lorenz", "write_report",
     # errors (all UnevenError)

@@ -137,10 +137,12 @@ def lorenz_interval(br: Brackets, p: float) -> tuple[float, float]:
         else:
             lows = [(s_lo + u * a[b], r_lo + (n[b] - u) * c[b])]
             highs = [(s_hi + u * v, r_hi + (n[b] - u) * v) for v in (a[b], c[b])]
-    lo = min(_share(s, r) for s, r in lows)
-    hi = max(_share(s, r) for s, r in highs)
-    if math.isnan(lo) or math.isnan(hi):
+    # a configuration with S + R = 0 (every value 0) has no Lorenz curve: the others bound it
+    lows = [v for v in (_share(s, r) for s, r in lows) if not math.isnan(v)]
+    highs = [v for v in (_share(s, r) for s, r in highs) if not math.isnan(v)]
+    if not lows or not highs:
         return (math.nan, math.nan)
+    lo, hi = min(lows), max(highs)
     return widen(max(0.0, lo), min(1.0, hi))
 
 

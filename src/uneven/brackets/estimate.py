@@ -5,7 +5,7 @@ linear: on z = (x − lo)/h ∈ [0, 1], g(z) = 1 + s·(z − ½), whose mean is 
 on the whole bracket reaches every mean in the middle third (|s| ≤ 2); a mean nearer an end gets a
 triangle against that end, on [a, a + 3(m − a)] (s = −2) or [c − 3(c − m), c] (s = +2). The open
 top bracket [a, ∞) with mean m gets a Pareto tail with scale a and α = m/(m − a), the α whose mean
-is m. Every bracket keeps its units and its mean, so the estimate is one of the distributions the
+is m (an open bracket from 0, where no Pareto law starts, an exponential law of mean m). Every bracket keeps its units and its mean, so the estimate is one of the distributions the
 bounds range over and lies inside them.
 """
 
@@ -26,7 +26,8 @@ _GL_W = np.array([5 / 18, 8 / 18, 5 / 18])
 @dataclass
 class Shape:
     """The fitted distribution of one bracket's units: "linear" on [lo, lo + h] with slope s,
-    "pareto" with scale lo and index alpha, or "point" at lo."""
+    "pareto" with scale lo and index alpha, "exponential" with mean alpha (an open bracket from 0,
+    where no Pareto law starts), or "point" at lo."""
 
     kind: str
     lo: float
@@ -40,6 +41,8 @@ class Shape:
             return self.lo
         if self.kind == "pareto":
             return self.lo * (1.0 - f) ** (-1.0 / self.alpha) if f < 1 else math.inf
+        if self.kind == "exponential":
+            return -self.alpha * math.log1p(-f) if f < 1 else math.inf
         return self.lo + self.h * self._z(f)
 
     def _z(self, f: float) -> float:
@@ -58,6 +61,9 @@ class Shape:
         if self.kind == "pareto":
             al = self.alpha
             return self.lo * al / (al - 1) * (1.0 - (1.0 - min(f, 1.0)) ** (1.0 - 1.0 / al))
+        if self.kind == "exponential":
+            g = min(f, 1.0)
+            return self.alpha * (g + ((1 - g) * math.log1p(-g) if g < 1 else 0.0))
         z = self._z(f)
         m1 = z * z / 2 + self.s * (z ** 3 / 3 - z * z / 4)  # ∫_0^z y g(y) dy
         return self.lo * min(f, 1.0) + self.h * m1
@@ -69,6 +75,8 @@ class Shape:
         if self.kind == "pareto":
             al = self.alpha
             return 2 * al * self.lo / ((al - 1) * (2 * al - 1))
+        if self.kind == "exponential":
+            return self.alpha  # E|X − Y| of an exponential law is its mean
         z = _GL_Z
         g = z + self.s * (z * z - z) / 2
         return 2 * self.h * float(np.dot(_GL_W, g * (1 - g)))
@@ -77,7 +85,9 @@ class Shape:
 def fit_shape(a: float, c: float, m: float) -> Shape:
     m = min(max(m, a), c)
     if math.isinf(c):
-        return Shape("point", a) if m <= a else Shape("pareto", a, alpha=m / (m - a))
+        if m <= a:
+            return Shape("point", a)
+        return Shape("pareto", a, alpha=m / (m - a)) if a > 0 else Shape("exponential", 0.0, alpha=m)
     h = c - a
     if h <= 0 or m <= a:
         return Shape("point", a)

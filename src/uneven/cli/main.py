@@ -153,6 +153,7 @@ COMMAND_MODULES: tuple[str, ...] = (
     "decompose", "sources", "compare", "influence",
     "lorenz", "report",
     "explain",
+    "brackets",
 )
 
 COMMANDS = {"query": cmd_query, "compile": cmd_compile, "measures": cmd_measures, "demo": cmd_demo}
