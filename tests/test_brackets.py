@@ -422,3 +422,31 @@ def test_cli_help_explains_the_table():
 
 def test_exported():
     assert uneven.from_brackets is from_brackets and uneven.merge_brackets is merge_brackets
+
+
+def weighted_gini(x, w):
+    # Σ_i w_i x_i (2C_i − w_i − W)/(W·T) over values sorted ascending (handbook weighted form)
+    order = np.argsort(x, kind="stable")
+    x, w = np.asarray(x, float)[order], np.asarray(w, float)[order]
+    C, W, T = np.cumsum(w), w.sum(), (w * x).sum()
+    return float(np.sum(w * x * (2 * C - w - W)) / (W * T))
+
+
+def test_missing_total_gini_bounds_are_the_extremes_over_the_unknown_mean():
+    # brackets [0,10): 5 units total 20; [10,30): 4 units, total missing; [30,60): 2 units total 90.
+    # For every mean m of the middle bracket, the table with units at the means and the table split
+    # between the ends are explicit data sets; their Gini (numpy, weighted form) over a fine grid of m
+    # must stay inside the bounds and reach them (the lower at an end, the upper at an inner point)
+    table = pd.DataFrame({"low": [0.0, 10.0, 30.0], "high": [10.0, 30.0, 60.0], "units": [5.0, 4.0, 2.0],
+                          "total": [20.0, None, 90.0]})
+    res = run(table, ["gini"])
+    lows, highs = [], []
+    for m in np.linspace(10.0, 30.0, 4001):
+        lows.append(weighted_gini([4.0, m, 45.0], [5, 4, 2]))
+        q = [(4 - 0) / 10, (m - 10) / 20, (45 - 30) / 30]  # share of a bracket's units at its high end
+        xs = [0.0, 10.0, 10.0, 30.0, 30.0, 60.0]
+        ws = [5 * (1 - q[0]), 5 * q[0], 4 * (1 - q[1]), 4 * q[1], 2 * (1 - q[2]), 2 * q[2]]
+        highs.append(weighted_gini(xs, ws))
+    assert res.loc[0, "gini_lo"] <= min(lows) <= res.loc[0, "gini_lo"] + 1e-9
+    assert res.loc[0, "gini_hi"] - 1e-6 <= max(highs) <= res.loc[0, "gini_hi"]
+    assert res.loc[0, "missing_totals"] == 1

@@ -63,28 +63,61 @@ def gini_interval(br: Brackets) -> tuple[float, float]:
     between = Σ_{b<b'} n_b n_b' (m_b' − m_b) = Σ_b k_b m_b with k_b = n_b (C_{<b} − C_{>b}) (linear in
     the means, coefficients known); within_b ∈ [0, n_b²(c − m)(m − a)/(c − a)].
     Known totals only: lo = between/(W T), hi = (between + Σ within max)/(W T), both attained.
-    Missing totals: N_lo takes each unknown mean at the end that minimises k_b m_b, N_hi maximises the
-    concave k_b m + within max(m) over [a_b, c_b]; then lo = N_lo/(W T_hi), hi = N_hi/(W T_lo).
+    Missing totals: the unknown means m_b ∈ [a_b, c_b] enter N and T = T_0 + Σ n_b m_b; the least and
+    the largest N/T over them are the roots λ of min (resp. max) over m of N(m) − λ·T(m), a sum of
+    one-variable problems per bracket (an end of [a, c] for the lower, a clipped parabola vertex for
+    the upper), found by bisection keeping the side that certifies the bound.
     """
     n, a, c, t = br.units, br.low, br.high, br.total
     W = n.sum()
     before = _before(br)
     k = n * (before - (W - before - n))
-    n_lo = n_hi = 0.0
+    n_lo = n_hi = t0 = 0.0
+    missing = []
     for b in range(len(n)):
         if br.known[b]:
             m = min(max(t[b] / n[b], a[b]), c[b])
             n_lo += k[b] * m
             n_hi += k[b] * m + _within_max(n[b], a[b], c[b], m)
+            t0 += t[b]
         else:  # c finite here: an open top bracket always has its total
-            n_lo += min(k[b] * a[b], k[b] * c[b])
-            n_hi += _max_missing(k[b], n[b], a[b], c[b])
+            missing.append((k[b], n[b], a[b], c[b]))
     t_lo, t_hi = total_interval(br)
-    if t_lo <= 0:
-        return (0.0, 1.0) if t_hi > 0 else (math.nan, math.nan)
-    lo = max(0.0, n_lo / (W * t_hi))
-    hi = min(1.0, n_hi / (W * t_lo))
-    return widen(lo, hi)
+    if t_hi <= 0:
+        return (math.nan, math.nan)
+    if t_lo <= 0:  # every value may be 0: no lower limit on T, the Gini is only known to lie in [0, 1]
+        return (0.0, 1.0)
+    if not missing:
+        return widen(max(0.0, n_lo / (W * t0)), min(1.0, n_hi / (W * t0)))
+
+    def least(lam):  # min over m of N_lo(m) − λ T(m); decreasing in λ
+        return n_lo - lam * t0 + sum(min((kb - lam * nb) * ab, (kb - lam * nb) * cb) for kb, nb, ab, cb in missing)
+
+    def most(lam):  # max over m of N_hi(m) − λ T(m); decreasing in λ
+        return n_hi - lam * t0 + sum(_max_missing(kb - lam * nb, nb, ab, cb) for kb, nb, ab, cb in missing)
+
+    lo = _root(least, W, keep="low")
+    hi = _root(most, W, keep="high")
+    return widen(max(0.0, lo / W), min(1.0, hi / W))
+
+
+def _root(f, top: float, keep: str) -> float:
+    """The root in [0, top] of a decreasing f, by bisection: keep="low" returns a λ with f(λ) ≥ 0 (a
+    certified lower end), keep="high" one with f(λ) ≤ 0 (a certified upper end)."""
+    lo, hi = 0.0, top
+    if f(hi) >= 0:
+        return hi
+    if f(lo) <= 0:
+        return lo
+    for _ in range(200):
+        mid = (lo + hi) / 2
+        if mid <= lo or mid >= hi:
+            break
+        if f(mid) >= 0:
+            lo = mid
+        else:
+            hi = mid
+    return lo if keep == "low" else hi
 
 
 def _max_missing(k, n, a, c):
