@@ -328,12 +328,30 @@ def test_merge_joins_overlapping_brackets_of_different_tables():
     del north, south
 
 
-def test_merge_keeps_a_missing_total_missing():
+def test_merge_keeps_the_units_without_a_total_apart():
     a = pd.DataFrame({"low": [0.0, 10.0], "high": [10.0, None], "units": [2.0, 1.0], "total": [None, 30.0]})
     b = pd.DataFrame({"low": [0.0, 10.0], "high": [10.0, None], "units": [3.0, 1.0], "total": [12.0, 20.0]})
     merged = merge_brackets(["a", "b"])
-    assert list(merged["units"]) == [5.0, 2.0]
-    assert pd.isna(merged["total"].iloc[0]) and merged["total"].iloc[1] == 50.0
+    # [0, 10): 3 units with total 12 and 2 units without; [10, ∞): 2 units, total 50
+    assert list(merged["low"]) == [0.0, 0.0, 10.0] and list(merged["units"]) == [3.0, 2.0, 2.0]
+    assert merged["total"].iloc[0] == 12.0 and pd.isna(merged["total"].iloc[1]) and merged["total"].iloc[2] == 50.0
+    res = from_brackets("merged", ["mean"])
+    # by hand: the 2 units without a total hold between 0 and 2·10, so T ∈ [62, 82] over 7 units
+    assert (res.loc[0, "mean_lo"], res.loc[0, "mean_hi"]) == pytest.approx((62 / 7, 82 / 7), rel=1e-9)
+    assert res.loc[0, "missing_totals"] == 1 and res.loc[0, "brackets"] == 2
+
+
+def test_partly_given_totals_contain_the_microdata():
+    # two regions tabulated on the same edges; one region's total of one bracket not published
+    data = _regions()
+    edges = [0, 1e4, 2e4, 4e4, 8e4]
+    table = pd.concat([tabulate(data["north"], edges, drop_totals=(2,)), tabulate(data["south"], edges)])
+    both = np.concatenate(list(data.values()))
+    res = run(table)
+    assert_contains(res, micro_values(both))
+    assert_point_inside(res)
+    whole = run(tabulate(both, edges, drop_totals=(2,)))  # the same bracket missing for everyone: wider
+    assert res.loc[0, "gini_hi"] - res.loc[0, "gini_lo"] < whole.loc[0, "gini_hi"] - whole.loc[0, "gini_lo"]
 
 
 # --- bad input: clear errors, never a traceback -----------------------------------------------------

@@ -1,6 +1,7 @@
 """The point estimate: one distribution that fits every bracket's units and mean (docs/brackets.md).
 
-Inside a closed bracket [a, c] with mean m (the midpoint when the total is missing), the density is
+Inside a closed bracket [a, c] with mean m (units without a total
+count at the midpoint), the density is
 linear: on z = (x − lo)/h ∈ [0, 1], g(z) = 1 + s·(z − ½), whose mean is ½ + s/12. A linear density
 on the whole bracket reaches every mean in the middle third (|s| ≤ 2); a mean nearer an end gets a
 triangle against that end, on [a, a + 3(m − a)] (s = −2) or [c − 3(c − m), c] (s = +2). The open
@@ -107,9 +108,9 @@ class Estimate:
     def __init__(self, br: Brackets):
         self.n = br.units
         self.W = float(br.units.sum())
-        mid = (br.low + br.high) / 2
-        self.means = np.where(br.known, br.total / np.where(br.units > 0, br.units, 1.0), mid)
-        self.means = np.clip(self.means, br.low, br.high)
+        # units without a total are put at the bracket's midpoint (the top bracket always has its total)
+        mid = np.where(np.isinf(br.high), br.low, (br.low + br.high) / 2)
+        self.means = np.clip((br.total + br.unknown * mid) / br.units, br.low, br.high)
         self.shapes = [fit_shape(a, c, m) for a, c, m in zip(br.low, br.high, self.means)]
         self.before = np.concatenate([[0.0], np.cumsum(self.n)[:-1]])
         self.T = float((self.n * self.means).sum())

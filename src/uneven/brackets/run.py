@@ -196,11 +196,15 @@ def _num(v: float):
 
 def merge_brackets(parts, *, low: str = "low", high: str = "high", units: str = "units", total: str = "total",
                    by=(), con: duckdb.DuckDBPyConnection | None = None) -> pd.DataFrame:
-    """Combine bracket tables of disjoint parts (regions, years' halves, sources) into one table per
-    group of ``by``: brackets with the same ends add their units and totals (a total is missing
-    when any part's is); brackets that overlap without being equal are joined into one bracket
-    from the lowest low to the highest high, as a stored summary's overlapping bins are. The result
-    has the columns ``by``…, low, high, units, total, ready for ``from_brackets``."""
+    """Combine bracket tables of disjoint parts (regions, sources) into one table per group of ``by``.
+
+    Brackets that overlap without being equal are joined into one bracket from the lowest low to the
+    highest high, as a stored summary's overlapping bins are; brackets with the same ends stay one
+    bracket. A bracket whose parts give a total for some units and not for others comes out as two
+    rows with the same ends: the units with their total, and the units without (total NULL);
+    ``from_brackets`` adds such rows up and uses both. The result has the columns ``by``…, low,
+    high, units, total.
+    """
     items = list(parts) if isinstance(parts, (list, tuple)) else [parts]
     if not items:
         raise UnevenError("merge_brackets: no tables given")
@@ -215,8 +219,15 @@ def merge_brackets(parts, *, low: str = "low", high: str = "high", units: str = 
     for values, part in _groups(df, names):
         lo = part["_uv_low"].to_numpy(float)
         hi = np.where(np.isnan(part["_uv_high"].to_numpy(float)), np.inf, part["_uv_high"].to_numpy(float))
-        joined = join_overlapping(lo, hi, part["_uv_units"].to_numpy(float), part["_uv_total"].to_numpy(float))
-        for a, c, n, t in zip(*joined):
-            out.append({**dict(zip(names, values)), "low": a, "high": None if math.isinf(c) else c,
-                        "units": n, "total": None if math.isnan(t) else t})
+        n = part["_uv_units"].to_numpy(float)
+        t = part["_uv_total"].to_numpy(float)
+        given = ~np.isnan(t)
+        # two passes over the same islands: units with a total, units without (their totals add as 0)
+        edges = join_overlapping(lo, hi, n, np.zeros_like(n))
+        for a, c, *_ in zip(*edges):
+            inside = (lo >= a) & (hi <= c)
+            for rows, tot in ((inside & given, lambda r: float(t[r].sum())), (inside & ~given, lambda r: None)):
+                if rows.any():
+                    out.append({**dict(zip(names, values)), "low": a, "high": None if math.isinf(c) else c,
+                                "units": float(n[rows].sum()), "total": tot(rows)})
     return pd.DataFrame(out, columns=[*names, "low", "high", "units", "total"])

@@ -19,16 +19,34 @@ TOTAL_SLACK = 1e-9  # a total may exceed [low·n, high·n] by this relative amou
 
 @dataclass
 class Brackets:
-    """One group's brackets, sorted by ``low``, brackets with no units left out."""
+    """One group's brackets, sorted by ``low``, brackets with no units left out.
+
+    ``total`` is the sum of the totals given; ``unknown`` the units whose total was not given (a
+    bracket's rows may give it for some parts and not others, e.g. after a roll-up). The bracket's
+    mean is known to lie in [mean_lo, mean_hi]: the given total plus the unknown units at the low
+    end, resp. at the high end (one value when every total is given).
+    """
 
     low: np.ndarray
     high: np.ndarray      # +inf for the open top bracket
     units: np.ndarray
-    total: np.ndarray     # NaN where missing
+    total: np.ndarray     # the totals given (0 where none)
+    unknown: np.ndarray   # units without a total
 
     @property
     def known(self) -> np.ndarray:
-        return ~np.isnan(self.total)
+        return self.unknown <= 0
+
+    @property
+    def mean_lo(self) -> np.ndarray:
+        m = (self.total + self.unknown * self.low) / self.units
+        return np.clip(m, self.low, self.high)
+
+    @property
+    def mean_hi(self) -> np.ndarray:
+        with np.errstate(invalid="ignore"):  # 0 unknown units · inf high end (the open top) is 0
+            extra = np.where(self.unknown > 0, self.unknown * self.high, 0.0)
+        return np.clip((self.total + extra) / self.units, self.low, self.high)
 
     @property
     def open_top(self) -> bool:
@@ -51,8 +69,8 @@ def _bracket(low: float, high: float) -> str:
 def check_brackets(low, high, units, total, group: str = "") -> Brackets:
     """Validate one group's rows (any order) and return them sorted, empty brackets dropped.
 
-    Rows with the same (low, high) are one bracket: their units and totals add (a total is missing
-    when any part's is). Raises InputDataError naming the group and the bracket for: a missing or
+    Rows with the same (low, high) are one bracket: their units and totals add; the units of rows
+    without a total are counted apart (``Brackets.unknown``). Raises InputDataError naming the group and the bracket for: a missing or
     non-finite low, a negative low, high ≤ low, an open high anywhere but the top, brackets that
     overlap, missing/negative/non-finite units, a total outside [low·n, high·n], and an open top
     bracket with units but no total (its mean, hence every bound, would be unlimited).
@@ -91,15 +109,18 @@ def check_brackets(low, high, units, total, group: str = "") -> Brackets:
                     f"{'unlimited' if math.isinf(top) else f'{top:g}'}")
     order = np.lexsort((high, low))
     low, high, units, total = low[order], high[order], units[order], total[order]
-    # rows naming the same bracket add up
-    keep_low, keep_high, keep_n, keep_t = [], [], [], []
+    # rows naming the same bracket add up; the units of rows without a total are kept apart
+    unknown = np.where(np.isnan(total), units, 0.0)
+    total = np.where(np.isnan(total), 0.0, total)
+    keep: list[list[float]] = []
     for i in range(len(low)):
-        if keep_low and low[i] == keep_low[-1] and high[i] == keep_high[-1]:
-            keep_n[-1] += units[i]
-            keep_t[-1] = keep_t[-1] + total[i]  # NaN if either is missing
+        if keep and low[i] == keep[-1][0] and high[i] == keep[-1][1]:
+            keep[-1][2] += units[i]
+            keep[-1][3] += total[i]
+            keep[-1][4] += unknown[i]
             continue
-        keep_low.append(low[i]), keep_high.append(high[i]), keep_n.append(units[i]), keep_t.append(total[i])
-    low, high, units, total = map(np.array, (keep_low, keep_high, keep_n, keep_t))
+        keep.append([low[i], high[i], units[i], total[i], unknown[i]])
+    low, high, units, total, unknown = (np.array([r[j] for r in keep]) for j in range(5))
     for i in range(1, len(low)):
         if low[i] < high[i - 1]:
             raise InputDataError(
@@ -108,14 +129,14 @@ def check_brackets(low, high, units, total, group: str = "") -> Brackets:
                 "are combined with merge_brackets, which joins overlapping brackets into one")
     if any(math.isinf(h) for h in high[:-1]):
         raise InputDataError(f"from_brackets: only the top bracket may be open (no high end){where}")
-    if math.isinf(high[-1]) and math.isnan(total[-1]) and units[-1] > 0:
+    if math.isinf(high[-1]) and unknown[-1] > 0:
         raise InputDataError(f"from_brackets: the open top bracket {_bracket(low[-1], high[-1])} has no "
                              f"total{where}: without it the top bracket's mean, and so every bound, is "
                              "unlimited; give its total (or a high end)")
     used = units > 0
     if not used.any():
         raise InputDataError(f"from_brackets: every bracket has 0 units{where}")
-    return Brackets(low[used], high[used], units[used], total[used])
+    return Brackets(low[used], high[used], units[used], total[used], unknown[used])
 
 
 def join_overlapping(low, high, units, total):
