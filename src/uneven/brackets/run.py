@@ -45,7 +45,15 @@ def _parse(text, what: str) -> exp.Expression:
         raise SqlParseError(f"from_brackets: cannot read the {what} {text!r}: {str(e).splitlines()[0]}") from None
 
 
+_FILE_SUFFIXES = (".csv", ".tsv", ".parquet", ".json", ".ndjson", ".jsonl", ".txt", ".gz", ".zst")
+
+
 def _relation(text) -> exp.From:
+    if (isinstance(text, str) and text.strip() and not any(ch.isspace() for ch in text)
+            and text.lower().endswith(_FILE_SUFFIXES) and not text.startswith(("'", '"'))):
+        # a bare file name (tab.csv): a quoted name, which DuckDB reads as the file (unquoted, it
+        # would be the table csv of the schema tab)
+        return exp.From(this=exp.Table(this=exp.to_identifier(text, quoted=True)))
     try:
         return exp.select("*").from_(text, dialect="duckdb").args["from_"]
     except (sqlglot.errors.ParseError, TypeError, ValueError):
