@@ -502,3 +502,21 @@ def test_random_samples_fall_inside_their_tables_bounds():
         truth = micro_values(x)
         res = from_brackets("table", MEASURES, con=con)
         assert_contains(res, truth)
+
+
+def test_cli_reads_a_database_table_by_group_and_writes_a_file(tmp_path, capsys):
+    import duckdb
+    data = _regions()
+    parts = [tabulate(x, [0, 1e4, 2e4, 4e4]).assign(region=r) for r, x in data.items()]
+    db = tmp_path / "b.duckdb"
+    con = duckdb.connect(str(db))
+    con.register("frame", pd.concat(parts, ignore_index=True))
+    con.execute("CREATE TABLE tab AS SELECT * FROM frame")
+    con.close()
+    out = tmp_path / "o.csv"
+    assert main(["brackets", "tab", "--database", str(db), "--by", "region", "-m", "gini", "--format", "csv",
+                 "-o", str(out)]) == 0
+    df = pd.read_csv(out)
+    assert list(df["region"]) == ["north", "south"]
+    for i, x in enumerate(data.values()):
+        assert df["gini_lo"][i] <= micro_gini(x) <= df["gini_hi"][i]

@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 import sys
 
-from uneven.cli.common import add_engine_options, add_output_options, connection, emit_result
+from uneven.cli.common import add_output_options, connection, emit_result
 from uneven.cli.tables import RELATION_HELP
 
 EPILOG = """the bracket table has one row per bracket (and group):
@@ -41,7 +41,7 @@ def register(sub) -> None:
         p.add_argument(f"--{role}", default=role, metavar="EXPR",
                        help=f"column or expression of the bracket's {meaning} (default: {role})")
     add_output_options(p)
-    add_engine_options(p)
+    p.add_argument("--database", metavar="FILE", help="a DuckDB database file holding the table (default: in memory)")
     p.set_defaults(handler=run)
 
 
