@@ -520,3 +520,43 @@ def test_cli_reads_a_database_table_by_group_and_writes_a_file(tmp_path, capsys)
     assert list(df["region"]) == ["north", "south"]
     for i, x in enumerate(data.values()):
         assert df["gini_lo"][i] <= micro_gini(x) <= df["gini_hi"][i]
+
+
+def frac_lorenz(points, p):
+    # L(p) of weighted points in exact fractions: the curve through (C_i/W, S_i/T), linear between
+    # (the definition in common use, as in DESIGN.md)
+    pts = sorted(points)
+    W = sum(w for _, w in pts)
+    T = sum(x * w for x, w in pts)
+    target, c, s = Fraction(p) * W, Fraction(0), Fraction(0)
+    for x, w in pts:
+        if c + w >= target:
+            return (s + (target - c) * x) / T
+        c, s = c + w, s + w * x
+    return Fraction(1)
+
+
+def test_share_ratio_bounds_are_reached_by_the_two_extreme_tables():
+    # every total given: units at the means reach every upper Lorenz bound at once, units split
+    # between the ends every lower one, so Palma and S80/S20 bounds are those tables' values
+    F = Fraction
+    table = pd.DataFrame({"low": [0.0, 10.0, 20.0, 40.0], "high": [10.0, 20.0, 40.0, 100.0],
+                          "units": [6.0, 5.0, 5.0, 4.0], "total": [24.0, 70.0, 150.0, 220.0]})
+    res = run(table, ["palma", "s80s20", "lorenz(0.3)", "top_share(0.25)"])
+    spec = [(F(0), F(10), 6, F(24)), (F(10), F(20), 5, F(70)), (F(20), F(40), 5, F(150)), (F(40), F(100), 4, F(220))]
+    means = [(t / n, F(n)) for _, _, n, t in spec]
+    split = []
+    for a, c, n, t in spec:
+        q = (t / n - a) / (c - a)
+        split += [(a, n * (1 - q)), (c, n * q)]
+
+    def ratio(points, top, bottom):
+        return (1 - frac_lorenz(points, 1 - F(top))) / frac_lorenz(points, F(bottom))
+    # (ratios of shares widened by the 1e-11 rounding allowance: compared to 1e-8)
+    assert res.loc[0, "palma_lo"] == pytest.approx(float(ratio(means, "0.1", "0.4")), rel=1e-8)
+    assert res.loc[0, "palma_hi"] == pytest.approx(float(ratio(split, "0.1", "0.4")), rel=1e-8)
+    assert res.loc[0, "s80s20_lo"] == pytest.approx(float(ratio(means, "0.2", "0.2")), rel=1e-8)
+    assert res.loc[0, "s80s20_hi"] == pytest.approx(float(ratio(split, "0.2", "0.2")), rel=1e-8)
+    assert res.loc[0, "lorenz(0.3)_lo"] == pytest.approx(float(frac_lorenz(split, F("0.3"))), abs=1e-10)
+    assert res.loc[0, "lorenz(0.3)_hi"] == pytest.approx(float(frac_lorenz(means, F("0.3"))), abs=1e-10)
+    assert res.loc[0, "top_share(0.25)_hi"] == pytest.approx(float(1 - frac_lorenz(split, F("0.75"))), abs=1e-10)
