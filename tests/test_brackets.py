@@ -364,7 +364,7 @@ def test_partly_given_totals_contain_the_microdata():
 BAD = {
     "overlap": ({"low": [0.0, 5.0], "high": [10.0, 20.0], "units": [1.0, 1.0], "total": [5.0, 10.0]}, "overlap"),
     "reversed": ({"low": [10.0, 20.0], "high": [0.0, None], "units": [1.0, 1.0], "total": [5.0, 30.0]},
-                 "above the low end"),
+                 "must not be below"),
     "negative units": ({"low": [0.0, 10.0], "high": [10.0, None], "units": [-1.0, 1.0], "total": [0.0, 20.0]},
                        "units must be"),
     "total below": ({"low": [0.0, 10.0], "high": [10.0, None], "units": [2.0, 1.0], "total": [5.0, 5.0]},
@@ -560,3 +560,17 @@ def test_share_ratio_bounds_are_reached_by_the_two_extreme_tables():
     assert res.loc[0, "lorenz(0.3)_lo"] == pytest.approx(float(frac_lorenz(split, F("0.3"))), abs=1e-10)
     assert res.loc[0, "lorenz(0.3)_hi"] == pytest.approx(float(frac_lorenz(means, F("0.3"))), abs=1e-10)
     assert res.loc[0, "top_share(0.25)_hi"] == pytest.approx(float(1 - frac_lorenz(split, F("0.75"))), abs=1e-10)
+
+
+def test_a_bracket_of_one_value():
+    # tabulations often give "no income" a row of its own: [0, 0] with its units and total 0
+    x = np.concatenate([np.zeros(300), np.random.default_rng(8).lognormal(9, 0.8, 2700)])
+    table = pd.concat([pd.DataFrame({"low": [0.0], "high": [0.0], "units": [300.0], "total": [0.0]}),
+                       tabulate(x[300:], [0, 5e3, 1e4, 2e4])], ignore_index=True)
+    res = run(table)
+    assert res.loc[0, "brackets"] == 5 and res.loc[0, "units"] == 3000
+    assert_contains(res, micro_values(x))
+    assert_point_inside(res)
+    # the lowest 5 % have nothing (away from the jump at 10 %, where both neighbours are candidates)
+    q = run(table, ["quantile_w(0.05)"])
+    assert (q.loc[0, "quantile_w(0.05)_lo"], q.loc[0, "quantile_w(0.05)_hi"]) == pytest.approx((0.0, 0.0), abs=1e-9)

@@ -71,7 +71,7 @@ def check_brackets(low, high, units, total, group: str = "") -> Brackets:
 
     Rows with the same (low, high) are one bracket: their units and totals add; the units of rows
     without a total are counted apart (``Brackets.unknown``). Raises InputDataError naming the group and the bracket for: a missing or
-    non-finite low, a negative low, high ≤ low, an open high anywhere but the top, brackets that
+    non-finite low, a negative low, high < low (high = low: a bracket of one value, e.g. 0), an open high anywhere but the top, brackets that
     overlap, missing/negative/non-finite units, a total outside [low·n, high·n], and an open top
     bracket with units but no total (its mean, hence every bound, would be unlimited).
     """
@@ -91,9 +91,9 @@ def check_brackets(low, high, units, total, group: str = "") -> Brackets:
                                  "tables of negative values are not supported")
         if math.isnan(hi) or (math.isinf(hi) and hi < 0):
             hi = high[i] = math.inf
-        if hi <= lo:
-            raise InputDataError(f"from_brackets: bracket from {lo:g} to {hi:g} ends where it starts or "
-                                 f"before{where}: the high end must be above the low end")
+        if hi < lo:
+            raise InputDataError(f"from_brackets: bracket from {lo:g} to {hi:g} ends before it starts{where}: "
+                                 "the high end must not be below the low end")
         if math.isnan(n) or math.isinf(n) or n < 0:
             raise InputDataError(f"from_brackets: bracket {_bracket(lo, hi)} has units {n}{where}: units "
                                  "must be a finite number ≥ 0")
