@@ -406,6 +406,14 @@ def test_bad_measures(measure, words):
         run(table, [measure])
 
 
+def test_output_names_clash():
+    table = pd.DataFrame({"units": [1.0], "low": [0.0], "high": [10.0], "total": [5.0], "g": ["a"]})
+    with pytest.raises(MeasureArgumentError, match="two columns named 'units'"):
+        run(table, ["gini"], by=["units AS units"])
+    with pytest.raises(MeasureArgumentError, match="two columns named 'gini_lo'"):
+        run(table, ["gini", "mean AS gini_lo"])
+
+
 def test_missing_column_is_an_uneven_error():
     table = pd.DataFrame({"low": [0.0], "high": [10.0], "units": [1.0]})
     with pytest.raises(UnevenError):

@@ -34,6 +34,7 @@ CAUTION = ("Figures from a bracket table are approximate: the bounds hold for ev
            "allows, the point estimate is one such distribution (linear within brackets, a Pareto tail on "
            "an open top bracket), not the data.")
 _COLUMNS = ("low", "high", "units", "total")
+FIXED_COLUMNS = ("units", "brackets", "missing_totals", "open_top")
 
 
 def _parse(text, what: str) -> exp.Expression:
@@ -179,6 +180,7 @@ def from_brackets(relation, measures=DEFAULT_MEASURES, *, low: str = "low", high
         raise MeasureArgumentError("from_brackets: two measures have the same label; name them with AS")
     frame = inspect.currentframe().f_back
     df, names = _read(relation, {"low": low, "high": high, "units": units, "total": total}, by, con, frame)
+    _check_names(names, labels)
     rows = []
     for values, part in _groups(df, names):
         br = check_brackets(part["_uv_low"], part["_uv_high"], part["_uv_units"], part["_uv_total"],
@@ -196,6 +198,18 @@ def from_brackets(relation, measures=DEFAULT_MEASURES, *, low: str = "low", high
     out = pd.DataFrame(rows)
     out.attrs["uneven"] = {"method": "brackets", "caution": CAUTION}
     return out
+
+
+def _check_names(keys: list[str], labels: list[str]) -> None:
+    """Every output column once: the keys, the fixed columns, each measure's three."""
+    seen: dict[str, str] = {}
+    columns = [(k, "group key") for k in keys] + [(c, "column") for c in FIXED_COLUMNS]
+    columns += [(n, f"measure {lab!r}") for lab in labels for n in (lab, f"{lab}_lo", f"{lab}_hi")]
+    for name, what in columns:
+        if name.lower() in seen:
+            raise MeasureArgumentError(f"from_brackets: the output would have two columns named {name!r} "
+                                       f"({seen[name.lower()]} and {what}); rename one with AS")
+        seen[name.lower()] = what
 
 
 def _num(v: float):

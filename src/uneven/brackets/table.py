@@ -85,7 +85,8 @@ def check_brackets(low, high, units, total, group: str = "") -> Brackets:
     for i in range(len(low)):
         lo, hi, n, t = low[i], high[i], units[i], total[i]
         if math.isnan(lo) or math.isinf(lo):
-            raise InputDataError(f"from_brackets: a bracket's low end must be a finite number, got {lo}{where}")
+            got = "a missing value (NULL)" if math.isnan(lo) else lo
+            raise InputDataError(f"from_brackets: a bracket's low end must be a finite number, got {got}{where}")
         if lo < 0:
             raise InputDataError(f"from_brackets: bracket {_bracket(lo, hi)} starts below 0{where}; bracket "
                                  "tables of negative values are not supported")
@@ -95,7 +96,8 @@ def check_brackets(low, high, units, total, group: str = "") -> Brackets:
             raise InputDataError(f"from_brackets: bracket from {lo:g} to {hi:g} ends before it starts{where}: "
                                  "the high end must not be below the low end")
         if math.isnan(n) or math.isinf(n) or n < 0:
-            raise InputDataError(f"from_brackets: bracket {_bracket(lo, hi)} has units {n}{where}: units "
+            got = "no units (NULL)" if math.isnan(n) else f"units {n:g}"
+            raise InputDataError(f"from_brackets: bracket {_bracket(lo, hi)} has {got}{where}: units "
                                  "must be a finite number ≥ 0")
         if math.isinf(t):
             raise InputDataError(f"from_brackets: bracket {_bracket(lo, hi)} has a total of {t}{where}")
