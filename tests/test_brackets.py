@@ -582,3 +582,9 @@ def test_a_bracket_of_one_value():
     # the lowest 5 % have nothing (away from the jump at 10 %, where both neighbours are candidates)
     q = run(table, ["quantile_w(0.05)"])
     assert (q.loc[0, "quantile_w(0.05)_lo"], q.loc[0, "quantile_w(0.05)_hi"]) == pytest.approx((0.0, 0.0), abs=1e-9)
+
+
+def test_merge_checks_every_row():
+    a = pd.DataFrame({"low": [0.0, 10.0], "high": [10.0, None], "units": [2.0, 1.0], "total": [50.0, 30.0]})
+    with pytest.raises(InputDataError, match="between low·units"):
+        merge_brackets(["a"])

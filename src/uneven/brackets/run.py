@@ -19,7 +19,9 @@ from sqlglot import exp
 
 from uneven.brackets import bounds as bd
 from uneven.brackets.estimate import Estimate
-from uneven.brackets.table import check_brackets, join_overlapping
+from uneven.bounds import bins as b
+from uneven.bounds.lower import join_overlaps
+from uneven.brackets.table import check_brackets
 from uneven.compiler import sqlx as s
 from uneven.compiler.emit import to_sql
 from uneven.engine.frames import register_caller_frames
@@ -35,6 +37,7 @@ CAUTION = ("Figures from a bracket table are approximate: the bounds hold for ev
            "an open top bracket), not the data.")
 _COLUMNS = ("low", "high", "units", "total")
 FIXED_COLUMNS = ("units", "brackets", "missing_totals", "open_top")
+_UNKNOWN = "uv_unknown"  # units without a total, beside the summary's bin columns in merge_brackets
 
 
 def _parse(text, what: str) -> exp.Expression:
@@ -221,11 +224,11 @@ def merge_brackets(parts, *, low: str = "low", high: str = "high", units: str = 
     """Combine bracket tables of disjoint parts (regions, sources) into one table per group of ``by``.
 
     Brackets that overlap without being equal are joined into one bracket from the lowest low to the
-    highest high, as a stored summary's overlapping bins are; brackets with the same ends stay one
-    bracket. A bracket whose parts give a total for some units and not for others comes out as two
-    rows with the same ends: the units with their total, and the units without (total NULL);
-    ``from_brackets`` adds such rows up and uses both. The result has the columns ``by``…, low,
-    high, units, total.
+    highest high, by the same SQL that joins a stored summary's overlapping bins
+    (bounds/lower.py: join_overlaps); brackets with the same ends stay one bracket. A bracket whose
+    parts give a total for some units and not for others comes out as two rows with the same ends:
+    the units with their total, and the units without (total NULL); ``from_brackets`` adds such rows
+    up and uses both. The result has the columns ``by``…, low, high, units, total.
     """
     items = list(parts) if isinstance(parts, (list, tuple)) else [parts]
     if not items:
@@ -237,19 +240,37 @@ def merge_brackets(parts, *, low: str = "low", high: str = "high", units: str = 
         df, names = _read(part, cols, by, con, frame)
         frames.append(df)
     df = pd.concat(frames, ignore_index=True)
+    for i in range(len(df)):  # each row checked as from_brackets would (ends, units, total in range)
+        row = df.iloc[i]
+        check_brackets([row["_uv_low"]], [row["_uv_high"]], [row["_uv_units"]], [row["_uv_total"]],
+                       "", allow_empty=True)
+    keys = [f"_uv_by{i + 1}" for i in range(len(names))]
+    given = df["_uv_total"].notna()
+    bins = pd.DataFrame({**{k: df[k] for k in keys},
+                         b.MIN: df["_uv_low"], b.MAX: df["_uv_high"].fillna(math.inf),
+                         b.W: df["_uv_units"].where(given, 0.0), b.WX: df["_uv_total"].fillna(0.0),
+                         _UNKNOWN: df["_uv_units"].where(~given, 0.0)})
+    key_cols = [s.col(k) for k in keys]
+    ctes = join_overlaps("_uv_br_parts", key_cols, [b.MIN, b.MAX, b.W, b.WX, _UNKNOWN], "_uv_br")
+    final = exp.Select(expressions=[exp.Star()]).from_(exp.Table(this=exp.to_identifier("_uv_br", quoted=True)))
+    final.set("order", exp.Order(expressions=[exp.Ordered(this=k.copy(), nulls_first=False) for k in key_cols]
+                                 + [exp.Ordered(this=s.col(b.MIN))]))
+    final.set("with_", exp.With(expressions=ctes))
+    connection = connect(con)
+    connection.register("_uv_br_parts", bins)
+    try:
+        islands = execute_df(connection, to_sql(final))
+    finally:
+        connection.unregister("_uv_br_parts")
+        if con is None:
+            connection.close()
     out = []
-    for values, part in _groups(df, names):
-        lo = part["_uv_low"].to_numpy(float)
-        hi = np.where(np.isnan(part["_uv_high"].to_numpy(float)), np.inf, part["_uv_high"].to_numpy(float))
-        n = part["_uv_units"].to_numpy(float)
-        t = part["_uv_total"].to_numpy(float)
-        given = ~np.isnan(t)
-        # two passes over the same islands: units with a total, units without (their totals add as 0)
-        edges = join_overlapping(lo, hi, n, np.zeros_like(n))
-        for a, c, *_ in zip(*edges):
-            inside = (lo >= a) & (hi <= c)
-            for rows, tot in ((inside & given, lambda r: float(t[r].sum())), (inside & ~given, lambda r: None)):
-                if rows.any():
-                    out.append({**dict(zip(names, values)), "low": a, "high": None if math.isinf(c) else c,
-                                "units": float(n[rows].sum()), "total": tot(rows)})
+    for _, isl in islands.iterrows():
+        head = {n: (None if pd.isna(isl[k]) else isl[k]) for n, k in zip(names, keys)}
+        end = None if math.isinf(isl[b.MAX]) else float(isl[b.MAX])
+        if isl[b.W] > 0 or isl[_UNKNOWN] == 0:
+            out.append({**head, "low": float(isl[b.MIN]), "high": end, "units": float(isl[b.W]),
+                        "total": float(isl[b.WX])})
+        if isl[_UNKNOWN] > 0:
+            out.append({**head, "low": float(isl[b.MIN]), "high": end, "units": float(isl[_UNKNOWN]), "total": None})
     return pd.DataFrame(out, columns=[*names, "low", "high", "units", "total"])

@@ -1,4 +1,4 @@
-"""One group's bracket table as arrays, its checks, and the joining of overlapping brackets.
+"""One group's bracket table as arrays and its checks.
 
 A bracket b holds ``units`` n_b ≥ 0 (a count or a weighted count) whose values lie in
 [low_b, high_b] (published as "from … to"; high_b = +inf for an open top bracket) and whose values
@@ -66,7 +66,7 @@ def _bracket(low: float, high: float) -> str:
     return f"[{low:g}, {hi})"
 
 
-def check_brackets(low, high, units, total, group: str = "") -> Brackets:
+def check_brackets(low, high, units, total, group: str = "", allow_empty: bool = False) -> Brackets | None:
     """Validate one group's rows (any order) and return them sorted, empty brackets dropped.
 
     Rows with the same (low, high) are one bracket: their units and totals add; the units of rows
@@ -137,23 +137,7 @@ def check_brackets(low, high, units, total, group: str = "") -> Brackets:
                              "unlimited; give its total (or a high end)")
     used = units > 0
     if not used.any():
+        if allow_empty:
+            return None
         raise InputDataError(f"from_brackets: every bracket has 0 units{where}")
     return Brackets(low[used], high[used], units[used], total[used], unknown[used])
-
-
-def join_overlapping(low, high, units, total):
-    """Join brackets whose ranges overlap into one (their islands): low the smallest, high the
-    largest, units and totals added (missing if any part's is). Brackets that only touch stay apart.
-    The same rule joins a stored summary's overlapping bins (bounds/lower.py)."""
-    order = np.lexsort((np.asarray(high, float), np.asarray(low, float)))
-    out: list[list[float]] = []
-    for i in order:
-        lo, hi, n, t = float(low[i]), float(high[i]), float(units[i]), float(total[i])
-        if out and lo < out[-1][1]:
-            last = out[-1]
-            last[1] = max(last[1], hi)
-            last[2] += n
-            last[3] += t
-            continue
-        out.append([lo, hi, n, t])
-    return [np.array([r[j] for r in out], dtype=float) for j in range(4)] if out else [np.array([])] * 4
