@@ -32,7 +32,12 @@ def widen(lo: float, hi: float) -> tuple[float, float]:
 
 def _before(br: Brackets) -> np.ndarray:
     """Units of the brackets below each bracket, C_{<b}."""
-    return np.concatenate([[0.0], np.cumsum(br.units)[:-1]])
+    return br.before
+
+
+def _lists(br: Brackets):
+    """units, low, high, mean_lo, mean_hi, C_{<b} as Python lists (loops over numpy scalars are slow)."""
+    return tuple(v.tolist() for v in (br.units, br.low, br.high, br.mean_lo, br.mean_hi, br.before))
 
 
 def total_interval(br: Brackets) -> tuple[float, float]:
@@ -88,7 +93,7 @@ def gini_interval(br: Brackets) -> tuple[float, float]:
         return (math.nan, math.nan)
     if t_lo <= 0:  # every value may be 0: no lower limit on T, the Gini is only known to lie in [0, 1]
         return (0.0, 1.0)
-    parts = list(zip(k, n, a, c, ml, mh))
+    parts = list(zip(k.tolist(), n.tolist(), a.tolist(), c.tolist(), ml.tolist(), mh.tolist()))
     if all(br.known):
         T = t_lo
         lo = float((k * ml).sum())
@@ -139,11 +144,9 @@ def lorenz_interval(br: Brackets, p: float) -> tuple[float, float]:
         return (0.0, 0.0)
     if p >= 1:
         return (1.0, 1.0)
-    n, a, c = br.units, br.low, br.high
-    ml, mh = br.mean_lo, br.mean_hi
-    W = n.sum()
+    n, a, c, ml, mh, before = _lists(br)
+    W = float(br.units.sum())
     target = p * W
-    before = _before(br)
     s_lo = s_hi = r_lo = r_hi = 0.0  # S and R of the configurations giving the lowest / highest L
     straddle = None
     for b in range(len(n)):
@@ -204,10 +207,8 @@ def quantile_interval(br: Brackets, p: float) -> tuple[float, float]:
     Q ∈ [max(a, (ml − (1 − f)c)/f), min(c, (mh − f·a)/(1 − f))] (a mean not given: [a, c]). When
     p·W falls on a bracket's edge (within QUANTILE_FUZZ·W), both neighbours are candidates.
     """
-    n, a, c = br.units, br.low, br.high
-    ml, mh = br.mean_lo, br.mean_hi
-    W = n.sum()
-    before = _before(br)
+    n, a, c, ml, mh, before = _lists(br)
+    W = float(br.units.sum())
     lo_t, hi_t = p * W - QUANTILE_FUZZ * W, p * W + QUANTILE_FUZZ * W
     lows, highs = [], []
     for b in range(len(n)):

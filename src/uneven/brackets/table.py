@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 
@@ -37,16 +38,21 @@ class Brackets:
     def known(self) -> np.ndarray:
         return self.unknown <= 0
 
-    @property
+    @cached_property
     def mean_lo(self) -> np.ndarray:
         m = (self.total + self.unknown * self.low) / self.units
         return np.clip(m, self.low, self.high)
 
-    @property
+    @cached_property
     def mean_hi(self) -> np.ndarray:
         with np.errstate(invalid="ignore"):  # 0 unknown units · inf high end (the open top) is 0
             extra = np.where(self.unknown > 0, self.unknown * self.high, 0.0)
         return np.clip((self.total + extra) / self.units, self.low, self.high)
+
+    @cached_property
+    def before(self) -> np.ndarray:
+        """Units of the brackets below each bracket, C_{<b}."""
+        return np.concatenate([[0.0], np.cumsum(self.units)[:-1]])
 
     @property
     def open_top(self) -> bool:
