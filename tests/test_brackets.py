@@ -588,3 +588,15 @@ def test_merge_checks_every_row():
     a = pd.DataFrame({"low": [0.0, 10.0], "high": [10.0, None], "units": [2.0, 1.0], "total": [50.0, 30.0]})
     with pytest.raises(InputDataError, match="between low·units"):
         merge_brackets(["a"])
+
+
+def test_a_dataframe_passed_itself_from_another_engine():
+    # a bracket table kept in SQLite (the standard library's engine), fetched with pandas and passed
+    import sqlite3
+    x = np.random.default_rng(12).lognormal(10, 0.7, 6000)
+    lite = sqlite3.connect(":memory:")
+    tabulate(x, [0, 1e4, 2e4, 4e4]).assign(area="east").to_sql("tab", lite, index=False)
+    frame = pd.read_sql("SELECT area, low, high, units, total FROM tab", lite)
+    res = from_brackets(frame, MEASURES, by=["area"])
+    assert list(res["area"]) == ["east"]
+    assert_contains(res, micro_values(x))

@@ -37,6 +37,7 @@ CAUTION = ("Figures from a bracket table are approximate: the bounds hold for ev
            "an open top bracket), not the data.")
 _COLUMNS = ("low", "high", "units", "total")
 FIXED_COLUMNS = ("units", "brackets", "missing_totals", "open_top")
+_FRAME = "_uv_brackets_frame"
 _UNKNOWN = "uv_unknown"  # units without a total, beside the summary's bin columns in merge_brackets
 
 
@@ -130,10 +131,15 @@ def _read(relation, columns: dict, by, con, frame) -> tuple[pd.DataFrame, list[s
     for role in _COLUMNS:
         items.append(s.alias(s.cast_double(_parse(columns[role], f"{role} column").unalias()), f"_uv_{role}"))
     select = exp.Select(expressions=items)
-    select.set("from_", _relation(relation))
+    frame_given = isinstance(relation, pd.DataFrame)
+    select.set("from_", _relation(_FRAME if frame_given else relation))
     connection = connect(con)
     sql = to_sql(select)
-    registered = register_caller_frames(connection, sql, frame)
+    if frame_given:  # a DataFrame passed itself (e.g. fetched from another engine): read under a reserved name
+        connection.register(_FRAME, relation)
+        registered = [_FRAME]
+    else:
+        registered = register_caller_frames(connection, sql, frame)
     try:
         df = execute_df(connection, sql)
     finally:
@@ -163,7 +169,8 @@ def from_brackets(relation, measures=DEFAULT_MEASURES, *, low: str = "low", high
     """Inequality measures with certified bounds and a point estimate from a bracket table.
 
     ``relation``: the bracket table (table name, quoted file path, table function, parenthesised query
-    with an alias, or a DataFrame the caller holds by that name). One row per bracket: ``low`` and
+    with an alias, a DataFrame the caller holds by that name, or a DataFrame itself, e.g. a bracket
+    table fetched from another engine). One row per bracket: ``low`` and
     ``high`` its ends (high NULL: the open top bracket), ``units`` how many units (people, households,
     or a weighted count), ``total`` the sum of their values (NULL when not published). ``by``: group
     keys; rows of a group naming the same bracket add up, so ``by`` a subset of the table's keys rolls
