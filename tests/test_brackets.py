@@ -600,3 +600,20 @@ def test_a_dataframe_passed_itself_from_another_engine():
     res = from_brackets(frame, MEASURES, by=["area"])
     assert list(res["area"]) == ["east"]
     assert_contains(res, micro_values(x))
+
+
+@pytest.mark.parametrize("column", ["low", "high", "units", "total"])
+def test_nan_is_refused_not_taken_for_missing(column):
+    table = pd.DataFrame({"low": [0.0, 10.0], "high": [10.0, 20.0], "units": [1.0, 1.0], "total": [5.0, 15.0]})
+    table.loc[1, column] = float("nan")
+    with pytest.raises(InputDataError, match=f"the {column} column .* holds NaN"):
+        from_brackets("(SELECT low, high, units, CASE WHEN total IS NULL THEN 'NaN'::DOUBLE ELSE total END AS total "
+                      "FROM table) t" if column == "total" else
+                      f"(SELECT * REPLACE (CASE WHEN {column} IS NULL THEN 'NaN'::DOUBLE ELSE {column} END AS {column}) "
+                      "FROM table) t", ["gini"])
+
+
+def test_negative_infinite_high_is_not_an_open_top():
+    table = pd.DataFrame({"low": [0.0, 10.0], "high": [10.0, -math.inf], "units": [1.0, 1.0], "total": [5.0, 15.0]})
+    with pytest.raises(InputDataError, match="must not be below"):
+        run(table, ["gini"])

@@ -129,7 +129,10 @@ def _read(relation, columns: dict, by, con, frame) -> tuple[pd.DataFrame, list[s
     names = [k.alias_or_name or f"key{i + 1}" for i, k in enumerate(keys)]
     items = [s.alias(k.unalias(), f"_uv_by{i + 1}") for i, k in enumerate(keys)]
     for role in _COLUMNS:
-        items.append(s.alias(s.cast_double(_parse(columns[role], f"{role} column").unalias()), f"_uv_{role}"))
+        value = s.cast_double(_parse(columns[role], f"{role} column").unalias())
+        items.append(s.alias(value, f"_uv_{role}"))
+        # NaN and NULL both arrive as NaN in pandas: a NaN in the table is flagged apart (never "missing")
+        items.append(s.alias(exp.Anonymous(this="isnan", expressions=[value.copy()]), f"_uv_nan_{role}"))
     select = exp.Select(expressions=items)
     frame_given = isinstance(relation, pd.DataFrame)
     select.set("from_", _relation(_FRAME if frame_given else relation))
@@ -147,6 +150,13 @@ def _read(relation, columns: dict, by, con, frame) -> tuple[pd.DataFrame, list[s
             connection.unregister(name)
         if con is None:
             connection.close()
+    for role in _COLUMNS:
+        bad = df[f"_uv_nan_{role}"].fillna(False).astype(bool)
+        if bad.any():
+            i = int(bad.to_numpy().argmax())
+            where = _group_label(names, [df[f"_uv_by{j + 1}"].iloc[i] for j in range(len(names))])
+            raise InputDataError(f"from_brackets: the {role} column ({columns[role]}) holds NaN"
+                                 f"{f' (group {where})' if where else ''}: a missing {role} is NULL, NaN is refused")
     return df, names
 
 

@@ -96,7 +96,7 @@ def check_brackets(low, high, units, total, group: str = "", allow_empty: bool =
         if lo < 0:
             raise InputDataError(f"from_brackets: bracket {_bracket(lo, hi)} starts below 0{where}; bracket "
                                  "tables of negative values are not supported")
-        if math.isnan(hi) or (math.isinf(hi) and hi < 0):
+        if math.isnan(hi):  # NULL: the open top
             hi = high[i] = math.inf
         if hi < lo:
             raise InputDataError(f"from_brackets: bracket from {lo:g} to {hi:g} ends before it starts{where}: "
