@@ -12,7 +12,6 @@ import inspect
 import math
 
 import duckdb
-import numpy as np
 import pandas as pd
 import sqlglot
 from sqlglot import exp
