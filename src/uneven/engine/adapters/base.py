@@ -51,7 +51,7 @@ class Adapter:
         raise NotImplementedError
 
     def unregister(self, name: str) -> None:
-        self.fetch_quietly(exp.Drop(this=exp.to_table(name, quoted=True), kind="TABLE", exists=True))
+        self.fetch_quietly(drop_table(quoted_table(name)))
 
     def has_table(self, name: str) -> bool:
         return False
@@ -137,6 +137,15 @@ class Adapter:
                 return None
 
         return types
+
+
+def quoted_table(name: str) -> exp.Table:
+    """A table of one quoted name (any text works as a name)."""
+    return exp.Table(this=exp.to_identifier(name, quoted=True))
+
+
+def drop_table(table: exp.Table) -> exp.Drop:
+    return exp.Drop(tables=[table], kind="TABLE", exists=True)
 
 
 def probe_select(select: exp.Select, projections: list[exp.Expression], limit: bool = True) -> exp.Select | None:

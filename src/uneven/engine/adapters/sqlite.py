@@ -7,7 +7,7 @@ import sqlite3
 
 from sqlglot import exp
 
-from uneven.engine.adapters.base import Adapter, NUMERIC, TEXT, probe_select
+from uneven.engine.adapters.base import Adapter, NUMERIC, TEXT, drop_table, probe_select, quoted_table
 from uneven.engine.sqlite import install_sqlite_functions, raised_message
 
 _TYPES = {"f": "REAL", "i": "INTEGER", "u": "INTEGER", "b": "INTEGER"}
@@ -66,12 +66,12 @@ class SQLiteAdapter(Adapter):
 
     def register(self, name: str, frame) -> None:
         from uneven.engine.adapters.postgres import _cell
-        table = exp.to_table(name, quoted=True)
+        table = quoted_table(name)
         cols = [exp.ColumnDef(this=exp.to_identifier(str(c), quoted=True),
                               kind=exp.DataType.build(_TYPES.get(frame[c].dtype.kind, "TEXT"), dialect="sqlite"))
                 for c in frame.columns]
         from uneven.compiler.emit import to_sql
-        self.con.execute(to_sql(exp.Drop(this=table.copy(), kind="TABLE", exists=True), "sqlite"))
+        self.con.execute(to_sql(drop_table(table.copy()), "sqlite"))
         self.con.execute(to_sql(exp.Create(this=exp.Schema(this=table.copy(), expressions=cols), kind="TABLE",
                                            properties=exp.Properties(expressions=[exp.TemporaryProperty()])),
                                 "sqlite"))
