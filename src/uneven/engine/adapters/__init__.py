@@ -27,6 +27,8 @@ def is_duckdb(con) -> bool:
 
 def adapt(con, owned: bool = False) -> Adapter:
     """The adapter of a connection object (see the module docstring); anything else is refused by name."""
+    if isinstance(con, Adapter):
+        return con
     if is_duckdb(con):
         import duckdb
         from uneven.engine.adapters.duckdb import DuckDBAdapter

@@ -60,6 +60,10 @@ class Adapter:
         _, rows, _ = self.fetch("EXPLAIN " + sql)
         return "\n".join(str(r[0]) for r in rows)
 
+    def interrupt(self) -> None:
+        """Ask the engine to stop the running query (Ctrl-C on the command line)."""
+        self.con.interrupt()
+
     def close(self) -> None:
         if self.owned:
             self.con.close()

@@ -70,6 +70,9 @@ class PostgresAdapter(Adapter):
             return False
         return bool(rows and rows[0][0])
 
+    def interrupt(self) -> None:
+        self.con.cancel_safe()
+
     def plan(self, sql: str) -> str:
         _, rows, _ = self.fetch("EXPLAIN " + sql)
         return "\n".join(r[0] for r in rows)

@@ -59,6 +59,9 @@ class SparkAdapter(Adapter):
         _, rows, _ = self.fetch("EXPLAIN " + sql)
         return "\n".join(str(r[0]) for r in rows)
 
+    def interrupt(self) -> None:
+        self.con.sparkContext.cancelAllJobs()
+
     def close(self) -> None:
         if self.owned:
             self.con.stop()

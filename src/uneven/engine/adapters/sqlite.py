@@ -3,7 +3,11 @@
 
 from __future__ import annotations
 
+import json
 import sqlite3
+
+import numpy as np
+import pandas as pd
 
 from sqlglot import exp
 
@@ -37,6 +41,16 @@ class SQLiteAdapter(Adapter):
             raise SQLiteError(raised_message(self.con) or str(e)) from None
         names = [d[0] for d in cur.description] if cur.description else []
         return names, rows, [None] * len(names)
+
+    def execute(self, sql: str):
+        """As on every engine, plus: list results (``lorenz_curve``), which SQLite gives as JSON text,
+        come back as arrays of dicts, as DuckDB gives them."""
+        df = super().execute(sql)
+        for name in df.columns[df.dtypes == object] if len(df.columns) == len(set(df.columns)) else []:
+            decoded = _json_lists(df[name])
+            if decoded is not None:
+                df[name] = decoded
+        return df
 
     def describe(self, sql: str):
         try:
@@ -87,6 +101,27 @@ class SQLiteAdapter(Adapter):
     def plan(self, sql: str) -> str:
         _, rows, _ = self.fetch("EXPLAIN QUERY PLAN " + sql)
         return "\n".join(" " * (2 * _depth(rows, r)) + str(r[-1]) for r in rows)
+
+
+def _json_lists(column: pd.Series) -> list | None:
+    """The column's values as arrays of dicts when every non-NULL value is JSON text of a list of
+    objects (the compiled SQL's list results); else None (the column is left alone)."""
+    out = []
+    for v in column:
+        if v is None:
+            out.append(None)
+            continue
+        if not (isinstance(v, str) and v.startswith("[{")):
+            return None
+        try:
+            items = json.loads(v)
+        except ValueError:
+            return None
+        if not all(isinstance(i, dict) for i in items):
+            return None
+        out.append(np.array([{k: float(x) if isinstance(x, int) else x for k, x in i.items()} for i in items],
+                            dtype=object))
+    return out if any(v is not None for v in out) else None
 
 
 def _depth(rows, row) -> int:
