@@ -58,7 +58,8 @@ def open_url(url: str) -> Adapter:
             raise EngineUnavailableError(f"cannot open the SQLite database {path}: {_first_line(e)}") from None
         return adapt(con, owned=True)
     if scheme == "spark":
-        return adapt(_spark(url), owned=True)
+        session, started = _spark(url)
+        return adapt(session, owned=started)
     raise EngineUnavailableError(f"unknown engine URL {url!r}; the spellings are: {', '.join(SPELLINGS)}")
 
 
@@ -94,10 +95,13 @@ def _spark(url: str):
         from pyspark.sql import SparkSession
     except ImportError:
         raise _missing("Spark", "pyspark", "spark") from None
+    active = SparkSession.getActiveSession()
+    if active is not None:  # a session this process already runs is used, and left running
+        return active, False
     try:
         session = (SparkSession.builder.master(master).appName("uneven")
                    .config("spark.ui.showConsoleProgress", "false").getOrCreate())
     except Exception as e:  # noqa: BLE001  Java missing, master unreachable …
         raise EngineUnavailableError(f"cannot start a Spark session on {master}: {_first_line(e)}") from None
     session.sparkContext.setLogLevel("ERROR")
-    return session
+    return session, True
