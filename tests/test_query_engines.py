@@ -306,3 +306,40 @@ def test_cli_help_documents_the_engine_spellings(capsys):
     for spelling in ("duckdb:///FILE.duckdb", "postgresql://[USER@]HOST[:PORT]/DBNAME", "sqlite:///RELATIVE.db",
                      "spark:local[N]", "spark://HOST:PORT", "service"):
         assert spelling in text, spelling
+
+
+# --- SQLAlchemy (the optional `sqlalchemy` extra): its driver connection is used -----------------
+
+def test_sqlalchemy_engine_and_connection(tmp_path):
+    sqlalchemy = pytest.importorskip("sqlalchemy")
+    path = tmp_path / "s.db"
+    raw = sqlite3.connect(path)
+    raw.execute("CREATE TABLE t (x REAL)")
+    raw.executemany("INSERT INTO t VALUES (?)", [(1.0,), (2.0,), (3.0,), (10.0,)])
+    raw.commit()
+    raw.close()
+    eng = sqlalchemy.create_engine(f"sqlite:///{path}")
+    # handbook: Gini = Σ|xi − xj| / (2 n² μ) = 56 / 128 for {1, 2, 3, 10} (pairs: 1+2+9+1+8+7 = 28, twice)
+    assert close(uneven.query("SELECT gini(x) AS g FROM t", eng)["g"].iloc[0], 56 / 128)
+    with eng.connect() as c:
+        assert close(uneven.query("SELECT gini(x) AS g FROM t", c)["g"].iloc[0], 56 / 128)
+    assert eng.pool.checkedout() == 0  # the connection taken from the pool went back
+
+
+def test_sqlalchemy_over_postgres():
+    sqlalchemy = pytest.importorskip("sqlalchemy")
+    pg = engine_or_skip("postgres")  # the matrix's server; the matrix's rows in a table of their own
+    data = make_groups()
+    pg.load(data, "t_sqlalchemy")
+    import psycopg
+    from engines import PostgresEngine
+    info = psycopg.conninfo.conninfo_to_dict(PostgresEngine.server.dsn)
+    url = sqlalchemy.engine.URL.create("postgresql+psycopg", username=info.get("user"), password=info.get("password"),
+                                       host=info.get("host"), port=int(info.get("port", 5432)),
+                                       database=info.get("dbname"))
+    eng = sqlalchemy.create_engine(url)
+    got = uneven.query("SELECT grp, theil(x) AS t FROM t_sqlalchemy WHERE grp = 'g0' GROUP BY grp", eng)
+    rows = data[(data["grp"] == "g0") & data["x"].notna()]
+    assert close(got["t"].iloc[0], R.theil(rows["x"].astype(float).to_numpy()))
+    eng.dispose()
+    pg.close()
