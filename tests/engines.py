@@ -11,6 +11,7 @@ UNEVEN_REQUIRE_ENGINES=1, as in CI, an absent engine fails instead.
 from __future__ import annotations
 
 import atexit
+import math
 import os
 import shutil
 import sqlite3
@@ -18,6 +19,7 @@ import tempfile
 from pathlib import Path
 
 import duckdb
+import numpy as np
 import pandas as pd
 import pytest
 
@@ -216,6 +218,50 @@ class SQLiteEngine(DuckDBEngine):
             return pd.DataFrame(cur.fetchall(), columns=names, dtype=object)
         except sqlite3.Error as e:
             raise EngineError(self.raised_message(self.con) or str(e)) from None
+
+
+# --- the same engines driven through uneven.query(sql, con=…) ------------------------------------
+
+def _python_value(v):
+    """A cell of a query() result as the matrix's engines give it: NULL (NaN/NA in a typed column, as
+    DuckDB's DataFrames carry it) as None, list results as lists of dicts, numpy scalars as Python's."""
+    if isinstance(v, np.ndarray):
+        return [_python_value(i) for i in v]
+    if isinstance(v, dict):
+        return {k: _python_value(i) for k, i in v.items()}
+    if v is None or v is pd.NA or (isinstance(v, float) and math.isnan(v)):
+        return None
+    return v.item() if isinstance(v, np.generic) else v
+
+
+class ThroughQuery:
+    """An engine of the matrix whose ``run`` goes through ``uneven.query(sql, con=<its connection>)``:
+    the dialect comes from the connection, the compiler asks the engine for columns and types, and
+    errors arrive as UnevenErrors. Results are turned back into Python values (NULL as None), so the
+    matrix's checks apply unchanged; NULL and NaN are one value in a typed DataFrame (as on DuckDB),
+    so the compiled-SQL matrix remains the check that no NaN is ever returned."""
+
+    def __init__(self, inner):
+        self.inner = inner
+        self.name, self.label, self.dialect = inner.name, inner.label, inner.dialect
+
+    @property
+    def con(self):
+        return self.inner.spark if isinstance(self.inner, SparkEngine) else self.inner.con
+
+    def load(self, df: pd.DataFrame, table: str = "t") -> None:
+        self.inner.load(df, table)
+
+    def execute(self, compiled: str) -> pd.DataFrame:
+        return self.inner.execute(compiled)
+
+    def run(self, sql: str, **options) -> pd.DataFrame:
+        df = uneven.query(sql, self.con, **options)
+        rows = [[_python_value(v) for v in row] for row in df.itertuples(index=False)]
+        return pd.DataFrame(rows, columns=list(df.columns), dtype=object)
+
+    def close(self):
+        self.inner.close()
 
 
 ENGINES = {"duckdb": DuckDBEngine, "postgres": PostgresEngine, "spark": SparkEngine, "sqlite": SQLiteEngine}

@@ -11,11 +11,13 @@ from uneven.bounds.run import pick_resolution, run_bounded
 from uneven.catalog import MEASURES
 from uneven.compiler.bounded import check_method
 from uneven.compiler import compile_sql
+from uneven.engine.adapters import adapt, is_duckdb
 from uneven.engine.columns import duckdb_expression_types, duckdb_source_columns
-from uneven.engine.frames import register_caller_frames
+from uneven.engine.frames import register_caller_frames, register_frames_on
 from uneven.engine.runner import connect, execute_df
 from uneven.engine.ties import duckdb_tie_probe
-from uneven.explain import Explanation, explain_query
+from uneven.errors import UnevenError
+from uneven.explain import Explanation, explain_on, explain_query
 
 
 def compile(sql: str, dialect: str = "duckdb", *, read: str = "duckdb", pretty: bool = True,  # noqa: A001
@@ -38,11 +40,17 @@ def compile(sql: str, dialect: str = "duckdb", *, read: str = "duckdb", pretty: 
                        method=method, resolution=pick_resolution(method, tolerance, resolution))
 
 
-def query(sql: str, con: duckdb.DuckDBPyConnection | None = None, *, memory_limit: str | None = None,
+def query(sql: str, con=None, *, memory_limit: str | None = None,
           threads: int | None = None, temp_directory: str | None = None,
           progress: bool = False, strict: bool = False, tie_grouping: str = "auto", method: str = "exact",
-          tolerance: float | None = None, resolution: float | None = None) -> pd.DataFrame:
-    """Compile ``sql`` and run it on DuckDB (``con``, or a new in-memory connection).
+          tolerance: float | None = None, resolution: float | None = None, read: str = "duckdb") -> pd.DataFrame:
+    """Compile ``sql`` and run it on ``con``: a DuckDB connection (default: a new in-memory one), a
+    psycopg 3 connection (PostgreSQL), a ``SparkSession``, a ``sqlite3.Connection`` (the functions
+    its SQL needs are installed on it), or a SQLAlchemy engine/connection over PostgreSQL or SQLite.
+    The SQL is compiled for that engine and the result is a DataFrame with the columns and types
+    DuckDB gives (docs/engines.md). ``read``: the dialect ``sql`` is written in (default DuckDB's,
+    as for ``compile``). ``memory_limit``, ``threads``, ``temp_directory`` and ``progress`` are
+    DuckDB settings.
 
     Tables the query names may also be pandas DataFrames or Arrow tables held by the calling code
     under that name, as with ``duckdb.sql``. ``tie_grouping``: see ``compile``; with ``"auto"``
@@ -55,12 +63,17 @@ def query(sql: str, con: duckdb.DuckDBPyConnection | None = None, *, memory_limi
     """
     method = check_method(method)
     chosen = pick_resolution(method, tolerance, resolution)
+    if not is_duckdb(con):
+        check_duckdb_settings(memory_limit=memory_limit, threads=threads, temp_directory=temp_directory,
+                              progress=progress)
+        return run_on(adapt(con), sql, inspect.currentframe().f_back, strict=strict, tie_grouping=tie_grouping,
+                      method=method, resolution=chosen, tolerance=tolerance, read=read)
     connection = connect(con, memory_limit=memory_limit, threads=threads, temp_directory=temp_directory,
                          progress=progress)
     registered = register_caller_frames(connection, sql, inspect.currentframe().f_back)
     try:
         def run(res):
-            compiled = compile_sql(sql, dialect="duckdb", pretty=False, strict=strict, method=method,
+            compiled = compile_sql(sql, dialect="duckdb", read=read, pretty=False, strict=strict, method=method,
                                    resolution=res, source_columns=duckdb_source_columns(connection),
                                    tie_grouping=tie_grouping, tie_probe=duckdb_tie_probe(connection),
                                    expression_types=duckdb_expression_types(connection))
@@ -75,16 +88,54 @@ def query(sql: str, con: duckdb.DuckDBPyConnection | None = None, *, memory_limi
             connection.close()
 
 
-def explain(sql: str, con: duckdb.DuckDBPyConnection | None = None, *, profile: bool = False,
+def check_duckdb_settings(**settings) -> None:
+    given = [name for name, value in settings.items() if value not in (None, False)]
+    if given:
+        raise UnevenError(f"{', '.join(given)} {'is a DuckDB setting' if len(given) == 1 else 'are DuckDB settings'}"
+                          "; set the other engine's own options on its connection instead")
+
+
+def run_on(adapter, sql: str, caller, *, strict: bool, tie_grouping: str, method: str, resolution, tolerance,
+           read: str) -> pd.DataFrame:
+    """``query`` on an engine other than DuckDB (engine/adapters): compile for its dialect with its
+    answers to the compiler's probes (columns, argument types), run, type the result as DuckDB does."""
+    registered = register_frames_on(adapter, sql, caller)
+    try:
+        def run(res):
+            compiled = compile_sql(sql, dialect=adapter.dialect, read=read, pretty=False, strict=strict,
+                                   method=method, resolution=res, source_columns=adapter.source_columns(),
+                                   tie_grouping=tie_grouping, expression_types=adapter.expression_types())
+            return adapter.execute(compiled)
+        if method == "exact":
+            return run(None)
+        return run_bounded(run, resolution, tolerance, sql)
+    finally:
+        for name in registered:
+            adapter.unregister(name)
+
+
+def explain(sql: str, con=None, *, profile: bool = False,
             memory_limit: str | None = None, threads: int | None = None, temp_directory: str | None = None,
-            strict: bool = False, tie_grouping: str = "auto") -> Explanation:
+            strict: bool = False, tie_grouping: str = "auto", read: str = "duckdb") -> Explanation:
     """The passes the planner chooses for ``sql`` on DuckDB (kind, variant, value, weight, FILTER,
     measures served, CTE names, reason) and, with ``profile=True``, the time DuckDB spends per
-    operator when it runs the query once. ``print(explain(...))`` shows a readable summary."""
+    operator when it runs the query once. ``print(explain(...))`` shows a readable summary.
+    On another engine (``con`` as for ``query``) the passes are those compiled for it and
+    ``engine_plan`` holds the engine's own plan (PostgreSQL's EXPLAIN, with ``profile=True``
+    EXPLAIN ANALYZE; Spark's EXPLAIN; SQLite's EXPLAIN QUERY PLAN)."""
+    if not is_duckdb(con):
+        check_duckdb_settings(memory_limit=memory_limit, threads=threads, temp_directory=temp_directory)
+        adapter = adapt(con)
+        registered = register_frames_on(adapter, sql, inspect.currentframe().f_back)
+        try:
+            return explain_on(sql, adapter, profile=profile, strict=strict, tie_grouping=tie_grouping, read=read)
+        finally:
+            for name in registered:
+                adapter.unregister(name)
     connection = connect(con, memory_limit=memory_limit, threads=threads, temp_directory=temp_directory)
     registered = register_caller_frames(connection, sql, inspect.currentframe().f_back)
     try:
-        return explain_query(sql, connection, profile=profile, strict=strict, tie_grouping=tie_grouping)
+        return explain_query(sql, connection, profile=profile, strict=strict, tie_grouping=tie_grouping, read=read)
     finally:
         for name in registered:
             connection.unregister(name)

@@ -74,3 +74,8 @@ class InputDataError(UnevenError):
 
 class UndefinedResultError(UnevenError):
     """In strict mode, a measure is undefined (NULL) for a group."""
+
+
+class EngineUnavailableError(UnevenError):
+    """The engine named (a connection URL, a connection object) cannot be used: its driver is not
+    installed, or the object is no connection uneven knows."""

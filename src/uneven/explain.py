@@ -33,6 +33,8 @@ class Explanation:
     total_seconds: float | None = None
     result_rows: int | None = None
     system: dict = field(default_factory=dict)
+    engine: str = "DuckDB"
+    engine_plan: str | None = None  # the engine's own plan (engines other than DuckDB)
 
     def text(self, show_sql: bool = False, top: int = 15) -> str:
         lines = [f"passes ({len(self.passes)}):"]
@@ -51,7 +53,7 @@ class Explanation:
                 lines.append(f"     chosen because: {p['reason']}")
         if not self.passes:
             lines.append("  (no measure calls: the query runs as written)")
-        if self.operators is not None:
+        if self.operators is not None and self.engine_plan is None:
             lines.append(f"\nprofile: {self.total_seconds:.3f} s in DuckDB, {self.result_rows} result rows")
             if self.system:
                 lines.append("  " + ", ".join(f"{k.replace('_', ' ')}: {_size(v)}" for k, v in self.system.items()))
@@ -63,6 +65,11 @@ class Explanation:
             if len(self.operators) > top:
                 rest = sum(o["seconds"] for o in self.operators[top:])
                 lines.append(f"  ({len(self.operators) - top} more operators, {rest:.3f} s)")
+        if self.engine_plan is not None:
+            lines.append(f"\n{self.engine}'s plan:")
+            lines += ["  " + line for line in self.engine_plan.splitlines()]
+            if self.total_seconds is not None:
+                lines.append(f"ran in {self.total_seconds:.3f} s on {self.engine}, {self.result_rows} result rows")
         if show_sql:
             lines += ["", "compiled SQL:", self.sql]
         return "\n".join(lines)
@@ -81,11 +88,35 @@ def _size(n) -> str:
     return str(n)
 
 
+def explain_on(sql: str, adapter, *, profile: bool = False, strict: bool = False, tie_grouping: str = "auto",
+               read: str = "duckdb") -> Explanation:
+    """``explain_query`` on another engine (engine/adapters): the passes compiled for its dialect and
+    its own plan; with ``profile`` the query runs once (PostgreSQL: EXPLAIN ANALYZE) and is timed."""
+    import time
+
+    compiled, passes = compile_with_plan(sql, dialect=adapter.dialect, read=read, pretty=True, strict=strict,
+                                         source_columns=adapter.source_columns(), tie_grouping=tie_grouping,
+                                         expression_types=adapter.expression_types())
+    out = Explanation(passes=passes, sql=compiled, engine=adapter.label)
+    try:
+        if profile and adapter.dialect == "postgres":
+            out.engine_plan = adapter.plan_analyzed(compiled)
+        else:
+            out.engine_plan = adapter.plan(compiled)
+        if profile:
+            start = time.perf_counter()
+            out.result_rows = len(adapter.execute(compiled))
+            out.total_seconds = time.perf_counter() - start
+    except adapter.errors() as e:
+        raise adapter.translate(e) from None
+    return out
+
+
 def explain_query(sql: str, con: duckdb.DuckDBPyConnection, *, profile: bool = False, strict: bool = False,
-                  tie_grouping: str = "auto") -> Explanation:
+                  tie_grouping: str = "auto", read: str = "duckdb") -> Explanation:
     """Compile ``sql`` as ``query`` would on ``con`` (same probes) and describe its passes; with
     ``profile`` also run it once under DuckDB's profiler."""
-    compiled, passes = compile_with_plan(sql, dialect="duckdb", pretty=True, strict=strict,
+    compiled, passes = compile_with_plan(sql, dialect="duckdb", read=read, pretty=True, strict=strict,
                                          source_columns=duckdb_source_columns(con),
                                          tie_grouping=tie_grouping, tie_probe=duckdb_tie_probe(con))
     out = Explanation(passes=passes, sql=compiled)

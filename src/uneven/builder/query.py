@@ -20,6 +20,7 @@ from uneven.bounds.run import pick_resolution, run_bounded
 from uneven.builder.measures import MeasureCall, column
 from uneven.compiler import compile_sql
 from uneven.compiler.bounded import check_method
+from uneven.engine.adapters import adapt, is_duckdb
 from uneven.engine.runner import connect, translate_error
 from uneven.errors import UnevenError, MeasureArgumentError, SqlParseError
 from uneven.compiler.emit import to_sql
@@ -143,12 +144,35 @@ class Query:
         except duckdb.Error as e:
             raise translate_error(e) from None
 
+    def _run_on(self, method: str = "exact", resolution: float | None = None) -> pd.DataFrame:
+        """Run on an engine other than DuckDB (the builder's ``con``: engine/adapters)."""
+        adapter = adapt(self.con)
+        registered = self.frame is not None
+        if registered:
+            adapter.register(SOURCE, self.frame)
+        try:
+            found = adapter.describe(adapter.compile_probe(exp.select("*").from_(self.source.copy()).limit(0)))
+            if found is not None:
+                self._check_types({n: t for n, t in found if t is not None})
+            compiled = compile_sql(to_sql(self.tree()), dialect=adapter.dialect, pretty=False, method=method,
+                                   resolution=resolution, source_columns=adapter.source_columns(),
+                                   expression_types=adapter.expression_types())
+            return adapter.execute(compiled)
+        finally:
+            if registered:
+                adapter.unregister(SOURCE)
+
     def df(self, *, method: str | None = None, tolerance: float | None = None,
            resolution: float | None = None) -> pd.DataFrame:
-        """Run on DuckDB. ``method="bounded"`` (or an earlier ``.method("bounded")``): intervals, as
+        """Run on DuckDB, or on the engine of ``con`` given to ``from_`` (PostgreSQL, Spark, SQLite). ``method="bounded"`` (or an earlier ``.method("bounded")``): intervals, as
         ``uneven.query`` gives them, with the resolution and widths in ``attrs["uneven"]`` and one
         run with finer bins when a share-scale interval is wider than ``tolerance``."""
         name, tol, res = self._how(method, tolerance, resolution)
+        if not is_duckdb(self.con):
+            if name == "exact":
+                return self._run_on()
+            return run_bounded(lambda r: self._run_on(name, r), pick_resolution(name, tol, res), tol,
+                               to_sql(self.tree()))
         try:
             if name == "exact":
                 return self._run().df()
@@ -162,7 +186,7 @@ class Query:
     def arrow(self, *, method: str | None = None, tolerance: float | None = None, resolution: float | None = None):
         """As ``df()``, as an Arrow table."""
         name, tol, res = self._how(method, tolerance, resolution)
-        if name == "bounded" and tol is not None:  # the refinement reads the widths from a DataFrame
+        if (name == "bounded" and tol is not None) or not is_duckdb(self.con):  # widths read from a DataFrame
             import pyarrow as pa
             return pa.Table.from_pandas(self.df(method=name, tolerance=tol), preserve_index=False)
         try:
@@ -190,9 +214,17 @@ def _is_path(text: str) -> bool:
     return os.path.splitext(text)[1].lower() in _READERS or any(ch in text for ch in "*?[/\\")
 
 
-def from_(source, con: duckdb.DuckDBPyConnection | None = None) -> Query:
+def from_(source, con=None) -> Query:
     """Start a query: a file path or glob (Parquet, CSV, JSON), a table name on ``con``, a DuckDB
-    relation, a pandas DataFrame or an Arrow table."""
+    relation, a pandas DataFrame or an Arrow table, or a Spark DataFrame. ``con`` may be any
+    connection ``uneven.query`` takes (PostgreSQL, Spark, SQLite …): the query runs there, and a
+    pandas frame is loaded into it as a temporary table for the run."""
+    if type(source).__module__.startswith("pyspark.sql") and type(source).__name__ == "DataFrame":
+        return Query(exp.to_table(SOURCE), con if con is not None else source.sparkSession, frame=source)
+    if con is not None and not is_duckdb(con):
+        adapt(con)  # a connection uneven cannot use is refused now, by name
+        if isinstance(source, (str, os.PathLike)) and _is_path(os.fspath(source)):
+            raise BuilderError(f"from_(): files are read by DuckDB; on {adapt(con).label} name a table instead")
     if isinstance(source, duckdb.DuckDBPyRelation):
         return Query(exp.to_table(SOURCE), None, frame=source)
     if isinstance(source, os.PathLike):
@@ -215,6 +247,6 @@ def from_(source, con: duckdb.DuckDBPyConnection | None = None) -> Query:
                           catalog=parts[-3] if len(parts) > 2 else None)
         return Query(table, con)
     if type(source).__module__.split(".")[0] in ("pandas", "pyarrow", "polars"):
-        return Query(exp.to_table(SOURCE), con or duckdb.connect(), frame=source)
+        return Query(exp.to_table(SOURCE), con if con is not None else duckdb.connect(), frame=source)
     raise BuilderError(f"from_(): unsupported source {type(source).__name__}; give a file path or glob, a table "
                        "name with con=, a DuckDB relation, a pandas DataFrame or an Arrow table")

@@ -29,7 +29,33 @@ def add_engine_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--database", metavar="FILE", help="a DuckDB database file to query (default: in memory)")
 
 
+ENGINE_HELP = ("where the query runs: duckdb:///FILE.duckdb (the default's long form: DuckDB, in memory "
+               "unless a file), postgresql://[USER@]HOST[:PORT]/DBNAME (credentials from the URL, the PG* "
+               "environment variables, ~/.pgpass or a service file: postgresql:///?service=NAME), "
+               "sqlite:///RELATIVE.db or sqlite:////ABSOLUTE.db, spark:local[N] (a Spark session in this "
+               "process) or spark://HOST:PORT (a Spark cluster's master); tables are the engine's own")
+
+
+def add_engine_url_option(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--engine", metavar="URL", help=ENGINE_HELP)
+
+
 def connection(args):
+    """The connection a command runs on: ``--engine URL`` (a DuckDB connection for duckdb://, else the
+    engine's adapter, engine/adapters), ``--database FILE`` (DuckDB), or None (DuckDB in memory)."""
+    if getattr(args, "engine", None):
+        if getattr(args, "database", None):
+            raise UnevenError("give either --engine or --database (--database FILE is --engine duckdb:///FILE)")
+        from uneven.engine.adapters import open_url
+        adapter = open_url(args.engine)
+        if adapter.dialect == "duckdb":
+            return adapter.con
+        given = {k: v for k, v in settings(args).items() if v is not None}
+        if given:
+            adapter.close()
+            raise UnevenError(f"--{next(iter(given)).replace('_', '-')} is a DuckDB setting; it does not apply "
+                              f"to {adapter.label}")
+        return adapter
     if getattr(args, "database", None):
         import duckdb
         if not Path(args.database).exists():

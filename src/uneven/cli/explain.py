@@ -5,7 +5,7 @@ from __future__ import annotations
 import json
 
 import uneven
-from uneven.cli.common import add_engine_options, connection, read_sql, settings
+from uneven.cli.common import add_engine_options, add_engine_url_option, connection, read_sql, settings
 
 EPILOG = """examples:
   uneven explain "SELECT region, gini(income, w), palma(income, w) FROM 'x.parquet' GROUP BY region"
@@ -33,6 +33,7 @@ def register(sub) -> None:
                    "on, off")
     p.add_argument("--strict", action="store_true", help="compile every measure call as strict")
     add_engine_options(p)
+    add_engine_url_option(p)
     p.set_defaults(handler=run)
 
 

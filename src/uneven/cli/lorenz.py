@@ -7,7 +7,7 @@ import argparse
 import sys
 from pathlib import Path
 
-from uneven.cli.common import add_engine_options, connection, settings
+from uneven.cli.common import add_engine_options, add_engine_url_option, connection, settings
 from uneven.engine.output import format_text, write_result
 from uneven.engine.progress import run_watched
 from uneven.errors import UnevenError
@@ -53,6 +53,7 @@ def register(sub) -> None:
                    help="write to FILE: .png or .svg (plot), .csv, .json or .parquet (points table)")
     p.add_argument("--force", action="store_true", help="replace FILE if it exists")
     add_engine_options(p)
+    add_engine_url_option(p)
     p.set_defaults(handler=run)
 
 

@@ -8,7 +8,8 @@ import sys
 
 import uneven
 from uneven.compiler.dialects import EXECUTED_DIALECTS, SUPPORTED_DIALECTS
-from uneven.cli.common import add_engine_options, add_output_options, connection, emit_result, read_sql, settings
+from uneven.cli.common import (add_engine_options, add_engine_url_option, add_output_options, connection, emit_result,
+                               read_sql, settings)
 from uneven.errors import UnevenError
 
 EPILOG = """examples:
@@ -40,6 +41,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="stop with an error naming the group where a measure is undefined (instead of NULL)")
     add_method_options(q)
     add_engine_options(q)
+    add_engine_url_option(q)
 
     c = sub.add_parser("compile", help="print the plain SQL a query compiles to",
                        description="Print the plain SQL (no measure calls left) a query compiles to.")

@@ -7,7 +7,7 @@ import argparse
 from pathlib import Path
 
 from uneven.cli.lorenz import add_source_options, open_for
-from uneven.cli.common import add_engine_options
+from uneven.cli.common import add_engine_options, add_engine_url_option
 from uneven.engine.progress import run_watched
 
 EPILOG = """examples:
@@ -34,6 +34,7 @@ def register(sub) -> None:
     p.add_argument("--points", type=int, default=50, metavar="K", help="Lorenz grid: K+1 points per group (default 50)")
     p.add_argument("--force", action="store_true", help="replace the report (and its SVG files) if they exist")
     add_engine_options(p)
+    add_engine_url_option(p)
     p.set_defaults(handler=run)
 
 

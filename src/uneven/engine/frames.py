@@ -43,3 +43,21 @@ def register_caller_frames(con, sql: str, frame: types.FrameType | None) -> list
             con.register(name, obj)
             done.append(name)
     return done
+
+
+def register_frames_on(adapter, sql: str, frame: types.FrameType | None) -> list[str]:
+    """``register_caller_frames`` on another engine: pandas frames the SQL names and the caller holds
+    become temporary tables there (a Spark DataFrame becomes a temporary view), unless the engine
+    has a table of that name."""
+    if frame is None:
+        return []
+    done = []
+    for name in sorted(_table_names(sql)):
+        obj = frame.f_locals.get(name, frame.f_globals.get(name))
+        if obj is None or not (_is_frame(obj) or type(obj).__module__.startswith("pyspark.sql")):
+            continue
+        if type(obj).__name__ != "DataFrame" or adapter.has_table(name):
+            continue
+        adapter.register(name, obj)
+        done.append(name)
+    return done

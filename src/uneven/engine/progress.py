@@ -34,7 +34,10 @@ def wants_progress(stream=None) -> bool:
 
 
 def enable_tracking(con: duckdb.DuckDBPyConnection) -> bool:
-    """Let DuckDB track progress without printing its own bar; False where the settings are refused."""
+    """Let DuckDB track progress without printing its own bar; False where the settings are refused
+    (and for other engines, engine/adapters, which draw no progress line)."""
+    if not isinstance(con, duckdb.DuckDBPyConnection):
+        return False
     try:
         con.execute("SET enable_progress_bar_print = false")
         con.execute("SET enable_progress_bar = true")
@@ -74,8 +77,8 @@ def run_watched(con: duckdb.DuckDBPyConnection, work: Callable[[], T], *, show: 
     when it is a terminal and the work lasts longer than ``delay``; stop cleanly on Ctrl-C."""
     stream = sys.stderr if stream is None else stream
     show = wants_progress(stream) if show is None else show
-    if show:
-        show = enable_tracking(con)
+    if show:  # DuckDB reports progress; other engines (engine/adapters) run without a line
+        show = isinstance(con, duckdb.DuckDBPyConnection) and enable_tracking(con)
     outcome: dict = {}
     done = threading.Event()  # waited on instead of join(): a join cut by Ctrl-C can mark a live
     #                           thread as stopped (CPython 3.11, threading._wait_for_tstate_lock)
@@ -119,7 +122,7 @@ def _stop(con, done: threading.Event) -> None:
     next interrupt stops."""
     while not done.is_set():
         try:
-            con.interrupt()
-        except duckdb.Error:
+            con.interrupt()  # DuckDB's, or an engine adapter's (cancel on PostgreSQL, Spark, SQLite)
+        except Exception:  # noqa: BLE001  the interrupt is a request; the worker's outcome decides
             pass
         done.wait(0.05)

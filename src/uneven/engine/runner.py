@@ -56,6 +56,13 @@ def execute_df(con: duckdb.DuckDBPyConnection, sql: str) -> pd.DataFrame:
 _ECHOED = re.compile(r"(?:'|map\(errorMessage, )uneven: ")
 
 
+def _unquoted(message: str) -> str:
+    """A check message without the closing quote PostgreSQL's failing cast puts after it, or the
+    SQLSTATE Spark appends."""
+    message = re.sub(r"\s*SQLSTATE: \w+\s*$", "", message.rstrip())
+    return message[:-1] if message.endswith(')"') else message
+
+
 def translate_error(e: Exception, engine: str = "DuckDB") -> Exception:
     """An engine's error as an ``UnevenError``: the messages of the compiled SQL's own checks (error()
     calls, the same text on every engine) become InputDataError / UndefinedResultError; anything else
@@ -65,14 +72,14 @@ def translate_error(e: Exception, engine: str = "DuckDB") -> Exception:
     text = _ECHOED.sub("", str(e))
     m = re.search(r"uneven: (negative weight in .*?)(?:\n|$)", text)
     if m:
-        return InputDataError(f"{m.group(1).rstrip()} (weights must be ≥ 0; rows with weight 0 change nothing and are skipped)")
+        return InputDataError(f"{_unquoted(m.group(1))} (weights must be ≥ 0; rows with weight 0 change nothing and are skipped)")
     m = re.search(r"uneven: (NaN or infinite (?:value|weight) in .*?)(?:\n|$)", text)
     if m:
-        return InputDataError(f"{m.group(1).rstrip()} (values and weights must be finite numbers; NULLs are "
+        return InputDataError(f"{_unquoted(m.group(1))} (values and weights must be finite numbers; NULLs are "
                               "skipped: filter the rows, e.g. WHERE isfinite(x), or turn them into NULL)")
     m = re.search(r"uneven: (.*? is undefined \(NULL\) for .*?)(?:\n|$)", text)
     if m:
-        return UndefinedResultError(f"{m.group(1).rstrip()} (strict mode: an empty group, a total ≤ 0 or "
+        return UndefinedResultError(f"{_unquoted(m.group(1))} (strict mode: an empty group, a total ≤ 0 or "
                                     "values outside the measure's domain; see `uneven measures`)")
     if "value out of range: overflow" in text:  # PostgreSQL: double arithmetic past ±1.8e308 raises
         return ExecutionError(f"{engine} could not run the query: {_first_line(e)} (a sum or product of the "

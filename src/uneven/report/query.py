@@ -10,6 +10,7 @@ import pandas as pd
 from sqlglot import exp
 
 from uneven.compiler import compile_sql
+from uneven.engine.adapters import Adapter, adapt, is_duckdb
 from uneven.engine.columns import duckdb_source_columns
 from uneven.engine.runner import connect, execute_df
 from uneven.errors import UnevenError
@@ -40,7 +41,10 @@ def alias(e: exp.Expression, name: str) -> exp.Alias:
 
 
 def run_tree(con: duckdb.DuckDBPyConnection, tree: exp.Expression) -> pd.DataFrame:
-    """Compile a tree with measure calls and run it on ``con``."""
+    """Compile a tree with measure calls and run it on ``con`` (DuckDB, or an engine adapter)."""
+    if isinstance(con, Adapter):
+        return con.execute(compile_sql(to_sql(tree), dialect=con.dialect, pretty=False,
+                                       source_columns=con.source_columns(), expression_types=con.expression_types()))
     compiled = compile_sql(to_sql(tree), pretty=False, source_columns=duckdb_source_columns(con))
     return execute_df(con, compiled)
 
@@ -73,7 +77,12 @@ def make_spec(con: duckdb.DuckDBPyConnection, source, value: str, weight: str | 
 
 
 def open_connection(con=None, **settings) -> tuple[duckdb.DuckDBPyConnection, bool]:
-    """The connection to use and whether we opened it (and so must close it)."""
+    """The connection to use and whether we opened it (and so must close it). Another engine's
+    adapter (engine/adapters) is used as it is: its settings are its own."""
+    if isinstance(con, Adapter):
+        return con, False
+    if con is not None and not is_duckdb(con):
+        return adapt(con), False
     owned = con is None
     progress = False
     if not owned:  # keep the caller's progress setting (a progress line may be reading it)

@@ -79,6 +79,9 @@ def _table_expression(con: duckdb.DuckDBPyConnection, name: str) -> exp.Table:
 
 def resolve_source(con: duckdb.DuckDBPyConnection, source) -> Source:
     """A ``Source`` for ``source``: a DataFrame/Arrow table, a file path or glob, or a table name."""
+    from uneven.engine.adapters import Adapter
+    if isinstance(con, Adapter):
+        return _resolve_on(con, source)
     if not isinstance(source, str):
         try:
             con.register(FRAME_NAME, source)
@@ -98,6 +101,28 @@ def resolve_source(con: duckdb.DuckDBPyConnection, source) -> Source:
     else:
         src = Source(_table_expression(con, source), f"the table {source}")
     src.columns = describe(con, src)
+    return src
+
+
+def _resolve_on(adapter, source) -> Source:
+    """``resolve_source`` on another engine (engine/adapters): a table of that engine, or a pandas
+    frame loaded there as a temporary table; files are DuckDB's to read."""
+    if not isinstance(source, str):
+        adapter.register(FRAME_NAME, source)
+        src = Source(exp.table_(FRAME_NAME, quoted=True), f"the {type(source).__name__} given")
+    elif _looks_like_file(source):
+        raise SourceError(f"{source}: files are read by DuckDB; on {adapter.label} name a table of that engine")
+    else:
+        parts = source.split(".")
+        if len(parts) > 3 or not all(parts):
+            raise SourceError(f"{source!r} is not a table name (expected TABLE, SCHEMA.TABLE or DATABASE.SCHEMA.TABLE)")
+        table, db, catalog = (list(reversed(parts)) + [None, None])[:3]
+        src = Source(exp.table_(table, db=db, catalog=catalog, quoted=True), f"the table {source}")
+    found = adapter.describe(adapter.compile_probe(exp.select(exp.Star()).from_(src.from_.copy()).limit(0)))
+    if found is None:
+        raise SourceError(f"no table or view {source} on {adapter.label} (or it cannot be read)")
+    # SQLite declares no types for a query's columns: numeric checks are left to the compiler's probe
+    src.columns = {name: kind or "DOUBLE" for name, kind in found}
     return src
 
 

@@ -11,7 +11,6 @@ from __future__ import annotations
 import inspect
 from pathlib import Path
 
-import duckdb
 import pandas as pd
 import sqlglot
 from sqlglot import exp
@@ -22,10 +21,38 @@ from uneven.bounds.measures import BOUNDED
 from uneven.bounds.run import pick_resolution
 from uneven.compiler import sqlx as s
 from uneven.compiler.generate import generate
-from uneven.engine.frames import register_caller_frames
+from uneven.engine.adapters import adapt, is_duckdb
+from uneven.engine.frames import register_caller_frames, register_frames_on
 from uneven.engine.runner import connect, execute_df
 from uneven.errors import UnevenError, MeasureArgumentError, SqlParseError
 from uneven.summary.sql import RESERVED_PREFIX, measures_select, merged_select, summary_select
+
+
+class _Engine:
+    """Where summaries are made and read: DuckDB (``con`` or a new in-memory connection) or another
+    engine ``query`` takes (engine/adapters), in which case trees are generated for its dialect."""
+
+    def __init__(self, con):
+        self.given = con
+        self.adapter = None if is_duckdb(con) else adapt(con)
+        self.con = connect(con) if self.adapter is None else None
+        self.dialect = "duckdb" if self.adapter is None else self.adapter.dialect
+
+    def df(self, tree: exp.Expression) -> pd.DataFrame:
+        if self.adapter is None:
+            return execute_df(self.con, generate(tree, "duckdb"))
+        return self.adapter.execute(generate(tree, self.dialect))
+
+    def register_frames(self, sql: str, frame) -> list[str]:
+        if self.adapter is None:
+            return register_caller_frames(self.con, sql, frame)
+        return register_frames_on(self.adapter, sql, frame)
+
+    def finish(self, registered: list[str]) -> None:
+        for name in registered:
+            (self.con if self.adapter is None else self.adapter).unregister(name)
+        if self.given is None:
+            self.con.close()
 
 
 def _parse(text: str, what: str) -> exp.Expression:
@@ -84,7 +111,7 @@ def _check_one_resolution(connection, source: exp.Expression) -> None:
     probe = exp.Select(expressions=[exp.Count(this=exp.Distinct(expressions=[s.col(b.RESOLUTION)])),
                                     s.agg_min(s.col(b.RESOLUTION)), s.agg_max(s.col(b.RESOLUTION))]
                        ).from_(source.copy())
-    count, lo, hi = connection.execute(generate(probe, "duckdb")).fetchone()
+    count, lo, hi = connection.df(probe).iloc[0].tolist()
     if count and count > 1:
         raise UnevenError(f"the summaries were made at different resolutions ({lo:g} … {hi:g}); bins of "
                            "different widths cannot be added up: make every part at one resolution")
@@ -119,7 +146,7 @@ def _powers(powers) -> list[float]:
 def summarize(source, value: str, weight: str | None = None, *, by=(), where: str | None = None,
               resolution: float | None = None, tolerance: float | None = None, powers=(),
               parquet: str | Path | None = None, table: str | None = None, replace: bool = False,
-              con: duckdb.DuckDBPyConnection | None = None, dialect: str | None = None) -> pd.DataFrame | str | None:
+              con=None, dialect: str | None = None) -> pd.DataFrame | str | None:
     """One GROUP BY pass over ``source`` into a binned summary of ``value`` (and ``weight``) per ``by``.
 
     ``source``: a table name, a Parquet path or glob, a query, or a list of those (read together);
@@ -141,41 +168,46 @@ def summarize(source, value: str, weight: str | None = None, *, by=(), where: st
             raise UnevenError("with dialect, summarize returns SQL to run on that engine: parquet and table "
                                "do not apply")
         return generate(select, dialect)
-    connection = connect(con)
-    registered = register_caller_frames(connection, generate(select, "duckdb"), inspect.currentframe().f_back)
+    connection = _Engine(con)
+    registered = connection.register_frames(generate(select, "duckdb"), inspect.currentframe().f_back)
     try:
         return _write(connection, select, parquet, table, replace)
     finally:
-        for name in registered:
-            connection.unregister(name)
-        if con is None:
-            connection.close()
+        connection.finish(registered)
 
 
 def _write(connection, select: exp.Select, parquet, table, replace: bool):
     if parquet is not None and table is not None:
         raise UnevenError("give either parquet or table, not both")
     if parquet is None and table is None:
-        return execute_df(connection, generate(select, "duckdb"))
+        return connection.df(select)
+    if parquet is not None and connection.adapter is not None:
+        raise UnevenError(f"parquet= is written by DuckDB; on {connection.adapter.label} store the summary "
+                          "as a table (table=...) or fetch it as a DataFrame")
     if parquet is not None:
         path = Path(parquet)
         if path.exists() and not replace:
             raise UnevenError(f"{path} exists; pass replace=True to overwrite it")
         copy = exp.Copy(this=exp.Subquery(this=select), kind=False, files=[s.lit(str(path))],
                         params=[exp.CopyParameter(this=exp.var("FORMAT"), expression=exp.var("PARQUET"))])
-        execute_df(connection, generate(copy, "duckdb"))
+        connection.df(copy)
         return None
-    create = exp.Create(this=exp.to_table(table, dialect="duckdb"), kind="TABLE", expression=select,
-                        replace=replace)
-    execute_df(connection, generate(create, "duckdb"))
+    name = exp.to_table(table, dialect="duckdb")
+    if connection.adapter is not None:  # CREATE OR REPLACE TABLE is DuckDB's: drop first elsewhere
+        if replace:
+            connection.df(exp.Drop(tables=[name.copy()], kind="TABLE", exists=True))
+        connection.df(exp.Create(this=name, kind="TABLE", expression=select))
+        return None
+    create = exp.Create(this=name, kind="TABLE", expression=select, replace=replace)
+    connection.df(create)
     return None
 
 
 def _columns(connection, source: exp.Expression) -> list[str]:
     probe = exp.Select(expressions=[exp.Star()]).from_(source.copy()).limit(0)
     try:
-        return list(connection.execute(generate(probe, "duckdb")).fetchdf().columns)
-    except duckdb.Error as e:
+        return list(connection.df(probe).columns)
+    except UnevenError as e:
         raise UnevenError(f"cannot read the summary {source.sql('duckdb')}: {str(e).splitlines()[0]}") from None
 
 
@@ -189,17 +221,17 @@ def _check_summary(columns: list[str], where: str) -> tuple[list[str], list[str]
 
 
 def merge_summaries(parts, *, by=None, parquet: str | Path | None = None, table: str | None = None,
-                    replace: bool = False, con: duckdb.DuckDBPyConnection | None = None) -> pd.DataFrame | None:
+                    replace: bool = False, con=None) -> pd.DataFrame | None:
     """Combine summaries of disjoint parts into the summary of their union (optionally rolled up to the
     key columns ``by``): counts and sums add, min and max take the min and max, per (keys, bin)."""
-    connection = connect(con)
+    connection = _Engine(con)
     registered = _register(connection, parts, inspect.currentframe().f_back)
     try:
         source, keys, sums = _summary_source(connection, parts)
         keys = _rollup_keys(keys, by)
         return _write(connection, merged_select(source, keys, sums), parquet, table, replace)
     finally:
-        _unregister(connection, registered, con)
+        connection.finish(registered)
 
 
 def _register(connection, summary, frame) -> list[str]:
@@ -213,15 +245,8 @@ def _register(connection, summary, frame) -> list[str]:
                     exp.maybe_parse(name.strip(), into=exp.Table, dialect="duckdb"))
             except sqlglot.errors.ParseError:
                 continue
-            done += register_caller_frames(connection, generate(probe, "duckdb"), frame)
+            done += connection.register_frames(generate(probe, "duckdb"), frame)
     return done
-
-
-def _unregister(connection, registered: list[str], con) -> None:
-    for name in registered:
-        connection.unregister(name)
-    if con is None:
-        connection.close()
 
 
 def _rollup_keys(keys: list[str], by) -> list[str]:
@@ -267,7 +292,7 @@ def _read_measure(text: str) -> tuple[str, str, tuple]:
     return label, name, tuple(values)
 
 
-def from_summary(summary, measures, *, by=None, con: duckdb.DuckDBPyConnection | None = None,
+def from_summary(summary, measures, *, by=None, con=None,
                  dialect: str | None = None) -> pd.DataFrame | str:
     """Measures with certified intervals from stored summaries.
 
@@ -280,15 +305,15 @@ def from_summary(summary, measures, *, by=None, con: duckdb.DuckDBPyConnection |
     calls = [_read_measure(m) for m in ([measures] if isinstance(measures, str) else measures)]
     if not calls:
         raise MeasureArgumentError("from_summary needs at least one measure")
-    connection = connect(con)
+    connection = _Engine(con)
     registered = _register(connection, summary, inspect.currentframe().f_back)
     try:
         source, keys, sums = _summary_source(connection, summary)
         select = measures_select(source, _rollup_keys(keys, by), sums, calls)
         if dialect is not None:
             return generate(select, dialect)
-        df = execute_df(connection, generate(select, "duckdb"))
+        df = connection.df(select)
         df.attrs["uneven"] = {"method": "bounded", "from_summary": True}
         return df
     finally:
-        _unregister(connection, registered, con)
+        connection.finish(registered)

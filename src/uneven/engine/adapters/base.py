@@ -1,0 +1,208 @@
+"""What ``query()`` needs from an engine other than the embedded DuckDB, as one small protocol.
+
+An :class:`Adapter` wraps a connection the caller owns (or one opened from a URL) and offers:
+
+- ``label`` (the engine's name in messages) and ``dialect`` (the compiler's target),
+- ``execute(sql)`` → a pandas DataFrame typed as DuckDB types it (numbers float64, counts int64,
+  list results an array of dicts), engine errors raised as ``UnevenError``s naming the engine,
+- ``describe(sql)`` → (name, type) of a query's columns, type names as DuckDB spells them (None
+  when the engine cannot say),
+- ``register(name, frame)`` / ``unregister(name)`` / ``has_table(name)``: a pandas frame as a
+  temporary table for one run,
+- ``plan(sql)``: the engine's own plan text, and ``close()``.
+
+The compiler's probes (the columns a FROM provides, the types of measure arguments) are built
+here over ``describe``, so every engine answers them the same way.
+"""
+
+from __future__ import annotations
+
+import math
+from decimal import Decimal
+
+import numpy as np
+import pandas as pd
+from sqlglot import exp
+
+from uneven.engine.runner import translate_error
+
+# DuckDB's names for the numeric types the compiler's type check accepts (compiler/types.py)
+NUMERIC, TEXT = "DOUBLE", "VARCHAR"
+
+
+class Adapter:
+    label = "engine"
+    dialect = "duckdb"
+
+    def __init__(self, con, owned: bool = False):
+        self.con = con
+        self.owned = owned  # opened by uneven (from a URL): closed by close()
+
+    # --- the protocol (engines override) ---------------------------------------------------
+    def fetch(self, sql: str) -> tuple[list[str], list[tuple], list[str | None]]:
+        """Run ``sql``: column names, rows of Python values, column type names (None: unknown)."""
+        raise NotImplementedError
+
+    def errors(self) -> tuple[type[BaseException], ...]:
+        """The driver's exception classes (wrapped as UnevenErrors naming the engine)."""
+        raise NotImplementedError
+
+    def register(self, name: str, frame) -> None:
+        raise NotImplementedError
+
+    def unregister(self, name: str) -> None:
+        self.fetch_quietly(drop_table(quoted_table(name)))
+
+    def has_table(self, name: str) -> bool:
+        return False
+
+    def plan(self, sql: str) -> str:
+        _, rows, _ = self.fetch("EXPLAIN " + sql)
+        return "\n".join(str(r[0]) for r in rows)
+
+    def interrupt(self) -> None:
+        """Ask the engine to stop the running query (Ctrl-C on the command line)."""
+        self.con.interrupt()
+
+    def close(self) -> None:
+        if self.owned:
+            self.con.close()
+
+    # --- shared --------------------------------------------------------------------------
+    def fetch_quietly(self, tree: exp.Expression) -> None:
+        from uneven.compiler.emit import to_sql
+        try:
+            self.fetch(to_sql(tree, self.dialect))
+        except Exception:  # noqa: BLE001  a cleanup step never fails the caller
+            pass
+
+    def execute(self, sql: str) -> pd.DataFrame:
+        """Run compiled SQL; the result typed as on DuckDB; the driver's errors as UnevenErrors."""
+        try:
+            names, rows, types = self.fetch(sql)
+        except self.errors() as e:
+            raise self.translate(e) from None
+        return frame_of(names, rows, types)
+
+    def translate(self, e: BaseException) -> Exception:
+        return translate_error(e, engine=self.label)
+
+    def describe(self, sql: str) -> list[tuple[str, str | None]] | None:
+        """(name, DuckDB type name or None) of the result of ``sql`` (run with LIMIT 0 by the caller);
+        None when it cannot run (the probes are a help, never a failure of their own)."""
+        try:
+            names, _, types = self.fetch(sql)
+        except Exception:  # noqa: BLE001
+            return None
+        return list(zip(names, types))
+
+    def argument_types(self, select: exp.Select, exprs: list[exp.Expression]) -> list[str] | None:
+        """Type names of ``exprs`` over ``select``'s FROM (None: unknown). Engines whose result
+        description carries types answer from a LIMIT 0 probe; SQLite overrides (no types)."""
+        probe = probe_select(select, [exp.alias_(e.copy(), f"_uv_p{i + 1}", quoted=True) for i, e in enumerate(exprs)])
+        if probe is None:
+            return None
+        found = self.describe(self.compile_probe(probe))
+        if found is None or len(found) != len(exprs) or any(t is None for _, t in found):
+            return None
+        return [t for _, t in found]
+
+    def compile_probe(self, probe: exp.Select) -> str:
+        from uneven.compiler.context import CompileContext
+        from uneven.compiler.generate import generate
+        from uneven.compiler.pipeline import compile_tree
+        return generate(compile_tree(probe, CompileContext(dialect=self.dialect)), self.dialect, pretty=False)
+
+    def source_columns(self):
+        """The compiler's ``source_columns`` callback: the columns a SELECT's FROM provides."""
+        cache: dict[int, set[str] | None] = {}
+
+        def columns(select: exp.Select) -> set[str] | None:
+            if id(select) not in cache:
+                probe = probe_select(select, [exp.Star()])
+                if probe is None:
+                    cache[id(select)] = set()
+                else:
+                    found = self.describe(self.compile_probe(probe))
+                    cache[id(select)] = None if found is None else {n.lower() for n, _ in found}
+            return cache[id(select)]
+
+        return columns
+
+    def expression_types(self):
+        """The compiler's ``expression_types`` callback (compiler/types.py)."""
+
+        def types(select: exp.Select, exprs: list[exp.Expression]) -> list[str] | None:
+            if not exprs:
+                return []
+            try:
+                return self.argument_types(select, exprs)
+            except Exception:  # noqa: BLE001  a help, never a failure of its own
+                return None
+
+        return types
+
+
+def quoted_table(name: str) -> exp.Table:
+    """A table of one quoted name (any text works as a name)."""
+    return exp.Table(this=exp.to_identifier(name, quoted=True))
+
+
+def drop_table(table: exp.Table) -> exp.Drop:
+    return exp.Drop(tables=[table], kind="TABLE", exists=True)
+
+
+def probe_select(select: exp.Select, projections: list[exp.Expression], limit: bool = True) -> exp.Select | None:
+    """SELECT projections FROM <select's FROM, joins, laterals, WITH> [LIMIT 0] (None without FROM)."""
+    probe = exp.Select(expressions=projections)
+    for arg in ("from_", "joins", "laterals", "with_"):
+        value = select.args.get(arg)
+        if value:
+            probe.set(arg, [v.copy() for v in value] if isinstance(value, list) else value.copy())
+    if probe.args.get("from_") is None:
+        return None
+    if limit:
+        probe.set("limit", exp.Limit(expression=exp.Literal.number(0)))
+    return probe
+
+
+# --- results typed as DuckDB types them ---------------------------------------------------------
+
+def _plain(v):
+    """Driver values as DuckDB's DataFrame holds them: Decimal → float, structs → dicts."""
+    if isinstance(v, Decimal):
+        return float(v)
+    if hasattr(v, "asDict"):  # a Spark Row
+        return {k: _plain(x) for k, x in v.asDict().items()}
+    if isinstance(v, dict):  # PostgreSQL's jsonb: whole numbers come back as int
+        return {k: float(x) if isinstance(x, int) and not isinstance(x, bool) else _plain(x) for k, x in v.items()}
+    if isinstance(v, (list, tuple)):
+        return np.array([_plain(x) for x in v], dtype=object)
+    return v
+
+
+def _column(values: list, type_name: str | None) -> pd.Series:
+    present = [v for v in values if v is not None]
+    kind = (type_name or "").upper()
+    numbers = bool(present) and all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in present)
+    if kind in ("DOUBLE", "FLOAT", "REAL") or kind.startswith("DECIMAL") or (
+            numbers and any(isinstance(v, float) for v in present)):
+        return pd.Series([math.nan if v is None else float(v) for v in values], dtype="float64")
+    if kind in ("BIGINT", "INTEGER", "SMALLINT", "TINYINT", "HUGEINT") or (
+            present and all(isinstance(v, int) and not isinstance(v, bool) for v in present)):
+        if len(present) == len(values):
+            return pd.Series(values, dtype="int64")
+        return pd.Series(values, dtype="Int64")
+    if kind == "BOOLEAN" or (present and all(isinstance(v, bool) for v in present)):
+        return pd.Series(values, dtype="bool" if len(present) == len(values) else "boolean")
+    return pd.Series(values, dtype=object)
+
+
+def frame_of(names: list[str], rows: list[tuple], types: list[str | None]) -> pd.DataFrame:
+    """A DataFrame of driver rows: float64 for numbers (NaN for NULL), int64 for whole numbers
+    (Int64 with NULLs), bool, lists as arrays of dicts; column names kept, duplicates too."""
+    cols = list(zip(*rows)) if rows else [[] for _ in names]
+    data = {i: _column([_plain(v) for v in col], t) for i, (col, t) in enumerate(zip(cols, types))}
+    df = pd.DataFrame(data) if data else pd.DataFrame(index=range(len(rows)))
+    df.columns = list(names)
+    return df

@@ -1,0 +1,203 @@
+"""Gini as aggregates registered in PostgreSQL: ``install(pg_connection)``.
+
+    SELECT province, gini(income, weight ORDER BY income) FROM survey GROUP BY province;
+    SELECT gini(income ORDER BY income) FROM survey;
+
+The choice (docs/registered_functions.md has the measurements): an ordinary aggregate whose input
+PostgreSQL sorts per group because the call says ``ORDER BY x``. PostgreSQL's sort spills to disk
+past ``work_mem``, so a group of any size fits. An ordered-set form (``WITHIN GROUP (ORDER BY x)``)
+would read better, but PostgreSQL leaves the sorting of an ordered-set aggregate's input to the
+aggregate itself: written in SQL it would collect every value of a group into an array in memory.
+The state function checks the order (a value below the previous one stops the query with a message
+saying to write ``ORDER BY x``), so a call without it never gives a wrong number.
+
+State and final functions are SQL-language functions over a ``double precision[]`` state
+[rows, m, C, Tc, A, last x]: m is the group's smallest value (the first in order), d = x − m, and
+for the sorted rows C = Σw, Tc = Σw·d, A = Σ w·d·(2C − w) (C after the row). Since
+Σ w·(2C − w) = W² the shift by m cancels: Gini = Σ w·x·(2C − w − W) / (W·T) = (A − W·Tc) / (W·T),
+T = Tc + m·W (DESIGN.md's formula; centring keeps it exact when values are large and close).
+Rows with a NULL value or weight are skipped (strict state functions), weight 0 changes nothing, a
+negative weight or a NaN/infinite value stops the query (the failing cast the compiled SQL uses on
+PostgreSQL), an empty group or a total ≤ 0 gives NULL.
+
+What it creates is recorded in ``_uv_functions`` (name, kind, measure) of the current schema;
+``uninstall`` drops exactly that. A function of the same name that uneven did not create is left
+alone and the install refused (``FunctionConflictError``) unless ``replace=True``.
+"""
+
+from __future__ import annotations
+
+from sqlglot import exp
+
+from uneven.compiler import sqlx as s
+from uneven.compiler.emit import to_sql
+from uneven.errors import ExecutionError, UnevenError
+
+REGISTRY = "_uv_functions"
+STATE_TYPE = "double precision[]"
+INITIAL = "{0,0,0,0,0,0}"  # rows, m, C, Tc, A, last x
+
+
+def _n(v) -> exp.Expression:
+    return exp.Literal.number(v)
+
+
+def _state(i: int) -> exp.Expression:
+    """s[i] of the state array, i from 1 as PostgreSQL counts (sqlglot's index is 0-based and
+    generated with the dialect's offset)."""
+    return exp.Bracket(this=exp.column("s"), expressions=[_n(i - 1)])
+
+
+def _fail(message: str) -> exp.Expression:
+    """An expression that stops the query with ``message`` (PostgreSQL has no raising function in SQL:
+    a cast that must fail carries the message, as the compiled SQL does on PostgreSQL). The text
+    depends on x, so PostgreSQL does not fold the cast (and fail) when it plans the function: a
+    constant in a CASE branch is evaluated even when the branch is never taken."""
+    text = exp.Case(ifs=[exp.If(this=exp.Not(this=exp.Is(this=exp.column("x"), expression=exp.Null())),
+                                true=exp.Literal.string(f"uneven: {message}"))])
+    return exp.cast(text, exp.DataType.build(STATE_TYPE, dialect="postgres"))
+
+
+def step_body(weighted: bool) -> exp.Select:
+    """SELECT <the next state> for one row (x, w); w = 1 when unweighted."""
+    x = exp.column("x")
+    w = exp.column("w") if weighted else _n(1)
+    first = exp.EQ(this=_state(1), expression=_n(0))
+    m = exp.Case(ifs=[exp.If(this=first, true=x.copy())], default=_state(2))
+    d = exp.Paren(this=exp.Sub(this=x.copy(), expression=m))
+    c = exp.Paren(this=exp.Add(this=_state(3), expression=w.copy()))
+    new = exp.Array(expressions=[
+        exp.Add(this=_state(1), expression=_n(1)),
+        m.copy(),
+        c.copy(),
+        exp.Add(this=_state(4), expression=exp.Mul(this=w.copy(), expression=d.copy())),
+        exp.Add(this=_state(5), expression=exp.Mul(this=exp.Mul(this=w.copy(), expression=d.copy()),
+                                                    expression=exp.Paren(this=exp.Sub(
+                                                        this=exp.Mul(this=_n(2), expression=c.copy()),
+                                                        expression=w.copy())))),
+        x.copy(),
+    ])
+    ifs = [exp.If(this=exp.NEQ(this=exp.Mul(this=x.copy(), expression=_n(0)), expression=_n(0)),
+                  true=_fail("NaN or infinite value in the value argument of gini()"))]
+    if weighted:
+        ifs += [exp.If(this=exp.LT(this=w.copy(), expression=_n(0)),
+                       true=_fail("negative weight in the weight argument of gini()")),
+                exp.If(this=exp.NEQ(this=exp.Mul(this=w.copy(), expression=_n(0)), expression=_n(0)),
+                       true=_fail("NaN or infinite weight in the weight argument of gini()")),
+                exp.If(this=exp.EQ(this=w.copy(), expression=_n(0)), true=exp.column("s"))]
+    ifs.append(exp.If(this=exp.and_(exp.GT(this=_state(1), expression=_n(0)), exp.LT(this=x.copy(), expression=_state(6))),
+                      true=_fail("gini() received its rows out of order: write gini(x ORDER BY x) or "
+                                 "gini(x, w ORDER BY x)")))
+    return exp.select(exp.Case(ifs=ifs, default=new))
+
+
+def final_body() -> exp.Select:
+    """SELECT Gini from the state: (A − W·Tc) / (W·T), NULL when empty, T ≤ 0 or not finite."""
+    W, Tc, A, m = _state(3), _state(4), _state(5), _state(2)
+    T = exp.Paren(this=exp.Add(this=Tc.copy(), expression=exp.Mul(this=m.copy(), expression=W.copy())))
+    g = exp.Div(this=exp.Paren(this=exp.Sub(this=A, expression=exp.Mul(this=W.copy(), expression=Tc))),
+                expression=exp.Paren(this=exp.Mul(this=W.copy(), expression=T.copy())))
+    finite = exp.LT(this=exp.Abs(this=g.copy()), expression=exp.Literal.number("1e300"))
+    return exp.select(exp.Case(ifs=[exp.If(this=exp.or_(exp.EQ(this=_state(1), expression=_n(0)),
+                                                        exp.LTE(this=T, expression=_n(0))), true=exp.Null())],
+                               default=exp.Case(ifs=[exp.If(this=finite, true=g)], default=exp.Null())))
+
+
+def definitions() -> list[tuple[str, str, object]]:
+    """(name, kind, statement) in creation order, as psycopg.sql compositions (PostgreSQL's CREATE
+    FUNCTION and CREATE AGGREGATE are not in sqlglot's grammar: the bodies are sqlglot trees,
+    generated for PostgreSQL; names are ours, quoted as identifiers; no user text is spliced)."""
+    from psycopg import sql
+    out = []
+    for weighted, args, step in ((True, "x double precision, w double precision", "_uv_gini_step_w"),
+                                 (False, "x double precision", "_uv_gini_step")):
+        body = to_sql(step_body(weighted), "postgres")
+        out.append((step, "helper", sql.SQL(
+            "CREATE FUNCTION {}(s double precision[], " + args + ") RETURNS double precision[] "
+            "LANGUAGE sql IMMUTABLE STRICT PARALLEL SAFE AS {}").format(sql.Identifier(step), sql.Literal(body))))
+    out.append(("_uv_gini_final", "helper", sql.SQL(
+        "CREATE FUNCTION {}(s double precision[]) RETURNS double precision LANGUAGE sql IMMUTABLE STRICT "
+        "PARALLEL SAFE AS {}").format(sql.Identifier("_uv_gini_final"), sql.Literal(to_sql(final_body(), "postgres")))))
+    for step, types in (("_uv_gini_step_w", "double precision, double precision"), ("_uv_gini_step", "double precision")):
+        out.append(("gini", "aggregate", sql.SQL(
+            "CREATE AGGREGATE {}(" + types + ") (SFUNC = {}, STYPE = double precision[], "
+            "FINALFUNC = {}, INITCOND = {})").format(sql.Identifier("gini"), sql.Identifier(step),
+                                                     sql.Identifier("_uv_gini_final"), sql.Literal(INITIAL))))
+    return out
+
+
+class FunctionConflictError(UnevenError):
+    """A function of the same name exists in the database and was not created by uneven."""
+
+
+def _registry_exists(cur) -> bool:
+    cur.execute("SELECT to_regclass(%s) IS NOT NULL", (REGISTRY,))
+    return bool(cur.fetchone()[0])
+
+
+def installed(con) -> list[tuple[str, str, str | None]]:
+    """(name, kind, measure) of every function uneven recorded in the current schema."""
+    with con.cursor() as cur:
+        if not _registry_exists(cur):
+            return []
+        cur.execute(to_sql(exp.select("name", "kind", "measure").from_(REGISTRY).order_by("name", "kind"), "postgres"))
+        return [tuple(r) for r in cur.fetchall()]
+
+
+def install(con, *, replace: bool = False) -> list[str]:
+    """Create gini(x[, w] ORDER BY x) in the PostgreSQL database of ``con`` (psycopg 3); returns the
+    names created. Runs in one transaction: all or nothing."""
+    import psycopg
+    from psycopg import sql
+    defs = definitions()
+    names = sorted({n for n, _, _ in defs})
+    ours = {r[0] for r in installed(con)}
+    with con.cursor() as cur:
+        cur.execute("SELECT DISTINCT proname FROM pg_proc WHERE pronamespace = current_schema()::regnamespace "
+                    "AND proname = ANY(%s)", (names,))
+        clashes = sorted(r[0] for r in cur.fetchall() if r[0] not in ours)
+    if clashes and not replace:
+        raise FunctionConflictError(f"install(): the database already has function(s) {', '.join(clashes)} that uneven "
+                                    "did not create; drop or rename them, or call install(con, replace=True)")
+    try:
+        with con.transaction():
+            with con.cursor() as cur:
+                _drop(cur, [(n, k) for n, k, _ in defs] + [(c, "any") for c in clashes])
+                cur.execute(sql.SQL("CREATE TABLE IF NOT EXISTS {} (name text, kind text, measure text)").format(
+                    sql.Identifier(REGISTRY)))
+                for name, kind, statement in defs:
+                    cur.execute(statement)
+                    cur.execute(sql.SQL("DELETE FROM {} WHERE name = %s AND kind = %s").format(sql.Identifier(REGISTRY)),
+                                (name, kind))
+                    cur.execute(sql.SQL("INSERT INTO {} VALUES (%s, %s, %s)").format(sql.Identifier(REGISTRY)),
+                                (name, kind, "gini"))
+    except psycopg.Error as e:
+        raise ExecutionError(f"install(): PostgreSQL refused to create the functions: "
+                             f"{str(e).strip().splitlines()[0]}") from None
+    return names
+
+
+def _drop(cur, items) -> list[str]:
+    """Drop every function or aggregate of these names in the current schema (all argument lists)."""
+    from psycopg import sql
+    done = []
+    for name in dict.fromkeys(n for n, _ in reversed(items)):
+        cur.execute("SELECT p.oid::regprocedure::text, p.prokind FROM pg_proc p WHERE p.proname = %s "
+                    "AND p.pronamespace = current_schema()::regnamespace", (name,))
+        for signature, kind in cur.fetchall():
+            what = "AGGREGATE" if kind == "a" else "FUNCTION"
+            # the signature is PostgreSQL's own text for an existing function (regprocedure output)
+            cur.execute(sql.SQL("DROP " + what + " IF EXISTS {} CASCADE").format(sql.SQL(signature)))
+        done.append(name)
+    return done
+
+
+def uninstall(con) -> list[str]:
+    """Drop exactly what uneven recorded as created (and its record table)."""
+    from psycopg import sql
+    recorded = installed(con)
+    with con.transaction():
+        with con.cursor() as cur:
+            done = _drop(cur, [(n, k) for n, k, _ in recorded])
+            cur.execute(sql.SQL("DROP TABLE IF EXISTS {}").format(sql.Identifier(REGISTRY)))
+    return done
