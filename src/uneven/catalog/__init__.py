@@ -2,11 +2,11 @@
 
 from __future__ import annotations
 
-from uneven.catalog import entity, moment, ordered, structure, uncertainty
+from uneven.catalog import entity, moment, ordered, poverty, structure, uncertainty
 from uneven.catalog.spec import Measure, Param
 
 MEASURES: dict[str, Measure] = {m.name: m for m in (*ordered.MEASURES, *moment.MEASURES, *entity.MEASURES,
-                                                 *structure.MEASURES)}
+                                                 *structure.MEASURES, *poverty.MEASURES)}
 MEASURES.update({m.name: m for m in uncertainty.uncertainty_measures(MEASURES)})  # <m>_se, <m>_ci_lo/hi …
 
 
