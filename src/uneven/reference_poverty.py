@@ -131,3 +131,90 @@ def equivalised(income, adults, children, scale="oecd_modified"):
     else:
         d = float(size) ** float(scale)
     return float(income) / d
+
+
+# influence functions (standard errors; the formulas in docs/poverty.md) ------------------------
+
+REFERENCES = {"below_line_share": below_line_share, "median_gap": median_gap, "fgt": fgt,
+              "fgt_relative": fgt_relative, "wolfson": wolfson}
+SE_MEASURES = ("below_line_share", "fgt", "fgt_relative", "wolfson")
+
+
+def _sorted_rows(x, w):
+    x = np.asarray(x, dtype=np.float64)
+    w = np.ones_like(x) if w is None else np.asarray(w, dtype=np.float64)
+    o = np.argsort(x, kind="stable")
+    return x, w, o
+
+
+def _median_score(x, w):
+    """z_k of the weighted median, (0.5 − 1(C_k ≤ W/2)) / (W f(M)), in input order; None without a density."""
+    from uneven import reference_se as RSE
+    f = RSE.density_at_quantile(x, 0.5, w)
+    if f is None:
+        return None, None
+    x, w, o = _sorted_rows(x, w)
+    C = np.cumsum(w[o])
+    W = C[-1]
+    z = np.empty_like(x)
+    z[o] = (0.5 - (C <= 0.5 * W)) / (W * f)
+    return z, f
+
+
+def density_at_line(x, frac, w=None) -> float | None:
+    """(p⁺ − p⁻)/(Q(p⁺) − Q(p⁻)), p± = H ± h, h = min(K(0.5)·n^(−1/3), H), H the share below the line."""
+    from uneven import reference_se as RSE
+    H = below_line_share(x, frac, w)
+    if H is None:
+        return None
+    h = min(RSE.hall_sheather(0.5, len(x)), H)
+    hi, lo = min(H + h, 1.0), H - h
+    spread = R.quantile_w(x, hi, w) - R.quantile_w(x, lo, w)
+    return (hi - lo) / spread if spread > 0 else None
+
+
+def influence(name, x, params=(), w=None):
+    """(estimate, z per row in input order), z None where no standard error exists."""
+    x = np.asarray(x, dtype=np.float64)
+    wv = np.ones_like(x) if w is None else np.asarray(w, dtype=np.float64)
+    W = wv.sum()
+    if name == "fgt":
+        alpha, line = params
+        F = fgt(x, alpha, line, w)
+        g = np.where(x < line, ((line - x) / line) ** alpha if alpha else 1.0, 0.0)
+        return F, (g - F) / W
+    if name in ("below_line_share", "fgt_relative"):
+        alpha, frac = (0.0, params[0]) if name == "below_line_share" else params
+        F = fgt_relative(x, alpha, frac, w)
+        if F is None or 0 < alpha < 1:
+            return F, None
+        M = R.quantile_w(x, 0.5, w)
+        z = frac * M
+        zM, fM = _median_score(x, w)
+        if zM is None:
+            return F, None
+        if alpha == 0:
+            slope = density_at_line(x, frac, w)
+            if slope is None:
+                return F, None
+        else:
+            slope = alpha / z * (fgt_relative(x, alpha - 1, frac, w) - F)
+        g = np.where(x < z, ((z - x) / z) ** alpha if alpha else 1.0, 0.0)
+        # F(ẑ) with ẑ = frac·M̂: z_k = (g_k − F)/W + ∂F/∂z · frac · z_M,k
+        return F, (g - F) / W + slope * frac * zM
+    if name == "wolfson":
+        from uneven import reference_se as RSE
+        P = wolfson(x, w)
+        if P is None:
+            return None, None
+        T = (wv * x).sum()
+        mu, M = T / W, R.quantile_w(x, 0.5, w)
+        L, zL = RSE.influence("lorenz", x, (0.5,), w)
+        G, zG = RSE.influence("gini", x, (), w)
+        zM, _ = _median_score(x, w)
+        if zM is None or zL is None or zG is None:
+            return P, None
+        zmu = (x - mu) / W
+        # P = 2(μ/M)(1 − 2L − G): chain rule over (μ, M, L, G)
+        return P, (P / mu) * zmu - (P / M) * zM - (4 * mu / M) * zL - (2 * mu / M) * zG
+    raise KeyError(name)
