@@ -148,17 +148,15 @@ def _sorted_rows(x, w):
 
 
 def _median_score(x, w):
-    """z_k of the weighted median, (0.5 − 1(C_k ≤ W/2)) / (W f(M)), in input order; None without a density."""
+    """z_k of the weighted median, (0.5 − 1(x_k ≤ M)) / (W f(M)), in input order; None without a density."""
     from uneven import reference_se as RSE
     f = RSE.density_at_quantile(x, 0.5, w)
     if f is None:
         return None, None
-    x, w, o = _sorted_rows(x, w)
-    C = np.cumsum(w[o])
-    W = C[-1]
-    z = np.empty_like(x)
-    z[o] = (0.5 - (C <= 0.5 * W)) / (W * f)
-    return z, f
+    M = R.quantile_w(x, 0.5, w)
+    x = np.asarray(x, dtype=np.float64)
+    W = np.ones_like(x).sum() if w is None else float(np.sum(w))
+    return (0.5 - (x <= M)) / (W * f), f
 
 
 def density_at_line(x, frac, w=None) -> float | None:

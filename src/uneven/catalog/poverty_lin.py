@@ -61,15 +61,21 @@ def fgt_relative(ctx, alpha: float, frac: float) -> Lin:
     else:  # (α/z)(F_{α−1} − F_α), z = frac·M
         z = s.mul(s.lit(frac), s.agg_min(ctx.median_row))
         slope = s.mul(s.div(s.lit(alpha), z), s.sub(s.div(_gap_sum(ctx, alpha - 1.0, frac), W.copy()), F.copy()))
-    f_M = lz.density_at_quantile(ctx, 0.5)
-    moved = s.div(s.mul(s.lit(frac), slope), f_M)  # frac·∂F/∂z / f(M): the line's share of the score
     z = s.mul(s.lit(frac), ctx.median_row)
     g = s.case(s.gt(ctx.median_row, ZERO), pov._gap_term(ctx.x, z, ctx.w, alpha), ZERO)
-    return Lin(est, [
-        (g, s.div(ONE, W.copy())),
-        (ctx.w, s.div(s.add(neg(F.copy()), s.mul(s.lit(0.5), moved)), W.copy())),
-        (s.mul(ctx.w, lz.below_indicator(ctx, 0.5)), s.div(neg(moved.copy()), W.copy())),
-    ])
+    # F(ẑ), ẑ = frac·M̂: z_k = (g_k − F)/W + frac·∂F/∂z·z_M,k
+    fixed = Lin(est, [(g, s.div(ONE, W.copy())), (ctx.w, s.div(neg(F.copy()), W.copy()))])
+    return combine(est.copy(), (ONE, fixed), (s.mul(s.lit(frac), slope), median(ctx)))
+
+
+def median(ctx) -> Lin:
+    """The weighted median M: z_k = (0.5 − 1(x_k ≤ M))/(W f(M)). The indicator reads M on every row
+    (passes/line.py), so tied values on both sides of the half weight count alike, whatever their
+    order in the sort."""
+    M = ordc.quantile_at(ctx, 0.5)
+    scale = s.div(ONE, s.mul(ctx.W, lz.density_at_quantile(ctx, 0.5)))
+    at_or_below = s.case(s.lte(ctx.x, ctx.median_row), ONE, ZERO)
+    return Lin(M, [(ctx.w, s.mul(s.lit(0.5), scale)), (s.mul(ctx.w, at_or_below), neg(scale.copy()))])
 
 
 def fgt(ctx, alpha: float, line: float) -> Lin:
@@ -91,7 +97,7 @@ def wolfson(ctx) -> Lin:
     P = pov.build_wolfson(ctx, ())
     mu = s.div(ctx.T, ctx.W)
     M = ordc.quantile_at(ctx, 0.5)
-    return combine(P, (s.div(P.copy(), mu), mean(ctx)), (s.div(neg(P.copy()), M), lz.quantile(ctx, 0.5)),
+    return combine(P, (s.div(P.copy(), mu), mean(ctx)), (s.div(neg(P.copy()), M), median(ctx)),
                    (s.div(s.mul(s.lit(-4.0), mu.copy()), M.copy()), lz.lorenz(ctx, 0.5)),
                    (s.div(s.mul(s.lit(-2.0), mu.copy()), M.copy()), lz.gini(ctx)))
 
