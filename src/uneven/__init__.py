@@ -6,6 +6,7 @@
 
 from uneven.api import compile, explain, measures, query  # noqa: A004
 from uneven.builder import BuilderError, from_
+from uneven.builder.scalars import equivalised, person_weight
 from uneven.catalog.user import define_measure, remove_measure
 from uneven.duckdb_functions import FunctionConflictError, install, uninstall
 from uneven.engine.sqlite import install_sqlite_functions
@@ -24,7 +25,7 @@ __all__ = [
     # SQL text in, results or SQL out
     "compile", "query", "explain", "measures",
     # other front-ends: the builder, functions inside DuckDB, your own measures, SQLite support
-    "from_", "install", "uninstall", "define_measure", "remove_measure", "install_sqlite_functions",
+    "from_", "equivalised", "person_weight", "install", "uninstall", "define_measure", "remove_measure", "install_sqlite_functions",
     # tables: decompositions, income sources, paired comparisons, outlier influence
     "decompose", "gini_sources", "compare", "influence",
     # bounded measures from stored, mergeable summaries
