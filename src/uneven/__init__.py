@@ -13,6 +13,7 @@ from uneven.engine.sqlite import install_sqlite_functions
 from uneven.errors import (ExecutionError, UnevenError, InputDataError, MeasureArgumentError,
                             MeasureUsageError, SqlParseError, UndefinedResultError, UnsupportedDialectError,
                             UnsupportedSqlError)
+from uneven.dominance import lorenz_dominance
 from uneven.influence import influence
 from uneven.report import lorenz_points, plot_lorenz, write_report
 from uneven.structure import compare, decompose, gini_sources
@@ -27,7 +28,7 @@ __all__ = [
     # other front-ends: the builder, functions inside DuckDB, your own measures, SQLite support
     "from_", "equivalised", "person_weight", "install", "uninstall", "define_measure", "remove_measure", "install_sqlite_functions",
     # tables: decompositions, income sources, paired comparisons, outlier influence
-    "decompose", "gini_sources", "compare", "influence",
+    "decompose", "gini_sources", "compare", "influence", "lorenz_dominance",
     # bounded measures from stored, mergeable summaries
     "summarize", "merge_summaries", "from_summary",
     # pictures and reports
