@@ -113,3 +113,32 @@ def test_errors(kwargs, needle):
     df = _two([1.0, 2.0, 3.0], [1.0, 5.0, 9.0])  # noqa: F841 (read by name)
     with pytest.raises(uneven.UnevenError, match=needle):
         uneven.lorenz_dominance("df", "x", "g", **kwargs)
+
+
+def test_chart_reads_back_as_the_table(tmp_path):
+    # the SVG's difference polyline and band polygon, mapped back through the axes, are the table's
+    # differences and band ends (pixels rounded to 0.01 of a frame a few hundred pixels tall)
+    import re
+    rng = np.random.default_rng(7)
+    base = rng.uniform(1, 3, 2000)
+    path = tmp_path / "d.parquet"
+    _two(rng.uniform(1, 3, 2000), 2 + 1.6 * (base - 2)).to_parquet(path)
+    svg_path = tmp_path / "diff.svg"
+    assert main(["dominance", f"'{path}'", "x", "--group", "g", "--groups", "A", "B", "--points", "7",
+                 "--svg", str(svg_path), "--format", "csv"]) == 0
+    text = svg_path.read_text()
+    res = uneven.lorenz_dominance(f"'{path}'", "x", "g", ("A", "B"), points=7)
+    line = re.search(r'class="series"[^>]*points="([^"]+)"', text).group(1)
+    band = re.search(r'class="band" points="([^"]+)"', text).group(1)
+    zero = re.search(r'class="zero" x1="([\d.]+)" y1="([\d.]+)"', text)
+    pts = [tuple(map(float, p.split(","))) for p in line.split()]
+    bpts = [tuple(map(float, p.split(","))) for p in band.split()]
+    t = res.table
+    # two known levels fix the y mapping: zero and the first point's difference
+    y0 = float(zero.group(2))
+    scale = (pts[0][1] - y0) / t["difference"][0]
+    for i, (_, y) in enumerate(pts):
+        assert (y - y0) / scale == pytest.approx(t["difference"][i], abs=2e-4)
+    for i in range(7):
+        assert (bpts[i][1] - y0) / scale == pytest.approx(t["band_hi"][i], abs=2e-4)
+    assert "A dominates B" in text

@@ -57,6 +57,15 @@ class Dominance:
         return head + "\n" + self.table.to_string(index=False, float_format=lambda v: f"{v:.6g}")
 
 
+    def svg(self) -> str:
+        """The difference of the two curves over p with its simultaneous band (hand-written SVG)."""
+        from uneven.report.svg import difference_chart
+        t = self.table
+        kind = "generalized Lorenz" if self.generalized else "Lorenz"
+        return difference_chart(list(t["p"]), list(t["difference"]), list(t["band_lo"]), list(t["band_hi"]),
+                                f"{kind}: {self.groups[0]} − {self.groups[1]} ({self.verdict})")
+
+
 def critical_value(level: float, points: int) -> float:
     """Šidák's bound for ``points`` simultaneous two-sided normal comparisons at ``level``."""
     return NormalDist().inv_cdf((1.0 + level ** (1.0 / points)) / 2.0)

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import sys
+from pathlib import Path
 
 from uneven.cli.common import add_engine_options, add_output_options, connection, emit_result
 from uneven.cli.compare import _values
@@ -41,6 +42,7 @@ def register(sub) -> None:
     p.add_argument("--level", type=float, default=0.95, help="simultaneous confidence level (default: 0.95)")
     p.add_argument("--strata", metavar="EXPR", help="stratum of each row (survey design, within each group)")
     p.add_argument("--psu", metavar="EXPR", help="primary sampling unit of each row (survey design)")
+    p.add_argument("--svg", metavar="FILE", help="also write the chart of the difference with its band (SVG)")
     add_output_options(p)
     add_engine_options(p)
     p.set_defaults(handler=run)
@@ -54,4 +56,8 @@ def run(args) -> int:
     kind = "generalized Lorenz" if res.generalized else "Lorenz"
     print(f"{kind}, A = {res.groups[0]}, B = {res.groups[1]}: {res.verdict} (level {res.level:g}, "
           f"{len(res.table)} points, c = {res.critical_value:.3f})", file=sys.stderr)
+    if args.svg:
+        from uneven.engine.output import write_all
+        write_all({Path(args.svg): res.svg()}, overwrite=args.force)
+        print(f"wrote the chart to {args.svg}", file=sys.stderr)
     return emit_result(res.table, args)
