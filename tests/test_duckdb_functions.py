@@ -20,13 +20,13 @@ from conftest import make_groups
 from roundtrip import emission_checked
 from uneven.duckdb_functions import install_sql, installed, uninstall
 from uneven.catalog import MEASURES
-from uneven.duckdb_functions.install import INSTALL_SQL, FunctionConflictError, has_macros
+from uneven.duckdb_functions.install import INSTALL_SQL, FunctionConflictError, has_aggregate_macro, has_macros
 from test_measures_engines import CASES, ENTITY_CASES, _expected, close
 
 # (template, reference, weighted); entity measures take no weight; lorenz_curve has no macro, nor do
-# the measures on passes a macro cannot express (has_macros; see docs)
+# the measures on passes a macro cannot express (has_aggregate_macro; see docs)
 AGG_CASES = [(t, r, wt) for t, r in CASES + ENTITY_CASES
-             if not t.startswith("lorenz_curve") and has_macros(MEASURES[t.split("(")[0]])
+             if has_aggregate_macro(MEASURES[t.split("(")[0]])
              for wt in ((False,) if t.startswith(("hhi", "cr")) else (False, True))]
 
 
@@ -77,7 +77,10 @@ def test_aggregate_form_equals_compiler_and_reference(con, template, ref, weight
 
 TABLE_CASES = [("gini", [], "w"), ("top_share", [0.1], "w"), ("quantile_w", [0.5], None), ("ge", [0.0], "w"),
                ("ge", [2.0], None), ("atkinson", [1.0], "w"), ("cv", [], "w"), ("hoover", [], None),
-               ("cr", [2], "e"), ("hhi", [], None), ("percentile_ratio", [0.9, 0.1], "w"), ("theil", [], "w")]
+               ("cr", [2], "e"), ("hhi", [], None), ("percentile_ratio", [0.9, 0.1], "w"), ("theil", [], "w"),
+               # the relative poverty line has the table form only (aggregate.OrderedListContext.median_row)
+               ("below_line_share", [0.6], "w"), ("median_gap", [0.6], None), ("fgt_relative", [2.0, 0.5], "w"),
+               ("fgt", [1.0, 12.0], "w"), ("wolfson", [], None)]
 
 
 @pytest.mark.parametrize("name,params,trailing", TABLE_CASES, ids=[f"{c[0]}{c[1]}{c[2]}" for c in TABLE_CASES])
@@ -102,6 +105,7 @@ def test_table_form_several_keys(con):
 
 
 def test_every_measure_but_lorenz_curve_has_both_forms(con):
+    assert "equivalised" in {n for n, _, _ in installed(con[0])}  # the scalar, see test_equivalence.py
     c, _ = con
     names = {n for n, _, _ in installed(c)}
     for m in uneven.measures():
@@ -110,6 +114,9 @@ def test_every_measure_but_lorenz_curve_has_both_forms(con):
             continue
         if m["name"] == "lorenz_curve":  # k shapes the plan (k+1 grid points): no macro (see docs)
             assert m["name"] not in names
+            continue
+        if m["name"] in ("below_line_share", "median_gap", "fgt_relative"):  # the line needs the median
+            assert m["name"] not in names and f"{m['name']}_by" in names  # on every row: table form only
             continue
         assert m["name"] in names and f"{m['name']}_by" in names
 

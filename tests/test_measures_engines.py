@@ -18,6 +18,8 @@ import pytest
 
 from conftest import make_groups
 from uneven import reference as R
+from uneven import reference_poverty as RP
+from uneven import reference_se as RSE
 from uneven import reference_structure as RS
 
 # (SQL call template, reference call); {w} is ", w" or "" ; the reference gets (x, w) arrays
@@ -67,6 +69,20 @@ CASES = [
     ("reynolds_smolensky(x, e{w})", lambda x, w, e: RS.reynolds_smolensky(x, e, w)),
     ("gini_diff(x, e{w})", lambda x, w, e: RS.gini_diff(x, e, w)),
     ("gini_diff_se(x, e{w})", lambda x, w, e: RS.gini_diff_se(x, e, w)),
+    # poverty lines and polarization (reference_poverty, checked in test_poverty.py)
+    ("below_line_share(x, 0.6{w})", lambda x, w, e: RP.below_line_share(x, 0.6, w)),
+    ("below_line_share(x, 1{w})", lambda x, w, e: RP.below_line_share(x, 1.0, w)),
+    ("median_gap(x, 0.6{w})", lambda x, w, e: RP.median_gap(x, 0.6, w)),
+    ("fgt_relative(x, 0, 0.6{w})", lambda x, w, e: RP.fgt_relative(x, 0.0, 0.6, w)),
+    ("fgt_relative(x, 2, 0.5{w})", lambda x, w, e: RP.fgt_relative(x, 2.0, 0.5, w)),
+    ("fgt(x, 0, 12{w})", lambda x, w, e: RP.fgt(x, 0.0, 12.0, w)),
+    ("fgt(x, 1, 12{w})", lambda x, w, e: RP.fgt(x, 1.0, 12.0, w)),
+    ("fgt(x, 1.5, 12{w})", lambda x, w, e: RP.fgt(x, 1.5, 12.0, w)),
+    ("wolfson(x{w})", lambda x, w, e: RP.wolfson(x, w)),
+    ("below_line_share_se(x, 0.6{w})", lambda x, w, e: RSE.se("below_line_share", x, (0.6,), w)),
+    ("fgt_relative_se(x, 2, 0.6{w})", lambda x, w, e: RSE.se("fgt_relative", x, (2.0, 0.6), w)),
+    ("fgt_se(x, 1, 12{w})", lambda x, w, e: RSE.se("fgt", x, (1.0, 12.0), w)),
+    ("wolfson_se(x{w})", lambda x, w, e: RSE.se("wolfson", x, (), w)),
 ]
 ENTITY_CASES = [
     ("hhi(x)", lambda x, w, e: R.hhi(x)),

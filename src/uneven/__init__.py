@@ -6,12 +6,14 @@
 
 from uneven.api import compile, explain, measures, query  # noqa: A004
 from uneven.builder import BuilderError, from_
+from uneven.builder.scalars import equivalised, person_weight
 from uneven.catalog.user import define_measure, remove_measure
 from uneven.duckdb_functions import FunctionConflictError, install, uninstall
 from uneven.engine.sqlite import install_sqlite_functions
 from uneven.errors import (ExecutionError, UnevenError, InputDataError, MeasureArgumentError,
                             MeasureUsageError, SqlParseError, UndefinedResultError, UnsupportedDialectError,
                             UnsupportedSqlError)
+from uneven.dominance import lorenz_dominance
 from uneven.influence import influence
 from uneven.report import lorenz_points, plot_lorenz, write_report
 from uneven.structure import compare, decompose, gini_sources
@@ -25,9 +27,9 @@ __all__ = [
     # SQL text in, results or SQL out
     "compile", "query", "explain", "measures",
     # other front-ends: the builder, functions inside DuckDB, your own measures, SQLite support
-    "from_", "install", "uninstall", "define_measure", "remove_measure", "install_sqlite_functions",
+    "from_", "equivalised", "person_weight", "install", "uninstall", "define_measure", "remove_measure", "install_sqlite_functions",
     # tables: decompositions, income sources, paired comparisons, outlier influence
-    "decompose", "gini_sources", "compare", "influence",
+    "decompose", "gini_sources", "compare", "influence", "lorenz_dominance",
     # bounded measures from stored, mergeable summaries
     "summarize", "merge_summaries", "from_summary",
     # measures with bounds from published bracket tables

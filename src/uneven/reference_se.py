@@ -16,6 +16,7 @@ from statistics import NormalDist
 import numpy as np
 
 from uneven import reference as R
+from uneven import reference_poverty as RP
 
 __all__ = ["influence", "design_variance", "se", "ci", "hall_sheather", "density_at_quantile", "SE_MEASURES"]
 
@@ -140,6 +141,8 @@ def _moment(name, x, params, w):
 
 def influence(name: str, x, params=(), w=None):
     """(estimate, z per row in input order); z is None where no standard error exists."""
+    if name in RP.SE_MEASURES:  # poverty lines and Wolfson: reference_poverty.influence
+        return RP.influence(name, x, params, w)
     if name == "gini":
         return _gini(x, w)
     if name in ("lorenz", "bottom_share"):
@@ -194,6 +197,8 @@ def design_variance(u, strata=None, psu=None) -> float | None:
 def _defined(name: str, x, params, w) -> bool:
     """The measure itself has a value here (a positive total, x in its domain): where it is NULL,
     so is its standard error."""
+    if name in RP.SE_MEASURES:
+        return RP.REFERENCES[name](list(x), *params, None if w is None else list(w)) is not None
     if name not in SE_MEASURES:
         return False
     return R.REFERENCES[name](list(x), *params, None if w is None else list(w)) is not None

@@ -2,11 +2,13 @@
 
 from __future__ import annotations
 
-from uneven.catalog import entity, moment, ordered, structure, uncertainty
+from uneven.catalog import entity, linearize, moment, ordered, poverty, poverty_lin, structure, uncertainty
 from uneven.catalog.spec import Measure, Param
 
 MEASURES: dict[str, Measure] = {m.name: m for m in (*ordered.MEASURES, *moment.MEASURES, *entity.MEASURES,
-                                                 *structure.MEASURES)}
+                                                 *structure.MEASURES, *poverty.MEASURES)}
+linearize.LINEARIZE.update(poverty_lin.LINEARIZE)  # the poverty-line indicators' and Wolfson's scores
+uncertainty.BOOTSTRAPPABLE = (*uncertainty.BOOTSTRAPPABLE, *poverty_lin.LINEARIZE, "median_gap")
 MEASURES.update({m.name: m for m in uncertainty.uncertainty_measures(MEASURES)})  # <m>_se, <m>_ci_lo/hi …
 
 

@@ -152,7 +152,7 @@ def cmd_demo(args) -> int:
 # Further subcommands live in modules of their own under uneven/cli/, one line each here: a module's
 # register(sub) adds its parser and sets ``handler`` (a function of the parsed args returning the exit code).
 COMMAND_MODULES: tuple[str, ...] = (
-    "decompose", "sources", "compare", "influence",
+    "decompose", "sources", "compare", "influence", "dominance",
     "lorenz", "report",
     "explain",
     "brackets",

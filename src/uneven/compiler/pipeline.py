@@ -9,6 +9,7 @@ from uneven.compiler.context import CompileContext, span, text
 from uneven.compiler.generate import check_dialect, check_read_dialect, generate
 from uneven.compiler.parse import parse_one_statement
 from uneven.compiler.plan import TIE_GROUPING
+from uneven.compiler.scalars import expand_scalars
 from uneven.compiler.scope import rewrite_scope
 from uneven.bounds import bins
 from uneven.compiler.bounded import check_method
@@ -56,6 +57,7 @@ def prepare_scope(select: exp.Select, nodes: list, ctx: CompileContext) -> None:
 def compile_tree(tree: exp.Expression, ctx: CompileContext) -> exp.Expression:
     """Rewrite every SELECT scope that calls measures; a tree without calls comes back unchanged."""
     scopes: dict[int, tuple[exp.Select, list]] = {}
+    tree = expand_scalars(tree, ctx)  # equivalised(…) → arithmetic, in every clause (scalars.py)
     nodes = find_calls(tree)
     selects = [check_position(node, ctx) for node in nodes]  # where calls stand, before their arguments
     for select in {id(sel): sel for sel in selects}.values():

@@ -89,6 +89,15 @@ class OrderedListContext:
     def lorenz_grid(self, k):
         raise NeedsConstant("the Lorenz grid needs its number of points when the plan is built")
 
+    # a relative poverty line compares every row with the group's median: over a list that is a
+    # second pass per element (quadratic), so those measures get the table form only
+    @property
+    def median_row(self):
+        raise NeedsConstant("the relative poverty line reads the group's median on every row")
+
+    def below_weight_row(self, frac):
+        raise NeedsConstant("the relative poverty line reads the group's median on every row")
+
 
 class EntityListContext:
     """The entity pass over a group's entity totals, largest first (``_uv_v``)."""

@@ -25,6 +25,7 @@ from uneven.duckdb_functions.symbolic import NeedsConstant
 from uneven.duckdb_functions.table import table_form
 from uneven.errors import ExecutionError, UnevenError
 from uneven.compiler.emit import to_sql
+from uneven.compiler.scalars import macro_body
 
 REGISTRY = "_uv_functions"
 INSTALL_SQL = Path(__file__).resolve().parents[3] / "sql" / "duckdb" / "install.sql"
@@ -53,9 +54,22 @@ def has_macros(m: Measure) -> bool:
     return kinds <= MACRO_PASSES and not any(p.kind == "column" for p in m.params) and not m.pass_options
 
 
+def has_aggregate_macro(m: Measure) -> bool:
+    """Whether the measure gets an aggregate macro (lorenz_curve and the relative poverty line
+    measures have the table form only)."""
+    if not has_macros(m):
+        return False
+    try:
+        aggregate_overloads(m)
+    except NeedsConstant:
+        return False
+    return True
+
+
 def definitions(measures: list[Measure] | None = None) -> list[Definition]:
     """Every CREATE MACRO statement, helpers first, then per measure its aggregate and table forms."""
     out = [Definition(c.this.this.name, "helper", None, c) for c in L.scan_macros()]
+    out.append(Definition("equivalised", "scalar", None, equivalised_macro()))
     for m in (measures if measures is not None else list(MEASURES.values())):
         if not has_macros(m):
             continue
@@ -69,6 +83,14 @@ def definitions(measures: list[Measure] | None = None) -> list[Definition]:
         except NeedsConstant:
             pass
     return out
+
+
+def equivalised_macro() -> exp.Create:
+    """equivalised(income, adults, children[, scale]): the compiler's scalar (compiler/scalars.py) as a
+    macro; the scale is positional here (a macro overload), 'oecd_modified' when left out."""
+    args = [exp.column(a) for a in ("income", "adults", "children", "scale")]
+    return L.macro("equivalised", [(["income", "adults", "children"], macro_body(*args[:3], None)),
+                                   (["income", "adults", "children", "scale"], macro_body(*args))])
 
 
 def builtin_measures() -> list[Measure]:

@@ -186,3 +186,29 @@ def bar_chart(items: list[tuple[str, float]], title: str, value_title: str, *, r
                f'fill="#222">{escape(value_title)}</text>')
     out.append("</svg>")
     return "\n".join(out)
+
+
+def difference_chart(ps: list[float], diff: list[float], lo: list[float], hi: list[float], title: str, *,
+                     label: str = "difference", width: int = 640, height: int = 420,
+                     y_title: str = "difference of the ordinates (A − B)") -> str:
+    """A difference of two curves over p with its band: the band is ``<polygon class="band">``
+    (upper ends left to right, lower ends back), the difference a ``series`` polyline, and the zero
+    line ``<line class="zero">`` (above it: A's curve lies higher)."""
+    known = [i for i in range(len(ps)) if diff[i] == diff[i] and lo[i] == lo[i] and hi[i] == hi[i]]
+    ys = [0.0] + [lo[i] for i in known] + [hi[i] for i in known]
+    top, bottom = max(ys), min(ys)
+    pad = (top - bottom) * 0.08 or 0.01
+    f = _Frame(width, height, (0.0, 1.0), (bottom - pad, top + pad))
+    out = _open(width, height, title, title)
+    ticks = nice_ticks(bottom - pad, top + pad)
+    out += _axes(f, [i / 5 for i in range(6)], [t for t in ticks if bottom - pad <= t <= top + pad],
+                 [_tick_label(i / 5) for i in range(6)], "cumulative share of the population (poorest first)", y_title)
+    band = [(ps[i], hi[i]) for i in known] + [(ps[i], lo[i]) for i in reversed(known)]
+    out.append('<polygon class="band" points="' + " ".join(f"{f.px(x):.2f},{f.py(y):.2f}" for x, y in band)
+               + '" fill="#1f5fa8" fill-opacity="0.18" stroke="none"/>')
+    out.append(f'<line class="zero" x1="{f.px(0):.2f}" y1="{f.py(0):.2f}" x2="{f.px(1):.2f}" y2="{f.py(0):.2f}" '
+               'stroke="#555" stroke-width="1.2" stroke-dasharray="4 3"/>')
+    out.append(_polyline(f, Series(label, [ps[i] for i in known], [diff[i] for i in known], PALETTE[0])))
+    out += _legend(f, [Series(label, [], [], PALETTE[0])], [("simultaneous band", "#a9c1e0", False)])
+    out.append("</svg>")
+    return "\n".join(out)

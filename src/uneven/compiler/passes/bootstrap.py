@@ -27,6 +27,7 @@ from sqlglot import exp
 
 from uneven.compiler import sqlx as s
 from uneven.compiler.passes.linearized import critical_value
+from uneven.compiler.passes.line import window_ctes
 from uneven.compiler.passes.rows import RowContext, window_columns
 from uneven.compiler.passes.source import Source, cte, grouped, table, value_weight_rows
 
@@ -117,7 +118,7 @@ def lower_bootstrap_pass(source: Source, main, plan, name: str) -> tuple[list[ex
     ctes.append(cte(kept, f"{name}_kept"))
     win = exp.Select(expressions=[k.copy() for k in part_keys] + [s.col("_uv_x"), s.col("_uv_w")]
                      + window_columns(ctx, part_keys)).from_(table(f"{name}_kept"), copy=False)
-    ctes.append(cte(win, f"{name}_win"))
+    ctes += window_ctes(win, ctx, part_keys, name)  # + the relative poverty line's layers (line.py)
     # one row per (group, replicate): every call's estimate
     # (grouped() projects the keys, the replicate number among them, before these)
     est_cols = [s.alias(theta, f"_uv_v{i}") for i, (_, theta) in enumerate(built, start=1)]

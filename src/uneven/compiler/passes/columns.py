@@ -2,11 +2,14 @@
 
 ``RowColumns``: the value ``x`` and the weight ``w`` (1.0 when unweighted) of a pass's rows.
 ``SortedColumns``: in a window CTE over rows sorted by x, the running weight ``c`` (C_i), the group
-minimum ``min_row`` and the group weight ``W_row``; reading one records it in ``used`` so the
+minimum ``min_row``, the group weight ``W_row`` and the relative poverty line's columns
+(``median_row``, ``below_weight_row(frac)``: window layers of passes/line.py); reading one records it in ``used`` so the
 lowering adds only the window columns a measure needs.
 """
 
 from __future__ import annotations
+
+from sqlglot import exp
 
 from uneven.compiler import sqlx as s
 
@@ -23,7 +26,27 @@ class RowColumns:
         return s.col("_uv_w") if self.weighted else s.lit(1.0)
 
 
-class SortedColumns(RowColumns):
+class LineColumns:
+    """Mixin for the sorted-row contexts (passes/columns.SortedColumns)."""
+
+    used: set[str]
+
+    @property
+    def median_row(self) -> exp.Expression:
+        """M, the group's weighted median (smallest x with C/W ≥ 0.5), on every row."""
+        self.used.update(("c", "wt", "med"))
+        return s.col("_uv_md")
+
+    def below_weight_row(self, frac: float) -> exp.Expression:
+        """P, the group's weight strictly below the line frac·M, on every row."""
+        self.median_row
+        fracs = self.__dict__.setdefault("line_fracs", [])
+        if frac not in fracs:
+            fracs.append(frac)
+        return s.col(f"_uv_pw{fracs.index(frac) + 1}")
+
+
+class SortedColumns(RowColumns, LineColumns):
     used: set[str]
 
     @property

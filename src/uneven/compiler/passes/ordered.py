@@ -17,6 +17,7 @@ from sqlglot import exp
 from uneven.compiler import sqlx as s
 from uneven.compiler.passes.columns import SortedColumns
 from uneven.compiler.passes.grid import grid_table, lower_lorenz_grid
+from uneven.compiler.passes.line import window_ctes
 from uneven.compiler.passes.source import (Source, build_results, checked_value, checked_weight, cte,
                                              finite_or_null, grouped, key_name, table, weight_label)
 
@@ -156,7 +157,7 @@ def lower_ordered_pass(source: Source, main, plan, name: str) -> tuple[list[exp.
         ctes.append(cte(tie_rows(keys, w is not None, "n" in ctx.used, f"{name}_rows"), f"{name}_ties"))
     win = exp.Select(expressions=[k.copy() for k in base_cols] + _window_columns(ctx, keys, minimum)).from_(
         table(f"{name}_ties" if ties else f"{name}_rows"))
-    ctes.append(cte(win, f"{name}_win"))
+    ctes += window_ctes(win, ctx, keys, name)  # + the relative poverty line's layers (line.py)
     if out_cols:
         ctes.append(cte(grouped(keys, out_cols, f"{name}_win"), name))
     for k in ctx.grids:

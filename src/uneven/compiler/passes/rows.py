@@ -18,6 +18,7 @@ from sqlglot import exp
 
 from uneven.compiler import sqlx as s
 from uneven.compiler.passes.columns import SortedColumns
+from uneven.compiler.passes.line import window_ctes
 from uneven.compiler.passes.source import Source, cte, table, value_weight_rows
 from uneven.errors import MeasureUsageError
 
@@ -105,7 +106,7 @@ def lower_rows(source: Source, plan, name: str, ctx: RowContext,
     keys = source.key_columns()
     base = keys + [s.col("_uv_x")] + ([s.col("_uv_w")] if w is not None else []) + [s.col(n) for n in extra]
     win = exp.Select(expressions=[k.copy() for k in base] + window_columns(ctx, keys)).from_(table(f"{name}_rows"), copy=False)
-    return [cte(rows, f"{name}_rows"), cte(win, f"{name}_win")]
+    return [cte(rows, f"{name}_rows")] + window_ctes(win, ctx, keys, name)
 
 
 # aggregates → group columns ------------------------------------------------------------------

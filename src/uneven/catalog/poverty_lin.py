@@ -1,0 +1,110 @@
+"""Linearizations of the poverty-line indicators and the Wolfson index (docs/poverty.md,
+docs/polarization.md), in the form of catalog/linearize.py: the estimate and the score
+u_k = w_k·z_k as (row term, coefficient) pairs.
+
+A relative line z = frac·M moves with the sample: its own influence enters through the median's,
+IF_M(x_k) = (0.5 − 1(x_k ≤ M)) / (W·f(M)) (the quantile linearization already used by quantile_w),
+times ∂F/∂z·frac, where F is the indicator at a fixed line (Berger and Skinner 2003 and
+Osier 2009 linearize the at-risk-of-poverty rate this way; both from memory):
+
+    FGT_α at a fixed line:  z_k = (g_k − F_α)/W,   g_k = 1(x_k < z)·((z − x_k)/z)^α
+    ∂F_0/∂z = f(z), the density at the line;   ∂F_α/∂z = (α/z)·(F_{α−1} − F_α) for α ≥ 1
+
+f(M) is the Siddiqui / Bloch–Gastwirth quantile-spacing estimate with the Hall–Sheather bandwidth
+(linearize.density_at_quantile); f(z) is the same spacing around p = H (the share below the
+line) with the median's bandwidth, capped at H so it stays inside the distribution. For
+0 < α < 1 the derivative has no stable sample form: no standard error (NULL).
+"""
+
+from __future__ import annotations
+
+from sqlglot import exp
+
+from uneven.catalog import linearize as lz
+from uneven.catalog import ordered as ordc
+from uneven.catalog import poverty as pov
+from uneven.catalog.linearize import Lin, combine, neg
+from uneven.compiler import sqlx as s
+
+ZERO, ONE = s.lit(0.0), s.lit(1.0)
+K_MEDIAN = lz.hall_sheather(0.5)
+
+
+def _gap_sum(ctx, alpha: float, frac: float) -> exp.Expression:
+    """Σ w·1(x < z)·((z − x)/z)^α, z = frac·M on every row."""
+    z = s.mul(s.lit(frac), ctx.median_row)
+    return s.agg_sum(s.case(s.gt(ctx.median_row, ZERO), pov._gap_term(ctx.x, z, ctx.w, alpha), ZERO))
+
+
+def density_at_line(ctx, frac: float) -> exp.Expression:
+    """f̂(z) = (p⁺ − p⁻)/(Q(p⁺) − Q(p⁻)), p± = H ± h, h = min(K(0.5)·n^(−1/3), H), H the share
+    below the line: row-level forms inside the quantiles' conditions, group-level in the numerator."""
+    P_row = ctx.below_weight_row(frac)
+    H_row = s.div(P_row, ctx.W_row)
+    h_row = s.least(s.mul(s.lit(K_MEDIAN), s.power(ctx.n_row, s.lit(-1.0 / 3.0))), H_row)
+    H_grp = s.div(s.agg_max(P_row.copy()), ctx.W)
+    h_grp = s.least(s.mul(s.lit(K_MEDIAN), s.power(s.cast_double(ctx.n), s.lit(-1.0 / 3.0))), H_grp)
+    hi_row, lo_row = s.least(s.add(H_row.copy(), h_row), ONE), s.sub(H_row.copy(), h_row.copy())
+    hi_grp, lo_grp = s.least(s.add(H_grp.copy(), h_grp), ONE), s.sub(H_grp.copy(), h_grp.copy())
+    spread = s.sub(lz._quantile_at_expr(ctx, hi_row), lz._quantile_at_expr(ctx, lo_row))
+    return s.case(s.gt(spread, ZERO), s.div(s.sub(hi_grp, lo_grp), spread.copy()))
+
+
+def fgt_relative(ctx, alpha: float, frac: float) -> Lin:
+    est = pov.build_fgt_relative(ctx, (alpha, frac))
+    if 0 < alpha < 1:
+        return Lin(est, defined=False)
+    W = ctx.W
+    F = s.div(_gap_sum(ctx, alpha, frac), W)
+    if alpha == 0:
+        slope = density_at_line(ctx, frac)
+    else:  # (α/z)(F_{α−1} − F_α), z = frac·M
+        z = s.mul(s.lit(frac), s.agg_min(ctx.median_row))
+        slope = s.mul(s.div(s.lit(alpha), z), s.sub(s.div(_gap_sum(ctx, alpha - 1.0, frac), W.copy()), F.copy()))
+    z = s.mul(s.lit(frac), ctx.median_row)
+    g = s.case(s.gt(ctx.median_row, ZERO), pov._gap_term(ctx.x, z, ctx.w, alpha), ZERO)
+    # F(ẑ), ẑ = frac·M̂: z_k = (g_k − F)/W + frac·∂F/∂z·z_M,k
+    fixed = Lin(est, [(g, s.div(ONE, W.copy())), (ctx.w, s.div(neg(F.copy()), W.copy()))])
+    return combine(est.copy(), (ONE, fixed), (s.mul(s.lit(frac), slope), median(ctx)))
+
+
+def median(ctx) -> Lin:
+    """The weighted median M: z_k = (0.5 − 1(x_k ≤ M))/(W f(M)). The indicator reads M on every row
+    (passes/line.py), so tied values on both sides of the half weight count alike, whatever their
+    order in the sort."""
+    M = ordc.quantile_at(ctx, 0.5)
+    scale = s.div(ONE, s.mul(ctx.W, lz.density_at_quantile(ctx, 0.5)))
+    at_or_below = s.case(s.lte(ctx.x, ctx.median_row), ONE, ZERO)
+    return Lin(M, [(ctx.w, s.mul(s.lit(0.5), scale)), (s.mul(ctx.w, at_or_below), neg(scale.copy()))])
+
+
+def fgt(ctx, alpha: float, line: float) -> Lin:
+    # a fixed line: z_k = (g_k − F)/W
+    est = pov.build_fgt(ctx, (alpha, line))
+    W = ctx.W
+    g = pov._gap_term(ctx.x, s.lit(line), ctx.w, alpha)
+    return Lin(est, [(g, s.div(ONE, W)), (ctx.w, s.div(neg(est.copy()), W.copy()))])
+
+
+def mean(ctx) -> Lin:
+    # μ = T/W: z_k = (x_k − μ)/W
+    mu = s.div(ctx.T, ctx.W)
+    return Lin(mu, [(s.mul(ctx.w, ctx.x), s.div(ONE, ctx.W)), (ctx.w, s.div(neg(mu.copy()), ctx.W))])
+
+
+def wolfson(ctx) -> Lin:
+    # P = 2(μ/M)(1 − 2L − G): ∂P/∂μ = P/μ, ∂P/∂M = −P/M, ∂P/∂L = −4μ/M, ∂P/∂G = −2μ/M
+    P = pov.build_wolfson(ctx, ())
+    mu = s.div(ctx.T, ctx.W)
+    M = ordc.quantile_at(ctx, 0.5)
+    return combine(P, (s.div(P.copy(), mu), mean(ctx)), (s.div(neg(P.copy()), M), median(ctx)),
+                   (s.div(s.mul(s.lit(-4.0), mu.copy()), M.copy()), lz.lorenz(ctx, 0.5)),
+                   (s.div(s.mul(s.lit(-2.0), mu.copy()), M.copy()), lz.gini(ctx)))
+
+
+LINEARIZE = {
+    "below_line_share": lambda c, p: fgt_relative(c, 0.0, p[0]),
+    "fgt_relative": lambda c, p: fgt_relative(c, p[0], p[1]),
+    "fgt": lambda c, p: fgt(c, p[0], p[1]),
+    "wolfson": lambda c, p: wolfson(c),
+}

@@ -1,0 +1,58 @@
+"""The relative poverty line on every row: window layers after a pass's sorted rows.
+
+A line at a fraction of the group's weighted median needs the median before any row can be
+compared with it, and a window cannot read a window of the same SELECT. So a pass whose measures
+read ``ctx.median_row`` or ``ctx.below_weight_row(frac)`` gets, after its window CTE:
+
+    _srt  (the window CTE: C, W, … over the sorted rows)
+    _med  M = COALESCE(MIN(CASE WHEN C/W ≥ 0.5 THEN x END), MAX(x)) OVER (PARTITION BY keys)
+          — the weighted median exactly as quantile_w defines it (catalog/ordered.quantile_at)
+    _win  P_k = SUM(CASE WHEN x < frac_k·M THEN w ELSE 0 END) OVER (PARTITION BY keys)
+          — the weight strictly below each line (only when a measure reads it)
+
+The last layer takes the window CTE's usual name ``{name}_win``, so everything that reads the
+pass downstream (the GROUP BY of the measures, the linearized terms, the bootstrap) is unchanged.
+The layers are partition totals (no ORDER BY): no second sort.
+"""
+
+from __future__ import annotations
+
+from sqlglot import exp
+
+from uneven.compiler import sqlx as s
+from uneven.compiler.passes.source import cte, table
+
+
+def _partition(keys):
+    return [k.copy() for k in keys]
+
+
+def median_column(ctx, keys) -> exp.Expression:
+    x = s.col("_uv_x")
+    reached = s.gte(s.div(s.col("_uv_c"), s.col("_uv_wt")), s.lit(0.5))
+    first = s.window(s.agg_min(s.case(reached, x)), _partition(keys))
+    return s.alias(exp.Coalesce(this=first, expressions=[s.window(s.agg_max(x.copy()), _partition(keys))]), "_uv_md")
+
+
+def below_columns(ctx, keys) -> list[exp.Expression]:
+    cols = []
+    for i, frac in enumerate(ctx.__dict__.get("line_fracs", []), start=1):
+        below = s.lt(s.col("_uv_x"), s.mul(s.lit(frac), s.col("_uv_md")))
+        cols.append(s.alias(s.window(s.agg_sum(s.case(below, ctx.w, s.lit(0.0))), _partition(keys)), f"_uv_pw{i}"))
+    return cols
+
+
+def window_ctes(win: exp.Select, ctx, keys, name: str) -> list[exp.CTE]:
+    """``win`` as ``{name}_win``, or, when the measures read the line, ``win`` as ``{name}_srt``
+    followed by the line layers, the last named ``{name}_win``."""
+    if "med" not in ctx.used:
+        return [cte(win, f"{name}_win")]
+    layers = [[median_column(ctx, keys)]]
+    below = below_columns(ctx, keys)
+    if below:
+        layers.append(below)
+    names = [f"{name}_srt"] + [f"{name}_med"] * (len(layers) - 1) + [f"{name}_win"]
+    out = [cte(win, names[0])]
+    for i, cols in enumerate(layers, start=1):
+        out.append(cte(exp.Select(expressions=[exp.Star()] + cols).from_(table(names[i - 1]), copy=False), names[i]))
+    return out
