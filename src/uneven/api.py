@@ -20,7 +20,7 @@ from uneven.explain import Explanation, explain_query
 
 def compile(sql: str, dialect: str = "duckdb", *, read: str = "duckdb", pretty: bool = True,  # noqa: A001
             strict: bool = False, tie_grouping: str = "auto", method: str = "exact",
-            tolerance: float | None = None, resolution: float | None = None) -> str:
+            tolerance: float | None = None, resolution: float | None = None, ordered: str = "auto") -> str:
     """Compile SQL with measure calls into plain SQL for ``dialect`` (no measure calls left).
 
     ``strict=True``: a measure that is undefined for a group (NULL) stops the query with an error
@@ -33,15 +33,22 @@ def compile(sql: str, dialect: str = "duckdb", *, read: str = "duckdb", pretty: 
     a certified interval from one GROUP BY into log-spaced bins (docs/bounded.md). ``tolerance``
     (a Gini interval width to aim at) or ``resolution`` (the relative bin width, default 0.01)
     picks the bins.
+
+    ``ordered``: the plan of the cut-based measures (Lorenz ordinates, shares, Palma, S80/S20,
+    quantiles, a Lorenz curve of up to 20 segments). ``"refine"``: one GROUP BY into log-spaced bins,
+    then a sort of only the rows in the bins that hold a cut, exact (docs/refine.md); ``"window"``: a
+    sort of every row; ``"auto"`` (default): refine on every engine wherever all measures on a
+    (value, weight, FILTER) are cut-based (a Gini beside them needs the sort anyway), and the window
+    plan when ``tie_grouping="on"``.
     """
     return compile_sql(sql, dialect=dialect, read=read, pretty=pretty, strict=strict, tie_grouping=tie_grouping,
-                       method=method, resolution=pick_resolution(method, tolerance, resolution))
+                       method=method, resolution=pick_resolution(method, tolerance, resolution), ordered=ordered)
 
 
 def query(sql: str, con: duckdb.DuckDBPyConnection | None = None, *, memory_limit: str | None = None,
           threads: int | None = None, temp_directory: str | None = None,
           progress: bool = False, strict: bool = False, tie_grouping: str = "auto", method: str = "exact",
-          tolerance: float | None = None, resolution: float | None = None) -> pd.DataFrame:
+          tolerance: float | None = None, resolution: float | None = None, ordered: str = "auto") -> pd.DataFrame:
     """Compile ``sql`` and run it on DuckDB (``con``, or a new in-memory connection).
 
     Tables the query names may also be pandas DataFrames or Arrow tables held by the calling code
@@ -52,6 +59,7 @@ def query(sql: str, con: duckdb.DuckDBPyConnection | None = None, *, memory_limi
     ``method="bounded"``: intervals instead of a sort (see ``compile``); the result's
     ``attrs["uneven"]`` tells the resolution used and the widest interval of each measure. With a
     ``tolerance``, a Gini interval wider than it makes the query run once more with finer bins.
+    ``ordered``: see ``compile``.
     """
     method = check_method(method)
     chosen = pick_resolution(method, tolerance, resolution)
@@ -63,7 +71,7 @@ def query(sql: str, con: duckdb.DuckDBPyConnection | None = None, *, memory_limi
             compiled = compile_sql(sql, dialect="duckdb", pretty=False, strict=strict, method=method,
                                    resolution=res, source_columns=duckdb_source_columns(connection),
                                    tie_grouping=tie_grouping, tie_probe=duckdb_tie_probe(connection),
-                                   expression_types=duckdb_expression_types(connection))
+                                   expression_types=duckdb_expression_types(connection), ordered=ordered)
             return execute_df(connection, compiled)
         if method == "exact":
             return run(None)
@@ -77,14 +85,15 @@ def query(sql: str, con: duckdb.DuckDBPyConnection | None = None, *, memory_limi
 
 def explain(sql: str, con: duckdb.DuckDBPyConnection | None = None, *, profile: bool = False,
             memory_limit: str | None = None, threads: int | None = None, temp_directory: str | None = None,
-            strict: bool = False, tie_grouping: str = "auto") -> Explanation:
+            strict: bool = False, tie_grouping: str = "auto", ordered: str = "auto") -> Explanation:
     """The passes the planner chooses for ``sql`` on DuckDB (kind, variant, value, weight, FILTER,
     measures served, CTE names, reason) and, with ``profile=True``, the time DuckDB spends per
     operator when it runs the query once. ``print(explain(...))`` shows a readable summary."""
     connection = connect(con, memory_limit=memory_limit, threads=threads, temp_directory=temp_directory)
     registered = register_caller_frames(connection, sql, inspect.currentframe().f_back)
     try:
-        return explain_query(sql, connection, profile=profile, strict=strict, tie_grouping=tie_grouping)
+        return explain_query(sql, connection, profile=profile, strict=strict, tie_grouping=tie_grouping,
+                             ordered=ordered)
     finally:
         for name in registered:
             connection.unregister(name)

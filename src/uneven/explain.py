@@ -82,12 +82,13 @@ def _size(n) -> str:
 
 
 def explain_query(sql: str, con: duckdb.DuckDBPyConnection, *, profile: bool = False, strict: bool = False,
-                  tie_grouping: str = "auto") -> Explanation:
+                  tie_grouping: str = "auto", ordered: str = "auto") -> Explanation:
     """Compile ``sql`` as ``query`` would on ``con`` (same probes) and describe its passes; with
     ``profile`` also run it once under DuckDB's profiler."""
     compiled, passes = compile_with_plan(sql, dialect="duckdb", pretty=True, strict=strict,
                                          source_columns=duckdb_source_columns(con),
-                                         tie_grouping=tie_grouping, tie_probe=duckdb_tie_probe(con))
+                                         tie_grouping=tie_grouping, tie_probe=duckdb_tie_probe(con),
+                                         ordered=ordered)
     out = Explanation(passes=passes, sql=compiled)
     if profile:
         run_profiled(con, compiled, out)
