@@ -141,9 +141,15 @@ BUILDS = {
 
 def refinable(call) -> str | None:
     """None when the call depends on the order only at cut points, else why it needs the full order."""
+    from uneven import catalog  # noqa: PLC0415 (the catalog imports the compiler's builders)
+
     name = call.measure.name
     if name not in BUILDS:
         return f"{name} needs the full order"
+    entry = catalog.lookup(name)
+    if entry is None or call.measure.build is not entry.build or len(call.params) != len(entry.constants) \
+            or not all(isinstance(v, (int, float)) for v in call.params):
+        return f"{name} with parameters known only at run time"
     if name == "lorenz_curve" and int(call.params[0]) > MAX_CURVE_POINTS:
         return f"lorenz_curve with more than {MAX_CURVE_POINTS} segments cuts most bins"
     return None
