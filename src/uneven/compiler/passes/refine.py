@@ -6,7 +6,7 @@ S80/S20, quantiles, a short Lorenz curve) need, per group and cut, the rows whol
 Log-spaced bins give both (docs/refine.md has the argument):
 
 rows      (a subquery, read twice: no CTE, which an engine may store)
-          keys, x, w, b = the bin of x: 0 for zero, ±(2²⁰ + CAST(ln|x|·200 AS BIGINT)) by sign
+          keys, x, w, b = the bin of x: 0 for zero, ±(2²⁰ + CAST(ln|x|·50 AS BIGINT)) by sign
 bins CTE  keys, b: Σw, Σw·x, min x, max x                                    GROUP BY keys, b
 cum CTE   … running weight C_b up to and with the bin, C_b⁻ before it, the value held below
           (S_b⁻) or above (S_b⁺) it, group totals W and T            (windows over the bins only)
@@ -32,8 +32,8 @@ from uneven.compiler import sqlx as s
 from uneven.compiler.passes.source import (Source, checked_value, checked_weight, cte, finite_or_null,
                                              key_name, table, weight_label)
 
-BINS_PER_LN = 200.0  # bins per unit of ln|x|: about 0.5 % relative width
-OFFSET = 1 << 20  # keeps every positive bin above zero and every negative one below (|ln x|·200 < 2²⁰)
+BINS_PER_LN = 50.0  # bins per unit of ln|x|: about 2 % relative width (bench/README.md, "Refine plan")
+OFFSET = 1 << 20  # keeps every positive bin above zero and every negative one below (|ln x|·50 < 2²⁰)
 MAX_CURVE_POINTS = 20  # lorenz_curve(x, k) is refined for k ≤ this; larger k touch most bins: window plan
 
 ROWS_ALIAS = "_uv_r"
@@ -158,7 +158,7 @@ def refinable(call) -> str | None:
 # --- lowering ----------------------------------------------------------------------------------
 
 def bin_key(x: exp.Expression) -> exp.Expression:
-    """The bin of a DOUBLE x: 0 for zero, OFFSET + CAST(ln x·200 AS BIGINT) for x > 0, its negation
+    """The bin of a DOUBLE x: 0 for zero, OFFSET + CAST(ln x·50 AS BIGINT) for x > 0, its negation
     on −x for x < 0. Non-decreasing in x (every step keeps order), so a bin is a run of sorted rows."""
     zero = s.lit(0.0)
 
