@@ -47,6 +47,7 @@ def child(case: str, path: str, memory_limit: str, threads: int) -> dict:
     con = duckdb.connect()
     con.execute(f"SET threads = {threads}")
     con.execute(f"SET memory_limit = '{memory_limit}'")
+    con.execute(f"SET temp_directory = '{Path(tempfile.gettempdir()) / 'uneven-refine-bench'}'")
     con.execute("SET preserve_insertion_order = false")
     query = f"SELECT grp, {MEASURES} FROM read_parquet('{path}') GROUP BY grp ORDER BY grp"
     sql = {"sort": f"SELECT max(w) FROM (SELECT grp, x, w FROM read_parquet('{path}') ORDER BY grp, x)",
