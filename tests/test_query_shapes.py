@@ -47,15 +47,21 @@ WIDE_PARAMS = os.environ.get("UNEVEN_WIDE_PARAMS", "1") == "1"  # casts, integer
 SE_MEASURES = os.environ.get("UNEVEN_FUZZ_SE") == "1"  # standard errors too (not exact: see the report)
 
 
-def compile_faithful(sql: str, dialect: str) -> str:
+def compile_faithful(sql: str, dialect: str, **options) -> str:
     """Compile ``sql`` for ``dialect`` and check the emission invariant on the way: the compiled
     text, parsed back with its dialect, gives the tree the compiler built (tests/roundtrip.py's
     ``assert_faithful``). Without that helper only the plain compile runs: the hook to fill."""
     try:
         from roundtrip import assert_faithful  # noqa: PLC0415
     except ImportError:
-        return uneven.compile(sql, dialect=dialect, pretty=False)
-    return assert_faithful(sql, dialect, pretty=False)
+        return uneven.compile(sql, dialect=dialect, pretty=False, **options)
+    return assert_faithful(sql, dialect, pretty=False, **options)
+
+
+# The plan of cut-based measures (docs/refine.md) drawn per shape: the default ("auto": refine where
+# every measure on a value is cut-based), the window plan forced, the refine plan forced. The oracle
+# shares no code with either, so each plan is checked against it.
+PLANS = ({}, {"ordered": "window"}, {"ordered": "refine"})
 
 
 # --- values ------------------------------------------------------------------------------------
@@ -127,9 +133,9 @@ def fetch(eng, compiled: str) -> list:
     return [tuple(plain(v) for v in row) for row in frame.itertuples(index=False, name=None)]
 
 
-def outcome_compiled(eng, sql: str):
+def outcome_compiled(eng, sql: str, **options):
     try:
-        compiled = compile_faithful(sql, eng.dialect)
+        compiled = compile_faithful(sql, eng.dialect, **options)
     except uneven.UnevenError as e:
         return ("refused", str(e).splitlines()[0])
     except AssertionError as e:  # the emitted text loses the tree's grouping
@@ -147,9 +153,9 @@ def outcome_oracle(con, sql: str):
         return ("error", str(e).splitlines()[0][:300])
 
 
-def compare_shape(eng, oracle_con, shape) -> str | None:
+def compare_shape(eng, oracle_con, shape, **options) -> str | None:
     sql = shape.sql()
-    got, want = outcome_compiled(eng, sql), outcome_oracle(oracle_con, sql)
+    got, want = outcome_compiled(eng, sql, **options), outcome_oracle(oracle_con, sql)
     if got[0] != "rows" or want[0] != "rows":
         if got[0] == want[0] == "error":
             return None  # both refuse the same data (e.g. a failing expression): the same outcome
@@ -169,9 +175,11 @@ def check_shapes(eng, oracle_con, seed: int, count: int, max_measures: int = 3) 
     start = time.monotonic()
     mismatches = []
     for case, shape in enumerate(draw_shapes(seed, count, eng.name, max_measures)):
-        problem = compare_shape(eng, oracle_con, shape)
+        options = PLANS[case % len(PLANS)]
+        problem = compare_shape(eng, oracle_con, shape, **options)
         if problem:
-            mismatches.append(f"case {case} (seed {seed}, {eng.name}): {shape.sql()}\n{problem}")
+            mismatches.append(f"case {case} (seed {seed}, {eng.name}, {options or 'default plan'}): "
+                              f"{shape.sql()}\n{problem}")
     elapsed = time.monotonic() - start
     print(f"{eng.name}: {count} shapes, {len(mismatches)} mismatches, {elapsed:.1f} s")
     assert not mismatches, (f"{len(mismatches)} of {count} shapes differ from the oracle on {eng.name}:\n"

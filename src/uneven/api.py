@@ -22,7 +22,7 @@ from uneven.explain import Explanation, explain_on, explain_query
 
 def compile(sql: str, dialect: str = "duckdb", *, read: str = "duckdb", pretty: bool = True,  # noqa: A001
             strict: bool = False, tie_grouping: str = "auto", method: str = "exact",
-            tolerance: float | None = None, resolution: float | None = None) -> str:
+            tolerance: float | None = None, resolution: float | None = None, ordered: str = "auto") -> str:
     """Compile SQL with measure calls into plain SQL for ``dialect`` (no measure calls left).
 
     ``strict=True``: a measure that is undefined for a group (NULL) stops the query with an error
@@ -35,15 +35,23 @@ def compile(sql: str, dialect: str = "duckdb", *, read: str = "duckdb", pretty: 
     a certified interval from one GROUP BY into log-spaced bins (docs/bounded.md). ``tolerance``
     (a Gini interval width to aim at) or ``resolution`` (the relative bin width, default 0.01)
     picks the bins.
+
+    ``ordered``: the plan of the cut-based measures (Lorenz ordinates, shares, Palma, S80/S20,
+    quantiles, a Lorenz curve of up to 20 segments). ``"refine"``: one GROUP BY into log-spaced bins,
+    then a sort of only the rows in the bins that hold a cut, exact (docs/refine.md); ``"window"``: a
+    sort of every row; ``"auto"`` (default): refine on every engine wherever all measures on a
+    (value, weight, FILTER) are cut-based (a Gini beside them needs the sort anyway), and the window
+    plan when ``tie_grouping="on"``.
     """
     return compile_sql(sql, dialect=dialect, read=read, pretty=pretty, strict=strict, tie_grouping=tie_grouping,
-                       method=method, resolution=pick_resolution(method, tolerance, resolution))
+                       method=method, resolution=pick_resolution(method, tolerance, resolution), ordered=ordered)
 
 
 def query(sql: str, con=None, *, memory_limit: str | None = None,
           threads: int | None = None, temp_directory: str | None = None,
           progress: bool = False, strict: bool = False, tie_grouping: str = "auto", method: str = "exact",
-          tolerance: float | None = None, resolution: float | None = None, read: str = "duckdb") -> pd.DataFrame:
+          tolerance: float | None = None, resolution: float | None = None, read: str = "duckdb",
+          ordered: str = "auto") -> pd.DataFrame:
     """Compile ``sql`` and run it on ``con``: a DuckDB connection (default: a new in-memory one), a
     psycopg 3 connection (PostgreSQL), a ``SparkSession``, a ``sqlite3.Connection`` (the functions
     its SQL needs are installed on it), or a SQLAlchemy engine/connection over PostgreSQL or SQLite.
@@ -60,6 +68,7 @@ def query(sql: str, con=None, *, memory_limit: str | None = None,
     ``method="bounded"``: intervals instead of a sort (see ``compile``); the result's
     ``attrs["uneven"]`` tells the resolution used and the widest interval of each measure. With a
     ``tolerance``, a Gini interval wider than it makes the query run once more with finer bins.
+    ``ordered``: see ``compile``.
     """
     method = check_method(method)
     chosen = pick_resolution(method, tolerance, resolution)
@@ -67,7 +76,7 @@ def query(sql: str, con=None, *, memory_limit: str | None = None,
         check_duckdb_settings(memory_limit=memory_limit, threads=threads, temp_directory=temp_directory,
                               progress=progress)
         return run_on(adapt(con), sql, inspect.currentframe().f_back, strict=strict, tie_grouping=tie_grouping,
-                      method=method, resolution=chosen, tolerance=tolerance, read=read)
+                      method=method, resolution=chosen, tolerance=tolerance, read=read, ordered=ordered)
     connection = connect(con, memory_limit=memory_limit, threads=threads, temp_directory=temp_directory,
                          progress=progress)
     registered = register_caller_frames(connection, sql, inspect.currentframe().f_back)
@@ -76,7 +85,7 @@ def query(sql: str, con=None, *, memory_limit: str | None = None,
             compiled = compile_sql(sql, dialect="duckdb", read=read, pretty=False, strict=strict, method=method,
                                    resolution=res, source_columns=duckdb_source_columns(connection),
                                    tie_grouping=tie_grouping, tie_probe=duckdb_tie_probe(connection),
-                                   expression_types=duckdb_expression_types(connection))
+                                   expression_types=duckdb_expression_types(connection), ordered=ordered)
             return execute_df(connection, compiled)
         if method == "exact":
             return run(None)
@@ -96,7 +105,7 @@ def check_duckdb_settings(**settings) -> None:
 
 
 def run_on(adapter, sql: str, caller, *, strict: bool, tie_grouping: str, method: str, resolution, tolerance,
-           read: str) -> pd.DataFrame:
+           read: str, ordered: str = "auto") -> pd.DataFrame:
     """``query`` on an engine other than DuckDB (engine/adapters): compile for its dialect with its
     answers to the compiler's probes (columns, argument types), run, type the result as DuckDB does."""
     registered = register_frames_on(adapter, sql, caller)
@@ -104,7 +113,8 @@ def run_on(adapter, sql: str, caller, *, strict: bool, tie_grouping: str, method
         def run(res):
             compiled = compile_sql(sql, dialect=adapter.dialect, read=read, pretty=False, strict=strict,
                                    method=method, resolution=res, source_columns=adapter.source_columns(),
-                                   tie_grouping=tie_grouping, expression_types=adapter.expression_types())
+                                   tie_grouping=tie_grouping, expression_types=adapter.expression_types(),
+                                   ordered=ordered)
             return adapter.execute(compiled)
         if method == "exact":
             return run(None)
@@ -116,7 +126,8 @@ def run_on(adapter, sql: str, caller, *, strict: bool, tie_grouping: str, method
 
 def explain(sql: str, con=None, *, profile: bool = False,
             memory_limit: str | None = None, threads: int | None = None, temp_directory: str | None = None,
-            strict: bool = False, tie_grouping: str = "auto", read: str = "duckdb") -> Explanation:
+            strict: bool = False, tie_grouping: str = "auto", read: str = "duckdb",
+            ordered: str = "auto") -> Explanation:
     """The passes the planner chooses for ``sql`` on DuckDB (kind, variant, value, weight, FILTER,
     measures served, CTE names, reason) and, with ``profile=True``, the time DuckDB spends per
     operator when it runs the query once. ``print(explain(...))`` shows a readable summary.
@@ -128,14 +139,16 @@ def explain(sql: str, con=None, *, profile: bool = False,
         adapter = adapt(con)
         registered = register_frames_on(adapter, sql, inspect.currentframe().f_back)
         try:
-            return explain_on(sql, adapter, profile=profile, strict=strict, tie_grouping=tie_grouping, read=read)
+            return explain_on(sql, adapter, profile=profile, strict=strict, tie_grouping=tie_grouping, read=read,
+                              ordered=ordered)
         finally:
             for name in registered:
                 adapter.unregister(name)
     connection = connect(con, memory_limit=memory_limit, threads=threads, temp_directory=temp_directory)
     registered = register_caller_frames(connection, sql, inspect.currentframe().f_back)
     try:
-        return explain_query(sql, connection, profile=profile, strict=strict, tie_grouping=tie_grouping, read=read)
+        return explain_query(sql, connection, profile=profile, strict=strict, tie_grouping=tie_grouping, read=read,
+                             ordered=ordered)
     finally:
         for name in registered:
             connection.unregister(name)

@@ -89,14 +89,14 @@ def _size(n) -> str:
 
 
 def explain_on(sql: str, adapter, *, profile: bool = False, strict: bool = False, tie_grouping: str = "auto",
-               read: str = "duckdb") -> Explanation:
+               read: str = "duckdb", ordered: str = "auto") -> Explanation:
     """``explain_query`` on another engine (engine/adapters): the passes compiled for its dialect and
     its own plan; with ``profile`` the query runs once (PostgreSQL: EXPLAIN ANALYZE) and is timed."""
     import time
 
     compiled, passes = compile_with_plan(sql, dialect=adapter.dialect, read=read, pretty=True, strict=strict,
                                          source_columns=adapter.source_columns(), tie_grouping=tie_grouping,
-                                         expression_types=adapter.expression_types())
+                                         expression_types=adapter.expression_types(), ordered=ordered)
     out = Explanation(passes=passes, sql=compiled, engine=adapter.label)
     try:
         if profile and adapter.dialect == "postgres":
@@ -113,12 +113,13 @@ def explain_on(sql: str, adapter, *, profile: bool = False, strict: bool = False
 
 
 def explain_query(sql: str, con: duckdb.DuckDBPyConnection, *, profile: bool = False, strict: bool = False,
-                  tie_grouping: str = "auto", read: str = "duckdb") -> Explanation:
+                  tie_grouping: str = "auto", read: str = "duckdb", ordered: str = "auto") -> Explanation:
     """Compile ``sql`` as ``query`` would on ``con`` (same probes) and describe its passes; with
     ``profile`` also run it once under DuckDB's profiler."""
     compiled, passes = compile_with_plan(sql, dialect="duckdb", read=read, pretty=True, strict=strict,
                                          source_columns=duckdb_source_columns(con),
-                                         tie_grouping=tie_grouping, tie_probe=duckdb_tie_probe(con))
+                                         tie_grouping=tie_grouping, tie_probe=duckdb_tie_probe(con),
+                                         ordered=ordered)
     out = Explanation(passes=passes, sql=compiled)
     if profile:
         run_profiled(con, compiled, out)

@@ -31,6 +31,8 @@ def register(sub) -> None:
     p.add_argument("--tie-grouping", choices=("auto", "on", "off"), default="auto",
                    help="group tied values before the ordered pass's window: auto (probe the data, default), "
                    "on, off")
+    p.add_argument("--ordered", choices=("auto", "refine", "window"), default="auto",
+                   help="plan of the cut-based measures: auto (default), refine or window (docs/refine.md)")
     p.add_argument("--strict", action="store_true", help="compile every measure call as strict")
     add_engine_options(p)
     add_engine_url_option(p)
@@ -42,7 +44,7 @@ def run(args) -> int:
         from uneven.errors import UnevenError
         raise UnevenError(f"--top must be at least 1, got {args.top}")
     found = uneven.explain(read_sql(args.sql), connection(args), profile=args.profile, strict=args.strict,
-                            tie_grouping=args.tie_grouping, **settings(args))
+                            tie_grouping=args.tie_grouping, ordered=args.ordered, **settings(args))
     if args.json:
         doc = {"passes": found.passes, "sql": found.sql}
         if found.operators is not None:

@@ -78,10 +78,15 @@ def add_method_options(p: argparse.ArgumentParser) -> None:
                    help="with --method bounded: the Gini interval width to aim at (picks the resolution)")
     p.add_argument("--resolution", type=float, metavar="R",
                    help="with --method bounded: relative bin width (default 0.01)")
+    p.add_argument("--ordered", choices=("auto", "refine", "window"), default="auto",
+                   help="plan of the cut-based measures (shares, Palma, quantiles): refine (bins, then a sort "
+                   "of the cut bins only), window (a sort of every row), auto (refine where every measure on "
+                   "the value is cut-based, default; docs/refine.md)")
 
 
 def method_kwargs(args) -> dict:
-    return {"method": args.method, "tolerance": args.tolerance, "resolution": args.resolution}
+    return {"method": args.method, "tolerance": args.tolerance, "resolution": args.resolution,
+            "ordered": args.ordered}
 
 
 def cmd_query(args) -> int:

@@ -42,6 +42,7 @@ class CompileContext:
     counters: dict[str, int] = field(default_factory=lambda: defaultdict(int))
     # planner options (compiler/plan.py): "auto" | "on" | "off", and the engine's tie probe
     tie_grouping: str = "auto"
+    ordered: str = "auto"  # cut-based measures: "auto" | "refine" | "window" (plan.route_refine)
     dialect: str = "duckdb"  # the target engine: some plan variants need one of its functions
     read: str = "duckdb"  # the dialect the SQL text is written in: constant parameters mean what it says
     tie_probe: Callable | None = None

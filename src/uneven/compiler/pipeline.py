@@ -8,7 +8,7 @@ from uneven.compiler.calls import check_position, find_calls, read_call
 from uneven.compiler.context import CompileContext, span, text
 from uneven.compiler.generate import check_dialect, check_read_dialect, generate
 from uneven.compiler.parse import parse_one_statement
-from uneven.compiler.plan import TIE_GROUPING
+from uneven.compiler.plan import ORDERED_PLANS, TIE_GROUPING
 from uneven.compiler.scalars import expand_scalars
 from uneven.compiler.scope import rewrite_scope
 from uneven.bounds import bins
@@ -82,31 +82,34 @@ def compile_tree(tree: exp.Expression, ctx: CompileContext) -> exp.Expression:
 
 def compile_sql(sql: str, dialect: str = "duckdb", read: str = "duckdb", pretty: bool = True,
                 strict: bool = False, source_columns=None, tie_grouping: str = "auto", tie_probe=None,
-                method: str = "exact", resolution: float | None = None, expression_types=None) -> str:
+                method: str = "exact", resolution: float | None = None, expression_types=None,
+                ordered: str = "auto") -> str:
     """Compile SQL text with measure calls into plain SQL for ``dialect``; ``strict`` makes every
     measure call strict (an undefined result stops the query, naming the group);
     ``source_columns(select)`` may tell the columns a SELECT's FROM provides (see keys.py), and
     ``expression_types(select, exprs)`` the types of measure arguments (see types.py);
     ``tie_grouping`` and ``tie_probe`` steer the ordered pass's variant (see plan.py);
     ``method="bounded"`` gives each measure an interval from one-pass binned summaries of relative
-    bin width ``resolution`` (compiler/bounded.py)."""
+    bin width ``resolution`` (compiler/bounded.py); ``ordered`` picks the plan of cut-based
+    measures: "auto", "refine" or "window" (plan.route_refine, docs/refine.md)."""
     return compile_with_plan(sql, dialect, read, pretty, strict, source_columns, tie_grouping, tie_probe,
-                             method, resolution, expression_types)[0]
+                             method, resolution, expression_types, ordered)[0]
 
 
 def compile_with_plan(sql: str, dialect: str = "duckdb", read: str = "duckdb", pretty: bool = True,
                       strict: bool = False, source_columns=None, tie_grouping: str = "auto",
                       tie_probe=None, method: str = "exact", resolution: float | None = None,
-                      expression_types=None) -> tuple[str, list[dict]]:
+                      expression_types=None, ordered: str = "auto") -> tuple[str, list[dict]]:
     """``compile_sql`` and the planner's record of every pass (plan.describe_pass), innermost scope first."""
     check_dialect(dialect)
     check_tie_grouping(tie_grouping)
+    check_ordered(ordered)
     check_read_dialect(read)
     ctx = CompileContext(sql=sql, strict=strict, source_columns=source_columns, tie_grouping=tie_grouping,
                          tie_probe=tie_probe, method=check_method(method),
                          resolution=bins.check_resolution(bins.DEFAULT_RESOLUTION if resolution is None
                                                           else resolution),
-                         expression_types=expression_types, dialect=dialect, read=read)
+                         expression_types=expression_types, dialect=dialect, read=read, ordered=ordered)
     tree = compile_tree(parse_one_statement(sql, read), ctx)
     return generate(tree, dialect, pretty=pretty), ctx.chosen
 
@@ -114,3 +117,8 @@ def compile_with_plan(sql: str, dialect: str = "duckdb", read: str = "duckdb", p
 def check_tie_grouping(value) -> None:
     if value not in TIE_GROUPING:
         raise MeasureUsageError(f"tie_grouping must be one of {', '.join(TIE_GROUPING)}, got {value!r}")
+
+
+def check_ordered(value) -> None:
+    if value not in ORDERED_PLANS:
+        raise MeasureUsageError(f"ordered must be one of {', '.join(ORDERED_PLANS)}, got {value!r}")

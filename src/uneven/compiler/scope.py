@@ -22,13 +22,15 @@ from uneven.compiler.passes.entity import lower_entity_pass
 from uneven.compiler.passes.linearized import can_share, lower_linearized_pass
 from uneven.compiler.passes.moment import MainAggregate, lower_moment_pass
 from uneven.compiler.passes.ordered import lower_ordered_pass
+from uneven.compiler.passes.refine import lower_refine_pass
 from uneven.compiler.passes.paired import lower_paired_pass
 from uneven.compiler.passes.ranked import lower_ranked_pass
 from uneven.compiler.passes.subgroup import lower_subgroup_pass
 from uneven.compiler.passes.source import Source, finite_or_null, join_on_keys, key_name, table
 from uneven.compiler.bounded import bounded_items, route_bounded
 from uneven.compiler.passes.summary import lower_summary_pass
-from uneven.compiler.plan import choose_variant, describe_pass, fuse_centred, plan_passes, share_passes
+from uneven.compiler.plan import (choose_variant, describe_pass, fuse_centred, plan_passes, route_refine,
+                                   share_passes)
 from uneven.errors import UnsupportedSqlError
 
 
@@ -77,6 +79,7 @@ LOWERINGS = {
     "moment": (None, lower_moment_pass),
     "centred": ("cen", lower_centred_pass),
     "ordered": ("ord", lower_ordered_pass),
+    "refine": ("ref", lower_refine_pass),
     "entity": ("ent", lower_entity_pass),
     "subgroup": ("sub", lower_subgroup_pass),
     "ranked": ("rnk", lower_ranked_pass),
@@ -91,7 +94,8 @@ def lower_passes(calls: list[MeasureCall], source: Source, main: MainAggregate, 
     """Lower every planned pass: (its CTEs, the CTEs the final SELECT joins on the keys, call key →
     result). The CTEs to join are those the results read, other than the main aggregate."""
     ctes, results = [], {}
-    for plan in fuse_centred(share_passes(plan_passes(calls), can_share), bool(source.keys)):
+    plans = route_refine(share_passes(plan_passes(calls), can_share), ctx.ordered, ctx.tie_grouping)
+    for plan in fuse_centred(plans, bool(source.keys)):
         choose_variant(plan, source.select, source.keys, ctx.tie_grouping, ctx.tie_probe, ctx.dialect)
         prefix, lower = LOWERINGS[plan.kind]
         extra = {"resolution": ctx.resolution} if plan.kind == "summary" else {}

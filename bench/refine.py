@@ -1,0 +1,130 @@
+"""The refine plan (docs/refine.md) against the window plan, DuckDB's own sort and a scan aggregate.
+
+    python bench/refine.py                                   # g1000 (20M x 1000) and one (100M x 1)
+    python bench/refine.py --datasets g1000 --repeat 3
+
+Query: ``SELECT grp, top_share(x, 0.1, w), palma(x, w), s80s20(x, w), quantile_w(x, 0.5, w)
+FROM f GROUP BY grp``. Cases, each in a fresh subprocess (peak RSS = its own VmHWM), 2 threads,
+memory_limit 1GB by default:
+
+  sort     SELECT max(w) FROM (SELECT grp, x, w FROM f ORDER BY grp, x)   (DuckDB's sort)
+  scan     SELECT grp, sum(x), sum(w), count(*) FROM f GROUP BY grp        (a scan aggregate)
+  bins     the refine plan's bin GROUP BY alone (the same bin key expression)
+  window   the query, ordered="window" (a sort of every row)
+  refine   the query, ordered="refine"
+
+Prints times (median of --repeat), peak RSS, the ratios the targets are stated in, and the largest
+relative difference between the refine and window results. Data: bench/gen_data.py (bench/data/).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+BENCH = Path(__file__).resolve().parent
+MEASURES = "top_share(x, 0.1, w), palma(x, w), s80s20(x, w), quantile_w(x, 0.5, w)"
+CASES = ("sort", "scan", "bins", "window", "refine")
+
+
+def _bins_sql(path: str) -> str:
+    from sqlglot import exp
+    from uneven.compiler.passes.refine import bin_key
+    key = bin_key(exp.column("x")).sql("duckdb")
+    return (f"SELECT count(*) FROM (SELECT grp, b, sum(w), sum(w * x), min(x), max(x) FROM "
+            f"(SELECT grp, x, w, {key} AS b FROM read_parquet('{path}')) GROUP BY grp, b)")
+
+
+def child(case: str, path: str, memory_limit: str, threads: int) -> dict:
+    import duckdb
+    import uneven
+    con = duckdb.connect()
+    con.execute(f"SET threads = {threads}")
+    con.execute(f"SET memory_limit = '{memory_limit}'")
+    con.execute(f"SET temp_directory = '{Path(tempfile.gettempdir()) / 'uneven-refine-bench'}'")
+    con.execute("SET preserve_insertion_order = false")
+    query = f"SELECT grp, {MEASURES} FROM read_parquet('{path}') GROUP BY grp ORDER BY grp"
+    sql = {"sort": f"SELECT max(w) FROM (SELECT grp, x, w FROM read_parquet('{path}') ORDER BY grp, x)",
+           "scan": f"SELECT grp, sum(x), sum(w), count(*) FROM read_parquet('{path}') GROUP BY grp",
+           "bins": _bins_sql(path)}.get(case)
+    if sql is None:
+        sql = uneven.compile(query, ordered=case, pretty=False)
+    t0 = time.perf_counter()
+    rows = con.execute(sql).fetchall()
+    seconds = time.perf_counter() - t0
+    hwm = None
+    for line in open("/proc/self/status"):
+        if line.startswith("VmHWM:"):
+            hwm = int(line.split()[1]) / 1024
+    out = {"seconds": seconds, "peak_rss_mb": hwm}
+    if case in ("window", "refine"):
+        out["rows"] = [list(r) for r in rows]
+    return out
+
+
+def run_case(case: str, path: Path, a) -> dict:
+    with tempfile.TemporaryDirectory() as td:
+        out = Path(td) / "out.json"
+        subprocess.run([sys.executable, __file__, "--child", case, "--file", str(path), "--out", str(out),
+                        "--memory-limit", a.memory_limit, "--threads", str(a.threads)], check=True)
+        return json.loads(out.read_text())
+
+
+def _max_rel(a: list, b: list) -> float:
+    worst = 0.0
+    for ra, rb in zip(a, b):
+        for u, v in zip(ra[1:], rb[1:]):
+            if u is None or v is None:
+                if u is not v:
+                    return float("inf")
+                continue
+            worst = max(worst, abs(u - v) / max(abs(v), 1e-300))
+    return worst
+
+
+def main(argv=None) -> int:
+    p = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("--datasets", default="g1000,one")
+    p.add_argument("--repeat", type=int, default=1)
+    p.add_argument("--memory-limit", default="1GB")
+    p.add_argument("--threads", type=int, default=2)
+    p.add_argument("--cases", default=",".join(CASES))
+    p.add_argument("--child", help=argparse.SUPPRESS)
+    p.add_argument("--file", help=argparse.SUPPRESS)
+    p.add_argument("--out", help=argparse.SUPPRESS)
+    a = p.parse_args(argv)
+    if a.child:
+        Path(a.out).write_text(json.dumps(child(a.child, a.file, a.memory_limit, a.threads)))
+        return 0
+    for kind in a.datasets.split(","):
+        path = BENCH / "data" / f"{kind}.parquet"
+        if not path.exists():
+            print(f"{path} missing: python bench/gen_data.py --kinds {kind}", file=sys.stderr)
+            return 1
+        results = {}
+        for case in a.cases.split(","):
+            runs = [run_case(case, path, a) for _ in range(a.repeat)]
+            results[case] = {"seconds": statistics.median(r["seconds"] for r in runs),
+                             "peak_rss_mb": max(r["peak_rss_mb"] or 0 for r in runs), "rows": runs[-1].get("rows")}
+            print(f"{kind:6} {case:7} {results[case]['seconds']:8.2f} s  peak RSS {results[case]['peak_rss_mb']:6.0f} MB",
+                  flush=True)
+        t = {c: r["seconds"] for c, r in results.items()}
+        if "refine" in t and "window" in t:
+            print(f"{kind}: refine / window {t['refine'] / t['window']:.2f}; max relative difference "
+                  f"{_max_rel(results['refine']['rows'], results['window']['rows']):.1e}")
+        for c in ("refine", "window", "bins"):
+            if c in t and "sort" in t:
+                print(f"{kind}: {c} / sort {t[c] / t['sort']:.2f}")
+        if "bins" in t and "scan" in t:
+            print(f"{kind}: bins / scan {t['bins'] / t['scan']:.2f}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,263 @@
+"""The refine plan (compiler/passes/refine.py, docs/refine.md) on every engine of the matrix.
+
+Expected values come from exact rational arithmetic written here from the contract's definitions
+(DESIGN.md, "Measure definitions"; every double is a rational, so Python ``fractions`` is exact),
+never from compiler code: per group, the rows sorted by x with running weight C_i, then
+    L(p)·T = Σ x_i·clamp(p·W − C_{i−1}, 0, w_i),  top_share(p)·T = Σ x_i·clamp(C_i − (1−p)·W, 0, w_i),
+    Q(p) = the smallest x_i with C_i/W ≥ p (weighted inverted CDF).
+The data are invented (fixed seeds) and chosen to stress the plan: ties across a cut, a group
+crowded in one bin, values spread over 21 decades, zeros and negatives, zero and fractional
+weights, NULL values and weights, a group with no valid row, one-row groups, and p = 0 and 1.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from fractions import Fraction
+
+import numpy as np
+import pandas as pd
+import pytest
+
+import uneven
+from uneven.errors import MeasureUsageError
+
+
+# ---- exact oracle ---------------------------------------------------------------------------------
+
+def _rows(x, w):
+    pairs = sorted((Fraction(float(a)), Fraction(float(b))) for a, b in zip(x, w) if b > 0)
+    return [p[0] for p in pairs], [p[1] for p in pairs]
+
+
+def below(x, w, p):
+    xs, ws = _rows(x, w)
+    W, C, held = sum(ws), Fraction(0), Fraction(0)
+    for xi, wi in zip(xs, ws):
+        held += xi * min(max(Fraction(p) * W - C, 0), wi)
+        C += wi
+    return held
+
+
+def above(x, w, p):
+    xs, ws = _rows(x, w)
+    W, C, held = sum(ws), Fraction(0), Fraction(0)
+    for xi, wi in zip(xs, ws):
+        C += wi
+        held += xi * min(max(C - (1 - Fraction(p)) * W, 0), wi)
+    return held
+
+
+def quantile(x, w, p):
+    """p as the decimal the SQL text writes (0.9 is 9/10): with integer weights C_i/W can equal it
+    exactly, and the engine's double C_i/W then equals the double 0.9, as 9/10 equals 9/10."""
+    xs, ws = _rows(x, w)
+    if not xs:
+        return None
+    W, C = sum(ws), Fraction(0)
+    for xi, wi in zip(xs, ws):
+        C += wi
+        if C / W >= Fraction(str(p)):
+            return xi
+    return xs[-1]
+
+
+def _total(x, w):
+    xs, ws = _rows(x, w)
+    return sum(a * b for a, b in zip(xs, ws)) if xs else None, sum(ws) if xs else None
+
+
+def _share(mass, x, w, p):
+    T, _ = _total(x, w)
+    return None if T is None or T <= 0 else mass(x, w, p) / T
+
+
+def _ratio(a, b):
+    return None if a is None or b is None or b == 0 else a / b
+
+
+ORACLE = {  # SQL call template ({w}: ", w" or "") -> exact value from (x, w)
+    "lorenz(x, 0.3{w})": lambda x, w: _share(below, x, w, 0.3),
+    "lorenz(x, 0{w})": lambda x, w: _share(below, x, w, 0),
+    "lorenz(x, 1{w})": lambda x, w: _share(below, x, w, 1),
+    "bottom_share(x, 0.4{w})": lambda x, w: _share(below, x, w, 0.4),
+    "generalized_lorenz(x, 0.5{w})": lambda x, w: (None if _total(x, w)[1] is None
+                                                    else below(x, w, 0.5) / _total(x, w)[1]),
+    "top_share(x, 0.1{w})": lambda x, w: _share(above, x, w, 0.1),
+    "top_share(x, 0{w})": lambda x, w: _share(above, x, w, 0),
+    "top_share(x, 1{w})": lambda x, w: _share(above, x, w, 1),
+    "palma(x{w})": lambda x, w: _ratio(_share(above, x, w, 0.1), _share(below, x, w, 0.4)),
+    "s80s20(x{w})": lambda x, w: _ratio(_share(above, x, w, 0.2), _share(below, x, w, 0.2)),
+    "quantile_w(x, 0.5{w})": lambda x, w: quantile(x, w, 0.5),
+    "quantile_w(x, 0.37{w})": lambda x, w: quantile(x, w, 0.37),
+    "quantile_w(x, 0{w})": lambda x, w: quantile(x, w, 0),
+    "quantile_w(x, 1{w})": lambda x, w: quantile(x, w, 1),
+    "percentile_ratio(x, 0.9, 0.1{w})": lambda x, w: _ratio(quantile(x, w, 0.9), quantile(x, w, 0.1)),
+    "lorenz_curve(x, 4{w})": lambda x, w: (None if _share(below, x, w, 1) is None else
+                                           [(Fraction(j, 4), _share(below, x, w, Fraction(j, 4))) for j in range(5)]),
+}
+
+
+# ---- invented data -------------------------------------------------------------------------------
+
+def refine_data() -> pd.DataFrame:
+    rng = np.random.default_rng(20261203)
+    groups = {}
+    n = 400
+    groups["lognormal"] = (np.round(rng.lognormal(3, 1, n), 2), rng.integers(1, 6, n).astype(float))
+    # five values, so every cut falls inside a block of ties (bins of one value: no sort at all)
+    groups["ties"] = (rng.choice([1.0, 2.0, 2.5, 7.0, 40.0], n), rng.integers(1, 4, n).astype(float))
+    # a tie run across a cut with the other rows in the same bin (1000 + small steps: one bin)
+    crowd = 1000.0 + rng.integers(0, 50, n) * 0.001
+    crowd[:120] = 1000.02
+    groups["crowded"] = (crowd, rng.integers(1, 4, n).astype(float))
+    groups["span"] = (10.0 ** rng.uniform(-9, 12, n), rng.integers(1, 9, n).astype(float))
+    mixed = np.round(rng.normal(20, 30, n), 1)
+    mixed[:40] = 0.0
+    groups["signs"] = (mixed, rng.integers(1, 4, n).astype(float))
+    frac = np.round(rng.pareto(1.5, n) * 100 + 1, 3)
+    wf = np.round(rng.uniform(0.1, 5.0, n), 6)
+    wf[:30] = 0.0  # zero weights change nothing
+    groups["fractional"] = (frac, wf)
+    groups["one_row"] = (np.array([42.5]), np.array([3.0]))
+    groups["two_equal"] = (np.array([5.0, 5.0]), np.array([1.0, 2.0]))
+    groups["all_negative"] = (-np.round(rng.lognormal(1, 0.5, 50), 2), rng.integers(1, 3, 50).astype(float))
+    frames = [pd.DataFrame({"g": k, "x": x, "w": w}) for k, (x, w) in groups.items()]
+    df = pd.concat(frames, ignore_index=True)
+    df["x"] = df["x"].astype("Float64")
+    df["w"] = df["w"].astype("Float64")
+    # NULL values and weights are skipped; a group whose every value is NULL has no valid row
+    df.loc[5, "x"] = pd.NA
+    df.loc[17, "w"] = pd.NA
+    empty = pd.DataFrame({"g": "no_valid_row", "x": pd.array([pd.NA, pd.NA], dtype="Float64"),
+                          "w": pd.array([1.0, 2.0], dtype="Float64")})
+    nullkey = pd.DataFrame({"g": None, "x": pd.array([3.0, 1.0, 4.0, 1.0, 5.0], dtype="Float64"),
+                            "w": pd.array([1.0, 1.0, 2.0, 1.0, 1.0], dtype="Float64")})
+    return pd.concat([df, empty, nullkey], ignore_index=True)
+
+
+CALLS = [(call.format(w=", w" if weighted else ""), ref, weighted) for weighted in (True, False)
+         for call, ref in ORACLE.items()]
+
+
+def _want(df, key, ref, weighted):
+    d = df[df["g"].isna()] if key is None else df[df["g"] == key]
+    d = d[d["x"].notna()]
+    if weighted:
+        d = d[d["w"].notna()]
+    x = d["x"].to_numpy(float)
+    w = d["w"].to_numpy(float) if weighted else np.ones(len(d))
+    return ref(x, w)
+
+
+def _close(got, want, rel=1e-12) -> bool:
+    if want is None:
+        return got is None or got is pd.NA
+    if isinstance(want, list):
+        if isinstance(got, str):
+            got = json.loads(got)  # SQLite: list results are JSON text
+        return got is not None and len(got) == len(want) and all(
+            _close(g["p"], p) and _close(g["lorenz"], v) for g, (p, v) in zip(got, want))
+    if got is None or got is pd.NA or (isinstance(got, float) and math.isnan(got)):
+        return False
+    err = abs(Fraction(float(got)) - Fraction(want))
+    # an exact zero (top_share(x, 0)) is met to 1e-12 absolute: shares are of order one
+    return err <= rel * abs(Fraction(want)) or (want == 0 and err <= Fraction(1, 10 ** 12))
+
+
+@pytest.fixture(scope="module")
+def data(engine):
+    df = refine_data()
+    engine.load(df)
+    return df
+
+
+@pytest.fixture(scope="module")
+def refined(engine, data):
+    calls = ", ".join(f"{call} AS m{i}" for i, (call, _, _) in enumerate(CALLS))
+    return engine.run(f"SELECT g, {calls} FROM t GROUP BY g", ordered="refine")
+
+
+def test_every_cut_based_measure_is_exact_on_the_refine_plan(engine, data, refined):
+    keys = list(dict.fromkeys(None if pd.isna(k) else k for k in data["g"]))
+    assert len(refined) == len(keys)
+    bad = []
+    for row in refined.to_dict("records"):  # (iterrows would turn NULL into NaN)
+        key = None if row["g"] is None or row["g"] is pd.NA or row["g"] != row["g"] else row["g"]
+        for i, (call, ref, weighted) in enumerate(CALLS):
+            got, want = row[f"m{i}"], _want(data, key, ref, weighted)
+            if isinstance(got, np.ndarray):
+                got = list(got)
+            if not _close(got, want):
+                bad.append(f"{key} {call}: got {got}, want {want if want is None else float(want) if not isinstance(want, list) else want}")
+    assert not bad, "\n".join(bad[:20])
+
+
+def test_refine_plan_raises_the_input_policy_errors(engine, data):
+    from engines import EngineError
+    with pytest.raises(EngineError, match="uneven: negative weight"):
+        engine.run("SELECT g, top_share(x, 0.1, w - 3) FROM t GROUP BY g", ordered="refine")
+
+
+# ---- the same outcome as the window plan, and the planner's choice -----------------------------
+
+def test_refine_equals_window_plan_on_duckdb():
+    import duckdb
+    con = duckdb.connect()
+    con.register("t", refine_data())
+    calls = ", ".join(f"{call} AS m{i}" for i, (call, _, _) in enumerate(CALLS))
+    sql = f"SELECT g, {calls} FROM t GROUP BY g ORDER BY g NULLS LAST"
+    a = con.execute(uneven.compile(sql, ordered="refine")).fetchall()
+    b = con.execute(uneven.compile(sql, ordered="window")).fetchall()
+    assert [r[0] for r in a] == [r[0] for r in b]
+    for ra, rb in zip(a, b):
+        for i, (u, v) in enumerate(zip(ra[1:], rb[1:])):
+            if isinstance(u, list):
+                assert [p["lorenz"] for p in u] == pytest.approx([p["lorenz"] for p in v], rel=1e-12, abs=1e-12)
+            elif u is None:
+                assert v is None, CALLS[i][0]
+            else:
+                assert u == pytest.approx(v, rel=1e-12, abs=1e-12), CALLS[i][0]
+
+
+def _kinds(sql, **options):
+    return [p["kind"] for p in uneven.explain(sql, **options).passes]
+
+
+def test_planner_refines_only_when_every_measure_is_cut_based():
+    df = refine_data()  # noqa: F841 (read by the queries below)
+    assert _kinds("SELECT g, top_share(x, 0.1, w), quantile_w(x, 0.5, w) FROM df GROUP BY g") == ["refine"]
+    assert _kinds("SELECT g, top_share(x, 0.1, w), gini(x, w) FROM df GROUP BY g") == ["ordered"]
+    assert _kinds("SELECT g, top_share(x, 0.1, w) FROM df GROUP BY g", ordered="window") == ["ordered"]
+    assert _kinds("SELECT g, top_share(x, 0.1, w) FROM df GROUP BY g", tie_grouping="on") == ["ordered"]
+    assert _kinds("SELECT g, top_share(x, 0.1, w) FROM df GROUP BY g", tie_grouping="on",
+                  ordered="refine") == ["refine"]
+    assert _kinds("SELECT g, lorenz_curve(x, 50, w) FROM df GROUP BY g") == ["ordered"]
+    reasons = [p["reason"] for p in uneven.explain("SELECT g, palma(x), gini(x) FROM df GROUP BY g").passes]
+    assert reasons[0].startswith("window plan: gini needs the full order")
+    # a Gini on another value leaves the cut-based value on the refine plan
+    assert sorted(_kinds("SELECT g, palma(x), gini(w) FROM df GROUP BY g")) == ["ordered", "refine"]
+
+
+@pytest.mark.parametrize("dialect", ["duckdb", "postgres", "spark", "sqlite", "trino", "bigquery", "snowflake"])
+def test_compile_emits_the_refine_plan_for_every_dialect(dialect):
+    sql = "SELECT g, top_share(x, 0.1, w), palma(x, w) FROM t GROUP BY g"
+    assert '_uv_ref_1_need' in uneven.compile(sql, dialect=dialect).replace('`', '"')
+    assert '_uv_ref_' not in uneven.compile(sql, dialect=dialect, ordered="window")
+
+
+def test_unknown_plan_name_is_refused():
+    with pytest.raises(MeasureUsageError, match="ordered must be one of auto, refine, window"):
+        uneven.compile("SELECT top_share(x, 0.1) FROM t", ordered="sorted")
+
+
+def test_random_source_is_read_once():
+    # the plan reads its rows twice (bins, then the cut bins): a random source goes through the
+    # materialized CTE (compiler/materialize.py), so both reads see the same draw
+    sql = ("SELECT min(x) AS lo, max(x) AS hi, quantile_w(x, 0) AS q0, quantile_w(x, 1) AS q1, "
+           "quantile_w(x, 0.5) AS q5 FROM (SELECT random() AS x FROM range(5000))")
+    for _ in range(3):
+        row = uneven.query(sql, ordered="refine").iloc[0]
+        assert row["q0"] == row["lo"] and row["q1"] == row["hi"]
+        assert row["lo"] < row["q5"] < row["hi"]
