@@ -351,7 +351,7 @@ def exact_gini_se(x, w) -> float:
     return math.sqrt(Fraction(n, n - 1) * sum((v - mean) ** 2 for v in u))
 
 
-def test_gini_se_keeps_digits_at_small_spread(engine):
+def test_se_keeps_digits_at_small_spread(engine):
     # values 1000·(1 + δ·N(0, 1)): the score is of order δ while x is of order 1; relative 1e-9
     # against exact arithmetic down to δ = 1e-6
     rng = np.random.default_rng(17)
@@ -361,10 +361,18 @@ def test_gini_se_keeps_digits_at_small_spread(engine):
                                     "w": rng.integers(1, 6, 300).astype(float)}))
     df = pd.concat(frames, ignore_index=True)
     engine.load(df, "near")
-    res = engine.run("SELECT grp, gini_se(x, w) AS sw, gini_se(x) AS su FROM near GROUP BY grp")
+    lorenz_type = [("lorenz", (0.3,)), ("top_share", (0.1,)), ("generalized_lorenz", (0.5,)), ("palma", ()),
+                   ("s80s20", ())]
+    calls = [f"{n}_se(x{''.join(f', {p}' for p in ps)}, w) AS l{i}" for i, (n, ps) in enumerate(lorenz_type)]
+    res = engine.run(f"SELECT grp, gini_se(x, w) AS sw, gini_se(x) AS su, {', '.join(calls)} FROM near GROUP BY grp")
     assert len(res) == 3
     for _, row in res.iterrows():
         d = df[df.grp == row["grp"]]
         for col, w in (("sw", d.w), ("su", np.ones(len(d)))):
             want = exact_gini_se(d.x, w)
             assert abs(row[col] - want) <= 1e-9 * want, (row["grp"], col, row[col], want)
+        # the Lorenz-type scores (terms on x − m too) against the numpy reference, whose per-row
+        # scores lose about 1e-16·μ/δ (1e-10 at δ = 1e-6)
+        for i, (n, ps) in enumerate(lorenz_type):
+            want = rse.se(n, d.x, ps, d.w)
+            assert abs(row[f"l{i}"] - want) <= 1e-9 * want, (row["grp"], n, row[f"l{i}"], want)
