@@ -62,10 +62,9 @@ MEASURES = [
     ("atkinson", ["eps"], "weight"), ("cv", [], "weight"), ("hoover", [], "weight"),
     ("hhi", [], "entity"), ("cr", ["count"], "entity"),
 ]
-# standard errors, on with se_measures (UNEVEN_FUZZ_SE=1). Off by default for two known differences:
+# standard errors, on with se_measures (UNEVEN_FUZZ_SE=1). Off by default for a known difference:
 # the reference raises (TypeError) instead of giving NULL where the Gini is undefined (all weights 0,
-# or a total <= 0), and the compiled weighted SE of equal values is ~4e-9 where the exact value is 0
-# (gini_se(x, w) over x = 5, 5, 5, 5 and w = 1, 2, 1, 3).
+# or a total <= 0). (The weighted SE of equal values is exactly 0 now; the reference gives 0 or ~1e-17.)
 SE_MEASURES = [("gini_se", [], "weight"), ("theil_se", [], "weight"), ("top_share_se", ["fraction"], "weight")]
 RATIOS = [("0.9", "0.1"), ("0.8", "0.2"), ("0.75", "0.25"), ("0.5 + 0.4", "0.1")]
 

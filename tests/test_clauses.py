@@ -395,6 +395,15 @@ RANDOM_SOURCES = {
     "limit in a source subquery": "FROM (SELECT * FROM sales LIMIT 700) s",
     "limit on a union in a source": "FROM (SELECT * FROM sales WHERE month < 4 UNION ALL SELECT * FROM sales "
                                     "WHERE month > 9 LIMIT 900) s",
+    # which rows or values these give depends on the order the engine reads rows in
+    "row_number() over () in a source": "FROM (SELECT *, row_number() OVER () AS rn FROM sales) s WHERE rn % 3 = 0",
+    "any_value in a source": "FROM (SELECT category, seller, any_value(revenue) AS revenue, any_value(units) AS units "
+                             "FROM sales GROUP BY category, seller) s",
+    "first and last without order in a source": "FROM (SELECT category, seller, first(revenue) AS revenue, last(units) "
+                                                "AS units FROM sales GROUP BY category, seller) s",
+    "list element as a value in where": "FROM sales WHERE seller = (SELECT list(seller)[1] FROM sales)",
+    "string_agg part as a value in where": "FROM sales WHERE CAST(seller AS VARCHAR) = (SELECT split_part(string_agg("
+                                           "CAST(seller AS VARCHAR), ','), ',', 1) FROM sales)",
 }
 KEEP_ALL = {"random() in a source subquery"}  # a draw that keeps every row
 CTE = "WITH smp AS (SELECT * FROM sales USING SAMPLE 10 PERCENT (bernoulli)) "
@@ -450,8 +459,16 @@ def test_sample_without_materializing_would_differ(con):
     assert a != b or c != d
 
 
-def test_deterministic_source_is_not_materialized():
-    assert "MATERIALIZED" not in uneven.compile("SELECT gini(revenue), count(*) FROM sales WHERE month > 2")
+@pytest.mark.parametrize("source", [
+    "FROM sales WHERE month > 2",
+    "FROM (SELECT *, row_number() OVER (ORDER BY seller, month, revenue) AS rn FROM sales) s WHERE rn % 3 = 0",
+    "FROM (SELECT category, seller, first(revenue ORDER BY revenue) AS revenue FROM sales GROUP BY ALL) s",
+    "FROM sales WHERE seller = (SELECT list_sort(list(seller))[1] FROM sales)",
+    "FROM (SELECT *, sum(revenue) OVER (PARTITION BY seller) AS tot FROM sales) s WHERE tot > 100",
+])
+def test_deterministic_source_is_not_materialized(source):
+    # ordered numbering, ordered first(), a sorted list, a partition total: the same rows every read
+    assert "MATERIALIZED" not in uneven.compile(f"SELECT gini(revenue), count(*) {source}")
 
 
 def test_seeded_sample_equals_oracle(con):
@@ -471,6 +488,12 @@ def test_seeded_sample_equals_oracle(con):
                "theil(revenue) FROM sales WHERE abs(random()) % 3 = 0 GROUP BY category ORDER BY 1"),
     ("postgres", "SELECT category, count(*), sum(revenue), string_agg(CAST(revenue AS VARCHAR), ','), gini(revenue), "
                  "theil(revenue) FROM sales WHERE random() < 0.3 GROUP BY category ORDER BY 1"),
+    ("sqlite", "SELECT category, count(*), sum(revenue), group_concat(revenue, ','), gini(revenue), "
+               "theil(revenue) FROM (SELECT *, row_number() OVER () AS rn FROM sales) s WHERE rn % 3 = 0 "
+               "GROUP BY category ORDER BY 1"),
+    ("postgres", "SELECT category, count(*), sum(revenue), string_agg(CAST(revenue AS VARCHAR), ','), gini(revenue), "
+                 "theil(revenue) FROM (SELECT *, row_number() OVER () AS rn FROM sales) s WHERE rn % 3 = 0 "
+                 "GROUP BY category ORDER BY 1"),
     ("postgres", "SELECT category, count(*), sum(revenue), string_agg(CAST(revenue AS VARCHAR), ','), gini(revenue), "
                  "theil(revenue) FROM sales TABLESAMPLE bernoulli(30%) GROUP BY category ORDER BY 1"),
     ("postgres", "SELECT category, count(*), sum(revenue), string_agg(CAST(revenue AS VARCHAR), ','), gini(revenue), "
@@ -506,6 +529,13 @@ def test_random_source_is_read_once_on_other_engines(engine_name, sql):
      "USING SAMPLE over joins or a subquery cannot be compiled for postgres"),
     ("SELECT gini(revenue * random()), count(*) FROM sales", "duckdb", "would be evaluated anew by each pass"),
     ("SELECT gini(revenue), count(*) FROM sales GROUP BY random() < 0.5", "duckdb", "evaluated anew by each pass"),
+    ("SELECT random() < 0.5 AS r, gini(revenue), count(*) FROM sales GROUP BY r", "duckdb", "evaluated anew by each"),
+    ("SELECT random() < 0.5 AS r, gini(revenue), count(*) FROM sales GROUP BY 1", "duckdb", "evaluated anew by each"),
+    ("SELECT uuid() AS r, gini(revenue), count(*) FROM sales GROUP BY ALL", "duckdb", "evaluated anew by each"),
+    ("SELECT gini(revenue), count(*) FROM (SELECT *, row_number() OVER () AS rn FROM sales) s WHERE rn < 900",
+     "spark", r"random or volatile \(row_number\(\) OVER \(\)\).*spark cannot promise"),
+    ("SELECT gini(revenue) FROM (SELECT seller, any_value(revenue) AS revenue FROM sales GROUP BY seller) s",
+     "trino", r"volatile \(any_value\(revenue\)\).*trino cannot promise"),
     ("SELECT count(*), gini(revenue) FILTER (WHERE random() < 0.5) FROM sales", "duckdb", "evaluated anew"),
     ("SELECT gini(revenue), (SELECT max(f.rate) FROM fees f WHERE f.category = s.category) FROM sales s "
      "WHERE random() < 0.5 GROUP BY s.category", "duckdb", "a subquery that reads a column of a sampled"),

@@ -197,3 +197,45 @@ def test_null_for_undefined_groups_as_the_compiler(con):
     got = c.execute("SELECT grp, gini(x) AS g, theil(x, w) AS t, cv(x) AS c FROM t WHERE grp IN ('zeros', 'nulls') "
                     "GROUP BY grp ORDER BY grp").fetchall()
     assert got == [("nulls", None, None, None), ("zeros", None, None, None)]
+
+
+# every measure with a macro and numeric parameters, each parameter in turn made volatile
+# (lorenz_curve has none: its grid needs the number of points when the plan is built)
+PARAMETERIZED = [m for m in MEASURES.values() if has_macros(m) and m.params and m.name != "lorenz_curve"]
+
+
+def _args(measure, volatile: int) -> str:
+    ok = {"fraction": "0.3", "count": "2"}
+    return ", ".join("random()" if i == volatile else ok.get(p.kind, "0.5") for i, p in enumerate(measure.params))
+
+
+@pytest.mark.parametrize("measure", PARAMETERIZED, ids=[m.name for m in PARAMETERIZED])
+def test_a_volatile_parameter_stops_the_macro_naming_it(con, measure):
+    # the compiled route refuses random() as a parameter (it is not a constant); the macros stop too,
+    # in the aggregate and the table form, naming the function and the parameter
+    c, _ = con
+    for i, p in enumerate(measure.params):
+        args = _args(measure, i)
+        for sql in (f"SELECT grp, {measure.name}(x, {args}) FROM t GROUP BY grp",
+                    f"SELECT {measure.name}(x, {args}) FROM t WHERE grp = 'g1'",
+                    f"SELECT * FROM {measure.name}_by('t', 'x', {args}, NULL, ['grp'])"):
+            with pytest.raises(duckdb.Error) as err:
+                c.execute(sql).fetchall()
+            assert f"{measure.name}(): {p.name} must be a numeric constant" in str(err.value), sql
+        with pytest.raises(uneven.UnevenError, match=f"{measure.name}\\(\\): {p.name} must be a numeric constant"):
+            uneven.compile(f"SELECT {measure.name}(x, {args}) FROM t")
+
+
+def test_a_parameter_constant_per_group_is_accepted_by_the_macros(con):
+    # a door difference by construction (docs/registered_functions.md): a column that the query groups
+    # by is one value per group, so the macro evaluates it per group; the compiled route takes
+    # constants only. The values equal the macro's own at the literal parameter of each group.
+    c, _ = con
+    got = c.execute("SELECT grp, p, top_share(x, p, w) FROM (SELECT *, CASE WHEN grp = 'g0' THEN 0.1 ELSE 0.3 END AS p "
+                    "FROM t) GROUP BY grp, p ORDER BY grp").fetchall()
+    for grp, p, v in got:
+        lit = c.execute(f"SELECT top_share(x, {p}, w) FROM t WHERE grp IS NOT DISTINCT FROM ?", [grp]).fetchall()[0][0]
+        assert _agree(v, lit), (grp, p, v, lit)
+    # a column that varies within the group is refused by DuckDB's binder before anything runs
+    with pytest.raises(duckdb.BinderException, match="must appear in the GROUP BY"):
+        c.execute("SELECT grp, top_share(x, x / 100) FROM t GROUP BY grp").fetchall()

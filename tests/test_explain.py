@@ -80,3 +80,31 @@ def test_cli_explain_text_json_and_errors(con, tmp_path, capsys):
     err = capsys.readouterr().err
     assert "could not parse" in err and "Traceback" not in err
     assert main(["explain", "--top", "0", sql]) == 2
+
+
+@pytest.mark.parametrize("source, why, clause", [
+    ("t USING SAMPLE 30 PERCENT (bernoulli)", "the rows are sampled", "TABLESAMPLE"),
+    ("t WHERE random() < 0.5", "a volatile function gives new values on each read", "RANDOM()"),
+    ("(SELECT *, row_number() OVER () AS rn FROM t) s WHERE rn % 2 = 0",
+     "a value depends on the order the engine reads rows in", "row_number() OVER ()"),
+    ("(SELECT g, e, any_value(x) AS x, 1.0 AS w FROM t GROUP BY g, e) s",
+     "a value depends on the order the engine reads rows in", "any_value(x)"),
+    ("(SELECT * FROM t LIMIT 100) s", "LIMIT / OFFSET in a source keeps rows of the engine's choosing", "100"),
+])
+def test_explain_says_which_source_is_read_once_and_why(con, source, why, clause, capsys):
+    sql = f"SELECT g, count(*), gini(x, w), theil(x) FROM {source} GROUP BY g"
+    found = uneven.explain(sql, con)
+    assert [(r["cte"], r["why"]) for r in found.read_once] == [("_uv_src_1", why)]
+    assert clause in found.read_once[0]["clause"]
+    assert '"_uv_src_1" AS MATERIALIZED (' in found.sql  # the CTE explain names is the one query() runs
+    first = str(found).splitlines()[0]
+    assert first.startswith(f"rows read once: _uv_src_1 AS MATERIALIZED (…), because {why} (")
+    assert clause in first and first.endswith("; every pass below reads these same rows")
+    assert main(["explain", "--json", sql]) == 0
+    doc = json.loads(capsys.readouterr().out)
+    assert doc["read_once"] == found.read_once
+
+
+def test_explain_of_a_deterministic_source_reads_it_per_pass(con):
+    found = uneven.explain("SELECT g, gini(x, w), theil(x) FROM t WHERE x > 0.5 GROUP BY g", con)
+    assert found.read_once == [] and "read once" not in str(found)

@@ -291,3 +291,88 @@ def test_estimate_next_to_its_se_keeps_digits_under_a_large_offset():
     exact = sum(abs(a - b) for a in fx for b in fx) / (2 * len(fx) ** 2 * (sum(fx) / len(fx)))
     assert abs(alone - float(exact)) <= 1e-10 * float(exact)
     assert abs(shared - float(exact)) <= 1e-10 * float(exact)
+
+
+# --- equal values: every score is 0 -------------------------------------------------------------
+
+# Where every value of a group is the same, each measure below is a constant of the weights (the
+# Gini of equal values is 0, every Lorenz ordinate is p, Theil/MLD/GE/Atkinson are 0: facts of the
+# trade), so its derivative with respect to any weight, the linearized score, is 0 and the design
+# variance is exactly 0. The quantile's score divides by a density that has no estimate when the
+# values coincide (reference_se.density_at_quantile gives None), so its SE is NULL, as for a ratio
+# of quantiles.
+EQUAL_ZERO = ["gini_se(x{w})", "lorenz_se(x, 0.3{w})", "bottom_share_se(x, 0.5{w})", "top_share_se(x, 0.1{w})",
+              "generalized_lorenz_se(x, 0.5{w})", "palma_se(x{w})", "s80s20_se(x{w})", "theil_se(x{w})",
+              "mld_se(x{w})", "ge_se(x, 2{w})", "ge_se(x, -1{w})", "ge_se(x, 0.5{w})", "atkinson_se(x, 0.5{w})",
+              "atkinson_se(x, 1{w})", "atkinson_se(x, 2{w})", "gini_se(x{w}, strata := h)",
+              "palma_se(x{w}, strata := h, psu := c)"]
+EQUAL_NULL = ["quantile_w_se(x, 0.5{w})", "percentile_ratio_se(x, 0.9, 0.1{w})"]
+
+
+def equal_groups() -> pd.DataFrame:
+    """Invented groups of equal values with unequal weights: 5 (products exact), 0.1 (products
+    rounded) and 1e12 + 0.3 (a large offset), seven rows each, two strata, PSUs by row pairs."""
+    rows = []
+    for g, v in (("five", 5.0), ("tenth", 0.1), ("offset", 1e12 + 0.3)):
+        for i, wt in enumerate((1.0, 2.0, 1.0, 3.0, 0.3, 0.7, 1.9)):
+            rows.append({"grp": g, "x": v, "w": wt, "h": i % 2, "c": i // 2})
+    return pd.DataFrame(rows)
+
+
+def test_se_of_equal_values_is_exactly_zero(engine):
+    engine.load(equal_groups(), "eq")
+    calls = [c.format(w=w) for w in ("", ", w") for c in EQUAL_ZERO + EQUAL_NULL]
+    items = ", ".join(f"{c} AS m{i}" for i, c in enumerate(calls))
+    res = engine.run(f"SELECT grp, {items} FROM eq GROUP BY grp")
+    assert len(res) == 3
+    for _, row in res.iterrows():
+        for i, c in enumerate(calls):
+            got = row[f"m{i}"]
+            if any(c.startswith(n.split("(")[0] + "(") for n in EQUAL_NULL):
+                assert got is None, f"{c} group {row['grp']}: {got}, want NULL"
+            else:
+                assert got == 0.0, f"{c} group {row['grp']}: {got}, want exactly 0"
+
+
+def exact_gini_se(x, w) -> float:
+    """The linearized Gini SE in exact rationals (Python ``fractions``): Langel & Tillé's score
+    (from memory, as in reference_se._gini) per row, u = w·z, and n/(n−1)·Σ(u − ū)² (common
+    practice); only the final square root is rounded."""
+    pairs = sorted(zip((Fraction(float(v)) for v in x), (Fraction(float(v)) for v in w)))
+    W, T = sum(b for _, b in pairs), sum(a * b for a, b in pairs)
+    C = S = Fraction(0)
+    running = []
+    for a, b in pairs:
+        C, S = C + b, S + a * b
+        running.append((C, S))
+    G = sum(a * b * (2 * c - b - W) for (a, b), (c, _) in zip(pairs, running)) / (W * T)
+    u = [b * (2 * c * a - 2 * s_ + T - W * a - G * (T + W * a)) / (W * T) for (a, b), (c, s_) in zip(pairs, running)]
+    n, mean = len(u), sum(u) / len(u)
+    return math.sqrt(Fraction(n, n - 1) * sum((v - mean) ** 2 for v in u))
+
+
+def test_se_keeps_digits_at_small_spread(engine):
+    # values 1000·(1 + δ·N(0, 1)): the score is of order δ while x is of order 1; relative 1e-9
+    # against exact arithmetic down to δ = 1e-6
+    rng = np.random.default_rng(17)
+    frames = []
+    for spread in (1e-2, 1e-4, 1e-6):
+        frames.append(pd.DataFrame({"grp": f"d{spread:g}", "x": 1e3 * (1 + spread * rng.standard_normal(300)),
+                                    "w": rng.integers(1, 6, 300).astype(float)}))
+    df = pd.concat(frames, ignore_index=True)
+    engine.load(df, "near")
+    lorenz_type = [("lorenz", (0.3,)), ("top_share", (0.1,)), ("generalized_lorenz", (0.5,)), ("palma", ()),
+                   ("s80s20", ())]
+    calls = [f"{n}_se(x{''.join(f', {p}' for p in ps)}, w) AS l{i}" for i, (n, ps) in enumerate(lorenz_type)]
+    res = engine.run(f"SELECT grp, gini_se(x, w) AS sw, gini_se(x) AS su, {', '.join(calls)} FROM near GROUP BY grp")
+    assert len(res) == 3
+    for _, row in res.iterrows():
+        d = df[df.grp == row["grp"]]
+        for col, w in (("sw", d.w), ("su", np.ones(len(d)))):
+            want = exact_gini_se(d.x, w)
+            assert abs(row[col] - want) <= 1e-9 * want, (row["grp"], col, row[col], want)
+        # the Lorenz-type scores (terms on x − m too) against the numpy reference, whose per-row
+        # scores lose about 1e-16·μ/δ (1e-10 at δ = 1e-6)
+        for i, (n, ps) in enumerate(lorenz_type):
+            want = rse.se(n, d.x, ps, d.w)
+            assert abs(row[f"l{i}"] - want) <= 1e-9 * want, (row["grp"], n, row[f"l{i}"], want)

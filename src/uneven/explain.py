@@ -15,7 +15,7 @@ from dataclasses import dataclass, field
 
 import duckdb
 
-from uneven.compiler.pipeline import compile_with_plan
+from uneven.compiler.pipeline import compile_with_context
 from uneven.engine.columns import duckdb_source_columns
 from uneven.engine.runner import translate_error
 from uneven.engine.ties import duckdb_tie_probe
@@ -23,12 +23,14 @@ from uneven.engine.ties import duckdb_tie_probe
 
 @dataclass
 class Explanation:
-    """What ``explain`` found: ``passes`` (one dict per pass), the compiled ``sql`` and, when
-    profiled, ``operators`` (name, seconds, rows, detail; slowest first), ``total_seconds``,
+    """What ``explain`` found: ``passes`` (one dict per pass), the compiled ``sql``, ``read_once``
+    (one dict per source read once through a MATERIALIZED CTE: ``cte``, ``why``, ``clause``) and,
+    when profiled, ``operators`` (name, seconds, rows, detail; slowest first), ``total_seconds``,
     ``result_rows`` and ``system`` (peak buffer memory, spilled bytes)."""
 
     passes: list[dict]
     sql: str
+    read_once: list[dict] = field(default_factory=list)
     operators: list[dict] | None = None
     total_seconds: float | None = None
     result_rows: int | None = None
@@ -37,7 +39,11 @@ class Explanation:
     engine_plan: str | None = None  # the engine's own plan (engines other than DuckDB)
 
     def text(self, show_sql: bool = False, top: int = 15) -> str:
-        lines = [f"passes ({len(self.passes)}):"]
+        lines = []
+        for r in self.read_once:
+            lines.append(f"rows read once: {r['cte']} AS MATERIALIZED (…), because {r['why']} ({r['clause']}); "
+                         "every pass below reads these same rows")
+        lines.append(f"passes ({len(self.passes)}):")
         for i, p in enumerate(self.passes, 1):
             kind = p["kind"] + (f" [{p['variant']}]" if p["variant"] else "")
             lines.append(f"  {i}. {kind}  value: {p['value']}")
@@ -94,10 +100,10 @@ def explain_on(sql: str, adapter, *, profile: bool = False, strict: bool = False
     its own plan; with ``profile`` the query runs once (PostgreSQL: EXPLAIN ANALYZE) and is timed."""
     import time
 
-    compiled, passes = compile_with_plan(sql, dialect=adapter.dialect, read=read, pretty=True, strict=strict,
+    compiled, ctx = compile_with_context(sql, dialect=adapter.dialect, read=read, pretty=True, strict=strict,
                                          source_columns=adapter.source_columns(), tie_grouping=tie_grouping,
                                          expression_types=adapter.expression_types(), ordered=ordered)
-    out = Explanation(passes=passes, sql=compiled, engine=adapter.label)
+    out = Explanation(passes=ctx.chosen, sql=compiled, engine=adapter.label, read_once=ctx.read_once)
     try:
         if profile and adapter.dialect == "postgres":
             out.engine_plan = adapter.plan_analyzed(compiled)
@@ -116,11 +122,11 @@ def explain_query(sql: str, con: duckdb.DuckDBPyConnection, *, profile: bool = F
                   tie_grouping: str = "auto", read: str = "duckdb", ordered: str = "auto") -> Explanation:
     """Compile ``sql`` as ``query`` would on ``con`` (same probes) and describe its passes; with
     ``profile`` also run it once under DuckDB's profiler."""
-    compiled, passes = compile_with_plan(sql, dialect="duckdb", read=read, pretty=True, strict=strict,
+    compiled, ctx = compile_with_context(sql, dialect="duckdb", read=read, pretty=True, strict=strict,
                                          source_columns=duckdb_source_columns(con),
                                          tie_grouping=tie_grouping, tie_probe=duckdb_tie_probe(con),
                                          ordered=ordered)
-    out = Explanation(passes=passes, sql=compiled)
+    out = Explanation(passes=ctx.chosen, sql=compiled, read_once=ctx.read_once)
     if profile:
         run_profiled(con, compiled, out)
     return out

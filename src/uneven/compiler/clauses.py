@@ -20,7 +20,7 @@ from __future__ import annotations
 from sqlglot import exp
 
 from uneven.compiler.context import CompileContext, span
-from uneven.sqltree.volatile import is_volatile_call
+from uneven.sqltree.volatile import is_order_dependent, is_volatile_call
 from uneven.errors import UnsupportedSqlError
 
 CARRIED = "carried"
@@ -246,8 +246,10 @@ def check_sample(sample: exp.TableSample, ctx: CompileContext) -> None:
 def volatile_reason(select: exp.Select) -> exp.Expression | None:
     """The first node that makes the scope's rows differ between two evaluations, or None: a sample,
     a volatile function in the sources or WHERE, LIMIT / OFFSET / DISTINCT ON / a sample inside a
-    source subquery (which rows they keep is up to the engine), or any of these in the body of a CTE
-    the sources read."""
+    source subquery (which rows they keep is up to the engine), a construct that depends on the
+    order rows are read in (sqltree.volatile.is_order_dependent: row_number() OVER (), any_value,
+    first/last or list/string aggregates without ORDER BY), or any of these in the body of a CTE the
+    sources read."""
     if select.args.get("sample") is not None:
         return select.args["sample"]
     parts = sources(select)
@@ -259,7 +261,7 @@ def volatile_reason(select: exp.Select) -> exp.Expression | None:
 def _volatile_in(parts, ctes: dict[str, exp.Expression], seen: set[str]) -> exp.Expression | None:
     for part in parts:
         for node in part.walk():
-            if isinstance(node, exp.TableSample) or is_volatile_call(node):
+            if isinstance(node, exp.TableSample) or is_volatile_call(node) or is_order_dependent(node):
                 return node
             if isinstance(node, (exp.Select, exp.Subquery, exp.SetOperation, exp.Values)) and node is not part:
                 for arg in ("limit", "offset", "sample"):
@@ -297,7 +299,7 @@ def volatile_outside_sources(select: exp.Select) -> exp.Expression | None:
     from uneven.compiler.calls import is_measure
 
     for arg in ("expressions", "group", "having", "qualify", "order", "distinct"):
-        value = select.args.get(arg)
+        value = _group_keys(select) if arg == "group" else select.args.get(arg)
         for part in (value if isinstance(value, list) else [value] if value is not None else []):
             for node in part.walk():
                 if not is_volatile_call(node):
@@ -310,3 +312,28 @@ def volatile_outside_sources(select: exp.Select) -> exp.Expression | None:
                         return node
                     anc = anc.parent
     return None
+
+
+def _group_keys(select: exp.Select) -> list[exp.Expression]:
+    """The GROUP BY items with a position or a select alias read as the select item it names, and
+    GROUP BY ALL as the select items outside any aggregate or measure call (an alias that is also a
+    column of the sources counts as the alias here: a volatile key is refused rather than missed)."""
+    from uneven.compiler.calls import is_measure
+
+    group = select.args.get("group")
+    if group is None:
+        return []
+    items = [i.this if isinstance(i, exp.Alias) else i for i in select.expressions]
+    if group.args.get("all"):
+        return [i for i in items if not any(isinstance(n, exp.AggFunc) or is_measure(n) for n in i.walk())]
+    aliases = {i.alias.lower(): i.this for i in select.expressions if isinstance(i, exp.Alias)}
+    keys = []
+    for key in group.expressions:
+        if isinstance(key, exp.Literal) and not key.is_string and key.this.isdigit() \
+                and 1 <= int(key.this) <= len(items):
+            keys.append(items[int(key.this) - 1])
+        elif isinstance(key, exp.Column) and not key.table and key.name.lower() in aliases:
+            keys.append(aliases[key.name.lower()])
+        else:
+            keys.append(key)
+    return keys

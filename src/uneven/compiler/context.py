@@ -48,6 +48,8 @@ class CompileContext:
     tie_probe: Callable | None = None
     # what the planner chose, one record per pass (read by explain)
     chosen: list[dict] = field(default_factory=list)
+    # sources read once through a MATERIALIZED CTE, one record each (materialize.py; read by explain)
+    read_once: list[dict] = field(default_factory=list)
 
     def name(self, kind: str) -> str:
         """Next deterministic name of a kind: ``_uv_ord_1``, ``_uv_ord_2``, …"""

@@ -24,6 +24,7 @@ from uneven.compiler.passes.source import cte, table
 from uneven.compiler.scope import output_aliases
 from uneven.errors import UnsupportedSqlError
 from uneven.sqltree.grouping import scope_columns
+from uneven.sqltree.volatile import is_order_dependent, is_volatile_call
 
 _SCOPE_PARTS = ("expressions", "group", "having", "qualify", "order", "distinct")
 
@@ -39,6 +40,7 @@ def materialize_scope(select: exp.Select, ctx: CompileContext) -> bool:
                         "evaluate a CTE again for each use); compile for "
                         f"{', '.join(clauses.MATERIALIZING)}, or store the rows in a table first", reason)
     name = ctx.name("src")
+    ctx.read_once.append({"cte": name, "why": why_read_once(reason), "clause": text(reason)})
     aliases = output_aliases(select)  # the names the final SELECT gives its columns
     keys = resolve_group_keys(select, ctx)  # before the rewrite: source_columns reads the original FROM
     group = select.args.get("group")
@@ -88,6 +90,19 @@ def materialize_scope(select: exp.Select, ctx: CompileContext) -> bool:
     else:
         with_.append("expressions", materialized)
     return True
+
+
+def why_read_once(reason: exp.Expression) -> str:
+    """What makes two reads of the rows differ, in words, for the node volatile_reason found."""
+    if isinstance(reason, exp.TableSample):
+        return "the rows are sampled"
+    if is_volatile_call(reason):
+        return "a volatile function gives new values on each read"
+    if is_order_dependent(reason):
+        return "a value depends on the order the engine reads rows in"
+    if isinstance(reason, exp.Distinct):
+        return "DISTINCT ON keeps a row of the engine's choosing"
+    return "LIMIT / OFFSET in a source keeps rows of the engine's choosing"
 
 
 def _scope_parts(select: exp.Select):

@@ -101,6 +101,17 @@ def compile_with_plan(sql: str, dialect: str = "duckdb", read: str = "duckdb", p
                       tie_probe=None, method: str = "exact", resolution: float | None = None,
                       expression_types=None, ordered: str = "auto") -> tuple[str, list[dict]]:
     """``compile_sql`` and the planner's record of every pass (plan.describe_pass), innermost scope first."""
+    compiled, ctx = compile_with_context(sql, dialect, read, pretty, strict, source_columns, tie_grouping, tie_probe,
+                                         method, resolution, expression_types, ordered)
+    return compiled, ctx.chosen
+
+
+def compile_with_context(sql: str, dialect: str = "duckdb", read: str = "duckdb", pretty: bool = True,
+                         strict: bool = False, source_columns=None, tie_grouping: str = "auto",
+                         tie_probe=None, method: str = "exact", resolution: float | None = None,
+                         expression_types=None, ordered: str = "auto") -> tuple[str, CompileContext]:
+    """``compile_sql`` and its context: the passes chosen (``chosen``) and the sources read once
+    (``read_once``), for explain."""
     check_dialect(dialect)
     check_tie_grouping(tie_grouping)
     check_ordered(ordered)
@@ -111,7 +122,7 @@ def compile_with_plan(sql: str, dialect: str = "duckdb", read: str = "duckdb", p
                                                           else resolution),
                          expression_types=expression_types, dialect=dialect, read=read, ordered=ordered)
     tree = compile_tree(parse_one_statement(sql, read), ctx)
-    return generate(tree, dialect, pretty=pretty), ctx.chosen
+    return generate(tree, dialect, pretty=pretty), ctx
 
 
 def check_tie_grouping(value) -> None:

@@ -237,7 +237,7 @@ def _entity_totals(x: exp.Expression, with_entity: bool) -> exp.Expression:
 
 
 def param_checks(measure: Measure, body: exp.Expression) -> exp.Expression:
-    """CASE WHEN <a parameter is out of range> THEN error('…') … ELSE body END (the CASE built directly:
+    """CASE WHEN <a parameter varies, is NULL or out of range> THEN error('…') … ELSE body END (the CASE built directly:
     Case.when() copies the whole body at every branch)."""
     ifs = []
     for p in measure.params:
@@ -253,6 +253,13 @@ def param_checks(measure: Measure, body: exp.Expression) -> exp.Expression:
             if measure.max_count:
                 bad = exp.Or(this=bad, expression=s.gt(v.copy(), s.lit(float(measure.max_count))))
                 what += f" and at most {measure.max_count}"
+        # a volatile parameter (random(), a subquery over one) differs between two evaluations;
+        # a constant, or a column grouped by, equals itself (a column that is not grouped by is
+        # refused by DuckDB's binder: the checks below read the parameter outside any aggregate)
+        varies = exp.NullSafeNEQ(this=v.copy(), expression=v.copy())
+        ifs.append(exp.If(this=varies, true=s.raise_error(
+            f"uneven: {measure.name}(): {p.name} must be a numeric constant, the same for every row of a "
+            "group; it gives a different value on each evaluation (random() or another volatile call)")))
         null = exp.Is(this=v.copy(), expression=exp.Null())
         ifs.append(exp.If(this=null, true=s.raise_error(f"uneven: {measure.name}(): {p.name} cannot be NULL")))
         if bad is not None:

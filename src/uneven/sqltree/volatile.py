@@ -1,6 +1,8 @@
 """Functions whose value changes from one evaluation to the next (or that change state): a source
 that calls one is read once (compiler/materialize.py), and a parameter that calls one is no constant
-(constants.py)."""
+(constants.py). Also the constructs whose value depends on the order the engine happens to read
+rows in (``is_order_dependent``): numbering rows without ORDER BY, ``any_value``, ``first``/``last``
+and list or string aggregates without ORDER BY; two reads of a source using one may differ."""
 
 from __future__ import annotations
 
@@ -19,3 +21,47 @@ def is_volatile_call(node: exp.Expression) -> bool:
     if isinstance(node, VOLATILE_CLASSES):
         return True
     return isinstance(node, exp.Anonymous) and node.name.lower() in VOLATILE_NAMES
+
+
+# window functions that number rows or read a neighbour: without ORDER BY the engine picks the order
+NUMBERING_CLASSES = (exp.RowNumber, exp.Ntile, exp.Lag, exp.Lead, exp.FirstValue, exp.LastValue, exp.NthValue)
+# aggregates whose value is one row's, or the rows in reading order, unless ordered
+PICKING_CLASSES = (exp.AnyValue, exp.First, exp.Last, exp.ArrayAgg, exp.GroupConcat)
+PICKING_NAMES = frozenset({"any_value", "arbitrary", "first", "last", "array_agg", "list", "string_agg",
+                           "group_concat", "listagg", "collect_list", "array_agg_distinct", "first_value",
+                           "last_value"})
+
+
+def _unwrapped(node: exp.Expression) -> exp.Expression:
+    while isinstance(node, (exp.IgnoreNulls, exp.RespectNulls)):
+        node = node.this
+    return node
+
+
+def is_order_dependent(node: exp.Expression) -> bool:
+    """A window or aggregate whose value depends on the order rows are read in: a numbering or
+    neighbour window, or an aggregate window over a ROWS frame, without ORDER BY; ``any_value``;
+    ``first``/``last``, ``list``/``array_agg``/``string_agg``/``group_concat`` without an ORDER BY
+    of their own (inside the call, WITHIN GROUP, or a sort of the list around it)."""
+    if isinstance(node, exp.Window):
+        if node.args.get("order") is not None:
+            return False
+        spec = node.args.get("spec")
+        return isinstance(_unwrapped(node.this), NUMBERING_CLASSES) or (
+            spec is not None and str(spec.args.get("kind") or "").upper() == "ROWS")
+    if isinstance(node, exp.AnyValue) or (isinstance(node, exp.Anonymous) and node.name.lower() in
+                                          ("any_value", "arbitrary")):
+        return True
+    if not (isinstance(node, PICKING_CLASSES) or (isinstance(node, exp.Anonymous)
+                                                  and node.name.lower() in PICKING_NAMES)):
+        return False
+    if isinstance(node.this, exp.Order) or any(isinstance(a, exp.Order) for a in node.expressions):
+        return False
+    parent = node.parent
+    while isinstance(parent, (exp.IgnoreNulls, exp.RespectNulls)):
+        parent = parent.parent
+    if isinstance(parent, exp.WithinGroup) or isinstance(parent, exp.ArraySort):
+        return False
+    if isinstance(parent, exp.Window) and parent.args.get("order") is not None:
+        return False
+    return True

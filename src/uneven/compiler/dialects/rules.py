@@ -64,14 +64,16 @@ def expand_group_by_all(tree: exp.Expression, dialect: str) -> exp.Expression:
 
 def window_nulls_last_as_key(tree: exp.Expression, dialect: str) -> exp.Expression:
     """``OVER (ORDER BY x NULLS LAST)`` → ``OVER (ORDER BY x IS NULL, x)``, for engines that put
-    NULLs first in ascending order and cannot say NULLS LAST in a window (BigQuery)."""
+    NULLs first in ascending order and cannot say NULLS LAST in a window (BigQuery). An ascending
+    key built without a NULL placement (``exp.Ordered(this=x)``: the bounded pass) means NULLS LAST
+    too, as in DuckDB, and sqlglot would write it so."""
     for window in list(tree.find_all(exp.Window)):
         order = window.args.get("order")
         if order is None:
             continue
         items = []
         for o in order.expressions:
-            if isinstance(o, exp.Ordered) and not o.args.get("desc") and o.args.get("nulls_first") is False:
+            if isinstance(o, exp.Ordered) and not o.args.get("desc") and not o.args.get("nulls_first"):
                 items.append(exp.Ordered(this=exp.Is(this=o.this.copy(), expression=exp.Null()), nulls_first=True))
                 items.append(exp.Ordered(this=o.this.copy(), nulls_first=True))
             else:

@@ -12,7 +12,8 @@ with S_hj = Σ_c U_hcj and Q_hjl = Σ_c U_hcj·U_hcl. Every level is a plain GRO
 is one sort (shared with C and S) and aggregates — no join back to the rows:
 
     _rows → _win (C, S, m [, W, n]) → [_psu: GROUP BY keys, h, c] → [_str: GROUP BY keys, h]
-          → _agg: GROUP BY keys → _coef: θ and the c_j per group → _lin: SE and intervals
+          → _agg: GROUP BY keys → _coef: θ and the c_j per group → _var: v per group
+          → _lin: SE and intervals
 
 Plain measures on the same value, weight and FILTER (gini next to gini_se) ride on the pass too
 (plan.share_passes), so asking for an estimate and its SE costs one sort.
@@ -139,6 +140,10 @@ def lower_linearized_pass(source: Source, main, plan, name: str) -> tuple[list[e
             aggs.reuse(s.agg_sum(t), _sum_name(j))
         if psu is None:
             aggs.reuse(s.agg_count_star(), "_uv_nu")
+    # every value of the group equal: each measure is then a constant of the weights, so each
+    # score is 0 and so is the variance, exactly (the quadratic form below would leave the
+    # rounding of terms that cancel across j, e.g. w/W against w·x/T)
+    equal = aggs.lift(exp.EQ(this=ctx.min_x, expression=s.agg_max(ctx.x)))
     lifted = []
     for call, lin, role, coefs in specs:
         est = aggs.lift(lin.estimate)
@@ -171,7 +176,10 @@ def lower_linearized_pass(source: Source, main, plan, name: str) -> tuple[list[e
         enough = s.gt(s.col("_uv_nu"), s.lit(1))
 
     # estimates and coefficients once per group (_coef), then the variance forms over them
-    named, columns, results = [], [], {}
+    # estimates and coefficients once per group (_coef), the variances over them (_var), then the
+    # standard errors: NULL where the variance is (no density at a quantile: a NULL coefficient),
+    # exactly 0 where the values are equal, a rounding below 0 counted as 0
+    named, variances, columns, results = [], [], [], {}
     for i, (call, est, role, coefs) in enumerate(lifted, start=1):
         named.append(s.alias(est, f"_uv_e{i}"))
         named += [s.alias(c, f"_uv_c{i}_{j}") for j, c in (coefs or {}).items()]
@@ -181,15 +189,22 @@ def lower_linearized_pass(source: Source, main, plan, name: str) -> tuple[list[e
         elif coefs is None:
             value = output(role, e, exp.Cast(this=exp.Null(), to=s.DOUBLE), 0.95)
         else:
-            v = variance({j: s.col(f"_uv_c{i}_{j}") for j in coefs}, K)
-            se = s.case(s.and_(s.not_null(e.copy()), enough.copy()), s.sqrt(s.greatest(v, s.lit(0.0))))
+            variances.append(s.alias(variance({j: s.col(f"_uv_c{i}_{j}") for j in coefs}, K), f"_uv_v{i}"))
+            v = s.col(f"_uv_v{i}")
+            zero = s.or_(s.paren(equal.copy()), s.lt(v.copy(), s.lit(0.0)))
+            se = s.case(s.and_(s.not_null(e.copy()), enough.copy(), s.not_null(v.copy())),
+                        s.case(zero, s.lit(0.0), s.sqrt(v)))
             value = output(role, e.copy(), se, call.settings.get("level", 0.95))
         col = f"_uv_r{len(columns) + 1}"
         columns.append(s.alias(value, col))
         results[call.key] = s.col(col, name)
     coef = exp.Select(expressions=[exp.Star()] + named).from_(table(f"{name}_agg"), copy=False)
     ctes.append(cte(coef, f"{name}_coef"))
-    final = exp.Select(expressions=[k.copy() for k in keys] + columns).from_(table(f"{name}_coef"), copy=False)
+    below = f"{name}_coef"
+    if variances:
+        ctes.append(cte(exp.Select(expressions=[exp.Star()] + variances).from_(table(below), copy=False), f"{name}_var"))
+        below = f"{name}_var"
+    final = exp.Select(expressions=[k.copy() for k in keys] + columns).from_(table(below), copy=False)
     ctes.append(cte(final, name))
     return ctes, results
 
