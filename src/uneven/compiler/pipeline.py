@@ -106,7 +106,7 @@ def compile_with_plan(sql: str, dialect: str = "duckdb", read: str = "duckdb", p
                                                           else resolution),
                          expression_types=expression_types, dialect=dialect, read=read)
     tree = compile_tree(parse_one_statement(sql, read), ctx)
-    return generate(tree, dialect, pretty=pretty), ctx.chosen
+    return generate(tree, dialect, pretty=pretty, copy=False), ctx.chosen  # the tree is this compile's own
 
 
 def check_tie_grouping(value) -> None:

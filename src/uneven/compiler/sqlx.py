@@ -183,7 +183,14 @@ def not_null(e):
 
 
 def alias(e, name: str) -> exp.Alias:
+    """e AS "name", on a copy of e (the caller may use e again)."""
     return exp.alias_(e, name, quoted=True)
+
+
+def named(e, name: str) -> exp.Alias:
+    """e AS "name", taking ownership of e like the other builders here: for a tree built for this
+    place alone (``alias`` deep-copies its argument, most of the copying of a compile)."""
+    return exp.alias_(e, name, quoted=True, copy=False)
 
 
 def raise_error(message: str) -> exp.Expression:

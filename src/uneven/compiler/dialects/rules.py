@@ -341,7 +341,7 @@ def _uniform_calls(tree: exp.Expression, fn) -> exp.Expression:
         if isinstance(node, exp.Anonymous) and str(node.this).lower() == UNIFORM:
             return fn([a.copy() for a in node.expressions])
         return node
-    return tree.transform(visit)
+    return tree.transform(visit, copy=False)  # the rules own the tree (generate.py)
 
 
 def uniform_from_hash(function: str, signed: bool, as_text: bool = False) -> Rule:
@@ -387,4 +387,4 @@ def values_columns_by_position(tree: exp.Expression, dialect: str) -> exp.Expres
         cols = [exp.alias_(exp.column(f"column{i}"), c.copy()) for i, c in enumerate(alias.columns, start=1)]
         select = exp.Select(expressions=cols).from_(exp.Subquery(this=bare), copy=False)
         return exp.Subquery(this=select, alias=exp.TableAlias(this=alias.this.copy()))
-    return tree.transform(fn)
+    return tree.transform(fn, copy=False)

@@ -94,12 +94,13 @@ def lower_ranked_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
     rows = source.rows(proj, cond)
     keys = source.key_columns()
     ties = exp.Select(expressions=keys + [s.col("_uv_v0")] + [s.alias(e, n) for n, e in ctx.sums.values()])
-    ties = ties.from_(exp.Subquery(this=rows, alias=exp.TableAlias(this=exp.to_identifier("_uv_r", quoted=True))))
+    ties = ties.from_(exp.Subquery(this=rows, alias=exp.TableAlias(this=exp.to_identifier("_uv_r", quoted=True))),
+                      copy=False)
     ties.set("group", exp.Group(expressions=[k.copy() for k in keys] + [s.col("_uv_v0")]))
 
     wg = ctx.Wg.name
     running = s.window(s.agg_sum(s.col(wg)), [k.copy() for k in keys], [s.col("_uv_v0")], running=True)
     win = exp.Select(expressions=[k.copy() for k in keys] + [s.col(n) for n, _ in ctx.sums.values()]
-                     + [s.alias(running, "_uv_c")]).from_(table(f"{name}_rows"))
+                     + [s.alias(running, "_uv_c")]).from_(table(f"{name}_rows"), copy=False)
     ctes = [cte(ties, f"{name}_rows"), cte(win, f"{name}_win"), cte(grouped(keys, out_cols, f"{name}_win"), name)]
     return ctes, results
