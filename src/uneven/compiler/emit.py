@@ -41,6 +41,8 @@ import sys
 import sqlglot
 from sqlglot import exp
 
+from uneven.compiler import sqlx as s
+
 __all__ = ["parenthesize", "to_sql", "emission_error", "checking", "check_emission"]
 
 OR, AND, NOT, PREDICATE, CONCAT, ADDITIVE, MULTIPLICATIVE, UNARY = range(1, 9)
@@ -101,7 +103,8 @@ def _operand_keys(node: exp.Expression) -> tuple[str, ...]:
 
 
 def _wrap(tree: exp.Expression, rule) -> exp.Expression:
-    for node in [n for n in tree.walk() if isinstance(n, OPERATORS)]:
+    # every decision reads an operator and its own operand only, so any parents-first order will do
+    for node in [n for n in s.nodes(tree) if isinstance(n, OPERATORS)]:
         for key in _operand_keys(node):
             child = node.args.get(key)
             if isinstance(child, exp.Expression) and rule(node, key, child):

@@ -341,6 +341,9 @@ def _uniform_calls(tree: exp.Expression, fn) -> exp.Expression:
         if isinstance(node, exp.Anonymous) and str(node.this).lower() == UNIFORM:
             return fn([a.copy() for a in node.expressions])
         return node
+    # most queries draw nothing: one search for a draw is cheaper than a transform of every node
+    if not any(isinstance(n, exp.Anonymous) and str(n.this).lower() == UNIFORM for n in s.nodes(tree)):
+        return tree
     return tree.transform(visit, copy=False)  # the rules own the tree (generate.py)
 
 

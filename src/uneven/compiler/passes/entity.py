@@ -47,7 +47,7 @@ def lower_entity_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
     if "r" in ctx.used:
         rank = s.window(exp.RowNumber(), [k.copy() for k in keys], [exp.Ordered(this=s.col("_uv_v"), desc=True)])
         ranked = exp.Select(expressions=[k.copy() for k in keys] + [s.col("_uv_v"), s.alias(rank, "_uv_r")])
-        ctes.append(cte(ranked.from_(table(below), copy=False), f"{name}_rank"))
+        ctes.append(cte(ranked.from_(table(below)), f"{name}_rank"))
         below = f"{name}_rank"
     final = grouped(keys, out_cols, below)
     ctes.append(cte(final, name))

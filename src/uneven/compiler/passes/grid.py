@@ -33,7 +33,7 @@ def lower_lorenz_grid(ctx, keys: list[exp.Expression], name: str, k: int) -> lis
         s.alias(s.agg_sum(s.mul(ctx.w, ctx.x)), "_uv_s"),
         s.alias(s.agg_max(ctx.c), "_uv_cmax"),
         s.alias(s.agg_min(ctx.x), "_uv_xmin"),
-    ]).from_(table(f"{name}_win"), copy=False)
+    ]).from_(table(f"{name}_win"))
     cells.set("group", exp.Group(expressions=[k_.copy() for k_ in keys] + [cell.copy()]))
 
     u, zero = s.col("_uv_u"), s.lit(0.0)
@@ -52,7 +52,7 @@ def lower_lorenz_grid(ctx, keys: list[exp.Expression], name: str, k: int) -> lis
         points.append(s.struct(p=s.lit(p), lorenz=s.cast_double(s.div(held, total_t.copy()))))
     curve = s.case(s.gt(finite_or_null(total_t), zero.copy()), s.array(*points))
     grid = exp.Select(expressions=[k_.copy() for k_ in keys] + [s.alias(curve, "_uv_curve")]).from_(
-        table(f"{name}_cells_{k}"), copy=False)
+        table(f"{name}_cells_{k}"))
     if keys:
         grid.set("group", exp.Group(expressions=[k_.copy() for k_ in keys]))
     return [cte(cells, f"{name}_cells_{k}"), cte(grid, grid_table(name, k))]

@@ -77,7 +77,7 @@ def lower_paired_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
                      s.alias(_running(s.agg_sum(s.mul(wv.copy(), val.copy())), keys, val.copy()), f"_uv_s{v}"),
                      s.alias(s.window(s.agg_sum(s.mul(wv.copy(), val.copy())), [k.copy() for k in keys]), f"_uv_t{v}")]
     win_cols.append(s.alias(s.window(s.agg_sum(wv.copy()), [k.copy() for k in keys]), "_uv_wt"))
-    win = exp.Select(expressions=win_cols).from_(table(f"{name}_rows"), copy=False)
+    win = exp.Select(expressions=win_cols).from_(table(f"{name}_rows"))
 
     W = s.col("_uv_wt")
     lin_cols = list(cols) + [W.copy(), s.col("_uv_tx"), s.col("_uv_ty")]
@@ -87,7 +87,7 @@ def lower_paired_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
                   s.sub(s.mul(s.lit(2.0), s.col(f"_uv_s{v}")), T))
         lin_cols += [s.alias(D, f"_uv_d{v}"),
                      s.alias(s.window(s.agg_sum(s.mul(wv.copy(), D.copy())), [k.copy() for k in keys]), f"_uv_a{v}")]
-    lin = exp.Select(expressions=lin_cols).from_(table(f"{name}_win"), copy=False)
+    lin = exp.Select(expressions=lin_cols).from_(table(f"{name}_win"))
 
     # G_v and u_k at row level; the final GROUP BY sums them
     z = {}
@@ -101,7 +101,7 @@ def lower_paired_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
     u = s.mul(wv.copy(), s.sub(z["x"], z["y"]))
     both = s.and_(s.gt(s.col("_uv_tx"), ZERO), s.gt(s.col("_uv_ty"), ZERO))
     lin_u = exp.Select(expressions=[k.copy() for k in keys] + [s.col("_uv_tx"), s.col("_uv_ty")] + gini_cols
-                       + [s.alias(s.case(both, u), "_uv_u")]).from_(table(f"{name}_lin"), copy=False)
+                       + [s.alias(s.case(both, u), "_uv_u")]).from_(table(f"{name}_lin"))
     ctes = [cte(rows, f"{name}_rows"), cte(win, f"{name}_win"), cte(lin, f"{name}_lin"),
             cte(lin_u, f"{name}_u"), cte(grouped(keys, out_cols, f"{name}_u"), name)]
     return ctes, results

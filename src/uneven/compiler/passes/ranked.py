@@ -94,8 +94,7 @@ def lower_ranked_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
     rows = source.rows(proj, cond)
     keys = source.key_columns()
     ties = exp.Select(expressions=keys + [s.col("_uv_v0")] + [s.alias(e, n) for n, e in ctx.sums.values()])
-    ties = ties.from_(exp.Subquery(this=rows, alias=exp.TableAlias(this=exp.to_identifier("_uv_r", quoted=True))),
-                      copy=False)
+    ties = ties.from_(exp.Subquery(this=rows, alias=exp.TableAlias(this=exp.to_identifier("_uv_r", quoted=True))))
     ties.set("group", exp.Group(expressions=[k.copy() for k in keys] + [s.col("_uv_v0")]))
 
     wg = ctx.Wg.name

@@ -73,8 +73,7 @@ def lower_subgroup_pass(source: Source, main, plan, name: str) -> tuple[list[exp
         cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
     rows = source.rows(inner.expressions, cond)
     sub = exp.Select(expressions=source.key_columns() + [s.alias(e, n) for n, e in ctx.sums.values()])
-    sub = sub.from_(exp.Subquery(this=rows, alias=exp.TableAlias(this=exp.to_identifier("_uv_r", quoted=True))),
-                    copy=False)
+    sub = sub.from_(exp.Subquery(this=rows, alias=exp.TableAlias(this=exp.to_identifier("_uv_r", quoted=True))))
     sub.set("group", exp.Group(expressions=source.key_columns() + [s.col("_uv_g")]))
     keys = source.key_columns()
     return [cte(sub, f"{name}_rows"), cte(grouped(keys, out_cols, f"{name}_rows"), name)], results

@@ -37,7 +37,7 @@ def lower_summary_pass(source: Source, main, plan, name: str, resolution: float 
     more, names, exact, read = lower_bounds(f"{name}_bins", keys, [a.alias for a in aggs], calls, name,
                                             merge=False)
     aggs = [a for a in aggs if a.alias in read]  # only what the calls read (e.g. Gini: no Σw·x², Σw·ln x)
-    bins = exp.Select(expressions=[k.copy() for k in keys] + aggs).from_(table(f"{name}_rows"), copy=False)
+    bins = exp.Select(expressions=[k.copy() for k in keys] + aggs).from_(table(f"{name}_rows"))
     bins.set("group", exp.Group(expressions=[k.copy() for k in keys] + [s.col(b.SIGN), s.col(b.BIN)]))
     results = {}
     for key, (point, lo, hi) in names.items():
