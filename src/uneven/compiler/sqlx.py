@@ -211,8 +211,31 @@ def alias(e, name: str) -> exp.Alias:
 
 def named(e, name: str) -> exp.Alias:
     """e AS "name", taking ownership of e like the other builders here: for a tree built for this
-    place alone (``alias`` deep-copies its argument, most of the copying of a compile)."""
-    return exp.alias_(e, name, quoted=True, copy=False)
+    place alone (``alias`` deep-copies its argument, most of the copying of a compile). A tree in
+    which some node stands in two places (a builder reused a subtree without copying it) is
+    copied, which gives each place its own node, as ``alias`` always did."""
+    return exp.alias_(e, name, quoted=True, copy=not placed_once(e))
+
+
+def placed_once(tree: exp.Expression) -> bool:
+    """Whether every node below ``tree`` names as its parent the node it stands under, in the slot
+    it stands in (sqlglot re-parents a node placed into a second parent, so a node placed twice
+    fails this at its first place)."""
+    stack = [tree]
+    while stack:
+        node = stack.pop()
+        for key, value in node.args.items():
+            if isinstance(value, exp.Expression):
+                if value.parent is not node or value.arg_key != key:
+                    return False
+                stack.append(value)
+            elif type(value) is list:
+                for i, v in enumerate(value):
+                    if isinstance(v, exp.Expression):
+                        if v.parent is not node or v.arg_key != key or v.index != i:
+                            return False
+                        stack.append(v)
+    return True
 
 
 def raise_error(message: str) -> exp.Expression:

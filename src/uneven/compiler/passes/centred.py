@@ -69,9 +69,9 @@ def lower_centred_pass(source: Source, main: MainAggregate, plan, name: str
     results = {call.key: call.measure.build(ctx, call.params) for call in plan.calls}
     nkeys = len(source.keys)
     keys = [s.col(key_name(i)) for i in range(nkeys)]
-    means = [s.alias(s.div(ctx.T, ctx.W), "_uv_mu")]
+    means = [s.named(s.div(ctx.T, ctx.W), "_uv_mu")]
     if "ratio" in ctx.used:
-        means.append(s.alias(s.case(s.gt(ctx.T, s.lit(0.0)), s.div(ctx.T, ctx.W)), "_uv_mup"))
+        means.append(s.named(s.case(s.gt(ctx.T, s.lit(0.0)), s.div(ctx.T, ctx.W)), "_uv_mup"))
     mean_name = f"{name}_mean"
     ctes = []
     if adaptive:
@@ -81,7 +81,7 @@ def lower_centred_pass(source: Source, main: MainAggregate, plan, name: str
         mean = _from_main(exp.Select(expressions=keys + means), main)
     results = {key: ctx.checked(value) for key, value in results.items()}
     marker = [s.alias(s.agg_count_star(), "_uv_rows")] if adaptive else []
-    rows = source.rows(source.key_projections() + [s.alias(e, n) for n, e in ctx.terms.values()] + marker,
+    rows = source.rows(source.key_projections() + [s.named(e, n) for n, e in ctx.terms.values()] + marker,
                        ctx.valid_condition(), group_by=[k.copy() for k in source.keys] or None,
                        join=join_on_keys(source.keys, mean_name))
     return ctes + [cte(mean, mean_name), cte(rows, name)], results

@@ -133,7 +133,7 @@ def build_results(calls: list, ctx, name: str) -> tuple[list[exp.Expression], di
             results[call.key] = built  # already a column of a CTE of its own (e.g. a Lorenz grid)
             continue
         column = f"_uv_r{len(columns) + 1}"
-        columns.append(s.alias(built, column))
+        columns.append(s.named(built, column))  # built for this column alone
         results[call.key] = s.col(column, name)
     return columns, results
 
