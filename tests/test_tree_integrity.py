@@ -50,7 +50,7 @@ def misplaced(tree: exp.Expression) -> list[str]:
 def _queries() -> list[str]:
     golden = [read_fixture(p)[0] for p in GOLDEN]
     g = Grammar(random.Random(4242), {"limit"}, wide_params=True, se_measures=True)
-    return golden + [g.shape().sql() for _ in range(25)]
+    return golden + [g.shape().sql() for _ in range(12)]
 
 
 QUERIES = _queries()
