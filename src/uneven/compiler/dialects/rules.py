@@ -3,7 +3,9 @@
 Each rule works on any node of a kind (every ``LN``, every division, every ``error()`` call, every
 null-safe join), never on a particular measure, so measures and passes added later are lowered
 without dialect code of their own. A dialect module lists the rules it needs, in order
-(``compiler/dialects/<name>.py``); ``generate.py`` applies them to a copy of the finished tree.
+(``compiler/dialects/<name>.py``); ``generate.py`` applies them to the finished tree, which they
+may change in place (the compile pipeline hands over a tree it no longer reads; other callers get a
+copy).
 """
 
 from __future__ import annotations
