@@ -23,7 +23,7 @@ def _total(ctx):
 
 
 def _defined(ctx):
-    return s.and_(s.gte(s.agg_min(ctx.v), ZERO), s.gt(_total(ctx), ZERO))
+    return s.and_(s.gte(s.agg_min(ctx.v), s.lit(0.0)), s.gt(_total(ctx), s.lit(0.0)))
 
 
 def build_hhi(ctx, params=()):
@@ -37,7 +37,7 @@ def build_hhi(ctx, params=()):
 
 def build_cr(ctx, params):
     k = params[0] if hasattr(params[0], "to_expression") else int(params[0])  # run-time k: a macro argument
-    top = s.agg_sum(s.case(s.lte(ctx.r, s.lit(k)), ctx.v, ZERO))
+    top = s.agg_sum(s.case(s.lte(ctx.r, s.lit(k)), ctx.v, s.lit(0.0)))
     return s.case(_defined(ctx), s.div(top, _total(ctx)))
 
 

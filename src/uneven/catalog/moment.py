@@ -24,11 +24,11 @@ def _mean(ctx):
 
 
 def _nonneg(ctx):
-    return s.and_(s.gte(ctx.min_x, ZERO), s.gt(ctx.T, ZERO))
+    return s.and_(s.gte(ctx.min_x, s.lit(0.0)), s.gt(ctx.T, s.lit(0.0)))
 
 
 def _positive(ctx):
-    return s.and_(s.gt(ctx.min_x, ZERO), s.gt(ctx.T, ZERO))
+    return s.and_(s.gt(ctx.min_x, s.lit(0.0)), s.gt(ctx.T, s.lit(0.0)))
 
 
 # Log and power measures run on the centred pass, as sums of non-negative terms in r = x/μ that
@@ -68,19 +68,19 @@ def binomial_minus_one(u, p):
         c = c * (p - (k - 1)) / k
         coefficients.append(c)
     small = _series(u, coefficients)
-    big = s.case(s.gt(s.add(s.lit(1.0), u.copy()), ZERO),
+    big = s.case(s.gt(s.add(s.lit(1.0), u.copy()), s.lit(0.0)),
                  s.sub(s.power(s.add(s.lit(1.0), u.copy()), s.lit(p)), s.lit(1.0)))
     return s.case(s.lt(s.mul(s.absval(u.copy()), s.lit(abs(p) + 6.0)), s.lit(1e-3)), small, big)
 
 
 def _theil_term(r):
     # r ln r − (r − 1); a zero value adds 0·ln 0 − (0 − 1) = 1
-    return s.case(s.gt(r, ZERO), s.sub(s.mul(r.copy(), s.ln(r.copy())), s.sub(r.copy(), s.lit(1.0))), s.lit(1.0))
+    return s.case(s.gt(r, s.lit(0.0)), s.sub(s.mul(r.copy(), s.ln(r.copy())), s.sub(r.copy(), s.lit(1.0))), s.lit(1.0))
 
 
 def _mld_term(r):
     # (r − 1) − ln r, defined for r > 0 (the measure is NULL when a value is ≤ 0)
-    return s.case(s.gt(r, ZERO), s.sub(s.sub(r.copy(), s.lit(1.0)), s.ln(r.copy())))
+    return s.case(s.gt(r, s.lit(0.0)), s.sub(s.sub(r.copy(), s.lit(1.0)), s.ln(r.copy())))
 
 
 def _closed_power_term(r, d, a: float):
@@ -118,9 +118,9 @@ def _power_term(ctx, a: float):
     r = ctx.r
     closed = _closed_power_term(r, _deviation(ctx), a)
     if closed is not None:
-        return closed if a > 0 else s.case(s.gt(r, ZERO), closed)
+        return closed if a > 0 else s.case(s.gt(r, s.lit(0.0)), closed)
     y = s.mul(s.lit(a), s.ln(r.copy()))
-    return s.case(s.gt(r, ZERO), s.sub(expm1(y), s.mul(s.lit(a), s.sub(r.copy(), s.lit(1.0)))), s.lit(a - 1.0))
+    return s.case(s.gt(r, s.lit(0.0)), s.sub(expm1(y), s.mul(s.lit(a), s.sub(r.copy(), s.lit(1.0)))), s.lit(a - 1.0))
 
 
 def _mean_of(ctx, term):
@@ -138,11 +138,11 @@ def _row_mean(ctx) -> bool:
 
 
 def _sum_w_x_ln_x(ctx):
-    return ctx.sum(s.case(s.gt(ctx.x, ZERO), s.mul(ctx.w, s.mul(ctx.x, s.ln(ctx.x))), ZERO))
+    return ctx.sum(s.case(s.gt(ctx.x, s.lit(0.0)), s.mul(ctx.w, s.mul(ctx.x, s.ln(ctx.x))), s.lit(0.0)))
 
 
 def _sum_w_ln_x(ctx):
-    return ctx.sum(s.case(s.gt(ctx.x, ZERO), s.mul(ctx.w, s.ln(ctx.x))))
+    return ctx.sum(s.case(s.gt(ctx.x, s.lit(0.0)), s.mul(ctx.w, s.ln(ctx.x))))
 
 
 def _pow(x, a: float):
@@ -156,7 +156,7 @@ def _pow(x, a: float):
 
 
 def _sum_w_x_pow(ctx, a: float):
-    return ctx.sum(s.case(s.gt(ctx.x, ZERO), s.mul(ctx.w, _pow(ctx.x, a)), ZERO))
+    return ctx.sum(s.case(s.gt(ctx.x, s.lit(0.0)), s.mul(ctx.w, _pow(ctx.x, a)), s.lit(0.0)))
 
 
 def _moment_of(ctx, a: float):
@@ -228,7 +228,7 @@ def _log_range(ctx):
     """L = max |ln x| over the group's positive values (from their min and max: no ln per row), so
     Σ w x |ln x| ≤ L·T and Σ w |ln x| ≤ L·W."""
     def make():
-        lo = ctx.min(s.case(s.gt(ctx.x, ZERO), ctx.x))
+        lo = ctx.min(s.case(s.gt(ctx.x, s.lit(0.0)), ctx.x))
         return s.greatest(s.absval(s.ln(lo)), s.absval(s.ln(ctx.max(ctx.x))))
     return ctx._once("log_range", make)
 
@@ -280,13 +280,13 @@ def build_cv(ctx, params=()):
     divisor = getattr(ctx, "mu_divisor", None)
     d = s.div(s.sub(ctx.x, ctx.mu), divisor if divisor is not None else ctx.mu)
     spread = ctx.sum(s.mul(ctx.w, s.square(d)))
-    return s.case(s.gt(ctx.T, ZERO), finite(s.sqrt(s.div(spread, ctx.W))))
+    return s.case(s.gt(ctx.T, s.lit(0.0)), finite(s.sqrt(s.div(spread, ctx.W))))
 
 
 def build_hoover(ctx, params=()):
     # centred pass: ½ Σ |w_i x_i / T − w_i / W| = ½ Σ w_i |x_i − μ| / T (no sort needed)
     spread = ctx.sum(s.mul(ctx.w, s.absval(s.sub(ctx.x, ctx.mu))))
-    return s.case(s.gt(ctx.T, ZERO), s.div(s.mul(s.lit(0.5), spread), ctx.T))
+    return s.case(s.gt(ctx.T, s.lit(0.0)), s.div(s.mul(s.lit(0.5), spread), ctx.T))
 
 
 def build_hhi_rows(ctx, params=()):

@@ -44,7 +44,7 @@ def top_share_at(ctx, p: float) -> exp.Expression:
 
 
 def _ratio(num, den):
-    return s.case(s.neq(den, s.lit(0.0)), s.div(num, den))
+    return s.case(s.neq(den, s.lit(0.0)), s.div(num, den.copy()))  # den stands in two places
 
 
 def quantile_at(ctx, p: float) -> exp.Expression:

@@ -22,7 +22,7 @@ def finite(e: exp.Expression) -> exp.Expression:
     """e where it is a finite number, else NULL: 1 > e·0 is true for finite e, false for NaN (NaN
     compares above every number in DuckDB and Spark; SQLite has no NaN, PostgreSQL raises first)
     and NULL for NULL."""
-    return s.case(s.gt(s.lit(1.0), s.mul(e.copy(), s.lit(0.0))), e.copy())
+    return s.case(s.gt(s.lit(1.0), s.mul(e.copy(), s.lit(0.0))), e)  # e: the caller's new tree, placed once
 
 
 def plain_or_scaled(build) -> exp.Expression:

@@ -22,12 +22,12 @@ SUBGROUP = Param("subgroup", "column", "the subgroup of each row")
 
 def _domain(ctx, alpha: float):
     if alpha > 0:
-        return s.and_(s.gte(ctx.min_x, ZERO), s.gt(ctx.T, ZERO))
-    return s.gt(ctx.min_x, ZERO)
+        return s.and_(s.gte(ctx.min_x, s.lit(0.0)), s.gt(ctx.T, s.lit(0.0)))
+    return s.gt(ctx.min_x, s.lit(0.0))
 
 
 def _if_pos(cond_value, then, otherwise=None):
-    return s.case(s.gt(cond_value, ZERO), then, otherwise)
+    return s.case(s.gt(cond_value, s.lit(0.0)), then, otherwise)
 
 
 def _sub_mean_term(ctx, alpha: float):
@@ -35,10 +35,10 @@ def _sub_mean_term(ctx, alpha: float):
     subgroup of zeros when α > 0."""
     mu_g = s.div(ctx.Tg, ctx.Wg)
     if alpha == 1:
-        return _if_pos(ctx.Tg, s.mul(ctx.Tg, s.ln(mu_g)), ZERO)
+        return _if_pos(ctx.Tg, s.mul(ctx.Tg, s.ln(mu_g)), s.lit(0.0))
     if alpha == 0:
         return _if_pos(ctx.Tg, s.mul(ctx.Wg, s.ln(mu_g)))
-    return _if_pos(ctx.Tg, s.mul(ctx.Wg, s.power(mu_g, s.lit(alpha))), ZERO)
+    return _if_pos(ctx.Tg, s.mul(ctx.Wg, s.power(mu_g, s.lit(alpha))), s.lit(0.0))
 
 
 def build_ge_between(ctx, params):
@@ -58,15 +58,15 @@ def build_ge_between(ctx, params):
 def build_ge_within(ctx, params):
     (alpha,) = params
     x, w = ctx.x, ctx.w
-    pos = s.gt(x, ZERO)
+    pos = s.gt(x, s.lit(0.0))
     if alpha == 1:
-        own = ctx.sub_sum(s.case(pos, s.mul(w, s.mul(x, s.ln(x))), ZERO))  # Σ w x ln x per subgroup
+        own = ctx.sub_sum(s.case(pos, s.mul(w, s.mul(x, s.ln(x))), s.lit(0.0)))  # Σ w x ln x per subgroup
         value = s.div(s.agg_sum(s.sub(own, _sub_mean_term(ctx, alpha))), ctx.T)
     elif alpha == 0:
         own = ctx.sub_sum(s.case(pos, s.mul(w, s.ln(x))))  # Σ w ln x per subgroup
         value = s.div(s.agg_sum(s.sub(_sub_mean_term(ctx, alpha), own)), ctx.W)
     else:
-        own = ctx.sub_sum(s.case(pos, s.mul(w, s.power(x, s.lit(alpha))), ZERO))  # Σ w x^α per subgroup
+        own = ctx.sub_sum(s.case(pos, s.mul(w, s.power(x, s.lit(alpha))), s.lit(0.0)))  # Σ w x^α per subgroup
         mean = s.div(ctx.T, ctx.W)
         value = s.div(s.agg_sum(s.sub(own, _sub_mean_term(ctx, alpha))),
                       s.mul(s.mul(ctx.W, s.power(mean, s.lit(alpha))), s.lit(alpha * (alpha - 1.0))))

@@ -41,6 +41,8 @@ import sys
 import sqlglot
 from sqlglot import exp
 
+from uneven.compiler import sqlx as s
+
 __all__ = ["parenthesize", "to_sql", "emission_error", "checking", "check_emission"]
 
 OR, AND, NOT, PREDICATE, CONCAT, ADDITIVE, MULTIPLICATIVE, UNARY = range(1, 9)
@@ -101,7 +103,8 @@ def _operand_keys(node: exp.Expression) -> tuple[str, ...]:
 
 
 def _wrap(tree: exp.Expression, rule) -> exp.Expression:
-    for node in [n for n in tree.walk() if isinstance(n, OPERATORS)]:
+    # every decision reads an operator and its own operand only, so any parents-first order will do
+    for node in [n for n in s.nodes(tree) if isinstance(n, OPERATORS)]:
         for key in _operand_keys(node):
             child = node.args.get(key)
             if isinstance(child, exp.Expression) and rule(node, key, child):
@@ -123,8 +126,12 @@ def to_sql(tree: exp.Expression, dialect: str = "duckdb", copy: bool = True, **o
     """``tree.sql(dialect, **options)`` after ``parenthesize``: the one way our trees become text.
     ``copy=False`` parenthesizes the tree in place (for large trees built only to be printed, such as
     the installed macros: the rule is idempotent, so a tree printed twice is unchanged)."""
-    text = parenthesize(tree, copy=copy).sql(dialect=dialect, **options)
-    if checking():
+    check = checking()
+    # the printed tree is this call's own copy, or (copy=False) a tree built only to be printed: the
+    # generator need not copy it again before its own dialect transforms (a quarter of install()'s
+    # time); the emission check reads the tree afterwards, so under it the generator still copies
+    text = parenthesize(tree, copy=copy).sql(dialect=dialect, copy=check and not copy, **options)
+    if check:
         check_emission(tree, text, dialect, **options)
     return text
 

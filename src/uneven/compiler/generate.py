@@ -30,19 +30,25 @@ def check_read_dialect(read: str) -> str:
     return read
 
 
-def lower_tree(tree: exp.Expression, dialect: str = "duckdb") -> exp.Expression:
-    """The tree ``generate`` prints: a copy through the dialect's rules, then the parentheses its
-    text needs (emit.parenthesize)."""
-    return emit.parenthesize(get_dialect(dialect).lower(tree.copy()), copy=False)
+def lower_tree(tree: exp.Expression, dialect: str = "duckdb", copy: bool = True) -> exp.Expression:
+    """The tree ``generate`` prints: a copy (the tree itself when ``copy=False``) through the
+    dialect's rules, then the parentheses its text needs (emit.parenthesize)."""
+    return emit.parenthesize(get_dialect(dialect).lower(tree.copy() if copy else tree), copy=False)
 
 
-def generate(tree: exp.Expression, dialect: str = "duckdb", pretty: bool = True) -> str:
+def generate(tree: exp.Expression, dialect: str = "duckdb", pretty: bool = True, copy: bool = True) -> str:
+    """SQL text of ``tree`` for ``dialect``. ``copy=False`` lowers the tree in place, for a caller
+    that owns it and reads it no more (the compile pipeline: a deep copy of the whole compiled query
+    per generation was a fifth of a compile)."""
     target = get_dialect(dialect)
-    lowered = lower_tree(tree, dialect)
+    lowered = lower_tree(tree, dialect, copy=copy)
+    checking = emit.checking()
     try:
-        text = lowered.sql(dialect=target.name, pretty=pretty, unsupported_level=ErrorLevel.RAISE)
+        # sqlglot's generator copies the tree before its own dialect transforms unless told not to;
+        # the lowered tree is ours (and read again only by the emission check)
+        text = lowered.sql(dialect=target.name, pretty=pretty, unsupported_level=ErrorLevel.RAISE, copy=checking)
     except UnsupportedError as e:
         raise UnsupportedDialectError(f"the query cannot be written in {target.name}: {e}") from None
-    if emit.checking():
+    if checking:
         emit.check_emission(lowered, text, target.name)
     return text

@@ -122,7 +122,7 @@ def compile_with_context(sql: str, dialect: str = "duckdb", read: str = "duckdb"
                                                           else resolution),
                          expression_types=expression_types, dialect=dialect, read=read, ordered=ordered)
     tree = compile_tree(parse_one_statement(sql, read), ctx)
-    return generate(tree, dialect, pretty=pretty), ctx
+    return generate(tree, dialect, pretty=pretty, copy=False), ctx  # the tree is this compile's own
 
 
 def check_tie_grouping(value) -> None:

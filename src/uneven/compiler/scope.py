@@ -45,7 +45,7 @@ def rewrite_scope(select: exp.Select, calls: list[MeasureCall], ctx: CompileCont
 
     replace = _replacer(results, main, keys)
     outputs = output_aliases(select)
-    final = exp.Select(expressions=[s.alias(replace(p.unalias()), outputs[i])
+    final = exp.Select(expressions=[s.named(replace(p.unalias()), outputs[i])
                                     for i, p in enumerate(select.expressions)])
     if ctx.method == "bounded":
         final.set("expressions", bounded_items(select, final.expressions, results, outputs))

@@ -24,9 +24,31 @@ def lit(value: float | int | str) -> exp.Expression:
         if len(digits) > 15 and "e" not in text:
             text = f"{value:.17e}"
         # typed DOUBLE: engines read 0.4 as DECIMAL, which is slow in row-level arithmetic and
-        # whose conversion of long literals may round
-        return exp.cast(exp.Literal.number(text), DOUBLE)
+        # whose conversion of long literals may round. Built as exp.cast builds it (the type also
+        # as the node's type), without its copies of the new literal and of DOUBLE's tree.
+        to = DOUBLE.copy()
+        cast = exp.Cast(this=exp.Literal.number(text), to=to)
+        cast.type = to
+        return cast
     return exp.Literal.number(str(value))
+
+
+def nodes(tree: exp.Expression):
+    """Every node of ``tree``, parents before children, in the order of sqlglot's depth-first walk
+    (``tree.dfs()``); a plain stack over the nodes' arguments, several times faster than sqlglot's
+    walks (a generator per node), which matters for the passes over a whole compiled query."""
+    stack = [tree]
+    while stack:
+        node = stack.pop()
+        yield node
+        children = []
+        for value in node.args.values():
+            if isinstance(value, exp.Expression):
+                children.append(value)
+            elif type(value) is list:
+                children.extend(v for v in value if isinstance(v, exp.Expression))
+        children.reverse()
+        stack.extend(children)
 
 
 def col(name: str, table: str | None = None) -> exp.Column:
@@ -183,7 +205,37 @@ def not_null(e):
 
 
 def alias(e, name: str) -> exp.Alias:
+    """e AS "name", on a copy of e (the caller may use e again)."""
     return exp.alias_(e, name, quoted=True)
+
+
+def named(e, name: str) -> exp.Alias:
+    """e AS "name", taking ownership of e like the other builders here: for a tree built for this
+    place alone (``alias`` deep-copies its argument, most of the copying of a compile). A tree in
+    which some node stands in two places (a builder reused a subtree without copying it) is
+    copied, which gives each place its own node, as ``alias`` always did."""
+    return exp.alias_(e, name, quoted=True, copy=not placed_once(e))
+
+
+def placed_once(tree: exp.Expression) -> bool:
+    """Whether every node below ``tree`` names as its parent the node it stands under, in the slot
+    it stands in (sqlglot re-parents a node placed into a second parent, so a node placed twice
+    fails this at its first place)."""
+    stack = [tree]
+    while stack:
+        node = stack.pop()
+        for key, value in node.args.items():
+            if isinstance(value, exp.Expression):
+                if value.parent is not node or value.arg_key != key:
+                    return False
+                stack.append(value)
+            elif type(value) is list:
+                for i, v in enumerate(value):
+                    if isinstance(v, exp.Expression):
+                        if v.parent is not node or v.arg_key != key or v.index != i:
+                            return False
+                        stack.append(v)
+    return True
 
 
 def raise_error(message: str) -> exp.Expression:

@@ -24,7 +24,7 @@ from uneven.duckdb_functions.aggregate import aggregate_overloads
 from uneven.duckdb_functions.symbolic import NeedsConstant
 from uneven.duckdb_functions.table import table_form
 from uneven.errors import ExecutionError, UnevenError
-from uneven.compiler.emit import to_sql
+from uneven.compiler.emit import checking, to_sql
 from uneven.compiler.scalars import macro_body
 
 REGISTRY = "_uv_functions"
@@ -91,6 +91,25 @@ def equivalised_macro() -> exp.Create:
     args = [exp.column(a) for a in ("income", "adults", "children", "scale")]
     return L.macro("equivalised", [(["income", "adults", "children"], macro_body(*args[:3], None)),
                                    (["income", "adults", "children", "scale"], macro_body(*args))])
+
+
+# the printed statements of recent install() calls, keyed by the catalog entries they were built
+# from (kept, and compared by identity: a measure defined anew is a new entry); building and printing
+# every macro is most of install()'s time, and its text depends on those entries alone
+_PRINTED: list[tuple[tuple[Measure, ...], list[tuple[Definition, str]]]] = []
+
+
+def printed_definitions(measures: list[Measure] | None = None) -> list[tuple[Definition, str]]:
+    """``definitions(measures)`` with each statement's SQL text, built once per set of catalog entries
+    (anew while the emission check is on, so that it checks every print)."""
+    key = tuple(measures if measures is not None else MEASURES.values())
+    if not checking():
+        for entries, printed in _PRINTED:
+            if len(entries) == len(key) and all(a is b for a, b in zip(entries, key)):
+                return printed
+    printed = [(d, to_sql(d.statement, copy=False)) for d in definitions(list(key))]
+    _PRINTED[:] = [(key, printed)] + _PRINTED[:3]
+    return printed
 
 
 def builtin_measures() -> list[Measure]:
@@ -164,7 +183,8 @@ def install(con: duckdb.DuckDBPyConnection, *, replace: bool = False,
         if unknown:
             raise UnevenError(f"install(): unknown measure {unknown[0]!r}; known: {', '.join(MEASURES)}")
         chosen = [MEASURES[m.lower()] for m in measures]
-    defs = definitions(chosen)
+    printed = printed_definitions(chosen)
+    defs = [d for d, _ in printed]
     ours = _recorded(con)
     existing = _existing_macros(con)
     clashes = [d.name for d in defs if d.name.lower() in existing and d.name.lower() not in ours]
@@ -177,8 +197,8 @@ def install(con: duckdb.DuckDBPyConnection, *, replace: bool = False,
         con.execute(exp.Create(this=exp.Schema(this=exp.to_table(REGISTRY), expressions=[
             exp.ColumnDef(this=exp.to_identifier(c), kind=exp.DataType.build("varchar"))
             for c in ("name", "kind", "measure")]), kind="TABLE", exists=True).sql("duckdb"))
-        for d in defs:
-            con.execute(to_sql(d.statement, copy=False))
+        for d, statement in printed:
+            con.execute(statement)
             con.execute(exp.delete(REGISTRY, where=exp.column("name").eq(exp.Literal.string(d.name))).sql("duckdb"))
             con.execute(exp.insert(exp.values([(d.name, d.kind, d.measure)]), REGISTRY).sql("duckdb"))
         con.execute("COMMIT")

@@ -16,7 +16,7 @@ from uneven.errors import UnsupportedDialectError
 @dataclass(frozen=True)
 class Dialect:
     name: str  # our name, also sqlglot's
-    rules: tuple = ()  # (tree, dialect name) -> tree, applied in order to a copy of the compiled tree
+    rules: tuple = ()  # (tree, dialect name) -> tree, applied in order to the compiled tree (generate.py)
     executed: bool = False  # verified by the backend test matrix
     notes: str = ""  # caveats for users (docs/engines.md says more)
     aliases: tuple[str, ...] = field(default_factory=tuple)

@@ -3,7 +3,9 @@
 Each rule works on any node of a kind (every ``LN``, every division, every ``error()`` call, every
 null-safe join), never on a particular measure, so measures and passes added later are lowered
 without dialect code of their own. A dialect module lists the rules it needs, in order
-(``compiler/dialects/<name>.py``); ``generate.py`` applies them to a copy of the finished tree.
+(``compiler/dialects/<name>.py``); ``generate.py`` applies them to the finished tree, which they
+may change in place (the compile pipeline hands over a tree it no longer reads; other callers get a
+copy).
 """
 
 from __future__ import annotations
@@ -343,7 +345,10 @@ def _uniform_calls(tree: exp.Expression, fn) -> exp.Expression:
         if isinstance(node, exp.Anonymous) and str(node.this).lower() == UNIFORM:
             return fn([a.copy() for a in node.expressions])
         return node
-    return tree.transform(visit)
+    # most queries draw nothing: one search for a draw is cheaper than a transform of every node
+    if not any(isinstance(n, exp.Anonymous) and str(n.this).lower() == UNIFORM for n in s.nodes(tree)):
+        return tree
+    return tree.transform(visit, copy=False)  # the rules own the tree (generate.py)
 
 
 def uniform_from_hash(function: str, signed: bool, as_text: bool = False) -> Rule:
@@ -389,4 +394,4 @@ def values_columns_by_position(tree: exp.Expression, dialect: str) -> exp.Expres
         cols = [exp.alias_(exp.column(f"column{i}"), c.copy()) for i, c in enumerate(alias.columns, start=1)]
         select = exp.Select(expressions=cols).from_(exp.Subquery(this=bare), copy=False)
         return exp.Subquery(this=select, alias=exp.TableAlias(this=alias.this.copy()))
-    return tree.transform(fn)
+    return tree.transform(fn, copy=False)

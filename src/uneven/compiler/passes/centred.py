@@ -31,7 +31,7 @@ class CentredContext(MomentContext):
     def __init__(self, main: MainAggregate, x, w, condition, name: str):
         super().__init__(main, x, w, condition)
         self.name = name
-        self.terms: dict[str, tuple[str, exp.Expression]] = {}
+        self.terms: dict[exp.Expression, tuple[str, exp.Expression]] = {}
         self.used: set[str] = set()
 
     row_mean = True  # r = x/μ at row level: the log and power measures take their cancellation-free form
@@ -54,7 +54,7 @@ class CentredContext(MomentContext):
     def sum(self, term: exp.Expression) -> exp.Expression:
         # the centred CTE reads only this pass's valid rows (its WHERE), so terms need no CASE
         agg = s.agg_sum(term)
-        key = agg.sql("duckdb")
+        key = agg  # the tree itself (compared structurally), not its generated text
         if key not in self.terms:
             self.terms[key] = (f"_uv_t{len(self.terms) + 1}", agg)
         return s.col(self.terms[key][0], self.name)
@@ -69,9 +69,9 @@ def lower_centred_pass(source: Source, main: MainAggregate, plan, name: str
     results = {call.key: call.measure.build(ctx, call.params) for call in plan.calls}
     nkeys = len(source.keys)
     keys = [s.col(key_name(i)) for i in range(nkeys)]
-    means = [s.alias(s.div(ctx.T, ctx.W), "_uv_mu")]
+    means = [s.named(s.div(ctx.T, ctx.W), "_uv_mu")]
     if "ratio" in ctx.used:
-        means.append(s.alias(s.case(s.gt(ctx.T, s.lit(0.0)), s.div(ctx.T, ctx.W)), "_uv_mup"))
+        means.append(s.named(s.case(s.gt(ctx.T, s.lit(0.0)), s.div(ctx.T, ctx.W)), "_uv_mup"))
     mean_name = f"{name}_mean"
     ctes = []
     if adaptive:
@@ -81,7 +81,7 @@ def lower_centred_pass(source: Source, main: MainAggregate, plan, name: str
         mean = _from_main(exp.Select(expressions=keys + means), main)
     results = {key: ctx.checked(value) for key, value in results.items()}
     marker = [s.alias(s.agg_count_star(), "_uv_rows")] if adaptive else []
-    rows = source.rows(source.key_projections() + [s.alias(e, n) for n, e in ctx.terms.values()] + marker,
+    rows = source.rows(source.key_projections() + [s.named(e, n) for n, e in ctx.terms.values()] + marker,
                        ctx.valid_condition(), group_by=[k.copy() for k in source.keys] or None,
                        join=join_on_keys(source.keys, mean_name))
     return ctes + [cte(mean, mean_name), cte(rows, name)], results
@@ -107,14 +107,15 @@ def _one_pass(plan, main: MainAggregate, name: str, keys: list[exp.Expression], 
     one_select = _from_main(exp.Select(expressions=[k.copy() for k in keys] + [m.copy() for m in means] + columns),
                             main)
     mean = exp.Select(expressions=[k.copy() for k in keys] + [s.col(m.alias) for m in means]
-                      ).from_(table(one_name)).where(need)
+                      ).from_(table(one_name), copy=False).where(need, copy=False)
     return cte(one_select, one_name), mean
 
 
 def _from_main(select: exp.Select, main: MainAggregate) -> exp.Select:
     """``select`` FROM the main aggregate, whose columns it reads unqualified."""
-    select = select.from_(table(main.name))
-    return select.transform(lambda n: s.col(n.name) if isinstance(n, exp.Column) and n.table == main.name else n)
+    select = select.from_(table(main.name), copy=False)
+    return select.transform(lambda n: s.col(n.name) if isinstance(n, exp.Column) and n.table == main.name else n,
+                            copy=False)
 
 
 def _needs_centring(value: exp.Expression, bound: exp.Expression) -> exp.Expression:

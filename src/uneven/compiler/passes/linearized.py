@@ -187,7 +187,7 @@ def lower_linearized_pass(source: Source, main, plan, name: str) -> tuple[list[e
         if role is None:
             value = e
         elif coefs is None:
-            value = output(role, e, exp.Cast(this=exp.Null(), to=s.DOUBLE), 0.95)
+            value = output(role, e, exp.Cast(this=exp.Null(), to=s.DOUBLE.copy()), 0.95)
         else:
             variances.append(s.alias(variance({j: s.col(f"_uv_c{i}_{j}") for j in coefs}, K), f"_uv_v{i}"))
             v = s.col(f"_uv_v{i}")

@@ -38,7 +38,8 @@ class MainAggregate:
         return s.col(self.columns[key][0], self.name)
 
     def lower(self, source: Source) -> exp.CTE:
-        proj = source.key_projections() + [s.alias(e, n) for n, e in self.columns.values()]
+        # each sum's tree is placed here once (the dict keeps it only as its key, for lookups)
+        proj = source.key_projections() + [s.named(e, n) for n, e in self.columns.values()]
         if not proj:
             proj = [s.alias(s.agg_count_star(), "_uv_n")]
         rows = source.rows(proj, group_by=[k.copy() for k in source.keys] or None)

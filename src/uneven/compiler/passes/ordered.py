@@ -127,7 +127,7 @@ def tie_rows(keys: list[exp.Expression], weighted: bool, with_count: bool, below
     total = s.agg_sum(s.col("_uv_w")) if weighted else s.cast_double(s.agg_count_star())
     cols = [s.alias(total, "_uv_w")] + ([s.alias(s.agg_count_star(), "_uv_n")] if with_count else [])
     group = [k.copy() for k in keys] + [s.col("_uv_x")]
-    out = exp.Select(expressions=[k.copy() for k in group] + cols).from_(table(below))
+    out = exp.Select(expressions=[k.copy() for k in group] + cols).from_(table(below), copy=False)
     out.set("group", exp.Group(expressions=group))
     return out
 
@@ -140,11 +140,11 @@ def lower_ordered_pass(source: Source, main, plan, name: str) -> tuple[list[exp.
     out_cols, results = build_results(calls, ctx, name)
 
     xd = s.cast_double(x.copy())
-    proj = source.key_projections() + [s.alias(checked_value(x, weight_label(x), source.keys), "_uv_x")]
+    proj = source.key_projections() + [s.named(checked_value(x, weight_label(x), source.keys), "_uv_x")]
     cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
     if w is not None:
         cw = checked_weight(w, weight_label(w), source.keys)
-        proj.append(s.alias(cw, "_uv_w"))
+        proj.append(s.named(cw, "_uv_w"))
         cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
     rows = source.rows(proj, cond)
 
@@ -156,7 +156,7 @@ def lower_ordered_pass(source: Source, main, plan, name: str) -> tuple[list[exp.
     if ties:
         ctes.append(cte(tie_rows(keys, w is not None, "n" in ctx.used, f"{name}_rows"), f"{name}_ties"))
     win = exp.Select(expressions=[k.copy() for k in base_cols] + _window_columns(ctx, keys, minimum)).from_(
-        table(f"{name}_ties" if ties else f"{name}_rows"))
+        table(f"{name}_ties" if ties else f"{name}_rows"), copy=False)
     ctes += window_ctes(win, ctx, keys, name)  # + the relative poverty line's layers (line.py)
     if out_cols:
         ctes.append(cte(grouped(keys, out_cols, f"{name}_win"), name))

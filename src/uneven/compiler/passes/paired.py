@@ -32,7 +32,7 @@ class PairedContext:
         return s.agg_count_star()
 
     def _defined(self):
-        return s.and_(s.gt(s.agg_min(s.col("_uv_tx")), ZERO), s.gt(s.agg_min(s.col("_uv_ty")), ZERO))
+        return s.and_(s.gt(s.agg_min(s.col("_uv_tx")), s.lit(0.0)), s.gt(s.agg_min(s.col("_uv_ty")), s.lit(0.0)))
 
     def gini(self, v: str) -> exp.Expression:
         return s.agg_min(s.col(f"_uv_g{v}"))
@@ -46,7 +46,7 @@ class PairedContext:
         u = s.col("_uv_u")
         n = s.cast_double(self.n)
         centred = s.sub(s.agg_sum(s.mul(u, u)), s.div(s.mul(s.agg_sum(u.copy()), s.agg_sum(u.copy())), n))
-        var = s.mul(s.div(n.copy(), s.sub(n.copy(), s.lit(1.0))), s.greatest(ZERO, centred))
+        var = s.mul(s.div(n.copy(), s.sub(n.copy(), s.lit(1.0))), s.greatest(s.lit(0.0), centred))
         return s.case(s.and_(self._defined(), s.gt(self.n, s.lit(1))), s.sqrt(var))
 
 
@@ -65,7 +65,7 @@ def lower_paired_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
     if w is not None:
         cw = checked_weight(w, weight_label(w))
         proj.append(s.alias(cw, "_uv_w"))
-        cond = s.and_(cond, s.gt(cw.copy(), ZERO))
+        cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
     rows = source.rows(proj, cond)
     keys = source.key_columns()
     wv = s.col("_uv_w") if w is not None else s.lit(1.0)
@@ -94,12 +94,12 @@ def lower_paired_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
     gini_cols = []
     for v in ("x", "y"):
         T, val = s.col(f"_uv_t{v}"), s.col(f"_uv_{v}")
-        G = s.case(s.gt(T, ZERO), s.div(s.col(f"_uv_a{v}"), s.mul(s.mul(s.lit(2.0), W.copy()), T.copy())))
+        G = s.case(s.gt(T, s.lit(0.0)), s.div(s.col(f"_uv_a{v}"), s.mul(s.mul(s.lit(2.0), W.copy()), T.copy())))
         gini_cols.append(s.alias(G, f"_uv_g{v}"))
         z[v] = s.sub(s.div(s.col(f"_uv_d{v}"), s.mul(W.copy(), T.copy())),
                      s.mul(G.copy(), s.add(s.div(s.lit(1.0), W.copy()), s.div(val.copy(), T.copy()))))
     u = s.mul(wv.copy(), s.sub(z["x"], z["y"]))
-    both = s.and_(s.gt(s.col("_uv_tx"), ZERO), s.gt(s.col("_uv_ty"), ZERO))
+    both = s.and_(s.gt(s.col("_uv_tx"), s.lit(0.0)), s.gt(s.col("_uv_ty"), s.lit(0.0)))
     lin_u = exp.Select(expressions=[k.copy() for k in keys] + [s.col("_uv_tx"), s.col("_uv_ty")] + gini_cols
                        + [s.alias(s.case(both, u), "_uv_u")]).from_(table(f"{name}_lin"))
     ctes = [cte(rows, f"{name}_rows"), cte(win, f"{name}_win"), cte(lin, f"{name}_lin"),

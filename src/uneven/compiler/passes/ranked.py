@@ -100,6 +100,6 @@ def lower_ranked_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
     wg = ctx.Wg.name
     running = s.window(s.agg_sum(s.col(wg)), [k.copy() for k in keys], [s.col("_uv_v0")], running=True)
     win = exp.Select(expressions=[k.copy() for k in keys] + [s.col(n) for n, _ in ctx.sums.values()]
-                     + [s.alias(running, "_uv_c")]).from_(table(f"{name}_rows"))
+                     + [s.alias(running, "_uv_c")]).from_(table(f"{name}_rows"), copy=False)
     ctes = [cte(ties, f"{name}_rows"), cte(win, f"{name}_win"), cte(grouped(keys, out_cols, f"{name}_win"), name)]
     return ctes, results

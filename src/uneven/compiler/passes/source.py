@@ -19,7 +19,7 @@ class Source:
     keys: list[exp.Expression]  # resolved GROUP BY expressions, in order
 
     def key_projections(self) -> list[exp.Expression]:
-        return [s.alias(k.copy(), key_name(i)) for i, k in enumerate(self.keys)]
+        return [s.named(k.copy(), key_name(i)) for i, k in enumerate(self.keys)]
 
     def key_columns(self, table: str | None = None) -> list[exp.Column]:
         return [s.col(key_name(i), table) for i in range(len(self.keys))]
@@ -133,14 +133,14 @@ def build_results(calls: list, ctx, name: str) -> tuple[list[exp.Expression], di
             results[call.key] = built  # already a column of a CTE of its own (e.g. a Lorenz grid)
             continue
         column = f"_uv_r{len(columns) + 1}"
-        columns.append(s.alias(built, column))
+        columns.append(s.named(built, column))  # built for this column alone
         results[call.key] = s.col(column, name)
     return columns, results
 
 
 def grouped(keys: list[exp.Expression], columns: list[exp.Expression], below: str) -> exp.Select:
     """SELECT keys, columns FROM below GROUP BY keys (no GROUP BY without keys: one row)."""
-    out = exp.Select(expressions=[k.copy() for k in keys] + columns).from_(table(below))
+    out = exp.Select(expressions=[k.copy() for k in keys] + columns).from_(table(below), copy=False)
     if keys:
         out.set("group", exp.Group(expressions=[k.copy() for k in keys]))
     return out
