@@ -123,10 +123,6 @@ def test_bounded_se_and_bootstrap_on_the_engine(engine, data):
 
 
 def test_bootstrap_without_a_key_on_the_engine(engine, data):
-    if engine.name == "spark":
-        # the bootstrap numbers identical rows with ROW_NUMBER() OVER (PARTITION BY keys, x, w) and no
-        # ORDER BY (compiler/passes/bootstrap.py); Spark 4 refuses a row_number without an order
-        pytest.xfail("Spark: WINDOW_FUNCTION_FRAME_NOT_ORDERED in the bootstrap's duplicate numbering")
     sql = "SELECT gini_boot_se(x, w, replicates := 50, seed := 3) AS b FROM t WHERE grp = 'g0'"
     first, again = uneven.query(sql, engine.con)["b"].iloc[0], uneven.query(sql, engine.con)["b"].iloc[0]
     # the engine's own hash draws the replicates (test_bootstrap_engines compares them with the

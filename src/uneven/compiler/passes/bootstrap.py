@@ -90,9 +90,11 @@ def lower_bootstrap_pass(source: Source, main, plan, name: str) -> tuple[list[ex
         proj.append(s.alias(unit.copy(), "_uv_b"))
     else:
         # no key: identical rows are numbered within (keys, x, w), so a row's draw depends on its
-        # values and its place among its duplicates only (one extra partitioning of the rows)
+        # values and its place among its duplicates only (one extra partitioning of the rows); the
+        # ORDER BY names the value, constant within a partition, since Spark refuses a row_number
+        # without one
         part = [k.copy() for k in source.keys] + [x.copy()] + ([w.copy()] if w is not None else [])
-        proj.append(s.alias(s.window(exp.RowNumber(), part), "_uv_dup"))
+        proj.append(s.alias(s.window(exp.RowNumber(), part, [x.copy()]), "_uv_dup"))
     ctes = [cte(source.rows(proj, cond), f"{name}_rows")]
     keys = source.key_columns()
     w0 = s.col("_uv_w0") if weighted else s.lit(1.0)
