@@ -392,6 +392,8 @@ def atkinson(x, eps, w=None) -> float | None:
         return None
     if eps >= 1 and np.any(r.x <= 0):
         return None
+    if eps == 0.0:
+        return 0.0  # 1 − μ/μ, exactly (Atkinson's definition at ε = 0)
     d = _deviations(r)
     if eps == 1.0:
         m = _weighted_mean(r, _mld_terms(*d))

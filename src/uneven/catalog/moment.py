@@ -193,6 +193,8 @@ def build_ge(ctx, params):
 
 def build_atkinson(ctx, params):
     (eps,) = params
+    if eps == 0:  # 1 − μ/μ: exactly 0 wherever defined (no rounding of μ/μ or of its series)
+        return s.case(_nonneg(ctx), s.lit(0.0))
     if not _row_mean(ctx):  # 1 − (Σ w x^(1−ε) / W)^(1/(1−ε)) / μ; ε = 1: 1 − exp(Σ w ln x / W) / μ
         domain = _nonneg(ctx) if eps < 1 else _positive(ctx)
         if eps == 1:
