@@ -216,9 +216,11 @@ def test_a_volatile_parameter_stops_the_macro_naming_it(con, measure):
     c, _ = con
     for i, p in enumerate(measure.params):
         args = _args(measure, i)
-        for sql in (f"SELECT grp, {measure.name}(x, {args}) FROM t GROUP BY grp",
-                    f"SELECT {measure.name}(x, {args}) FROM t WHERE grp = 'g1'",
-                    f"SELECT * FROM {measure.name}_by('t', 'x', {args}, NULL, ['grp'])"):
+        aggregate = (f"SELECT grp, {measure.name}(x, {args}) FROM t GROUP BY grp",
+                     f"SELECT {measure.name}(x, {args}) FROM t WHERE grp = 'g1'")
+        # the relative poverty lines have the table form only (install.has_aggregate_macro)
+        for sql in (aggregate if has_aggregate_macro(measure) else ()) + (
+                f"SELECT * FROM {measure.name}_by('t', 'x', {args}, NULL, ['grp'])",):
             with pytest.raises(duckdb.Error) as err:
                 c.execute(sql).fetchall()
             assert f"{measure.name}(): {p.name} must be a numeric constant" in str(err.value), sql
