@@ -151,6 +151,9 @@ class SparkEngine(DuckDBEngine):
                 .config("spark.ui.enabled", "false").config("spark.ui.showConsoleProgress", "false")
                 .config("spark.driver.memory", "1g")
                 .config("spark.sql.session.timeZone", "UTC").config("spark.local.dir", str(SparkEngine.folder))
+                # managed tables (stored summaries) under the run's own folder, not ./spark-warehouse,
+                # where a table left by an interrupted run would refuse the next CREATE
+                .config("spark.sql.warehouse.dir", str(SparkEngine.folder / "warehouse"))
                 .config("spark.driver.extraJavaOptions", "-XX:+UseSerialGC")
                 .getOrCreate())
             SparkEngine.session.sparkContext.setLogLevel("FATAL")  # the tests raise errors on purpose
