@@ -39,8 +39,9 @@ def duckdb_source_columns(con: duckdb.DuckDBPyConnection):
     return columns
 
 
-def _probe(select: exp.Select, projections: list[exp.Expression]) -> exp.Select | None:
-    """SELECT projections FROM <select's FROM, joins, laterals, WITH> LIMIT 0 (None without FROM)."""
+def probe_select(select: exp.Select, projections: list[exp.Expression], limit: bool = True) -> exp.Select | None:
+    """SELECT projections FROM <select's FROM, joins, laterals, WITH> [LIMIT 0] (None without FROM);
+    the column and type probes of every engine (engine/adapters) build on it."""
     probe = exp.Select(expressions=projections)
     for arg in ("from_", "joins", "laterals", "with_"):
         value = select.args.get(arg)
@@ -48,7 +49,8 @@ def _probe(select: exp.Select, projections: list[exp.Expression]) -> exp.Select 
             probe.set(arg, [v.copy() for v in value] if isinstance(value, list) else value.copy())
     if probe.args.get("from_") is None:
         return None
-    probe.set("limit", exp.Limit(expression=exp.Literal.number(0)))
+    if limit:
+        probe.set("limit", exp.Limit(expression=exp.Literal.number(0)))
     return probe
 
 
@@ -59,7 +61,7 @@ def duckdb_expression_types(con: duckdb.DuckDBPyConnection):
     def types(select: exp.Select, exprs: list[exp.Expression]) -> list[str] | None:
         if not exprs:
             return []
-        probe = _probe(select, [exp.alias_(e.copy(), f"_uv_p{i + 1}", quoted=True) for i, e in enumerate(exprs)])
+        probe = probe_select(select, [exp.alias_(e.copy(), f"_uv_p{i + 1}", quoted=True) for i, e in enumerate(exprs)])
         if probe is None:
             probe = exp.Select(expressions=[exp.alias_(e.copy(), f"_uv_p{i + 1}", quoted=True)
                                             for i, e in enumerate(exprs)])

@@ -24,6 +24,7 @@ import numpy as np
 import pandas as pd
 from sqlglot import exp
 
+from uneven.engine.columns import probe_select
 from uneven.engine.runner import translate_error
 
 # DuckDB's names for the numeric types the compiler's type check accepts (compiler/types.py)
@@ -150,20 +151,6 @@ def quoted_table(name: str) -> exp.Table:
 
 def drop_table(table: exp.Table) -> exp.Drop:
     return exp.Drop(tables=[table], kind="TABLE", exists=True)
-
-
-def probe_select(select: exp.Select, projections: list[exp.Expression], limit: bool = True) -> exp.Select | None:
-    """SELECT projections FROM <select's FROM, joins, laterals, WITH> [LIMIT 0] (None without FROM)."""
-    probe = exp.Select(expressions=projections)
-    for arg in ("from_", "joins", "laterals", "with_"):
-        value = select.args.get(arg)
-        if value:
-            probe.set(arg, [v.copy() for v in value] if isinstance(value, list) else value.copy())
-    if probe.args.get("from_") is None:
-        return None
-    if limit:
-        probe.set("limit", exp.Limit(expression=exp.Literal.number(0)))
-    return probe
 
 
 # --- results typed as DuckDB types them ---------------------------------------------------------

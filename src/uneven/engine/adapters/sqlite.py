@@ -11,7 +11,8 @@ import pandas as pd
 
 from sqlglot import exp
 
-from uneven.engine.adapters.base import Adapter, NUMERIC, TEXT, drop_table, probe_select, quoted_table
+from uneven.engine.adapters.base import Adapter, NUMERIC, TEXT, drop_table, quoted_table
+from uneven.engine.columns import probe_select
 from uneven.engine.sqlite import install_sqlite_functions, raised_message
 
 _TYPES = {"f": "REAL", "i": "INTEGER", "u": "INTEGER", "b": "INTEGER"}
