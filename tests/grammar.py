@@ -323,8 +323,10 @@ class Grammar:
         if self.chance(0.25):
             with self.row_level():
                 m = f"{m} FILTER (WHERE {self.cond('t', dim, 2)})"
-        # thresholds avoid round values a measure can equal exactly (0.3 vs 0.30000000000000004)
-        form = self.pick(["{m}", "{m}", "{m}", "round({m}, 6)", "{m} * 100", "coalesce({m}, -1)", "-{m}",
+        # thresholds avoid round values a measure can equal exactly (0.3 vs 0.30000000000000004); the
+        # rounding is shifted off the halfway points that exact rationals hit (1/128 = 0.0078125 rounds
+        # up or down at 6 digits depending on the last bit)
+        form = self.pick(["{m}", "{m}", "{m}", "round({m} + 0.0000003137, 6)", "{m} * 100", "coalesce({m}, -1)", "-{m}",
                           "CASE WHEN {m} > 0.3137 THEN 1 ELSE 0 END", "{m} + 1"])
         return form.format(m=m)
 
