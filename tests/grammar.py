@@ -382,12 +382,12 @@ class Grammar:
             if self.chance(0.15):
                 # ranks order rounded values: groups whose measures tie exactly in arithmetic (e.g. the
                 # same mix of values) differ in the last bits between engines, and so would their ranks
-                shape.items.append(self.pick([f"rank() OVER (ORDER BY round({measures[0]}, 6) NULLS LAST)",
+                shape.items.append(self.pick([f"rank() OVER (ORDER BY round({measures[0]} + 0.0000003137, 6) NULLS LAST)",
                                               "sum(count(*)) OVER ()",
-                                              f"rank() OVER (ORDER BY round({measures[-1]}, 6) DESC NULLS LAST)"]))
+                                              f"rank() OVER (ORDER BY round({measures[-1]} + 0.0000003137, 6) DESC NULLS LAST)"]))
             elif self.chance(0.15):
                 shape.outer_window = self.pick(["q.m0 - avg(q.m0) OVER ()", "max(q.m0) OVER ()",
-                                                "rank() OVER (ORDER BY round(q.m0, 6) NULLS LAST)",
+                                                "rank() OVER (ORDER BY round(q.m0 + 0.0000003137, 6) NULLS LAST)",
                                                 "count(q.m0) OVER ()"])
         if "limit" in self.features and self.chance(0.15):
             shape.limit = self.pick([1, 3])
@@ -396,8 +396,10 @@ class Grammar:
     def having(self, measures: list[str], dim: bool) -> str:
         def atom():
             m = self.pick(measures + [self.measure(dim)])
-            return self.pick(["count(*) > 3", f"{m} IS NOT NULL", f"{m} > 0.2", f"NOT {m} < 0", f"{m} IS NULL",
-                              f"{m} BETWEEN 0 AND 0.5", "sum(t.weight) > 1000"])
+            # bounds off the round values an exact rational measure can equal (a Palma of 1/2 comes out
+            # as 0.5 on one side and 0.5000000000000001 on the other); 0 stays: exact zeros are exact
+            return self.pick(["count(*) > 3", f"{m} IS NOT NULL", f"{m} > 0.2137", f"NOT {m} < 0", f"{m} IS NULL",
+                              f"{m} BETWEEN 0 AND 0.5137", "sum(t.weight) > 1000"])
         a = atom()
         if self.chance(0.5):
             a = f"{a} {self.pick(['AND', 'OR'])} {atom()}"
