@@ -314,6 +314,10 @@ def _power_terms(d: np.ndarray, log_r: np.ndarray, a: float) -> np.ndarray:
     return out
 
 
+# the centred terms, public for the standard-error reference (reference_se: the scores in r = x/μ)
+theil_terms, mld_terms, power_terms = _theil_terms, _mld_terms, _power_terms
+
+
 def _deviations(r: _Rows) -> tuple[np.ndarray, np.ndarray]:
     """d = (x − μ)/μ (from x − μ: exact near the mean), on the scaled values, and ln r = ln x − ln μ
     (−inf where x = 0; r = x/μ itself may underflow when x is far below the mean)."""

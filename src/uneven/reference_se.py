@@ -101,41 +101,46 @@ def _ratio(a, b):
 
 
 def _moment(name, x, params, w):
+    """Scores of the log and power measures in r = x/μ and d = r − 1 = (x − μ)/μ, through the
+    reference's centred terms (each of the order of d², no cancellation: reference.py):
+        Theil z = [g − Th·d − Th]/W, MLD z = [h − M]/W, GE(α) z = [p − P − α P d]/(W α(α−1)),
+        Atkinson z = −E/(W(1 + P))·[(p_β − P)/β − P d] (β = 1 − ε, E = 1 − A), ε = 1: E (h − M)/W,
+    with g, h, p the Theil, MLD and power terms and P their weighted mean (P = α(α−1)·GE). These
+    are the textbook scores (e.g. Theil: [x ln x − (A/T + 1) x]/T + 1/W, A = Σ w x ln x) with
+    x = μ r substituted (docs/uncertainty.md); in x itself the terms of order 1 cancel to d²."""
     x = np.asarray(x, dtype=np.float64)
     w = np.ones_like(x) if w is None else np.asarray(w, dtype=np.float64)
-    W, T = w.sum(), (w * x).sum()
-    pos = x > 0
-    lnx = np.where(pos, np.log(np.where(pos, x, 1.0)), 0.0)
+    W = math.fsum(w)
+    mu = math.fsum(w * x) / W
     if name == "ge" and params[0] in (0.0, 1.0):
         name = "mld" if params[0] == 0.0 else "theil"
+    est = {"theil": lambda: R.theil(x, w), "mld": lambda: R.mld(x, w), "ge": lambda: R.ge(x, params[0], w),
+           "atkinson": lambda: R.atkinson(x, params[0], w)}[name]()
+    if est is None or not mu > 0:
+        return est, None
+    d = (x - mu) / mu
+    with np.errstate(divide="ignore", invalid="ignore"):
+        log_r = np.log(x) - math.log(mu)  # −inf at x = 0 (the terms take their r = 0 values there)
     if name == "theil":
-        A = (w * x * lnx).sum()
-        return R.theil(x, w), (x * lnx - (A / T + 1) * x) / T + 1 / W
+        return est, (R.theil_terms(d, log_r) - est * d - est) / W
     if name == "mld":
-        Lg = (w * lnx).sum()
-        return R.mld(x, w), x / T - 1 / W - lnx / W + Lg / W ** 2
+        return est, (R.mld_terms(d, log_r) - est) / W
     if name == "ge":
         a = params[0]
-        xa = np.zeros_like(x)
-        xa[pos] = x[pos] ** a
-        V = (w * xa).sum()
-        Rm = (V / W) / (T / W) ** a
-        return R.ge(x, a, w), (xa * Rm / V + (a - 1) * Rm / W - a * Rm * x / T) / (a * (a - 1))
+        P = a * (a - 1) * est
+        return est, (R.power_terms(d, log_r, a) - P - a * P * d) / (W * a * (a - 1))
     if name == "atkinson":
         eps = params[0]
+        if eps == 0:
+            return est, np.zeros_like(x)  # A = 0 wherever defined
+        E = 1.0 - est
         if eps == 1:
-            Lg = (w * lnx).sum()
-            E = math.exp(Lg / W)
-            dE = E * (lnx / W - Lg / W ** 2)
-        else:
-            b = 1 - eps
-            xb = np.zeros_like(x)
-            xb[pos] = x[pos] ** b
-            V = (w * xb).sum()
-            E = (V / W) ** (1 / b)
-            dE = E / b * (xb / V - 1 / W)
-        # A = 1 − E W / T
-        return R.atkinson(x, eps, w), -(dE * W / T + E / T - E * W * x / T ** 2)
+            h = R.mld_terms(d, log_r)
+            return est, E * (h - math.fsum(w * h) / W) / W
+        b = 1.0 - eps
+        p = R.power_terms(d, log_r, b)
+        P = math.fsum(w * p) / W
+        return est, -E / (W * (1.0 + P)) * ((p - P) / b - P * d)
     raise KeyError(name)
 
 

@@ -112,6 +112,7 @@ def output(role: str, estimate: exp.Expression, se: exp.Expression, level: float
 def lower_linearized_pass(source: Source, main, plan, name: str) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:
     """CTEs of one linearized pass and, for each call key, the column holding its result."""
     ctx = RowContext(weighted=plan.trailing is not None, name=name)
+    ctx.row_mean = True  # log and power measures and their scores in r = x/μ (catalog/linearize.py)
     strata, psu = plan.options.get("strata"), plan.options.get("psu")
     aggs, terms = Aggregates(), Terms()
     specs = []

@@ -43,6 +43,22 @@ class RowContext(SortedColumns):
         self.used.add("nt")
         return s.col("_uv_nt")
 
+    # the group mean at row level, for contexts that set ``row_mean`` (the linearized pass): the log
+    # and power measures and their scores then take their forms in r = x/μ (catalog/moment.py)
+    row_mean = False
+
+    @property
+    def mu(self):
+        """μ = T/W of the group on every row, NULL where T ≤ 0 (no engine divides by 0)."""
+        self.used.add("mu")
+        return s.col("_uv_mup")
+
+    mu_divisor = mu
+
+    @property
+    def r(self):
+        return s.div(self.x, self.mu_divisor)
+
     def lorenz_grid(self, k: int):
         raise MeasureUsageError("lorenz_curve has no standard error or bootstrap form")
 
@@ -88,6 +104,10 @@ def window_columns(ctx: RowContext, keys: list[exp.Expression]) -> list[exp.Expr
         total = (s.window(s.agg_sum(w.copy()), part()) if ctx.weighted
                  else s.cast_double(s.window(s.agg_count_star(), part())))
         cols.append(s.alias(total, "_uv_wt"))
+    if "mu" in ctx.used:  # Σw·x / Σw over the partition, where Σw·x > 0
+        total = s.window(s.agg_sum(s.mul(w.copy(), x.copy())), part())
+        weight = s.window(s.agg_sum(w.copy()), part()) if ctx.weighted else s.cast_double(s.window(s.agg_count_star(), part()))
+        cols.append(s.alias(s.case(s.gt(total, s.lit(0.0)), s.div(total.copy(), weight)), "_uv_mup"))
     if "nt" in ctx.used:
         counted = getattr(ctx, "count_of", None)  # rows to count (bootstrap: those drawn), else all
         count = exp.Count(this=counted.copy()) if counted is not None else s.agg_count_star()
