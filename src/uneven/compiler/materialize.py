@@ -35,8 +35,8 @@ def materialize_scope(select: exp.Select, ctx: CompileContext) -> bool:
     if reason is None:
         return False
     if ctx.dialect not in clauses.MATERIALIZING:
-        raise ctx.error(UnsupportedSqlError, f"the rows of this query are random or volatile ({text(reason)}) and "
-                        f"must be evaluated once for every measure, which {ctx.dialect} cannot promise (it may "
+        raise ctx.error(UnsupportedSqlError, f"the rows of this query must be read once for every measure "
+                        f"({why_read_once(reason)}: {text(reason)}), which {ctx.dialect} cannot promise (it may "
                         "evaluate a CTE again for each use); compile for "
                         f"{', '.join(clauses.MATERIALIZING)}, or store the rows in a table first", reason)
     name = ctx.name("src")

@@ -1,8 +1,9 @@
 """Functions whose value changes from one evaluation to the next (or that change state): a source
 that calls one is read once (compiler/materialize.py), and a parameter that calls one is no constant
 (constants.py). Also the constructs whose value depends on the order the engine happens to read
-rows in (``is_order_dependent``): numbering rows without ORDER BY, ``any_value``, ``first``/``last``
-and list or string aggregates without ORDER BY; two reads of a source using one may differ."""
+rows in (``is_order_dependent``): numbering rows or reading neighbours (with or without ORDER BY:
+ties), ROWS frames, ``any_value``, ``first``/``last`` and list or string aggregates without ORDER BY;
+two reads of a source using one may differ."""
 
 from __future__ import annotations
 
@@ -40,12 +41,13 @@ def _unwrapped(node: exp.Expression) -> exp.Expression:
 
 def is_order_dependent(node: exp.Expression) -> bool:
     """A window or aggregate whose value depends on the order rows are read in: a numbering or
-    neighbour window, or an aggregate window over a ROWS frame, without ORDER BY; ``any_value``;
+    neighbour window, or an aggregate window over a ROWS frame (an ORDER BY may tie); ``any_value``;
     ``first``/``last``, ``list``/``array_agg``/``string_agg``/``group_concat`` without an ORDER BY
     of their own (inside the call, WITHIN GROUP, or a sort of the list around it)."""
     if isinstance(node, exp.Window):
-        if node.args.get("order") is not None:
-            return False
+        # with or without ORDER BY: rows tied on the ORDER BY (which the query text cannot rule out)
+        # are numbered, or read as neighbours, in an order the engine picks on each read;
+        # rank()/dense_rank() and RANGE frames give tied rows one value, so they stay deterministic
         spec = node.args.get("spec")
         return isinstance(_unwrapped(node.this), NUMBERING_CLASSES) or (
             spec is not None and str(spec.args.get("kind") or "").upper() == "ROWS")
