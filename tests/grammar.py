@@ -371,7 +371,9 @@ class Grammar:
         if self.chance(0.4):
             items.append(self.aggregate(dim))
         if len(measures) > 1 and self.chance(0.2):
-            items.append(f"{measures[0]} - {measures[1]}")
+            # a sum of magnitudes: a difference of two measures of 1e5 that nearly cancel keeps their
+            # absolute rounding (1e-11), which no relative tolerance on the result can judge
+            items.append(f"abs({measures[0]}) + abs({measures[1]})")
         shape = Shape(src, keys, items, measures)
         if self.chance(0.6):
             shape.where = self.cond("t", dim, 3)
@@ -386,7 +388,7 @@ class Grammar:
                                               "sum(count(*)) OVER ()",
                                               f"rank() OVER (ORDER BY round({measures[-1]} + 0.0000003137, 6) DESC NULLS LAST)"]))
             elif self.chance(0.15):
-                shape.outer_window = self.pick(["q.m0 - avg(q.m0) OVER ()", "max(q.m0) OVER ()",
+                shape.outer_window = self.pick(["abs(q.m0) + avg(abs(q.m0)) OVER ()", "max(q.m0) OVER ()",
                                                 "rank() OVER (ORDER BY round(q.m0 + 0.0000003137, 6) NULLS LAST)",
                                                 "count(q.m0) OVER ()"])
         if "limit" in self.features and self.chance(0.15):
