@@ -43,6 +43,11 @@ PARAMS = {
     "alpha": ["0", "1", "2", "-1", "0.5", "1 + 1", "CAST(2 AS DOUBLE)", "-0.5"],
     "eps": ["0", "0.5", "1", "2", "1.5", "0.25 + 0.25", "CAST(1 AS DOUBLE)"],
     "count": ["1", "2", "3", "1 + 1"],
+    # poverty lines: a fraction of the median in (0, 1], a poverty aversion of 0, 1 or 2, an absolute
+    # line above 0 (on the scale of the values: 42.5 is a tied value of ``rough``, below_* is strict)
+    "frac": ["0.6", "0.5", "0.4", "0.5 + 0.1", "CAST(0.6 AS DOUBLE)", "(0.7)", "1.2 / 2", "1"],
+    "povalpha": ["0", "1", "2", "1 + 1", "CAST(2 AS DOUBLE)", "0.0", "2 - 1"],
+    "line": ["15000", "25000.5", "42.5", "3", "1e4", "2000 + 500", "CAST(30000 AS DOUBLE)", "0.5 * 40000"],
 }
 # forms whose value depends on how constants are folded (integer division, casts to INTEGER), drawn by
 # default: compiled SQL and oracle agree on them since constants are evaluated the engine's way
@@ -51,6 +56,9 @@ WIDE_PARAMS = {
     "alpha": ["CAST(1.6 AS INTEGER)", "4/2"],
     "eps": ["CAST(0.6 AS INTEGER)", "3/2"],
     "count": ["CAST(2.4 AS INTEGER)", "4/2"],
+    "frac": ["3/5", "CAST(1.4 AS INTEGER)"],
+    "povalpha": ["CAST(1.6 AS INTEGER)", "4/2", "CAST(0.4 AS INTEGER)"],
+    "line": ["CAST(25000.6 AS INTEGER)", "50000/4"],
 }
 # (name, parameter kinds, trailing argument: weight / entity)
 MEASURES = [
@@ -61,6 +69,9 @@ MEASURES = [
     ("theil", [], "weight"), ("mld", [], "weight"), ("ge", ["alpha"], "weight"),
     ("atkinson", ["eps"], "weight"), ("cv", [], "weight"), ("hoover", [], "weight"),
     ("hhi", [], "entity"), ("cr", ["count"], "entity"),
+    ("below_line_share", ["frac"], "weight"), ("median_gap", ["frac"], "weight"),
+    ("fgt_relative", ["povalpha", "frac"], "weight"), ("fgt", ["povalpha", "line"], "weight"),
+    ("wolfson", [], "weight"),
 ]
 # standard errors, on with se_measures (UNEVEN_FUZZ_SE=1). Off by default for a known difference:
 # the reference raises (TypeError) instead of giving NULL where the Gini is undefined (all weights 0,

@@ -32,6 +32,8 @@ from sqlglot import exp
 
 from uneven.compare_groups import _levels
 from uneven.compiler import sqlx as s
+from uneven.compiler.emit import to_sql
+from uneven.engine.adapters import adapt, is_duckdb
 from uneven.errors import MeasureArgumentError
 from uneven.structure import _parse, _Spec, session
 
@@ -118,8 +120,14 @@ def lorenz_dominance(relation: str, x: str, group: str, groups, *, weight: str |
     sel.expressions.append(s.alias(gv.copy(), "_uv_grp"))
     where = exp.In(this=gv.copy(), expressions=[exp.convert(v) for v in levels])
     sel.set("where", exp.Where(this=s.and_(sel.args["where"].this, where)))
-    with session(spec, con, frame or inspect.currentframe().f_back) as run:
-        res = run(sel)
+    caller = frame or inspect.currentframe().f_back
+    if is_duckdb(con):
+        with session(spec, con, caller) as run:
+            res = run(sel)
+    else:  # PostgreSQL, Spark, SQLite (engine/adapters): the ordinates and SEs compiled for that engine
+        from uneven.api import run_on
+        res = run_on(adapt(con), to_sql(sel), caller, strict=False, tie_grouping="auto", method="exact",
+                     resolution=None, tolerance=None, read="duckdb")
     side = {str(v): i for i, v in enumerate(levels)}
     found = {side.get(str(v)): r for v, (_, r) in zip(res["_uv_grp"], res.iterrows())}
     missing = [levels[i] for i in (0, 1) if i not in found]

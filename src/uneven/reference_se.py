@@ -88,8 +88,9 @@ def _quantile(x, p, w):
     f = density_at_quantile(x, p, w)
     if f is None:
         return R.quantile_w(x, p, w), None
-    below = (C <= p * W).astype(float)
-    return R.quantile_w(x, p, w), _unsort((p - below) / (W * f), o)
+    Q = R.quantile_w(x, p, w)
+    below = (xs <= Q).astype(float)  # by value: rows tied at Q_p count alike, whatever their order
+    return Q, _unsort((p - below) / (W * f), o)
 
 
 def _ratio(a, b):

@@ -1,7 +1,8 @@
 """``from_brackets`` and ``merge_brackets``: measures with bounds from bracket tables.
 
 The bracket table is read with one SELECT on DuckDB (any relation: a table, a file, a query, a
-DataFrame the caller holds); the bounds and the point estimate are computed in Python per group,
+DataFrame the caller holds) or on the engine ``con`` names (PostgreSQL, Spark, SQLite: through its
+adapter, engine/adapters; the rows come back whole); the bounds and the point estimate are computed in Python per group,
 because a group has tens of brackets, not millions of rows, and the point estimate solves per
 bracket (a density's shape, a Pareto index) and per measure (which bracket holds p).
 """
@@ -11,7 +12,6 @@ from __future__ import annotations
 import inspect
 import math
 
-import duckdb
 import pandas as pd
 import sqlglot
 from sqlglot import exp
@@ -23,7 +23,9 @@ from uneven.bounds.lower import join_overlaps
 from uneven.brackets.table import check_brackets
 from uneven.compiler import sqlx as s
 from uneven.compiler.emit import to_sql
-from uneven.engine.frames import register_caller_frames
+from uneven.compiler.pipeline import compile_sql
+from uneven.engine.adapters import adapt, is_duckdb
+from uneven.engine.frames import register_caller_frames, register_frames_on
 from uneven.engine.runner import connect, execute_df
 from uneven.errors import InputDataError, MeasureArgumentError, SqlParseError, UnevenError
 
@@ -135,21 +137,12 @@ def _read(relation, columns: dict, by, con, frame) -> tuple[pd.DataFrame, list[s
     select = exp.Select(expressions=items)
     frame_given = isinstance(relation, pd.DataFrame)
     select.set("from_", _relation(_FRAME if frame_given else relation))
-    connection = connect(con)
-    sql = to_sql(select)
-    if frame_given:  # a DataFrame passed itself (e.g. fetched from another engine): read under a reserved name
-        connection.register(_FRAME, relation)
-        registered = [_FRAME]
+    if not frame_given and not is_duckdb(con):
+        df = read_on_engine(adapt(con), select, frame)
     else:
-        registered = register_caller_frames(connection, sql, frame)
-    try:
-        df = execute_df(connection, sql)
-    finally:
-        for name in registered:
-            connection.unregister(name)
-        if con is None:
-            connection.close()
+        df = _read_duckdb(select, relation if frame_given else None, con, frame)
     for role in _COLUMNS:
+
         bad = df[f"_uv_nan_{role}"].fillna(False).astype(bool)
         if bad.any():
             i = int(bad.to_numpy().argmax())
@@ -157,6 +150,46 @@ def _read(relation, columns: dict, by, con, frame) -> tuple[pd.DataFrame, list[s
             raise InputDataError(f"from_brackets: the {role} column ({columns[role]}) holds NaN"
                                  f"{f' (group {where})' if where else ''}: a missing {role} is NULL, NaN is refused")
     return df, names
+
+
+def _read_duckdb(select: exp.Select, given: pd.DataFrame | None, con, frame) -> pd.DataFrame:
+    connection = connect(con if is_duckdb(con) else None)
+    sql = to_sql(select)
+    if given is not None:  # a DataFrame passed itself (e.g. fetched from another engine): read under a reserved name
+        connection.register(_FRAME, given)
+        registered = [_FRAME]
+    else:
+        registered = register_caller_frames(connection, sql, frame)
+    try:
+        return execute_df(connection, sql)
+    finally:
+        for name in registered:
+            connection.unregister(name)
+        if con is None or not is_duckdb(con):
+            connection.close()
+
+
+def read_on_engine(adapter, select: exp.Select, frame) -> pd.DataFrame:
+    """The bracket rows from another engine (engine/adapters): the same SELECT without the NaN flags,
+    generated for its dialect; the driver's values tell NULL (None) from NaN, so the flags are set here.
+    A bracket table is small: its rows come back whole and the measures are computed in numpy."""
+    plain = select.copy()
+    plain.set("expressions", [e for e in plain.expressions if not e.alias.startswith("_uv_nan_")])
+    sql = to_sql(plain)
+    registered = register_frames_on(adapter, sql, frame)
+    try:
+        names, rows, _ = adapter.fetch(compile_sql(sql, dialect=adapter.dialect, pretty=False))
+    except adapter.errors() as e:
+        raise adapter.translate(e) from None
+    finally:
+        for name in registered:
+            adapter.unregister(name)
+    df = pd.DataFrame([list(r) for r in rows], columns=names, dtype=object)
+    for role in _COLUMNS:
+        raw = df[f"_uv_{role}"]
+        df[f"_uv_nan_{role}"] = [isinstance(v, float) and math.isnan(v) for v in raw]
+        df[f"_uv_{role}"] = [math.nan if v is None else float(v) for v in raw]
+    return df.infer_objects()  # the keys typed as DuckDB's reading types them (whole numbers as int64)
 
 
 def _group_label(names, values) -> str:
@@ -174,7 +207,7 @@ def _groups(df: pd.DataFrame, names):
 
 def from_brackets(relation, measures=DEFAULT_MEASURES, *, low: str = "low", high: str = "high",
                   units: str = "units", total: str = "total", by=(),
-                  con: duckdb.DuckDBPyConnection | None = None) -> pd.DataFrame:
+                  con=None) -> pd.DataFrame:
     """Inequality measures with certified bounds and a point estimate from a bracket table.
 
     ``relation``: the bracket table (table name, quoted file path, table function, parenthesised query
@@ -186,6 +219,9 @@ def from_brackets(relation, measures=DEFAULT_MEASURES, *, low: str = "low", high
     the table up. ``measures``: e.g. ``["gini", "top_share(0.1) AS top10", "quantile_w(0.5)"]``
     (gini, lorenz(p), bottom_share(p), top_share(p), palma, s80s20, quantile_w(p),
     percentile_ratio(hi, lo), mean).
+
+    ``con``: where the table lives: a DuckDB connection (default: a new in-memory one), or any
+    connection ``query()`` takes (psycopg, SparkSession, sqlite3, SQLAlchemy).
 
     Per group: the keys, ``units``, ``brackets``, ``missing_totals`` (brackets without a total: their
     bounds use the bracket's ends, their point estimate its midpoint), ``open_top``, then per measure
@@ -236,7 +272,7 @@ def _num(v: float):
 
 
 def merge_brackets(parts, *, low: str = "low", high: str = "high", units: str = "units", total: str = "total",
-                   by=(), con: duckdb.DuckDBPyConnection | None = None) -> pd.DataFrame:
+                   by=(), con=None) -> pd.DataFrame:
     """Combine bracket tables of disjoint parts (regions, sources) into one table per group of ``by``.
 
     Brackets that overlap without being equal are joined into one bracket from the lowest low to the
@@ -272,13 +308,16 @@ def merge_brackets(parts, *, low: str = "low", high: str = "high", units: str = 
     final.set("order", exp.Order(expressions=[exp.Ordered(this=k.copy(), nulls_first=False) for k in key_cols]
                                  + [exp.Ordered(this=s.col(b.MIN))]))
     final.set("with_", exp.With(expressions=ctes))
-    connection = connect(con)
+    # the overlaps are joined on DuckDB (the caller's, or an in-memory one when the tables were read
+    # from another engine): a few rows per part
+    own = con is None or not is_duckdb(con)
+    connection = connect(None if own else con)
     connection.register("_uv_br_parts", bins)
     try:
         islands = execute_df(connection, to_sql(final))
     finally:
         connection.unregister("_uv_br_parts")
-        if con is None:
+        if own:
             connection.close()
     out = []
     for _, isl in islands.iterrows():

@@ -70,7 +70,9 @@ def gini(ctx, params=()) -> Lin:
 
 
 def below_indicator(ctx, p: float) -> exp.Expression:
-    """1 when row k lies wholly within the poorest fraction p of the weight (C_k ≤ p·W)."""
+    """1 when row k lies wholly within the poorest fraction p of the weight (C_k ≤ p·W). It differs
+    from 1(x_k ≤ Q_p) only on rows tied at Q_p, where the Lorenz scores multiply it by
+    x_k − Q_p = 0: those scores do not depend on the order of ties, and need no Q_p on every row."""
     return s.case(s.lte(ctx.c, s.mul(s.lit(p), ctx.W_row)), ONE, ZERO)
 
 
@@ -153,12 +155,14 @@ def density_at_quantile(ctx, p: float) -> exp.Expression:
 
 
 def quantile(ctx, p: float) -> Lin:
-    # z_k = (p − 1(x_k ≤ Q_p)) / (W f(Q_p))
+    # z_k = (p − 1(x_k ≤ Q_p)) / (W f(Q_p)). The indicator compares the value with Q_p read on
+    # every row (passes/line.py), not the running weight with p·W: rows tied at Q_p then count
+    # alike, so the score depends on the rows' (x, w) alone, not on how the sort orders ties.
     Q = ordc.quantile_at(ctx, p)
     if not 0.0 < p < 1.0:
         return Lin(Q, defined=False)  # the sample minimum or maximum: not asymptotically normal
     scale = s.div(ONE, s.mul(ctx.W, density_at_quantile(ctx, p)))
-    ind = below_indicator(ctx, p)
+    ind = s.case(s.lte(ctx.x, ctx.quantile_row(p)), ONE, ZERO)
     return Lin(Q, [(ctx.w, s.mul(s.lit(p), scale)), (s.mul(ctx.w, ind), s.mul(s.lit(-1.0), scale.copy()))])
 
 

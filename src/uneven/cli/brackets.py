@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 import sys
 
-from uneven.cli.common import add_output_options, connection, emit_result
+from uneven.cli.common import add_engine_url_option, add_output_options, connection, emit_result
 from uneven.cli.tables import RELATION_HELP
 
 EPILOG = """the bracket table has one row per bracket (and group):
@@ -17,6 +17,7 @@ examples:
   uneven brackets "read_csv('tab.csv')" --low from_amount --high to_amount --units households \\
       --total income --measure gini --measure "top_share(0.01) AS top1"
   uneven brackets tabulation.csv --by province --by year --format csv -o bounds.csv
+  uneven brackets tabulation --by province --engine postgresql://localhost/stats
 
 For every measure: the point estimate and its bounds <measure>_lo, <measure>_hi (inf: no limit).
 Every figure from a bracket table is approximate; see docs/brackets.md."""
@@ -42,6 +43,7 @@ def register(sub) -> None:
                        help=f"column or expression of the bracket's {meaning} (default: {role})")
     add_output_options(p)
     p.add_argument("--database", metavar="FILE", help="a DuckDB database file holding the table (default: in memory)")
+    add_engine_url_option(p)
     p.set_defaults(handler=run)
 
 

@@ -68,7 +68,8 @@ def connection(args):
 
 
 def settings(args) -> dict:
-    return {"memory_limit": args.memory_limit, "threads": args.threads, "temp_directory": args.temp_directory}
+    # a command without the DuckDB settings (e.g. brackets) has none to refuse on another engine
+    return {k: getattr(args, k, None) for k in ("memory_limit", "threads", "temp_directory")}
 
 
 def add_output_options(p: argparse.ArgumentParser) -> None:

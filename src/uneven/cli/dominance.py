@@ -6,7 +6,7 @@ import argparse
 import sys
 from pathlib import Path
 
-from uneven.cli.common import add_engine_options, add_output_options, connection, emit_result
+from uneven.cli.common import add_engine_options, add_engine_url_option, add_output_options, connection, emit_result
 from uneven.cli.compare import _values
 from uneven.cli.tables import RELATION_HELP
 
@@ -45,6 +45,7 @@ def register(sub) -> None:
     p.add_argument("--svg", metavar="FILE", help="also write the chart of the difference with its band (SVG)")
     add_output_options(p)
     add_engine_options(p)
+    add_engine_url_option(p)
     p.set_defaults(handler=run)
 
 

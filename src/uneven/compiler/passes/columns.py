@@ -3,7 +3,7 @@
 ``RowColumns``: the value ``x`` and the weight ``w`` (1.0 when unweighted) of a pass's rows.
 ``SortedColumns``: in a window CTE over rows sorted by x, the running weight ``c`` (C_i), the group
 minimum ``min_row``, the group weight ``W_row`` and the relative poverty line's columns
-(``median_row``, ``below_weight_row(frac)``: window layers of passes/line.py); reading one records it in ``used`` so the
+(``median_row``, ``below_weight_row(frac)``, ``quantile_row(p)``: window layers of passes/line.py); reading one records it in ``used`` so the
 lowering adds only the window columns a measure needs.
 """
 
@@ -44,6 +44,15 @@ class LineColumns:
         if frac not in fracs:
             fracs.append(frac)
         return s.col(f"_uv_pw{fracs.index(frac) + 1}")
+
+    def quantile_row(self, p: float) -> exp.Expression:
+        """Q_p, the group's weighted quantile (smallest x with C/W ≥ p), on every row: an indicator
+        1(x ≤ Q_p) read against it counts tied values alike, whatever their order in the sort."""
+        self.median_row
+        ps = self.__dict__.setdefault("quantile_ps", [])
+        if p not in ps:
+            ps.append(p)
+        return s.col(f"_uv_q{ps.index(p) + 1}")
 
 
 class SortedColumns(RowColumns, LineColumns):

@@ -6,7 +6,8 @@ read ``ctx.median_row`` or ``ctx.below_weight_row(frac)`` gets, after its window
 
     _srt  (the window CTE: C, W, … over the sorted rows)
     _med  M = COALESCE(MIN(CASE WHEN C/W ≥ 0.5 THEN x END), MAX(x)) OVER (PARTITION BY keys)
-          — the weighted median exactly as quantile_w defines it (catalog/ordered.quantile_at)
+          — the weighted median exactly as quantile_w defines it (catalog/ordered.quantile_at),
+          and Q_p = the same at p for each quantile whose standard error reads 1(x ≤ Q_p)
     _win  P_k = SUM(CASE WHEN x < frac_k·M THEN w ELSE 0 END) OVER (PARTITION BY keys)
           — the weight strictly below each line (only when a measure reads it)
 
@@ -27,11 +28,20 @@ def _partition(keys):
     return [k.copy() for k in keys]
 
 
-def median_column(ctx, keys) -> exp.Expression:
+def _quantile_column(keys, p: float, name: str) -> exp.Expression:
     x = s.col("_uv_x")
-    reached = s.gte(s.div(s.col("_uv_c"), s.col("_uv_wt")), s.lit(0.5))
+    reached = s.gte(s.div(s.col("_uv_c"), s.col("_uv_wt")), s.lit(p))
     first = s.window(s.agg_min(s.case(reached, x)), _partition(keys))
-    return s.alias(exp.Coalesce(this=first, expressions=[s.window(s.agg_max(x.copy()), _partition(keys))]), "_uv_md")
+    return s.alias(exp.Coalesce(this=first, expressions=[s.window(s.agg_max(x.copy()), _partition(keys))]), name)
+
+
+def median_column(ctx, keys) -> exp.Expression:
+    return _quantile_column(keys, 0.5, "_uv_md")
+
+
+def quantile_columns(ctx, keys) -> list[exp.Expression]:
+    """Q_p on every row for the quantiles a standard error's indicator reads (columns.quantile_row)."""
+    return [_quantile_column(keys, p, f"_uv_q{i}") for i, p in enumerate(ctx.__dict__.get("quantile_ps", []), start=1)]
 
 
 def below_columns(ctx, keys) -> list[exp.Expression]:
@@ -47,7 +57,7 @@ def window_ctes(win: exp.Select, ctx, keys, name: str) -> list[exp.CTE]:
     followed by the line layers, the last named ``{name}_win``."""
     if "med" not in ctx.used:
         return [cte(win, f"{name}_win")]
-    layers = [[median_column(ctx, keys)]]
+    layers = [[median_column(ctx, keys)] + quantile_columns(ctx, keys)]
     below = below_columns(ctx, keys)
     if below:
         layers.append(below)
