@@ -12,14 +12,15 @@ group), so any group size works. State (``double precision[]``, 1-based as Postg
     3 W   Σ w                             11 P  = Σ w·r^a         (x > 0; a zero adds 0)
     4 T   Σ w·x                           12 Z  weight of rows with x = 0
     5 c   the group's first x             13 N  weight of rows with x < 0
-    6 Dc  Σ w·(x − c)                     14 a  the exponent (the measure's parameter)
-    7 D2  Σ w·(x − c)²                    15 F  1 when a term left the double range (→ NULL)
+    6 Dc  Σ w·d, d = (x − c)/k            14 a  the exponent (the measure's parameter)
+    7 D2  Σ w·d²  (k = |c|, or 1 if c = 0) 15 F  1 when a ratio left the range below (→ NULL)
     8 R1  Σ w·r, r = x/m                  16 p  the parameter as written (checked constant)
+                                          17 G  1 when |d| > 1e150 (cv → NULL)
 
 Ratios to the first positive value keep the sums in range and the logs small; the measures follow
 from μ/m = R1/W: theil = RL/R1 − ln(R1/W); mld = ln(R1/W) − L/W; ge(α) = ((P/W)·(R1/W)^−α − 1)/(α(α−1))
 (α = 0: mld, α = 1: theil); atkinson(ε) = 1 − (P/W)^(1/(1−ε)) / (R1/W) with a = 1 − ε (ε = 1:
-1 − exp(L/W)/(R1/W)); cv = sqrt(D2/W − (Dc/W)²)/μ; hhi (rows) = 10000·P/R1² with a = 2.
+1 − exp(L/W)/(R1/W)); cv = sqrt(D2/W − (Dc/W)²)·k/μ; hhi (rows) = 10000·P/R1² with a = 2.
 These are plain sums, not the compiled query's centred ones: for values spread less than about 1e-6
 of their mean the compiled query keeps more digits (docs/registered_functions.md).
 
@@ -42,7 +43,7 @@ NAMES = ("theil", "mld", "ge", "atkinson", "cv", "hhi")
 # measure → (parameter name or None, weighted forms?)
 SIGNATURES = {"theil": (None, True), "mld": (None, True), "ge": ("alpha", True), "atkinson": ("eps", True),
               "cv": (None, True), "hhi": (None, False)}
-SIZE = 16
+SIZE = 17
 LIMIT = 300.0  # ln of the largest ratio kept (r ≤ e^300: every product below fits in a double)
 
 
@@ -105,7 +106,9 @@ def step_body(measure: str, weighted: bool) -> exp.Select:
     r = _case((ok.copy(), X.copy() / m.copy()), default=n(0))
     power = _case((exp.and_(ok.copy(), alr.copy() <= n(700), alr.copy() >= n(-700)), exp.Exp(this=alr.copy())),
                   default=n(0))
-    d = X.copy() - col("_uv_c")
+    k = _case((exp.Abs(this=col("_uv_c")) > n(0), exp.Abs(this=col("_uv_c"))), default=n(1))
+    d = (X.copy() - col("_uv_c")) / k
+    wide = exp.Abs(this=d.copy()) > n(1e150)
     out_of_range = exp.and_(X.copy() > n(0), exp.or_(exp.Not(this=ok.copy()), alr.copy() > n(700)))
     new = exp.Array(expressions=[
         state(1) + n(1),
@@ -113,8 +116,8 @@ def step_body(measure: str, weighted: bool) -> exp.Select:
         state(3) + w.copy(),
         state(4) + w.copy() * X.copy(),
         col("_uv_c"),
-        state(6) + w.copy() * d.copy(),
-        state(7) + w.copy() * d.copy() * d.copy(),
+        state(6) + _case((wide.copy(), n(0)), default=w.copy() * d.copy()),
+        state(7) + _case((wide.copy(), n(0)), default=w.copy() * d.copy() * d.copy()),
         state(8) + w.copy() * r.copy(),
         state(9) + _case((ok.copy(), w.copy() * r.copy() * lr.copy()), default=n(0)),
         state(10) + _case((ok.copy(), w.copy() * lr.copy()), default=n(0)),
@@ -124,6 +127,7 @@ def step_body(measure: str, weighted: bool) -> exp.Select:
         a.copy(),
         _case((out_of_range, n(1)), default=state(15)),
         exp.column("p") if measure in ("ge", "atkinson") else n(0),
+        _case((wide, n(1)), default=state(17)),
     ])
     ifs = [(exp.NEQ(this=X.copy() * n(0), expression=n(0)),
             fail(f"NaN or infinite value in the value argument of {measure}()"))]
@@ -147,7 +151,8 @@ def final_body(measure: str) -> exp.Select:
     theil = RL.copy() / R1.copy() - _ln(mu_m.copy())
     mld = _ln(mu_m.copy()) - L.copy() / W.copy()
     negatives, zeros = N.copy() > n(0), Z.copy() > n(0)
-    null = [exp.or_(_eq(state(1), n(0)), T.copy() <= n(0), _eq(state(15), n(1)))]
+    null = [exp.or_(_eq(state(1), n(0)), T.copy() <= n(0),
+                    *([] if measure == "cv" else [_eq(state(15), n(1))]))]
     p = state(16)
     if measure == "theil":
         body = _case((negatives, exp.Null()), default=theil)
@@ -168,9 +173,11 @@ def final_body(measure: str) -> exp.Select:
                      (_eq(p.copy(), n(1)), n(1) - exp.Exp(this=L.copy() / W.copy()) / mu_m.copy()),
                      default=general)
     elif measure == "cv":
-        mean = T.copy() / W.copy()
+        c = state(5)
+        k = _case((exp.Abs(this=c.copy()) > n(0), exp.Abs(this=c.copy())), default=n(1))
+        mean_k = T.copy() / W.copy() / k  # μ / k
         var = state(7) / W.copy() - (state(6) / W.copy()) * (state(6) / W.copy())
-        body = exp.Sqrt(this=exp.func("greatest", var, n(0))) / mean
+        body = _case((_eq(state(17), n(1)), exp.Null()), default=exp.Sqrt(this=exp.func("greatest", var, n(0))) / mean_k)
     elif measure == "hhi":
         body = _case((negatives, exp.Null()), default=n(10000) * P.copy() / (R1.copy() * R1.copy()))
     else:
