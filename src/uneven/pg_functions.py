@@ -130,8 +130,8 @@ def _moment_definitions(sql, measure: str) -> list[tuple[str, str, str, object]]
         arglist = ", ".join(f"{a} double precision" for a in args)
         out.append((step, "helper", measure, sql.SQL(
             "CREATE FUNCTION {}(s double precision[], " + arglist + ") RETURNS double precision[] "
-            "LANGUAGE sql IMMUTABLE STRICT PARALLEL SAFE AS {}").format(
-                sql.Identifier(step), sql.Literal(to_sql(M.step_body(measure, weighted), "postgres")))))
+            "LANGUAGE plpgsql IMMUTABLE STRICT PARALLEL SAFE AS {}").format(
+                sql.Identifier(step), sql.Literal(M.step_source(measure, weighted)))))
     out.append((final, "helper", measure, sql.SQL(
         "CREATE FUNCTION {}(s double precision[]) RETURNS double precision LANGUAGE sql IMMUTABLE STRICT "
         "PARALLEL SAFE AS {}").format(sql.Identifier(final), sql.Literal(to_sql(M.final_body(measure), "postgres")))))

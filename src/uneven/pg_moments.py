@@ -5,7 +5,8 @@
       FROM survey GROUP BY province;
 
 No ``ORDER BY`` is needed: the state is a fixed handful of sums (streaming, a few numbers per
-group), so any group size works. State (``double precision[]``, 1-based as PostgreSQL counts):
+group), so any group size works. The state functions are PL/pgSQL (step_source says why), the
+final functions SQL-language, every expression a sqlglot tree generated for PostgreSQL. State (``double precision[]``, 1-based as PostgreSQL counts):
 
     1 n   rows with weight > 0            9  RL = Σ w·r·ln r      (x > 0)
     2 m   the group's first positive x    10 L  = Σ w·ln r        (x > 0)
@@ -35,6 +36,8 @@ compiled query rescales.
 from __future__ import annotations
 
 from sqlglot import exp
+
+from uneven.compiler.emit import to_sql
 
 from uneven.pg_functions import _fail as fail, _n as n, _state as state
 
@@ -82,14 +85,15 @@ def _exponent(measure: str) -> exp.Expression:
 
 
 def _layer(inner: exp.Select | None, **columns: exp.Expression) -> exp.Select:
-    """SELECT <columns> [FROM (inner) AS _uv_l]: each intermediate once per row (PostgreSQL repeats a
-    repeated subexpression)."""
+    """The intermediates of one layer (each computed once per row: PostgreSQL repeats a repeated
+    subexpression), as SELECT items; step_source assigns them to PL/pgSQL variables."""
     out = exp.select(*[exp.alias_(e, name) for name, e in columns.items()])
     return out.from_(exp.Subquery(this=inner, alias=exp.TableAlias(this=exp.to_identifier("_uv_l")))) if inner else out
 
 
-def step_body(measure: str, weighted: bool) -> exp.Select:
-    """SELECT <the next state> for one row (x[, p][, w]) of ``measure``."""
+def step_body(measure: str, weighted: bool):
+    """The intermediates of one row (x[, p][, w]) of ``measure`` as (layer, name, expression) in
+    order, and the expression of the next state over them."""
     w = exp.column("w") if weighted else n(1)
     col = exp.column
     first = _layer(None,
@@ -136,8 +140,26 @@ def step_body(measure: str, weighted: bool) -> exp.Select:
         ifs += [(w.copy() < n(0), fail(f"negative weight in the weight argument of {measure}()")),
                 (exp.NEQ(this=w.copy() * n(0), expression=n(0)), fail(f"NaN or infinite weight in the weight argument of {measure}()")),
                 (_eq(w.copy(), n(0)), exp.column("s"))]
-    return exp.select(_case(*ifs, default=new)).from_(
-        exp.Subquery(this=ranged, alias=exp.TableAlias(this=exp.to_identifier("_uv_r"))))
+    passed_on = lambda item: isinstance(item.this, exp.Column) and item.this.name == item.alias  # noqa: E731
+    return [(layer, item.alias, item.this) for layer in (first, logs, ranged) for item in layer.expressions
+            if not passed_on(item)], _case(*ifs, default=new)
+
+
+VARIABLES = {"_uv_m": "double precision", "_uv_c": "double precision", "_uv_lr": "double precision",
+             "_uv_ok": "boolean", "_uv_alr": "double precision"}
+
+
+def step_source(measure: str, weighted: bool) -> str:
+    """The PL/pgSQL body of the state function: each intermediate (m, c, ln r, in range, a·ln r) assigned
+    once to a variable, then RETURN the next state. The expressions are sqlglot trees generated for
+    PostgreSQL; the block around them is fixed text with our variable names only. PL/pgSQL because
+    PostgreSQL starts a SQL-language function's executor afresh on every call (its cost grows with
+    the body), while PL/pgSQL keeps its compiled expressions: measured 20,000 rows of theil(x, w),
+    35.8 s as a SQL function with nested SELECTs and 2.3 s in PL/pgSQL (bench/pg_registered.py)."""
+    assignments, result = step_body(measure, weighted)
+    declare = " ".join(f"{name} {kind};" for name, kind in VARIABLES.items())
+    steps = " ".join(f"{name} := {to_sql(e, 'postgres')};" for _, name, e in assignments)
+    return f"DECLARE {declare} BEGIN {steps} RETURN {to_sql(result, 'postgres')}; END"
 
 
 def _ln(e) -> exp.Expression:
