@@ -1,12 +1,12 @@
-"""PostgreSQL: the registered aggregate gini(x, w ORDER BY x) (uneven/pg_functions.py) against the
-compiled query (uneven.query on the same connection) on invented rows made inside PostgreSQL
+"""PostgreSQL: the registered aggregates gini(x, w ORDER BY x) (uneven/pg_functions.py) and the moment
+aggregates theil(x, w), atkinson(x, 0.5, w), cv(x, w) (uneven/pg_moments.py) against the compiled query (uneven.query on the same connection) on invented rows made inside PostgreSQL
 (setseed + random(): lognormal values, uniform weights, G groups).
 
     python bench/pg_registered.py --rows 1000000 --groups 100
 
 Uses UNEVEN_PG_DSN, else starts a throwaway server (tests/pg_server.py). Reports the median of
---repeat runs and the sort's memory or disk from EXPLAIN (ANALYZE, BUFFERS); checks that both give
-the same Gini per group (1e-9). Not part of CI.
+--repeat runs and the sort's or the aggregate's memory or disk from EXPLAIN (ANALYZE, BUFFERS); checks
+that both give the same value per group (1e-9). Not part of CI.
 """
 
 from __future__ import annotations
@@ -37,7 +37,9 @@ def timed(fn, repeat):
 def sort_space(con, sql) -> str:
     plan = "\n".join(r[0] for r in con.execute("EXPLAIN (ANALYZE, BUFFERS) " + sql).fetchall())
     found = re.findall(r"Sort Method: ([\w ]+?)\s+(Memory|Disk): (\d+)kB", plan)
-    return "; ".join(f"{m.strip()} {kind.lower()} {int(kb) / 1024:.0f} MB" for m, kind, kb in found) or "no sort"
+    out = [f"sort {m.strip()} {kind.lower()} {int(kb) / 1024:.0f} MB" for m, kind, kb in found]
+    out += [f"hash aggregate {int(kb)} kB" for kb in re.findall(r"Batches: \d+\s+Memory Usage: (\d+)kB", plan)]
+    return "; ".join(out) or "no sort"
 
 
 def main() -> None:
@@ -45,6 +47,7 @@ def main() -> None:
     ap.add_argument("--rows", type=int, default=1_000_000)
     ap.add_argument("--groups", type=int, default=100)
     ap.add_argument("--repeat", type=int, default=3)
+    ap.add_argument("--measures", default="", help="comma-separated subset of gini,theil,atkinson,cv (default: all)")
     args = ap.parse_args()
     import os
     dsn = os.environ.get("UNEVEN_PG_DSN")
@@ -62,18 +65,22 @@ def main() -> None:
                     "0.5 + 2.5 * random() AS w FROM generate_series(1, %s) i" % (int(args.groups), int(args.rows)))
         con.execute("ANALYZE bench_pg")
         uneven.install(con, replace=False)
-        registered = "SELECT grp, gini(x, w ORDER BY x) AS g FROM bench_pg GROUP BY grp"
-        compiled = uneven.compile("SELECT grp, gini(x, w) AS g FROM bench_pg GROUP BY grp", dialect="postgres")
         work_mem = con.execute("SHOW work_mem").fetchone()[0]
-        t_reg, reg = timed(lambda: dict(con.execute(registered).fetchall()), args.repeat)
-        t_cmp, cmp_ = timed(lambda: dict(con.execute(compiled).fetchall()), args.repeat)
-        worst = max(abs(reg[k] - cmp_[k]) / abs(cmp_[k]) for k in cmp_)
-        assert worst < 1e-9, worst
         print(f"{args.rows:,} rows, {args.groups} groups, work_mem {work_mem}, PostgreSQL "
               f"{con.info.server_version // 10000}: median of {args.repeat}")
-        print(f"  registered gini(x, w ORDER BY x): {t_reg:7.2f} s   sort: {sort_space(con, registered)}")
-        print(f"  compiled query (window pass):     {t_cmp:7.2f} s   sort: {sort_space(con, compiled)}")
-        print(f"  largest relative difference between the two: {worst:.1e}")
+        for call, registered_call in (("gini(x, w)", "gini(x, w ORDER BY x)"), ("theil(x, w)", "theil(x, w)"),
+                                      ("atkinson(x, 0.5, w)", "atkinson(x, 0.5, w)"), ("cv(x, w)", "cv(x, w)")):
+            if args.measures and call.split("(")[0] not in args.measures.split(","):
+                continue
+            registered = f"SELECT grp, {registered_call} AS g FROM bench_pg GROUP BY grp"
+            compiled = uneven.compile(f"SELECT grp, {call} AS g FROM bench_pg GROUP BY grp", dialect="postgres")
+            t_reg, reg = timed(lambda: dict(con.execute(registered).fetchall()), args.repeat)
+            t_cmp, cmp_ = timed(lambda: dict(con.execute(compiled).fetchall()), args.repeat)
+            worst = max(abs(reg[k] - cmp_[k]) / abs(cmp_[k]) for k in cmp_)
+            assert worst < 1e-9, worst
+            print(f"  registered {registered_call:22s} {t_reg:7.2f} s   {sort_space(con, registered)}")
+            print(f"  compiled   {call:22s} {t_cmp:7.2f} s   {sort_space(con, compiled)}")
+            print(f"  largest relative difference between the two: {worst:.1e}", flush=True)
         uneven.uninstall(con)
         con.execute("DROP TABLE bench_pg")
         con.close()

@@ -1,5 +1,5 @@
 """examples/dbt_quembraland_postgres: a real `dbt build` (dbt-postgres) on the matrix's throwaway
-PostgreSQL server; the model calls gini(x, w ORDER BY x) registered by uneven.install (prepare.py);
+PostgreSQL server; the model calls gini(x, w ORDER BY x), theil, atkinson and cv registered by uneven.install (prepare.py);
 numbers checked against the numpy reference (``uneven.reference``) to 1e-9."""
 
 from __future__ import annotations
@@ -50,13 +50,17 @@ def test_dbt_postgres_build_computes_the_reference_numbers(tmp_path):
         finally:
             sys.path.pop(0)
         rows = households()
-        got = pg.con.execute("SELECT province, year, households, gini FROM quembraland.province_gini").fetchall()
+        got = pg.con.execute("SELECT province, year, households, gini, theil, atkinson_half, cv "
+                             "FROM quembraland.province_gini").fetchall()
         assert len(got) == 8
-        for province, year, n, gini in got:
+        for province, year, n, gini, theil, atkinson, cv in got:
             x = np.array([r[3] for r in rows if r[1] == province and r[2] == year])
             w = np.array([r[4] for r in rows if r[1] == province and r[2] == year])
             assert n == len(x)
             assert gini == pytest.approx(R.gini(x, w), rel=1e-9)
+            assert theil == pytest.approx(R.theil(x, w), rel=1e-9)
+            assert atkinson == pytest.approx(R.atkinson(x, 0.5, w), rel=1e-9)
+            assert cv == pytest.approx(R.cv(x, w), rel=1e-9)
     finally:
         import uneven
         uneven.uninstall(pg.con)

@@ -3,8 +3,8 @@ outcome — a defined value (from the numpy reference, ``uneven.reference``), NU
 error — on every engine of the backend matrix (tests/engines.py). The SQL of the cases avoids
 engine-specific syntax (NaN and infinity come from CAST('NaN' AS DOUBLE) and
 CAST('Infinity' AS DOUBLE); SQLite reads both strings as 0.0, so infinity is the literal 9e999
-there, and SQLite has no NaN at all: a NaN stored or computed is NULL). Cases that need the DuckDB
-runner (type probing) or a DuckDB-only type say so and run there only; where an engine's documented
+there, and SQLite has no NaN at all: a NaN stored or computed is NULL). Cases on argument types
+run through `uneven.query` (the engine's adapter answers the type probe); a DuckDB-only type runs there only; where an engine's documented
 outcome differs (PostgreSQL raises on a double overflow), the case says so per engine."""
 
 from __future__ import annotations
@@ -62,7 +62,7 @@ class Case:
     match: str = ""  # for errors: text the message must contain
     data: pd.DataFrame | None = None  # default BASE
     only: tuple[str, ...] = ()  # engines the case runs on (empty: all)
-    via_query: bool = False  # run through uneven.query (type probing), DuckDB only
+    via_query: bool = False  # run through uneven.query (type probing) on the engine's connection
     per_row: bool = False  # want: one value per result row, from the last column (else one row, all columns)
     engines: dict | None = None  # engine → (want, match): that engine's documented outcome differs
     not_on: dict | None = None  # engine → why the case does not apply there
@@ -177,11 +177,11 @@ CASES = [
          engines=PG_OVERFLOW),
     # ---- types (the DuckDB runner probes argument types) -----------------------------------------
     Case("text-value", "SELECT gini(tag) FROM t", MeasureArgumentError, "the value tag is of type VARCHAR",
-         via_query=True, only=("duckdb",)),
+         via_query=True),
     Case("boolean-value", "SELECT gini(x > 2) FROM t", MeasureArgumentError, "is of type BOOLEAN",
-         via_query=True, only=("duckdb",)),
+         via_query=True),
     Case("date-weight", "SELECT gini(x, CAST('2024-01-02' AS DATE)) FROM t", MeasureArgumentError,
-         "the weight CAST('2024-01-02' AS DATE) is of type DATE", via_query=True, only=("duckdb",)),
+         "the weight CAST('2024-01-02' AS DATE) is of type DATE", via_query=True),
     Case("decimal-38-values", "SELECT gini(CAST(x * 1e20 AS DECIMAL(38, 4))), theil(CAST(x * 1e20 AS DECIMAL(38, 4))) "
          "FROM t WHERE g = 'a'", [R.gini(A_X * 1e20), R.theil(A_X * 1e20)]),
     Case("bigint-sum-past-int64", "SELECT gini(CAST(x AS BIGINT) * 1000000000000000000), "
@@ -240,8 +240,8 @@ def _same(got, want) -> bool:
 
 
 def _run(engine, case: Case):
-    if case.via_query:
-        return uneven.query(case.sql, engine.con)
+    if case.via_query:  # the type probes run through the engine's adapter (engine/adapters)
+        return uneven.query(case.sql, engine.spark if engine.name == "spark" and hasattr(engine, "spark") else engine.con)
     try:
         return engine.run(case.sql_for(engine.name))
     except UnevenError:

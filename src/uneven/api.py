@@ -15,7 +15,7 @@ from uneven.engine.adapters import adapt, is_duckdb
 from uneven.engine.columns import duckdb_expression_types, duckdb_source_columns
 from uneven.engine.frames import register_caller_frames, register_frames_on
 from uneven.engine.runner import connect, execute_df
-from uneven.engine.ties import duckdb_tie_probe
+from uneven.engine.ties import adapter_tie_probe, duckdb_tie_probe
 from uneven.errors import UnevenError
 from uneven.explain import Explanation, explain_on, explain_query
 
@@ -113,8 +113,8 @@ def run_on(adapter, sql: str, caller, *, strict: bool, tie_grouping: str, method
         def run(res):
             compiled = compile_sql(sql, dialect=adapter.dialect, read=read, pretty=False, strict=strict,
                                    method=method, resolution=res, source_columns=adapter.source_columns(),
-                                   tie_grouping=tie_grouping, expression_types=adapter.expression_types(),
-                                   ordered=ordered)
+                                   tie_grouping=tie_grouping, tie_probe=adapter_tie_probe(adapter),
+                                   expression_types=adapter.expression_types(), ordered=ordered)
             return adapter.execute(compiled)
         if method == "exact":
             return run(None)

@@ -18,7 +18,7 @@ import duckdb
 from uneven.compiler.pipeline import compile_with_context
 from uneven.engine.columns import duckdb_source_columns
 from uneven.engine.runner import translate_error
-from uneven.engine.ties import duckdb_tie_probe
+from uneven.engine.ties import adapter_tie_probe, duckdb_tie_probe
 
 
 @dataclass
@@ -102,6 +102,7 @@ def explain_on(sql: str, adapter, *, profile: bool = False, strict: bool = False
 
     compiled, ctx = compile_with_context(sql, dialect=adapter.dialect, read=read, pretty=True, strict=strict,
                                          source_columns=adapter.source_columns(), tie_grouping=tie_grouping,
+                                         tie_probe=adapter_tie_probe(adapter),
                                          expression_types=adapter.expression_types(), ordered=ordered)
     out = Explanation(passes=ctx.chosen, sql=compiled, engine=adapter.label, read_once=ctx.read_once)
     try:

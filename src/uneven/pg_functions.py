@@ -103,26 +103,59 @@ def final_body() -> exp.Select:
                                default=exp.Case(ifs=[exp.If(this=finite, true=g)], default=exp.Null())))
 
 
-def definitions() -> list[tuple[str, str, object]]:
-    """(name, kind, statement) in creation order, as psycopg.sql compositions (PostgreSQL's CREATE
-    FUNCTION and CREATE AGGREGATE are not in sqlglot's grammar: the bodies are sqlglot trees,
-    generated for PostgreSQL; names are ours, quoted as identifiers; no user text is spliced)."""
-    from psycopg import sql
+def _gini_definitions(sql) -> list[tuple[str, str, str, object]]:
     out = []
     for weighted, args, step in ((True, "x double precision, w double precision", "_uv_gini_step_w"),
                                  (False, "x double precision", "_uv_gini_step")):
         body = to_sql(step_body(weighted), "postgres")
-        out.append((step, "helper", sql.SQL(
+        out.append((step, "helper", "gini", sql.SQL(
             "CREATE FUNCTION {}(s double precision[], " + args + ") RETURNS double precision[] "
             "LANGUAGE sql IMMUTABLE STRICT PARALLEL SAFE AS {}").format(sql.Identifier(step), sql.Literal(body))))
-    out.append(("_uv_gini_final", "helper", sql.SQL(
+    out.append(("_uv_gini_final", "helper", "gini", sql.SQL(
         "CREATE FUNCTION {}(s double precision[]) RETURNS double precision LANGUAGE sql IMMUTABLE STRICT "
         "PARALLEL SAFE AS {}").format(sql.Identifier("_uv_gini_final"), sql.Literal(to_sql(final_body(), "postgres")))))
     for step, types in (("_uv_gini_step_w", "double precision, double precision"), ("_uv_gini_step", "double precision")):
-        out.append(("gini", "aggregate", sql.SQL(
+        out.append(("gini", "aggregate", "gini", sql.SQL(
             "CREATE AGGREGATE {}(" + types + ") (SFUNC = {}, STYPE = double precision[], "
             "FINALFUNC = {}, INITCOND = {})").format(sql.Identifier("gini"), sql.Identifier(step),
                                                      sql.Identifier("_uv_gini_final"), sql.Literal(INITIAL))))
+    return out
+
+
+def _moment_definitions(sql, measure: str) -> list[tuple[str, str, str, object]]:
+    from uneven import pg_moments as M
+    final = f"_uv_{measure}_final"
+    out = []
+    for step, args, weighted in M.forms(measure):
+        arglist = ", ".join(f"{a} double precision" for a in args)
+        out.append((step, "helper", measure, sql.SQL(
+            "CREATE FUNCTION {}(s double precision[], " + arglist + ") RETURNS double precision[] "
+            "LANGUAGE plpgsql IMMUTABLE STRICT PARALLEL SAFE AS {}").format(
+                sql.Identifier(step), sql.Literal(M.step_source(measure, weighted)))))
+    out.append((final, "helper", measure, sql.SQL(
+        "CREATE FUNCTION {}(s double precision[]) RETURNS double precision LANGUAGE sql IMMUTABLE STRICT "
+        "PARALLEL SAFE AS {}").format(sql.Identifier(final), sql.Literal(to_sql(M.final_body(measure), "postgres")))))
+    initial = "{" + ",".join(["0"] * M.SIZE) + "}"
+    for step, args, _ in M.forms(measure):
+        types = ", ".join(["double precision"] * len(args))
+        out.append((measure, "aggregate", measure, sql.SQL(
+            "CREATE AGGREGATE {}(" + types + ") (SFUNC = {}, STYPE = double precision[], "
+            "FINALFUNC = {}, INITCOND = {})").format(sql.Identifier(measure), sql.Identifier(step),
+                                                     sql.Identifier(final), sql.Literal(initial))))
+    return out
+
+
+MEASURES = ("gini", "theil", "mld", "ge", "atkinson", "cv", "hhi")
+
+
+def definitions(measures=None) -> list[tuple[str, str, str, object]]:
+    """(name, kind, measure, statement) in creation order, as psycopg.sql compositions (PostgreSQL's
+    CREATE FUNCTION and CREATE AGGREGATE are not in sqlglot's grammar: the bodies are sqlglot trees,
+    generated for PostgreSQL; names are ours, quoted as identifiers; no user text is spliced)."""
+    from psycopg import sql
+    out = []
+    for measure in measures or MEASURES:
+        out += _gini_definitions(sql) if measure == "gini" else _moment_definitions(sql, measure)
     return out
 
 
@@ -144,13 +177,21 @@ def installed(con) -> list[tuple[str, str, str | None]]:
         return [tuple(r) for r in cur.fetchall()]
 
 
-def install(con, *, replace: bool = False) -> list[str]:
-    """Create gini(x[, w] ORDER BY x) in the PostgreSQL database of ``con`` (psycopg 3); returns the
-    names created. Runs in one transaction: all or nothing."""
+def install(con, *, replace: bool = False, measures: list[str] | None = None) -> list[str]:
+    """Create the aggregates (gini(x[, w] ORDER BY x) and the moment measures of pg_moments.py) in the
+    PostgreSQL database of ``con`` (psycopg 3); ``measures`` limits them (default: all of MEASURES).
+    Returns the names created. Runs in one transaction: all or nothing."""
     import psycopg
     from psycopg import sql
-    defs = definitions()
-    names = sorted({n for n, _, _ in defs})
+    chosen = None
+    if measures is not None:
+        unknown = [m for m in measures if m.lower() not in MEASURES]
+        if unknown:
+            raise UnevenError(f"install(): {unknown[0]!r} is not registered on PostgreSQL; the registered measures are "
+                              f"{', '.join(MEASURES)} (the others run through uneven.query(sql, con=…))")
+        chosen = [m.lower() for m in measures]
+    defs = definitions(chosen)
+    names = sorted({n for n, _, _, _ in defs})
     ours = {r[0] for r in installed(con)}
     with con.cursor() as cur:
         cur.execute("SELECT DISTINCT proname FROM pg_proc WHERE pronamespace = current_schema()::regnamespace "
@@ -162,15 +203,15 @@ def install(con, *, replace: bool = False) -> list[str]:
     try:
         with con.transaction():
             with con.cursor() as cur:
-                _drop(cur, [(n, k) for n, k, _ in defs] + [(c, "any") for c in clashes])
+                _drop(cur, [(n, k) for n, k, _, _ in defs] + [(c, "any") for c in clashes])
                 cur.execute(sql.SQL("CREATE TABLE IF NOT EXISTS {} (name text, kind text, measure text)").format(
                     sql.Identifier(REGISTRY)))
-                for name, kind, statement in defs:
+                for name, kind, measure, statement in defs:
                     cur.execute(statement)
                     cur.execute(sql.SQL("DELETE FROM {} WHERE name = %s AND kind = %s").format(sql.Identifier(REGISTRY)),
                                 (name, kind))
                     cur.execute(sql.SQL("INSERT INTO {} VALUES (%s, %s, %s)").format(sql.Identifier(REGISTRY)),
-                                (name, kind, "gini"))
+                                (name, kind, measure))
     except psycopg.Error as e:
         raise ExecutionError(f"install(): PostgreSQL refused to create the functions: "
                              f"{str(e).strip().splitlines()[0]}") from None

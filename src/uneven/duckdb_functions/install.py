@@ -167,14 +167,11 @@ def install(con: duckdb.DuckDBPyConnection, *, replace: bool = False,
     ``replace=True`` overwrites macros of the same name that uneven did not create (otherwise
     :class:`FunctionConflictError`). ``measures`` limits the measures installed (default: all).
     A psycopg 3 connection gets the PostgreSQL aggregates of uneven/pg_functions.py instead
-    (``gini(x[, w] ORDER BY x)``).
+    (``gini(x[, w] ORDER BY x)``, theil, mld, ge, atkinson, cv, hhi).
     """
     if type(con).__module__.split(".")[0] == "psycopg":
         from uneven import pg_functions
-        if measures is not None and [m.lower() for m in measures] != ["gini"]:
-            raise UnevenError("install(): on PostgreSQL the registered measure is gini (gini(x[, w] ORDER BY x)); "
-                              "the others run through uneven.query(sql, con=…)")
-        return pg_functions.install(con, replace=replace)
+        return pg_functions.install(con, replace=replace, measures=measures)
     if not isinstance(con, duckdb.DuckDBPyConnection):
         raise UnevenError(f"install(): con must be a duckdb connection, got {type(con).__name__}")
     chosen = None

@@ -77,7 +77,8 @@ class SQLiteAdapter(Adapter):
             _, rows, _ = self.fetch(self.compile_probe(probe))
         except SQLiteError:
             return None
-        return [TEXT if flag else NUMERIC for flag in rows[0]]
+        # a comparison or a boolean connective is a truth value by its form (SQLite stores it as 0/1)
+        return [_type_by_form(e) or (TEXT if flag else NUMERIC) for e, flag in zip(exprs, rows[0])]
 
     def register(self, name: str, frame) -> None:
         from uneven.engine.adapters.postgres import _cell
@@ -131,3 +132,18 @@ def _depth(rows, row) -> int:
     while parent in parents and depth < 50:
         depth, parent = depth + 1, parents[parent]
     return depth
+
+
+def _type_by_form(e: exp.Expression) -> str | None:
+    """An argument's type as its form states it, which SQLite's values do not keep: a comparison, IN,
+    BETWEEN, LIKE, IS, NOT, AND/OR or TRUE/FALSE is BOOLEAN (stored as 0/1); a CAST names its type
+    (``CAST('2024-01-02' AS DATE)`` is the number 2024 in SQLite). None: the probe's answer stands."""
+    from uneven.compiler.types import is_numeric_type
+    while isinstance(e, exp.Paren):
+        e = e.this
+    if isinstance(e, (exp.Predicate, exp.Connector, exp.Not, exp.Boolean)):
+        return "BOOLEAN"
+    if isinstance(e, exp.Cast):
+        name = e.to.sql("duckdb").upper()
+        return None if is_numeric_type(name) else name
+    return None
