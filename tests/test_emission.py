@@ -17,7 +17,7 @@ import pytest
 from roundtrip import DIALECTS, assert_faithful
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 from uneven.compiler.emit import emission_error, parenthesize
 
 T, F, NULL = exp.true(), exp.false(), exp.Null()

@@ -7,7 +7,7 @@ import inspect
 import duckdb
 import pandas as pd
 
-from uneven.bounds.run import pick_resolution, run_bounded
+from uneven.engine.bounded import pick_resolution, run_bounded
 from uneven.catalog import MEASURES
 from uneven.compiler.bounded import check_method
 from uneven.compiler import compile_sql

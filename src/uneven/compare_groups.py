@@ -26,9 +26,9 @@ import pandas as pd
 from sqlglot import exp
 
 from uneven import catalog
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 from uneven.errors import MeasureArgumentError
-from uneven.influence import _cte, _table
+
 from uneven.structure import _by_labels, _parse, _Spec, session
 
 ZERO, ONE, TWO = s.lit(0.0), s.lit(1.0), s.lit(2.0)
@@ -85,12 +85,12 @@ def design_difference_sql(spec: _Spec, x: exp.Expression, group: exp.Expression,
     win = exp.Select(expressions=part("_uv_d", "_uv_h", "_uv_psu") + [xv, wv,
         s.alias(run_sum(wv.copy()), "_uv_c"), s.alias(run_sum(s.mul(wv.copy(), xv.copy())), "_uv_s"),
         s.alias(tot_sum(wv.copy()), "_uv_wt"), s.alias(tot_sum(s.mul(wv.copy(), xv.copy())), "_uv_t")]
-    ).from_(_table("_uv_cmp_rows"))
+    ).from_(s.table("_uv_cmp_rows"))
     W, T, C, S = s.col("_uv_wt"), s.col("_uv_t"), s.col("_uv_c"), s.col("_uv_s")
     gini_term = s.mul(s.mul(wv.copy(), xv.copy()), s.sub(s.sub(s.mul(TWO, C.copy()), wv.copy()), W.copy()))
     lin = exp.Select(expressions=part("_uv_d", "_uv_h", "_uv_psu") + [xv.copy(), wv.copy(), C.copy(), S.copy(),
         W.copy(), T.copy(), s.alias(s.case(s.gt(T.copy(), ZERO), s.div(tot_sum(gini_term), s.mul(W.copy(), T.copy()))),
-                                    "_uv_g")]).from_(_table("_uv_cmp_win"))
+                                    "_uv_g")]).from_(s.table("_uv_cmp_win"))
     G = s.col("_uv_g")
     z = s.div(s.sub(s.add(s.sub(s.mul(s.mul(TWO, C.copy()), xv.copy()), s.mul(TWO, S.copy())),
                           s.sub(T.copy(), s.mul(W.copy(), xv.copy()))),
@@ -107,7 +107,7 @@ def design_difference_sql(spec: _Spec, x: exp.Expression, group: exp.Expression,
         s.alias(exp.Max(this=in_group(1, s.lit(1))), "_uv_has1"), s.alias(exp.Max(this=in_group(2, s.lit(1))), "_uv_has2"),
         s.alias(exp.Max(this=s.case(s.and_(is_(1), exp.Is(this=G.copy(), expression=exp.Null())), s.lit(1))), "_uv_bad1"),
         s.alias(exp.Max(this=s.case(s.and_(is_(2), exp.Is(this=G.copy(), expression=exp.Null())), s.lit(1))), "_uv_bad2"),
-    ]).from_(_table("_uv_cmp_lin")).group_by(*part("_uv_h", "_uv_psu"))
+    ]).from_(s.table("_uv_cmp_lin")).group_by(*part("_uv_h", "_uv_psu"))
     U = s.col("_uv_u")
     carry = ["_uv_n1", "_uv_n2"]
     highest = ["_uv_g1", "_uv_g2", "_uv_has1", "_uv_has2", "_uv_bad1", "_uv_bad2"]
@@ -115,7 +115,7 @@ def design_difference_sql(spec: _Spec, x: exp.Expression, group: exp.Expression,
         s.alias(s.agg_count_star(), "_uv_nu"), s.alias(s.agg_sum(U.copy()), "_uv_s1"),
         s.alias(s.agg_sum(s.mul(U.copy(), U.copy())), "_uv_s2")]
         + [s.alias(s.agg_sum(s.col(c)), c) for c in carry] + [s.alias(exp.Max(this=s.col(c)), c) for c in highest]
-    ).from_(_table("_uv_cmp_psu")).group_by(*part("_uv_h"))
+    ).from_(s.table("_uv_cmp_psu")).group_by(*part("_uv_h"))
     n = s.cast_double(s.col("_uv_nu"))
     v_h = s.case(s.gt(s.col("_uv_nu"), s.lit(1)),
                  s.div(s.sub(s.mul(n, s.col("_uv_s2")), s.mul(s.col("_uv_s1"), s.col("_uv_s1"))), s.sub(n.copy(), ONE)))
@@ -125,7 +125,7 @@ def design_difference_sql(spec: _Spec, x: exp.Expression, group: exp.Expression,
         s.alias(s.agg_sum(v_h), "_uv_v"), s.alias(exp.Min(this=s.col("_uv_nu")), "_uv_fewest"),
         s.alias(exp.Max(this=s.col("_uv_bad1")), "_uv_bad1"), s.alias(exp.Max(this=s.col("_uv_bad2")), "_uv_bad2"),
         s.alias(exp.Max(this=s.col("_uv_has1")), "_uv_has1"), s.alias(exp.Max(this=s.col("_uv_has2")), "_uv_has2"),
-    ]).from_(_table("_uv_cmp_str"))
+    ]).from_(s.table("_uv_cmp_str"))
     if keys:
         fin = fin.group_by(*part())
     ok = s.and_(exp.Is(this=s.col("_uv_bad1"), expression=exp.Null()), exp.Is(this=s.col("_uv_bad2"), expression=exp.Null()),
@@ -136,10 +136,10 @@ def design_difference_sql(spec: _Spec, x: exp.Expression, group: exp.Expression,
                 s.sqrt(s.greatest(s.col("_uv_v"), ZERO.copy())))
     final = exp.Select(expressions=part() + [s.col("rows_1"), s.col("rows_2"), s.alias(g1, "gini_1"), s.alias(g2, "gini_2"),
                                              s.alias(s.sub(g1.copy(), g2.copy()), "difference"), s.alias(se, "se")]
-                       ).from_(_table("_uv_cmp_fin"))
-    final.set("with_", exp.With(expressions=[_cte(rows, "_uv_cmp_rows"), _cte(win, "_uv_cmp_win"),
-                                             _cte(lin, "_uv_cmp_lin"), _cte(per_psu, "_uv_cmp_psu"),
-                                             _cte(per_stratum, "_uv_cmp_str"), _cte(fin, "_uv_cmp_fin")]))
+                       ).from_(s.table("_uv_cmp_fin"))
+    final.set("with_", exp.With(expressions=[s.cte(rows, "_uv_cmp_rows"), s.cte(win, "_uv_cmp_win"),
+                                             s.cte(lin, "_uv_cmp_lin"), s.cte(per_psu, "_uv_cmp_psu"),
+                                             s.cte(per_stratum, "_uv_cmp_str"), s.cte(fin, "_uv_cmp_fin")]))
     return final
 
 

@@ -31,7 +31,7 @@ import pandas as pd
 from sqlglot import exp
 
 from uneven.compare_groups import _levels
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 from uneven.errors import MeasureArgumentError
 from uneven.structure import _parse, _Spec, session
 

@@ -23,19 +23,11 @@ import pandas as pd
 from sqlglot import exp
 
 from uneven import catalog
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 from uneven.errors import MeasureArgumentError
 from uneven.structure import _by_labels, _parse, _Spec, session
 
 ZERO = s.lit(0.0)
-
-
-def _table(name: str) -> exp.Table:
-    return exp.Table(this=exp.to_identifier(name, quoted=True))
-
-
-def _cte(sel: exp.Select, name: str) -> exp.CTE:
-    return exp.CTE(this=sel, alias=exp.TableAlias(this=exp.to_identifier(name, quoted=True)))
 
 
 def _check_measure(measure: str, params) -> tuple[str, tuple[float, ...]]:
@@ -59,13 +51,13 @@ def leave_one_out_sql(spec: _Spec, x: exp.Expression) -> exp.Select:
         s.alias(s.window(s.agg_sum(wv.copy()), part(), [xv.copy()], running=True), "_uv_c"),
         s.alias(s.window(s.agg_sum(s.mul(wv.copy(), xv.copy())), part(), [xv.copy()], running=True), "_uv_s"),
         s.alias(s.window(s.agg_sum(wv.copy()), part()), "_uv_wt"),
-        s.alias(s.window(s.agg_sum(s.mul(wv.copy(), xv.copy())), part()), "_uv_t")]).from_(_table("_uv_loo_rows"))
+        s.alias(s.window(s.agg_sum(s.mul(wv.copy(), xv.copy())), part()), "_uv_t")]).from_(s.table("_uv_loo_rows"))
     W, T = s.col("_uv_wt"), s.col("_uv_t")
     D = s.sub(s.mul(xv.copy(), s.sub(s.mul(s.lit(2.0), s.col("_uv_c")), W.copy())),
               s.sub(s.mul(s.lit(2.0), s.col("_uv_s")), T.copy()))
     lin = exp.Select(expressions=part() + [xv.copy(), wv.copy(), W.copy(), T.copy(), s.alias(D, "_uv_d"),
                                            s.alias(s.window(s.agg_sum(s.mul(wv.copy(), D.copy())), part()), "_uv_a2")]
-                     ).from_(_table("_uv_loo_win"))
+                     ).from_(s.table("_uv_loo_win"))
     A = s.div(s.col("_uv_a2"), s.lit(2.0))
     gini = s.case(s.gt(T.copy(), ZERO), s.div(A.copy(), s.mul(W.copy(), T.copy())))
     rest_w, rest_t = s.sub(W.copy(), wv.copy()), s.sub(T.copy(), s.mul(wv.copy(), xv.copy()))
@@ -73,8 +65,8 @@ def leave_one_out_sql(spec: _Spec, x: exp.Expression) -> exp.Select:
                  s.div(s.sub(A.copy(), s.mul(wv.copy(), s.col("_uv_d"))), s.mul(rest_w.copy(), rest_t.copy())))
     change = exp.Select(expressions=part() + [s.alias(xv.copy(), "value"), s.alias(wv.copy(), "weight"),
                                               s.alias(gini, "_uv_all"), s.alias(loo, "_uv_without")]
-                        ).from_(_table("_uv_loo_lin"))
-    return _largest_change(part, [_cte(rows, "_uv_loo_rows"), _cte(win, "_uv_loo_win"), _cte(lin, "_uv_loo_lin")],
+                        ).from_(s.table("_uv_loo_lin"))
+    return _largest_change(part, [s.cte(rows, "_uv_loo_rows"), s.cte(win, "_uv_loo_win"), s.cte(lin, "_uv_loo_lin")],
                            change, "gini")
 
 
@@ -85,12 +77,12 @@ def _largest_change(part, ctes: list[exp.CTE], change: exp.Select, name: str) ->
     rank = s.window(exp.RowNumber(), part(), [exp.Ordered(this=size, desc=True, nulls_first=False),
                                               exp.Ordered(this=s.col("value"), desc=True, nulls_first=False)])
     ranked = exp.Select(expressions=part() + [s.col("value"), s.col("weight"), s.col("_uv_all"), s.col("_uv_without"),
-                                              s.alias(rank, "_uv_n")]).from_(_table("_uv_loo_change"))
+                                              s.alias(rank, "_uv_n")]).from_(s.table("_uv_loo_change"))
     final = exp.Select(expressions=part() + [s.alias(s.col("_uv_all"), name), s.col("value"), s.col("weight"),
                                              s.alias(s.col("_uv_without"), f"{name}_without_row"),
                                              s.alias(s.sub(s.col("_uv_without"), s.col("_uv_all")), "change")])
-    final = final.from_(_table("_uv_loo_ranked")).where(exp.EQ(this=s.col("_uv_n"), expression=exp.Literal.number(1)))
-    final.set("with_", exp.With(expressions=ctes + [_cte(change, "_uv_loo_change"), _cte(ranked, "_uv_loo_ranked")]))
+    final = final.from_(s.table("_uv_loo_ranked")).where(exp.EQ(this=s.col("_uv_n"), expression=exp.Literal.number(1)))
+    final.set("with_", exp.With(expressions=ctes + [s.cte(change, "_uv_loo_change"), s.cte(ranked, "_uv_loo_ranked")]))
     return final
 
 
@@ -124,7 +116,7 @@ def moment_leave_one_out_sql(spec: _Spec, x: exp.Expression, name: str) -> exp.S
     win = exp.Select(expressions=part() + [xv, wv, s.alias(xlnx, "_uv_xlnx"), s.alias(lnx, "_uv_lnx"),
         s.alias(tot(wv.copy()), "_uv_wt"), s.alias(tot(s.mul(wv.copy(), xv.copy())), "_uv_t"),
         s.alias(tot(s.mul(wv.copy(), xlnx.copy())), "_uv_a"), s.alias(tot(s.mul(wv.copy(), lnx.copy())), "_uv_l"),
-        s.alias(s.window(s.agg_min(xv.copy()), part()), "_uv_mn")]).from_(_table("_uv_loo_rows"))
+        s.alias(s.window(s.agg_min(xv.copy()), part()), "_uv_mn")]).from_(s.table("_uv_loo_rows"))
     W, T, A, L, mn = (s.col(c) for c in ("_uv_wt", "_uv_t", "_uv_a", "_uv_l", "_uv_mn"))
     W1, T1 = s.sub(W.copy(), wv.copy()), s.sub(T.copy(), s.mul(wv.copy(), xv.copy()))
     if name == "theil":
@@ -141,8 +133,8 @@ def moment_leave_one_out_sql(spec: _Spec, x: exp.Expression, name: str) -> exp.S
     change = exp.Select(expressions=part() + [s.alias(xv.copy(), "value"), s.alias(wv.copy(), "weight"),
                                               s.alias(s.case(ok, full), "_uv_all"),
                                               s.alias(s.case(rest_ok, rest), "_uv_without")]
-                        ).from_(_table("_uv_loo_win"))
-    return _largest_change(part, [_cte(_rows_cte(spec, x), "_uv_loo_rows"), _cte(win, "_uv_loo_win")], change, name)
+                        ).from_(s.table("_uv_loo_win"))
+    return _largest_change(part, [s.cte(_rows_cte(spec, x), "_uv_loo_rows"), s.cte(win, "_uv_loo_win")], change, name)
 
 
 LEAVE_ONE_OUT = ("gini", "theil", "mld")

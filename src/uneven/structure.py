@@ -19,7 +19,7 @@ import sqlglot
 from sqlglot import exp
 
 from uneven.compiler import compile_sql
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 from uneven.engine.columns import duckdb_source_columns
 from uneven.engine.frames import register_caller_frames
 from uneven.engine.runner import connect, execute_df

@@ -22,7 +22,7 @@ import math
 
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 from uneven.errors import MeasureArgumentError
 
 DEFAULT_RESOLUTION = 0.01

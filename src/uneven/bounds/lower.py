@@ -16,8 +16,8 @@ from sqlglot import exp
 
 from uneven.bounds import bins as b
 from uneven.bounds.measures import BOUNDED, BinContext, Interval, widen
-from uneven.compiler import sqlx as s
-from uneven.compiler.passes.source import cte, grouped, table
+from uneven.sqltree import build as s
+from uneven.sqltree.build import cte, grouped, table
 
 RUNNING = ("uv_w", "uv_wx", "uv_min", "uv_max")  # the bin columns running_sums itself reads (bins.W, WX, MIN, MAX)
 

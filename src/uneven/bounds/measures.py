@@ -21,7 +21,7 @@ from dataclasses import dataclass
 from sqlglot import exp
 
 from uneven.bounds import bins as b
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 
 ZERO, ONE = s.lit(0.0), s.lit(1.0)
 SLACK = 1e-11  # rounding allowance: intervals are widened by SLACK·(1 + |bound|) (docs/bounded.md, "Rounding")

@@ -21,7 +21,7 @@ from uneven.brackets.estimate import Estimate
 from uneven.bounds import bins as b
 from uneven.bounds.lower import join_overlaps
 from uneven.brackets.table import check_brackets
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 from uneven.compiler.emit import to_sql
 from uneven.engine.frames import register_caller_frames
 from uneven.engine.runner import connect, execute_df

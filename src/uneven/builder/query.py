@@ -16,7 +16,7 @@ import sqlglot
 from sqlglot import exp
 
 from uneven import catalog
-from uneven.bounds.run import pick_resolution, run_bounded
+from uneven.engine.bounded import pick_resolution, run_bounded
 from uneven.builder.measures import MeasureCall, column
 from uneven.compiler import compile_sql
 from uneven.compiler.bounded import check_method

@@ -11,7 +11,7 @@ from uneven import reference as ref
 from uneven.catalog.moment import build_hhi_rows
 from uneven.catalog.scaling import finite, times, plain_or_scaled
 from uneven.catalog.spec import Measure, Param
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 
 ZERO = s.lit(0.0)
 

@@ -20,7 +20,7 @@ from sqlglot import exp
 
 from uneven.catalog import moment as mom
 from uneven.catalog import ordered as ordc
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 
 ZERO, ONE = s.lit(0.0), s.lit(1.0)
 

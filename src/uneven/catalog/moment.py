@@ -14,7 +14,7 @@ from sqlglot import exp
 from uneven import reference as ref
 from uneven.catalog.scaling import finite, plain_or_scaled, times
 from uneven.catalog.spec import Measure, Param
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 
 ZERO = s.lit(0.0)
 

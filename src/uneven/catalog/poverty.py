@@ -16,7 +16,7 @@ from sqlglot import exp
 from uneven import reference_poverty as ref
 from uneven.catalog import ordered as ordc
 from uneven.catalog.spec import Measure, Param
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 
 ZERO, ONE = s.lit(0.0), s.lit(1.0)
 

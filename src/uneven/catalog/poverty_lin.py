@@ -24,7 +24,7 @@ from uneven.catalog import linearize as lz
 from uneven.catalog import ordered as ordc
 from uneven.catalog import poverty as pov
 from uneven.catalog.linearize import Lin, combine, neg
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 
 ZERO, ONE = s.lit(0.0), s.lit(1.0)
 K_MEDIAN = lz.hall_sheather(0.5)

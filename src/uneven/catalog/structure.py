@@ -13,7 +13,7 @@ from __future__ import annotations
 
 from uneven import reference_structure as rs
 from uneven.catalog.spec import Measure, Param
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 
 ZERO = s.lit(0.0)
 ALPHA = Param("alpha", "number")

@@ -25,7 +25,7 @@ from sqlglot import exp
 
 from uneven.catalog.scaling import finite
 from uneven.catalog.spec import Measure
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 from uneven.compiler.passes.moment import MomentContext
 from uneven.compiler.passes.source import not_finite
 from uneven.duckdb_functions import lists as L

@@ -17,7 +17,7 @@ import dataclasses
 from sqlglot import exp
 
 from uneven.catalog.spec import Measure
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 from uneven.compiler.calls import MeasureCall
 from uneven.compiler.context import CompileContext
 from uneven.compiler.scope import rewrite_scope

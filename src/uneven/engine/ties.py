@@ -18,7 +18,7 @@ from __future__ import annotations
 import duckdb
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 from uneven.compiler.emit import to_sql
 
 _TIE_PRONE = ("TINYINT", "SMALLINT", "INTEGER", "BIGINT", "HUGEINT", "UTINYINT", "USMALLINT", "UINTEGER",

@@ -8,8 +8,9 @@ from sqlglot import exp
 
 from uneven.bounds import bins as b
 from uneven.bounds.lower import lower_bounds
-from uneven.compiler import sqlx as s
-from uneven.compiler.passes.source import cte, table, value_weight_rows
+from uneven.sqltree import build as s
+from uneven.compiler.passes.source import value_weight_rows
+from uneven.sqltree.build import cte, table
 
 RESERVED_PREFIX = "uv_"
 

@@ -18,8 +18,8 @@ from sqlglot import exp
 from uneven import catalog
 from uneven.bounds import bins as b
 from uneven.bounds.measures import BOUNDED
-from uneven.bounds.run import pick_resolution
-from uneven.compiler import sqlx as s
+from uneven.engine.bounded import pick_resolution
+from uneven.sqltree import build as s
 from uneven.compiler.generate import generate
 from uneven.engine.adapters import adapt, is_duckdb
 from uneven.engine.frames import register_caller_frames, register_frames_on

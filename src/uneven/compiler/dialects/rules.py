@@ -15,7 +15,7 @@ from typing import Callable
 from sqlglot import exp
 from sqlglot.optimizer.annotate_types import annotate_types
 
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 from uneven.errors import UnsupportedDialectError
 from uneven.sqltree.grouping import reads_source_column
 

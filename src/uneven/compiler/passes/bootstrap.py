@@ -25,7 +25,7 @@ import math
 
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 from uneven.compiler.passes.linearized import critical_value
 from uneven.compiler.passes.line import window_ctes
 from uneven.compiler.passes.rows import RowContext, window_columns

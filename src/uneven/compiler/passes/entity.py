@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 from uneven.compiler.passes.source import Source, build_results, cte, grouped, table, valid_value
 
 

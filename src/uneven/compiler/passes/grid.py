@@ -17,7 +17,7 @@ from __future__ import annotations
 
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 from uneven.compiler.passes.source import cte, finite_or_null, table
 
 

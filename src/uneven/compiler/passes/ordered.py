@@ -14,7 +14,7 @@ from __future__ import annotations
 
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 from uneven.compiler.passes.columns import SortedColumns
 from uneven.compiler.passes.grid import grid_table, lower_lorenz_grid
 from uneven.compiler.passes.line import window_ctes

@@ -28,7 +28,7 @@ from dataclasses import dataclass
 
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 from uneven.compiler.passes.source import (Source, checked_value, checked_weight, cte, finite_or_null,
                                              key_name, table, weight_label)
 

@@ -15,7 +15,7 @@ from sqlglot import exp
 from uneven.bounds import bins as b
 from uneven.bounds.lower import lower_bounds
 from uneven.bounds.measures import powers_needed
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 from uneven.compiler.passes.source import Source, cte, table, value_weight_rows
 
 

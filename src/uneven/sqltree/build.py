@@ -273,3 +273,22 @@ def window(fn: exp.Expression, partition: list[exp.Expression], order: list[exp.
         args["spec"] = exp.WindowSpec(kind="ROWS", start="UNBOUNDED", start_side="PRECEDING",
                                       end="UNBOUNDED", end_side="FOLLOWING")
     return exp.Window(**args)
+
+
+# CTEs and table references (names quoted by the generator)
+
+
+def cte(select: exp.Select, name: str) -> exp.CTE:
+    return exp.CTE(this=select, alias=exp.TableAlias(this=exp.to_identifier(name, quoted=True)))
+
+
+def table(name: str) -> exp.Table:
+    return exp.Table(this=exp.to_identifier(name, quoted=True))
+
+
+def grouped(keys: list[exp.Expression], columns: list[exp.Expression], below: str) -> exp.Select:
+    """SELECT keys, columns FROM below GROUP BY keys (no GROUP BY without keys: one row)."""
+    out = exp.Select(expressions=[k.copy() for k in keys] + columns).from_(table(below), copy=False)
+    if keys:
+        out.set("group", exp.Group(expressions=[k.copy() for k in keys]))
+    return out
