@@ -29,13 +29,13 @@ from sqlglot.dialects import DIALECTS
 from sqlglot.dialects.dialect import Dialect
 
 import uneven
+from engines import engine_or_skip
+from oracle import install_oracle, oracle_sql
 from uneven import reference as R
 from uneven.compiler import clauses
 from uneven.compiler.context import CompileContext
 from uneven.compiler.pipeline import compile_tree
 from uneven.errors import UnsupportedSqlError
-from engines import engine_or_skip
-from oracle import install_oracle, oracle_sql
 
 N_SALES = 4000
 

@@ -29,7 +29,6 @@ from __future__ import annotations
 
 from sqlglot import exp
 
-from uneven.sqltree import build as s
 from uneven.compiler.emit import to_sql
 from uneven.errors import ExecutionError, UnevenError
 

@@ -22,8 +22,8 @@ import math
 
 from sqlglot import exp
 
-from uneven.sqltree import build as s
 from uneven.errors import MeasureArgumentError
+from uneven.sqltree import build as s
 
 DEFAULT_RESOLUTION = 0.01
 MIN_RESOLUTION = 1e-6

@@ -84,7 +84,7 @@ def _below_mass_terms(ctx, p: float, Q: exp.Expression, T_factor: exp.Expression
     d = s.sub(ctx.x, ctx.min_row)
     return [(ctx.w, s.mul(s.add(s.mul(s.lit(p), Qd), w_extra), T_factor)),
             (s.mul(ctx.w, s.mul(d, ind)), T_factor.copy()),
-            (s.mul(ctx.w, ind.copy()), s.mul(neg((Qd.copy())), T_factor.copy()))]
+            (s.mul(ctx.w, ind.copy()), s.mul(neg(Qd.copy()), T_factor.copy()))]
 
 
 def lorenz(ctx, p: float) -> Lin:
@@ -135,7 +135,7 @@ def hall_sheather(p: float, alpha: float = 0.05) -> float:
     return nd.inv_cdf(1 - alpha / 2) ** (2 / 3) * (1.5 * nd.pdf(q) ** 2 / (2 * q * q + 1)) ** (1 / 3)
 
 
-def _quantile_at_expr(ctx, p: exp.Expression) -> exp.Expression:
+def quantile_at_expr(ctx, p: exp.Expression) -> exp.Expression:
     reached = s.gte(s.div(ctx.c, ctx.W_row), p)
     return exp.Coalesce(this=s.agg_min(s.case(reached, ctx.x)), expressions=[s.agg_max(ctx.x)])
 
@@ -148,7 +148,7 @@ def density_at_quantile(ctx, p: float) -> exp.Expression:
     h_grp = s.mul(s.lit(K), s.power(s.cast_double(ctx.n), s.lit(-1.0 / 3.0)))
     hi_row, lo_row = s.least(s.add(s.lit(p), h_row), ONE), s.greatest(s.sub(s.lit(p), h_row.copy()), ZERO)
     hi_grp, lo_grp = s.least(s.add(s.lit(p), h_grp), ONE), s.greatest(s.sub(s.lit(p), h_grp.copy()), ZERO)
-    spread = s.sub(_quantile_at_expr(ctx, hi_row), _quantile_at_expr(ctx, lo_row))
+    spread = s.sub(quantile_at_expr(ctx, hi_row), quantile_at_expr(ctx, lo_row))
     return s.case(s.gt(spread, ZERO), s.div(s.sub(hi_grp, lo_grp), spread.copy()))
 
 
@@ -175,7 +175,7 @@ def _pos(ctx, value):
 def theil(ctx, params=()) -> Lin:
     # Th = A/T − ln(T/W), A = Σ w x ln x: z_k = [x_k ln x_k − (A/T + 1) x_k]/T + 1/W
     est = mom.build_theil(ctx)
-    A, T = mom._sum_w_x_ln_x(ctx), ctx.T
+    A, T = mom.sum_w_x_ln_x(ctx), ctx.T
     return Lin(est, [(s.mul(ctx.w, _pos(ctx, s.mul(ctx.x, s.ln(ctx.x)))), s.div(ONE, T)),
                      (s.mul(ctx.w, ctx.x), s.div(neg(s.add(s.div(A, T.copy()), ONE)), T.copy())),
                      (ctx.w, s.div(ONE, ctx.W))])
@@ -184,7 +184,7 @@ def theil(ctx, params=()) -> Lin:
 def mld(ctx, params=()) -> Lin:
     # MLD = ln(T/W) − Lg/W, Lg = Σ w ln x: z_k = x_k/T − 1/W − ln x_k/W + Lg/W²
     est = mom.build_mld(ctx)
-    Lg, W = mom._sum_w_ln_x(ctx), ctx.W
+    Lg, W = mom.sum_w_ln_x(ctx), ctx.W
     return Lin(est, [(s.mul(ctx.w, ctx.x), s.div(ONE, ctx.T)),
                      (ctx.w, s.div(s.sub(s.div(Lg, W), ONE), W.copy())),
                      (s.mul(ctx.w, _pos(ctx, s.ln(ctx.x))), s.div(s.lit(-1.0), W.copy()))])
@@ -197,7 +197,7 @@ def ge(ctx, alpha: float) -> Lin:
         return theil(ctx)
     # R = (V/W)/μ^α, V = Σ w x^α: z_k = [x_k^α R/V + (α−1) R/W − α R x_k/T] / (α(α−1))
     est = mom.build_ge(ctx, (alpha,))
-    V, W, T = mom._sum_w_x_pow(ctx, alpha), ctx.W, ctx.T
+    V, W, T = mom.sum_w_x_pow(ctx, alpha), ctx.W, ctx.T
     R = s.div(s.div(V, W), s.power(s.div(T, W.copy()), s.lit(alpha)))
     return Lin(est, [(s.mul(ctx.w, _pos(ctx, s.power(ctx.x, s.lit(alpha)))),
                       s.div(R, s.mul(V.copy(), s.lit(alpha * (alpha - 1.0))))),
@@ -210,7 +210,7 @@ def atkinson(ctx, eps: float) -> Lin:
     W, T = ctx.W, ctx.T
     if eps == 1:
         # E = exp(Lg/W): z_k = −[E ln x_k/T + E (1 − Lg/W)/T − E W x_k/T²]
-        Lg = mom._sum_w_ln_x(ctx)
+        Lg = mom.sum_w_ln_x(ctx)
         E = s.func("exp", s.div(Lg, W))
         return Lin(est, [(s.mul(ctx.w, _pos(ctx, s.ln(ctx.x))), s.div(neg(E), T)),
                          (ctx.w, s.div(s.mul(E.copy(), s.sub(s.div(Lg.copy(), W.copy()), ONE)), T.copy())),
@@ -218,7 +218,7 @@ def atkinson(ctx, eps: float) -> Lin:
     # E = (V/W)^(1/(1−ε)), V = Σ w x^(1−ε), A = 1 − E W/T:
     # z_k = −[E W/(T(1−ε)) (x_k^(1−ε)/V − 1/W) + E/T − E W x_k/T²]
     b = 1.0 - eps
-    V = mom._sum_w_x_pow(ctx, b)
+    V = mom.sum_w_x_pow(ctx, b)
     E = s.power(s.div(V, W), s.lit(1.0 / b))
     return Lin(est, [(s.mul(ctx.w, _pos(ctx, s.power(ctx.x, s.lit(b)))),
                       s.div(neg(s.mul(E, W.copy())), s.mul(s.mul(T.copy(), s.lit(b)), V.copy()))),

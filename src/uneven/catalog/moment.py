@@ -137,11 +137,11 @@ def _row_mean(ctx) -> bool:
     return getattr(ctx, "row_mean", False)
 
 
-def _sum_w_x_ln_x(ctx):
+def sum_w_x_ln_x(ctx):
     return ctx.sum(s.case(s.gt(ctx.x, s.lit(0.0)), s.mul(ctx.w, s.mul(ctx.x, s.ln(ctx.x))), s.lit(0.0)))
 
 
-def _sum_w_ln_x(ctx):
+def sum_w_ln_x(ctx):
     return ctx.sum(s.case(s.gt(ctx.x, s.lit(0.0)), s.mul(ctx.w, s.ln(ctx.x))))
 
 
@@ -155,25 +155,25 @@ def _pow(x, a: float):
     return s.power(x, s.lit(a))
 
 
-def _sum_w_x_pow(ctx, a: float):
+def sum_w_x_pow(ctx, a: float):
     return ctx.sum(s.case(s.gt(ctx.x, s.lit(0.0)), s.mul(ctx.w, _pow(ctx.x, a)), s.lit(0.0)))
 
 
 def _moment_of(ctx, a: float):
     """Σ w x^a / W / μ^a (one-pass form)."""
-    return s.div(s.div(_sum_w_x_pow(ctx, a), ctx.W), s.power(_mean(ctx), s.lit(a)))
+    return s.div(s.div(sum_w_x_pow(ctx, a), ctx.W), s.power(_mean(ctx), s.lit(a)))
 
 
 def build_theil(ctx, params=()):
     if not _row_mean(ctx):  # Σ w x ln x / T − ln μ
-        return s.case(_nonneg(ctx), s.sub(s.div(_sum_w_x_ln_x(ctx), ctx.T), s.ln(_mean(ctx))))
+        return s.case(_nonneg(ctx), s.sub(s.div(sum_w_x_ln_x(ctx), ctx.T), s.ln(_mean(ctx))))
     # Σ w x ln(x/μ) / T = Σ w (r ln r − (r − 1)) / W
     return s.case(_nonneg(ctx), _mean_of(ctx, _theil_term(ctx.r)))
 
 
 def build_mld(ctx, params=()):
     if not _row_mean(ctx):  # ln μ − Σ w ln x / W
-        return s.case(_positive(ctx), s.sub(s.ln(_mean(ctx)), s.div(_sum_w_ln_x(ctx), ctx.W)))
+        return s.case(_positive(ctx), s.sub(s.ln(_mean(ctx)), s.div(sum_w_ln_x(ctx), ctx.W)))
     # Σ w ln(μ/x) / W = Σ w ((r − 1) − ln r) / W
     return s.case(_positive(ctx), _mean_of(ctx, _mld_term(ctx.r)))
 
@@ -198,7 +198,7 @@ def build_atkinson(ctx, params):
     if not _row_mean(ctx):  # 1 − (Σ w x^(1−ε) / W)^(1/(1−ε)) / μ; ε = 1: 1 − exp(Σ w ln x / W) / μ
         domain = _nonneg(ctx) if eps < 1 else _positive(ctx)
         if eps == 1:
-            return s.case(domain, s.sub(s.lit(1.0), s.div(s.func("exp", s.div(_sum_w_ln_x(ctx), ctx.W)), _mean(ctx))))
+            return s.case(domain, s.sub(s.lit(1.0), s.div(s.func("exp", s.div(sum_w_ln_x(ctx), ctx.W)), _mean(ctx))))
         return s.case(domain, s.sub(s.lit(1.0), s.power(_moment_of(ctx, 1.0 - eps), s.lit(1.0 / (1.0 - eps)))))
     if eps == 1:
         # 1 − exp(Σ w ln x / W) / μ = 1 − exp(−mld) = −expm1(−mld)

@@ -11,8 +11,8 @@ limits: between = Σ_g s_g ln(μ_g/μ) resp. Σ_g v_g ln(μ/μ_g).
 
 from __future__ import annotations
 
-from uneven import reference_structure as rs
 from uneven.catalog.spec import Measure, Param
+from uneven.reference import structure as rs
 from uneven.sqltree import build as s
 
 ZERO = s.lit(0.0)

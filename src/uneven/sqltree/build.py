@@ -88,7 +88,7 @@ def div(a, b):
     return exp.Div(this=paren(a), expression=paren(b))
 
 
-def func(name: str, *args: exp.Expression) -> exp.Expression:
+def func(name: str, *args: exp.Expression) -> exp.Func:
     return exp.func(name, *args)
 
 
@@ -206,7 +206,7 @@ def not_null(e):
 
 def alias(e, name: str) -> exp.Alias:
     """e AS "name", on a copy of e (the caller may use e again)."""
-    return exp.alias_(e, name, quoted=True)
+    return exp.alias_(e, name, quoted=True)  # type: ignore[return-value]  # alias_ is annotated Expr; it builds an Alias
 
 
 def named(e, name: str) -> exp.Alias:
@@ -214,7 +214,7 @@ def named(e, name: str) -> exp.Alias:
     place alone (``alias`` deep-copies its argument, most of the copying of a compile). A tree in
     which some node stands in two places (a builder reused a subtree without copying it) is
     copied, which gives each place its own node, as ``alias`` always did."""
-    return exp.alias_(e, name, quoted=True, copy=not placed_once(e))
+    return exp.alias_(e, name, quoted=True, copy=not placed_once(e))  # type: ignore[return-value]  # as in alias
 
 
 def placed_once(tree: exp.Expression) -> bool:

@@ -19,8 +19,8 @@ from __future__ import annotations
 
 from sqlglot import exp
 
-from uneven.sqltree import build as s
 from uneven.compiler.passes.source import cte, table
+from uneven.sqltree import build as s
 
 
 def _partition(keys):

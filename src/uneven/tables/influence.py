@@ -23,9 +23,9 @@ import pandas as pd
 from sqlglot import exp
 
 from uneven import catalog
-from uneven.sqltree import build as s
 from uneven.errors import MeasureArgumentError
-from uneven.structure import _by_labels, _parse, _Spec, session
+from uneven.sqltree import build as s
+from uneven.tables.base import Spec, group_labels, parse_expression, session
 
 ZERO = s.lit(0.0)
 
@@ -41,7 +41,7 @@ def _check_measure(measure: str, params) -> tuple[str, tuple[float, ...]]:
     return m.name, params
 
 
-def leave_one_out_sql(spec: _Spec, x: exp.Expression) -> exp.Select:
+def leave_one_out_sql(spec: Spec, x: exp.Expression) -> exp.Select:
     """Per group: G, and the row (value, weight) whose removal changes the Gini most, with G₋ₖ."""
     keys = spec.names()
     part = lambda: [s.col(k) for k in keys]  # noqa: E731
@@ -86,7 +86,7 @@ def _largest_change(part, ctes: list[exp.CTE], change: exp.Select, name: str) ->
     return final
 
 
-def _rows_cte(spec: _Spec, x: exp.Expression) -> exp.Select:
+def _rows_cte(spec: Spec, x: exp.Expression) -> exp.Select:
     keys = spec.names()
     w = s.cast_double(spec.weight.copy()) if spec.weight is not None else s.lit(1.0)
     rows = exp.Select(expressions=[s.alias(b.copy(), n) for b, n in zip(spec.by, keys)]
@@ -98,7 +98,7 @@ def _rows_cte(spec: _Spec, x: exp.Expression) -> exp.Select:
     return rows
 
 
-def moment_leave_one_out_sql(spec: _Spec, x: exp.Expression, name: str) -> exp.Select:
+def moment_leave_one_out_sql(spec: Spec, x: exp.Expression, name: str) -> exp.Select:
     """Per group: Theil or MLD, and the row whose removal changes it most, from the group totals
     W = Σw, T = Σw·x, A = Σw·x·ln x (x > 0), L = Σw·ln x (x > 0): without row k they are
     W − w_k, T − w_k·x_k, A − w_k·x_k·ln x_k, L − w_k·ln x_k, and
@@ -149,8 +149,8 @@ def influence(relation: str, x: str, *, weight: str | None = None, by=(), k: int
     if isinstance(k, bool) or not isinstance(k, int) or not 0 <= k <= 100:
         raise MeasureArgumentError(f"influence: k must be a whole number from 0 to 100, got {k!r}")
     name, params = _check_measure(measure, params)
-    spec = _Spec("influence", relation, by, weight)
-    xv = _parse(x, "value", "influence")
+    spec = Spec("influence", relation, by, weight)
+    xv = parse_expression(x, "value", "influence")
     keys = spec.names()
     order = [exp.Ordered(this=xv.copy(), desc=True, nulls_first=False)]
     if spec.weight is not None:
@@ -161,7 +161,7 @@ def influence(relation: str, x: str, *, weight: str | None = None, by=(), k: int
     cond = s.and_(s.not_null(xv.copy()), *([s.not_null(spec.weight.copy()), s.gt(spec.weight.copy(), ZERO)]
                                            if spec.weight is not None else []))
     inner.set("where", exp.Where(this=cond))
-    ranked = _Spec("influence", "t", by, weight)
+    ranked = Spec("influence", "t", by, weight)
     ranked.source = exp.From(this=exp.Subquery(this=inner, alias=exp.TableAlias(this=exp.to_identifier("_uv_ranked"))))
     call = ranked.measure(name, xv, *[s.lit(p) for p in params])
     items = [s.alias(exp.Count(this=exp.Star()), "rows"), s.alias(call, name)]
@@ -182,4 +182,4 @@ def influence(relation: str, x: str, *, weight: str | None = None, by=(), k: int
         out = out.merge(loo, on=keys, how="left") if keys else pd.concat([out, loo], axis=1)
         if spec.weight is None:
             out = out.drop(columns=["top_row_weight"])
-    return spec.rename(out, _by_labels(by))
+    return spec.rename(out, group_labels(by))
