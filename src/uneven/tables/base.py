@@ -53,7 +53,8 @@ class Spec:
     def __init__(self, function: str, relation: str, by, weight: str | None):
         self.function = function
         self.source = parse_relation(relation, function)
-        self.by = [parse_expression(b, "group key", function) for b in ([by] if isinstance(by, str) else list(by or ()))]
+        keys = [by] if isinstance(by, str) else list(by or ())
+        self.by = [parse_expression(b, "group key", function) for b in keys]
         self.weight = parse_expression(weight, "weight", function) if weight is not None else None
 
     def names(self) -> list[str]:

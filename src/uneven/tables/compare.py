@@ -3,8 +3,9 @@
 ``compare(rel, "gross", "disposable")``: the paired Gini difference of two values of the same rows,
 with its standard error (gini_diff / gini_diff_se of the catalog, the paired pass).
 
-``compare(rel, "income", group=…, groups=(a, b))`` (``compare_groups``): The difference of a measure between two groups of rows (two provinces, men and women …), with a
-standard error, in one of two forms:
+``compare(rel, "income", group=…, groups=(a, b))`` (``compare_groups``): the difference of a
+measure between two groups of rows (two provinces, men and women …), with a standard error, in one
+of two forms:
 
 ``se="design"`` (Gini only): the linearized difference under one survey design. Every row of the
 relation (per block of ``by``) belongs to the design; a row of the first group carries
