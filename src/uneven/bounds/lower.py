@@ -65,7 +65,7 @@ def _named(e: exp.Expression, name: str) -> exp.Alias:
 
 
 def lower_bounds(source: str, keys: list[exp.Column], columns: list[str], calls: list[tuple], name: str,
-                 merge: bool) -> tuple[list[exp.CTE], dict, dict]:
+                 merge: bool) -> tuple[list[exp.CTE], dict, dict, list[str]]:
     """CTEs computing intervals for ``calls`` = [(key, measure name, params)] from the bins table
     ``source`` (key columns ``keys``, bin columns ``columns``). Returns (ctes, {key: (point, lo, hi)
     column names in ``name``}, {key: exact flag}, the bin columns the measures read)."""

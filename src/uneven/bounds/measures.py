@@ -16,6 +16,7 @@ Bins do not overlap, so every cross-bin comparison is known exactly.
 
 from __future__ import annotations
 
+from collections.abc import Iterable
 from dataclasses import dataclass
 
 from sqlglot import exp
@@ -39,7 +40,7 @@ class Interval:
 class BinContext:
     """Columns of the running-sums CTE over the bins (see lower.py)."""
 
-    def __init__(self, powers: set[float] = frozenset()):
+    def __init__(self, powers: Iterable[float] = frozenset()):
         self.powers = set(powers)  # exponents whose Σw·x^a the bins store
         # aggregate tree → (column, aggregate); sqlglot trees hash and compare by structure, which is
         # much cheaper than generating SQL text as the key

@@ -42,7 +42,7 @@ def design_variance(u, strata=None, psu=None) -> float | None:
     total = 0.0
     for stratum in dict.fromkeys(h.tolist()):
         in_h = h == stratum
-        units = {}
+        units: dict = {}
         for cc, uu in zip(c[in_h].tolist(), u[in_h]):
             units[cc] = units.get(cc, 0.0) + uu
         U = np.array(list(units.values()))

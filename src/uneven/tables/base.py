@@ -13,6 +13,7 @@ frames registered) and yields ``run(select) -> DataFrame``; ``group_labels`` nam
 from __future__ import annotations
 
 import contextlib
+from collections.abc import Sequence
 
 import pandas as pd
 import sqlglot
@@ -31,7 +32,7 @@ def parse_expression(text: str, what: str, function: str) -> exp.Expression:
     if not isinstance(text, str) or not text.strip():
         raise MeasureArgumentError(f"{function}: {what} must be a column name or SQL expression, got {text!r}")
     try:
-        return sqlglot.parse_one(text, read="duckdb")
+        return sqlglot.parse_one(text, read="duckdb")  # type: ignore[return-value]  # parse_one is annotated Expr
     except sqlglot.errors.ParseError as e:
         raise SqlParseError(f"{function}: cannot read the {what} {text!r}: {str(e).splitlines()[0]}") from None
 
@@ -60,14 +61,15 @@ class Spec:
     def names(self) -> list[str]:
         return [f"_uv_by{i + 1}" for i in range(len(self.by))]
 
-    def select(self, items: list[exp.Expression], present: list[exp.Expression],
-               extra_keys: list[exp.Expression] = ()) -> exp.Select:
+    def select(self, items: Sequence[exp.Expression], present: Sequence[exp.Expression],
+               extra_keys: Sequence[exp.Expression] = ()) -> exp.Select:
         """SELECT by…, items FROM relation WHERE every expression in ``present`` (and the weight) is
         not NULL GROUP BY by…, extra_keys."""
         keys = [s.alias(b.copy(), n) for b, n in zip(self.by, self.names())]
         sel = exp.Select(expressions=keys + list(items))
         sel.set("from_", self.source.copy())
-        cond = s.and_(*[s.not_null(p.copy()) for p in present + ([self.weight] if self.weight is not None else [])])
+        checked = list(present) + ([self.weight] if self.weight is not None else [])
+        cond = s.and_(*[s.not_null(p.copy()) for p in checked])
         if cond is not None:
             sel.set("where", exp.Where(this=cond))
         group = [b.copy() for b in self.by] + [k.copy() for k in extra_keys]
