@@ -6,6 +6,8 @@ identifiers are quoted by the generator and literals are typed nodes.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
+
 from sqlglot import exp
 
 DOUBLE = exp.DataType.build("double")
@@ -257,7 +259,7 @@ def array(*items: exp.Expression) -> exp.Array:
     return exp.Array(expressions=list(items))
 
 
-def window(fn: exp.Expression, partition: list[exp.Expression], order: list[exp.Expression] | None = None,
+def window(fn: exp.Expression, partition: Sequence[exp.Expression], order: Sequence[exp.Expression] | None = None,
            running: bool = False, whole: bool = False) -> exp.Window:
     """fn OVER (PARTITION BY ... [ORDER BY ... ROWS BETWEEN UNBOUNDED PRECEDING AND CURRENT ROW]);
     ``whole``: ROWS BETWEEN UNBOUNDED PRECEDING AND UNBOUNDED FOLLOWING (a partition total that
