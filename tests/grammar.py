@@ -35,6 +35,10 @@ import contextlib
 import dataclasses
 import random
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 # constant parameter forms, by kind; every one is exact and means the same on every engine
 PARAMS = {
@@ -165,7 +169,7 @@ class Shape:
             q += f" LIMIT {self.limit}"
         return with_ + q
 
-    def replace(self, **changes) -> "Shape":
+    def replace(self, **changes) -> Shape:
         return dataclasses.replace(self, **changes)
 
 
@@ -421,15 +425,16 @@ class Grammar:
 
 # --- the tables the shapes read ---------------------------------------------------------------
 
-def survey_frame() -> "pd.DataFrame":
+def survey_frame() -> pd.DataFrame:
     """The survey fixture with nullable column types (NULL stays NULL on every engine's loader)."""
-    import pandas as pd
     from pathlib import Path
+
+    import pandas as pd
     frame = pd.read_parquet(Path(__file__).resolve().parents[1] / "fixtures" / "data" / "survey.parquet")
     return _nullable(frame)
 
 
-def rough_rows(seed: int = 9, n: int = 600) -> "pd.DataFrame":
+def rough_rows(seed: int = 9, n: int = 600) -> pd.DataFrame:
     """Invented hostile rows with the survey's columns (fixed seed): NULL keys, values and weights,
     many ties, zeros, weights of 0, negative values, values from 1e-9 to 1e12 (some 1 apart)."""
     import numpy as np
@@ -452,7 +457,7 @@ def rough_rows(seed: int = 9, n: int = 600) -> "pd.DataFrame":
     return _nullable(frame)
 
 
-def dim_frame() -> "pd.DataFrame":
+def dim_frame() -> pd.DataFrame:
     """A small invented dimension table: a NULL key, a key no row has, keys only one table has."""
     import pandas as pd
     frame = pd.DataFrame({"province": ["North", "South", "Abrazzle", None, "Nowhere", "Bronquivet"],

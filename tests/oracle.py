@@ -39,7 +39,7 @@ def _ref_w(name: str, params, rows) -> float | None:
         return None
     x = [r["x"] for r in rows]
     w = [r["w"] for r in rows]
-    ref = R.REFERENCES.get(name) or catalog.lookup(name).reference  # e.g. <m>_se: reference_se
+    ref = R.REFERENCES.get(name) or catalog.lookup(name).reference  # e.g. <m>_se: reference.se
     return ref(x, *_numbers(name, params), w)
 
 

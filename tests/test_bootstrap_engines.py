@@ -6,7 +6,7 @@ engines and the exact numpy rebuild of tests/test_bootstrap.py is DuckDB's alone
 must show: the same draws on a rerun (the seed fixes them), and a bootstrap standard error that
 agrees with the linearized one — the published variance of the Gini (Langel and Tillé 2013, cited
 from memory) computed
-independently in numpy by ``reference_se`` — within the sampling noise of R replicates.
+independently in numpy by ``reference.se`` — within the sampling noise of R replicates.
 """
 
 from __future__ import annotations
@@ -15,7 +15,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from uneven import reference_se as RS
+from uneven.reference import se as RS
 
 R = 60  # replicates: the SE of a bootstrap SE is about 1/sqrt(2R) ≈ 9% of it
 

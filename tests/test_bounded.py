@@ -72,7 +72,7 @@ def check_inside(df: pd.DataFrame, data: pd.DataFrame, weighted: bool) -> None:
             assert lo <= point <= hi, (item, g, lo, point, hi)
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def compiled(weighted: bool, resolution: float) -> str:
     return uneven.compile(bounded_query(weighted), method="bounded", resolution=resolution)
 

@@ -14,11 +14,11 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
+
+import uneven
 from conftest import make_groups
 from engines import EngineError, engine_or_skip
 from test_bounded import MEASURES, RATIOS
-
-import uneven
 
 # (output name, select item, weighted, reference): every call of MEASURES, weighted and unweighted
 ITEMS = [(f"w{i}", m, True, r) for i, (m, r) in enumerate(MEASURES)] + \

@@ -310,7 +310,7 @@ def test_group_keys_through_a_query_on_duckdb():
     con.execute("CREATE TABLE tab AS SELECT * FROM tab_frame")
     res = from_brackets("(SELECT * FROM tab WHERE year = 2025) t", MEASURES, by=["region"], con=con)
     assert list(res["region"]) == ["north", "south"]
-    for i, (r, x) in enumerate(data.items()):
+    for i, (_r, x) in enumerate(data.items()):
         assert_contains(res, micro_values(x), row=i)
     # rolled up: rows naming the same bracket add, giving the table of the union
     union = from_brackets("tab", MEASURES, con=con)

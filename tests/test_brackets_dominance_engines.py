@@ -17,7 +17,7 @@ import pytest
 
 from uneven.brackets import from_brackets, merge_brackets
 from uneven.cli.main import main
-from uneven.dominance import lorenz_dominance
+from uneven.tables.dominance import lorenz_dominance
 
 MEASURES = ["gini", "top_share(0.1)", "bottom_share(0.4)", "palma", "s80s20", "quantile_w(0.5)",
             "percentile_ratio(0.9, 0.1)", "mean"]

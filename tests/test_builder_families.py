@@ -12,9 +12,9 @@ import pandas as pd
 import pytest
 
 import uneven
-from uneven import reference_se as RSE
-from uneven import reference_structure as RS
 from uneven.errors import MeasureArgumentError
+from uneven.reference import se as RSE
+from uneven.reference import structure as RS
 
 # (builder call, the same call in SQL text)
 FAMILIES = [
@@ -81,7 +81,7 @@ def test_builder_against_numpy_references(con, survey):
         assert row["c"] == pytest.approx(RS.concentration(d["y"].to_numpy(float), x, w), rel=1e-10)
         assert row["k"] == pytest.approx(RS.kakwani(d["tax"].to_numpy(float), x, w), rel=1e-10)
         assert row["gb"] == pytest.approx(RS.ge_between(x, 0.0, d["r"].to_numpy(object)), rel=1e-10)
-        # linearized SE with strata and PSUs (reference_se: z per row + with-replacement design variance,
+        # linearized SE with strata and PSUs (reference.se: z per row + with-replacement design variance,
         # the usual formula of survey practice: common practice, from memory)
         want = RSE.se("gini", x, (), w, d["h"].to_numpy(), d["c"].to_numpy())
         assert row["se"] == pytest.approx(want, rel=1e-9)

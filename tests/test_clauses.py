@@ -29,13 +29,13 @@ from sqlglot.dialects import DIALECTS
 from sqlglot.dialects.dialect import Dialect
 
 import uneven
+from engines import engine_or_skip
+from oracle import install_oracle, oracle_sql
 from uneven import reference as R
 from uneven.compiler import clauses
 from uneven.compiler.context import CompileContext
 from uneven.compiler.pipeline import compile_tree
 from uneven.errors import UnsupportedSqlError
-from engines import engine_or_skip
-from oracle import install_oracle, oracle_sql
 
 N_SALES = 4000
 
@@ -486,7 +486,7 @@ def test_ordered_numbering_is_read_once(con, window):
            f"FROM (SELECT *, {window} AS k FROM sales) s WHERE k % 3 = 0 GROUP BY category ORDER BY 1")
     compiled = uneven.compile(sql)
     assert "MATERIALIZED" in compiled
-    for cat, n, sx, listed, gi, th in con.execute(compiled).fetchall():
+    for _cat, n, sx, listed, gi, th in con.execute(compiled).fetchall():
         assert n == len(listed) and math.isclose(sx, sum(listed), rel_tol=1e-12)
         assert math.isclose(gi, R.gini(listed), rel_tol=1e-9)
         assert math.isclose(th, R.theil(listed), rel_tol=1e-9)

@@ -90,6 +90,7 @@ def test_compile_and_measures(capsys):
     out = capsys.readouterr().out
     assert "ROW_NUMBER() OVER" in out
     import sqlglot
+
     from uneven.compiler.calls import find_calls
     assert not find_calls(sqlglot.parse_one(out, read="duckdb"))  # only the output alias says gini
     assert main(["measures"]) == 0

@@ -1,7 +1,7 @@
 """The difference of a measure between two groups of rows with its standard error
 (structure.compare with group=/groups=, and `uneven compare --group`), against an independent
 numpy computation written here from the published formulas: the linearized Gini of each row
-(Langel & Tillé 2013, cited from memory, via uneven.reference_se.influence, itself checked
+(Langel & Tillé 2013, cited from memory, via uneven.reference.se.influence, itself checked
 against numerical derivatives in test_uncertainty.py) and the with-replacement variance of a total
 over strata and PSUs (common practice of survey sampling; Wolter 2007, §1.4, cited from memory);
 plus a small Monte Carlo check that the SE tracks the spread of the
@@ -15,10 +15,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from uneven import reference_se as RSE
 from uneven.cli.main import main
 from uneven.errors import MeasureArgumentError
-from uneven.structure import compare
+from uneven.reference import se as RSE
+from uneven.tables.compare import compare
 
 
 @pytest.fixture(scope="module")

@@ -27,15 +27,13 @@ import pytest
 import sqlglot
 
 import uneven
-from uneven import reference as R
-from uneven import reference_se as RSE
-from uneven.errors import MeasureArgumentError
-from uneven.sqltree.constants import ConstantError, evaluate_constant
-
 from conftest import make_groups
 from engines import EngineError
 from oracle import install_oracle, oracle_sql
-
+from uneven import reference as R
+from uneven.errors import MeasureArgumentError
+from uneven.reference import se as RSE
+from uneven.sqltree.constants import ConstantError, evaluate_constant
 
 # ---- the evaluator on its own ------------------------------------------------------------------
 
@@ -275,7 +273,7 @@ def test_cr_count_is_checked_on_the_evaluated_value():
 
 def test_level_is_evaluated(con, data):
     # CAST(0.85 AS DECIMAL(2,1)) is 0.9 in DuckDB (half away from zero); the interval is the
-    # reference's (reference_se.ci: estimate − z·SE from the published linearization)
+    # reference's (reference.se.ci: estimate − z·SE from the published linearization)
     sql = "SELECT grp, gini_ci_lo(x, w, level := CAST(0.85 AS DECIMAL(2,1))) AS v FROM t GROUP BY grp"
     assert uneven.compile(sql) == uneven.compile(sql.replace("CAST(0.85 AS DECIMAL(2,1))", "0.9"))
     got = _rows(con.execute(uneven.compile(sql)).fetchall())

@@ -25,6 +25,7 @@ EXAMPLE = ROOT / "examples" / "dbt_quembraland_postgres"
                     reason="dbt-core and dbt-postgres are not installed (pip install -e '.[test]')")
 def test_dbt_postgres_build_computes_the_reference_numbers(tmp_path):
     import psycopg
+
     from engines import PostgresEngine
     pg = engine_or_skip("postgres")
     info = psycopg.conninfo.conninfo_to_dict(PostgresEngine.server.dsn)

@@ -15,7 +15,6 @@ from __future__ import annotations
 
 import json
 import os
-from pathlib import Path
 
 import duckdb
 import pandas as pd
@@ -24,11 +23,11 @@ import sqlglot
 
 import uneven
 from engines import engine_or_skip
+from oracle import install_oracle, oracle_sql
+from test_golden import GOLDEN, ROOT, _same, read_fixture
 from uneven.cli.main import main
 from uneven.compiler.calls import find_calls
 from uneven.compiler.dialects import EXECUTED_DIALECTS, SUPPORTED_DIALECTS
-from oracle import install_oracle, oracle_sql
-from test_golden import GOLDEN, ROOT, _same, read_fixture
 
 EMITTED = ("trino", "bigquery", "snowflake")
 DIALECT_GOLDEN = ROOT / "fixtures" / "golden" / "dialects"

@@ -13,9 +13,9 @@ import pytest
 
 import uneven
 from uneven import reference as R
-from uneven import reference_se as RSE
 from uneven.cli.main import main
-from uneven.dominance import critical_value, decide, grid
+from uneven.reference import se as RSE
+from uneven.tables.dominance import critical_value, decide, grid
 
 N = 3000
 

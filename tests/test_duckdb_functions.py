@@ -18,10 +18,10 @@ import pytest
 import uneven
 from conftest import make_groups
 from roundtrip import emission_checked
-from uneven.duckdb_functions import install_sql, installed, uninstall
-from uneven.catalog import MEASURES
-from uneven.duckdb_functions.install import INSTALL_SQL, FunctionConflictError, has_aggregate_macro, has_macros
 from test_measures_engines import CASES, ENTITY_CASES, _expected, close
+from uneven.catalog import MEASURES
+from uneven.duckdb_functions import install_sql, installed, uninstall
+from uneven.duckdb_functions.install import INSTALL_SQL, FunctionConflictError, has_aggregate_macro, has_macros
 
 # (template, reference, weighted); entity measures take no weight; lorenz_curve has no macro, nor do
 # the measures on passes a macro cannot express (has_aggregate_macro; see docs)

@@ -14,11 +14,11 @@ import sqlite3
 import duckdb
 import pandas as pd
 import pytest
-from roundtrip import DIALECTS, assert_faithful
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
+from roundtrip import DIALECTS, assert_faithful
 from uneven.compiler.emit import emission_error, parenthesize
+from uneven.sqltree import build as s
 
 T, F, NULL = exp.true(), exp.false(), exp.Null()
 

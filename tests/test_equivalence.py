@@ -13,7 +13,7 @@ import pytest
 
 import uneven
 from uneven import reference as R
-from uneven import reference_poverty as RP
+from uneven.reference import poverty as RP
 
 
 def households(seed: int = 5, n: int = 80) -> pd.DataFrame:

@@ -6,8 +6,15 @@ import duckdb
 import pytest
 
 import uneven
-from uneven.errors import (ExecutionError, InputDataError, MeasureArgumentError, MeasureUsageError,
-                            SqlParseError, UndefinedResultError, UnsupportedSqlError)
+from uneven.errors import (
+    ExecutionError,
+    InputDataError,
+    MeasureArgumentError,
+    MeasureUsageError,
+    SqlParseError,
+    UndefinedResultError,
+    UnsupportedSqlError,
+)
 
 
 @pytest.mark.parametrize("sql,cls,fragment,line,col", [

@@ -87,8 +87,9 @@ def test_golden_executes_like_oracle(path, con):
 
 
 def test_compiled_sql_has_no_measure_calls():
-    from uneven.compiler.calls import find_calls
     import sqlglot
+
+    from uneven.compiler.calls import find_calls
     for path in GOLDEN:
         tree = sqlglot.parse_one(read_fixture(path)[1], read="duckdb")
         assert not find_calls(tree), path.name

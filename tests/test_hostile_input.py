@@ -20,8 +20,16 @@ import uneven
 from engines import ENGINES, engine_or_skip
 from uneven import reference as R
 from uneven.engine.runner import translate_error
-from uneven.errors import (ExecutionError, UnevenError, InputDataError, MeasureArgumentError, MeasureUsageError, SqlParseError,
-                            UndefinedResultError, UnsupportedSqlError)
+from uneven.errors import (
+    ExecutionError,
+    InputDataError,
+    MeasureArgumentError,
+    MeasureUsageError,
+    SqlParseError,
+    UndefinedResultError,
+    UnevenError,
+    UnsupportedSqlError,
+)
 
 NULL = object()  # the expected outcome "NULL"
 

@@ -9,7 +9,7 @@ import pandas as pd
 import pytest
 
 from uneven import reference as R
-from uneven.influence import influence
+from uneven.tables.influence import influence
 
 
 @pytest.mark.parametrize("measure", ["theil", "mld"])

@@ -18,9 +18,9 @@ import pytest
 
 from conftest import make_groups
 from uneven import reference as R
-from uneven import reference_poverty as RP
-from uneven import reference_se as RSE
-from uneven import reference_structure as RS
+from uneven.reference import poverty as RP
+from uneven.reference import se as RSE
+from uneven.reference import structure as RS
 
 # (SQL call template, reference call); {w} is ", w" or "" ; the reference gets (x, w) arrays
 CASES = [
@@ -69,7 +69,7 @@ CASES = [
     ("reynolds_smolensky(x, e{w})", lambda x, w, e: RS.reynolds_smolensky(x, e, w)),
     ("gini_diff(x, e{w})", lambda x, w, e: RS.gini_diff(x, e, w)),
     ("gini_diff_se(x, e{w})", lambda x, w, e: RS.gini_diff_se(x, e, w)),
-    # poverty lines and polarization (reference_poverty, checked in test_poverty.py)
+    # poverty lines and polarization (reference.poverty, checked in test_poverty.py)
     ("below_line_share(x, 0.6{w})", lambda x, w, e: RP.below_line_share(x, 0.6, w)),
     ("below_line_share(x, 1{w})", lambda x, w, e: RP.below_line_share(x, 1.0, w)),
     ("median_gap(x, 0.6{w})", lambda x, w, e: RP.median_gap(x, 0.6, w)),

@@ -77,7 +77,7 @@ def test_quantile_at_one_is_the_largest_value_with_float_weights():
     df = pd.concat(frames, ignore_index=True)
     res = run("SELECT g, quantile_w(x, 1, w) AS q1, percentile_ratio(x, 1, 0, w) AS r FROM t GROUP BY g ORDER BY g",
               t=df)
-    for (g, d), q1, r in zip(df.groupby("g"), res["q1"], res["r"]):
+    for (_g, d), q1, r in zip(df.groupby("g"), res["q1"], res["r"]):
         top = np.quantile(d.x.to_numpy(), 1.0, method="inverted_cdf", weights=d.w.to_numpy())
         assert q1 == top == d.x.max()
         assert r == pytest.approx(d.x.max() / d.x.min(), rel=1e-15)
@@ -135,6 +135,7 @@ def test_open_dataset_engel():
     # Source: statsmodels' shipped Engel data (household income and food expenditure); values
     # computed here independently: Gini by the pairwise sum, Theil by math.fsum of the definition.
     import math
+
     from statsmodels.datasets import engel
     data = engel.load_pandas().data
     inc = data["income"].to_numpy()

@@ -7,7 +7,6 @@ install recorded, idempotent, refusing a function it did not create; uninstall r
 
 from __future__ import annotations
 
-
 import numpy as np
 import pytest
 

@@ -17,8 +17,8 @@ import pandas as pd
 import pytest
 
 import uneven
-from uneven import reference_poverty as RP
-from uneven import reference_se as RSE
+from uneven.reference import poverty as RP
+from uneven.reference import se as RSE
 
 PHI = NormalDist()
 
@@ -147,7 +147,7 @@ def test_relative_scores_less_their_median_part_are_derivatives():
     rng = np.random.default_rng(4)
     x, w = rng.lognormal(1, 0.8, 41), rng.uniform(0.5, 3.0, 41)
     M = RP.R.quantile_w(x, 0.5, w)
-    zM, _ = RP._median_score(x, w)
+    zM, _ = RP.median_score(x, w)
     for alpha in (1.0, 2.0):
         F, z = RP.influence("fgt_relative", x, (alpha, 0.6), w)
         slope = alpha / (0.6 * M) * (RP.fgt_relative(x, alpha - 1, 0.6, w) - F)

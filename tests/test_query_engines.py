@@ -12,7 +12,6 @@ builder, summaries and the command line's --engine on each engine.
 
 from __future__ import annotations
 
-import math
 import sqlite3
 
 import numpy as np
@@ -21,14 +20,13 @@ import pytest
 
 import uneven
 from conftest import make_groups
-from engines import ENGINES, SparkEngine, ThroughQuery, engine_or_skip
-from uneven import reference as R
-from uneven.errors import ExecutionError, InputDataError, MeasureArgumentError, UndefinedResultError
+from engines import ENGINES, ThroughQuery, engine_or_skip
+from test_dialects import _engine_with_fixture_data, oracle_con, test_golden_runs_like_oracle_on_engine  # noqa: F401
 
 # the matrix's tests, collected here again with the engines below
-from test_measures_engines import (ALL, batch, data, test_measure_matches_reference,  # noqa: F401
-                                   test_query_shape_matches_reference)
-from test_dialects import oracle_con, test_golden_runs_like_oracle_on_engine, _engine_with_fixture_data  # noqa: F401
+from test_measures_engines import ALL, batch, data, test_measure_matches_reference, test_query_shape_matches_reference  # noqa: F401
+from uneven import reference as R
+from uneven.errors import ExecutionError, InputDataError, MeasureArgumentError, UndefinedResultError
 
 
 @pytest.fixture(params=sorted(ENGINES), scope="module")
@@ -114,11 +112,11 @@ def test_bounded_se_and_bootstrap_on_the_engine(engine, data):
     exact = R.gini(x, w)
     assert df["g_lo"].iloc[0] - 1e-12 <= exact <= df["g_hi"].iloc[0] + 1e-12
     assert df.attrs["uneven"]["method"] == "bounded" and df["g_hi"].iloc[0] - df["g_lo"].iloc[0] < 0.01
-    # the standard error: the same value as the DuckDB path (reference_se is checked in test_uncertainty)
+    # the standard error: the same value as the DuckDB path (reference.se is checked in test_uncertainty)
     sql = "SELECT gini_se(x, w) AS se FROM t WHERE grp = 'g0'"
     got = uneven.query(sql, engine.con)
     assert close(got["se"].iloc[0], uneven.query(sql, _duck(data))["se"].iloc[0])
-    from uneven.reference_se import se
+    from uneven.reference.se import se
     assert close(got["se"].iloc[0], se("gini", x, (), w))
 
 
@@ -197,6 +195,7 @@ def test_sqlite_functions_installed_on_first_use_and_again_harmlessly():
 
 def test_a_missing_driver_names_the_extra(monkeypatch):
     import builtins
+
     from uneven.engine.adapters.url import open_url
     from uneven.errors import EngineUnavailableError
     real = builtins.__import__
@@ -249,6 +248,7 @@ def _engine_url(engine, tmp_path, data, monkeypatch) -> str:
         return f"duckdb:///{path}"
     if engine.name == "postgres":
         import psycopg
+
         from engines import PostgresEngine
         info = psycopg.conninfo.conninfo_to_dict(PostgresEngine.server.dsn)
         if info.get("password"):  # never on the command line: libpq reads it from the environment
@@ -339,6 +339,7 @@ def test_sqlalchemy_over_postgres():
     data = make_groups()
     pg.load(data, "t_sqlalchemy")
     import psycopg
+
     from engines import PostgresEngine
     info = psycopg.conninfo.conninfo_to_dict(PostgresEngine.server.dsn)
     url = sqlalchemy.engine.URL.create("postgresql+psycopg", username=info.get("user"), password=info.get("password"),

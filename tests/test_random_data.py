@@ -8,7 +8,6 @@ from __future__ import annotations
 import math
 
 import duckdb
-import numpy as np
 import pandas as pd
 import pytest
 from hypothesis import HealthCheck, example, given, settings

@@ -26,7 +26,6 @@ from scipy.stats import norm
 
 from uneven import reference as ref
 
-
 # ---------------------------------------------------------------------------------------------
 # Helpers
 # ---------------------------------------------------------------------------------------------
@@ -972,7 +971,7 @@ def test_standard_error_reference_where_the_measure_is_undefined_or_weights_are_
     """The SE reference follows the measure contract (shared/DESIGN.md): where the measure is NULL
     (no positive total) its standard error is NULL, never an exception; rows of weight 0 change
     nothing; equal values give Gini 0 in every sample, so its standard error is 0 (common practice)."""
-    from uneven import reference_se as S
+    from uneven.reference import se as S
     assert S.se("gini", [1.0, 2.0, 3.0], (), [0.0, 0.0, 0.0]) is None
     assert S.se("lorenz", [-1.0, -2.0, 1.0], (0.4,), [1.0, 1.0, 1.0]) is None
     assert S.ci("top_share", [-1.0, -2.0, 1.0], (0.1,), [1.0, 1.0, 1.0]) == (None, None)

@@ -23,7 +23,6 @@ import pytest
 import uneven
 from uneven.errors import MeasureUsageError
 
-
 # ---- exact oracle ---------------------------------------------------------------------------------
 
 def _rows(x, w):

@@ -18,13 +18,13 @@ import pandas as pd
 import pytest
 
 import uneven
+from engines import require_engines
 from uneven import reference as R
-from uneven import reference_se as RS
 from uneven.cli.main import main
+from uneven.reference import se as RS
 from uneven.report import report_data
 from uneven.report.html import TABLE_HEAD
 from uneven.report.svg import BAR_COLOUR, PALETTE
-from engines import require_engines
 
 SVG = "{http://www.w3.org/2000/svg}"
 K = 50  # the report's default Lorenz grid
@@ -61,7 +61,7 @@ def test_report_numbers_match_the_reference(survey):
                      "median": R.quantile_w(x, 0.5, w), "gini": R.gini(x, w), "bottom40": R.bottom_share(x, 0.4, w),
                      "top10": R.top_share(x, 0.1, w), "palma": R.palma(x, w), "s80s20": R.s80s20(x, w),
                      "theil": R.theil(x, w)}
-    # the 95 % intervals of the Gini, the shares, the ratios and Theil (reference_se: linearization,
+    # the 95 % intervals of the Gini, the shares, the ratios and Theil (reference.se: linearization,
     # rows as independent draws; numpy written from the influence functions)
     intervals = {"gini": ("gini", ()), "bottom40": ("bottom_share", (0.4,)), "top10": ("top_share", (0.1,)),
                  "palma": ("palma", ()), "s80s20": ("s80s20", ()), "theil": ("theil", ())}

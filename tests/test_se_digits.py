@@ -20,7 +20,6 @@ from __future__ import annotations
 import mpmath as mp
 import numpy as np
 import pandas as pd
-import pytest
 
 SPREADS = {"g1": 0.3, "g2": 1e-2, "g3": 1e-4, "g4": 1e-6}
 TOLERANCE = {"g1": 1e-9, "g2": 1e-9, "g3": 1e-9, "g4": 3e-8}

@@ -17,7 +17,7 @@ import pandas as pd
 import pytest
 from scipy.stats import norm
 
-from uneven import reference_se as RSE
+from uneven.reference import se as RSE
 
 P_USED = (0.1, 0.25, 0.5, 0.9)
 SEED = 0
@@ -75,7 +75,7 @@ def _split_ties(x, w, p):
     values, starts = np.unique(xs, return_index=True)
     ends = np.append(starts[1:], len(xs))
     C = np.cumsum(ws)
-    for v, a, b in zip(values, starts, ends):
+    for _v, a, b in zip(values, starts, ends):
         before, after = (C[a - 1] if a else 0.0), C[b - 1]
         if abs(after - p * W) < 1e-6 * W:
             return False
@@ -191,8 +191,8 @@ def test_other_quantile_and_line_ses_do_not_depend_on_the_row_order(engine, resu
 def test_the_reference_agrees_with_the_formula_in_any_row_order():
     # the package's numpy reference of the score (uneven.reference_se) reads the indicator by value too
     rng = np.random.default_rng(3)
-    for g, d in ROWS.groupby("g"):
-        for perm in range(3):
+    for _g, d in ROWS.groupby("g"):
+        for _perm in range(3):
             idx = rng.permutation(len(d))
             x, w = d.x.to_numpy()[idx], d.w.to_numpy()[idx]
             for p in P_USED:

@@ -22,10 +22,10 @@ from scipy.stats import rankdata
 
 import uneven
 from uneven import reference as R
-from uneven import reference_structure as RS
-from uneven.errors import UnevenError, MeasureArgumentError
-from uneven.influence import influence
-from uneven.structure import compare, decompose, gini_sources
+from uneven.errors import MeasureArgumentError, UnevenError
+from uneven.reference import structure as RS
+from uneven.tables import compare, decompose, gini_sources
+from uneven.tables.influence import influence
 
 
 def _frame(seed=3, n=240):

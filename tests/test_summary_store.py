@@ -29,7 +29,7 @@ def _key(df):
 def test_merge_of_disjoint_parts_is_the_summary_of_the_union(sales, tmp_path):
     first, second = sales[sales.month <= 3], sales[sales.month > 3]  # noqa: F841 (read by summarize)
     parts = []
-    for name, frame in (("first", first), ("second", second)):
+    for name, _frame in (("first", first), ("second", second)):
         path = tmp_path / f"{name}.parquet"
         uneven.summarize(name, "revenue", "w", by=["category"], parquet=path, powers=[2])
         parts.append(str(path))

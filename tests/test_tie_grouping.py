@@ -11,8 +11,8 @@ import pandas as pd
 import pytest
 
 import uneven
-from uneven.catalog import MEASURES
 from test_measures_engines import CASES, close
+from uneven.catalog import MEASURES
 
 ORDERED_CASES = [c for c in CASES if MEASURES[c[0].split("(")[0]].pass_for(False) == "ordered"]
 

@@ -17,10 +17,10 @@ import pytest
 from sqlglot import exp
 
 import uneven
-from uneven.compiler import generate as generate_module
-from uneven.compiler.dialects import SUPPORTED_DIALECTS
 from grammar import Grammar
 from test_golden import GOLDEN, read_fixture
+from uneven.compiler import generate as generate_module
+from uneven.compiler.dialects import SUPPORTED_DIALECTS
 
 
 def misplaced(tree: exp.Expression) -> list[str]:

@@ -1,5 +1,5 @@
 """Standard errors and confidence intervals by linearization: SQL (every engine) against the numpy
-reference (uneven.reference_se), and the reference itself against independent routes — a
+reference (uneven.reference.se), and the reference itself against independent routes — a
 numerical derivative of the estimator, Davidson's (2009) variance (written from memory), a
 hand-computed design variance (the with-replacement variance of a total over strata and PSUs:
 common practice, formula quoted from memory) and a Monte Carlo coverage check."""
@@ -17,8 +17,8 @@ import pytest
 import uneven
 from conftest import make_groups
 from uneven import reference as R
-from uneven import reference_se as rse
 from uneven.errors import MeasureArgumentError
+from uneven.reference import se as rse
 
 # (SQL name, params, data: "groups" = make_groups (ties, zeros, NULLs) or "smooth" = tie-free)
 CASES = [
@@ -299,7 +299,7 @@ def test_estimate_next_to_its_se_keeps_digits_under_a_large_offset():
 # Gini of equal values is 0, every Lorenz ordinate is p, Theil/MLD/GE/Atkinson are 0: facts of the
 # trade), so its derivative with respect to any weight, the linearized score, is 0 and the design
 # variance is exactly 0. The quantile's score divides by a density that has no estimate when the
-# values coincide (reference_se.density_at_quantile gives None), so its SE is NULL, as for a ratio
+# values coincide (reference.se.density_at_quantile gives None), so its SE is NULL, as for a ratio
 # of quantiles.
 EQUAL_ZERO = ["gini_se(x{w})", "lorenz_se(x, 0.3{w})", "bottom_share_se(x, 0.5{w})", "top_share_se(x, 0.1{w})",
               "generalized_lorenz_se(x, 0.5{w})", "palma_se(x{w})", "s80s20_se(x{w})", "theil_se(x{w})",
@@ -336,7 +336,7 @@ def test_se_of_equal_values_is_exactly_zero(engine):
 
 def exact_gini_se(x, w) -> float:
     """The linearized Gini SE in exact rationals (Python ``fractions``): Langel & Tillé's score
-    (from memory, as in reference_se._gini) per row, u = w·z, and n/(n−1)·Σ(u − ū)² (common
+    (from memory, as in reference.linearized._gini) per row, u = w·z, and n/(n−1)·Σ(u − ū)² (common
     practice); only the final square root is rounded."""
     pairs = sorted(zip((Fraction(float(v)) for v in x), (Fraction(float(v)) for v in w)))
     W, T = sum(b for _, b in pairs), sum(a * b for a, b in pairs)

@@ -11,10 +11,10 @@ import math
 import numpy as np
 import pandas as pd
 import pytest
-from conftest import make_groups
-from test_user_measures import middle_share_reference
 
 import uneven
+from conftest import make_groups
+from test_user_measures import middle_share_reference
 from uneven import reference as R
 
 

@@ -5,21 +5,26 @@
 """
 
 from uneven.api import compile, explain, measures, query  # noqa: A004
+from uneven.brackets import from_brackets, merge_brackets
 from uneven.builder import BuilderError, from_
 from uneven.builder.scalars import equivalised, person_weight
 from uneven.catalog.user import define_measure, remove_measure
 from uneven.duckdb_functions import FunctionConflictError, install, uninstall
 from uneven.engine.sqlite import install_sqlite_functions
-from uneven.errors import (ExecutionError, UnevenError, InputDataError, MeasureArgumentError,
-                            MeasureUsageError, SqlParseError, UndefinedResultError, UnsupportedDialectError,
-                            UnsupportedSqlError)
-from uneven.dominance import lorenz_dominance
-from uneven.influence import influence
+from uneven.errors import (
+    ExecutionError,
+    InputDataError,
+    MeasureArgumentError,
+    MeasureUsageError,
+    SqlParseError,
+    UndefinedResultError,
+    UnevenError,
+    UnsupportedDialectError,
+    UnsupportedSqlError,
+)
 from uneven.report import lorenz_points, plot_lorenz, write_report
-from uneven.structure import compare, decompose, gini_sources
-
-from uneven.summary import from_summary, merge_summaries, summarize
-from uneven.brackets import from_brackets, merge_brackets
+from uneven.stored import from_summary, merge_summaries, summarize
+from uneven.tables import compare, decompose, gini_sources, influence, lorenz_dominance
 
 __version__ = "0.1.0"
 

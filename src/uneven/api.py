@@ -4,14 +4,13 @@ from __future__ import annotations
 
 import inspect
 
-import duckdb
 import pandas as pd
 
-from uneven.bounds.run import pick_resolution, run_bounded
 from uneven.catalog import MEASURES
-from uneven.compiler.bounded import check_method
 from uneven.compiler import compile_sql
+from uneven.compiler.bounded import check_method
 from uneven.engine.adapters import adapt, is_duckdb
+from uneven.engine.bounded import pick_resolution, run_bounded
 from uneven.engine.columns import duckdb_expression_types, duckdb_source_columns
 from uneven.engine.frames import register_caller_frames, register_frames_on
 from uneven.engine.runner import connect, execute_df

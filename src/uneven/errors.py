@@ -21,7 +21,7 @@ class UnevenError(Exception):
         super().__init__(self._render())
 
     def _render(self) -> str:
-        if self.sql is None or self.start is None:
+        if self.sql is None or self.start is None or self.line is None or self.column is None:
             return self.message
         lines = self.sql.splitlines() or [""]
         text = lines[self.line - 1] if 0 < self.line <= len(lines) else ""

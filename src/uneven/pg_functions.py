@@ -29,7 +29,6 @@ from __future__ import annotations
 
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
 from uneven.compiler.emit import to_sql
 from uneven.errors import ExecutionError, UnevenError
 

@@ -6,7 +6,8 @@
 
 No ``ORDER BY`` is needed: the state is a fixed handful of sums (streaming, a few numbers per
 group), so any group size works. The state functions are PL/pgSQL (step_source says why), the
-final functions SQL-language, every expression a sqlglot tree generated for PostgreSQL. State (``double precision[]``, 1-based as PostgreSQL counts):
+final functions SQL-language, every expression a sqlglot tree generated for PostgreSQL. State
+(``double precision[]``, 1-based as PostgreSQL counts):
 
     1 n   rows with weight > 0            9  RL = Σ w·r·ln r      (x > 0)
     2 m   the group's first positive x    10 L  = Σ w·ln r        (x > 0)
@@ -38,8 +39,9 @@ from __future__ import annotations
 from sqlglot import exp
 
 from uneven.compiler.emit import to_sql
-
-from uneven.pg_functions import _fail as fail, _n as n, _state as state
+from uneven.pg_functions import _fail as fail
+from uneven.pg_functions import _n as n
+from uneven.pg_functions import _state as state
 
 X = exp.column("x")
 NAMES = ("theil", "mld", "ge", "atkinson", "cv", "hhi")
@@ -138,7 +140,8 @@ def step_body(measure: str, weighted: bool):
     ifs += _param_checks(measure)
     if weighted:
         ifs += [(w.copy() < n(0), fail(f"negative weight in the weight argument of {measure}()")),
-                (exp.NEQ(this=w.copy() * n(0), expression=n(0)), fail(f"NaN or infinite weight in the weight argument of {measure}()")),
+                (exp.NEQ(this=w.copy() * n(0), expression=n(0)),
+                 fail(f"NaN or infinite weight in the weight argument of {measure}()")),
                 (_eq(w.copy(), n(0)), exp.column("s"))]
     passed_on = lambda item: isinstance(item.this, exp.Column) and item.this.name == item.alias  # noqa: E731
     return [(layer, item.alias, item.this) for layer in (first, logs, ranged) for item in layer.expressions
@@ -181,7 +184,8 @@ def final_body(measure: str) -> exp.Select:
     elif measure == "mld":
         body = _case((exp.or_(negatives, zeros), exp.Null()), default=mld)
     elif measure == "ge":
-        general = (exp.Exp(this=_ln(P.copy() / W.copy()) - p.copy() * _ln(mu_m.copy())) - n(1)) / (p.copy() * (p.copy() - n(1)))
+        general = ((exp.Exp(this=_ln(P.copy() / W.copy()) - p.copy() * _ln(mu_m.copy())) - n(1))
+                   / (p.copy() * (p.copy() - n(1))))
         body = _case((exp.and_(_eq(p.copy(), n(0)), exp.or_(negatives.copy(), zeros.copy())), exp.Null()),
                      (_eq(p.copy(), n(0)), mld),
                      (negatives.copy(), exp.Null()),
@@ -199,7 +203,8 @@ def final_body(measure: str) -> exp.Select:
         k = _case((exp.Abs(this=c.copy()) > n(0), exp.Abs(this=c.copy())), default=n(1))
         mean_k = T.copy() / W.copy() / k  # μ / k
         var = state(7) / W.copy() - (state(6) / W.copy()) * (state(6) / W.copy())
-        body = _case((_eq(state(17), n(1)), exp.Null()), default=exp.Sqrt(this=exp.func("greatest", var, n(0))) / mean_k)
+        body = _case((_eq(state(17), n(1)), exp.Null()),
+                     default=exp.Sqrt(this=exp.func("greatest", var, n(0))) / mean_k)
     elif measure == "hhi":
         body = _case((negatives, exp.Null()), default=n(10000) * P.copy() / (R1.copy() * R1.copy()))
     else:

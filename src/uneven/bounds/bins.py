@@ -22,8 +22,8 @@ import math
 
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
 from uneven.errors import MeasureArgumentError
+from uneven.sqltree import build as s
 
 DEFAULT_RESOLUTION = 0.01
 MIN_RESOLUTION = 1e-6
@@ -96,7 +96,7 @@ def bin_aggregates(x: exp.Expression, w: exp.Expression, powers=()) -> list[exp.
     """The aggregates one bin keeps, over DOUBLE columns x and w (w a literal 1.0 when unweighted)."""
     zero = s.lit(0.0)
     pos = lambda term: s.case(s.gt(x.copy(), zero), term)  # noqa: E731  (NULL elsewhere: SUM skips it)
-    cols = [
+    cols: list[exp.Expression] = [
         s.alias(s.agg_count_star(), N),
         s.alias(s.agg_sum(w.copy()) if not s.is_one(w) else s.cast_double(s.agg_count_star()), W),
         s.alias(s.agg_sum(s.mul(w.copy(), x.copy())), WX),
@@ -116,7 +116,7 @@ def bin_aggregates(x: exp.Expression, w: exp.Expression, powers=()) -> list[exp.
 
 def merged_aggregates(columns, table: str | None = None) -> list[exp.Expression]:
     """Aggregates that combine bins (or whole summaries): sums add, min/max take min/max."""
-    out = []
+    out: list[exp.Expression] = []
     for name in columns:
         c = s.col(name, table)
         if name == MIN:

@@ -16,8 +16,8 @@ from sqlglot import exp
 
 from uneven.bounds import bins as b
 from uneven.bounds.measures import BOUNDED, BinContext, Interval, widen
-from uneven.compiler import sqlx as s
-from uneven.compiler.passes.source import cte, grouped, table
+from uneven.sqltree import build as s
+from uneven.sqltree.build import cte, grouped, table
 
 RUNNING = ("uv_w", "uv_wx", "uv_min", "uv_max")  # the bin columns running_sums itself reads (bins.W, WX, MIN, MAX)
 
@@ -65,7 +65,7 @@ def _named(e: exp.Expression, name: str) -> exp.Alias:
 
 
 def lower_bounds(source: str, keys: list[exp.Column], columns: list[str], calls: list[tuple], name: str,
-                 merge: bool) -> tuple[list[exp.CTE], dict, dict]:
+                 merge: bool) -> tuple[list[exp.CTE], dict, dict, list[str]]:
     """CTEs computing intervals for ``calls`` = [(key, measure name, params)] from the bins table
     ``source`` (key columns ``keys``, bin columns ``columns``). Returns (ctes, {key: (point, lo, hi)
     column names in ``name``}, {key: exact flag}, the bin columns the measures read)."""

@@ -16,12 +16,13 @@ Bins do not overlap, so every cross-bin comparison is known exactly.
 
 from __future__ import annotations
 
+from collections.abc import Iterable
 from dataclasses import dataclass
 
 from sqlglot import exp
 
 from uneven.bounds import bins as b
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 
 ZERO, ONE = s.lit(0.0), s.lit(1.0)
 SLACK = 1e-11  # rounding allowance: intervals are widened by SLACK·(1 + |bound|) (docs/bounded.md, "Rounding")
@@ -39,7 +40,7 @@ class Interval:
 class BinContext:
     """Columns of the running-sums CTE over the bins (see lower.py)."""
 
-    def __init__(self, powers: set[float] = frozenset()):
+    def __init__(self, powers: Iterable[float] = frozenset()):
         self.powers = set(powers)  # exponents whose Σw·x^a the bins store
         # aggregate tree → (column, aggregate); sqlglot trees hash and compare by structure, which is
         # much cheaper than generating SQL text as the key

@@ -16,18 +16,18 @@ import pandas as pd
 import sqlglot
 from sqlglot import exp
 
-from uneven.brackets import bounds as bd
-from uneven.brackets.estimate import Estimate
 from uneven.bounds import bins as b
 from uneven.bounds.lower import join_overlaps
+from uneven.brackets import bounds as bd
+from uneven.brackets.estimate import Estimate
 from uneven.brackets.table import check_brackets
-from uneven.compiler import sqlx as s
 from uneven.compiler.emit import to_sql
 from uneven.compiler.pipeline import compile_sql
 from uneven.engine.adapters import adapt, is_duckdb
 from uneven.engine.frames import register_caller_frames, register_frames_on
 from uneven.engine.runner import connect, execute_df
 from uneven.errors import InputDataError, MeasureArgumentError, SqlParseError, UnevenError
+from uneven.sqltree import build as s
 
 # measure name → number of parameters (all fractions in [0, 1])
 MEASURES = {"gini": 0, "lorenz": 1, "bottom_share": 1, "top_share": 1, "palma": 0, "s80s20": 0,

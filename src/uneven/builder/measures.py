@@ -14,7 +14,7 @@ from dataclasses import dataclass
 from sqlglot import exp
 
 from uneven import catalog
-from uneven.errors import UnevenError, MeasureArgumentError
+from uneven.errors import MeasureArgumentError, UnevenError
 from uneven.sqltree.constants import ConstantError, evaluate_constant
 
 

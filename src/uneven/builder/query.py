@@ -16,14 +16,14 @@ import sqlglot
 from sqlglot import exp
 
 from uneven import catalog
-from uneven.bounds.run import pick_resolution, run_bounded
 from uneven.builder.measures import MeasureCall, column
 from uneven.compiler import compile_sql
 from uneven.compiler.bounded import check_method
-from uneven.engine.adapters import adapt, is_duckdb
-from uneven.engine.runner import connect, translate_error
-from uneven.errors import UnevenError, MeasureArgumentError, SqlParseError
 from uneven.compiler.emit import to_sql
+from uneven.engine.adapters import adapt, is_duckdb
+from uneven.engine.bounded import pick_resolution, run_bounded
+from uneven.engine.runner import connect, translate_error
+from uneven.errors import MeasureArgumentError, SqlParseError, UnevenError
 
 SOURCE = "_uv_source"
 _READERS = {".parquet": "read_parquet", ".csv": "read_csv_auto", ".tsv": "read_csv_auto", ".json": "read_json_auto",

@@ -9,9 +9,9 @@ from __future__ import annotations
 
 from uneven import reference as ref
 from uneven.catalog.moment import build_hhi_rows
-from uneven.catalog.scaling import finite, times, plain_or_scaled
+from uneven.catalog.scaling import finite, plain_or_scaled, times
 from uneven.catalog.spec import Measure, Param
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 
 ZERO = s.lit(0.0)
 

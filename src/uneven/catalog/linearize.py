@@ -20,7 +20,7 @@ from sqlglot import exp
 
 from uneven.catalog import moment as mom
 from uneven.catalog import ordered as ordc
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 
 ZERO, ONE = s.lit(0.0), s.lit(1.0)
 
@@ -86,7 +86,7 @@ def _below_mass_terms(ctx, p: float, Q: exp.Expression, T_factor: exp.Expression
     d = s.sub(ctx.x, ctx.min_row)
     return [(ctx.w, s.mul(s.add(s.mul(s.lit(p), Qd), w_extra), T_factor)),
             (s.mul(ctx.w, s.mul(d, ind)), T_factor.copy()),
-            (s.mul(ctx.w, ind.copy()), s.mul(neg((Qd.copy())), T_factor.copy()))]
+            (s.mul(ctx.w, ind.copy()), s.mul(neg(Qd.copy()), T_factor.copy()))]
 
 
 def lorenz(ctx, p: float) -> Lin:
@@ -137,7 +137,7 @@ def hall_sheather(p: float, alpha: float = 0.05) -> float:
     return nd.inv_cdf(1 - alpha / 2) ** (2 / 3) * (1.5 * nd.pdf(q) ** 2 / (2 * q * q + 1)) ** (1 / 3)
 
 
-def _quantile_at_expr(ctx, p: exp.Expression) -> exp.Expression:
+def quantile_at_expr(ctx, p: exp.Expression) -> exp.Expression:
     reached = s.gte(s.div(ctx.c, ctx.W_row), p)
     return exp.Coalesce(this=s.agg_min(s.case(reached, ctx.x)), expressions=[s.agg_max(ctx.x)])
 
@@ -150,7 +150,7 @@ def density_at_quantile(ctx, p: float) -> exp.Expression:
     h_grp = s.mul(s.lit(K), s.power(s.cast_double(ctx.n), s.lit(-1.0 / 3.0)))
     hi_row, lo_row = s.least(s.add(s.lit(p), h_row), ONE), s.greatest(s.sub(s.lit(p), h_row.copy()), ZERO)
     hi_grp, lo_grp = s.least(s.add(s.lit(p), h_grp), ONE), s.greatest(s.sub(s.lit(p), h_grp.copy()), ZERO)
-    spread = s.sub(_quantile_at_expr(ctx, hi_row), _quantile_at_expr(ctx, lo_row))
+    spread = s.sub(quantile_at_expr(ctx, hi_row), quantile_at_expr(ctx, lo_row))
     return s.case(s.gt(spread, ZERO), s.div(s.sub(hi_grp, lo_grp), spread.copy()))
 
 
@@ -192,58 +192,58 @@ def _pos(ctx, value):
 
 def _theil_centred(ctx) -> Lin:
     est, W = mom.build_theil(ctx), ctx.W
-    d = mom._deviation(ctx)
-    return Lin(est, [(s.mul(ctx.w, mom._theil_term(ctx.r)), s.div(ONE, W)),
+    d = mom.deviation(ctx)
+    return Lin(est, [(s.mul(ctx.w, mom.theil_term(ctx.r)), s.div(ONE, W)),
                      (s.mul(ctx.w, d), s.div(neg(est.copy()), W.copy())),
                      (ctx.w, s.div(neg(est.copy()), W.copy()))])
 
 
 def _mld_centred(ctx) -> Lin:
     est, W = mom.build_mld(ctx), ctx.W
-    return Lin(est, [(s.mul(ctx.w, mom._mld_term(ctx.r)), s.div(ONE, W)),
+    return Lin(est, [(s.mul(ctx.w, mom.mld_term(ctx.r)), s.div(ONE, W)),
                      (ctx.w, s.div(neg(est.copy()), W.copy()))])
 
 
 def _ge_centred(ctx, alpha: float) -> Lin:
     est, W = mom.build_ge(ctx, (alpha,)), ctx.W
     a2 = alpha * (alpha - 1.0)
-    return Lin(est, [(s.mul(ctx.w, mom._power_term(ctx, alpha)), s.div(ONE, s.mul(W, s.lit(a2)))),
+    return Lin(est, [(s.mul(ctx.w, mom.power_term(ctx, alpha)), s.div(ONE, s.mul(W, s.lit(a2)))),
                      (ctx.w, s.div(neg(est.copy()), W.copy())),
-                     (s.mul(ctx.w, mom._deviation(ctx)), s.div(neg(s.mul(s.lit(alpha), est.copy())), W.copy()))])
+                     (s.mul(ctx.w, mom.deviation(ctx)), s.div(neg(s.mul(s.lit(alpha), est.copy())), W.copy()))])
 
 
 def _atkinson_centred(ctx, eps: float) -> Lin:
     est, W = mom.build_atkinson(ctx, (eps,)), ctx.W
     E = s.paren(s.sub(ONE, est.copy()))
     if eps == 1:
-        M = mom._mean_of(ctx, mom._mld_term(ctx.r))
-        return Lin(est, [(s.mul(ctx.w, mom._mld_term(ctx.r)), s.div(E, W)),
+        M = mom.mean_of(ctx, mom.mld_term(ctx.r))
+        return Lin(est, [(s.mul(ctx.w, mom.mld_term(ctx.r)), s.div(E, W)),
                          (ctx.w, s.div(neg(s.mul(E.copy(), M)), W.copy()))])
     beta = 1.0 - eps
-    P = mom._mean_of(ctx, mom._power_term(ctx, beta))
+    P = mom.mean_of(ctx, mom.power_term(ctx, beta))
     scale = s.div(E, s.mul(W, s.paren(s.add(ONE, P))))  # E / (W R)
-    return Lin(est, [(s.mul(ctx.w, mom._power_term(ctx, beta)), s.div(neg(scale), s.lit(beta))),
+    return Lin(est, [(s.mul(ctx.w, mom.power_term(ctx, beta)), s.div(neg(scale), s.lit(beta))),
                      (ctx.w, s.div(s.mul(scale.copy(), P.copy()), s.lit(beta))),
-                     (s.mul(ctx.w, mom._deviation(ctx)), s.mul(scale.copy(), P.copy()))])
+                     (s.mul(ctx.w, mom.deviation(ctx)), s.mul(scale.copy(), P.copy()))])
 
 
 def theil(ctx, params=()) -> Lin:
-    if mom._row_mean(ctx):
+    if mom.row_mean(ctx):
         return _theil_centred(ctx)
     # Th = A/T − ln(T/W), A = Σ w x ln x: z_k = [x_k ln x_k − (A/T + 1) x_k]/T + 1/W
     est = mom.build_theil(ctx)
-    A, T = mom._sum_w_x_ln_x(ctx), ctx.T
+    A, T = mom.sum_w_x_ln_x(ctx), ctx.T
     return Lin(est, [(s.mul(ctx.w, _pos(ctx, s.mul(ctx.x, s.ln(ctx.x)))), s.div(ONE, T)),
                      (s.mul(ctx.w, ctx.x), s.div(neg(s.add(s.div(A, T.copy()), ONE)), T.copy())),
                      (ctx.w, s.div(ONE, ctx.W))])
 
 
 def mld(ctx, params=()) -> Lin:
-    if mom._row_mean(ctx):
+    if mom.row_mean(ctx):
         return _mld_centred(ctx)
     # MLD = ln(T/W) − Lg/W, Lg = Σ w ln x: z_k = x_k/T − 1/W − ln x_k/W + Lg/W²
     est = mom.build_mld(ctx)
-    Lg, W = mom._sum_w_ln_x(ctx), ctx.W
+    Lg, W = mom.sum_w_ln_x(ctx), ctx.W
     return Lin(est, [(s.mul(ctx.w, ctx.x), s.div(ONE, ctx.T)),
                      (ctx.w, s.div(s.sub(s.div(Lg, W), ONE), W.copy())),
                      (s.mul(ctx.w, _pos(ctx, s.ln(ctx.x))), s.div(s.lit(-1.0), W.copy()))])
@@ -254,11 +254,11 @@ def ge(ctx, alpha: float) -> Lin:
         return mld(ctx)
     if alpha == 1:
         return theil(ctx)
-    if mom._row_mean(ctx):
+    if mom.row_mean(ctx):
         return _ge_centred(ctx, alpha)
     # R = (V/W)/μ^α, V = Σ w x^α: z_k = [x_k^α R/V + (α−1) R/W − α R x_k/T] / (α(α−1))
     est = mom.build_ge(ctx, (alpha,))
-    V, W, T = mom._sum_w_x_pow(ctx, alpha), ctx.W, ctx.T
+    V, W, T = mom.sum_w_x_pow(ctx, alpha), ctx.W, ctx.T
     R = s.div(s.div(V, W), s.power(s.div(T, W.copy()), s.lit(alpha)))
     return Lin(est, [(s.mul(ctx.w, _pos(ctx, s.power(ctx.x, s.lit(alpha)))),
                       s.div(R, s.mul(V.copy(), s.lit(alpha * (alpha - 1.0))))),
@@ -269,13 +269,13 @@ def ge(ctx, alpha: float) -> Lin:
 def atkinson(ctx, eps: float) -> Lin:
     if eps == 0:  # A = 0 wherever defined: its score is exactly 0
         return Lin(mom.build_atkinson(ctx, (eps,)), [(ctx.w, ZERO)])
-    if mom._row_mean(ctx):
+    if mom.row_mean(ctx):
         return _atkinson_centred(ctx, eps)
     est = mom.build_atkinson(ctx, (eps,))
     W, T = ctx.W, ctx.T
     if eps == 1:
         # E = exp(Lg/W): z_k = −[E ln x_k/T + E (1 − Lg/W)/T − E W x_k/T²]
-        Lg = mom._sum_w_ln_x(ctx)
+        Lg = mom.sum_w_ln_x(ctx)
         E = s.func("exp", s.div(Lg, W))
         return Lin(est, [(s.mul(ctx.w, _pos(ctx, s.ln(ctx.x))), s.div(neg(E), T)),
                          (ctx.w, s.div(s.mul(E.copy(), s.sub(s.div(Lg.copy(), W.copy()), ONE)), T.copy())),
@@ -283,7 +283,7 @@ def atkinson(ctx, eps: float) -> Lin:
     # E = (V/W)^(1/(1−ε)), V = Σ w x^(1−ε), A = 1 − E W/T:
     # z_k = −[E W/(T(1−ε)) (x_k^(1−ε)/V − 1/W) + E/T − E W x_k/T²]
     b = 1.0 - eps
-    V = mom._sum_w_x_pow(ctx, b)
+    V = mom.sum_w_x_pow(ctx, b)
     E = s.power(s.div(V, W), s.lit(1.0 / b))
     return Lin(est, [(s.mul(ctx.w, _pos(ctx, s.power(ctx.x, s.lit(b)))),
                       s.div(neg(s.mul(E, W.copy())), s.mul(s.mul(T.copy(), s.lit(b)), V.copy()))),

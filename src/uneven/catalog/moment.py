@@ -14,7 +14,7 @@ from sqlglot import exp
 from uneven import reference as ref
 from uneven.catalog.scaling import finite, plain_or_scaled, times
 from uneven.catalog.spec import Measure, Param
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 
 ZERO = s.lit(0.0)
 
@@ -73,12 +73,12 @@ def binomial_minus_one(u, p):
     return s.case(s.lt(s.mul(s.absval(u.copy()), s.lit(abs(p) + 6.0)), s.lit(1e-3)), small, big)
 
 
-def _theil_term(r):
+def theil_term(r):
     # r ln r − (r − 1); a zero value adds 0·ln 0 − (0 − 1) = 1
     return s.case(s.gt(r, s.lit(0.0)), s.sub(s.mul(r.copy(), s.ln(r.copy())), s.sub(r.copy(), s.lit(1.0))), s.lit(1.0))
 
 
-def _mld_term(r):
+def mld_term(r):
     # (r − 1) − ln r, defined for r > 0 (the measure is NULL when a value is ≤ 0)
     return s.case(s.gt(r, s.lit(0.0)), s.sub(s.sub(r.copy(), s.lit(1.0)), s.ln(r.copy())))
 
@@ -108,22 +108,22 @@ def _closed_power_term(r, d, a: float):
     return None
 
 
-def _deviation(ctx):
+def deviation(ctx):
     """(x − μ)/μ at row level: r − 1 without the rounding of r next to 1."""
     return s.div(s.sub(ctx.x, ctx.mu), ctx.mu_divisor)
 
 
-def _power_term(ctx, a: float):
+def power_term(ctx, a: float):
     # r^a − 1 − a(r − 1) = expm1(a ln r) − a(r − 1); at r = 0 (a > 0 only): a − 1
     r = ctx.r
-    closed = _closed_power_term(r, _deviation(ctx), a)
+    closed = _closed_power_term(r, deviation(ctx), a)
     if closed is not None:
         return closed if a > 0 else s.case(s.gt(r, s.lit(0.0)), closed)
     y = s.mul(s.lit(a), s.ln(r.copy()))
     return s.case(s.gt(r, s.lit(0.0)), s.sub(expm1(y), s.mul(s.lit(a), s.sub(r.copy(), s.lit(1.0)))), s.lit(a - 1.0))
 
 
-def _mean_of(ctx, term):
+def mean_of(ctx, term):
     return s.div(ctx.sum(s.mul(ctx.w, term)), ctx.W)
 
 
@@ -133,15 +133,15 @@ def _mean_of(ctx, term):
 # bootstrap replicate, the DuckDB macro lists) take the one-pass sums Σw·x·ln x / T − ln μ …, exact
 # to about 1e-9 on ordinary data and losing digits as the spread shrinks (docs/input-policy.md).
 
-def _row_mean(ctx) -> bool:
+def row_mean(ctx) -> bool:
     return getattr(ctx, "row_mean", False)
 
 
-def _sum_w_x_ln_x(ctx):
+def sum_w_x_ln_x(ctx):
     return ctx.sum(s.case(s.gt(ctx.x, s.lit(0.0)), s.mul(ctx.w, s.mul(ctx.x, s.ln(ctx.x))), s.lit(0.0)))
 
 
-def _sum_w_ln_x(ctx):
+def sum_w_ln_x(ctx):
     return ctx.sum(s.case(s.gt(ctx.x, s.lit(0.0)), s.mul(ctx.w, s.ln(ctx.x))))
 
 
@@ -155,27 +155,27 @@ def _pow(x, a: float):
     return s.power(x, s.lit(a))
 
 
-def _sum_w_x_pow(ctx, a: float):
+def sum_w_x_pow(ctx, a: float):
     return ctx.sum(s.case(s.gt(ctx.x, s.lit(0.0)), s.mul(ctx.w, _pow(ctx.x, a)), s.lit(0.0)))
 
 
 def _moment_of(ctx, a: float):
     """Σ w x^a / W / μ^a (one-pass form)."""
-    return s.div(s.div(_sum_w_x_pow(ctx, a), ctx.W), s.power(_mean(ctx), s.lit(a)))
+    return s.div(s.div(sum_w_x_pow(ctx, a), ctx.W), s.power(_mean(ctx), s.lit(a)))
 
 
 def build_theil(ctx, params=()):
-    if not _row_mean(ctx):  # Σ w x ln x / T − ln μ
-        return s.case(_nonneg(ctx), s.sub(s.div(_sum_w_x_ln_x(ctx), ctx.T), s.ln(_mean(ctx))))
+    if not row_mean(ctx):  # Σ w x ln x / T − ln μ
+        return s.case(_nonneg(ctx), s.sub(s.div(sum_w_x_ln_x(ctx), ctx.T), s.ln(_mean(ctx))))
     # Σ w x ln(x/μ) / T = Σ w (r ln r − (r − 1)) / W
-    return s.case(_nonneg(ctx), _mean_of(ctx, _theil_term(ctx.r)))
+    return s.case(_nonneg(ctx), mean_of(ctx, theil_term(ctx.r)))
 
 
 def build_mld(ctx, params=()):
-    if not _row_mean(ctx):  # ln μ − Σ w ln x / W
-        return s.case(_positive(ctx), s.sub(s.ln(_mean(ctx)), s.div(_sum_w_ln_x(ctx), ctx.W)))
+    if not row_mean(ctx):  # ln μ − Σ w ln x / W
+        return s.case(_positive(ctx), s.sub(s.ln(_mean(ctx)), s.div(sum_w_ln_x(ctx), ctx.W)))
     # Σ w ln(μ/x) / W = Σ w ((r − 1) − ln r) / W
-    return s.case(_positive(ctx), _mean_of(ctx, _mld_term(ctx.r)))
+    return s.case(_positive(ctx), mean_of(ctx, mld_term(ctx.r)))
 
 
 def build_ge(ctx, params):
@@ -185,29 +185,29 @@ def build_ge(ctx, params):
     if alpha == 1:
         return build_theil(ctx)
     domain = _nonneg(ctx) if alpha > 0 else _positive(ctx)
-    if not _row_mean(ctx):
+    if not row_mean(ctx):
         return s.case(domain, s.div(s.sub(_moment_of(ctx, alpha), s.lit(1.0)), s.lit(alpha * (alpha - 1.0))))
     # (Σ w r^α / W − 1) / (α(α−1)) = Σ w (r^α − 1 − α(r − 1)) / W / (α(α−1))
-    return s.case(domain, s.div(_mean_of(ctx, _power_term(ctx, alpha)), s.lit(alpha * (alpha - 1.0))))
+    return s.case(domain, s.div(mean_of(ctx, power_term(ctx, alpha)), s.lit(alpha * (alpha - 1.0))))
 
 
 def build_atkinson(ctx, params):
     (eps,) = params
     if eps == 0:  # 1 − μ/μ: exactly 0 wherever defined (no rounding of μ/μ or of its series)
         return s.case(_nonneg(ctx), s.lit(0.0))
-    if not _row_mean(ctx):  # 1 − (Σ w x^(1−ε) / W)^(1/(1−ε)) / μ; ε = 1: 1 − exp(Σ w ln x / W) / μ
+    if not row_mean(ctx):  # 1 − (Σ w x^(1−ε) / W)^(1/(1−ε)) / μ; ε = 1: 1 − exp(Σ w ln x / W) / μ
         domain = _nonneg(ctx) if eps < 1 else _positive(ctx)
         if eps == 1:
-            return s.case(domain, s.sub(s.lit(1.0), s.div(s.func("exp", s.div(_sum_w_ln_x(ctx), ctx.W)), _mean(ctx))))
+            return s.case(domain, s.sub(s.lit(1.0), s.div(s.func("exp", s.div(sum_w_ln_x(ctx), ctx.W)), _mean(ctx))))
         return s.case(domain, s.sub(s.lit(1.0), s.power(_moment_of(ctx, 1.0 - eps), s.lit(1.0 / (1.0 - eps)))))
     if eps == 1:
         # 1 − exp(Σ w ln x / W) / μ = 1 − exp(−mld) = −expm1(−mld)
-        mld = _mean_of(ctx, _mld_term(ctx.r))
+        mld = mean_of(ctx, mld_term(ctx.r))
         return s.case(_positive(ctx), exp.Neg(this=s.paren(expm1(exp.Neg(this=s.paren(mld))))))
     beta = 1.0 - eps
     domain = _nonneg(ctx) if eps < 1 else _positive(ctx)
     # 1 − (Σ w r^β / W)^(1/β) = −((1 + u)^(1/β) − 1) with u = Σ w (r^β − 1 − β(r − 1)) / W
-    u = _mean_of(ctx, _power_term(ctx, beta))
+    u = mean_of(ctx, power_term(ctx, beta))
     return s.case(domain, exp.Neg(this=s.paren(binomial_minus_one(u, 1.0 / beta))))
 
 

@@ -14,7 +14,7 @@ from sqlglot import exp
 from uneven import reference as ref
 from uneven.catalog.scaling import plain_or_scaled, times
 from uneven.catalog.spec import Measure, Param
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 
 P = Param("p", "fraction", "population fraction in [0, 1]")
 

@@ -13,10 +13,10 @@ from __future__ import annotations
 
 from sqlglot import exp
 
-from uneven import reference_poverty as ref
 from uneven.catalog import ordered as ordc
 from uneven.catalog.spec import Measure, Param
-from uneven.compiler import sqlx as s
+from uneven.reference import poverty as ref
+from uneven.sqltree import build as s
 
 ZERO, ONE = s.lit(0.0), s.lit(1.0)
 
@@ -67,7 +67,7 @@ def build_median_gap(ctx, params):
     return s.case(s.and_(_has_line(ctx), anyone), s.div(s.sub(z, poor_median(ctx, frac)), z.copy()))
 
 
-def _gap_term(x, z, w, alpha: float) -> exp.Expression:
+def gap_term(x, z, w, alpha: float) -> exp.Expression:
     """w·((z − x)/z)^α for x < z, else 0 (z > 0 where it is read; the base is then > 0)."""
     if alpha == 0:
         value = w
@@ -81,13 +81,13 @@ def _gap_term(x, z, w, alpha: float) -> exp.Expression:
 def build_fgt_relative(ctx, params):
     alpha, frac = params
     z = _line_row(ctx, frac)
-    term = s.case(s.gt(ctx.median_row, ZERO), _gap_term(ctx.x, z, ctx.w, alpha), ZERO)
+    term = s.case(s.gt(ctx.median_row, ZERO), gap_term(ctx.x, z, ctx.w, alpha), ZERO)
     return s.case(_has_line(ctx), s.div(s.agg_sum(term), ctx.W))
 
 
 def build_fgt(ctx, params):
     alpha, line = params
-    total = ctx.sum(_gap_term(ctx.x, s.lit(line), ctx.w, alpha))
+    total = ctx.sum(gap_term(ctx.x, s.lit(line), ctx.w, alpha))
     return s.case(s.gt(ctx.W, ZERO), s.div(total, ctx.W))
 
 

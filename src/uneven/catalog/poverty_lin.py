@@ -24,7 +24,7 @@ from uneven.catalog import linearize as lz
 from uneven.catalog import ordered as ordc
 from uneven.catalog import poverty as pov
 from uneven.catalog.linearize import Lin, combine, neg
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 
 ZERO, ONE = s.lit(0.0), s.lit(1.0)
 K_MEDIAN = lz.hall_sheather(0.5)
@@ -33,7 +33,7 @@ K_MEDIAN = lz.hall_sheather(0.5)
 def _gap_sum(ctx, alpha: float, frac: float) -> exp.Expression:
     """Σ w·1(x < z)·((z − x)/z)^α, z = frac·M on every row."""
     z = s.mul(s.lit(frac), ctx.median_row)
-    return s.agg_sum(s.case(s.gt(ctx.median_row, ZERO), pov._gap_term(ctx.x, z, ctx.w, alpha), ZERO))
+    return s.agg_sum(s.case(s.gt(ctx.median_row, ZERO), pov.gap_term(ctx.x, z, ctx.w, alpha), ZERO))
 
 
 def density_at_line(ctx, frac: float) -> exp.Expression:
@@ -46,7 +46,7 @@ def density_at_line(ctx, frac: float) -> exp.Expression:
     h_grp = s.least(s.mul(s.lit(K_MEDIAN), s.power(s.cast_double(ctx.n), s.lit(-1.0 / 3.0))), H_grp)
     hi_row, lo_row = s.least(s.add(H_row.copy(), h_row), ONE), s.sub(H_row.copy(), h_row.copy())
     hi_grp, lo_grp = s.least(s.add(H_grp.copy(), h_grp), ONE), s.sub(H_grp.copy(), h_grp.copy())
-    spread = s.sub(lz._quantile_at_expr(ctx, hi_row), lz._quantile_at_expr(ctx, lo_row))
+    spread = s.sub(lz.quantile_at_expr(ctx, hi_row), lz.quantile_at_expr(ctx, lo_row))
     return s.case(s.gt(spread, ZERO), s.div(s.sub(hi_grp, lo_grp), spread.copy()))
 
 
@@ -62,7 +62,7 @@ def fgt_relative(ctx, alpha: float, frac: float) -> Lin:
         z = s.mul(s.lit(frac), s.agg_min(ctx.median_row))
         slope = s.mul(s.div(s.lit(alpha), z), s.sub(s.div(_gap_sum(ctx, alpha - 1.0, frac), W.copy()), F.copy()))
     z = s.mul(s.lit(frac), ctx.median_row)
-    g = s.case(s.gt(ctx.median_row, ZERO), pov._gap_term(ctx.x, z, ctx.w, alpha), ZERO)
+    g = s.case(s.gt(ctx.median_row, ZERO), pov.gap_term(ctx.x, z, ctx.w, alpha), ZERO)
     # F(ẑ), ẑ = frac·M̂: z_k = (g_k − F)/W + frac·∂F/∂z·z_M,k
     fixed = Lin(est, [(g, s.div(ONE, W.copy())), (ctx.w, s.div(neg(F.copy()), W.copy()))])
     return combine(est.copy(), (ONE, fixed), (s.mul(s.lit(frac), slope), median(ctx)))
@@ -82,7 +82,7 @@ def fgt(ctx, alpha: float, line: float) -> Lin:
     # a fixed line: z_k = (g_k − F)/W
     est = pov.build_fgt(ctx, (alpha, line))
     W = ctx.W
-    g = pov._gap_term(ctx.x, s.lit(line), ctx.w, alpha)
+    g = pov.gap_term(ctx.x, s.lit(line), ctx.w, alpha)
     return Lin(est, [(g, s.div(ONE, W)), (ctx.w, s.div(neg(est.copy()), W.copy()))])
 
 

@@ -13,7 +13,7 @@ from __future__ import annotations
 
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 
 DOWN = 2.0 ** -512  # 7.458340731200207e-155, written exactly by its shortest repr
 
@@ -27,7 +27,7 @@ def finite(e: exp.Expression) -> exp.Expression:
 
 def plain_or_scaled(build) -> exp.Expression:
     """COALESCE(finite(build(1)), finite(build(DOWN))): ``build(scale)`` returns the measure with
-    every value multiplied by ``scale`` (a literal 1.0 disappears from products, see sqlx.mul)."""
+    every value multiplied by ``scale`` (a literal 1.0 disappears from products, see sqltree.build.mul)."""
     return exp.Coalesce(this=finite(build(1.0)), expressions=[finite(build(DOWN))])
 
 

@@ -11,9 +11,9 @@ limits: between = Σ_g s_g ln(μ_g/μ) resp. Σ_g v_g ln(μ/μ_g).
 
 from __future__ import annotations
 
-from uneven import reference_structure as rs
 from uneven.catalog.spec import Measure, Param
-from uneven.compiler import sqlx as s
+from uneven.reference import structure as rs
+from uneven.sqltree import build as s
 
 ZERO = s.lit(0.0)
 ALPHA = Param("alpha", "number")

@@ -13,9 +13,9 @@ from __future__ import annotations
 
 from sqlglot import exp
 
-from uneven import reference_se as rse
 from uneven.catalog.linearize import LINEARIZE
 from uneven.catalog.spec import Measure
+from uneven.reference import se as rse
 from uneven.sqltree.constants import ConstantError, evaluate_constant, literal_value
 
 DESIGN = ("strata", "psu")

@@ -28,8 +28,8 @@ from sqlglot import exp
 from uneven import catalog
 from uneven.catalog import ordered
 from uneven.catalog.spec import Measure, Param
-from uneven.compiler import sqlx as s
 from uneven.errors import UnevenError
+from uneven.sqltree import build as s
 from uneven.sqltree.constants import ConstantError, evaluate_constant
 
 _USER: set[str] = set()

@@ -8,7 +8,7 @@ import sys
 
 from uneven.cli.common import emit_result
 from uneven.cli.tables import add_table_options, common
-from uneven.structure import MANY_COMPARISONS
+from uneven.tables.compare import MANY_COMPARISONS
 
 
 def register(sub) -> None:
@@ -46,11 +46,11 @@ def register(sub) -> None:
 
 
 def run(args) -> int:
-    from uneven.structure import compare
+    from uneven.tables.compare import compare
     if args.group is None and args.groups is None:
         out = compare(args.relation, args.first, args.second, **common(args))
     else:
-        out = compare(args.relation, args.first, args.second, group=args.group, groups=_values(args.groups),
+        out = compare(args.relation, args.first, args.second, group=args.group, groups=group_values(args.groups),
                       measure=args.measure, params=args.param, se=args.se, strata=args.strata, psu=args.psu,
                       **common(args))
     code = emit_result(out, args)
@@ -58,7 +58,7 @@ def run(args) -> int:
     return code
 
 
-def _values(pair):
+def group_values(pair):
     """Group values from the command line: numbers when both read as numbers, else text."""
     if pair is None:
         return None

@@ -26,5 +26,5 @@ def register(sub) -> None:
 
 
 def run(args) -> int:
-    from uneven.structure import decompose
+    from uneven.tables.decompose import decompose
     return emit_result(decompose(args.relation, args.value, args.subgroup, alpha=args.alpha, **common(args)), args)

@@ -7,7 +7,7 @@ import sys
 from pathlib import Path
 
 from uneven.cli.common import add_engine_options, add_engine_url_option, add_output_options, connection, emit_result
-from uneven.cli.compare import _values
+from uneven.cli.compare import group_values
 from uneven.cli.tables import RELATION_HELP
 
 DESCRIPTION = (
@@ -50,8 +50,8 @@ def register(sub) -> None:
 
 
 def run(args) -> int:
-    from uneven.dominance import lorenz_dominance
-    res = lorenz_dominance(args.relation, args.value, args.group, _values(args.groups), weight=args.weight,
+    from uneven.tables.dominance import lorenz_dominance
+    res = lorenz_dominance(args.relation, args.value, args.group, group_values(args.groups), weight=args.weight,
                            generalized=args.generalized, points=args.points, level=args.level,
                            strata=args.strata, psu=args.psu, con=connection(args))
     kind = "generalized Lorenz" if res.generalized else "Lorenz"

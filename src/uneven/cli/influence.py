@@ -26,6 +26,6 @@ def register(sub) -> None:
 
 
 def run(args) -> int:
-    from uneven.influence import influence
+    from uneven.tables.influence import influence
     return emit_result(influence(args.relation, args.value, k=args.k, measure=args.measure, params=args.param,
                           **common(args)), args)

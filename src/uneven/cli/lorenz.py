@@ -67,8 +67,8 @@ def run(args) -> int:
         if out.exists() and not args.force:
             raise UnevenError(f"{out} already exists; pass --force to replace it")
         if suffix in PLOT_SUFFIXES:
-            from uneven.report.plot import _matplotlib
-            _matplotlib()  # fail before the query when matplotlib is missing
+            from uneven.report.plot import load_matplotlib
+            load_matplotlib()  # fail before the query when matplotlib is missing
     con = open_for(args)
     try:
         points = run_watched(con, lambda: lorenz_points(args.source, args.value, weight=args.weight, by=args.by,

@@ -7,9 +7,16 @@ import importlib
 import sys
 
 import uneven
+from uneven.cli.common import (
+    add_engine_options,
+    add_engine_url_option,
+    add_output_options,
+    connection,
+    emit_result,
+    read_sql,
+    settings,
+)
 from uneven.compiler.dialects import EXECUTED_DIALECTS, SUPPORTED_DIALECTS
-from uneven.cli.common import (add_engine_options, add_engine_url_option, add_output_options, connection, emit_result,
-                               read_sql, settings)
 from uneven.errors import UnevenError
 
 EPILOG = """examples:
@@ -91,6 +98,7 @@ def method_kwargs(args) -> dict:
 
 def cmd_query(args) -> int:
     import duckdb
+
     from uneven.engine.progress import enable_tracking, run_watched, wants_progress
     sql = read_sql(args.sql)
     con = connection(args) or duckdb.connect()

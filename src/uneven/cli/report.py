@@ -6,8 +6,8 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from uneven.cli.lorenz import add_source_options, open_for
 from uneven.cli.common import add_engine_options, add_engine_url_option
+from uneven.cli.lorenz import add_source_options, open_for
 from uneven.engine.progress import run_watched
 
 EPILOG = """examples:
@@ -39,11 +39,11 @@ def register(sub) -> None:
 
 
 def run(args) -> int:
+    from uneven.engine.output import check_targets, write_all
     from uneven.report import render_report, report_format
     from uneven.report.data import collect
     from uneven.report.markdown import side_file_names
     from uneven.report.query import make_spec
-    from uneven.engine.output import check_targets, write_all
 
     fmt = report_format(args.output, args.format)
     out = Path(args.output or f"uneven-report.{fmt}")

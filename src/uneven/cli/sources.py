@@ -24,5 +24,5 @@ def register(sub) -> None:
 
 
 def run(args) -> int:
-    from uneven.structure import gini_sources
+    from uneven.tables.decompose import gini_sources
     return emit_result(gini_sources(args.relation, args.sources, **common(args)), args)

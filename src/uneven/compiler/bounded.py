@@ -12,10 +12,10 @@ from __future__ import annotations
 from sqlglot import exp
 
 from uneven.bounds.measures import BOUNDED
-from uneven.compiler import sqlx as s
 from uneven.compiler.calls import MeasureCall, call_key, is_measure
 from uneven.compiler.context import CompileContext, text
 from uneven.errors import MeasureUsageError
+from uneven.sqltree import build as s
 
 METHODS = ("exact", "bounded")
 

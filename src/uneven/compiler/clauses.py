@@ -20,8 +20,8 @@ from __future__ import annotations
 from sqlglot import exp
 
 from uneven.compiler.context import CompileContext, span
-from uneven.sqltree.volatile import is_order_dependent, is_volatile_call
 from uneven.errors import UnsupportedSqlError
+from uneven.sqltree.volatile import is_order_dependent, is_volatile_call
 
 CARRIED = "carried"
 SOURCE = "source"

@@ -3,30 +3,13 @@
 from __future__ import annotations
 
 from collections import defaultdict
+from collections.abc import Callable
 from dataclasses import dataclass, field
-from typing import Callable
 
 from sqlglot import exp
 
 from uneven.errors import UnevenError
-
-
-def span(node: exp.Expression) -> tuple[int | None, int | None]:
-    """Character offsets of the first token of ``node`` that sqlglot positioned."""
-    for sub in node.walk():
-        meta = getattr(sub, "_meta", None) or {}
-        if "start" in meta:
-            return meta["start"], meta.get("end")
-        if isinstance(sub, exp.Expression) and isinstance(sub.this, exp.Identifier):
-            m = getattr(sub.this, "_meta", None) or {}
-            if "start" in m:
-                return m["start"], m.get("end")
-    return None, None
-
-
-def text(node: exp.Expression) -> str:
-    """SQL of a node for messages, function names as written in lower case."""
-    return node.sql("duckdb", normalize_functions="lower")
+from uneven.sqltree.spans import span, text  # noqa: F401  (re-exported to the stages)
 
 
 @dataclass

@@ -18,7 +18,7 @@ than ``IS``, SQLite ``<`` tighter than ``=``), so a predicate operand of a predi
 ``||`` sits with ``+``/``-`` in Spark but below them in PostgreSQL, so ``||`` and arithmetic always
 wrap each other. Any other operator (bitwise ops, ``//``, XOR, COLLATE …) has no agreed level: it is
 wrapped as an operand of an operator, and its own operator operands are wrapped. Parentheses already
-in the tree (the user's, ``sqlx.paren``) are kept. Nodes that print as a function call, a CASE, a
+in the tree (the user's, ``sqltree.build.paren``) are kept. Nodes that print as a function call, a CASE, a
 CAST or a subquery delimit themselves and are never wrapped.
 
 ``emission_error`` is the check: the emitted text, parsed back with the same dialect, must give the
@@ -41,7 +41,7 @@ import sys
 import sqlglot
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 
 __all__ = ["parenthesize", "to_sql", "emission_error", "checking", "check_emission"]
 

@@ -20,9 +20,9 @@ from sqlglot import exp
 from uneven.compiler import clauses
 from uneven.compiler.context import CompileContext, text
 from uneven.compiler.keys import resolve_group_keys
-from uneven.compiler.passes.source import cte, table
 from uneven.compiler.scope import output_aliases
 from uneven.errors import UnsupportedSqlError
+from uneven.sqltree.build import cte, table
 from uneven.sqltree.grouping import scope_columns
 from uneven.sqltree.volatile import is_order_dependent, is_volatile_call
 

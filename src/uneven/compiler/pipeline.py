@@ -4,18 +4,18 @@ from __future__ import annotations
 
 from sqlglot import exp
 
+from uneven.bounds import bins
+from uneven.compiler.bounded import check_method
 from uneven.compiler.calls import check_position, find_calls, read_call
+from uneven.compiler.clauses import check_clauses, volatile_outside_sources
 from uneven.compiler.context import CompileContext, span, text
 from uneven.compiler.generate import check_dialect, check_read_dialect, generate
+from uneven.compiler.materialize import materialize_scope
 from uneven.compiler.parse import parse_one_statement
 from uneven.compiler.plan import ORDERED_PLANS, TIE_GROUPING
 from uneven.compiler.scalars import expand_scalars
 from uneven.compiler.scope import rewrite_scope
-from uneven.bounds import bins
-from uneven.compiler.bounded import check_method
 from uneven.compiler.types import check_argument_types
-from uneven.compiler.clauses import check_clauses, volatile_outside_sources
-from uneven.compiler.materialize import materialize_scope
 from uneven.errors import MeasureUsageError, UnsupportedSqlError
 
 

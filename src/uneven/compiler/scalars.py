@@ -18,8 +18,8 @@ from __future__ import annotations
 
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
 from uneven.errors import MeasureArgumentError
+from uneven.sqltree import build as s
 from uneven.sqltree.constants import ConstantError, evaluate_constant
 
 NAME = "equivalised"

@@ -12,26 +12,25 @@ from __future__ import annotations
 
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
+from uneven.compiler.bounded import bounded_items, route_bounded
 from uneven.compiler.calls import MeasureCall, call_key, is_aggregate, is_measure
 from uneven.compiler.context import CompileContext, text
 from uneven.compiler.keys import resolve_group_keys, same_key
-from uneven.compiler.passes.centred import lower_centred_pass
 from uneven.compiler.passes.bootstrap import lower_bootstrap_pass
+from uneven.compiler.passes.centred import lower_centred_pass
 from uneven.compiler.passes.entity import lower_entity_pass
 from uneven.compiler.passes.linearized import can_share, lower_linearized_pass
 from uneven.compiler.passes.moment import MainAggregate, lower_moment_pass
 from uneven.compiler.passes.ordered import lower_ordered_pass
-from uneven.compiler.passes.refine import lower_refine_pass
 from uneven.compiler.passes.paired import lower_paired_pass
 from uneven.compiler.passes.ranked import lower_ranked_pass
-from uneven.compiler.passes.subgroup import lower_subgroup_pass
+from uneven.compiler.passes.refine import lower_refine_pass
 from uneven.compiler.passes.source import Source, finite_or_null, join_on_keys, key_name, table
-from uneven.compiler.bounded import bounded_items, route_bounded
+from uneven.compiler.passes.subgroup import lower_subgroup_pass
 from uneven.compiler.passes.summary import lower_summary_pass
-from uneven.compiler.plan import (choose_variant, describe_pass, fuse_centred, plan_passes, route_refine,
-                                   share_passes)
+from uneven.compiler.plan import choose_variant, describe_pass, fuse_centred, plan_passes, route_refine, share_passes
 from uneven.errors import UnsupportedSqlError
+from uneven.sqltree import build as s
 
 
 def rewrite_scope(select: exp.Select, calls: list[MeasureCall], ctx: CompileContext) -> exp.Select:

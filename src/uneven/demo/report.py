@@ -75,10 +75,10 @@ def run_demo(rows: int = 2_000_000, folder: str = "uneven-demo", seed: int = 202
 
 def write_demo_report(con, survey: Path, target: Path) -> Path:
     """The shareable report of the survey: disposable income by province, with its trend by year."""
+    from uneven.engine.output import write_all
     from uneven.report import render_report
     from uneven.report.data import collect
     from uneven.report.query import make_spec
-    from uneven.engine.output import write_all
 
     spec = make_spec(con, str(survey), "disposable_income", "weight", "province", "year")
     data = collect(con, spec, title=f"Disposable household income in the {COUNTRY} by province "

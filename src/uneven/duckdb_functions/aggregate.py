@@ -25,11 +25,11 @@ from sqlglot import exp
 
 from uneven.catalog.scaling import finite
 from uneven.catalog.spec import Measure
-from uneven.compiler import sqlx as s
 from uneven.compiler.passes.moment import MomentContext
 from uneven.compiler.passes.source import not_finite
 from uneven.duckdb_functions import lists as L
 from uneven.duckdb_functions.symbolic import NeedsConstant, explore_build
+from uneven.sqltree import build as s
 
 X, W = "_uv_x", "_uv_w"  # struct fields of a collected row
 E, I, G = "_uv_e", "_uv_i", "_uv_g"  # lambda parameters: element, its 1-based position, bound group
@@ -156,18 +156,18 @@ class CentredListContext(MacroMomentContext):
 
 def _row_inputs(name: str, trailing_kind: str | None, weighted: bool):
     """(value, weight) as checked DOUBLE expressions over the macro arguments, and the row filter."""
-    x = _checked_numeric(L.var("x"), name, "value x")
+    x = checked_numeric(L.var("x"), name, "value x")
     cond = s.not_null(L.var("x"))
     w = None
     if weighted:
-        wd = _checked_numeric(L.var("w"), name, "weight w")
+        wd = checked_numeric(L.var("w"), name, "weight w")
         w = s.case(s.lt(wd, s.lit(0.0)), s.raise_error(f"uneven: negative weight in the weight argument w of "
                                                        f"{name}()"), wd.copy())
         cond = s.and_(cond, s.gt(w.copy(), s.lit(0.0)))
     return x, w, cond
 
 
-def _checked_numeric(arg: exp.Expression, name: str, what: str) -> exp.Expression:
+def checked_numeric(arg: exp.Expression, name: str, what: str) -> exp.Expression:
     """The argument as DOUBLE; text, NaN and ±infinity stop the query (as in the compiled passes,
     docs/input-policy.md: a sum over them is NaN or infinite, never a usable measure)."""
     text = exp.EQ(this=L.call("typeof", arg.copy()), expression=s.lit("VARCHAR"))

@@ -19,13 +19,13 @@ from sqlglot import exp
 
 from uneven.catalog import MEASURES
 from uneven.catalog.spec import Measure
+from uneven.compiler.emit import checking, to_sql
+from uneven.compiler.scalars import macro_body
 from uneven.duckdb_functions import lists as L
 from uneven.duckdb_functions.aggregate import aggregate_overloads
 from uneven.duckdb_functions.symbolic import NeedsConstant
 from uneven.duckdb_functions.table import table_form
 from uneven.errors import ExecutionError, UnevenError
-from uneven.compiler.emit import checking, to_sql
-from uneven.compiler.scalars import macro_body
 
 REGISTRY = "_uv_functions"
 INSTALL_SQL = Path(__file__).resolve().parents[3] / "sql" / "duckdb" / "install.sql"
@@ -212,7 +212,7 @@ def uninstall(con: duckdb.DuckDBPyConnection) -> list[str]:
         return pg_functions.uninstall(con)
     done = []
     existing = _existing_macros(con)
-    for name, kind, _ in installed(con):
+    for name, _kind, _ in installed(con):
         if name.lower() in existing:
             table = existing[name.lower()] == "table_macro"
             # sqlglot has no DROP MACRO node: a command whose only variable part is a quoted identifier

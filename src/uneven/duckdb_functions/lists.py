@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 
 SCAN_STEP = "_uv_scan_step"
 SCAN = "_uv_scan"

@@ -13,7 +13,7 @@ from __future__ import annotations
 
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 
 
 class NeedsConstant(Exception):

@@ -17,13 +17,13 @@ import dataclasses
 from sqlglot import exp
 
 from uneven.catalog.spec import Measure
-from uneven.compiler import sqlx as s
 from uneven.compiler.calls import MeasureCall
 from uneven.compiler.context import CompileContext
 from uneven.compiler.scope import rewrite_scope
 from uneven.duckdb_functions import lists as L
-from uneven.duckdb_functions.aggregate import _checked_numeric, param_checks
+from uneven.duckdb_functions.aggregate import checked_numeric, param_checks
 from uneven.duckdb_functions.symbolic import explore_build
+from uneven.sqltree import build as s
 
 KEY, X, T, RESULT = "_uv_key", "_uv_x", "_uv_t", "_uv_result"
 
@@ -44,10 +44,10 @@ def _rows(measure: Measure, fn: str) -> exp.Select:
                                      s.alias(_named_column(L.var("value")), "_uv_v0"),
                                      s.alias(_named_column(other), "_uv_t0")]).from_(
         exp.Table(this=L.call("query_table", L.var("source"))))
-    value = param_checks(measure, _checked_numeric(s.col("_uv_v0"), fn, "value column"))
+    value = param_checks(measure, checked_numeric(s.col("_uv_v0"), fn, "value column"))
     is_null = exp.Is(this=L.var(measure.trailing), expression=exp.Null())
     if measure.trailing == "weight":
-        wd = _checked_numeric(s.col("_uv_t0"), fn, "weight column")
+        wd = checked_numeric(s.col("_uv_t0"), fn, "weight column")
         checked = s.case(s.lt(wd, s.lit(0.0)), s.raise_error(
             f"uneven: negative weight in the weight argument of {fn}()"), wd.copy())
         trailing = s.case(is_null, s.lit(1.0), checked)

@@ -15,7 +15,8 @@ from __future__ import annotations
 import sys
 import threading
 import time
-from typing import Callable, TypeVar
+from collections.abc import Callable
+from typing import TypeVar
 
 import duckdb
 

@@ -12,13 +12,11 @@ raised exception"; the message is kept and ``raised_message(con)`` gives it back
 
 from __future__ import annotations
 
+import hashlib
 import math
 import sqlite3
 
-import hashlib
-
 from uneven.compiler.dialects.sqlite import HASH_FUNCTION, RAISE_FUNCTION
-
 
 _MESSAGES: dict[int, str] = {}
 

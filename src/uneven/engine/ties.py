@@ -18,8 +18,8 @@ from __future__ import annotations
 import duckdb
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
 from uneven.compiler.emit import to_sql
+from uneven.sqltree import build as s
 
 _TIE_PRONE = ("TINYINT", "SMALLINT", "INTEGER", "BIGINT", "HUGEINT", "UTINYINT", "USMALLINT", "UINTEGER",
               "UBIGINT", "UHUGEINT", "DECIMAL", "BOOLEAN")

@@ -6,12 +6,12 @@ from __future__ import annotations
 
 from pathlib import Path
 
+from uneven.engine.output import write_all
 from uneven.errors import UnevenError
 from uneven.report.data import ReportData, collect
 from uneven.report.lorenz import lorenz_points
 from uneven.report.plot import plot_lorenz
 from uneven.report.query import make_spec, open_connection
-from uneven.engine.output import write_all
 
 __all__ = ["lorenz_points", "plot_lorenz", "write_report", "report_data", "render_report", "report_format"]
 

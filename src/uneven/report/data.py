@@ -14,8 +14,8 @@ than ``FEW_ROWS`` rows are flagged, and ``CAUTIONS`` say what can mislead.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass, field
-from typing import Callable
 
 import pandas as pd
 from sqlglot import exp

@@ -10,7 +10,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from uneven.errors import UnevenError, OutputError
+from uneven.errors import OutputError, UnevenError
 from uneven.report.lorenz import POINT_COLUMNS
 from uneven.report.query import group_label
 from uneven.report.svg import PALETTE
@@ -19,7 +19,7 @@ MAX_GROUPS = 12
 FORMATS = ("png", "svg")
 
 
-def _matplotlib():
+def load_matplotlib():
     try:
         import matplotlib
         from matplotlib.figure import Figure
@@ -53,7 +53,7 @@ def plot_lorenz(points: pd.DataFrame, path: str | Path | None = None, *, general
         fmt = Path(path).suffix.lower().lstrip(".")
         if fmt not in FORMATS:
             raise OutputError(f"{path}: a plot is written as .png or .svg (points as .csv)")
-    matplotlib, Figure = _matplotlib()
+    matplotlib, Figure = load_matplotlib()
     with matplotlib.rc_context({"svg.fonttype": "none", "svg.hashsalt": "uneven"}):
         fig = Figure(figsize=(7.5, 6), dpi=110)
         ax = fig.add_subplot()

@@ -10,12 +10,12 @@ import pandas as pd
 from sqlglot import exp
 
 from uneven.compiler import compile_sql
+from uneven.compiler.emit import to_sql
 from uneven.engine.adapters import Adapter, adapt, is_duckdb
 from uneven.engine.columns import duckdb_source_columns
 from uneven.engine.runner import connect, execute_df
 from uneven.errors import UnevenError
 from uneven.report.source import Source, resolve_source
-from uneven.compiler.emit import to_sql
 
 
 def as_list(by) -> list[str]:

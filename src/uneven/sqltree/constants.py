@@ -70,7 +70,7 @@ def _shown(node: exp.Expression, read: str) -> str:
 def _function_name(node: exp.Expression) -> str:
     if isinstance(node, exp.Rand):
         return "random"
-    return (node.name if isinstance(node, exp.Anonymous) else node.sql_name()).lower()
+    return (node.name if isinstance(node, exp.Anonymous) else node.sql_name()).lower()  # type: ignore[attr-defined]  # calls only: a Func
 
 
 def check_constant(node: exp.Expression, read: str = "duckdb") -> None:
@@ -153,7 +153,7 @@ def _unscaled_decimal_casts(tree: exp.Expression) -> exp.Expression:
 
 
 # what a read dialect's casts mean where sqlglot's transpilation to DuckDB keeps DuckDB's meaning
-_READ_RULES = {name: (_truncate_integer_casts,) for name in TRUNCATING_INTEGER_CASTS}
+_READ_RULES: dict[str, tuple] = {name: (_truncate_integer_casts,) for name in TRUNCATING_INTEGER_CASTS}
 _READ_RULES["sqlite"] = (_truncate_integer_casts, _unscaled_decimal_casts)
 
 

@@ -10,13 +10,13 @@ copy).
 
 from __future__ import annotations
 
-from typing import Callable
+from collections.abc import Callable
 
 from sqlglot import exp
 from sqlglot.optimizer.annotate_types import annotate_types
 
-from uneven.compiler import sqlx as s
 from uneven.errors import UnsupportedDialectError
+from uneven.sqltree import build as s
 from uneven.sqltree.grouping import reads_source_column
 
 Rule = Callable[[exp.Expression, str], exp.Expression]

@@ -25,11 +25,11 @@ import math
 
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
-from uneven.compiler.passes.linearized import critical_value
 from uneven.compiler.passes.line import window_ctes
+from uneven.compiler.passes.linearized import critical_value
 from uneven.compiler.passes.rows import RowContext, window_columns
 from uneven.compiler.passes.source import Source, cte, grouped, table, value_weight_rows
+from uneven.sqltree import build as s
 
 # Poisson(1) cumulative probabilities F(k) = e^(−1) Σ_{j≤k} 1/j!, k = 0 … 9 (draws above 9 have
 # probability 1.1e−7 and count as 10)

@@ -19,9 +19,9 @@ from __future__ import annotations
 from sqlglot import exp
 
 from uneven.catalog.moment import ADAPTIVE_ACCURACY
-from uneven.compiler import sqlx as s
 from uneven.compiler.passes.moment import MainAggregate, MomentContext
 from uneven.compiler.passes.source import Source, cte, join_on_keys, key_name, table
+from uneven.sqltree import build as s
 
 
 class CentredContext(MomentContext):

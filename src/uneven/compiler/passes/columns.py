@@ -3,7 +3,8 @@
 ``RowColumns``: the value ``x`` and the weight ``w`` (1.0 when unweighted) of a pass's rows.
 ``SortedColumns``: in a window CTE over rows sorted by x, the running weight ``c`` (C_i), the group
 minimum ``min_row``, the group weight ``W_row`` and the relative poverty line's columns
-(``median_row``, ``below_weight_row(frac)``, ``quantile_row(p)``: window layers of passes/line.py); reading one records it in ``used`` so the
+(``median_row``, ``below_weight_row(frac)``, ``quantile_row(p)``: window layers of passes/line.py);
+reading one records it in ``used`` so the
 lowering adds only the window columns a measure needs.
 """
 
@@ -11,7 +12,7 @@ from __future__ import annotations
 
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
 
 
 class RowColumns:

@@ -9,8 +9,8 @@ from __future__ import annotations
 
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
 from uneven.compiler.passes.source import Source, build_results, cte, grouped, table, valid_value
+from uneven.sqltree import build as s
 
 
 class EntityContext:

@@ -17,8 +17,8 @@ from __future__ import annotations
 
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
 from uneven.compiler.passes.source import cte, finite_or_null, table
+from uneven.sqltree import build as s
 
 
 def grid_table(name: str, k: int) -> str:

@@ -20,8 +20,8 @@ from __future__ import annotations
 
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
 from uneven.compiler.passes.source import cte, table
+from uneven.sqltree import build as s
 
 
 def _partition(keys):

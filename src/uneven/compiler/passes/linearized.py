@@ -29,9 +29,9 @@ from statistics import NormalDist
 from sqlglot import exp
 
 from uneven.catalog.linearize import Lin
-from uneven.compiler import sqlx as s
 from uneven.compiler.passes.rows import Aggregates, RowContext, lower_rows
 from uneven.compiler.passes.source import Source, cte, grouped, table
+from uneven.sqltree import build as s
 
 
 class Terms:

@@ -16,8 +16,8 @@ from __future__ import annotations
 
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
 from uneven.compiler.passes.source import Source, finite_or_null, not_finite, row_error, weight_label
+from uneven.sqltree import build as s
 
 
 class MainAggregate:

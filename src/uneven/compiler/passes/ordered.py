@@ -14,12 +14,22 @@ from __future__ import annotations
 
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
 from uneven.compiler.passes.columns import SortedColumns
 from uneven.compiler.passes.grid import grid_table, lower_lorenz_grid
 from uneven.compiler.passes.line import window_ctes
-from uneven.compiler.passes.source import (Source, build_results, checked_value, checked_weight, cte,
-                                             finite_or_null, grouped, key_name, table, weight_label)
+from uneven.compiler.passes.source import (
+    Source,
+    build_results,
+    checked_value,
+    checked_weight,
+    cte,
+    finite_or_null,
+    grouped,
+    key_name,
+    table,
+    weight_label,
+)
+from uneven.sqltree import build as s
 
 
 class OrderedContext(SortedColumns):

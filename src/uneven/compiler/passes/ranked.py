@@ -15,8 +15,8 @@ from __future__ import annotations
 
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
 from uneven.compiler.passes.source import Source, build_results, checked_weight, cte, grouped, table, weight_label
+from uneven.sqltree import build as s
 
 
 class RankedContext:

@@ -28,9 +28,17 @@ from dataclasses import dataclass
 
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
-from uneven.compiler.passes.source import (Source, checked_value, checked_weight, cte, finite_or_null,
-                                             key_name, table, weight_label)
+from uneven.compiler.passes.source import (
+    Source,
+    checked_value,
+    checked_weight,
+    cte,
+    finite_or_null,
+    key_name,
+    table,
+    weight_label,
+)
+from uneven.sqltree import build as s
 
 BINS_PER_LN = 50.0  # bins per unit of ln|x|: about 2 % relative width (bench/README.md, "Refine plan")
 OFFSET = 1 << 20  # keeps every positive bin above zero and every negative one below (|ln x|·50 < 2²⁰)

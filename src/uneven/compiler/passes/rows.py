@@ -16,11 +16,11 @@ from __future__ import annotations
 
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
 from uneven.compiler.passes.columns import SortedColumns
 from uneven.compiler.passes.line import window_ctes
 from uneven.compiler.passes.source import Source, cte, table, value_weight_rows
 from uneven.errors import MeasureUsageError
+from uneven.sqltree import build as s
 
 
 class RowContext(SortedColumns):

@@ -6,7 +6,8 @@ from dataclasses import dataclass
 
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
+from uneven.sqltree import build as s
+from uneven.sqltree.build import cte, grouped, table  # noqa: F401  (re-exported to the passes)
 
 
 def key_name(i: int) -> str:
@@ -114,14 +115,6 @@ def weight_label(w: exp.Expression) -> str:
     return w.sql("duckdb")
 
 
-def cte(select: exp.Select, name: str) -> exp.CTE:
-    return exp.CTE(this=select, alias=exp.TableAlias(this=exp.to_identifier(name, quoted=True)))
-
-
-def table(name: str) -> exp.Table:
-    return exp.Table(this=exp.to_identifier(name, quoted=True))
-
-
 def build_results(calls: list, ctx, name: str) -> tuple[list[exp.Expression], dict[tuple, exp.Expression]]:
     """One aggregate column per distinct call (``_uv_r1`` …) and, per call key, its column in ``name``."""
     columns, results = [], {}
@@ -136,14 +129,6 @@ def build_results(calls: list, ctx, name: str) -> tuple[list[exp.Expression], di
         columns.append(s.named(built, column))  # built for this column alone
         results[call.key] = s.col(column, name)
     return columns, results
-
-
-def grouped(keys: list[exp.Expression], columns: list[exp.Expression], below: str) -> exp.Select:
-    """SELECT keys, columns FROM below GROUP BY keys (no GROUP BY without keys: one row)."""
-    out = exp.Select(expressions=[k.copy() for k in keys] + columns).from_(table(below), copy=False)
-    if keys:
-        out.set("group", exp.Group(expressions=[k.copy() for k in keys]))
-    return out
 
 
 def join_on_keys(keys: list[exp.Expression], other: str, left: str | None = None) -> exp.Join:

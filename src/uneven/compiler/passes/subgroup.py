@@ -10,9 +10,9 @@ from __future__ import annotations
 
 from sqlglot import exp
 
-from uneven.compiler import sqlx as s
 from uneven.compiler.passes.columns import RowColumns
 from uneven.compiler.passes.source import Source, build_results, checked_weight, cte, grouped, weight_label
+from uneven.sqltree import build as s
 
 
 class SubgroupContext(RowColumns):

@@ -15,8 +15,8 @@ from sqlglot import exp
 from uneven.bounds import bins as b
 from uneven.bounds.lower import lower_bounds
 from uneven.bounds.measures import powers_needed
-from uneven.compiler import sqlx as s
 from uneven.compiler.passes.source import Source, cte, table, value_weight_rows
+from uneven.sqltree import build as s
 
 
 def lower_summary_pass(source: Source, main, plan, name: str, resolution: float | None = None

@@ -31,6 +31,7 @@ def adapt(con, owned: bool = False) -> Adapter:
         return con
     if is_duckdb(con):
         import duckdb
+
         from uneven.engine.adapters.duckdb import DuckDBAdapter
         return DuckDBAdapter(con if con is not None else duckdb.connect(), owned=owned or con is None)
     module = _module(con)

@@ -193,3 +193,11 @@ def frame_of(names: list[str], rows: list[tuple], types: list[str | None]) -> pd
     df = pd.DataFrame(data) if data else pd.DataFrame(index=range(len(rows)))
     df.columns = list(names)
     return df
+
+
+def plain_cell(value):
+    """A DataFrame cell as a plain Python value (NULL for NA and for NaN in a nullable column)."""
+    if value is None or value is pd.NA:
+        return None
+    return value.item() if hasattr(value, "item") else value
+

@@ -3,7 +3,7 @@ the usual PG* environment variables and a service file for what the URL leaves o
 
 from __future__ import annotations
 
-from uneven.engine.adapters.base import Adapter, NUMERIC, TEXT
+from uneven.engine.adapters.base import NUMERIC, TEXT, Adapter, plain_cell
 
 # PostgreSQL type names (psycopg's) → DuckDB's spelling for the compiler's type check
 _TYPES = {"int2": "SMALLINT", "int4": "INTEGER", "int8": "BIGINT", "float4": "REAL", "float8": NUMERIC,
@@ -58,7 +58,7 @@ class PostgresAdapter(Adapter):
             cur.execute(sql.SQL("CREATE TEMPORARY TABLE {} ({})").format(table, cols))
             with cur.copy(sql.SQL("COPY {} FROM STDIN").format(table)) as copy:
                 for row in frame.itertuples(index=False):
-                    copy.write_row([_cell(v) for v in row])
+                    copy.write_row([plain_cell(v) for v in row])
         if not self.con.autocommit:
             self.con.commit()
 
@@ -88,11 +88,3 @@ _PG_TYPES = {"f": "double precision", "i": "bigint", "u": "bigint", "b": "boolea
 
 def _pg_type(dtype) -> str:
     return _PG_TYPES.get(getattr(dtype, "kind", "O"), "text")
-
-
-def _cell(value):
-    """A DataFrame cell as a plain Python value (NULL for NA and for NaN in a nullable column)."""
-    import pandas as pd
-    if value is None or value is pd.NA:
-        return None
-    return value.item() if hasattr(value, "item") else value

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from uneven.engine.adapters.base import Adapter, NUMERIC, TEXT
+from uneven.engine.adapters.base import NUMERIC, TEXT, Adapter
 
 # Spark's simple type strings → DuckDB's spelling for the compiler's type check
 _TYPES = {"tinyint": "TINYINT", "smallint": "SMALLINT", "int": "INTEGER", "bigint": "BIGINT", "float": "REAL",
@@ -23,8 +23,8 @@ class SparkAdapter(Adapter):
     dialect = "spark"
 
     def errors(self):
-        from pyspark.errors import PySparkException
         from py4j.protocol import Py4JError
+        from pyspark.errors import PySparkException
         return (PySparkException, Py4JError)
 
     def fetch(self, sql: str):

@@ -8,10 +8,9 @@ import sqlite3
 
 import numpy as np
 import pandas as pd
-
 from sqlglot import exp
 
-from uneven.engine.adapters.base import Adapter, NUMERIC, TEXT, drop_table, quoted_table
+from uneven.engine.adapters.base import NUMERIC, TEXT, Adapter, drop_table, plain_cell, quoted_table
 from uneven.engine.columns import probe_select
 from uneven.engine.sqlite import install_sqlite_functions, raised_message
 
@@ -47,7 +46,7 @@ class SQLiteAdapter(Adapter):
         """As on every engine, plus: list results (``lorenz_curve``), which SQLite gives as JSON text,
         come back as arrays of dicts, as DuckDB gives them."""
         df = super().execute(sql)
-        for name in df.columns[df.dtypes == object] if len(df.columns) == len(set(df.columns)) else []:
+        for name in df.columns[df.dtypes == object] if len(df.columns) == len(set(df.columns)) else []:  # noqa: E721 (elementwise)
             decoded = _json_lists(df[name])
             if decoded is not None:
                 df[name] = decoded
@@ -81,7 +80,6 @@ class SQLiteAdapter(Adapter):
         return [_type_by_form(e) or (TEXT if flag else NUMERIC) for e, flag in zip(exprs, rows[0])]
 
     def register(self, name: str, frame) -> None:
-        from uneven.engine.adapters.postgres import _cell
         table = quoted_table(name)
         cols = [exp.ColumnDef(this=exp.to_identifier(str(c), quoted=True),
                               kind=exp.DataType.build(_TYPES.get(frame[c].dtype.kind, "TEXT"), dialect="sqlite"))
@@ -93,7 +91,7 @@ class SQLiteAdapter(Adapter):
                                 "sqlite"))
         marks = exp.Tuple(expressions=[exp.Placeholder() for _ in frame.columns])
         insert = exp.Insert(this=table.copy(), expression=exp.Values(expressions=[marks]))
-        self.con.executemany(to_sql(insert, "sqlite"), [[_cell(v) for v in row] for row in frame.itertuples(index=False)])
+        self.con.executemany(to_sql(insert, "sqlite"), [[plain_cell(v) for v in row] for row in frame.itertuples(index=False)])
 
     def has_table(self, name: str) -> bool:
         rows = self.con.execute("SELECT 1 FROM sqlite_master WHERE name = ? UNION ALL "

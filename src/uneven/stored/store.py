@@ -18,14 +18,14 @@ from sqlglot import exp
 from uneven import catalog
 from uneven.bounds import bins as b
 from uneven.bounds.measures import BOUNDED
-from uneven.bounds.run import pick_resolution
-from uneven.compiler import sqlx as s
 from uneven.compiler.generate import generate
 from uneven.engine.adapters import adapt, is_duckdb
+from uneven.engine.bounded import pick_resolution
 from uneven.engine.frames import register_caller_frames, register_frames_on
 from uneven.engine.runner import connect, execute_df
-from uneven.errors import UnevenError, MeasureArgumentError, SqlParseError
-from uneven.summary.sql import RESERVED_PREFIX, measures_select, merged_select, summary_select
+from uneven.errors import MeasureArgumentError, SqlParseError, UnevenError
+from uneven.sqltree import build as s
+from uneven.stored.sql import RESERVED_PREFIX, measures_select, merged_select, summary_select
 
 
 class _Engine:

@@ -30,12 +30,12 @@ from statistics import NormalDist
 import pandas as pd
 from sqlglot import exp
 
-from uneven.compare_groups import _levels
-from uneven.compiler import sqlx as s
 from uneven.compiler.emit import to_sql
 from uneven.engine.adapters import adapt, is_duckdb
 from uneven.errors import MeasureArgumentError
-from uneven.structure import _parse, _Spec, session
+from uneven.sqltree import build as s
+from uneven.tables.base import Spec, parse_expression, session
+from uneven.tables.compare import two_levels
 
 FN = "lorenz_dominance"
 VERDICTS = ("dominates", "curves cross", "not distinguishable at this level")
@@ -103,11 +103,11 @@ def lorenz_dominance(relation: str, x: str, group: str, groups, *, weight: str |
                      strata: str | None = None, psu: str | None = None, con=None, frame=None) -> Dominance:
     """Compare the (generalized) Lorenz curves of two values of ``group`` at ``points`` interior
     fractions; see the module documentation for the test and the wording of the verdict."""
-    levels = _levels(groups)
+    levels = two_levels(groups)
     points, level = _check(points, level)
-    spec = _Spec(FN, relation, (), weight)
-    xv, gv = _parse(x, "value", FN), _parse(group, "group column", FN)
-    design = [exp.PropertyEQ(this=exp.to_identifier(k), expression=_parse(v, k, FN))
+    spec = Spec(FN, relation, (), weight)
+    xv, gv = parse_expression(x, "value", FN), parse_expression(group, "group column", FN)
+    design = [exp.PropertyEQ(this=exp.to_identifier(k), expression=parse_expression(v, k, FN))
               for k, v in (("strata", strata), ("psu", psu)) if v is not None]
     name = "generalized_lorenz" if generalized else "lorenz"
     ps = grid(points)

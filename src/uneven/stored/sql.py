@@ -8,8 +8,9 @@ from sqlglot import exp
 
 from uneven.bounds import bins as b
 from uneven.bounds.lower import lower_bounds
-from uneven.compiler import sqlx as s
-from uneven.compiler.passes.source import cte, table, value_weight_rows
+from uneven.compiler.passes.source import value_weight_rows
+from uneven.sqltree import build as s
+from uneven.sqltree.build import cte, table
 
 RESERVED_PREFIX = "uv_"
 
@@ -56,7 +57,7 @@ def measures_select(source: exp.Expression, keys: list[str], columns: list[str],
                                   "_uv_sm", merge=True)
     ctes += more
     final = exp.Select(expressions=[k.copy() for k in key_cols]).from_(table("_uv_sm"))
-    for label, measure, params in calls:
+    for label, _measure, _params in calls:
         point, lo, hi = names[label]
         final.append("expressions", s.alias(s.col(point), label))
         final.append("expressions", s.alias(s.col(lo), f"{label}_lo"))

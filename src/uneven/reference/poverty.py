@@ -23,8 +23,10 @@ import numbers
 
 import numpy as np
 
-from uneven import reference as R
-from uneven.reference import _Rows
+from uneven.reference import linearized
+from uneven.reference import measures as R
+from uneven.reference.density import density_at_quantile, hall_sheather
+from uneven.reference.measures import Rows
 
 __all__ = ["below_line_share", "median_gap", "fgt", "fgt_relative", "wolfson", "equivalised",
            "poverty_line"]
@@ -37,7 +39,7 @@ def _check_alpha(alpha) -> float:
 
 
 def _check_frac(frac) -> float:
-    frac = R._check_fraction(frac, "frac")
+    frac = R.check_fraction(frac, "frac")
     if frac <= 0:
         raise ValueError(f"frac must lie in (0, 1], got {frac!r}")
     return frac
@@ -52,7 +54,7 @@ def poverty_line(x, frac, w=None) -> float | None:
     return frac * m
 
 
-def _below(r: _Rows, z: float) -> np.ndarray:
+def _below(r: Rows, z: float) -> np.ndarray:
     return r.x < z
 
 
@@ -60,7 +62,7 @@ def below_line_share(x, frac, w=None) -> float | None:
     z = poverty_line(x, frac, w)
     if z is None:
         return None
-    r = _Rows(x, w)
+    r = Rows(x, w)
     return float(math.fsum(r.w[_below(r, z)]) / r.W)
 
 
@@ -68,7 +70,7 @@ def median_gap(x, frac, w=None) -> float | None:
     z = poverty_line(x, frac, w)
     if z is None:
         return None
-    r = _Rows(x, w)
+    r = Rows(x, w)
     below = _below(r, z)
     if not below.any():
         return None
@@ -78,7 +80,7 @@ def median_gap(x, frac, w=None) -> float | None:
     return float((z - r.x[first]) / z)
 
 
-def _fgt_at(r: _Rows, alpha: float, z: float) -> float | None:
+def _fgt_at(r: Rows, alpha: float, z: float) -> float | None:
     if r.empty:
         return None
     below = _below(r, z)
@@ -91,7 +93,7 @@ def fgt(x, alpha, line, w=None) -> float | None:
     alpha = _check_alpha(alpha)
     if isinstance(line, bool) or not isinstance(line, numbers.Real) or not math.isfinite(line) or line <= 0:
         raise ValueError(f"line must be a finite number above 0, got {line!r}")
-    return _fgt_at(_Rows(x, w), alpha, float(line))
+    return _fgt_at(Rows(x, w), alpha, float(line))
 
 
 def fgt_relative(x, alpha, frac, w=None) -> float | None:
@@ -99,11 +101,11 @@ def fgt_relative(x, alpha, frac, w=None) -> float | None:
     z = poverty_line(x, frac, w)
     if z is None:
         return None
-    return _fgt_at(_Rows(x, w), alpha, z)
+    return _fgt_at(Rows(x, w), alpha, z)
 
 
 def wolfson(x, w=None) -> float | None:
-    r = _Rows(x, w)
+    r = Rows(x, w)
     if r.empty or not r.positive:
         return None
     m = R.quantile_w(x, 0.5, w)
@@ -147,10 +149,9 @@ def _sorted_rows(x, w):
     return x, w, o
 
 
-def _median_score(x, w):
+def median_score(x, w):
     """z_k of the weighted median, (0.5 − 1(x_k ≤ M)) / (W f(M)), in input order; None without a density."""
-    from uneven import reference_se as RSE
-    f = RSE.density_at_quantile(x, 0.5, w)
+    f = density_at_quantile(x, 0.5, w)
     if f is None:
         return None, None
     M = R.quantile_w(x, 0.5, w)
@@ -161,11 +162,10 @@ def _median_score(x, w):
 
 def density_at_line(x, frac, w=None) -> float | None:
     """(p⁺ − p⁻)/(Q(p⁺) − Q(p⁻)), p± = H ± h, h = min(K(0.5)·n^(−1/3), H), H the share below the line."""
-    from uneven import reference_se as RSE
     H = below_line_share(x, frac, w)
     if H is None:
         return None
-    h = min(RSE.hall_sheather(0.5, len(x)), H)
+    h = min(hall_sheather(0.5, len(x)), H)
     hi, lo = min(H + h, 1.0), H - h
     spread = R.quantile_w(x, hi, w) - R.quantile_w(x, lo, w)
     return (hi - lo) / spread if spread > 0 else None
@@ -188,7 +188,7 @@ def influence(name, x, params=(), w=None):
             return F, None
         M = R.quantile_w(x, 0.5, w)
         z = frac * M
-        zM, fM = _median_score(x, w)
+        zM, fM = median_score(x, w)
         if zM is None:
             return F, None
         if alpha == 0:
@@ -201,15 +201,14 @@ def influence(name, x, params=(), w=None):
         # F(ẑ) with ẑ = frac·M̂: z_k = (g_k − F)/W + ∂F/∂z · frac · z_M,k
         return F, (g - F) / W + slope * frac * zM
     if name == "wolfson":
-        from uneven import reference_se as RSE
         P = wolfson(x, w)
         if P is None:
             return None, None
         T = (wv * x).sum()
         mu, M = T / W, R.quantile_w(x, 0.5, w)
-        L, zL = RSE.influence("lorenz", x, (0.5,), w)
-        G, zG = RSE.influence("gini", x, (), w)
-        zM, _ = _median_score(x, w)
+        L, zL = linearized.influence("lorenz", x, (0.5,), w)
+        G, zG = linearized.influence("gini", x, (), w)
+        zM, _ = median_score(x, w)
         if zM is None or zL is None or zG is None:
             return P, None
         zmu = (x - mu) / W

@@ -1,5 +1,11 @@
-"""The difference of a measure between two groups of rows (two provinces, men and women …), with a
-standard error, in one of two forms:
+"""Comparisons: one measure of two values of the same rows (paired), or of two groups of rows.
+
+``compare(rel, "gross", "disposable")``: the paired Gini difference of two values of the same rows,
+with its standard error (gini_diff / gini_diff_se of the catalog, the paired pass).
+
+``compare(rel, "income", group=…, groups=(a, b))`` (``compare_groups``): the difference of a
+measure between two groups of rows (two provinces, men and women …), with a standard error, in one
+of two forms:
 
 ``se="design"`` (Gini only): the linearized difference under one survey design. Every row of the
 relation (per block of ``by``) belongs to the design; a row of the first group carries
@@ -22,20 +28,73 @@ from __future__ import annotations
 import inspect
 import math
 
+import duckdb
 import pandas as pd
 from sqlglot import exp
 
 from uneven import catalog
-from uneven.compiler import sqlx as s
 from uneven.errors import MeasureArgumentError
-from uneven.influence import _cte, _table
-from uneven.structure import _by_labels, _parse, _Spec, session
+from uneven.sqltree import build as s
+from uneven.tables.base import Spec, group_labels, parse_expression, session
+
+#: Printed by ``uneven compare`` under its table (stderr) and shown in its help.
+MANY_COMPARISONS = ("z = difference / se. Comparing many pairs inflates false positives: with no real "
+                    "difference, one comparison in twenty still gives |z| > 1.96, so over many groups or pairs "
+                    "adjust the threshold (e.g. 5 % divided by the number of comparisons) or read z as a screen.")
+
+
+
+# ---------------------------------------------------------------------------- paired comparison
+def compare(relation: str, x1: str, x2: str | None = None, *, group: str | None = None, groups=None,
+            measure: str = "gini", params=(), se: str | None = None, strata: str | None = None,
+            psu: str | None = None, weight: str | None = None, by=(),
+            con: duckdb.DuckDBPyConnection | None = None) -> pd.DataFrame:
+    """Two forms.
+
+    Two values of the same rows (``compare(rel, "gross", "disposable")``): Gini of each, their
+    difference and its standard error accounting for the pairing (linearised Gini per row,
+    with-replacement variance of one stratum: a simple random sample or a design whose first-stage
+    units are the rows). Rows where either value or the weight is NULL are skipped.
+
+    Two groups of rows (``compare(rel, "income", group="sex", groups=("f", "m"))``): ``measure`` in
+    each group, the difference first − second and its standard error, ``se="design"`` (Gini; the
+    linearized difference under the design ``strata``/``psu`` shared by both groups, covariance
+    included) or ``se="independent"`` (any measure with an ``_se`` form: sqrt(se₁² + se₂²)); see
+    ``uneven.compare_groups``. The column ``se_method`` says which was computed.
+
+    ``z`` = difference / se: with many comparisons (many ``by`` groups or pairs), some |z| > 1.96
+    turn up by chance alone (one in twenty where there is no difference): see MANY_COMPARISONS."""
+    fn = "compare"
+    if group is not None or groups is not None:
+        if x2 is not None:
+            raise MeasureArgumentError(f"{fn}: give either a second value (two values of the same rows) or "
+                                       "group= and groups= (two groups of rows), not both")
+        if group is None or groups is None:
+            raise MeasureArgumentError(f"{fn}: comparing two groups needs both group= (the column) and groups= "
+                                       "(its two values)")
+        return compare_groups(relation, x1, group, groups, measure=measure, params=params, se=se, weight=weight,
+                              strata=strata, psu=psu, by=by, con=con, frame=inspect.currentframe().f_back)
+    if x2 is None:
+        raise MeasureArgumentError(f"{fn}: give a second value of the same rows, or group= and groups=")
+    if measure != "gini" or params or se not in (None, "design") or strata is not None or psu is not None:
+        raise MeasureArgumentError(f"{fn}: two values of the same rows are compared by their Gini with the "
+                                   "paired SE of one stratum (no measure, params, se, strata or psu options)")
+    spec = Spec(fn, relation, by, weight)
+    a, b = parse_expression(x1, "first value", fn), parse_expression(x2, "second value", fn)
+    items = [s.alias(exp.Count(this=exp.Star()), "rows"), s.alias(spec.measure("gini", a), "gini_1"),
+             s.alias(spec.measure("gini", b), "gini_2"), s.alias(spec.measure("gini_diff", a, b), "difference"),
+             s.alias(spec.measure("gini_diff_se", a, b), "se")]
+    with session(spec, con, inspect.currentframe().f_back) as run:
+        out = run(spec.select(items, [a, b]))
+    out["z"] = out["difference"] / out["se"].where(out["se"] > 0)
+    return spec.rename(out, group_labels(by))
+
 
 ZERO, ONE, TWO = s.lit(0.0), s.lit(1.0), s.lit(2.0)
 FN = "compare"
 
 
-def _levels(groups) -> tuple:
+def two_levels(groups) -> tuple:
     ok = (str, int, float)
     if (isinstance(groups, (str, bytes)) or not isinstance(groups, (tuple, list)) or len(groups) != 2
             or not all(isinstance(g, ok) and not isinstance(g, bool) for g in groups) or groups[0] == groups[1]
@@ -61,7 +120,7 @@ def _measure(measure: str, params) -> tuple[str, tuple[float, ...]]:
     return m.name, params
 
 
-def design_difference_sql(spec: _Spec, x: exp.Expression, group: exp.Expression, levels: tuple,
+def design_difference_sql(spec: Spec, x: exp.Expression, group: exp.Expression, levels: tuple,
                           strata: exp.Expression | None, psu: exp.Expression | None) -> exp.Select:
     """Per block of ``by``: rows and Gini of each group, and the linearized SE of G₁ − G₂ under the
     shared design (strata, PSUs)."""
@@ -85,12 +144,12 @@ def design_difference_sql(spec: _Spec, x: exp.Expression, group: exp.Expression,
     win = exp.Select(expressions=part("_uv_d", "_uv_h", "_uv_psu") + [xv, wv,
         s.alias(run_sum(wv.copy()), "_uv_c"), s.alias(run_sum(s.mul(wv.copy(), xv.copy())), "_uv_s"),
         s.alias(tot_sum(wv.copy()), "_uv_wt"), s.alias(tot_sum(s.mul(wv.copy(), xv.copy())), "_uv_t")]
-    ).from_(_table("_uv_cmp_rows"))
+    ).from_(s.table("_uv_cmp_rows"))
     W, T, C, S = s.col("_uv_wt"), s.col("_uv_t"), s.col("_uv_c"), s.col("_uv_s")
     gini_term = s.mul(s.mul(wv.copy(), xv.copy()), s.sub(s.sub(s.mul(TWO, C.copy()), wv.copy()), W.copy()))
     lin = exp.Select(expressions=part("_uv_d", "_uv_h", "_uv_psu") + [xv.copy(), wv.copy(), C.copy(), S.copy(),
         W.copy(), T.copy(), s.alias(s.case(s.gt(T.copy(), ZERO), s.div(tot_sum(gini_term), s.mul(W.copy(), T.copy()))),
-                                    "_uv_g")]).from_(_table("_uv_cmp_win"))
+                                    "_uv_g")]).from_(s.table("_uv_cmp_win"))
     G = s.col("_uv_g")
     z = s.div(s.sub(s.add(s.sub(s.mul(s.mul(TWO, C.copy()), xv.copy()), s.mul(TWO, S.copy())),
                           s.sub(T.copy(), s.mul(W.copy(), xv.copy()))),
@@ -107,7 +166,7 @@ def design_difference_sql(spec: _Spec, x: exp.Expression, group: exp.Expression,
         s.alias(exp.Max(this=in_group(1, s.lit(1))), "_uv_has1"), s.alias(exp.Max(this=in_group(2, s.lit(1))), "_uv_has2"),
         s.alias(exp.Max(this=s.case(s.and_(is_(1), exp.Is(this=G.copy(), expression=exp.Null())), s.lit(1))), "_uv_bad1"),
         s.alias(exp.Max(this=s.case(s.and_(is_(2), exp.Is(this=G.copy(), expression=exp.Null())), s.lit(1))), "_uv_bad2"),
-    ]).from_(_table("_uv_cmp_lin")).group_by(*part("_uv_h", "_uv_psu"))
+    ]).from_(s.table("_uv_cmp_lin")).group_by(*part("_uv_h", "_uv_psu"))
     U = s.col("_uv_u")
     carry = ["_uv_n1", "_uv_n2"]
     highest = ["_uv_g1", "_uv_g2", "_uv_has1", "_uv_has2", "_uv_bad1", "_uv_bad2"]
@@ -115,7 +174,7 @@ def design_difference_sql(spec: _Spec, x: exp.Expression, group: exp.Expression,
         s.alias(s.agg_count_star(), "_uv_nu"), s.alias(s.agg_sum(U.copy()), "_uv_s1"),
         s.alias(s.agg_sum(s.mul(U.copy(), U.copy())), "_uv_s2")]
         + [s.alias(s.agg_sum(s.col(c)), c) for c in carry] + [s.alias(exp.Max(this=s.col(c)), c) for c in highest]
-    ).from_(_table("_uv_cmp_psu")).group_by(*part("_uv_h"))
+    ).from_(s.table("_uv_cmp_psu")).group_by(*part("_uv_h"))
     n = s.cast_double(s.col("_uv_nu"))
     v_h = s.case(s.gt(s.col("_uv_nu"), s.lit(1)),
                  s.div(s.sub(s.mul(n, s.col("_uv_s2")), s.mul(s.col("_uv_s1"), s.col("_uv_s1"))), s.sub(n.copy(), ONE)))
@@ -125,7 +184,7 @@ def design_difference_sql(spec: _Spec, x: exp.Expression, group: exp.Expression,
         s.alias(s.agg_sum(v_h), "_uv_v"), s.alias(exp.Min(this=s.col("_uv_nu")), "_uv_fewest"),
         s.alias(exp.Max(this=s.col("_uv_bad1")), "_uv_bad1"), s.alias(exp.Max(this=s.col("_uv_bad2")), "_uv_bad2"),
         s.alias(exp.Max(this=s.col("_uv_has1")), "_uv_has1"), s.alias(exp.Max(this=s.col("_uv_has2")), "_uv_has2"),
-    ]).from_(_table("_uv_cmp_str"))
+    ]).from_(s.table("_uv_cmp_str"))
     if keys:
         fin = fin.group_by(*part())
     ok = s.and_(exp.Is(this=s.col("_uv_bad1"), expression=exp.Null()), exp.Is(this=s.col("_uv_bad2"), expression=exp.Null()),
@@ -136,10 +195,10 @@ def design_difference_sql(spec: _Spec, x: exp.Expression, group: exp.Expression,
                 s.sqrt(s.greatest(s.col("_uv_v"), ZERO.copy())))
     final = exp.Select(expressions=part() + [s.col("rows_1"), s.col("rows_2"), s.alias(g1, "gini_1"), s.alias(g2, "gini_2"),
                                              s.alias(s.sub(g1.copy(), g2.copy()), "difference"), s.alias(se, "se")]
-                       ).from_(_table("_uv_cmp_fin"))
-    final.set("with_", exp.With(expressions=[_cte(rows, "_uv_cmp_rows"), _cte(win, "_uv_cmp_win"),
-                                             _cte(lin, "_uv_cmp_lin"), _cte(per_psu, "_uv_cmp_psu"),
-                                             _cte(per_stratum, "_uv_cmp_str"), _cte(fin, "_uv_cmp_fin")]))
+                       ).from_(s.table("_uv_cmp_fin"))
+    final.set("with_", exp.With(expressions=[s.cte(rows, "_uv_cmp_rows"), s.cte(win, "_uv_cmp_win"),
+                                             s.cte(lin, "_uv_cmp_lin"), s.cte(per_psu, "_uv_cmp_psu"),
+                                             s.cte(per_stratum, "_uv_cmp_str"), s.cte(fin, "_uv_cmp_fin")]))
     return final
 
 
@@ -150,7 +209,7 @@ def compare_groups(relation: str, x: str, group: str, groups, *, measure: str = 
     difference, its standard error and difference/se, per block of ``by``. ``se`` is ``"design"``
     (Gini only, the default for it) or ``"independent"`` (the default for other measures); see the
     module documentation for what each computes."""
-    levels = _levels(groups)
+    levels = two_levels(groups)
     name, params = _measure(measure, params)
     method = se or ("design" if name == "gini" else "independent")
     if method not in ("design", "independent"):
@@ -158,10 +217,10 @@ def compare_groups(relation: str, x: str, group: str, groups, *, measure: str = 
     if method == "design" and name != "gini":
         raise MeasureArgumentError(f"{FN}: se='design' (the linearized difference under one design) is built "
                                    f"for the Gini; use se='independent' for {name}")
-    spec = _Spec(FN, relation, by, weight)
-    xv, gv = _parse(x, "value", FN), _parse(group, "group column", FN)
-    h = _parse(strata, "strata", FN) if strata is not None else None
-    c = _parse(psu, "psu", FN) if psu is not None else None
+    spec = Spec(FN, relation, by, weight)
+    xv, gv = parse_expression(x, "value", FN), parse_expression(group, "group column", FN)
+    h = parse_expression(strata, "strata", FN) if strata is not None else None
+    c = parse_expression(psu, "psu", FN) if psu is not None else None
     keys = spec.names()
     with session(spec, con, frame or inspect.currentframe().f_back) as run:
         if method == "design":
@@ -174,7 +233,7 @@ def compare_groups(relation: str, x: str, group: str, groups, *, measure: str = 
     if name != "gini":
         out = out.rename(columns={"gini_1": f"{name}_1", "gini_2": f"{name}_2"})
     out = out.sort_values(keys, kind="stable").reset_index(drop=True) if keys else out
-    return spec.rename(out, _by_labels(by))
+    return spec.rename(out, group_labels(by))
 
 
 def _independent(spec, run, name, params, xv, gv, levels, h, c) -> pd.DataFrame:

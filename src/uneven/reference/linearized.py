@@ -1,24 +1,15 @@
-"""numpy reference ("oracle") for the standard errors, confidence intervals and bootstrap of
-uneven: each influence function written straight from its published formula (see
-docs/uncertainty.md), per row, and the with-replacement variance of its weighted total computed
-stratum by stratum, PSU by PSU. Written to be read, not to be fast; it shares no code with the
-SQL lowering (which expands the variance into sums of products instead).
-
-``influence(name, x, params, w)`` returns (estimate, z) with z in the input row order;
-``se(name, x, params, w, strata, psu)`` the linearization standard error.
-"""
+"""The linearized influence z_k of each inequality measure, row by row, written from its published
+formula (docs/uncertainty.md); ``reference.se`` turns them into standard errors, and the poverty
+references build theirs on the Gini and Lorenz ones here."""
 
 from __future__ import annotations
 
 import math
-from statistics import NormalDist
 
 import numpy as np
 
-from uneven import reference as R
-from uneven import reference_poverty as RP
-
-__all__ = ["influence", "design_variance", "se", "ci", "hall_sheather", "density_at_quantile", "SE_MEASURES"]
+from uneven.reference import measures as R
+from uneven.reference.density import density_at_quantile
 
 
 def _sorted(x, w):
@@ -32,21 +23,6 @@ def _unsort(values_sorted, order):
     out = np.empty_like(values_sorted)
     out[order] = values_sorted
     return out
-
-
-def hall_sheather(p: float, n: int, alpha: float = 0.05) -> float:
-    """Hall & Sheather (1988, from memory) bandwidth: n^(−1/3) z_{1−α/2}^(2/3) [1.5 φ(Φ⁻¹p)² / (2(Φ⁻¹p)² + 1)]^(1/3)."""
-    nd = NormalDist()
-    q = nd.inv_cdf(p)
-    return n ** (-1 / 3) * nd.inv_cdf(1 - alpha / 2) ** (2 / 3) * (1.5 * nd.pdf(q) ** 2 / (2 * q * q + 1)) ** (1 / 3)
-
-
-def density_at_quantile(x, p, w=None) -> float | None:
-    """Siddiqui (1960) / Bloch–Gastwirth (1968) (from memory) difference quotient with the Hall–Sheather bandwidth."""
-    h = hall_sheather(p, len(x))
-    hi, lo = min(p + h, 1.0), max(p - h, 0.0)
-    spread = R.quantile_w(x, hi, w) - R.quantile_w(x, lo, w)
-    return (hi - lo) / spread if spread > 0 else None
 
 
 def _gini(x, w):
@@ -146,9 +122,9 @@ def _moment(name, x, params, w):
 
 
 def influence(name: str, x, params=(), w=None):
-    """(estimate, z per row in input order); z is None where no standard error exists."""
-    if name in RP.SE_MEASURES:  # poverty lines and Wolfson: reference_poverty.influence
-        return RP.influence(name, x, params, w)
+    """(estimate, z per row in input order) of an inequality measure; z is None where no standard
+    error exists. The poverty measures have theirs in ``reference.poverty``; ``reference.se.influence``
+    answers for both."""
     if name == "gini":
         return _gini(x, w)
     if name in ("lorenz", "bottom_share"):
@@ -176,71 +152,3 @@ def influence(name: str, x, params=(), w=None):
     if name == "percentile_ratio":
         return _ratio(_quantile(x, params[0], w), _quantile(x, params[1], w))
     return _moment(name, x, params, w)
-
-
-def design_variance(u, strata=None, psu=None) -> float | None:
-    """Σ_h n_h/(n_h − 1) Σ_c (U_hc − Ū_h)², U_hc the total of u over PSU c of stratum h (each row its
-    own PSU without ``psu``, one stratum without ``strata``): the with-replacement (ultimate
-    cluster) variance of a total (common practice; e.g. Wolter 2007, Introduction to Variance
-    Estimation, §1.4, cited from memory)."""
-    u = np.asarray(u, dtype=np.float64)
-    n = len(u)
-    h = np.zeros(n, dtype=object) if strata is None else np.asarray(strata, dtype=object)
-    c = np.arange(n).astype(object) if psu is None else np.asarray(psu, dtype=object)
-    total = 0.0
-    for stratum in dict.fromkeys(h.tolist()):
-        in_h = h == stratum
-        units = {}
-        for cc, uu in zip(c[in_h].tolist(), u[in_h]):
-            units[cc] = units.get(cc, 0.0) + uu
-        U = np.array(list(units.values()))
-        if len(U) < 2:
-            return None
-        total += len(U) / (len(U) - 1) * ((U - U.mean()) ** 2).sum()
-    return total
-
-
-def _defined(name: str, x, params, w) -> bool:
-    """The measure itself has a value here (a positive total, x in its domain): where it is NULL,
-    so is its standard error."""
-    if name in RP.SE_MEASURES:
-        return RP.REFERENCES[name](list(x), *params, None if w is None else list(w)) is not None
-    if name not in SE_MEASURES:
-        return False
-    return R.REFERENCES[name](list(x), *params, None if w is None else list(w)) is not None
-
-
-def _kept(x, w, strata, psu):
-    """Rows with weight 0 change nothing and are dropped (the measure contract), before n is counted."""
-    if w is None:
-        return x, w, strata, psu
-    keep = [i for i, wi in enumerate(w) if wi != 0]
-    pick = (lambda v: None if v is None else [v[i] for i in keep])
-    return pick(x), pick(w), pick(strata), pick(psu)
-
-
-def se(name: str, x, params=(), w=None, strata=None, psu=None) -> float | None:
-    x, w, strata, psu = _kept(list(x), None if w is None else list(w), strata, psu)
-    if not x or not _defined(name, x, params, w):
-        return None
-    est, z = influence(name, x, params, w)
-    if est is None or z is None or len(x) < 2:
-        return None
-    wv = np.ones(len(x)) if w is None else np.asarray(w, dtype=np.float64)
-    v = design_variance(wv * z, strata, psu)
-    return None if v is None else math.sqrt(max(v, 0.0))
-
-
-def ci(name: str, x, params=(), w=None, level=0.95, strata=None, psu=None):
-    sd = se(name, x, params, w, strata, psu)
-    if sd is None:
-        return None, None
-    est = influence(name, x, params, w)[0]
-    if est is None or sd is None:
-        return None, None
-    zc = NormalDist().inv_cdf(0.5 + level / 2)
-    return est - zc * sd, est + zc * sd
-
-
-SE_MEASURES = ("gini", "lorenz", "bottom_share", "generalized_lorenz", "top_share", "palma", "s80s20",
-               "quantile_w", "percentile_ratio", "theil", "mld", "ge", "atkinson")

@@ -6,6 +6,8 @@ identifiers are quoted by the generator and literals are typed nodes.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
+
 from sqlglot import exp
 
 DOUBLE = exp.DataType.build("double")
@@ -88,7 +90,7 @@ def div(a, b):
     return exp.Div(this=paren(a), expression=paren(b))
 
 
-def func(name: str, *args: exp.Expression) -> exp.Expression:
+def func(name: str, *args: exp.Expression) -> exp.Func:
     return exp.func(name, *args)
 
 
@@ -206,7 +208,7 @@ def not_null(e):
 
 def alias(e, name: str) -> exp.Alias:
     """e AS "name", on a copy of e (the caller may use e again)."""
-    return exp.alias_(e, name, quoted=True)
+    return exp.alias_(e, name, quoted=True)  # type: ignore[return-value]  # alias_ is annotated Expr; it builds an Alias
 
 
 def named(e, name: str) -> exp.Alias:
@@ -214,7 +216,7 @@ def named(e, name: str) -> exp.Alias:
     place alone (``alias`` deep-copies its argument, most of the copying of a compile). A tree in
     which some node stands in two places (a builder reused a subtree without copying it) is
     copied, which gives each place its own node, as ``alias`` always did."""
-    return exp.alias_(e, name, quoted=True, copy=not placed_once(e))
+    return exp.alias_(e, name, quoted=True, copy=not placed_once(e))  # type: ignore[return-value]  # as in alias
 
 
 def placed_once(tree: exp.Expression) -> bool:
@@ -257,7 +259,7 @@ def array(*items: exp.Expression) -> exp.Array:
     return exp.Array(expressions=list(items))
 
 
-def window(fn: exp.Expression, partition: list[exp.Expression], order: list[exp.Expression] | None = None,
+def window(fn: exp.Expression, partition: Sequence[exp.Expression], order: Sequence[exp.Expression] | None = None,
            running: bool = False, whole: bool = False) -> exp.Window:
     """fn OVER (PARTITION BY ... [ORDER BY ... ROWS BETWEEN UNBOUNDED PRECEDING AND CURRENT ROW]);
     ``whole``: ROWS BETWEEN UNBOUNDED PRECEDING AND UNBOUNDED FOLLOWING (a partition total that
@@ -273,3 +275,22 @@ def window(fn: exp.Expression, partition: list[exp.Expression], order: list[exp.
         args["spec"] = exp.WindowSpec(kind="ROWS", start="UNBOUNDED", start_side="PRECEDING",
                                       end="UNBOUNDED", end_side="FOLLOWING")
     return exp.Window(**args)
+
+
+# CTEs and table references (names quoted by the generator)
+
+
+def cte(select: exp.Select, name: str) -> exp.CTE:
+    return exp.CTE(this=select, alias=exp.TableAlias(this=exp.to_identifier(name, quoted=True)))
+
+
+def table(name: str) -> exp.Table:
+    return exp.Table(this=exp.to_identifier(name, quoted=True))
+
+
+def grouped(keys: list[exp.Expression], columns: list[exp.Expression], below: str) -> exp.Select:
+    """SELECT keys, columns FROM below GROUP BY keys (no GROUP BY without keys: one row)."""
+    out = exp.Select(expressions=[k.copy() for k in keys] + columns).from_(table(below), copy=False)
+    if keys:
+        out.set("group", exp.Group(expressions=[k.copy() for k in keys]))
+    return out

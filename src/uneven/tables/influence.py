@@ -23,19 +23,11 @@ import pandas as pd
 from sqlglot import exp
 
 from uneven import catalog
-from uneven.compiler import sqlx as s
 from uneven.errors import MeasureArgumentError
-from uneven.structure import _by_labels, _parse, _Spec, session
+from uneven.sqltree import build as s
+from uneven.tables.base import Spec, group_labels, parse_expression, session
 
 ZERO = s.lit(0.0)
-
-
-def _table(name: str) -> exp.Table:
-    return exp.Table(this=exp.to_identifier(name, quoted=True))
-
-
-def _cte(sel: exp.Select, name: str) -> exp.CTE:
-    return exp.CTE(this=sel, alias=exp.TableAlias(this=exp.to_identifier(name, quoted=True)))
 
 
 def _check_measure(measure: str, params) -> tuple[str, tuple[float, ...]]:
@@ -49,7 +41,7 @@ def _check_measure(measure: str, params) -> tuple[str, tuple[float, ...]]:
     return m.name, params
 
 
-def leave_one_out_sql(spec: _Spec, x: exp.Expression) -> exp.Select:
+def leave_one_out_sql(spec: Spec, x: exp.Expression) -> exp.Select:
     """Per group: G, and the row (value, weight) whose removal changes the Gini most, with G₋ₖ."""
     keys = spec.names()
     part = lambda: [s.col(k) for k in keys]  # noqa: E731
@@ -59,13 +51,13 @@ def leave_one_out_sql(spec: _Spec, x: exp.Expression) -> exp.Select:
         s.alias(s.window(s.agg_sum(wv.copy()), part(), [xv.copy()], running=True), "_uv_c"),
         s.alias(s.window(s.agg_sum(s.mul(wv.copy(), xv.copy())), part(), [xv.copy()], running=True), "_uv_s"),
         s.alias(s.window(s.agg_sum(wv.copy()), part()), "_uv_wt"),
-        s.alias(s.window(s.agg_sum(s.mul(wv.copy(), xv.copy())), part()), "_uv_t")]).from_(_table("_uv_loo_rows"))
+        s.alias(s.window(s.agg_sum(s.mul(wv.copy(), xv.copy())), part()), "_uv_t")]).from_(s.table("_uv_loo_rows"))
     W, T = s.col("_uv_wt"), s.col("_uv_t")
     D = s.sub(s.mul(xv.copy(), s.sub(s.mul(s.lit(2.0), s.col("_uv_c")), W.copy())),
               s.sub(s.mul(s.lit(2.0), s.col("_uv_s")), T.copy()))
     lin = exp.Select(expressions=part() + [xv.copy(), wv.copy(), W.copy(), T.copy(), s.alias(D, "_uv_d"),
                                            s.alias(s.window(s.agg_sum(s.mul(wv.copy(), D.copy())), part()), "_uv_a2")]
-                     ).from_(_table("_uv_loo_win"))
+                     ).from_(s.table("_uv_loo_win"))
     A = s.div(s.col("_uv_a2"), s.lit(2.0))
     gini = s.case(s.gt(T.copy(), ZERO), s.div(A.copy(), s.mul(W.copy(), T.copy())))
     rest_w, rest_t = s.sub(W.copy(), wv.copy()), s.sub(T.copy(), s.mul(wv.copy(), xv.copy()))
@@ -73,8 +65,8 @@ def leave_one_out_sql(spec: _Spec, x: exp.Expression) -> exp.Select:
                  s.div(s.sub(A.copy(), s.mul(wv.copy(), s.col("_uv_d"))), s.mul(rest_w.copy(), rest_t.copy())))
     change = exp.Select(expressions=part() + [s.alias(xv.copy(), "value"), s.alias(wv.copy(), "weight"),
                                               s.alias(gini, "_uv_all"), s.alias(loo, "_uv_without")]
-                        ).from_(_table("_uv_loo_lin"))
-    return _largest_change(part, [_cte(rows, "_uv_loo_rows"), _cte(win, "_uv_loo_win"), _cte(lin, "_uv_loo_lin")],
+                        ).from_(s.table("_uv_loo_lin"))
+    return _largest_change(part, [s.cte(rows, "_uv_loo_rows"), s.cte(win, "_uv_loo_win"), s.cte(lin, "_uv_loo_lin")],
                            change, "gini")
 
 
@@ -85,16 +77,16 @@ def _largest_change(part, ctes: list[exp.CTE], change: exp.Select, name: str) ->
     rank = s.window(exp.RowNumber(), part(), [exp.Ordered(this=size, desc=True, nulls_first=False),
                                               exp.Ordered(this=s.col("value"), desc=True, nulls_first=False)])
     ranked = exp.Select(expressions=part() + [s.col("value"), s.col("weight"), s.col("_uv_all"), s.col("_uv_without"),
-                                              s.alias(rank, "_uv_n")]).from_(_table("_uv_loo_change"))
+                                              s.alias(rank, "_uv_n")]).from_(s.table("_uv_loo_change"))
     final = exp.Select(expressions=part() + [s.alias(s.col("_uv_all"), name), s.col("value"), s.col("weight"),
                                              s.alias(s.col("_uv_without"), f"{name}_without_row"),
                                              s.alias(s.sub(s.col("_uv_without"), s.col("_uv_all")), "change")])
-    final = final.from_(_table("_uv_loo_ranked")).where(exp.EQ(this=s.col("_uv_n"), expression=exp.Literal.number(1)))
-    final.set("with_", exp.With(expressions=ctes + [_cte(change, "_uv_loo_change"), _cte(ranked, "_uv_loo_ranked")]))
+    final = final.from_(s.table("_uv_loo_ranked")).where(exp.EQ(this=s.col("_uv_n"), expression=exp.Literal.number(1)))
+    final.set("with_", exp.With(expressions=ctes + [s.cte(change, "_uv_loo_change"), s.cte(ranked, "_uv_loo_ranked")]))
     return final
 
 
-def _rows_cte(spec: _Spec, x: exp.Expression) -> exp.Select:
+def _rows_cte(spec: Spec, x: exp.Expression) -> exp.Select:
     keys = spec.names()
     w = s.cast_double(spec.weight.copy()) if spec.weight is not None else s.lit(1.0)
     rows = exp.Select(expressions=[s.alias(b.copy(), n) for b, n in zip(spec.by, keys)]
@@ -106,7 +98,7 @@ def _rows_cte(spec: _Spec, x: exp.Expression) -> exp.Select:
     return rows
 
 
-def moment_leave_one_out_sql(spec: _Spec, x: exp.Expression, name: str) -> exp.Select:
+def moment_leave_one_out_sql(spec: Spec, x: exp.Expression, name: str) -> exp.Select:
     """Per group: Theil or MLD, and the row whose removal changes it most, from the group totals
     W = Σw, T = Σw·x, A = Σw·x·ln x (x > 0), L = Σw·ln x (x > 0): without row k they are
     W − w_k, T − w_k·x_k, A − w_k·x_k·ln x_k, L − w_k·ln x_k, and
@@ -124,7 +116,7 @@ def moment_leave_one_out_sql(spec: _Spec, x: exp.Expression, name: str) -> exp.S
     win = exp.Select(expressions=part() + [xv, wv, s.alias(xlnx, "_uv_xlnx"), s.alias(lnx, "_uv_lnx"),
         s.alias(tot(wv.copy()), "_uv_wt"), s.alias(tot(s.mul(wv.copy(), xv.copy())), "_uv_t"),
         s.alias(tot(s.mul(wv.copy(), xlnx.copy())), "_uv_a"), s.alias(tot(s.mul(wv.copy(), lnx.copy())), "_uv_l"),
-        s.alias(s.window(s.agg_min(xv.copy()), part()), "_uv_mn")]).from_(_table("_uv_loo_rows"))
+        s.alias(s.window(s.agg_min(xv.copy()), part()), "_uv_mn")]).from_(s.table("_uv_loo_rows"))
     W, T, A, L, mn = (s.col(c) for c in ("_uv_wt", "_uv_t", "_uv_a", "_uv_l", "_uv_mn"))
     W1, T1 = s.sub(W.copy(), wv.copy()), s.sub(T.copy(), s.mul(wv.copy(), xv.copy()))
     if name == "theil":
@@ -141,8 +133,8 @@ def moment_leave_one_out_sql(spec: _Spec, x: exp.Expression, name: str) -> exp.S
     change = exp.Select(expressions=part() + [s.alias(xv.copy(), "value"), s.alias(wv.copy(), "weight"),
                                               s.alias(s.case(ok, full), "_uv_all"),
                                               s.alias(s.case(rest_ok, rest), "_uv_without")]
-                        ).from_(_table("_uv_loo_win"))
-    return _largest_change(part, [_cte(_rows_cte(spec, x), "_uv_loo_rows"), _cte(win, "_uv_loo_win")], change, name)
+                        ).from_(s.table("_uv_loo_win"))
+    return _largest_change(part, [s.cte(_rows_cte(spec, x), "_uv_loo_rows"), s.cte(win, "_uv_loo_win")], change, name)
 
 
 LEAVE_ONE_OUT = ("gini", "theil", "mld")
@@ -157,8 +149,8 @@ def influence(relation: str, x: str, *, weight: str | None = None, by=(), k: int
     if isinstance(k, bool) or not isinstance(k, int) or not 0 <= k <= 100:
         raise MeasureArgumentError(f"influence: k must be a whole number from 0 to 100, got {k!r}")
     name, params = _check_measure(measure, params)
-    spec = _Spec("influence", relation, by, weight)
-    xv = _parse(x, "value", "influence")
+    spec = Spec("influence", relation, by, weight)
+    xv = parse_expression(x, "value", "influence")
     keys = spec.names()
     order = [exp.Ordered(this=xv.copy(), desc=True, nulls_first=False)]
     if spec.weight is not None:
@@ -169,7 +161,7 @@ def influence(relation: str, x: str, *, weight: str | None = None, by=(), k: int
     cond = s.and_(s.not_null(xv.copy()), *([s.not_null(spec.weight.copy()), s.gt(spec.weight.copy(), ZERO)]
                                            if spec.weight is not None else []))
     inner.set("where", exp.Where(this=cond))
-    ranked = _Spec("influence", "t", by, weight)
+    ranked = Spec("influence", "t", by, weight)
     ranked.source = exp.From(this=exp.Subquery(this=inner, alias=exp.TableAlias(this=exp.to_identifier("_uv_ranked"))))
     call = ranked.measure(name, xv, *[s.lit(p) for p in params])
     items = [s.alias(exp.Count(this=exp.Star()), "rows"), s.alias(call, name)]
@@ -190,4 +182,4 @@ def influence(relation: str, x: str, *, weight: str | None = None, by=(), k: int
         out = out.merge(loo, on=keys, how="left") if keys else pd.concat([out, loo], axis=1)
         if spec.weight is None:
             out = out.drop(columns=["top_row_weight"])
-    return spec.rename(out, _by_labels(by))
+    return spec.rename(out, group_labels(by))

@@ -13,7 +13,7 @@ from typing import Any
 
 import numpy as np
 
-from uneven import reference as ref
+from uneven.reference import measures as ref
 
 
 def _arrays(*cols: Any, w: Any = None) -> tuple[list[np.ndarray], np.ndarray]:

@@ -22,8 +22,9 @@ from __future__ import annotations
 
 import math
 import numbers
+from collections.abc import Callable, Hashable, Sequence
 from fractions import Fraction
-from typing import Any, Callable, Hashable, Sequence
+from typing import Any
 
 import numpy as np
 
@@ -38,7 +39,7 @@ __all__ = [
 # Input handling
 # ---------------------------------------------------------------------------------------------
 
-class _Rows:
+class Rows:
     """The rows of one group after dropping w == 0, sorted by x."""
 
     def __init__(self, x: Any, w: Any = None):
@@ -104,7 +105,7 @@ def _times(a: float, b: float) -> float:
         return float(np.float64(a) * np.float64(b))
 
 
-def _check_fraction(p: Any, name: str = "p") -> float:
+def check_fraction(p: Any, name: str = "p") -> float:
     if isinstance(p, bool) or not isinstance(p, numbers.Real):
         raise ValueError(f"{name} must be a real number in [0, 1], got {p!r}")
     p = float(p)
@@ -137,7 +138,7 @@ def gini(x, w=None) -> float | None:
     Scale-invariant, so it is computed on xs = x / max|x|; dividing by W before T keeps W·T from
     overflowing.
     """
-    r = _Rows(x, w)
+    r = Rows(x, w)
     if not r.positive:
         return None
     C_i = r.C[1:]
@@ -147,7 +148,7 @@ def gini(x, w=None) -> float | None:
 
 def gini_corrected(x, w=None) -> float | None:
     """gini * n / (n - 1), n the number of rows with w > 0; None if n < 2."""
-    r = _Rows(x, w)
+    r = Rows(x, w)
     if r.n < 2:
         return None
     g = gini(r.x, r.w)
@@ -160,7 +161,7 @@ def gini_corrected(x, w=None) -> float | None:
 # Lorenz curve, shares, ratios of shares
 # ---------------------------------------------------------------------------------------------
 
-def _lorenz_amounts(r: _Rows, p: float) -> np.ndarray:
+def _lorenz_amounts(r: Rows, p: float) -> np.ndarray:
     """Weight of each row that falls below population fraction p: clamp(pW - C_{i-1}, 0, w_i).
 
     A row wholly below pW (C_i <= pW) counts in full, a row wholly above (C_{i-1} >= pW) not
@@ -172,15 +173,15 @@ def _lorenz_amounts(r: _Rows, p: float) -> np.ndarray:
     return np.where(after <= target, r.w, np.where(before >= target, 0.0, target - before))
 
 
-def _lorenz_numerator(r: _Rows, p: float) -> float:
+def _lorenz_numerator(r: Rows, p: float) -> float:
     """sum_i xs_i * clamp(pW - C_{i-1}, 0, w_i), on the scaled values xs = x / s."""
     return math.fsum(r.xs * _lorenz_amounts(r, p))
 
 
 def lorenz(x, p, w=None) -> float | None:
     """Lorenz ordinate L(p) = sum_i x_i clamp(pW - C_{i-1}, 0, w_i) / T; None if T <= 0."""
-    p = _check_fraction(p)
-    r = _Rows(x, w)
+    p = check_fraction(p)
+    r = Rows(x, w)
     if not r.positive:
         return None
     return float(_lorenz_numerator(r, p) / r.Ts)
@@ -189,8 +190,8 @@ def lorenz(x, p, w=None) -> float | None:
 def generalized_lorenz(x, p, w=None) -> float | None:
     """Generalized Lorenz ordinate: sum_i x_i clamp(pW - C_{i-1}, 0, w_i) / W; None if empty
     (or if the amount itself does not fit in a double)."""
-    p = _check_fraction(p)
-    r = _Rows(x, w)
+    p = check_fraction(p)
+    r = Rows(x, w)
     if r.empty or not math.isfinite(r.W):
         return None
     value = _times(_lorenz_numerator(r, p) / r.W, r.s)
@@ -204,7 +205,7 @@ def bottom_share(x, p, w=None) -> float | None:
 
 def top_share(x, p, w=None) -> float | None:
     """Share of the total held by the top fraction p: 1 - L(1 - p)."""
-    p = _check_fraction(p)
+    p = check_fraction(p)
     low = lorenz(x, 1.0 - p, w)
     if low is None:
         return None
@@ -224,7 +225,7 @@ def s80s20(x, w=None) -> float | None:
 def lorenz_curve(x, k, w=None) -> list[tuple[float, float]] | None:
     """k + 1 points (j/k, L(j/k)), j = 0..k; None if T <= 0."""
     k = _check_count(k)
-    r = _Rows(x, w)
+    r = Rows(x, w)
     if not r.positive:
         return None
     points = []
@@ -240,8 +241,8 @@ def lorenz_curve(x, k, w=None) -> list[tuple[float, float]] | None:
 
 def quantile_w(x, p, w=None) -> float | None:
     """Weighted inverted CDF: the first x_i (sorted) with C_i / W >= p; None if empty."""
-    p = _check_fraction(p)
-    r = _Rows(x, w)
+    p = check_fraction(p)
+    r = Rows(x, w)
     if r.empty:
         return None
     cdf = r.C[1:] / r.W  # float division, as numpy does; cdf[-1] == 1.0
@@ -251,8 +252,8 @@ def quantile_w(x, p, w=None) -> float | None:
 
 def percentile_ratio(x, hi, lo, w=None) -> float | None:
     """quantile_w(hi) / quantile_w(lo); None if empty or the lower quantile is 0."""
-    hi = _check_fraction(hi, "hi")
-    lo = _check_fraction(lo, "lo")
+    hi = check_fraction(hi, "hi")
+    lo = check_fraction(lo, "lo")
     return _ratio(quantile_w(x, hi, w), quantile_w(x, lo, w))
 
 
@@ -318,7 +319,7 @@ def _power_terms(d: np.ndarray, log_r: np.ndarray, a: float) -> np.ndarray:
 theil_terms, mld_terms, power_terms = _theil_terms, _mld_terms, _power_terms
 
 
-def _deviations(r: _Rows) -> tuple[np.ndarray, np.ndarray]:
+def _deviations(r: Rows) -> tuple[np.ndarray, np.ndarray]:
     """d = (x − μ)/μ (from x − μ: exact near the mean), on the scaled values, and ln r = ln x − ln μ
     (−inf where x = 0; r = x/μ itself may underflow when x is far below the mean)."""
     d = (r.xs - r.mu_s) / r.mu_s
@@ -327,7 +328,7 @@ def _deviations(r: _Rows) -> tuple[np.ndarray, np.ndarray]:
     return d, log_r
 
 
-def _weighted_mean(r: _Rows, terms: np.ndarray) -> float | None:
+def _weighted_mean(r: Rows, terms: np.ndarray) -> float | None:
     value = math.fsum(r.w * terms) / r.W
     return float(value) if math.isfinite(value) else None
 
@@ -336,7 +337,7 @@ def theil(x, w=None) -> float | None:
     """Theil T = sum w x ln(x / mu) / T; a zero x adds 0. Needs x >= 0 and T > 0.
 
     Computed as Σ w (r ln r − (r − 1)) / W, r = x/μ (equal, since Σ w (r − 1) = 0)."""
-    r = _Rows(x, w)
+    r = Rows(x, w)
     if not r.positive or np.any(r.x < 0):
         return None
     return _weighted_mean(r, _theil_terms(*_deviations(r)))
@@ -346,7 +347,7 @@ def mld(x, w=None) -> float | None:
     """Mean log deviation = sum w ln(mu / x) / W. Needs x > 0.
 
     Computed as Σ w ((r − 1) − ln r) / W, r = x/μ."""
-    r = _Rows(x, w)
+    r = Rows(x, w)
     if not r.positive or np.any(r.x <= 0):
         return None
     return _weighted_mean(r, _mld_terms(*_deviations(r)))
@@ -365,7 +366,7 @@ def ge(x, alpha, w=None) -> float | None:
         return mld(x, w)
     if alpha == 1.0:
         return theil(x, w)
-    r = _Rows(x, w)
+    r = Rows(x, w)
     if not r.positive:
         return None
     if alpha > 0 and np.any(r.x < 0):
@@ -389,7 +390,7 @@ def atkinson(x, eps, w=None) -> float | None:
     eps = float(eps)
     if eps < 0:
         raise ValueError(f"eps must be >= 0, got {eps!r}")
-    r = _Rows(x, w)
+    r = Rows(x, w)
     if not r.positive:
         return None
     if eps < 1 and np.any(r.x < 0):
@@ -416,7 +417,7 @@ def atkinson(x, eps, w=None) -> float | None:
 def cv(x, w=None) -> float | None:
     """Coefficient of variation, population form: sqrt(sum w (x - mu)^2 / W) / mu; mu > 0.
     Scale-invariant: computed on xs = x / max|x|."""
-    r = _Rows(x, w)
+    r = Rows(x, w)
     if not r.positive:
         return None
     variance = math.fsum(r.w * (r.xs - r.mu_s) ** 2) / r.W
@@ -425,7 +426,7 @@ def cv(x, w=None) -> float | None:
 
 def hoover(x, w=None) -> float | None:
     """Hoover index = 1/2 sum_i |w_i x_i / T - w_i / W|; None if T <= 0."""
-    r = _Rows(x, w)
+    r = Rows(x, w)
     if not r.positive:
         return None
     gaps = np.abs(r.w * r.xs / r.Ts - r.w / r.W)

@@ -1,0 +1,117 @@
+"""The base of the table functions: the arguments every table shares and the session it runs in.
+
+A table function (``decompose``, ``gini_sources``, ``compare``, ``influence``, ``lorenz_dominance``)
+takes a relation (a table name, a quoted file path such as ``'survey/*.parquet'``, a table function
+or a parenthesised query with an alias) and column expressions, builds its query as a sqlglot tree
+from the catalog's measures and returns a pandas DataFrame, one block of rows per group of ``by``.
+
+``parse_expression`` and ``parse_relation`` read the arguments; ``Spec`` holds the parsed relation,
+group keys and weight and builds the SELECT; ``session`` opens the connection (with the caller's data
+frames registered) and yields ``run(select) -> DataFrame``; ``group_labels`` names the ``by`` columns.
+"""
+
+from __future__ import annotations
+
+import contextlib
+from collections.abc import Sequence
+
+import pandas as pd
+import sqlglot
+from sqlglot import exp
+
+from uneven.compiler import compile_sql
+from uneven.compiler.emit import to_sql
+from uneven.engine.columns import duckdb_source_columns
+from uneven.engine.frames import register_caller_frames
+from uneven.engine.runner import connect, execute_df
+from uneven.errors import MeasureArgumentError, SqlParseError
+from uneven.sqltree import build as s
+
+
+def parse_expression(text: str, what: str, function: str) -> exp.Expression:
+    if not isinstance(text, str) or not text.strip():
+        raise MeasureArgumentError(f"{function}: {what} must be a column name or SQL expression, got {text!r}")
+    try:
+        return sqlglot.parse_one(text, read="duckdb")  # type: ignore[return-value]  # parse_one is annotated Expr
+    except sqlglot.errors.ParseError as e:
+        raise SqlParseError(f"{function}: cannot read the {what} {text!r}: {str(e).splitlines()[0]}") from None
+
+
+def parse_relation(text: str, function: str) -> exp.From:
+    try:
+        return exp.select("*").from_(text, dialect="duckdb").args["from_"]
+    except (sqlglot.errors.ParseError, TypeError, ValueError):
+        if isinstance(text, str) and text.strip() and not any(c.isspace() for c in text):
+            # a bare file path (/data/survey.parquet): a quoted name, which DuckDB reads as the file
+            return exp.From(this=exp.Table(this=exp.to_identifier(text, quoted=True)))
+        raise SqlParseError(f"{function}: cannot read the relation {text!r} (a table name, a quoted file "
+                            "path, a table function or a parenthesised query with an alias)") from None
+
+
+class Spec:
+    """The parsed arguments every table shares: relation, group keys, weight."""
+
+    def __init__(self, function: str, relation: str, by, weight: str | None):
+        self.function = function
+        self.source = parse_relation(relation, function)
+        keys = [by] if isinstance(by, str) else list(by or ())
+        self.by = [parse_expression(b, "group key", function) for b in keys]
+        self.weight = parse_expression(weight, "weight", function) if weight is not None else None
+
+    def names(self) -> list[str]:
+        return [f"_uv_by{i + 1}" for i in range(len(self.by))]
+
+    def select(self, items: Sequence[exp.Expression], present: Sequence[exp.Expression],
+               extra_keys: Sequence[exp.Expression] = ()) -> exp.Select:
+        """SELECT by…, items FROM relation WHERE every expression in ``present`` (and the weight) is
+        not NULL GROUP BY by…, extra_keys."""
+        keys = [s.alias(b.copy(), n) for b, n in zip(self.by, self.names())]
+        sel = exp.Select(expressions=keys + list(items))
+        sel.set("from_", self.source.copy())
+        checked = list(present) + ([self.weight] if self.weight is not None else [])
+        cond = s.and_(*[s.not_null(p.copy()) for p in checked])
+        if cond is not None:
+            sel.set("where", exp.Where(this=cond))
+        group = [b.copy() for b in self.by] + [k.copy() for k in extra_keys]
+        if group:
+            sel.set("group", exp.Group(expressions=group))
+        return sel
+
+    def measure(self, name: str, *args: exp.Expression) -> exp.Expression:
+        tail = [self.weight.copy()] if self.weight is not None else []
+        return exp.Anonymous(this=name, expressions=[a.copy() for a in args] + tail)
+
+    def wsum(self, value: exp.Expression | None = None) -> exp.Expression:
+        w = s.cast_double(self.weight.copy()) if self.weight is not None else s.lit(1.0)
+        return s.agg_sum(w if value is None else s.mul(w, s.cast_double(value.copy())))
+
+    def rename(self, df: pd.DataFrame, by_names) -> pd.DataFrame:
+        labels = by_names or [b.sql("duckdb") for b in self.by]
+        return df.rename(columns=dict(zip(self.names(), labels)))
+
+
+@contextlib.contextmanager
+def session(spec: Spec, con, frame):
+    """A connection for one table's queries (``con`` or a new in-memory one) that also sees the data
+    frames the caller holds under the relation's name; yields ``run(select) -> DataFrame``."""
+    connection = connect(con)
+    probe = exp.Select(expressions=[exp.Star()])
+    probe.set("from_", spec.source.copy())
+    registered = register_caller_frames(connection, to_sql(probe), frame)
+
+    def run(sel: exp.Select) -> pd.DataFrame:
+        compiled = compile_sql(to_sql(sel), dialect="duckdb", pretty=False,
+                               source_columns=duckdb_source_columns(connection))
+        return execute_df(connection, compiled)
+
+    try:
+        yield run
+    finally:
+        for name in registered:
+            connection.unregister(name)
+        if con is None:
+            connection.close()
+
+
+def group_labels(by) -> list[str]:
+    return [by] if isinstance(by, str) else list(by or ())
