@@ -7,7 +7,7 @@ from dataclasses import dataclass, field
 from sqlglot import exp
 
 from uneven import catalog
-from uneven.catalog.spec import Measure
+from uneven.catalog.spec import Measure, PassKind
 from uneven.compiler.context import CompileContext, span, text
 from uneven.errors import MeasureArgumentError, MeasureUsageError
 from uneven.sqltree.constants import ConstantError, evaluate_constant, literal_value
@@ -28,16 +28,16 @@ class MeasureCall:
     strict: bool = False  # an undefined result stops the query with an error naming the group
     settings: dict = field(default_factory=dict)  # named arguments as read by measure.read_options
     key: tuple = ()  # call_key(node), computed once
-    pass_override: str | None = None  # set by method="bounded" (compiler/bounded.py)
+    pass_override: PassKind | None = None  # set by method="bounded" (compiler/bounded.py)
 
     def __post_init__(self):
         if not self.key:
             self.key = call_key(self.node)
 
     @property
-    def pass_kind(self) -> str:
+    def pass_kind(self) -> PassKind:
         if self.pass_override:
-            return self.pass_override
+            return PassKind(self.pass_override)
         return self.measure.pass_for(self.trailing is not None)
 
     @property

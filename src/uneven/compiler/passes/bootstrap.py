@@ -25,6 +25,8 @@ import math
 
 from sqlglot import exp
 
+from uneven.catalog.spec import PassKind
+
 from uneven.compiler import sqlx as s
 from uneven.compiler.passes.linearized import critical_value
 from uneven.compiler.passes.line import window_ctes
@@ -167,3 +169,12 @@ def _result(call, i: int) -> exp.Expression:
     reached = s.and_(s.not_null(v.copy()), s.gte(s.cast_double(s.col(f"_uv_rk{i}")),
                                                  s.mul(s.lit(q), s.cast_double(s.col(f"_uv_nv{i}")))))
     return s.agg_min(s.case(reached, v.copy()))
+
+
+# the registry's entry (passes/registry.py)
+KIND = PassKind.BOOTSTRAP
+PREFIX = "bs"
+
+
+def lower(source: Source, main, plan, name: str | None, settings) -> tuple[list[exp.CTE], dict]:
+    return lower_bootstrap_pass(source, main, plan, name)

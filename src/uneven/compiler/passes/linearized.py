@@ -29,6 +29,7 @@ from statistics import NormalDist
 from sqlglot import exp
 
 from uneven.catalog.linearize import Lin
+from uneven.catalog.spec import PassKind
 from uneven.compiler import sqlx as s
 from uneven.compiler.passes.rows import Aggregates, RowContext, lower_rows
 from uneven.compiler.passes.source import Source, cte, grouped, table
@@ -217,3 +218,12 @@ def can_share(call) -> bool:
 
 SHARED = {"gini", "gini_corrected", "lorenz", "generalized_lorenz", "bottom_share", "top_share", "palma",
           "s80s20", "quantile_w", "percentile_ratio", "theil", "mld", "ge", "atkinson"}
+
+
+# the registry's entry (passes/registry.py)
+KIND = PassKind.LINEARIZED
+PREFIX = "lin"
+
+
+def lower(source: Source, main, plan, name: str | None, settings) -> tuple[list[exp.CTE], dict]:
+    return lower_linearized_pass(source, main, plan, name)

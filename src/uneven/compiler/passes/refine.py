@@ -28,6 +28,8 @@ from dataclasses import dataclass
 
 from sqlglot import exp
 
+from uneven.catalog.spec import PassKind
+
 from uneven.compiler import sqlx as s
 from uneven.compiler.passes.source import (Source, checked_value, checked_weight, cte, finite_or_null,
                                              key_name, table, weight_label)
@@ -319,4 +321,13 @@ def lower_refine_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
     return ctes, results
 
 
-__all__ = ["lower_refine_pass", "refinable", "RefineContext", "bin_key", "BUILDS"]
+# the registry's entry (passes/registry.py)
+KIND = PassKind.REFINE
+PREFIX = "ref"
+
+
+def lower(source: Source, main, plan, name: str | None, settings) -> tuple[list[exp.CTE], dict]:
+    return lower_refine_pass(source, main, plan, name)
+
+
+__all__ = ["KIND", "PREFIX", "lower", "lower_refine_pass", "refinable", "RefineContext", "bin_key", "BUILDS"]
