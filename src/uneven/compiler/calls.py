@@ -118,7 +118,7 @@ def read_constant(arg: exp.Expression, what: str, name: str, node: exp.Anonymous
     """The value of a constant parameter as the engine computes it in the read dialect
     (sqltree/constants.py); a refusal names the function, the argument and the offending part."""
     try:
-        return evaluate_constant(arg, ctx.read)
+        return evaluate_constant(arg, ctx.options.read)
     except ConstantError as e:
         raise ctx.error(MeasureArgumentError, f"{name}(): {what} {e.reason}", _positioned(e.node, arg, node),
                         name) from None
@@ -201,7 +201,7 @@ def read_call(node: exp.Anonymous, ctx: CompileContext) -> MeasureCall:
             pass  # a constant weight is allowed and acts like no weight
         elif isinstance(trailing, exp.Null):
             raise ctx.error(MeasureArgumentError, f"{name}(): the {measure.trailing} cannot be NULL", node, name)
-    strict = ctx.strict
+    strict = ctx.options.strict
     if "strict" in options:
         flag = options["strict"]
         if not isinstance(flag, exp.Boolean):
@@ -211,7 +211,7 @@ def read_call(node: exp.Anonymous, ctx: CompileContext) -> MeasureCall:
     settings = {}
     if measure.read_options is not None:
         try:
-            settings = measure.read_options(options, read=ctx.read)
+            settings = measure.read_options(options, read=ctx.options.read)
         except ConstantError as e:
             raise ctx.error(MeasureArgumentError, f"{name}(): {e}", _positioned(e.node, node), name) from None
         except ValueError as e:

@@ -9,7 +9,7 @@ from sqlglot import exp
 
 from uneven.catalog.spec import PassKind
 from uneven.compiler.calls import MeasureCall
-from uneven.compiler.context import text
+from uneven.compiler.context import CompileOptions, EngineSchema, text
 from uneven.compiler.passes.linearized import can_share
 from uneven.compiler.passes.refine import refinable
 
@@ -52,15 +52,13 @@ def plan_passes(calls: list[MeasureCall]) -> list[PassPlan]:
 
 @dataclass(frozen=True)
 class PlanScope:
-    """What the plan rules read about one scope: its SELECT and group keys, the planner options and
-    the engine's tie probe (None when compiling without an engine)."""
+    """What the plan rules read about one scope: its SELECT and group keys, the compile options and
+    what the engine knows (None when compiling without an engine)."""
 
     select: exp.Select
     keys: list[exp.Expression]
-    tie_grouping: str = "auto"
-    ordered: str = "auto"
-    dialect: str = "duckdb"
-    tie_probe: Callable | None = None
+    options: CompileOptions = CompileOptions()
+    engine: EngineSchema | None = None
 
 
 def apply_rules(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
@@ -90,20 +88,21 @@ def choose_variant(plan: PassPlan, scope: PlanScope) -> PassPlan:
     """Pick the ordered pass's variant: "ties" when asked (``on``), or, with ``auto``, when an engine
     probe reports few distinct values (share of rows ≤ TIE_SHARE); else "rows". The centred pass is
     "adaptive" on DuckDB when every call has a one-pass error bound (choose_centred). Other passes
-    keep their one form. ``tie_probe(select, x, condition, keys)`` returns (distinct pairs, rows) or
+    keep their one form. ``engine.tie_counts(select, x, condition, keys)`` returns (distinct pairs, rows) or
     None (unknown, e.g. a value type where ties are rare and the probe is not worth a scan)."""
+    tie_grouping = scope.options.tie_grouping
     if plan.kind == PassKind.CENTRED:
-        return choose_centred(plan, scope.dialect)
+        return choose_centred(plan, scope.options.dialect)
     if plan.kind != PassKind.ORDERED:
         return plan
-    if scope.tie_grouping == "on":
+    if tie_grouping == "on":
         plan.variant, plan.reason = "ties", "tie grouping requested"
-    elif scope.tie_grouping == "off":
+    elif tie_grouping == "off":
         plan.variant, plan.reason = "rows", "tie grouping turned off"
-    elif scope.tie_probe is None:
+    elif scope.engine is None or not scope.engine.probes_ties:
         plan.variant, plan.reason = "rows", "no engine to probe for ties (compile only)"
     else:
-        found = scope.tie_probe(scope.select, plan.x, plan.condition, scope.keys)
+        found = scope.engine.tie_counts(scope.select, plan.x, plan.condition, scope.keys)
         if found is None:
             plan.variant, plan.reason = "rows", "value type rarely ties (not probed)"
         else:
@@ -185,7 +184,7 @@ def route_refine(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
     """Turn an ordered pass into a refine pass (compiler/passes/refine.py: bins, then a sort of only
     the bins that hold a cut) when every call on it depends on the order only at cut points.
 
-    ``scope.ordered``: "auto" refines wherever it can (on 20M rows x 1000 groups it took 0.4x the window
+    ``scope.options.ordered``: "auto" refines wherever it can (on 20M rows x 1000 groups it took 0.4x the window
     plan's time, on 100M rows in one group 0.08x: bench/README.md), except when tie grouping is
     asked for (a variant of the window plan); "refine" the same, whatever tie grouping says;
     "window" never. A pass with a measure that needs the full order (Gini and its family) keeps
@@ -193,10 +192,10 @@ def route_refine(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
     for plan in plans:
         if plan.kind != PassKind.ORDERED or plan.columns or plan.options:
             continue
-        if scope.ordered == "window":
+        if scope.options.ordered == "window":
             plan.order_reason = "window plan requested"
             continue
-        if scope.ordered == "auto" and scope.tie_grouping == "on":
+        if scope.options.ordered == "auto" and scope.options.tie_grouping == "on":
             plan.order_reason = "window plan: tie grouping requested"
             continue
         blocking = list(dict.fromkeys(r for r in (refinable(c) for c in plan.calls) if r))

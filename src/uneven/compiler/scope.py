@@ -26,7 +26,7 @@ from uneven.errors import UnsupportedSqlError
 
 def rewrite_scope(select: exp.Select, calls: list[MeasureCall], ctx: CompileContext) -> exp.Select:
     check_scope(select, ctx)
-    if ctx.method == "bounded":
+    if ctx.options.method == "bounded":
         route_bounded(select, calls, ctx)
     keys = resolve_group_keys(select, ctx)
     source = Source(select, keys)
@@ -37,7 +37,7 @@ def rewrite_scope(select: exp.Select, calls: list[MeasureCall], ctx: CompileCont
     outputs = output_aliases(select)
     final = exp.Select(expressions=[s.named(replace(p.unalias()), outputs[i])
                                     for i, p in enumerate(select.expressions)])
-    if ctx.method == "bounded":
+    if ctx.options.method == "bounded":
         final.set("expressions", bounded_items(select, final.expressions, results, outputs))
     final.from_(table(main.name), copy=False)
     for name in pass_names:
@@ -68,10 +68,11 @@ def lower_passes(calls: list[MeasureCall], source: Source, main: MainAggregate, 
     """Lower every planned pass: (its CTEs, the CTEs the final SELECT joins on the keys, call key →
     result). The CTEs to join are those the results read, other than the main aggregate."""
     ctes, results = [], {}
-    scope = PlanScope(source.select, source.keys, ctx.tie_grouping, ctx.ordered, ctx.dialect, ctx.tie_probe)
+    scope = PlanScope(source.select, source.keys, ctx.options, ctx.engine)
     for plan in apply_rules(plan_passes(calls), scope):
         lowering = PASSES[plan.kind]
-        new, res = lowering.lower(source, main, plan, ctx.name(lowering.PREFIX) if lowering.PREFIX else None, ctx)
+        name = ctx.name(lowering.PREFIX) if lowering.PREFIX else None
+        new, res = lowering.lower(source, main, plan, name, ctx.options)
         ctx.chosen.append(describe_pass(plan, [c.alias for c in new] or [main.name]))
         ctes += new
         results.update(res)

@@ -42,24 +42,21 @@ def is_tie_prone(type_name: str) -> bool:
     return str(type_name).upper().split("(")[0] in _TIE_PRONE
 
 
-def duckdb_tie_probe(con: duckdb.DuckDBPyConnection):
-    """A ``tie_probe`` callback for the planner: (distinct (keys, x) pairs, rows) or None."""
-
-    def probe(select: exp.Select, x: exp.Expression, condition, keys) -> tuple[int, int] | None:
-        if select.args.get("from_") is None:
+def duckdb_tie_counts(con: duckdb.DuckDBPyConnection, select: exp.Select, x: exp.Expression, condition,
+                      keys) -> tuple[int, int] | None:
+    """(distinct (keys, x) pairs, rows) of an ordered pass's value, or None (engine/columns.DuckDBSchema)."""
+    if select.args.get("from_") is None:
+        return None
+    try:
+        typed = _over_source(select, [s.alias(x.copy(), "v")])
+        typed.set("limit", exp.Limit(expression=exp.Literal.number(0)))
+        kind = con.execute(to_sql(typed)).description[0][1]
+        if not is_tie_prone(kind):
             return None
-        try:
-            typed = _over_source(select, [s.alias(x.copy(), "v")])
-            typed.set("limit", exp.Limit(expression=exp.Literal.number(0)))
-            kind = con.execute(to_sql(typed)).description[0][1]
-            if not is_tie_prone(kind):
-                return None
-            cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
-            pairs = exp.ApproxDistinct(this=exp.Anonymous(this="hash", expressions=[k.copy() for k in keys] + [x.copy()]))
-            counted = _over_source(select, [s.agg_count_star(), pairs], cond)
-            rows, distinct = con.execute(to_sql(counted)).fetchone()
-        except Exception:  # noqa: BLE001  the probe never fails a query: keep the plain plan
-            return None
-        return int(distinct or 0), int(rows or 0)
-
-    return probe
+        cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
+        pairs = exp.ApproxDistinct(this=exp.Anonymous(this="hash", expressions=[k.copy() for k in keys] + [x.copy()]))
+        counted = _over_source(select, [s.agg_count_star(), pairs], cond)
+        rows, distinct = con.execute(to_sql(counted)).fetchone()
+    except Exception:  # noqa: BLE001  the probe never fails a query: keep the plain plan
+        return None
+    return int(distinct or 0), int(rows or 0)
