@@ -3,19 +3,19 @@
 from __future__ import annotations
 
 import inspect
+from dataclasses import replace
 
 import pandas as pd
 
 from uneven.catalog import MEASURES
 from uneven.compiler import compile_sql
 from uneven.compiler.bounded import check_method
-from uneven.engine.adapters import adapt, is_duckdb
+from uneven.compiler.context import CompileOptions
+from uneven.engine.adapters import Adapter
 from uneven.engine.bounded import pick_resolution, run_bounded
-from uneven.engine.columns import duckdb_expression_types, duckdb_source_columns
-from uneven.engine.frames import register_caller_frames, register_frames_on
-from uneven.engine.runner import connect, execute_df
-from uneven.engine.ties import adapter_tie_probe, duckdb_tie_probe
-from uneven.errors import UnevenError
+from uneven.engine.columns import DuckDBSchema
+from uneven.engine.runner import execute_df
+from uneven.engine.session import session
 from uneven.explain import Explanation, explain_on, explain_query
 
 
@@ -42,8 +42,9 @@ def compile(sql: str, dialect: str = "duckdb", *, read: str = "duckdb", pretty: 
     (value, weight, FILTER) are cut-based (a Gini beside them needs the sort anyway), and the window
     plan when ``tie_grouping="on"``.
     """
-    return compile_sql(sql, dialect=dialect, read=read, pretty=pretty, strict=strict, tie_grouping=tie_grouping,
-                       method=method, resolution=pick_resolution(method, tolerance, resolution), ordered=ordered)
+    return compile_sql(sql, CompileOptions(dialect=dialect, read=read, pretty=pretty, strict=strict,
+                                           tie_grouping=tie_grouping, method=method,
+                                           resolution=pick_resolution(method, tolerance, resolution), ordered=ordered))
 
 
 def query(sql: str, con=None, *, memory_limit: str | None = None,
@@ -71,56 +72,30 @@ def query(sql: str, con=None, *, memory_limit: str | None = None,
     """
     method = check_method(method)
     chosen = pick_resolution(method, tolerance, resolution)
-    if not is_duckdb(con):
-        check_duckdb_settings(memory_limit=memory_limit, threads=threads, temp_directory=temp_directory,
-                              progress=progress)
-        return run_on(adapt(con), sql, inspect.currentframe().f_back, strict=strict, tie_grouping=tie_grouping,
-                      method=method, resolution=chosen, tolerance=tolerance, read=read, ordered=ordered)
-    connection = connect(con, memory_limit=memory_limit, threads=threads, temp_directory=temp_directory,
-                         progress=progress)
-    registered = register_caller_frames(connection, sql, inspect.currentframe().f_back)
-    try:
+    options = CompileOptions(read=read, pretty=False, strict=strict, tie_grouping=tie_grouping, method=method,
+                             ordered=ordered)
+    with session(con, sql, inspect.currentframe().f_back, memory_limit=memory_limit, threads=threads,
+                 temp_directory=temp_directory, progress=progress) as target:
+        if isinstance(target, Adapter):
+            return run_on(target, sql, options, chosen, tolerance)
+
         def run(res):
-            compiled = compile_sql(sql, dialect="duckdb", read=read, pretty=False, strict=strict, method=method,
-                                   resolution=res, source_columns=duckdb_source_columns(connection),
-                                   tie_grouping=tie_grouping, tie_probe=duckdb_tie_probe(connection),
-                                   expression_types=duckdb_expression_types(connection), ordered=ordered)
-            return execute_df(connection, compiled)
+            compiled = compile_sql(sql, replace(options, resolution=res), DuckDBSchema(target))
+            return execute_df(target, compiled)
         if method == "exact":
             return run(None)
         return run_bounded(run, chosen, tolerance, sql)
-    finally:
-        for name in registered:
-            connection.unregister(name)
-        if con is None:
-            connection.close()
 
 
-def check_duckdb_settings(**settings) -> None:
-    given = [name for name, value in settings.items() if value not in (None, False)]
-    if given:
-        raise UnevenError(f"{', '.join(given)} {'is a DuckDB setting' if len(given) == 1 else 'are DuckDB settings'}"
-                          "; set the other engine's own options on its connection instead")
-
-
-def run_on(adapter, sql: str, caller, *, strict: bool, tie_grouping: str, method: str, resolution, tolerance,
-           read: str, ordered: str = "auto") -> pd.DataFrame:
+def run_on(adapter: Adapter, sql: str, options: CompileOptions, resolution, tolerance) -> pd.DataFrame:
     """``query`` on an engine other than DuckDB (engine/adapters): compile for its dialect with its
     answers to the compiler's probes (columns, argument types), run, type the result as DuckDB does."""
-    registered = register_frames_on(adapter, sql, caller)
-    try:
-        def run(res):
-            compiled = compile_sql(sql, dialect=adapter.dialect, read=read, pretty=False, strict=strict,
-                                   method=method, resolution=res, source_columns=adapter.source_columns(),
-                                   tie_grouping=tie_grouping, tie_probe=adapter_tie_probe(adapter),
-                                   expression_types=adapter.expression_types(), ordered=ordered)
-            return adapter.execute(compiled)
-        if method == "exact":
-            return run(None)
-        return run_bounded(run, resolution, tolerance, sql)
-    finally:
-        for name in registered:
-            adapter.unregister(name)
+    def run(res):
+        compiled = compile_sql(sql, replace(options, dialect=adapter.dialect, resolution=res), adapter.schema())
+        return adapter.execute(compiled)
+    if options.method == "exact":
+        return run(None)
+    return run_bounded(run, resolution, tolerance, sql)
 
 
 def explain(sql: str, con=None, *, profile: bool = False,
@@ -133,26 +108,12 @@ def explain(sql: str, con=None, *, profile: bool = False,
     On another engine (``con`` as for ``query``) the passes are those compiled for it and
     ``engine_plan`` holds the engine's own plan (PostgreSQL's EXPLAIN, with ``profile=True``
     EXPLAIN ANALYZE; Spark's EXPLAIN; SQLite's EXPLAIN QUERY PLAN)."""
-    if not is_duckdb(con):
-        check_duckdb_settings(memory_limit=memory_limit, threads=threads, temp_directory=temp_directory)
-        adapter = adapt(con)
-        registered = register_frames_on(adapter, sql, inspect.currentframe().f_back)
-        try:
-            return explain_on(sql, adapter, profile=profile, strict=strict, tie_grouping=tie_grouping, read=read,
-                              ordered=ordered)
-        finally:
-            for name in registered:
-                adapter.unregister(name)
-    connection = connect(con, memory_limit=memory_limit, threads=threads, temp_directory=temp_directory)
-    registered = register_caller_frames(connection, sql, inspect.currentframe().f_back)
-    try:
-        return explain_query(sql, connection, profile=profile, strict=strict, tie_grouping=tie_grouping, read=read,
-                             ordered=ordered)
-    finally:
-        for name in registered:
-            connection.unregister(name)
-        if con is None:
-            connection.close()
+    options = CompileOptions(read=read, strict=strict, tie_grouping=tie_grouping, ordered=ordered)
+    with session(con, sql, inspect.currentframe().f_back, memory_limit=memory_limit, threads=threads,
+                 temp_directory=temp_directory) as target:
+        if isinstance(target, Adapter):
+            return explain_on(sql, target, options, profile=profile)
+        return explain_query(sql, target, options, profile=profile)
 
 
 def measures() -> list[dict]:

@@ -11,14 +11,14 @@ from __future__ import annotations
 import json
 import os
 import tempfile
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import duckdb
 
+from uneven.compiler.context import CompileOptions
 from uneven.compiler.pipeline import compile_with_context
-from uneven.engine.columns import duckdb_source_columns
+from uneven.engine.columns import DuckDBSchema
 from uneven.engine.runner import translate_error
-from uneven.engine.ties import adapter_tie_probe, duckdb_tie_probe
 
 
 @dataclass
@@ -94,16 +94,12 @@ def _size(n) -> str:
     return str(n)
 
 
-def explain_on(sql: str, adapter, *, profile: bool = False, strict: bool = False, tie_grouping: str = "auto",
-               read: str = "duckdb", ordered: str = "auto") -> Explanation:
+def explain_on(sql: str, adapter, options: CompileOptions, *, profile: bool = False) -> Explanation:
     """``explain_query`` on another engine (engine/adapters): the passes compiled for its dialect and
     its own plan; with ``profile`` the query runs once (PostgreSQL: EXPLAIN ANALYZE) and is timed."""
     import time
 
-    compiled, ctx = compile_with_context(sql, dialect=adapter.dialect, read=read, pretty=True, strict=strict,
-                                         source_columns=adapter.source_columns(), tie_grouping=tie_grouping,
-                                         tie_probe=adapter_tie_probe(adapter),
-                                         expression_types=adapter.expression_types(), ordered=ordered)
+    compiled, ctx = compile_with_context(sql, replace(options, dialect=adapter.dialect, pretty=True), adapter.schema())
     out = Explanation(passes=ctx.chosen, sql=compiled, engine=adapter.label, read_once=ctx.read_once)
     try:
         if profile and adapter.dialect == "postgres":
@@ -119,14 +115,13 @@ def explain_on(sql: str, adapter, *, profile: bool = False, strict: bool = False
     return out
 
 
-def explain_query(sql: str, con: duckdb.DuckDBPyConnection, *, profile: bool = False, strict: bool = False,
-                  tie_grouping: str = "auto", read: str = "duckdb", ordered: str = "auto") -> Explanation:
+def explain_query(sql: str, con: duckdb.DuckDBPyConnection, options: CompileOptions, *,
+                  profile: bool = False) -> Explanation:
     """Compile ``sql`` as ``query`` would on ``con`` (same probes) and describe its passes; with
     ``profile`` also run it once under DuckDB's profiler."""
-    compiled, ctx = compile_with_context(sql, dialect="duckdb", read=read, pretty=True, strict=strict,
-                                         source_columns=duckdb_source_columns(con),
-                                         tie_grouping=tie_grouping, tie_probe=duckdb_tie_probe(con),
-                                         ordered=ordered)
+    # the column and tie probes of query(); the argument types are not probed here
+    compiled, ctx = compile_with_context(sql, replace(options, dialect="duckdb", pretty=True),
+                                         DuckDBSchema(con, types=False))
     out = Explanation(passes=ctx.chosen, sql=compiled, read_once=ctx.read_once)
     if profile:
         run_profiled(con, compiled, out)

@@ -21,6 +21,7 @@ from uneven.bounds.lower import join_overlaps
 from uneven.brackets import bounds as bd
 from uneven.brackets.estimate import Estimate
 from uneven.brackets.table import check_brackets
+from uneven.compiler.context import CompileOptions
 from uneven.compiler.emit import to_sql
 from uneven.compiler.pipeline import compile_sql
 from uneven.engine.adapters import adapt, is_duckdb
@@ -178,7 +179,7 @@ def read_on_engine(adapter, select: exp.Select, frame) -> pd.DataFrame:
     sql = to_sql(plain)
     registered = register_frames_on(adapter, sql, frame)
     try:
-        names, rows, _ = adapter.fetch(compile_sql(sql, dialect=adapter.dialect, pretty=False))
+        names, rows, _ = adapter.fetch(compile_sql(sql, CompileOptions(dialect=adapter.dialect, pretty=False)))
     except adapter.errors() as e:
         raise adapter.translate(e) from None
     finally:

@@ -19,6 +19,7 @@ from uneven import catalog
 from uneven.builder.measures import MeasureCall, column
 from uneven.compiler import compile_sql
 from uneven.compiler.bounded import check_method
+from uneven.compiler.context import CompileOptions
 from uneven.compiler.emit import to_sql
 from uneven.engine.adapters import adapt, is_duckdb
 from uneven.engine.bounded import pick_resolution, run_bounded
@@ -110,8 +111,8 @@ class Query:
         """The compiled SQL (no measure calls left) for ``dialect``; ``method``, ``tolerance`` and
         ``resolution`` as in ``.method()``."""
         name, tol, res = self._how(method, tolerance, resolution)
-        return compile_sql(to_sql(self.tree()), dialect=dialect, pretty=pretty, method=name,
-                           resolution=pick_resolution(name, tol, res))
+        return compile_sql(to_sql(self.tree()), CompileOptions(dialect=dialect, pretty=pretty, method=name,
+                                                               resolution=pick_resolution(name, tol, res)))
 
     def _check_types(self, types: dict[str, str]) -> None:
         """A measure's value or weight column that holds text: an error naming function and argument."""
@@ -129,8 +130,7 @@ class Query:
                                                    "it must be numeric", function=spec.name)
 
     def _run(self, method: str = "exact", resolution: float | None = None):
-        compiled = compile_sql(to_sql(self.tree()), dialect="duckdb", pretty=False, method=method,
-                               resolution=resolution)
+        compiled = compile_sql(to_sql(self.tree()), CompileOptions(pretty=False, method=method, resolution=resolution))
         con = connect(self.con)
         try:
             if isinstance(self.frame, duckdb.DuckDBPyRelation):
@@ -154,9 +154,9 @@ class Query:
             found = adapter.describe(adapter.compile_probe(exp.select("*").from_(self.source.copy()).limit(0)))
             if found is not None:
                 self._check_types({n: t for n, t in found if t is not None})
-            compiled = compile_sql(to_sql(self.tree()), dialect=adapter.dialect, pretty=False, method=method,
-                                   resolution=resolution, source_columns=adapter.source_columns(),
-                                   expression_types=adapter.expression_types())
+            compiled = compile_sql(to_sql(self.tree()), CompileOptions(dialect=adapter.dialect, pretty=False,
+                                                                       method=method, resolution=resolution),
+                                   adapter.schema())
             return adapter.execute(compiled)
         finally:
             if registered:

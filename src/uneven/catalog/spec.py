@@ -5,12 +5,28 @@ from __future__ import annotations
 import math
 from collections.abc import Callable
 from dataclasses import dataclass
+from enum import StrEnum
 from typing import Literal
 
 from sqlglot import exp
 
-PassKind = Literal["ordered", "moment", "centred", "entity", "subgroup", "ranked", "paired", "linearized",
-                   "bootstrap"]
+
+class PassKind(StrEnum):
+    """The kinds of pass (compiler/passes): a catalog entry names the one its measure needs; the
+    planner may turn an ordered pass into a refine pass, and method="bounded" uses the summary pass.
+    Members equal their names as text, so an entry may write ``passes="ordered"``."""
+
+    MOMENT = "moment"
+    CENTRED = "centred"
+    ORDERED = "ordered"
+    REFINE = "refine"
+    ENTITY = "entity"
+    SUBGROUP = "subgroup"
+    RANKED = "ranked"
+    PAIRED = "paired"
+    LINEARIZED = "linearized"
+    BOOTSTRAP = "bootstrap"
+    SUMMARY = "summary"
 
 
 @dataclass(frozen=True)
@@ -42,12 +58,13 @@ class Measure:
     """One measure: its SQL name, arguments, pass, result expression and numpy reference.
 
     ``build(ctx, params)`` returns the sqlglot expression of the result, written against the
-    context of its pass (see ``compiler/passes``): for ordered and entity passes an aggregate over
-    the pass's rows, for the moment pass an expression over sums the context registers.
+    context of its pass, whose shape catalog/contexts.py declares: for ordered and entity passes an
+    aggregate over the pass's rows, for the moment pass an expression over sums the context registers.
     """
 
     name: str
-    passes: PassKind | tuple[PassKind, PassKind]  # (without, with) the trailing argument
+    # (without, with) the trailing argument; a kind may be written as its string (PassKind is a StrEnum)
+    passes: PassKind | str | tuple[PassKind | str, PassKind | str]
     params: tuple[Param, ...]
     trailing: Literal["weight", "entity"] | None
     formula: str
@@ -74,8 +91,8 @@ class Measure:
 
     def pass_for(self, has_trailing: bool) -> PassKind:
         if isinstance(self.passes, tuple):
-            return self.passes[1] if has_trailing else self.passes[0]
-        return self.passes
+            return PassKind(self.passes[1] if has_trailing else self.passes[0])
+        return PassKind(self.passes)
 
     @property
     def constants(self) -> tuple[Param, ...]:

@@ -12,6 +12,7 @@ from __future__ import annotations
 from sqlglot import exp
 
 from uneven.bounds.measures import BOUNDED
+from uneven.catalog.spec import PassKind
 from uneven.compiler.calls import MeasureCall, call_key, is_measure
 from uneven.compiler.context import CompileContext, text
 from uneven.errors import MeasureUsageError
@@ -28,7 +29,7 @@ def route_bounded(select: exp.Select, calls: list[MeasureCall], ctx: CompileCont
             raise ctx.error(MeasureUsageError, f"{name}() has no interval form with method bounded; ask "
                             "lorenz(x, p) for each point instead", call.node, name)
         if name in BOUNDED:
-            call.pass_override = "summary"
+            call.pass_override = PassKind.SUMMARY
     for item in select.expressions:
         node = item.unalias()
         if _measure_of(node) is not None:

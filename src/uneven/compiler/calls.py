@@ -7,7 +7,7 @@ from dataclasses import dataclass, field
 from sqlglot import exp
 
 from uneven import catalog
-from uneven.catalog.spec import Measure
+from uneven.catalog.spec import Measure, PassKind
 from uneven.compiler.context import CompileContext, span, text
 from uneven.errors import MeasureArgumentError, MeasureUsageError
 from uneven.sqltree.constants import ConstantError, evaluate_constant, literal_value
@@ -28,16 +28,16 @@ class MeasureCall:
     strict: bool = False  # an undefined result stops the query with an error naming the group
     settings: dict = field(default_factory=dict)  # named arguments as read by measure.read_options
     key: tuple = ()  # call_key(node), computed once
-    pass_override: str | None = None  # set by method="bounded" (compiler/bounded.py)
+    pass_override: PassKind | None = None  # set by method="bounded" (compiler/bounded.py)
 
     def __post_init__(self):
         if not self.key:
             self.key = call_key(self.node)
 
     @property
-    def pass_kind(self) -> str:
+    def pass_kind(self) -> PassKind:
         if self.pass_override:
-            return self.pass_override
+            return PassKind(self.pass_override)
         return self.measure.pass_for(self.trailing is not None)
 
     @property
@@ -118,7 +118,7 @@ def read_constant(arg: exp.Expression, what: str, name: str, node: exp.Anonymous
     """The value of a constant parameter as the engine computes it in the read dialect
     (sqltree/constants.py); a refusal names the function, the argument and the offending part."""
     try:
-        return evaluate_constant(arg, ctx.read)
+        return evaluate_constant(arg, ctx.options.read)
     except ConstantError as e:
         raise ctx.error(MeasureArgumentError, f"{name}(): {what} {e.reason}", _positioned(e.node, arg, node),
                         name) from None
@@ -145,8 +145,28 @@ def _check_row_level(arg: exp.Expression, what: str, name: str, node, ctx: Compi
 
 
 def read_call(node: exp.Anonymous, ctx: CompileContext) -> MeasureCall:
-    """Read and check a call's arguments against its catalog entry."""
+    """Read and check a call's arguments against its catalog entry (errors in the order written:
+    the argument list, the named arguments, the count, the value, the parameters, the trailing
+    argument, then the options' values)."""
     measure = catalog.lookup(node.name)
+    positional, options = _split_arguments(node, measure, ctx)
+    need = _check_count(node, measure, positional, ctx)
+    x = positional[0]
+    _check_row_level(x, "value", measure.name, node, ctx)
+    params, columns = _read_params(node, measure, positional[1:need], ctx)
+    trailing = positional[need] if len(positional) > need else None
+    if trailing is not None:
+        _check_trailing(node, measure, trailing, ctx)
+    strict = _read_strict(node, measure.name, options, ctx)
+    settings = _read_settings(node, measure, options, ctx)
+    cond = call_filter(node)
+    return MeasureCall(node=node, measure=measure, x=x, params=tuple(params), trailing=trailing,
+                       columns=tuple(columns), options=options,
+                       filter=cond.copy() if cond is not None else None, strict=strict, settings=settings)
+
+
+def _split_arguments(node: exp.Anonymous, measure: Measure, ctx: CompileContext) -> tuple[list, dict]:
+    """(positional arguments, named arguments by lower-case name), each named one known to the measure."""
     name = measure.name
     positional, options = [], {}
     for arg in node.expressions:
@@ -166,16 +186,25 @@ def read_call(node: exp.Anonymous, ctx: CompileContext) -> MeasureCall:
             allowed = ", ".join(measure.options) or "none"
             raise ctx.error(MeasureArgumentError, f"{name}(): unknown named argument '{opt}' "
                             f"(allowed: {allowed})", node, name)
+    return positional, options
+
+
+def _check_count(node: exp.Anonymous, measure: Measure, positional: list, ctx: CompileContext) -> int:
+    """The number of arguments before the optional trailing one (value and parameters)."""
     need = 1 + len(measure.params)
     most = need + (1 if measure.trailing else 0)
     if not need <= len(positional) <= most:
         expected = str(need) if need == most else f"{need} or {most}"
-        raise ctx.error(MeasureArgumentError, f"{name}() takes {expected} arguments: {measure.signature}; "
-                        f"got {len(positional)}", node, name)
-    x = positional[0]
-    _check_row_level(x, "value", name, node, ctx)
+        raise ctx.error(MeasureArgumentError, f"{measure.name}() takes {expected} arguments: {measure.signature}; "
+                        f"got {len(positional)}", node, measure.name)
+    return need
+
+
+def _read_params(node: exp.Anonymous, measure: Measure, args: list, ctx: CompileContext) -> tuple[list, list]:
+    """(the constant parameters' values, the column arguments), each checked against its Param."""
+    name = measure.name
     params, columns = [], []
-    for spec, arg in zip(measure.params, positional[1:need]):
+    for spec, arg in zip(measure.params, args):
         if spec.kind == "column":
             _check_row_level(arg, spec.name, name, node, ctx)
             if isinstance(arg, exp.Null):
@@ -194,29 +223,35 @@ def read_call(node: exp.Anonymous, ctx: CompileContext) -> MeasureCall:
     problem = measure.check(tuple(params)) if measure.check else None
     if problem:
         raise ctx.error(MeasureArgumentError, f"{name}(): {problem}", node, name)
-    trailing = positional[need] if len(positional) > need else None
-    if trailing is not None:
-        _check_row_level(trailing, measure.trailing, name, node, ctx)
-        if isinstance(trailing, exp.Literal) and measure.trailing == "weight" and not trailing.is_string:
-            pass  # a constant weight is allowed and acts like no weight
-        elif isinstance(trailing, exp.Null):
-            raise ctx.error(MeasureArgumentError, f"{name}(): the {measure.trailing} cannot be NULL", node, name)
-    strict = ctx.strict
-    if "strict" in options:
-        flag = options["strict"]
-        if not isinstance(flag, exp.Boolean):
-            raise ctx.error(MeasureArgumentError, f"{name}(): strict must be true or false, got {text(flag)}",
-                            node, name)
-        strict = bool(flag.this)
-    settings = {}
-    if measure.read_options is not None:
-        try:
-            settings = measure.read_options(options, read=ctx.read)
-        except ConstantError as e:
-            raise ctx.error(MeasureArgumentError, f"{name}(): {e}", _positioned(e.node, node), name) from None
-        except ValueError as e:
-            raise ctx.error(MeasureArgumentError, f"{name}(): {e}", node, name) from None
-    cond = call_filter(node)
-    return MeasureCall(node=node, measure=measure, x=x, params=tuple(params), trailing=trailing,
-                       columns=tuple(columns), options=options,
-                       filter=cond.copy() if cond is not None else None, strict=strict, settings=settings)
+    return params, columns
+
+
+def _check_trailing(node: exp.Anonymous, measure: Measure, trailing: exp.Expression, ctx: CompileContext) -> None:
+    _check_row_level(trailing, measure.trailing, measure.name, node, ctx)
+    if isinstance(trailing, exp.Literal) and measure.trailing == "weight" and not trailing.is_string:
+        pass  # a constant weight is allowed and acts like no weight
+    elif isinstance(trailing, exp.Null):
+        raise ctx.error(MeasureArgumentError, f"{measure.name}(): the {measure.trailing} cannot be NULL", node,
+                        measure.name)
+
+
+def _read_strict(node: exp.Anonymous, name: str, options: dict, ctx: CompileContext) -> bool:
+    if "strict" not in options:
+        return ctx.options.strict
+    flag = options["strict"]
+    if not isinstance(flag, exp.Boolean):
+        raise ctx.error(MeasureArgumentError, f"{name}(): strict must be true or false, got {text(flag)}", node, name)
+    return bool(flag.this)
+
+
+def _read_settings(node: exp.Anonymous, measure: Measure, options: dict, ctx: CompileContext) -> dict:
+    """The named arguments as the measure reads them (read_options), or {}."""
+    if measure.read_options is None:
+        return {}
+    try:
+        return measure.read_options(options, read=ctx.options.read)
+    except ConstantError as e:
+        raise ctx.error(MeasureArgumentError, f"{measure.name}(): {e}", _positioned(e.node, node),
+                        measure.name) from None
+    except ValueError as e:
+        raise ctx.error(MeasureArgumentError, f"{measure.name}(): {e}", node, measure.name) from None

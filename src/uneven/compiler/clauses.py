@@ -211,9 +211,9 @@ def check_join(node: exp.Join, ctx: CompileContext) -> None:
         if state == CARRIED:
             continue
         if isinstance(state, tuple):
-            if ctx.dialect in state:
+            if ctx.options.dialect in state:
                 continue
-            raise ctx.error(UnsupportedSqlError, f"{join_word(node)} cannot be compiled for {ctx.dialect} "
+            raise ctx.error(UnsupportedSqlError, f"{join_word(node)} cannot be compiled for {ctx.options.dialect} "
                             f"(only for {', '.join(state)})", node)
         raise refuse(ctx, state, node)
 
@@ -232,13 +232,14 @@ def check_sample(sample: exp.TableSample, ctx: CompileContext) -> None:
         raise refuse(ctx, "TABLESAMPLE (BUCKET …)", sample)
     method = (sample.args["method"].name if sample.args.get("method") is not None else "SYSTEM").upper()
     kind = sample_size_kind(sample)
-    methods = SAMPLE_METHODS.get(ctx.dialect)
+    methods = SAMPLE_METHODS.get(ctx.options.dialect)
     if methods is None:
         raise ctx.error(UnsupportedSqlError, f"a sampled source (TABLESAMPLE / USING SAMPLE) cannot be compiled "
-                        f"for {ctx.dialect}: it must be evaluated once for every measure, which the compiler "
+                        f"for {ctx.options.dialect}: it must be evaluated once for every measure, which the compiler "
                         f"can promise on {', '.join(m for m in SAMPLE_METHODS)} only", sample)
     if kind not in methods.get(method, ()):
-        raise ctx.error(UnsupportedSqlError, f"sampling {method} by {kind} cannot be compiled for {ctx.dialect} "
+        raise ctx.error(UnsupportedSqlError, f"sampling {method} by {kind} cannot be compiled for "
+                        f"{ctx.options.dialect} "
                         f"(it takes: {', '.join(f'{m} by ' + ' or '.join(k) for m, k in methods.items())})",
                         sample)
 

@@ -3,8 +3,8 @@
 from __future__ import annotations
 
 from collections import defaultdict
-from collections.abc import Callable
 from dataclasses import dataclass, field
+from typing import Protocol
 
 from sqlglot import exp
 
@@ -12,23 +12,45 @@ from uneven.errors import UnevenError
 from uneven.sqltree.spans import span, text  # noqa: F401  (re-exported to the stages)
 
 
+@dataclass(frozen=True)
+class CompileOptions:
+    """The options of one compilation, built once at the front door (api, builder, CLI) and checked
+    by ``pipeline.check_options``."""
+
+    dialect: str = "duckdb"  # the target engine: some plan variants need one of its functions
+    read: str = "duckdb"  # the dialect the SQL text is written in: constant parameters mean what it says
+    pretty: bool = True
+    strict: bool = False  # every measure call strict unless it says strict := false
+    tie_grouping: str = "auto"  # the ordered pass's variant: "auto" | "on" | "off" (plan.choose_variant)
+    method: str = "exact"  # or "bounded": intervals from one-pass binned summaries (compiler/bounded.py)
+    resolution: float | None = None  # relative bin width of the summary pass (method="bounded"; None: default)
+    ordered: str = "auto"  # cut-based measures: "auto" | "refine" | "window" (plan.route_refine)
+
+
+class EngineSchema(Protocol):
+    """What an engine can tell the compiler about a query's sources (engine/columns.DuckDBSchema,
+    engine/adapters/base.AdapterSchema). Each answer is a help: None means unknown, and the compiler
+    then decides from the SQL alone."""
+
+    probes_ties: bool  # whether ``tie_counts`` looks at the data (else the planner never asks)
+
+    def source_columns(self, select: exp.Select) -> set[str] | None:
+        """The columns the SELECT's FROM clause provides (group key resolution, keys.py)."""
+
+    def expression_types(self, select: exp.Select, exprs: list[exp.Expression]) -> list[str] | None:
+        """Type names of expressions over the SELECT's FROM clause (argument checks, types.py)."""
+
+    def tie_counts(self, select: exp.Select, x: exp.Expression, condition: exp.Expression | None,
+                   keys: list[exp.Expression]) -> tuple[int, int] | None:
+        """(distinct (keys, x) pairs, rows) of an ordered pass's value (plan.choose_variant)."""
+
+
 @dataclass
 class CompileContext:
     sql: str | None = None
-    strict: bool = False  # every measure call strict unless it says strict := false
-    # columns the FROM clause of a SELECT provides, when an engine can say (None: unknown)
-    source_columns: Callable[[exp.Select], set[str] | None] | None = None
-    method: str = "exact"  # or "bounded": intervals from one-pass binned summaries (compiler/bounded.py)
-    resolution: float = 0.01  # relative bin width of the summary pass (method="bounded")
-    # type names of expressions over a SELECT's FROM clause, when an engine can say (compiler/types.py)
-    expression_types: Callable[[exp.Select, list[exp.Expression]], list[str] | None] | None = None
+    options: CompileOptions = CompileOptions()
+    engine: EngineSchema | None = None  # None: compile without looking at any data
     counters: dict[str, int] = field(default_factory=lambda: defaultdict(int))
-    # planner options (compiler/plan.py): "auto" | "on" | "off", and the engine's tie probe
-    tie_grouping: str = "auto"
-    ordered: str = "auto"  # cut-based measures: "auto" | "refine" | "window" (plan.route_refine)
-    dialect: str = "duckdb"  # the target engine: some plan variants need one of its functions
-    read: str = "duckdb"  # the dialect the SQL text is written in: constant parameters mean what it says
-    tie_probe: Callable | None = None
     # what the planner chose, one record per pass (read by explain)
     chosen: list[dict] = field(default_factory=list)
     # sources read once through a MATERIALIZED CTE, one record each (materialize.py; read by explain)

@@ -65,7 +65,7 @@ def same_key(node: exp.Expression, key: exp.Expression) -> bool:
 def _is_source_column(select: exp.Select, name: str, ctx: CompileContext) -> bool:
     """DuckDB binds a GROUP BY name to a column of the FROM clause before a select alias. Without an
     engine to ask (``compile`` alone) the columns are unknown and the alias is taken."""
-    if ctx.source_columns is None:
+    if ctx.engine is None:
         return False
-    columns = ctx.source_columns(select)
+    columns = ctx.engine.source_columns(select)
     return columns is not None and name.lower() in columns

@@ -34,9 +34,10 @@ def materialize_scope(select: exp.Select, ctx: CompileContext) -> bool:
     reason = clauses.volatile_reason(select)
     if reason is None:
         return False
-    if ctx.dialect not in clauses.MATERIALIZING:
+    if ctx.options.dialect not in clauses.MATERIALIZING:
         raise ctx.error(UnsupportedSqlError, f"the rows of this query must be read once for every measure "
-                        f"({why_read_once(reason)}: {text(reason)}), which {ctx.dialect} cannot promise (it may "
+                        f"({why_read_once(reason)}: {text(reason)}), which {ctx.options.dialect} cannot "
+                        "promise (it may "
                         "evaluate a CTE again for each use); compile for "
                         f"{', '.join(clauses.MATERIALIZING)}, or store the rows in a table first", reason)
     name = ctx.name("src")
@@ -139,11 +140,11 @@ def _place_sample(body: exp.Select, ctx: CompileContext) -> None:
     """DuckDB's USING SAMPLE samples the FROM clause's rows before WHERE. Elsewhere only a table can be
     sampled: over a single table without joins the two are the same sample; over joins, refused."""
     sample = body.args.get("sample")
-    if sample is None or ctx.dialect == "duckdb":
+    if sample is None or ctx.options.dialect == "duckdb":
         return
     source = body.args["from_"].this
     if body.args.get("joins") or not isinstance(source, exp.Table) or source.args.get("sample") is not None:
         raise ctx.error(UnsupportedSqlError, f"USING SAMPLE over joins or a subquery cannot be compiled for "
-                        f"{ctx.dialect}; sample one table with TABLESAMPLE", sample)
+                        f"{ctx.options.dialect}; sample one table with TABLESAMPLE", sample)
     body.set("sample", None)
     source.set("sample", sample)

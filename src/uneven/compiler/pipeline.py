@@ -2,13 +2,15 @@
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 from sqlglot import exp
 
 from uneven.bounds import bins
 from uneven.compiler.bounded import check_method
 from uneven.compiler.calls import check_position, find_calls, read_call
 from uneven.compiler.clauses import check_clauses, volatile_outside_sources
-from uneven.compiler.context import CompileContext, span, text
+from uneven.compiler.context import CompileContext, CompileOptions, EngineSchema, span, text
 from uneven.compiler.generate import check_dialect, check_read_dialect, generate
 from uneven.compiler.materialize import materialize_scope
 from uneven.compiler.parse import parse_one_statement
@@ -80,49 +82,36 @@ def compile_tree(tree: exp.Expression, ctx: CompileContext) -> exp.Expression:
     return tree
 
 
-def compile_sql(sql: str, dialect: str = "duckdb", read: str = "duckdb", pretty: bool = True,
-                strict: bool = False, source_columns=None, tie_grouping: str = "auto", tie_probe=None,
-                method: str = "exact", resolution: float | None = None, expression_types=None,
-                ordered: str = "auto") -> str:
-    """Compile SQL text with measure calls into plain SQL for ``dialect``; ``strict`` makes every
-    measure call strict (an undefined result stops the query, naming the group);
-    ``source_columns(select)`` may tell the columns a SELECT's FROM provides (see keys.py), and
-    ``expression_types(select, exprs)`` the types of measure arguments (see types.py);
-    ``tie_grouping`` and ``tie_probe`` steer the ordered pass's variant (see plan.py);
-    ``method="bounded"`` gives each measure an interval from one-pass binned summaries of relative
-    bin width ``resolution`` (compiler/bounded.py); ``ordered`` picks the plan of cut-based
-    measures: "auto", "refine" or "window" (plan.route_refine, docs/refine.md)."""
-    return compile_with_plan(sql, dialect, read, pretty, strict, source_columns, tie_grouping, tie_probe,
-                             method, resolution, expression_types, ordered)[0]
+DEFAULT_OPTIONS = CompileOptions()  # frozen: one shared default is safe
 
 
-def compile_with_plan(sql: str, dialect: str = "duckdb", read: str = "duckdb", pretty: bool = True,
-                      strict: bool = False, source_columns=None, tie_grouping: str = "auto",
-                      tie_probe=None, method: str = "exact", resolution: float | None = None,
-                      expression_types=None, ordered: str = "auto") -> tuple[str, list[dict]]:
-    """``compile_sql`` and the planner's record of every pass (plan.describe_pass), innermost scope first."""
-    compiled, ctx = compile_with_context(sql, dialect, read, pretty, strict, source_columns, tie_grouping, tie_probe,
-                                         method, resolution, expression_types, ordered)
-    return compiled, ctx.chosen
+def compile_sql(sql: str, options: CompileOptions = DEFAULT_OPTIONS, engine: EngineSchema | None = None) -> str:
+    """Compile SQL text with measure calls into plain SQL for ``options.dialect`` (the options:
+    context.CompileOptions). ``engine`` (context.EngineSchema) may tell the columns a SELECT's FROM
+    provides (keys.py), the types of measure arguments (types.py) and how often an ordered pass's
+    values tie (plan.py); without it the compiler decides from the SQL alone."""
+    return compile_with_context(sql, options, engine)[0]
 
 
-def compile_with_context(sql: str, dialect: str = "duckdb", read: str = "duckdb", pretty: bool = True,
-                         strict: bool = False, source_columns=None, tie_grouping: str = "auto",
-                         tie_probe=None, method: str = "exact", resolution: float | None = None,
-                         expression_types=None, ordered: str = "auto") -> tuple[str, CompileContext]:
-    """``compile_sql`` and its context: the passes chosen (``chosen``) and the sources read once
-    (``read_once``), for explain."""
-    check_dialect(dialect)
-    check_tie_grouping(tie_grouping)
-    check_ordered(ordered)
-    check_read_dialect(read)
-    ctx = CompileContext(sql=sql, strict=strict, source_columns=source_columns, tie_grouping=tie_grouping,
-                         tie_probe=tie_probe, method=check_method(method),
-                         resolution=bins.check_resolution(bins.DEFAULT_RESOLUTION if resolution is None
-                                                          else resolution),
-                         expression_types=expression_types, dialect=dialect, read=read, ordered=ordered)
-    tree = compile_tree(parse_one_statement(sql, read), ctx)
-    return generate(tree, dialect, pretty=pretty, copy=False), ctx  # the tree is this compile's own
+def compile_with_context(sql: str, options: CompileOptions = DEFAULT_OPTIONS,
+                         engine: EngineSchema | None = None) -> tuple[str, CompileContext]:
+    """``compile_sql`` and its context: the passes chosen (``chosen``, plan.describe_pass, innermost
+    scope first) and the sources read once (``read_once``), for explain."""
+    options = check_options(options)
+    ctx = CompileContext(sql=sql, options=options, engine=engine)
+    tree = compile_tree(parse_one_statement(sql, options.read), ctx)
+    return generate(tree, options.dialect, pretty=options.pretty, copy=False), ctx  # the tree is this compile's own
+
+
+def check_options(options: CompileOptions) -> CompileOptions:
+    """The options checked, the default resolution filled in: a clear error for a bad value."""
+    check_dialect(options.dialect)
+    check_tie_grouping(options.tie_grouping)
+    check_ordered(options.ordered)
+    check_read_dialect(options.read)
+    method = check_method(options.method)
+    resolution = bins.check_resolution(bins.DEFAULT_RESOLUTION if options.resolution is None else options.resolution)
+    return replace(options, method=method, resolution=resolution)
 
 
 def check_tie_grouping(value) -> None:

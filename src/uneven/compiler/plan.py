@@ -7,14 +7,16 @@ from dataclasses import dataclass, field
 
 from sqlglot import exp
 
+from uneven.catalog.spec import PassKind
 from uneven.compiler.calls import MeasureCall
-from uneven.compiler.context import text
+from uneven.compiler.context import CompileOptions, EngineSchema, text
+from uneven.compiler.passes.linearized import can_share
 from uneven.compiler.passes.refine import refinable
 
 
 @dataclass
 class PassPlan:
-    kind: str  # "ordered" | "moment" | "entity"
+    kind: PassKind
     x: exp.Expression
     trailing: exp.Expression | None  # the weight (ordered, moment) or the entity (entity)
     condition: exp.Expression | None = None  # a FILTER (WHERE …) shared by the pass's calls
@@ -48,6 +50,24 @@ def plan_passes(calls: list[MeasureCall]) -> list[PassPlan]:
     return list(plans.values())
 
 
+@dataclass(frozen=True)
+class PlanScope:
+    """What the plan rules read about one scope: its SELECT and group keys, the compile options and
+    what the engine knows (None when compiling without an engine)."""
+
+    select: exp.Select
+    keys: list[exp.Expression]
+    options: CompileOptions = CompileOptions()
+    engine: EngineSchema | None = None
+
+
+def apply_rules(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
+    """The scope's passes after every rule of PLAN_RULES, in order (as sqlglot's optimizer RULES)."""
+    for rule in PLAN_RULES:
+        plans = rule(plans, scope)
+    return plans
+
+
 # Tie grouping (the "ties" variant of the ordered pass) pays when the distinct (keys, value) pairs
 # are at most this share of the rows: measured on 4M rows x 1000 groups, weighted Gini, 2 threads,
 # the running-sum window over distinct values plus one hash aggregate took 0.95x DuckDB's sort
@@ -58,25 +78,31 @@ TIE_SHARE = 0.25
 TIE_GROUPING = ("auto", "on", "off")
 
 
-def choose_variant(plan: PassPlan, select: exp.Select, keys: list[exp.Expression], tie_grouping: str = "auto",
-                   tie_probe: Callable | None = None, dialect: str = "duckdb") -> PassPlan:
+def choose_variants(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
+    for plan in plans:
+        choose_variant(plan, scope)
+    return plans
+
+
+def choose_variant(plan: PassPlan, scope: PlanScope) -> PassPlan:
     """Pick the ordered pass's variant: "ties" when asked (``on``), or, with ``auto``, when an engine
     probe reports few distinct values (share of rows ≤ TIE_SHARE); else "rows". The centred pass is
     "adaptive" on DuckDB when every call has a one-pass error bound (choose_centred). Other passes
-    keep their one form. ``tie_probe(select, x, condition, keys)`` returns (distinct pairs, rows) or
+    keep their one form. ``engine.tie_counts(select, x, condition, keys)`` returns (distinct pairs, rows) or
     None (unknown, e.g. a value type where ties are rare and the probe is not worth a scan)."""
-    if plan.kind == "centred":
-        return choose_centred(plan, dialect)
-    if plan.kind != "ordered":
+    tie_grouping = scope.options.tie_grouping
+    if plan.kind == PassKind.CENTRED:
+        return choose_centred(plan, scope.options.dialect)
+    if plan.kind != PassKind.ORDERED:
         return plan
     if tie_grouping == "on":
         plan.variant, plan.reason = "ties", "tie grouping requested"
     elif tie_grouping == "off":
         plan.variant, plan.reason = "rows", "tie grouping turned off"
-    elif tie_probe is None:
+    elif scope.engine is None or not scope.engine.probes_ties:
         plan.variant, plan.reason = "rows", "no engine to probe for ties (compile only)"
     else:
-        found = tie_probe(select, plan.x, plan.condition, keys)
+        found = scope.engine.tie_counts(scope.select, plan.x, plan.condition, scope.keys)
         if found is None:
             plan.variant, plan.reason = "rows", "value type rarely ties (not probed)"
         else:
@@ -110,10 +136,10 @@ def choose_centred(plan: PassPlan, dialect: str) -> PassPlan:
 # Only centred calls move: moving the moment sums too (leaving the main aggregate with the group
 # list only) measured within noise (1.62x against 1.62x one Gini on 2M rows x 100k groups, best of
 # 5), and the moment pass keeps its own row-validity rules in one place (passes/moment.py).
-FUSED_KINDS = ("centred",)
+FUSED_KINDS = (PassKind.CENTRED,)
 
 
-def fuse_centred(plans: list[PassPlan], keyed: bool) -> list[PassPlan]:
+def fuse_centred(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
     """Move the calls of a centred pass onto the ordered pass of the same value, weight and FILTER.
 
     The ordered pass already sorts the group's valid rows in a window; the group mean as a
@@ -125,9 +151,9 @@ def fuse_centred(plans: list[PassPlan], keyed: bool) -> list[PassPlan]:
     Without group keys (one group) the centred pass stays: its join is to a single row, while a
     whole-input window would carry μ through the sort.
     """
-    if not keyed:
+    if not scope.keys:
         return plans
-    ordered = {_rows_key(p): p for p in plans if p.kind == "ordered" and not p.columns and not p.options}
+    ordered = {_rows_key(p): p for p in plans if p.kind == PassKind.ORDERED and not p.columns and not p.options}
     out = []
     for plan in plans:
         target = ordered.get(_rows_key(plan)) if plan.kind in FUSED_KINDS and not plan.columns \
@@ -143,52 +169,54 @@ def describe_pass(plan: PassPlan, ctes: list[str]) -> dict:
     """What explain shows of one lowered pass."""
     trailing = text(plan.trailing) if plan.trailing is not None else None
     reason = "; ".join(r for r in (plan.order_reason, plan.reason) if r)
-    return {"kind": plan.kind, "variant": plan.variant if plan.kind in ("ordered", "centred") else "",
-            "value": text(plan.x), "weight": trailing if plan.kind != "entity" else None,
-            "entity": trailing if plan.kind == "entity" else None,
+    return {"kind": plan.kind.value, "variant": plan.variant if plan.kind in (PassKind.ORDERED, PassKind.CENTRED)
+            else "", "value": text(plan.x), "weight": trailing if plan.kind != PassKind.ENTITY else None,
+            "entity": trailing if plan.kind == PassKind.ENTITY else None,
             "filter": text(plan.condition) if plan.condition is not None else None,
             "measures": list(dict.fromkeys(text(c.node) for c in plan.calls)), "ctes": ctes,
             "reason": reason}
+
+
 ORDERED_PLANS = ("auto", "refine", "window")
 
 
-def route_refine(plans: list[PassPlan], ordered: str = "auto", tie_grouping: str = "auto") -> list[PassPlan]:
+def route_refine(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
     """Turn an ordered pass into a refine pass (compiler/passes/refine.py: bins, then a sort of only
     the bins that hold a cut) when every call on it depends on the order only at cut points.
 
-    ``ordered``: "auto" refines wherever it can (on 20M rows x 1000 groups it took 0.4x the window
+    ``scope.options.ordered``: "auto" refines wherever it can (on 20M rows x 1000 groups it took 0.4x the window
     plan's time, on 100M rows in one group 0.08x: bench/README.md), except when tie grouping is
     asked for (a variant of the window plan); "refine" the same, whatever tie grouping says;
     "window" never. A pass with a measure that needs the full order (Gini and its family) keeps
     the window plan, and says which measure."""
     for plan in plans:
-        if plan.kind != "ordered" or plan.columns or plan.options:
+        if plan.kind != PassKind.ORDERED or plan.columns or plan.options:
             continue
-        if ordered == "window":
+        if scope.options.ordered == "window":
             plan.order_reason = "window plan requested"
             continue
-        if ordered == "auto" and tie_grouping == "on":
+        if scope.options.ordered == "auto" and scope.options.tie_grouping == "on":
             plan.order_reason = "window plan: tie grouping requested"
             continue
         blocking = list(dict.fromkeys(r for r in (refinable(c) for c in plan.calls) if r))
         if blocking:
             plan.order_reason = "window plan: " + ", ".join(blocking)
             continue
-        plan.kind, plan.variant = "refine", "refine"
+        plan.kind, plan.variant = PassKind.REFINE, "refine"
         plan.order_reason = ("refine plan: every measure reads the order only at its cuts (bins, then a sort "
                              "of the rows in the cut bins only)")
     return plans
 
 
-SHAREABLE = {"ordered", "moment"}  # plain passes whose measures a linearized pass can also compute
+SHAREABLE = {PassKind.ORDERED, PassKind.MOMENT}  # plain passes whose measures a linearized pass can also compute
 
 
-def share_passes(plans: list[PassPlan], can_share) -> list[PassPlan]:
+def share_passes(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
     """Move the calls of an ordered or moment pass onto a linearized pass of the same value, weight
     and FILTER (when ``can_share(call)``), so an estimate and its standard error share one sort."""
     linearized = {}
     for plan in plans:
-        if plan.kind == "linearized":
+        if plan.kind == PassKind.LINEARIZED:
             linearized.setdefault(_rows_key(plan), plan)
     out = []
     for plan in plans:
@@ -207,3 +235,13 @@ def share_passes(plans: list[PassPlan], can_share) -> list[PassPlan]:
 def _rows_key(plan: PassPlan) -> tuple:
     return (plan.x.sql("duckdb"), plan.trailing.sql("duckdb") if plan.trailing is not None else None,
             plan.condition.sql("duckdb") if plan.condition is not None else None)
+
+
+# The rules a scope's planned passes go through, in order: share a sort with a linearized pass, send
+# cut-based measures to the refine plan, fuse centred sums onto the ordered pass, pick each variant.
+PLAN_RULES: tuple[Callable[[list[PassPlan], PlanScope], list[PassPlan]], ...] = (
+    share_passes,
+    route_refine,
+    fuse_centred,
+    choose_variants,
+)

@@ -86,7 +86,7 @@ def expand_scalars(tree: exp.Expression, ctx) -> exp.Expression:
                 raise ctx.error(MeasureArgumentError, f"{NAME}(): income, adults and children must be numbers, "
                                 f"got {arg.sql('duckdb')}", node, NAME)
         try:
-            scale = read_scale(positional[3] if len(positional) == 4 else named.get("scale"), ctx.read)
+            scale = read_scale(positional[3] if len(positional) == 4 else named.get("scale"), ctx.options.read)
         except ValueError as e:
             raise ctx.error(MeasureArgumentError, f"{NAME}(): {e}", node, NAME) from None
         return s.paren(equivalised_tree(*positional[:3], scale))

@@ -16,26 +16,17 @@ from uneven.compiler.bounded import bounded_items, route_bounded
 from uneven.compiler.calls import MeasureCall, call_key, is_aggregate, is_measure
 from uneven.compiler.context import CompileContext, text
 from uneven.compiler.keys import resolve_group_keys, same_key
-from uneven.compiler.passes.bootstrap import lower_bootstrap_pass
-from uneven.compiler.passes.centred import lower_centred_pass
-from uneven.compiler.passes.entity import lower_entity_pass
-from uneven.compiler.passes.linearized import can_share, lower_linearized_pass
-from uneven.compiler.passes.moment import MainAggregate, lower_moment_pass
-from uneven.compiler.passes.ordered import lower_ordered_pass
-from uneven.compiler.passes.paired import lower_paired_pass
-from uneven.compiler.passes.ranked import lower_ranked_pass
-from uneven.compiler.passes.refine import lower_refine_pass
+from uneven.compiler.passes.moment import MainAggregate
+from uneven.compiler.passes.registry import PASSES
 from uneven.compiler.passes.source import Source, finite_or_null, join_on_keys, key_name, table
-from uneven.compiler.passes.subgroup import lower_subgroup_pass
-from uneven.compiler.passes.summary import lower_summary_pass
-from uneven.compiler.plan import choose_variant, describe_pass, fuse_centred, plan_passes, route_refine, share_passes
+from uneven.compiler.plan import PlanScope, apply_rules, describe_pass, plan_passes
 from uneven.errors import UnsupportedSqlError
 from uneven.sqltree import build as s
 
 
 def rewrite_scope(select: exp.Select, calls: list[MeasureCall], ctx: CompileContext) -> exp.Select:
     check_scope(select, ctx)
-    if ctx.method == "bounded":
+    if ctx.options.method == "bounded":
         route_bounded(select, calls, ctx)
     keys = resolve_group_keys(select, ctx)
     source = Source(select, keys)
@@ -46,7 +37,7 @@ def rewrite_scope(select: exp.Select, calls: list[MeasureCall], ctx: CompileCont
     outputs = output_aliases(select)
     final = exp.Select(expressions=[s.named(replace(p.unalias()), outputs[i])
                                     for i, p in enumerate(select.expressions)])
-    if ctx.method == "bounded":
+    if ctx.options.method == "bounded":
         final.set("expressions", bounded_items(select, final.expressions, results, outputs))
     final.from_(table(main.name), copy=False)
     for name in pass_names:
@@ -73,32 +64,15 @@ def rewrite_scope(select: exp.Select, calls: list[MeasureCall], ctx: CompileCont
     return final
 
 
-# pass kind → (name prefix of its CTEs or None when it rides on the main aggregate, lowering)
-LOWERINGS = {
-    "moment": (None, lower_moment_pass),
-    "centred": ("cen", lower_centred_pass),
-    "ordered": ("ord", lower_ordered_pass),
-    "refine": ("ref", lower_refine_pass),
-    "entity": ("ent", lower_entity_pass),
-    "subgroup": ("sub", lower_subgroup_pass),
-    "ranked": ("rnk", lower_ranked_pass),
-    "paired": ("pair", lower_paired_pass),
-    "linearized": ("lin", lower_linearized_pass),
-    "bootstrap": ("bs", lower_bootstrap_pass),
-    "summary": ("sum", lower_summary_pass),  # method="bounded" (bounds/, compiler/bounded.py)
-}
-
-
 def lower_passes(calls: list[MeasureCall], source: Source, main: MainAggregate, ctx: CompileContext):
     """Lower every planned pass: (its CTEs, the CTEs the final SELECT joins on the keys, call key →
     result). The CTEs to join are those the results read, other than the main aggregate."""
     ctes, results = [], {}
-    plans = route_refine(share_passes(plan_passes(calls), can_share), ctx.ordered, ctx.tie_grouping)
-    for plan in fuse_centred(plans, bool(source.keys)):
-        choose_variant(plan, source.select, source.keys, ctx.tie_grouping, ctx.tie_probe, ctx.dialect)
-        prefix, lower = LOWERINGS[plan.kind]
-        extra = {"resolution": ctx.resolution} if plan.kind == "summary" else {}
-        new, res = lower(source, main, plan, ctx.name(prefix) if prefix else None, **extra)
+    scope = PlanScope(source.select, source.keys, ctx.options, ctx.engine)
+    for plan in apply_rules(plan_passes(calls), scope):
+        lowering = PASSES[plan.kind]
+        name = ctx.name(lowering.PREFIX) if lowering.PREFIX else None
+        new, res = lowering.lower(source, main, plan, name, ctx.options)
         ctx.chosen.append(describe_pass(plan, [c.alias for c in new] or [main.name]))
         ctes += new
         results.update(res)

@@ -2,7 +2,7 @@
 
 ``CAST(x AS DOUBLE)`` (which every pass applies) would read the text '12' as 12 and a boolean as
 0/1, so a wrong column could give a plausible number. When an engine can tell the argument types
-(``query`` on DuckDB: ``CompileContext.expression_types``), a value or weight that is not numeric
+(``query`` on DuckDB: ``CompileContext.engine``), a value or weight that is not numeric
 stops the compile with an error naming the call, the argument and its type. ``compile`` alone
 cannot see types: the target engine's CAST decides (text that is not a number fails there).
 """
@@ -38,10 +38,10 @@ def typed_arguments(calls) -> list[tuple[exp.Expression, str, object]]:
 
 def check_argument_types(select: exp.Select, calls, ctx: CompileContext) -> None:
     """Raise MeasureArgumentError for a value or weight whose type is not numeric (when known)."""
-    if ctx.expression_types is None:
+    if ctx.engine is None:
         return
     args = typed_arguments(calls)
-    types = ctx.expression_types(select, [a[0] for a in args])
+    types = ctx.engine.expression_types(select, [a[0] for a in args])
     if types is None:
         return  # the engine could not say: the CAST in the compiled SQL decides
     for (expr, role, call), type_name in zip(args, types):

@@ -1,5 +1,6 @@
-"""Ask DuckDB which columns a SELECT's FROM clause provides (for GROUP BY name resolution) and
-what types measure arguments have (for compiler/types.py)."""
+"""What DuckDB knows about a query's sources, for the compiler (compiler/context.EngineSchema): which
+columns a SELECT's FROM clause provides (GROUP BY name resolution), what types measure arguments have
+(compiler/types.py) and how often an ordered pass's values tie (engine/ties.py)."""
 
 from __future__ import annotations
 
@@ -7,36 +8,7 @@ import duckdb
 from sqlglot import exp
 
 from uneven.compiler.emit import to_sql
-
-
-def duckdb_source_columns(con: duckdb.DuckDBPyConnection):
-    """A ``source_columns`` callback for the compiler: runs ``SELECT * FROM <from> LIMIT 0``."""
-    cache: dict[int, set[str] | None] = {}
-
-    def columns(select: exp.Select) -> set[str] | None:
-        if id(select) in cache:
-            return cache[id(select)]
-        from uneven.compiler.context import CompileContext
-        from uneven.compiler.pipeline import compile_tree
-
-        probe = exp.Select(expressions=[exp.Star()])
-        for arg in ("from_", "joins", "laterals", "with_"):
-            value = select.args.get(arg)
-            if value:
-                probe.set(arg, [v.copy() for v in value] if isinstance(value, list) else value.copy())
-        if probe.args.get("from_") is None:
-            cache[id(select)] = set()
-            return cache[id(select)]
-        probe.set("limit", exp.Limit(expression=exp.Literal.number(0)))
-        try:
-            sql = to_sql(compile_tree(probe, CompileContext()))
-            names = {d[0].lower() for d in con.execute(sql).description}
-        except Exception:  # the probe is a help, never a failure of its own: fall back to aliases
-            names = None
-        cache[id(select)] = names
-        return names
-
-    return columns
+from uneven.engine.ties import duckdb_tie_counts
 
 
 def probe_select(select: exp.Select, projections: list[exp.Expression], limit: bool = True) -> exp.Select | None:
@@ -54,21 +26,53 @@ def probe_select(select: exp.Select, projections: list[exp.Expression], limit: b
     return probe
 
 
-def duckdb_expression_types(con: duckdb.DuckDBPyConnection):
-    """An ``expression_types`` callback: DESCRIBE of ``SELECT exprs FROM <from> LIMIT 0``; None when
-    the probe cannot run (then the compiled SQL's own CAST decides)."""
+class DuckDBSchema:
+    """The compiler's ``EngineSchema`` on a DuckDB connection, for one compilation (its column
+    answers are cached by SELECT node). ``types`` and ``ties`` turn those probes off for a caller
+    that compiles without them (the structure tables, the report)."""
 
-    def types(select: exp.Select, exprs: list[exp.Expression]) -> list[str] | None:
+    def __init__(self, con: duckdb.DuckDBPyConnection, *, types: bool = True, ties: bool = True):
+        self.con = con
+        self.types = types
+        self.probes_ties = ties
+        self._columns: dict[int, set[str] | None] = {}
+
+    def source_columns(self, select: exp.Select) -> set[str] | None:
+        """Runs ``SELECT * FROM <from> LIMIT 0``; None when it cannot (then aliases are taken)."""
+        if id(select) not in self._columns:
+            self._columns[id(select)] = self._probe_columns(select)
+        return self._columns[id(select)]
+
+    def _probe_columns(self, select: exp.Select) -> set[str] | None:
+        from uneven.compiler.context import CompileContext
+        from uneven.compiler.pipeline import compile_tree
+
+        probe = probe_select(select, [exp.Star()])
+        if probe is None:
+            return set()
+        try:
+            sql = to_sql(compile_tree(probe, CompileContext()))
+            return {d[0].lower() for d in self.con.execute(sql).description}
+        except Exception:  # the probe is a help, never a failure of its own: fall back to aliases
+            return None
+
+    def expression_types(self, select: exp.Select, exprs: list[exp.Expression]) -> list[str] | None:
+        """DESCRIBE of ``SELECT exprs FROM <from> LIMIT 0``; None when the probe cannot run (then the
+        compiled SQL's own CAST decides)."""
+        if not self.types:
+            return None
         if not exprs:
             return []
-        probe = probe_select(select, [exp.alias_(e.copy(), f"_uv_p{i + 1}", quoted=True) for i, e in enumerate(exprs)])
+        projections = [exp.alias_(e.copy(), f"_uv_p{i + 1}", quoted=True) for i, e in enumerate(exprs)]
+        probe = probe_select(select, projections)
         if probe is None:
-            probe = exp.Select(expressions=[exp.alias_(e.copy(), f"_uv_p{i + 1}", quoted=True)
-                                            for i, e in enumerate(exprs)])
+            probe = exp.Select(expressions=[p.copy() for p in projections])
         try:
-            rows = con.execute(exp.Describe(this=probe).sql("duckdb")).fetchall()
+            rows = self.con.execute(exp.Describe(this=probe).sql("duckdb")).fetchall()
         except Exception:  # a help, never a failure of its own
             return None
         return [r[1] for r in rows] if len(rows) == len(exprs) else None
 
-    return types
+    def tie_counts(self, select: exp.Select, x: exp.Expression, condition: exp.Expression | None,
+                   keys: list[exp.Expression]) -> tuple[int, int] | None:
+        return duckdb_tie_counts(self.con, select, x, condition, keys) if self.probes_ties else None

@@ -42,53 +42,46 @@ def is_tie_prone(type_name: str) -> bool:
     return str(type_name).upper().split("(")[0] in _TIE_PRONE
 
 
-def duckdb_tie_probe(con: duckdb.DuckDBPyConnection):
-    """A ``tie_probe`` callback for the planner: (distinct (keys, x) pairs, rows) or None."""
-
-    def probe(select: exp.Select, x: exp.Expression, condition, keys) -> tuple[int, int] | None:
-        if select.args.get("from_") is None:
+def duckdb_tie_counts(con: duckdb.DuckDBPyConnection, select: exp.Select, x: exp.Expression, condition,
+                      keys) -> tuple[int, int] | None:
+    """(distinct (keys, x) pairs, rows) of an ordered pass's value, or None (engine/columns.DuckDBSchema)."""
+    if select.args.get("from_") is None:
+        return None
+    try:
+        typed = _over_source(select, [s.alias(x.copy(), "v")])
+        typed.set("limit", exp.Limit(expression=exp.Literal.number(0)))
+        kind = con.execute(to_sql(typed)).description[0][1]
+        if not is_tie_prone(kind):
             return None
-        try:
-            typed = _over_source(select, [s.alias(x.copy(), "v")])
-            typed.set("limit", exp.Limit(expression=exp.Literal.number(0)))
-            kind = con.execute(to_sql(typed)).description[0][1]
-            if not is_tie_prone(kind):
-                return None
-            cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
-            pairs = exp.ApproxDistinct(this=exp.Anonymous(this="hash", expressions=[k.copy() for k in keys] + [x.copy()]))
-            counted = _over_source(select, [s.agg_count_star(), pairs], cond)
-            rows, distinct = con.execute(to_sql(counted)).fetchone()
-        except Exception:  # noqa: BLE001  the probe never fails a query: keep the plain plan
-            return None
-        return int(distinct or 0), int(rows or 0)
-
-    return probe
+        cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
+        pairs = exp.ApproxDistinct(this=exp.Anonymous(this="hash", expressions=[k.copy() for k in keys] + [x.copy()]))
+        counted = _over_source(select, [s.agg_count_star(), pairs], cond)
+        rows, distinct = con.execute(to_sql(counted)).fetchone()
+    except Exception:  # noqa: BLE001  the probe never fails a query: keep the plain plan
+        return None
+    return int(distinct or 0), int(rows or 0)
 
 
-def adapter_tie_probe(adapter):
+def adapter_tie_counts(adapter, select: exp.Select, x: exp.Expression, condition, keys) -> tuple[int, int] | None:
     """The same probe for ``query(con=…)`` on another engine (engine/adapters): the value's type from the
     adapter's type probe, then ``SELECT count(*), sum(n) FROM (SELECT count(*) AS n … GROUP BY keys, x)``,
     an exact count of the distinct (keys, value) pairs in SQL every engine runs (PostgreSQL and SQLite
     have no approximate distinct count). SQLite keeps no column types, so there the count always runs
     (an in-process database: one GROUP BY). A probe that fails answers None, as on DuckDB."""
-
-    def probe(select: exp.Select, x: exp.Expression, condition, keys) -> tuple[int, int] | None:
-        if select.args.get("from_") is None:
-            return None
-        try:
-            if adapter.dialect != "sqlite":
-                types = adapter.argument_types(select, [x])
-                if not types or not is_tie_prone(types[0]):
-                    return None
-            cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
-            pairs = _over_source(select, [exp.alias_(s.agg_count_star(), "_uv_n", quoted=True)], cond)
-            pairs.set("group", exp.Group(expressions=[k.copy() for k in keys] + [x.copy()]))
-            counted = exp.select(s.agg_count_star(), exp.Sum(this=exp.column("_uv_n", quoted=True))).from_(
-                exp.Subquery(this=pairs, alias=exp.TableAlias(this=exp.to_identifier("_uv_t"))))
-            _, rows, _ = adapter.fetch(adapter.compile_probe(counted))
-            distinct, total = rows[0]
-        except Exception:  # noqa: BLE001  the probe never fails a query: keep the plain plan
-            return None
-        return int(distinct or 0), int(total or 0)
-
-    return probe
+    if select.args.get("from_") is None:
+        return None
+    try:
+        if adapter.dialect != "sqlite":
+            types = adapter.argument_types(select, [x])
+            if not types or not is_tie_prone(types[0]):
+                return None
+        cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
+        pairs = _over_source(select, [exp.alias_(s.agg_count_star(), "_uv_n", quoted=True)], cond)
+        pairs.set("group", exp.Group(expressions=[k.copy() for k in keys] + [x.copy()]))
+        counted = exp.select(s.agg_count_star(), exp.Sum(this=exp.column("_uv_n", quoted=True))).from_(
+            exp.Subquery(this=pairs, alias=exp.TableAlias(this=exp.to_identifier("_uv_t"))))
+        _, rows, _ = adapter.fetch(adapter.compile_probe(counted))
+        distinct, total = rows[0]
+    except Exception:  # noqa: BLE001  the probe never fails a query: keep the plain plan
+        return None
+    return int(distinct or 0), int(total or 0)

@@ -10,9 +10,10 @@ import pandas as pd
 from sqlglot import exp
 
 from uneven.compiler import compile_sql
+from uneven.compiler.context import CompileOptions
 from uneven.compiler.emit import to_sql
 from uneven.engine.adapters import Adapter, adapt, is_duckdb
-from uneven.engine.columns import duckdb_source_columns
+from uneven.engine.columns import DuckDBSchema
 from uneven.engine.runner import connect, execute_df
 from uneven.errors import UnevenError
 from uneven.report.source import Source, resolve_source
@@ -43,9 +44,8 @@ def alias(e: exp.Expression, name: str) -> exp.Alias:
 def run_tree(con: duckdb.DuckDBPyConnection, tree: exp.Expression) -> pd.DataFrame:
     """Compile a tree with measure calls and run it on ``con`` (DuckDB, or an engine adapter)."""
     if isinstance(con, Adapter):
-        return con.execute(compile_sql(to_sql(tree), dialect=con.dialect, pretty=False,
-                                       source_columns=con.source_columns(), expression_types=con.expression_types()))
-    compiled = compile_sql(to_sql(tree), pretty=False, source_columns=duckdb_source_columns(con))
+        return con.execute(compile_sql(to_sql(tree), CompileOptions(dialect=con.dialect, pretty=False), con.schema()))
+    compiled = compile_sql(to_sql(tree), CompileOptions(pretty=False), DuckDBSchema(con, types=False, ties=False))
     return execute_df(con, compiled)
 
 

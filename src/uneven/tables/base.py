@@ -20,11 +20,13 @@ import sqlglot
 from sqlglot import exp
 
 from uneven.compiler import compile_sql
+from uneven.compiler.context import CompileOptions
 from uneven.compiler.emit import to_sql
-from uneven.engine.columns import duckdb_source_columns
-from uneven.engine.frames import register_caller_frames
-from uneven.engine.runner import connect, execute_df
-from uneven.errors import MeasureArgumentError, SqlParseError
+from uneven.engine.adapters import Adapter
+from uneven.engine.columns import DuckDBSchema
+from uneven.engine.runner import execute_df
+from uneven.engine.session import session as engine_session
+from uneven.errors import MeasureArgumentError, SqlParseError, UnevenError
 from uneven.sqltree import build as s
 
 
@@ -94,23 +96,18 @@ class Spec:
 def session(spec: Spec, con, frame):
     """A connection for one table's queries (``con`` or a new in-memory one) that also sees the data
     frames the caller holds under the relation's name; yields ``run(select) -> DataFrame``."""
-    connection = connect(con)
     probe = exp.Select(expressions=[exp.Star()])
     probe.set("from_", spec.source.copy())
-    registered = register_caller_frames(connection, to_sql(probe), frame)
+    with engine_session(con, to_sql(probe), frame) as connection:
+        if isinstance(connection, Adapter):
+            raise UnevenError(f"the table functions run on DuckDB; {connection.label} connections are not supported")
 
-    def run(sel: exp.Select) -> pd.DataFrame:
-        compiled = compile_sql(to_sql(sel), dialect="duckdb", pretty=False,
-                               source_columns=duckdb_source_columns(connection))
-        return execute_df(connection, compiled)
+        def run(sel: exp.Select) -> pd.DataFrame:
+            compiled = compile_sql(to_sql(sel), CompileOptions(pretty=False),
+                                   DuckDBSchema(connection, types=False, ties=False))
+            return execute_df(connection, compiled)
 
-    try:
         yield run
-    finally:
-        for name in registered:
-            connection.unregister(name)
-        if con is None:
-            connection.close()
 
 
 def group_labels(by) -> list[str]:

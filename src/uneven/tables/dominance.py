@@ -30,8 +30,10 @@ from statistics import NormalDist
 import pandas as pd
 from sqlglot import exp
 
+from uneven.compiler.context import CompileOptions
 from uneven.compiler.emit import to_sql
-from uneven.engine.adapters import adapt, is_duckdb
+from uneven.engine.adapters import is_duckdb
+from uneven.engine.session import session as engine_session
 from uneven.errors import MeasureArgumentError
 from uneven.sqltree import build as s
 from uneven.tables.base import Spec, parse_expression, session
@@ -126,8 +128,10 @@ def lorenz_dominance(relation: str, x: str, group: str, groups, *, weight: str |
             res = run(sel)
     else:  # PostgreSQL, Spark, SQLite (engine/adapters): the ordinates and SEs compiled for that engine
         from uneven.api import run_on
-        res = run_on(adapt(con), to_sql(sel), caller, strict=False, tie_grouping="auto", method="exact",
-                     resolution=None, tolerance=None, read="duckdb")
+        text_sql = to_sql(sel)
+        with engine_session(con, text_sql, caller) as adapter:
+            res = run_on(adapter, text_sql, CompileOptions(strict=False, tie_grouping="auto", method="exact"),
+                         None, None)
     side = {str(v): i for i, v in enumerate(levels)}
     found = {side.get(str(v)): r for v, (_, r) in zip(res["_uv_grp"], res.iterrows())}
     missing = [levels[i] for i in (0, 1) if i not in found]

@@ -25,6 +25,7 @@ import math
 
 from sqlglot import exp
 
+from uneven.catalog.spec import PassKind
 from uneven.compiler.passes.line import window_ctes
 from uneven.compiler.passes.linearized import critical_value
 from uneven.compiler.passes.rows import RowContext, window_columns
@@ -69,23 +70,41 @@ def replicate_numbers(R: int) -> exp.Expression:
 
 
 def lower_bootstrap_pass(source: Source, main, plan, name: str) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:
+    """CTEs of one bootstrap pass: the rows, their draws per replicate, every call's estimate per
+    (group, replicate), then the spread of the replicates' estimates per group."""
     settings = plan.calls[0].settings
-    R, seed = settings["replicates"], settings["seed"]
-    weighted = plan.trailing is not None
     ctx = ReplicateContext(name)
-    built = []  # distinct calls and their estimate over one (group, replicate) partition
-    seen = set()
+    built = _distinct_builds(plan, ctx)
+    unit = settings.get("psu") if settings.get("psu") is not None else settings.get("key")
+    rows = _rows_cte(source, plan, unit, name)
+    keys = source.key_columns()
+    ctes = [rows] + _draw_ctes(keys, plan.trailing is not None, unit, settings, name)
+    ctes += _replicate_ctes(ctx, built, keys, name)
+    ctes += _spread_ctes(keys, len(built), name)
+    out_cols, results = [], {}
+    for i, (call, _) in enumerate(built, start=1):
+        out_cols.append(s.alias(_result(call, i), f"_uv_r{i}"))
+        results[call.key] = s.col(f"_uv_r{i}", name)
+    ctes.append(cte(grouped(keys, out_cols, f"{name}_rank"), name))
+    return ctes, results
+
+
+def _distinct_builds(plan, ctx: ReplicateContext) -> list[tuple]:
+    """Distinct calls and their estimate over one (group, replicate) partition."""
+    built, seen = [], set()
     for call in plan.calls:
         if call.key in seen:
             continue
         seen.add(call.key)
         built.append((call, call.measure.build(ctx, call.params)))
+    return built
 
-    # rows: keys, x, w and the resampling unit
+
+def _rows_cte(source: Source, plan, unit, name: str) -> exp.CTE:
+    """Rows: keys, x, w and the resampling unit."""
     x, w, condition = plan.x, plan.trailing, plan.condition
     columns, cond = value_weight_rows(x, w, condition, weight_name="_uv_w0")
     proj = source.key_projections() + columns
-    unit = settings.get("psu") if settings.get("psu") is not None else settings.get("key")
     if unit is not None:
         proj.append(s.alias(unit.copy(), "_uv_b"))
     else:
@@ -95,60 +114,62 @@ def lower_bootstrap_pass(source: Source, main, plan, name: str) -> tuple[list[ex
         # without one
         part = [k.copy() for k in source.keys] + [x.copy()] + ([w.copy()] if w is not None else [])
         proj.append(s.alias(s.window(exp.RowNumber(), part, [x.copy()]), "_uv_dup"))
-    ctes = [cte(source.rows(proj, cond), f"{name}_rows")]
-    keys = source.key_columns()
+    return cte(source.rows(proj, cond), f"{name}_rows")
+
+
+def _draw_ctes(keys, weighted: bool, unit, settings: dict, name: str) -> list[exp.CTE]:
+    """Long form: one row per (row, replicate) — the replicate number is a row dimension, so the SQL
+    does not grow with R — with its multiplier m (replicate 0: the full sample, m = 1); then the
+    rows drawn at least once."""
     w0 = s.col("_uv_w0") if weighted else s.lit(1.0)
     if unit is not None:
-        unit_key = s.col("_uv_b")
+        drawn = [s.col("_uv_b")]
     else:
-        unit_key = s.col("_uv_dup")
-        unit_parts = [s.col("_uv_x")] + ([s.col("_uv_w0")] if weighted else []) + [k.copy() for k in keys]
-    # long form: one row per (row, replicate) — the replicate number is a row dimension, so the SQL
-    # does not grow with R — with its multiplier m (replicate 0: the full sample, m = 1)
+        drawn = ([s.col("_uv_x")] + ([s.col("_uv_w0")] if weighted else []) + [k.copy() for k in keys]
+                 + [s.col("_uv_dup")])
     rr = s.col("_uv_r")
-    u = uniform([unit_key] if unit is not None else unit_parts + [unit_key], rr, seed)
+    u = uniform(drawn, rr, settings["seed"])
     m = s.case(exp.EQ(this=rr.copy(), expression=exp.Literal.number(0)), s.lit(1.0), poisson_draw(u))
     base = keys + [s.col("_uv_x")]
     draw = exp.Select(expressions=[k.copy() for k in base] + [rr.copy(), s.alias(s.mul(w0, m), "_uv_w")])
     draw = draw.from_(table(f"{name}_rows"), copy=False)
-    draw.append("joins", exp.Join(this=replicate_numbers(R), kind="CROSS"))
-    ctes.append(cte(draw, f"{name}_draw"))
-    # rows drawn at least once, sorted by (keys, replicate, x): ONE window specification
-    part_keys = keys + [rr.copy()]
+    draw.append("joins", exp.Join(this=replicate_numbers(settings["replicates"]), kind="CROSS"))
     kept = exp.Select(expressions=[exp.Star()]).from_(table(f"{name}_draw"), copy=False).where(
         s.gt(s.col("_uv_w"), s.lit(0.0)), copy=False)
-    ctes.append(cte(kept, f"{name}_kept"))
+    return [cte(draw, f"{name}_draw"), cte(kept, f"{name}_kept")]
+
+
+def _replicate_ctes(ctx: ReplicateContext, built: list[tuple], keys, name: str) -> list[exp.CTE]:
+    """Rows drawn at least once, sorted by (keys, replicate, x) in ONE window specification, then one
+    row per (group, replicate) with every call's estimate."""
+    part_keys = keys + [s.col("_uv_r")]
     win = exp.Select(expressions=[k.copy() for k in part_keys] + [s.col("_uv_x"), s.col("_uv_w")]
                      + window_columns(ctx, part_keys)).from_(table(f"{name}_kept"), copy=False)
-    ctes += window_ctes(win, ctx, part_keys, name)  # + the relative poverty line's layers (line.py)
-    # one row per (group, replicate): every call's estimate
+    ctes = window_ctes(win, ctx, part_keys, name)  # + the relative poverty line's layers (line.py)
     # (grouped() projects the keys, the replicate number among them, before these)
     est_cols = [s.alias(theta, f"_uv_v{i}") for i, (_, theta) in enumerate(built, start=1)]
     ctes.append(cte(grouped(part_keys, est_cols, f"{name}_win"), f"{name}_boot"))
+    return ctes
 
-    # the full-sample estimate beside every replicate's (a window over the small table)
+
+def _spread_ctes(keys, n: int, name: str) -> list[exp.CTE]:
+    """The full-sample estimate beside every replicate's (a window over the small table), then each
+    replicate estimate's rank, count and mean within its group."""
+    rr = s.col("_uv_r")
     long_cols = [k.copy() for k in keys] + [rr.copy()]
-    for i in range(1, len(built) + 1):
+    for i in range(1, n + 1):
         full = s.agg_max(s.case(exp.EQ(this=rr.copy(), expression=exp.Literal.number(0)), s.col(f"_uv_v{i}")))
         long_cols += [s.alias(s.window(full, [k.copy() for k in keys]), f"_uv_e{i}"), s.col(f"_uv_v{i}")]
-    ctes.append(cte(exp.Select(expressions=long_cols).from_(table(f"{name}_boot"), copy=False), f"{name}_long"))
-
-    rank_cols = [k.copy() for k in keys] + [s.col(f"_uv_{c}{i}") for i in range(1, len(built) + 1) for c in "ev"]
-    for i in range(1, len(built) + 1):
+    long = exp.Select(expressions=long_cols).from_(table(f"{name}_boot"), copy=False)
+    rank_cols = [k.copy() for k in keys] + [s.col(f"_uv_{c}{i}") for i in range(1, n + 1) for c in "ev"]
+    for i in range(1, n + 1):
         v = s.col(f"_uv_v{i}")
         rank_cols += [s.alias(s.window(exp.RowNumber(), [k.copy() for k in keys], [v.copy()]), f"_uv_rk{i}"),
                       s.alias(s.window(exp.Count(this=v.copy()), [k.copy() for k in keys]), f"_uv_nv{i}"),
                       s.alias(s.window(exp.Avg(this=v.copy()), [k.copy() for k in keys]), f"_uv_av{i}")]
     replicas = exp.Select(expressions=rank_cols).from_(table(f"{name}_long"), copy=False).where(
         s.gt(rr.copy(), exp.Literal.number(0)), copy=False)
-    ctes.append(cte(replicas, f"{name}_rank"))
-
-    out_cols, results = [], {}
-    for i, (call, _) in enumerate(built, start=1):
-        out_cols.append(s.alias(_result(call, i), f"_uv_r{i}"))
-        results[call.key] = s.col(f"_uv_r{i}", name)
-    ctes.append(cte(grouped(keys, out_cols, f"{name}_rank"), name))
-    return ctes, results
+    return [cte(long, f"{name}_long"), cte(replicas, f"{name}_rank")]
 
 
 def _result(call, i: int) -> exp.Expression:
@@ -167,3 +188,12 @@ def _result(call, i: int) -> exp.Expression:
     reached = s.and_(s.not_null(v.copy()), s.gte(s.cast_double(s.col(f"_uv_rk{i}")),
                                                  s.mul(s.lit(q), s.cast_double(s.col(f"_uv_nv{i}")))))
     return s.agg_min(s.case(reached, v.copy()))
+
+
+# the registry's entry (passes/registry.py)
+KIND = PassKind.BOOTSTRAP
+PREFIX = "bs"
+
+
+def lower(source: Source, main, plan, name: str | None, settings) -> tuple[list[exp.CTE], dict]:
+    return lower_bootstrap_pass(source, main, plan, name)

@@ -19,6 +19,7 @@ from __future__ import annotations
 from sqlglot import exp
 
 from uneven.catalog.moment import ADAPTIVE_ACCURACY
+from uneven.catalog.spec import PassKind
 from uneven.compiler.passes.moment import MainAggregate, MomentContext
 from uneven.compiler.passes.source import Source, cte, join_on_keys, key_name, table
 from uneven.sqltree import build as s
@@ -126,3 +127,12 @@ def _needs_centring(value: exp.Expression, bound: exp.Expression) -> exp.Express
     ok = s.and_(finite(value), finite(bound),
                 exp.LTE(this=bound.copy(), expression=s.mul(s.lit(ADAPTIVE_ACCURACY), s.absval(value.copy()))))
     return exp.Coalesce(this=exp.Not(this=exp.Paren(this=ok)), expressions=[exp.false()])
+
+
+# the registry's entry (passes/registry.py)
+KIND = PassKind.CENTRED
+PREFIX = "cen"
+
+
+def lower(source: Source, main, plan, name: str | None, settings) -> tuple[list[exp.CTE], dict]:
+    return lower_centred_pass(source, main, plan, name)

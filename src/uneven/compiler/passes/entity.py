@@ -9,6 +9,7 @@ from __future__ import annotations
 
 from sqlglot import exp
 
+from uneven.catalog.spec import PassKind
 from uneven.compiler.passes.source import Source, build_results, cte, grouped, table, valid_value
 from uneven.sqltree import build as s
 
@@ -52,3 +53,12 @@ def lower_entity_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
     final = grouped(keys, out_cols, below)
     ctes.append(cte(final, name))
     return ctes, results
+
+
+# the registry's entry (passes/registry.py)
+KIND = PassKind.ENTITY
+PREFIX = "ent"
+
+
+def lower(source: Source, main, plan, name: str | None, settings) -> tuple[list[exp.CTE], dict]:
+    return lower_entity_pass(source, main, plan, name)

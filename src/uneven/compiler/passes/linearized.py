@@ -29,6 +29,7 @@ from statistics import NormalDist
 from sqlglot import exp
 
 from uneven.catalog.linearize import Lin
+from uneven.catalog.spec import PassKind
 from uneven.compiler.passes.rows import Aggregates, RowContext, lower_rows
 from uneven.compiler.passes.source import Source, cte, grouped, table
 from uneven.sqltree import build as s
@@ -115,6 +116,20 @@ def lower_linearized_pass(source: Source, main, plan, name: str) -> tuple[list[e
     ctx.row_mean = True  # log and power measures and their scores in r = x/μ (catalog/linearize.py)
     strata, psu = plan.options.get("strata"), plan.options.get("psu")
     aggs, terms = Aggregates(), Terms()
+    specs = _call_specs(plan, ctx, terms)
+    ctes = lower_rows(source, plan, name, ctx, _design_columns(strata, psu))
+    keys = source.key_columns()
+    row_terms = {terms.index(t): t for _, t in terms.items.values()}
+    equal, lifted = _lift_estimates(specs, ctx, aggs, row_terms, design=(strata, psu))
+    ctes.append(_terms_cte(row_terms, name))
+    level_ctes, K, enough = _variance_levels(terms, row_terms, aggs, keys, name, design=(strata, psu))
+    ctes += level_ctes
+    named, variances, columns, results = _result_columns(lifted, equal, K, enough, name)
+    return ctes + _output_ctes(named, variances, columns, keys, name), results
+
+
+def _call_specs(plan, ctx: RowContext, terms: Terms) -> list[tuple]:
+    """(call, its linearization, its output role, its coefficient vector) for every call of the pass."""
     specs = []
     for call in plan.calls:
         if call.measure.pass_for(plan.trailing is not None) == "linearized":
@@ -123,19 +138,26 @@ def lower_linearized_pass(source: Source, main, plan, name: str) -> tuple[list[e
         else:  # a plain measure on the same rows (see plan.share_passes): its estimate only
             lin, role, coefs = Lin(call.measure.build(ctx, call.params)), None, None
         specs.append((call, lin, role, coefs))
+    return specs
 
+
+def _design_columns(strata, psu) -> dict[str, exp.Expression]:
+    """The design's row columns: the stratum and the primary sampling unit, where given."""
     extra = {}
     if strata is not None:
         extra["_uv_h"] = strata
     if psu is not None:
         extra["_uv_psu"] = psu
-    ctes = lower_rows(source, plan, name, ctx, extra)
-    keys = source.key_columns()
-    row_terms = {terms.index(t): t for _, t in terms.items.values()}
+    return extra
 
-    # estimates and coefficients read the group's aggregates: lift them into columns first. The
-    # group CTE's own sums of the row terms (over rows, or over PSUs without strata) and its row
-    # count (without a design) serve the estimates too (e.g. Σ w, Σ w·x and the Gini's rank term)
+
+def _lift_estimates(specs, ctx: RowContext, aggs: Aggregates, row_terms: dict, design: tuple) -> tuple:
+    """(the every-value-equal flag, each call with its estimate and coefficients lifted to columns).
+
+    Estimates and coefficients read the group's aggregates: lift them into columns first. The group
+    CTE's own sums of the row terms (over rows, or over PSUs without strata) and its row count
+    (without a design) serve the estimates too (e.g. Σ w, Σ w·x and the Gini's rank term)."""
+    strata, psu = design
     if strata is None:
         for j, t in row_terms.items():
             aggs.reuse(s.agg_sum(t), _sum_name(j))
@@ -149,11 +171,21 @@ def lower_linearized_pass(source: Source, main, plan, name: str) -> tuple[list[e
     for call, lin, role, coefs in specs:
         est = aggs.lift(lin.estimate)
         lifted.append((call, est, role, {j: aggs.lift(c) for j, c in coefs.items()} if coefs is not None else None))
+    return equal, lifted
 
-    # the row terms once per row (_terms), so the sums and cross sums read columns
+
+def _terms_cte(row_terms: dict, name: str) -> exp.CTE:
+    """The row terms once per row (_terms), so the sums and cross sums read columns."""
     term_cols = [s.alias(t.copy(), f"_uv_t{j}") for j, t in row_terms.items()]
-    ctes.append(cte(exp.Select(expressions=[exp.Star()] + term_cols).from_(table(f"{name}_win"), copy=False),
-                    f"{name}_terms"))
+    return cte(exp.Select(expressions=[exp.Star()] + term_cols).from_(table(f"{name}_win"), copy=False),
+               f"{name}_terms")
+
+
+def _variance_levels(terms: Terms, row_terms: dict, aggs: Aggregates, keys, name: str, design: tuple) -> tuple:
+    """The CTEs from the rows (or PSUs, or strata) up to one row per group (_agg), K(j, k) the
+    between-unit covariance of terms j and k there, and the condition of enough units for a variance."""
+    strata, psu = design
+    ctes = []
     row_cols = {j: s.col(f"_uv_t{j}") for j in row_terms}
     strata_keys = [s.col("_uv_h")] if strata is not None else []
     if psu is not None:
@@ -169,17 +201,15 @@ def lower_linearized_pass(source: Source, main, plan, name: str) -> tuple[list[e
         k_cols = [s.alias(s.agg_sum(_k_between(j, k, s.col("_uv_nu"))), f"_uv_K{j}_{k}") for j, k in terms.pairs]
         fewest = [s.alias(s.agg_min(s.col("_uv_nu")), "_uv_fewest")]
         ctes.append(cte(grouped(keys, k_cols + fewest + aggs.combined(), f"{name}_str"), f"{name}_agg"))
-        K = lambda j, k: s.col(f"_uv_K{j}_{k}")  # noqa: E731
-        enough = s.gt(s.col("_uv_fewest"), s.lit(1))
-    else:
-        ctes.append(cte(grouped(keys, _stats(terms, unit_cols) + level_aggs(), below), f"{name}_agg"))
-        K = lambda j, k: _k_between(j, k, s.col("_uv_nu"))  # noqa: E731
-        enough = s.gt(s.col("_uv_nu"), s.lit(1))
+        return ctes, (lambda j, k: s.col(f"_uv_K{j}_{k}")), s.gt(s.col("_uv_fewest"), s.lit(1))
+    ctes.append(cte(grouped(keys, _stats(terms, unit_cols) + level_aggs(), below), f"{name}_agg"))
+    return ctes, (lambda j, k: _k_between(j, k, s.col("_uv_nu"))), s.gt(s.col("_uv_nu"), s.lit(1))
 
-    # estimates and coefficients once per group (_coef), then the variance forms over them
-    # estimates and coefficients once per group (_coef), the variances over them (_var), then the
-    # standard errors: NULL where the variance is (no density at a quantile: a NULL coefficient),
-    # exactly 0 where the values are equal, a rounding below 0 counted as 0
+
+def _result_columns(lifted, equal, K, enough, name: str) -> tuple:
+    """Estimates and coefficients once per group (_coef), the variances over them (_var), then the
+    standard errors: NULL where the variance is (no density at a quantile: a NULL coefficient),
+    exactly 0 where the values are equal, a rounding below 0 counted as 0."""
     named, variances, columns, results = [], [], [], {}
     for i, (call, est, role, coefs) in enumerate(lifted, start=1):
         named.append(s.alias(est, f"_uv_e{i}"))
@@ -191,23 +221,29 @@ def lower_linearized_pass(source: Source, main, plan, name: str) -> tuple[list[e
             value = output(role, e, exp.Cast(this=exp.Null(), to=s.DOUBLE.copy()), 0.95)
         else:
             variances.append(s.alias(variance({j: s.col(f"_uv_c{i}_{j}") for j in coefs}, K), f"_uv_v{i}"))
-            v = s.col(f"_uv_v{i}")
-            zero = s.or_(s.paren(equal.copy()), s.lt(v.copy(), s.lit(0.0)))
-            se = s.case(s.and_(s.not_null(e.copy()), enough.copy(), s.not_null(v.copy())),
-                        s.case(zero, s.lit(0.0), s.sqrt(v)))
-            value = output(role, e.copy(), se, call.settings.get("level", 0.95))
+            value = output(role, e.copy(), _standard_error(e, s.col(f"_uv_v{i}"), equal, enough),
+                           call.settings.get("level", 0.95))
         col = f"_uv_r{len(columns) + 1}"
         columns.append(s.alias(value, col))
         results[call.key] = s.col(col, name)
+    return named, variances, columns, results
+
+
+def _standard_error(e: exp.Expression, v: exp.Expression, equal, enough) -> exp.Expression:
+    zero = s.or_(s.paren(equal.copy()), s.lt(v.copy(), s.lit(0.0)))
+    return s.case(s.and_(s.not_null(e.copy()), enough.copy(), s.not_null(v.copy())), s.case(zero, s.lit(0.0), s.sqrt(v)))
+
+
+def _output_ctes(named, variances, columns, keys, name: str) -> list[exp.CTE]:
     coef = exp.Select(expressions=[exp.Star()] + named).from_(table(f"{name}_agg"), copy=False)
-    ctes.append(cte(coef, f"{name}_coef"))
+    ctes = [cte(coef, f"{name}_coef")]
     below = f"{name}_coef"
     if variances:
         ctes.append(cte(exp.Select(expressions=[exp.Star()] + variances).from_(table(below), copy=False), f"{name}_var"))
         below = f"{name}_var"
     final = exp.Select(expressions=[k.copy() for k in keys] + columns).from_(table(below), copy=False)
     ctes.append(cte(final, name))
-    return ctes, results
+    return ctes
 
 
 def can_share(call) -> bool:
@@ -218,3 +254,12 @@ def can_share(call) -> bool:
 
 SHARED = {"gini", "gini_corrected", "lorenz", "generalized_lorenz", "bottom_share", "top_share", "palma",
           "s80s20", "quantile_w", "percentile_ratio", "theil", "mld", "ge", "atkinson"}
+
+
+# the registry's entry (passes/registry.py)
+KIND = PassKind.LINEARIZED
+PREFIX = "lin"
+
+
+def lower(source: Source, main, plan, name: str | None, settings) -> tuple[list[exp.CTE], dict]:
+    return lower_linearized_pass(source, main, plan, name)

@@ -16,6 +16,7 @@ from __future__ import annotations
 
 from sqlglot import exp
 
+from uneven.catalog.spec import PassKind
 from uneven.compiler.passes.source import Source, finite_or_null, not_finite, row_error, weight_label
 from uneven.sqltree import build as s
 
@@ -144,3 +145,12 @@ def lower_moment_pass(source: Source, main: MainAggregate, plan, name: str | Non
     """No CTE of its own: register the pass's sums on the main aggregate; return each call's result."""
     ctx = MomentContext(main, plan.x, plan.trailing, plan.condition)
     return [], {call.key: ctx.checked(call.measure.build(ctx, call.params)) for call in plan.calls}
+
+
+# the registry's entry (passes/registry.py)
+KIND = PassKind.MOMENT
+PREFIX = None  # no CTE of its own: the sums ride on the main aggregate
+
+
+def lower(source: Source, main, plan, name: str | None, settings) -> tuple[list[exp.CTE], dict]:
+    return lower_moment_pass(source, main, plan, name)

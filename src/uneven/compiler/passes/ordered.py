@@ -14,6 +14,7 @@ from __future__ import annotations
 
 from sqlglot import exp
 
+from uneven.catalog.spec import PassKind
 from uneven.compiler.passes.columns import SortedColumns
 from uneven.compiler.passes.grid import grid_table, lower_lorenz_grid
 from uneven.compiler.passes.line import window_ctes
@@ -175,4 +176,13 @@ def lower_ordered_pass(source: Source, main, plan, name: str) -> tuple[list[exp.
     return ctes, results
 
 
-__all__ = ["lower_ordered_pass", "OrderedContext", "key_name"]
+# the registry's entry (passes/registry.py)
+KIND = PassKind.ORDERED
+PREFIX = "ord"
+
+
+def lower(source: Source, main, plan, name: str | None, settings) -> tuple[list[exp.CTE], dict]:
+    return lower_ordered_pass(source, main, plan, name)
+
+
+__all__ = ["KIND", "PREFIX", "lower", "lower_ordered_pass", "OrderedContext", "key_name"]

@@ -15,6 +15,7 @@ from __future__ import annotations
 
 from sqlglot import exp
 
+from uneven.catalog.spec import PassKind
 from uneven.compiler.passes.source import Source, build_results, checked_weight, cte, grouped, table, weight_label
 from uneven.sqltree import build as s
 
@@ -105,3 +106,12 @@ def lower_paired_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
     ctes = [cte(rows, f"{name}_rows"), cte(win, f"{name}_win"), cte(lin, f"{name}_lin"),
             cte(lin_u, f"{name}_u"), cte(grouped(keys, out_cols, f"{name}_u"), name)]
     return ctes, results
+
+
+# the registry's entry (passes/registry.py)
+KIND = PassKind.PAIRED
+PREFIX = "pair"
+
+
+def lower(source: Source, main, plan, name: str | None, settings) -> tuple[list[exp.CTE], dict]:
+    return lower_paired_pass(source, main, plan, name)

@@ -15,6 +15,7 @@ from __future__ import annotations
 
 from sqlglot import exp
 
+from uneven.catalog.spec import PassKind
 from uneven.compiler.passes.source import Source, build_results, checked_weight, cte, grouped, table, weight_label
 from uneven.sqltree import build as s
 
@@ -103,3 +104,12 @@ def lower_ranked_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
                      + [s.alias(running, "_uv_c")]).from_(table(f"{name}_rows"), copy=False)
     ctes = [cte(ties, f"{name}_rows"), cte(win, f"{name}_win"), cte(grouped(keys, out_cols, f"{name}_win"), name)]
     return ctes, results
+
+
+# the registry's entry (passes/registry.py)
+KIND = PassKind.RANKED
+PREFIX = "rnk"
+
+
+def lower(source: Source, main, plan, name: str | None, settings) -> tuple[list[exp.CTE], dict]:
+    return lower_ranked_pass(source, main, plan, name)

@@ -28,6 +28,7 @@ from dataclasses import dataclass
 
 from sqlglot import exp
 
+from uneven.catalog.spec import PassKind
 from uneven.compiler.passes.source import (
     Source,
     checked_value,
@@ -327,4 +328,13 @@ def lower_refine_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
     return ctes, results
 
 
-__all__ = ["lower_refine_pass", "refinable", "RefineContext", "bin_key", "BUILDS"]
+# the registry's entry (passes/registry.py)
+KIND = PassKind.REFINE
+PREFIX = "ref"
+
+
+def lower(source: Source, main, plan, name: str | None, settings) -> tuple[list[exp.CTE], dict]:
+    return lower_refine_pass(source, main, plan, name)
+
+
+__all__ = ["KIND", "PREFIX", "lower", "lower_refine_pass", "refinable", "RefineContext", "bin_key", "BUILDS"]

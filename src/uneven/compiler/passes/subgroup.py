@@ -10,6 +10,7 @@ from __future__ import annotations
 
 from sqlglot import exp
 
+from uneven.catalog.spec import PassKind
 from uneven.compiler.passes.columns import RowColumns
 from uneven.compiler.passes.source import Source, build_results, checked_weight, cte, grouped, weight_label
 from uneven.sqltree import build as s
@@ -77,3 +78,12 @@ def lower_subgroup_pass(source: Source, main, plan, name: str) -> tuple[list[exp
     sub.set("group", exp.Group(expressions=source.key_columns() + [s.col("_uv_g")]))
     keys = source.key_columns()
     return [cte(sub, f"{name}_rows"), cte(grouped(keys, out_cols, f"{name}_rows"), name)], results
+
+
+# the registry's entry (passes/registry.py)
+KIND = PassKind.SUBGROUP
+PREFIX = "sub"
+
+
+def lower(source: Source, main, plan, name: str | None, settings) -> tuple[list[exp.CTE], dict]:
+    return lower_subgroup_pass(source, main, plan, name)

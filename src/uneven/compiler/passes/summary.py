@@ -15,6 +15,7 @@ from sqlglot import exp
 from uneven.bounds import bins as b
 from uneven.bounds.lower import lower_bounds
 from uneven.bounds.measures import powers_needed
+from uneven.catalog.spec import PassKind
 from uneven.compiler.passes.source import Source, cte, table, value_weight_rows
 from uneven.sqltree import build as s
 
@@ -45,3 +46,12 @@ def lower_summary_pass(source: Source, main, plan, name: str, resolution: float 
         results[(key, "lo")] = s.col(lo, name)
         results[(key, "hi")] = s.col(hi, name)
     return [cte(rows, f"{name}_rows"), cte(bins, f"{name}_bins")] + more, results
+
+
+# the registry's entry (passes/registry.py)
+KIND = PassKind.SUMMARY
+PREFIX = "sum"
+
+
+def lower(source: Source, main, plan, name: str | None, settings) -> tuple[list[exp.CTE], dict]:
+    return lower_summary_pass(source, main, plan, name, settings.resolution)

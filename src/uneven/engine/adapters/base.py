@@ -11,8 +11,8 @@ An :class:`Adapter` wraps a connection the caller owns (or one opened from a URL
   temporary table for one run,
 - ``plan(sql)``: the engine's own plan text, and ``close()``.
 
-The compiler's probes (the columns a FROM provides, the types of measure arguments) are built
-here over ``describe``, so every engine answers them the same way.
+The compiler's probes (the columns a FROM provides, the types of measure arguments: ``schema()``,
+an ``AdapterSchema``) are built here over ``describe``, so every engine answers them the same way.
 """
 
 from __future__ import annotations
@@ -109,39 +109,49 @@ class Adapter:
         return [t for _, t in found]
 
     def compile_probe(self, probe: exp.Select) -> str:
-        from uneven.compiler.context import CompileContext
+        from uneven.compiler.context import CompileContext, CompileOptions
         from uneven.compiler.generate import generate
         from uneven.compiler.pipeline import compile_tree
-        return generate(compile_tree(probe, CompileContext(dialect=self.dialect)), self.dialect, pretty=False)
+        return generate(compile_tree(probe, CompileContext(options=CompileOptions(dialect=self.dialect))),
+                        self.dialect, pretty=False)
 
-    def source_columns(self):
-        """The compiler's ``source_columns`` callback: the columns a SELECT's FROM provides."""
-        cache: dict[int, set[str] | None] = {}
+    def schema(self) -> AdapterSchema:
+        """What this engine tells the compiler, for one compilation (compiler/context.EngineSchema)."""
+        return AdapterSchema(self)
 
-        def columns(select: exp.Select) -> set[str] | None:
-            if id(select) not in cache:
-                probe = probe_select(select, [exp.Star()])
-                if probe is None:
-                    cache[id(select)] = set()
-                else:
-                    found = self.describe(self.compile_probe(probe))
-                    cache[id(select)] = None if found is None else {n.lower() for n, _ in found}
-            return cache[id(select)]
 
-        return columns
+class AdapterSchema:
+    """The compiler's ``EngineSchema`` over an adapter's ``describe``: the columns a FROM provides,
+    the types of measure arguments and the tie probe (engine/ties.adapter_tie_counts)."""
 
-    def expression_types(self):
-        """The compiler's ``expression_types`` callback (compiler/types.py)."""
+    probes_ties = True
 
-        def types(select: exp.Select, exprs: list[exp.Expression]) -> list[str] | None:
-            if not exprs:
-                return []
-            try:
-                return self.argument_types(select, exprs)
-            except Exception:  # noqa: BLE001  a help, never a failure of its own
-                return None
+    def __init__(self, adapter: Adapter):
+        self.adapter = adapter
+        self._columns: dict[int, set[str] | None] = {}
 
-        return types
+    def source_columns(self, select: exp.Select) -> set[str] | None:
+        if id(select) not in self._columns:
+            probe = probe_select(select, [exp.Star()])
+            if probe is None:
+                self._columns[id(select)] = set()
+            else:
+                found = self.adapter.describe(self.adapter.compile_probe(probe))
+                self._columns[id(select)] = None if found is None else {n.lower() for n, _ in found}
+        return self._columns[id(select)]
+
+    def expression_types(self, select: exp.Select, exprs: list[exp.Expression]) -> list[str] | None:
+        if not exprs:
+            return []
+        try:
+            return self.adapter.argument_types(select, exprs)
+        except Exception:  # noqa: BLE001  a help, never a failure of its own
+            return None
+
+    def tie_counts(self, select, x, condition, keys) -> tuple[int, int] | None:
+        from uneven.engine.ties import adapter_tie_counts  # noqa: PLC0415  (ties reads adapters duck-typed)
+
+        return adapter_tie_counts(self.adapter, select, x, condition, keys)
 
 
 def quoted_table(name: str) -> exp.Table:
