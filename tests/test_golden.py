@@ -101,6 +101,7 @@ def test_golden_emission_is_faithful_in_every_dialect(path):
     (tests/roundtrip.py) and, in the executed dialects, holds no measure call; and its
     method="bounded" form on DuckDB. (One compile per dialect serves both checks.)"""
     import sqlglot
+
     from roundtrip import DIALECTS, assert_faithful
     from uneven.compiler.calls import find_calls
     from uneven.compiler.dialects import EXECUTED_DIALECTS
