@@ -31,30 +31,13 @@ from sqlglot import exp
 
 from uneven.compiler.emit import to_sql
 from uneven.errors import ExecutionError, UnevenError
+from uneven.pg_build import fail as _fail
+from uneven.pg_build import n as _n
+from uneven.pg_build import state as _state
 
 REGISTRY = "_uv_functions"
-STATE_TYPE = "double precision[]"
+
 INITIAL = "{0,0,0,0,0,0}"  # rows, m, C, Tc, A, last x
-
-
-def _n(v) -> exp.Expression:
-    return exp.Literal.number(v)
-
-
-def _state(i: int) -> exp.Expression:
-    """s[i] of the state array, i from 1 as PostgreSQL counts (sqlglot's index is 0-based and
-    generated with the dialect's offset)."""
-    return exp.Bracket(this=exp.column("s"), expressions=[_n(i - 1)])
-
-
-def _fail(message: str) -> exp.Expression:
-    """An expression that stops the query with ``message`` (PostgreSQL has no raising function in SQL:
-    a cast that must fail carries the message, as the compiled SQL does on PostgreSQL). The text
-    depends on x, so PostgreSQL does not fold the cast (and fail) when it plans the function: a
-    constant in a CASE branch is evaluated even when the branch is never taken."""
-    text = exp.Case(ifs=[exp.If(this=exp.Not(this=exp.Is(this=exp.column("x"), expression=exp.Null())),
-                                true=exp.Literal.string(f"uneven: {message}"))])
-    return exp.cast(text, exp.DataType.build(STATE_TYPE, dialect="postgres"))
 
 
 def step_body(weighted: bool) -> exp.Select:

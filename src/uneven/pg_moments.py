@@ -39,9 +39,7 @@ from __future__ import annotations
 from sqlglot import exp
 
 from uneven.compiler.emit import to_sql
-from uneven.pg_functions import _fail as fail
-from uneven.pg_functions import _n as n
-from uneven.pg_functions import _state as state
+from uneven.pg_build import fail, n, state
 
 X = exp.column("x")
 NAMES = ("theil", "mld", "ge", "atkinson", "cv", "hhi")
