@@ -69,10 +69,9 @@ def apply_rules(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
 
 
 # Tie grouping (the "ties" variant of the ordered pass) pays when the distinct (keys, value) pairs
-# are at most this share of the rows: measured on 4M rows x 1000 groups, weighted Gini, 2 threads,
-# the running-sum window over distinct values plus one hash aggregate took 0.95x DuckDB's sort
-# at 10% distinct pairs against 3.1x without grouping, but 5.6x against 3.3x at 100% distinct
-# pairs (the hash aggregate then has as many groups as rows); see bench/README.md.
+# are at most this share of the rows: with few distinct pairs the running-sum window over them plus
+# one hash aggregate beats the window over every row, with as many pairs as rows it loses (the hash
+# aggregate then has as many groups as rows). The measured break-even is in bench/README.md.
 TIE_SHARE = 0.25
 
 TIE_GROUPING = ("auto", "on", "off")
@@ -114,8 +113,8 @@ def choose_variant(plan: PassPlan, scope: PlanScope) -> PassPlan:
     return plan
 
 
-# The adaptive centred variant: one scan of compensated sums (FSUM) for most groups. Measured on 20M rows
-# x 1000 groups, 2 threads (theil, mld, ge 2, atkinson 1; bench/README.md): the centred pass costs a
+# The adaptive centred variant: one scan of compensated sums (FSUM) for most groups (figures in
+# bench/README.md, "Moment measures"): the centred pass costs a
 # second scan, a hash join of every row and a second GROUP BY; with a filtered mean CTE that keeps no
 # group, DuckDB skips that scan. FSUM is DuckDB's; other engines keep the centred pass.
 ADAPTIVE_DIALECTS = ("duckdb",)
@@ -134,8 +133,8 @@ def choose_centred(plan: PassPlan, dialect: str) -> PassPlan:
 
 
 # Only centred calls move: moving the moment sums too (leaving the main aggregate with the group
-# list only) measured within noise (1.62x against 1.62x one Gini on 2M rows x 100k groups, best of
-# 5), and the moment pass keeps its own row-validity rules in one place (passes/moment.py).
+# list only) measured within noise (bench/README.md, "Plan shape"), and the moment pass keeps its
+# own row-validity rules in one place (passes/moment.py).
 FUSED_KINDS = (PassKind.CENTRED,)
 
 
@@ -145,8 +144,8 @@ def fuse_centred(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
     The ordered pass already sorts the group's valid rows in a window; the group mean as a
     partition total (Σ w·x / Σ w OVER (PARTITION BY keys)) costs little there, and its GROUP BY
     then sums the centred terms too: no second scan and no hash join of every row to its group's
-    mean (on 2M rows x 100k groups that join and GROUP BY took about 1.2 s of a 3.7 s ten-measure
-    query; bench/README.md). The deviations
+    mean (about a third of a ten-measure query over many small groups: bench/README.md, "Plan
+    shape"). The deviations
     x − μ are the same as on the centred pass, so the digits kept on a small spread are too.
     Without group keys (one group) the centred pass stays: its join is to a single row, while a
     whole-input window would carry μ through the sort.
@@ -184,8 +183,8 @@ def route_refine(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
     """Turn an ordered pass into a refine pass (compiler/passes/refine.py: bins, then a sort of only
     the bins that hold a cut) when every call on it depends on the order only at cut points.
 
-    ``scope.options.ordered``: "auto" refines wherever it can (on 20M rows x 1000 groups it took 0.4x the window
-    plan's time, on 100M rows in one group 0.08x: bench/README.md), except when tie grouping is
+    ``scope.options.ordered``: "auto" refines wherever it can (well below the window plan's time:
+    bench/README.md, "Refine plan"), except when tie grouping is
     asked for (a variant of the window plan); "refine" the same, whatever tie grouping says;
     "window" never. A pass with a measure that needs the full order (Gini and its family) keeps
     the window plan, and says which measure."""

@@ -31,7 +31,7 @@ class MainAggregate:
 
     def add(self, expr: exp.Expression, prefix: str = "_uv_t") -> exp.Column:
         # keyed by the tree itself (sqlglot compares trees structurally): generating each sum's SQL
-        # text as its key took most of a moment query's compile (~0.1 s for four measures)
+        # text as its key took most of a moment query's compile
         key = expr
         if key not in self.columns:
             count = sum(1 for n, _ in self.columns.values() if n.startswith(prefix))

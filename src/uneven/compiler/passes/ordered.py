@@ -107,8 +107,8 @@ def _window_columns(ctx: OrderedContext, keys: list[exp.Expression],
     if "min" in ctx.used:
         if keys:
             # the partition minimum over the whole frame, in the same specification as C: DuckDB
-            # computes it once per partition (FIRST_VALUE over the running frame cost 0.26x the
-            # sort in CPU on 20M rows x 1000 groups, this 0.03x; bench/README.md)
+            # computes it once per partition (FIRST_VALUE over the running frame cost about ten
+            # times as much: bench/README.md)
             first = s.window(s.agg_min(x.copy()), part(), [x.copy()], whole=True)
         else:
             # one group: a scalar subquery over the same rows is cheaper than a second window
