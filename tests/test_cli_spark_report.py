@@ -18,7 +18,7 @@ from pathlib import Path
 import pytest
 
 from conftest import make_groups
-from engines import require_engines
+from engines import engine_or_skip, require_engines
 from uneven import reference as R
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -56,6 +56,27 @@ def test_report_on_spark_local_one_core(tmp_path):
                          env=env, capture_output=True, text=True, timeout=540)
     assert run.returncode == 0, run.stdout[-3000:] + run.stderr[-3000:]
     assert "master local[1]" in run.stdout
+    text = out.read_text()
+    for key in ("g0", "g1", "g2"):
+        rows = data[(data["grp"] == key) & data["x"].notna() & data["w"].notna()]
+        want = R.gini(rows["x"].astype(float).to_numpy(), rows["w"].astype(float).to_numpy())
+        assert f"{key} — Gini {want:.4f}" in text, key  # the ranking prints Gini to four decimals
+    assert (tmp_path / "report-lorenz.svg").exists() and (tmp_path / "report-ranking.svg").exists()
+
+
+def test_report_on_the_matrix_spark_session(tmp_path):
+    """The same report in this process, on the test matrix's Spark session (local[2], already
+    running for the engine tests): ``--engine spark:local[2]`` takes the running session, so CI
+    proves the report's door on Spark without a JVM of its own."""
+    from uneven.cli.main import main  # noqa: PLC0415
+
+    eng = engine_or_skip("spark")
+    data = make_groups()
+    eng.load(data, "t_report")
+    out = tmp_path / "report.md"
+    code = main(["report", "--engine", "spark:local[2]", "t_report", "--value", "x", "--weight", "w",
+                 "--by", "grp", "--points", "4", "-o", str(out)])
+    assert code in (0, None)
     text = out.read_text()
     for key in ("g0", "g1", "g2"):
         rows = data[(data["grp"] == key) & data["x"].notna() & data["w"].notna()]

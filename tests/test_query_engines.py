@@ -290,7 +290,7 @@ def test_cli_engine_query_lorenz_explain(engine, data, tmp_path, monkeypatch, ca
 
 def test_cli_engine_report(engine, data, tmp_path, monkeypatch):
     if engine.name == "spark":
-        pytest.skip("the report runs several queries and each costs seconds on Spark; query, lorenz and explain run there above")
+        pytest.skip("on Spark the report runs on the matrix session in tests/test_cli_spark_report.py (a URL would start its own)")
     from uneven.cli.main import main
     url = _engine_url(engine, tmp_path, data, monkeypatch)
     out = tmp_path / "report.md"

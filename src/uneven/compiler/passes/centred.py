@@ -68,6 +68,8 @@ def lower_centred_pass(source: Source, main: MainAggregate, plan, name: str
     ctx = CentredContext(main, plan.x, plan.trailing, plan.condition, name)
     ctx.compensated = adaptive  # μ from the same compensated W and T as the one-pass forms
     results = {call.key: call.measure.build(ctx, call.params) for call in plan.calls}
+    if not ctx.terms:  # e.g. atkinson(x, 0) alone: exactly 0 from the main aggregate, no centred sum
+        return [], results  # (a CTE selecting no column is a syntax error on SQLite)
     nkeys = len(source.keys)
     keys = [s.col(key_name(i)) for i in range(nkeys)]
     means = [s.named(s.div(ctx.T, ctx.W), "_uv_mu")]
