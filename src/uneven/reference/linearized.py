@@ -90,9 +90,8 @@ def _moment(name, x, params, w):
     W = math.fsum(w)
     mu = math.fsum(w * x) / W
     if name == "ge" and params[0] in (0.0, 1.0):
-        name = "mld" if params[0] == 0.0 else "theil"
-    est = {"theil": lambda: R.theil(x, w), "mld": lambda: R.mld(x, w), "ge": lambda: R.ge(x, params[0], w),
-           "atkinson": lambda: R.atkinson(x, params[0], w)}[name]()
+        name, params = ("mld" if params[0] == 0.0 else "theil"), ()
+    est = getattr(R, name)(x, *params, w)  # R.theil(x, w), R.ge(x, alpha, w), R.atkinson(x, eps, w) …
     if est is None or not mu > 0:
         return est, None
     d = (x - mu) / mu

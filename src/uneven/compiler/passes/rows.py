@@ -100,14 +100,15 @@ def window_columns(ctx: RowContext, keys: list[exp.Expression]) -> list[exp.Expr
                             "_uv_s"))
     if "min" in ctx.used:
         cols.append(s.alias(s.window(s.agg_min(x.copy()), part(), [x.copy()], whole=True), "_uv_m"))
+    def group_weight():  # W over the partition (the row count when unweighted)
+        return (s.window(s.agg_sum(w.copy()), part()) if ctx.weighted
+                else s.cast_double(s.window(s.agg_count_star(), part())))
+
     if "wt" in ctx.used:
-        total = (s.window(s.agg_sum(w.copy()), part()) if ctx.weighted
-                 else s.cast_double(s.window(s.agg_count_star(), part())))
-        cols.append(s.alias(total, "_uv_wt"))
+        cols.append(s.alias(group_weight(), "_uv_wt"))
     if "mu" in ctx.used:  # Σw·x / Σw over the partition, where Σw·x > 0
         total = s.window(s.agg_sum(s.mul(w.copy(), x.copy())), part())
-        weight = s.window(s.agg_sum(w.copy()), part()) if ctx.weighted else s.cast_double(s.window(s.agg_count_star(), part()))
-        cols.append(s.alias(s.case(s.gt(total, s.lit(0.0)), s.div(total.copy(), weight)), "_uv_mup"))
+        cols.append(s.alias(s.case(s.gt(total, s.lit(0.0)), s.div(total.copy(), group_weight())), "_uv_mup"))
     if "nt" in ctx.used:
         counted = getattr(ctx, "count_of", None)  # rows to count (bootstrap: those drawn), else all
         count = exp.Count(this=counted.copy()) if counted is not None else s.agg_count_star()
