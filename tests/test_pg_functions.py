@@ -93,9 +93,11 @@ def test_install_is_recorded_and_removable(pg):
     uneven.install(eng.con)  # again: replaces its own functions
     names = {r[0] for r in uneven.pg_functions.installed(eng.con)}
     measures = ("gini", "theil", "mld", "ge", "atkinson", "cv", "hhi")
+    cuts = ("lorenz", "bottom_share", "top_share", "palma", "s80s20", "quantile_w", "percentile_ratio")
     assert names == set(measures) | {f"_uv_{m}_{part}" for m in measures for part in ("step", "final")} | {
-        f"_uv_{m}_step_w" for m in measures if m != "hhi"}
-    assert {r[2] for r in uneven.pg_functions.installed(eng.con)} == set(measures)
+        f"_uv_{m}_step_w" for m in measures if m != "hhi"} | set(cuts) | {
+        f"_uv_{m}_final{tail}" for m in cuts for tail in ("", "_w")} | {"_uv_point"}
+    assert {r[2] for r in uneven.pg_functions.installed(eng.con)} == set(measures) | set(cuts) | {"cut"}
     assert sorted(uneven.uninstall(eng.con)) == sorted(names)
     assert uneven.pg_functions.installed(eng.con) == []
     count = eng.con.execute("SELECT count(*) FROM pg_proc WHERE proname = 'gini' "
@@ -104,7 +106,7 @@ def test_install_is_recorded_and_removable(pg):
     # a subset, and a measure that is not registered on PostgreSQL: a clear refusal
     assert "theil" in uneven.install(eng.con, measures=["theil"]) and {r[2] for r in uneven.pg_functions.installed(eng.con)} == {"theil"}
     with pytest.raises(uneven.UnevenError, match="not registered on PostgreSQL"):
-        uneven.install(eng.con, measures=["palma"])
+        uneven.install(eng.con, measures=["hoover"])
     uneven.uninstall(eng.con)
 
 

@@ -1,4 +1,5 @@
-"""Gini as aggregates registered in PostgreSQL: ``install(pg_connection)``.
+"""Measures as aggregates registered in PostgreSQL: ``install(pg_connection)``. Gini here; the moment
+measures in pg_moments.py; the cut measures (shares, palma, quantiles) in pg_cuts.py.
 
     SELECT province, gini(income, weight ORDER BY income) FROM survey GROUP BY province;
     SELECT gini(income ORDER BY income) FROM survey;
@@ -127,7 +128,37 @@ def _moment_definitions(sql, measure: str) -> list[tuple[str, str, str, object]]
     return out
 
 
-MEASURES = ("gini", "theil", "mld", "ge", "atkinson", "cv", "hhi")
+def _cut_definitions(sql, measure: str) -> list[tuple[str, str, str, object]]:
+    """The final functions and the two ordered-set aggregates of a cut measure (pg_cuts.py): ORDER BY x
+    keeps a double precision[], ORDER BY (x, w) a _uv_point[]; PostgreSQL's array_append grows either."""
+    from uneven import pg_cuts as K
+    params = ", ".join(f"{p} double precision" for p in K.CUTS[measure])
+    direct = ", ".join("double precision" for _ in K.CUTS[measure])
+    out = []
+    for (final, weighted) in K.forms(measure):
+        state = sql.Identifier(K.POINT) if weighted else sql.SQL("double precision")
+        out.append((final, "helper", measure, sql.SQL(
+            "CREATE FUNCTION {}(s {}[]" + (", " + params if params else "") + ") RETURNS double precision "
+            "LANGUAGE plpgsql IMMUTABLE PARALLEL SAFE AS {}").format(
+                sql.Identifier(final), state, sql.Literal(K.final_source(measure, weighted)))))
+    for (final, weighted) in K.forms(measure):
+        state = sql.Identifier(K.POINT) if weighted else sql.SQL("double precision")
+        out.append((measure, "aggregate", measure, sql.SQL(
+            "CREATE AGGREGATE {}(" + direct + " ORDER BY {}) (SFUNC = pg_catalog.array_append, STYPE = {}[], "
+            "FINALFUNC = {}, INITCOND = {})").format(sql.Identifier(measure), state, state,
+                                                     sql.Identifier(final), sql.Literal("{}"))))
+    return out
+
+
+def _point_definition(sql) -> tuple[str, str, str, object]:
+    from uneven import pg_cuts as K
+    return (K.POINT, "type", "cut", sql.SQL("CREATE TYPE {} AS (x double precision, w double precision)").format(
+        sql.Identifier(K.POINT)))
+
+
+MOMENTS = ("theil", "mld", "ge", "atkinson", "cv", "hhi")
+CUT_MEASURES = ("lorenz", "bottom_share", "top_share", "palma", "s80s20", "quantile_w", "percentile_ratio")
+MEASURES = ("gini",) + MOMENTS + CUT_MEASURES
 
 
 def definitions(measures=None) -> list[tuple[str, str, str, object]]:
@@ -136,8 +167,16 @@ def definitions(measures=None) -> list[tuple[str, str, str, object]]:
     generated for PostgreSQL; names are ours, quoted as identifiers; no user text is spliced)."""
     from psycopg import sql
     out = []
-    for measure in measures or MEASURES:
-        out += _gini_definitions(sql) if measure == "gini" else _moment_definitions(sql, measure)
+    chosen = measures or MEASURES
+    if any(m in CUT_MEASURES for m in chosen):
+        out.append(_point_definition(sql))
+    for measure in chosen:
+        if measure == "gini":
+            out += _gini_definitions(sql)
+        elif measure in CUT_MEASURES:
+            out += _cut_definitions(sql, measure)
+        else:
+            out += _moment_definitions(sql, measure)
     return out
 
 
@@ -160,7 +199,8 @@ def installed(con) -> list[tuple[str, str, str | None]]:
 
 
 def install(con, *, replace: bool = False, measures: list[str] | None = None) -> list[str]:
-    """Create the aggregates (gini(x[, w] ORDER BY x) and the moment measures of pg_moments.py) in the
+    """Create the aggregates (gini(x[, w] ORDER BY x), the moment measures of pg_moments.py and the cut
+    measures of pg_cuts.py) in the
     PostgreSQL database of ``con`` (psycopg 3); ``measures`` limits them (default: all of MEASURES).
     Returns the names created. Runs in one transaction: all or nothing."""
     import psycopg
@@ -189,7 +229,8 @@ def install(con, *, replace: bool = False, measures: list[str] | None = None) ->
                 cur.execute(sql.SQL("CREATE TABLE IF NOT EXISTS {} (name text, kind text, measure text)").format(
                     sql.Identifier(REGISTRY)))
                 for name, kind, measure, statement in defs:
-                    cur.execute(statement)
+                    if kind != "type" or not _type_exists(cur, name):  # a type is kept: others may use it
+                        cur.execute(statement)
                     cur.execute(sql.SQL("DELETE FROM {} WHERE name = %s AND kind = %s").format(sql.Identifier(REGISTRY)),
                                 (name, kind))
                     cur.execute(sql.SQL("INSERT INTO {} VALUES (%s, %s, %s)").format(sql.Identifier(REGISTRY)),
@@ -200,11 +241,17 @@ def install(con, *, replace: bool = False, measures: list[str] | None = None) ->
     return names
 
 
+def _type_exists(cur, name: str) -> bool:
+    cur.execute("SELECT 1 FROM pg_type WHERE typname = %s AND typnamespace = current_schema()::regnamespace", (name,))
+    return cur.fetchone() is not None
+
+
 def _drop(cur, items) -> list[str]:
-    """Drop every function or aggregate of these names in the current schema (all argument lists)."""
+    """Drop every function or aggregate of these names in the current schema (all argument lists);
+    types are left to uninstall (an install of some measures keeps the point type the others use)."""
     from psycopg import sql
     done = []
-    for name in dict.fromkeys(n for n, _ in reversed(items)):
+    for name in dict.fromkeys(n for n, k in reversed(items) if k != "type"):
         cur.execute("SELECT p.oid::regprocedure::text, p.prokind FROM pg_proc p WHERE p.proname = %s "
                     "AND p.pronamespace = current_schema()::regnamespace", (name,))
         for signature, kind in cur.fetchall():
@@ -222,5 +269,8 @@ def uninstall(con) -> list[str]:
     with con.transaction():
         with con.cursor() as cur:
             done = _drop(cur, [(n, k) for n, k, _ in recorded])
+            for name in sorted({n for n, k, _ in recorded if k == "type"}):
+                cur.execute(sql.SQL("DROP TYPE IF EXISTS {}").format(sql.Identifier(name)))
+                done.append(name)
             cur.execute(sql.SQL("DROP TABLE IF EXISTS {}").format(sql.Identifier(REGISTRY)))
     return done
