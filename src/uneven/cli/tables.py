@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import argparse
 
-from uneven.cli.common import add_engine_options, add_output_options, connection
+from uneven.cli.common import add_engine_options, add_engine_url_option, add_output_options, connection
 
 RELATION_HELP = ("the rows: a table name, a quoted file path ('survey/*.parquet'), a table function "
                  "(read_csv('x.csv')) or a parenthesised query with an alias")
@@ -18,6 +18,7 @@ def add_table_options(p: argparse.ArgumentParser) -> None:
                    help="group key (repeat for several keys); one block of rows per group")
     add_output_options(p)
     add_engine_options(p)
+    add_engine_url_option(p)  # --engine URL: PostgreSQL, SQLite, Spark (the tables compile for each)
 
 
 def common(args) -> dict:

@@ -7,13 +7,15 @@ from the catalog's measures and returns a pandas DataFrame, one block of rows pe
 
 ``parse_expression`` and ``parse_relation`` read the arguments; ``Spec`` holds the parsed relation,
 group keys and weight and builds the SELECT; ``session`` opens the connection (with the caller's data
-frames registered) and yields ``run(select) -> DataFrame``; ``group_labels`` names the ``by`` columns.
+frames registered) and yields ``run(select) -> DataFrame``, which compiles the SELECT for the engine
+of ``con`` (DuckDB, or PostgreSQL, Spark and SQLite through engine/adapters) and runs it there;
+``group_labels`` names the ``by`` columns.
 """
 
 from __future__ import annotations
 
 import contextlib
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 
 import pandas as pd
 import sqlglot
@@ -26,7 +28,7 @@ from uneven.engine.adapters import Adapter
 from uneven.engine.columns import DuckDBSchema
 from uneven.engine.runner import execute_df
 from uneven.engine.session import session as engine_session
-from uneven.errors import MeasureArgumentError, SqlParseError, UnevenError
+from uneven.errors import MeasureArgumentError, SqlParseError
 from uneven.sqltree import build as s
 
 
@@ -100,14 +102,31 @@ def session(spec: Spec, con, frame):
     probe.set("from_", spec.source.copy())
     with engine_session(con, to_sql(probe), frame) as connection:
         if isinstance(connection, Adapter):
-            raise UnevenError(f"the table functions run on DuckDB; {connection.label} connections are not supported")
+            adapter = connection
+
+            def run_there(sel: exp.Select) -> pd.DataFrame:  # PostgreSQL, Spark, SQLite: compiled for its dialect
+                options = CompileOptions(pretty=False, dialect=adapter.dialect)
+                return adapter.execute(compile_sql(to_sql(sel), options, adapter.schema()))
+
+            yield Runner(run_there, adapter.dialect, adapter.label)
+            return
 
         def run(sel: exp.Select) -> pd.DataFrame:
             compiled = compile_sql(to_sql(sel), CompileOptions(pretty=False),
                                    DuckDBSchema(connection, types=False, ties=False))
             return execute_df(connection, compiled)
 
-        yield run
+        yield Runner(run, "duckdb", "DuckDB")
+
+
+class Runner:
+    """``run(select) -> DataFrame`` on the session's engine; ``dialect`` and ``label`` name the engine."""
+
+    def __init__(self, fn: Callable[[exp.Select], pd.DataFrame], dialect: str, label: str):
+        self.fn, self.dialect, self.label = fn, dialect, label
+
+    def __call__(self, sel: exp.Select) -> pd.DataFrame:
+        return self.fn(sel)
 
 
 def group_labels(by) -> list[str]:

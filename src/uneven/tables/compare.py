@@ -28,7 +28,6 @@ from __future__ import annotations
 import inspect
 import math
 
-import duckdb
 import pandas as pd
 from sqlglot import exp
 
@@ -48,7 +47,7 @@ MANY_COMPARISONS = ("z = difference / se. Comparing many pairs inflates false po
 def compare(relation: str, x1: str, x2: str | None = None, *, group: str | None = None, groups=None,
             measure: str = "gini", params=(), se: str | None = None, strata: str | None = None,
             psu: str | None = None, weight: str | None = None, by=(),
-            con: duckdb.DuckDBPyConnection | None = None) -> pd.DataFrame:
+            con=None) -> pd.DataFrame:
     """Two forms.
 
     Two values of the same rows (``compare(rel, "gross", "disposable")``): Gini of each, their

@@ -5,7 +5,6 @@ from __future__ import annotations
 import inspect
 import math
 
-import duckdb
 import pandas as pd
 
 from uneven.errors import MeasureArgumentError
@@ -15,7 +14,7 @@ from uneven.tables.base import Spec, group_labels, parse_expression, session
 
 # ---------------------------------------------------------------------------------------- GE
 def decompose(relation: str, x: str, subgroup: str, *, alpha: float = 0.0, weight: str | None = None,
-              by=(), con: duckdb.DuckDBPyConnection | None = None) -> pd.DataFrame:
+              by=(), con=None) -> pd.DataFrame:
     """GE(α) of ``x`` split into between- and within-subgroup parts, per group of ``by``.
 
     One row per subgroup (component ``subgroup``: ``group_mean``, ``weight_share`` v (share of the
@@ -68,7 +67,7 @@ def _within_term(v: float, share: float, ge: float | None, alpha: float) -> floa
 
 # ------------------------------------------------------------------------------ income sources
 def gini_sources(relation: str, sources: list[str], *, weight: str | None = None, by=(),
-                 con: duckdb.DuckDBPyConnection | None = None) -> pd.DataFrame:
+                 con=None) -> pd.DataFrame:
     """Gini of the total of ``sources`` decomposed by source (Lerman and Yitzhaki 1985, cited from memory).
 
     Per source: ``part_of_total`` S_k (its share of the total), ``own_gini`` G_k,

@@ -18,12 +18,12 @@ from __future__ import annotations
 
 import inspect
 
-import duckdb
 import pandas as pd
 from sqlglot import exp
 
 from uneven import catalog
-from uneven.errors import MeasureArgumentError
+from uneven.compiler.clauses import MATERIALIZING
+from uneven.errors import MeasureArgumentError, UnsupportedSqlError
 from uneven.sqltree import build as s
 from uneven.tables.base import Spec, group_labels, parse_expression, session
 
@@ -141,7 +141,7 @@ LEAVE_ONE_OUT = ("gini", "theil", "mld")
 
 
 def influence(relation: str, x: str, *, weight: str | None = None, by=(), k: int = 3, measure: str = "gini",
-              params=(), con: duckdb.DuckDBPyConnection | None = None) -> pd.DataFrame:
+              params=(), con=None) -> pd.DataFrame:
     """Per group of ``by``: ``measure`` on all rows and without the 1…k largest rows (by value, then
     weight), and for the Gini, Theil and MLD the exact leave-one-out change of the most influential
     row (its value, weight, the measure without it and the change). Rows with a NULL value or weight, or weight 0, are
@@ -156,7 +156,7 @@ def influence(relation: str, x: str, *, weight: str | None = None, by=(), k: int
     if spec.weight is not None:
         order.append(exp.Ordered(this=spec.weight.copy(), desc=True, nulls_first=False))
     rank = s.window(exp.RowNumber(), [b.copy() for b in spec.by], order)
-    inner = exp.Select(expressions=[exp.Star(), s.alias(rank, "_uv_rank")])
+    inner = exp.Select(expressions=[exp.Star()] + ([s.alias(rank, "_uv_rank")] if k else []))
     inner.set("from_", spec.source.copy())
     cond = s.and_(s.not_null(xv.copy()), *([s.not_null(spec.weight.copy()), s.gt(spec.weight.copy(), ZERO)]
                                            if spec.weight is not None else []))
@@ -169,6 +169,12 @@ def influence(relation: str, x: str, *, weight: str | None = None, by=(), k: int
         cut = exp.Filter(this=call.copy(), expression=exp.Where(this=s.gt(s.col("_uv_rank"), exp.Literal.number(j))))
         items.append(s.alias(cut, f"{name}_without_top_{j}"))
     with session(spec, con, inspect.currentframe().f_back) as run:
+        if k and run.dialect not in MATERIALIZING:
+            raise UnsupportedSqlError(
+                f"influence: the measure without the k largest rows cannot run on {run.label}: it numbers the rows "
+                f"(row_number() by value, then weight) and reads them once per pass, and {run.label} may number "
+                "them again for each read, ranking tied rows differently; use k=0 there (the leave-one-out "
+                "columns still run), or DuckDB, PostgreSQL or SQLite")
         out = run(ranked.select(items, []))
         loo = None
         if name == "gini":
