@@ -51,10 +51,10 @@ def test_dbt_postgres_build_computes_the_reference_numbers(tmp_path):
         finally:
             sys.path.pop(0)
         rows = households()
-        got = pg.con.execute("SELECT province, year, households, gini, theil, atkinson_half, cv "
+        got = pg.con.execute("SELECT province, year, households, gini, theil, atkinson_half, cv, top10_share, palma "
                              "FROM quembraland.province_gini").fetchall()
         assert len(got) == 8
-        for province, year, n, gini, theil, atkinson, cv in got:
+        for province, year, n, gini, theil, atkinson, cv, top10, palma in got:
             x = np.array([r[3] for r in rows if r[1] == province and r[2] == year])
             w = np.array([r[4] for r in rows if r[1] == province and r[2] == year])
             assert n == len(x)
@@ -62,6 +62,8 @@ def test_dbt_postgres_build_computes_the_reference_numbers(tmp_path):
             assert theil == pytest.approx(R.theil(x, w), rel=1e-9)
             assert atkinson == pytest.approx(R.atkinson(x, 0.5, w), rel=1e-9)
             assert cv == pytest.approx(R.cv(x, w), rel=1e-9)
+            assert top10 == pytest.approx(R.top_share(x, 0.1, w), rel=1e-9)
+            assert palma == pytest.approx(R.palma(x, w), rel=1e-9)
     finally:
         import uneven
         uneven.uninstall(pg.con)
