@@ -141,6 +141,8 @@ def test_compare_paired_and_two_groups(loaded, duck):
          compare("hh", "income", "wage", weight="w", by="province", con=duck))
     design = dict(group="district", groups=("north", "coast"), weight="w", strata="stratum", psu="psu", by="province")
     same(compare("hh", "income", con=c, **design), compare("hh", "income", con=duck, **design))
+    simple = dict(group="district", groups=("north", "coast"), weight="w")  # no PSU: each row its own
+    same(compare("hh", "income", con=c, **simple), compare("hh", "income", con=duck, **simple))
     indep = dict(group="district", groups=("north", "hills"), measure="theil", se="independent", weight="w")
     got = compare("hh", "income", con=c, **indep)
     same(got, compare("hh", "income", con=duck, **indep))
