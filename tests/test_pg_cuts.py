@@ -53,6 +53,8 @@ CUTS = [
     ("quantile_w(0.5)", "quantile_w(x, 0.5{w})", lambda x, w: R.quantile_w(x, 0.5, w)),
     ("quantile_w(0.37)", "quantile_w(x, 0.37{w})", lambda x, w: R.quantile_w(x, 0.37, w)),
     ("percentile_ratio(0.9, 0.1)", "percentile_ratio(x, 0.9, 0.1{w})", lambda x, w: R.percentile_ratio(x, 0.9, 0.1, w)),
+    ("generalized_lorenz(0.5)", "generalized_lorenz(x, 0.5{w})", lambda x, w: R.generalized_lorenz(x, 0.5, w)),
+    ("hoover()", "hoover(x{w})", lambda x, w: R.hoover(x, w)),
 ]
 
 
@@ -112,6 +114,8 @@ def test_exact_values_ties_zero_weights_and_nulls(pg):
     # weighted inverted CDF with integer weights: C/W = 2/4 reaches 0.5 at the first value
     got = one(eng, "SELECT quantile_w(0.5) WITHIN GROUP (ORDER BY (v, w)) FROM (VALUES (1.0, 2), (3.0, 1), (8.0, 1)) s(v, w)")
     assert got == 1.0
+    # Hoover (handbook): the share of the total to move for equality; 1, 1, 1, 1, 6: μ = 2, ½ Σ|x − μ| / T = 4/10
+    assert close(one(eng, f"SELECT hoover() WITHIN GROUP (ORDER BY v) FROM {five}"), float(Fraction(4, 10)))
     # integer and numeric columns are accepted (implicit casts to double precision)
     assert close(one(eng, "SELECT palma() WITHIN GROUP (ORDER BY (v, w)) FROM (VALUES (1, 1), (2, 1), (3, 1), (4, 1), "
                           "(5, 1), (6, 1), (7, 1), (8, 1), (9, 1), (10, 1)) s(v, w)"), R.palma(np.arange(1.0, 11.0)))

@@ -93,7 +93,8 @@ def test_install_is_recorded_and_removable(pg):
     uneven.install(eng.con)  # again: replaces its own functions
     names = {r[0] for r in uneven.pg_functions.installed(eng.con)}
     measures = ("gini", "theil", "mld", "ge", "atkinson", "cv", "hhi")
-    cuts = ("lorenz", "bottom_share", "top_share", "palma", "s80s20", "quantile_w", "percentile_ratio")
+    cuts = ("lorenz", "bottom_share", "top_share", "palma", "s80s20", "quantile_w", "percentile_ratio",
+            "generalized_lorenz", "hoover")
     assert names == set(measures) | {f"_uv_{m}_{part}" for m in measures for part in ("step", "final")} | {
         f"_uv_{m}_step_w" for m in measures if m != "hhi"} | set(cuts) | {
         f"_uv_{m}_final{tail}" for m in cuts for tail in ("", "_w")} | {"_uv_point"}
@@ -106,7 +107,7 @@ def test_install_is_recorded_and_removable(pg):
     # a subset, and a measure that is not registered on PostgreSQL: a clear refusal
     assert "theil" in uneven.install(eng.con, measures=["theil"]) and {r[2] for r in uneven.pg_functions.installed(eng.con)} == {"theil"}
     with pytest.raises(uneven.UnevenError, match="not registered on PostgreSQL"):
-        uneven.install(eng.con, measures=["hoover"])
+        uneven.install(eng.con, measures=["lorenz_curve"])
     uneven.uninstall(eng.con)
 
 

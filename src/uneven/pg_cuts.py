@@ -24,7 +24,9 @@ compiled query computes (catalog/ordered.py, DESIGN.md's contract): running weig
 sorted by x, W = ΣC's last, T = Σw·x; L(p) = Σ x·clamp(p·W − (C − w), 0, w) / T; top share
 Σ x·clamp(C − (1 − p)·W, 0, w) / T; palma = top(0.1)/bottom(0.4), s80s20 = top(0.2)/bottom(0.2), NULL
 when the bottom share is 0; quantile_w(p) = the smallest x with C/W ≥ p, else the largest x;
-percentile_ratio(hi, lo) = Q(hi)/Q(lo), NULL when Q(lo) = 0. Ties give the same value in any order.
+percentile_ratio(hi, lo) = Q(hi)/Q(lo), NULL when Q(lo) = 0; generalized_lorenz(p) = μ·L(p);
+hoover = ½ Σ w·|x − μ| / T (it needs μ before the sum: kept points too). Ties give the same value in
+any order.
 Input policy: rows with a NULL value or weight are skipped, weight 0 changes nothing, a negative
 weight or a NaN/infinite value or weight stops the query (``uneven: negative weight …``, the compiled
 SQL's message class), a parameter outside [0, 1] stops it too; an empty group or a total ≤ 0 is NULL.
@@ -41,11 +43,11 @@ POINT = "_uv_point"
 # measure → its parameters (the direct arguments of the ordered-set aggregate)
 CUTS: dict[str, tuple[str, ...]] = {
     "lorenz": ("p",), "bottom_share": ("p",), "top_share": ("p",), "palma": (), "s80s20": (),
-    "quantile_w": ("p",), "percentile_ratio": ("hi", "lo"),
+    "quantile_w": ("p",), "percentile_ratio": ("hi", "lo"), "generalized_lorenz": ("p",), "hoover": (),
 }
 NAMES = tuple(CUTS)
 
-X, W, C, WT = (exp.column(n) for n in ("x", "w", "_uv_c", "_uv_wt"))
+X, W, C, WT, TT = (exp.column(n) for n in ("x", "w", "_uv_c", "_uv_wt", "_uv_tt"))
 
 
 def _n(v) -> exp.Expression:
@@ -62,10 +64,12 @@ def ranked_rows(weighted: bool) -> exp.Select:
     frame = exp.WindowSpec(kind="ROWS", start="UNBOUNDED", start_side="PRECEDING", end="CURRENT ROW")
     running = exp.Window(this=exp.Sum(this=w.copy()), order=order, spec=frame)
     total = exp.Window(this=exp.Sum(this=w.copy()))
+    value_total = exp.Window(this=exp.Sum(this=exp.Mul(this=w.copy(), expression=X.copy())))
     keep: list[exp.Expression] = [exp.Not(this=exp.Is(this=X.copy(), expression=exp.Null()))]
     if weighted:
         keep += [exp.Not(this=exp.Is(this=W.copy(), expression=exp.Null())), exp.GT(this=W.copy(), expression=_n(0))]
-    return (exp.select(X.copy(), exp.alias_(w, "w"), exp.alias_(running, "_uv_c"), exp.alias_(total, "_uv_wt"))
+    return (exp.select(X.copy(), exp.alias_(w, "w"), exp.alias_(running, "_uv_c"), exp.alias_(total, "_uv_wt"),
+                       exp.alias_(value_total, "_uv_tt"))
             .from_(rows).where(exp.and_(*keep)))
 
 
@@ -109,6 +113,13 @@ def _ratio(num: exp.Expression, den: exp.Expression) -> exp.Expression:
                                 true=exp.Div(this=num, expression=exp.Paren(this=den.copy())))])
 
 
+def hoover() -> exp.Expression:
+    """½ Σ w·|x − μ| / T (= ½ Σ |w·x/T − w/W|), μ = T/W; NULL when T ≤ 0 (catalog/moment.py's form)."""
+    mu = exp.Div(this=TT.copy(), expression=WT.copy())
+    spread = exp.Sum(this=exp.Mul(this=W.copy(), expression=exp.Abs(this=exp.Sub(this=X.copy(), expression=mu))))
+    return _share(exp.Mul(this=_n(0.5), expression=spread))
+
+
 def result(measure: str) -> exp.Expression:
     """The measure over the ranked rows, its parameters read as columns p, hi, lo of the final function."""
     p = exp.column("p")
@@ -124,6 +135,12 @@ def result(measure: str) -> exp.Expression:
         return quantile_at(p)
     if measure == "percentile_ratio":
         return _ratio(quantile_at(exp.column("hi")), quantile_at(exp.column("lo")))
+    if measure == "generalized_lorenz":  # μ·L(p) = Σ x·clamp(p·W − (C − w), 0, w) / W
+        room = exp.Sub(this=exp.Mul(this=p, expression=WT.copy()),
+                       expression=exp.Paren(this=exp.Sub(this=C.copy(), expression=W.copy())))
+        return exp.Div(this=_mass(room), expression=exp.Paren(this=exp.Sum(this=W.copy())))
+    if measure == "hoover":
+        return hoover()
     raise ValueError(measure)
 
 

@@ -157,7 +157,8 @@ def _point_definition(sql) -> tuple[str, str, str, object]:
 
 
 MOMENTS = ("theil", "mld", "ge", "atkinson", "cv", "hhi")
-CUT_MEASURES = ("lorenz", "bottom_share", "top_share", "palma", "s80s20", "quantile_w", "percentile_ratio")
+CUT_MEASURES = ("lorenz", "bottom_share", "top_share", "palma", "s80s20", "quantile_w", "percentile_ratio",
+                "generalized_lorenz", "hoover")
 MEASURES = ("gini",) + MOMENTS + CUT_MEASURES
 
 
