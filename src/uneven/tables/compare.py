@@ -129,7 +129,8 @@ def design_difference_sql(spec: Spec, x: exp.Expression, group: exp.Expression, 
     member = s.and_(s.not_null(x.copy()), s.gt(w.copy(), ZERO))
     d = s.case(s.and_(member, exp.EQ(this=group.copy(), expression=exp.convert(levels[0]))), s.lit(1))
     d = d.when(s.and_(member.copy(), exp.EQ(this=group.copy(), expression=exp.convert(levels[1]))), s.lit(2))
-    unit = psu.copy() if psu is not None else s.window(exp.RowNumber(), [], [])  # no PSU: each row its own
+    # no PSU: each row its own, numbered in any order (Spark requires an ORDER BY in row_number's window)
+    unit = psu.copy() if psu is not None else s.window(exp.RowNumber(), [], [x.copy()])
     rows = exp.Select(expressions=[s.alias(b.copy(), n) for b, n in zip(spec.by, keys)] + [
         s.alias(s.cast_double(x.copy()), "_uv_x"), s.alias(w, "_uv_w"), s.alias(d, "_uv_d"),
         s.alias(strata.copy() if strata is not None else s.lit(0), "_uv_h"),
