@@ -7,7 +7,7 @@ identifiers are quoted by the generator and literals are typed nodes.
 from __future__ import annotations
 
 from collections.abc import Iterable, Iterator, Sequence
-from typing import overload
+from typing import cast, overload
 
 from sqlglot import exp
 
@@ -34,6 +34,12 @@ def lit(value: float | int | str) -> exp.Expression:
         cast.type = to
         return cast
     return exp.Literal.number(str(value))
+
+
+def node(e: exp.Expr) -> exp.Expression:
+    """``e`` typed as the node it is: sqlglot annotates what it parses, walks and builds as ``Expr``,
+    the root of its classes, while every node it makes is an ``Expression``."""
+    return cast(exp.Expression, e)
 
 
 def nodes(tree: exp.Expression) -> Iterator[exp.Expression]:
