@@ -93,7 +93,8 @@ def read_measure(text: str) -> tuple[str, str, tuple[float, ...]]:
         try:
             v = float(arg.sql())
         except ValueError:
-            raise MeasureArgumentError(f"from_brackets: {name}: a parameter must be a number, got {arg.sql()}") from None
+            raise MeasureArgumentError(f"from_brackets: {name}: a parameter must be a number, "
+                                       f"got {arg.sql()}") from None
         if not 0 <= v <= 1:
             raise MeasureArgumentError(f"from_brackets: {name}: p must be a fraction in [0, 1], got {v:g}")
         params.append(v)

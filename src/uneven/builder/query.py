@@ -164,9 +164,10 @@ class Query:
 
     def df(self, *, method: str | None = None, tolerance: float | None = None,
            resolution: float | None = None) -> pd.DataFrame:
-        """Run on DuckDB, or on the engine of ``con`` given to ``from_`` (PostgreSQL, Spark, SQLite). ``method="bounded"`` (or an earlier ``.method("bounded")``): intervals, as
-        ``uneven.query`` gives them, with the resolution and widths in ``attrs["uneven"]`` and one
-        run with finer bins when a share-scale interval is wider than ``tolerance``."""
+        """Run on DuckDB, or on the engine of ``con`` given to ``from_`` (PostgreSQL, Spark, SQLite).
+        ``method="bounded"`` (or an earlier ``.method("bounded")``): intervals, as ``uneven.query``
+        gives them, with the resolution and widths in ``attrs["uneven"]`` and one run with finer bins
+        when a share-scale interval is wider than ``tolerance``."""
         name, tol, res = self._how(method, tolerance, resolution)
         if not is_duckdb(self.con):
             if name == "exact":

@@ -287,8 +287,8 @@ def window(fn: exp.Expression, partition: Sequence[exp.Expression], order: Seque
     keeps the ORDER BY, so it shares the sort of the running columns)."""
     args = {"this": fn, "partition_by": partition or None, "over": "OVER"}
     if order:
-        args["order"] = exp.Order(expressions=[o if isinstance(o, exp.Ordered) else exp.Ordered(this=o, nulls_first=False)
-                                               for o in order])
+        args["order"] = exp.Order(expressions=[o if isinstance(o, exp.Ordered)
+                                               else exp.Ordered(this=o, nulls_first=False) for o in order])
     if running:
         args["spec"] = exp.WindowSpec(kind="ROWS", start="UNBOUNDED", start_side="PRECEDING",
                                       end="CURRENT ROW")
