@@ -67,7 +67,7 @@ def is_measure(node: exp.Expr) -> TypeGuard[exp.Anonymous]:
     return isinstance(node, exp.Anonymous) and catalog.lookup(node.name) is not None
 
 
-def is_aggregate(node: exp.Expr) -> TypeGuard[exp.AggFunc]:
+def is_aggregate(node: exp.Expr) -> bool:
     """An ordinary SQL aggregate call (not a window function, not a measure)."""
     if not isinstance(node, exp.AggFunc):
         return False
