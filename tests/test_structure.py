@@ -193,6 +193,26 @@ def test_engel_sources_and_decomposition_against_numpy(engel):
     assert dec[dec["component"] == "subgroup"]["ge_term"].sum() == pytest.approx(parts["within"], abs=1e-12)
 
 
+def test_source_adding_up_to_zero_has_no_concentration():
+    # C_k = 2 cov(y_k, R)/μ_k (Lerman & Yitzhaki 1985, from memory) is undefined where the source adds
+    # up to 0: the table and the reference leave C_k and what is built on it empty; the other source
+    # keeps its numbers, computed here by hand from the ranks of the total (2, 1, 5, 4)
+    rows = pd.DataFrame({"a": [1.0, 2.0, 3.0, 6.0], "t": [1.0, -1.0, 2.0, -2.0]})  # noqa: F841 (read by name)
+    tab = gini_sources("rows", ["a", "t"]).set_index("source")
+    ref = {r["source"]: r for r in RS.gini_sources({"a": [1.0, 2.0, 3.0, 6.0], "t": [1.0, -1.0, 2.0, -2.0]})}
+    for col in ("conc_by_total", "corr_with_total", "gini_points", "part_of_gini", "gini_change_1pct"):
+        assert pd.isna(tab.loc["t", col]) and ref["t"][col] is None
+    assert tab.loc["t", "part_of_total"] == 0.0 and ref["t"]["part_of_total"] == 0.0
+    # the total (2, 1, 5, 4) ranks the rows 2nd, 1st, 4th, 3rd: fractional ranks R = (3, 1, 7, 5)/8
+    # (mid-points of the cumulative share, common practice); C_a = 2 cov(a, R)/μ_a in exact fractions
+    a, r = [Fraction(1), Fraction(2), Fraction(3), Fraction(6)], [Fraction(3, 8), Fraction(1, 8), Fraction(7, 8),
+                                                                  Fraction(5, 8)]
+    cov = sum(x * y for x, y in zip(a, r)) / 4 - (sum(a) / 4) * (sum(r) / 4)
+    want = float(2 * cov / (sum(a) / 4))
+    assert tab.loc["a", "conc_by_total"] == pytest.approx(want, abs=1e-12)
+    assert ref["a"]["conc_by_total"] == pytest.approx(want, abs=1e-12)
+
+
 # --------------------------------------------------------------------------------- tables
 def test_decompose_table_per_group(con):
     dec = decompose("t", "inc", "hh", alpha=1, weight="w", by="prov", con=con)

@@ -75,4 +75,8 @@ def test_moment_measure_and_definition_errors():
         uneven.define_measure("bad_one", result="lorenz(0.5) + foo", reference=None)
     with pytest.raises(MeasureDefinitionError, match="pass_"):
         uneven.define_measure("bad_two", pass_="sideways", result="1", reference=None)
+    with pytest.raises(MeasureDefinitionError, match="parameter kind .* got 'percent'"):
+        uneven.define_measure("bad_three", params=["p"], param_kinds={"p": "percent"}, result="lorenz(p)",
+                              reference=None)
+    assert "bad_three" not in {m["name"] for m in uneven.measures()}
     assert "bad_one" not in {m["name"] for m in uneven.measures()}

@@ -32,7 +32,8 @@ __all__ = [
     # SQL text in, results or SQL out
     "compile", "query", "explain", "measures",
     # other front-ends: the builder, functions inside DuckDB, your own measures, SQLite support
-    "from_", "equivalised", "person_weight", "install", "uninstall", "define_measure", "remove_measure", "install_sqlite_functions",
+    "from_", "equivalised", "person_weight", "install", "uninstall", "define_measure", "remove_measure",
+    "install_sqlite_functions",
     # tables: decompositions, income sources, paired comparisons, outlier influence
     "decompose", "gini_sources", "compare", "influence", "lorenz_dominance",
     # bounded measures from stored, mergeable summaries

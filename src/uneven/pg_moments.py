@@ -61,11 +61,11 @@ def _eq(a, b) -> exp.EQ:
     return exp.EQ(this=a, expression=b)
 
 
-def _param_checks(measure: str) -> list[tuple[exp.Expression, exp.Expression]]:
+def _param_checks(measure: str) -> list[tuple[exp.Expr, exp.Expr]]:
     """(condition, failure) pairs for the parameter p of ``measure`` (the row's value)."""
     p = exp.column("p")
     finite = exp.NEQ(this=p.copy() * n(0), expression=n(0))
-    out = []
+    out: list[tuple[exp.Expr, exp.Expr]] = []
     if measure == "ge":
         out.append((finite, fail("ge(): alpha must be a finite number")))
     if measure == "atkinson":
@@ -84,7 +84,7 @@ def _exponent(measure: str) -> exp.Expression:
     return n(2)
 
 
-def _layer(inner: exp.Select | None, **columns: exp.Expression) -> exp.Select:
+def _layer(inner: exp.Select | None, **columns: exp.Expr) -> exp.Select:
     """The intermediates of one layer (each computed once per row: PostgreSQL repeats a repeated
     subexpression), as SELECT items; step_source assigns them to PL/pgSQL variables."""
     out = exp.select(*[exp.alias_(e, name) for name, e in columns.items()])
@@ -133,7 +133,7 @@ def step_body(measure: str, weighted: bool):
         exp.column("p") if measure in ("ge", "atkinson") else n(0),
         _case((wide, n(1)), default=state(17)),
     ])
-    ifs = [(exp.NEQ(this=X.copy() * n(0), expression=n(0)),
+    ifs: list[tuple[exp.Expr, exp.Expr]] = [(exp.NEQ(this=X.copy() * n(0), expression=n(0)),
             fail(f"NaN or infinite value in the value argument of {measure}()"))]
     ifs += _param_checks(measure)
     if weighted:
@@ -182,7 +182,7 @@ def final_body(measure: str) -> exp.Select:
     elif measure == "mld":
         body = _case((exp.or_(negatives, zeros), exp.Null()), default=mld)
     elif measure == "ge":
-        general = ((exp.Exp(this=_ln(P.copy() / W.copy()) - p.copy() * _ln(mu_m.copy())) - n(1))
+        general: exp.Expression = ((exp.Exp(this=_ln(P.copy() / W.copy()) - p.copy() * _ln(mu_m.copy())) - n(1))
                    / (p.copy() * (p.copy() - n(1))))
         body = _case((exp.and_(_eq(p.copy(), n(0)), exp.or_(negatives.copy(), zeros.copy())), exp.Null()),
                      (_eq(p.copy(), n(0)), mld),

@@ -119,6 +119,7 @@ def merged_aggregates(columns, table: str | None = None) -> list[exp.Expression]
     out: list[exp.Expression] = []
     for name in columns:
         c = s.col(name, table)
+        agg: exp.Expression
         if name == MIN:
             agg = s.agg_min(c)
         elif name in (MAX, RESOLUTION):

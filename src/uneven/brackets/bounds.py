@@ -171,15 +171,15 @@ def lorenz_interval(br: Brackets, p: float) -> tuple[float, float]:
             lows.append((s_lo + least, r_lo + tau - least))
         highs = [(s_hi + u * tau / n[b], r_hi + tau - u * tau / n[b]) for tau in (n[b] * ml[b], n[b] * mh[b])]
     # a configuration with S + R = 0 (every value 0) has no Lorenz curve: the others bound it
-    lows = [v for v in (_share(s, r) for s, r in lows) if not math.isnan(v)]
-    highs = [v for v in (_share(s, r) for s, r in highs) if not math.isnan(v)]
-    if not lows or not highs:
+    low_shares = [v for v in (_share(s, r) for s, r in lows) if not math.isnan(v)]
+    high_shares = [v for v in (_share(s, r) for s, r in highs) if not math.isnan(v)]
+    if not low_shares or not high_shares:
         return (math.nan, math.nan)
-    lo, hi = min(lows), max(highs)
+    lo, hi = min(low_shares), max(high_shares)
     return widen(max(0.0, lo), min(1.0, hi))
 
 
-def _share(s, r):
+def _share(s: float, r: float) -> float:
     return s / (s + r) if s + r > 0 else math.nan
 
 

@@ -6,8 +6,9 @@ linear: on z = (x − lo)/h ∈ [0, 1], g(z) = 1 + s·(z − ½), whose mean is 
 on the whole bracket reaches every mean in the middle third (|s| ≤ 2); a mean nearer an end gets a
 triangle against that end, on [a, a + 3(m − a)] (s = −2) or [c − 3(c − m), c] (s = +2). The open
 top bracket [a, ∞) with mean m gets a Pareto tail with scale a and α = m/(m − a), the α whose mean
-is m (an open bracket from 0, where no Pareto law starts, an exponential law of mean m). Every bracket keeps its units and its mean, so the estimate is one of the distributions the
-bounds range over and lies inside them.
+is m (an open bracket from 0, where no Pareto law starts, an exponential law of mean m). Every
+bracket keeps its units and its mean, so the estimate is one of the distributions the bounds range
+over and lies inside them.
 """
 
 from __future__ import annotations

@@ -9,7 +9,6 @@ bracket (a density's shape, a Pareto index) and per measure (which bracket holds
 
 from __future__ import annotations
 
-import inspect
 import math
 
 import pandas as pd
@@ -25,7 +24,7 @@ from uneven.compiler.context import CompileOptions
 from uneven.compiler.emit import to_sql
 from uneven.compiler.pipeline import compile_sql
 from uneven.engine.adapters import adapt, is_duckdb
-from uneven.engine.frames import register_caller_frames, register_frames_on
+from uneven.engine.frames import callers_frame, register_caller_frames, register_frames_on
 from uneven.engine.runner import connect, execute_df
 from uneven.errors import InputDataError, MeasureArgumentError, SqlParseError, UnevenError
 from uneven.sqltree import build as s
@@ -47,7 +46,7 @@ def _parse(text, what: str) -> exp.Expression:
     if not isinstance(text, str) or not text.strip():
         raise MeasureArgumentError(f"from_brackets: {what} must be a column name or SQL expression, got {text!r}")
     try:
-        return sqlglot.parse_one(text, read="duckdb")
+        return s.node(sqlglot.parse_one(text, read="duckdb"))
     except sqlglot.errors.ParseError as e:
         raise SqlParseError(f"from_brackets: cannot read the {what} {text!r}: {str(e).splitlines()[0]}") from None
 
@@ -93,7 +92,8 @@ def read_measure(text: str) -> tuple[str, str, tuple[float, ...]]:
         try:
             v = float(arg.sql())
         except ValueError:
-            raise MeasureArgumentError(f"from_brackets: {name}: a parameter must be a number, got {arg.sql()}") from None
+            raise MeasureArgumentError(f"from_brackets: {name}: a parameter must be a number, "
+                                       f"got {arg.sql()}") from None
         if not 0 <= v <= 1:
             raise MeasureArgumentError(f"from_brackets: {name}: p must be a fraction in [0, 1], got {v:g}")
         params.append(v)
@@ -129,9 +129,9 @@ def _read(relation, columns: dict, by, con, frame) -> tuple[pd.DataFrame, list[s
     """SELECT by…, low, high, units, total FROM relation (values cast to DOUBLE)."""
     keys = [_parse(k, "group key") for k in ([by] if isinstance(by, str) else list(by or ()))]
     names = [k.alias_or_name or f"key{i + 1}" for i, k in enumerate(keys)]
-    items = [s.alias(k.unalias(), f"_uv_by{i + 1}") for i, k in enumerate(keys)]
+    items = [s.alias(s.node(k.unalias()), f"_uv_by{i + 1}") for i, k in enumerate(keys)]
     for role in _COLUMNS:
-        value = s.cast_double(_parse(columns[role], f"{role} column").unalias())
+        value = s.cast_double(s.node(_parse(columns[role], f"{role} column").unalias()))
         items.append(s.alias(value, f"_uv_{role}"))
         # NaN and NULL both arrive as NaN in pandas: a NaN in the table is flagged apart (never "missing")
         items.append(s.alias(exp.Anonymous(this="isnan", expressions=[value.copy()]), f"_uv_nan_{role}"))
@@ -234,13 +234,14 @@ def from_brackets(relation, measures=DEFAULT_MEASURES, *, low: str = "low", high
     labels = [c[0] for c in calls]
     if len(set(labels)) != len(labels):
         raise MeasureArgumentError("from_brackets: two measures have the same label; name them with AS")
-    frame = inspect.currentframe().f_back
+    frame = callers_frame()
     df, names = _read(relation, {"low": low, "high": high, "units": units, "total": total}, by, con, frame)
     _check_names(names, labels)
     rows = []
     for values, part in _groups(df, names):
         br = check_brackets(part["_uv_low"], part["_uv_high"], part["_uv_units"], part["_uv_total"],
                             _group_label(names, values))
+        assert br is not None  # without allow_empty, a group of empty brackets raises
         est = Estimate(br)
         row = dict(zip(names, values))
         row.update(units=float(br.units.sum()), brackets=len(br.units), missing_totals=br.missing,
@@ -286,9 +287,10 @@ def merge_brackets(parts, *, low: str = "low", high: str = "high", units: str = 
     items = list(parts) if isinstance(parts, (list, tuple)) else [parts]
     if not items:
         raise UnevenError("merge_brackets: no tables given")
-    frame = inspect.currentframe().f_back
+    frame = callers_frame()
     cols = {"low": low, "high": high, "units": units, "total": total}
-    frames, names = [], None
+    frames: list[pd.DataFrame] = []
+    names: list[str] = []
     for part in items:
         df, names = _read(part, cols, by, con, frame)
         frames.append(df)

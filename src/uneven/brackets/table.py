@@ -76,10 +76,11 @@ def check_brackets(low, high, units, total, group: str = "", allow_empty: bool =
     """Validate one group's rows (any order) and return them sorted, empty brackets dropped.
 
     Rows with the same (low, high) are one bracket: their units and totals add; the units of rows
-    without a total are counted apart (``Brackets.unknown``). Raises InputDataError naming the group and the bracket for: a missing or
-    non-finite low, a negative low, high < low (high = low: a bracket of one value, e.g. 0), an open high anywhere but the top, brackets that
-    overlap, missing/negative/non-finite units, a total outside [low·n, high·n], and an open top
-    bracket with units but no total (its mean, hence every bound, would be unlimited).
+    without a total are counted apart (``Brackets.unknown``). Raises InputDataError naming the group
+    and the bracket for: a missing or non-finite low, a negative low, high < low (high = low: a
+    bracket of one value, e.g. 0), an open high anywhere but the top, brackets that overlap,
+    missing/negative/non-finite units, a total outside [low·n, high·n], and an open top bracket with
+    units but no total (its mean, hence every bound, would be unlimited).
     """
     low = np.array(low, dtype=float)
     high = np.array(high, dtype=float)

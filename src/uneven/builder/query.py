@@ -22,9 +22,10 @@ from uneven.compiler.bounded import check_method
 from uneven.compiler.context import CompileOptions
 from uneven.compiler.emit import to_sql
 from uneven.engine.adapters import adapt, is_duckdb
-from uneven.engine.bounded import pick_resolution, run_bounded
+from uneven.engine.bounded import bounded_resolution, pick_resolution, run_bounded
 from uneven.engine.runner import connect, translate_error
 from uneven.errors import MeasureArgumentError, SqlParseError, UnevenError
+from uneven.sqltree import build as s
 
 SOURCE = "_uv_source"
 _READERS = {".parquet": "read_parquet", ".csv": "read_csv_auto", ".tsv": "read_csv_auto", ".json": "read_json_auto",
@@ -54,11 +55,11 @@ class Query:
 
     def filter(self, *conditions) -> Query:
         """Keep rows meeting every condition: SQL text (parsed, as the user's own SQL) or sqlglot expressions."""
-        parsed = []
+        parsed: list[exp.Expression] = []
         for c in conditions:
             if isinstance(c, str):
                 try:
-                    parsed.append(sqlglot.parse_one(c, read="duckdb", into=exp.Condition))
+                    parsed.append(s.node(sqlglot.parse_one(c, read="duckdb", into=exp.Condition)))
                 except sqlglot.errors.SqlglotError as e:
                     raise SqlParseError(f"filter(): could not parse the condition {c!r}: "
                                         f"{str(e).splitlines()[0]}") from None
@@ -76,7 +77,7 @@ class Query:
         """Output columns: name=measure object (``uneven.gini("x")``) or any aggregate as a sqlglot expression."""
         if not measures:
             raise BuilderError("agg(): give at least one output, e.g. agg(gini=uneven.gini('income'))")
-        outs = []
+        outs: list[tuple[str, exp.Expression]] = []
         for name, m in measures.items():
             if isinstance(m, MeasureCall):
                 outs.append((name, m.to_expression()))
@@ -164,19 +165,20 @@ class Query:
 
     def df(self, *, method: str | None = None, tolerance: float | None = None,
            resolution: float | None = None) -> pd.DataFrame:
-        """Run on DuckDB, or on the engine of ``con`` given to ``from_`` (PostgreSQL, Spark, SQLite). ``method="bounded"`` (or an earlier ``.method("bounded")``): intervals, as
-        ``uneven.query`` gives them, with the resolution and widths in ``attrs["uneven"]`` and one
-        run with finer bins when a share-scale interval is wider than ``tolerance``."""
+        """Run on DuckDB, or on the engine of ``con`` given to ``from_`` (PostgreSQL, Spark, SQLite).
+        ``method="bounded"`` (or an earlier ``.method("bounded")``): intervals, as ``uneven.query``
+        gives them, with the resolution and widths in ``attrs["uneven"]`` and one run with finer bins
+        when a share-scale interval is wider than ``tolerance``."""
         name, tol, res = self._how(method, tolerance, resolution)
         if not is_duckdb(self.con):
             if name == "exact":
                 return self._run_on()
-            return run_bounded(lambda r: self._run_on(name, r), pick_resolution(name, tol, res), tol,
+            return run_bounded(lambda r: self._run_on(name, r), bounded_resolution(tol, res), tol,
                                to_sql(self.tree()))
         try:
             if name == "exact":
                 return self._run().df()
-            return run_bounded(lambda r: self._run(name, r).df(), pick_resolution(name, tol, res), tol,
+            return run_bounded(lambda r: self._run(name, r).df(), bounded_resolution(tol, res), tol,
                                to_sql(self.tree()))
         except duckdb.Error as e:
             raise translate_error(e) from None

@@ -18,6 +18,7 @@ from uneven.errors import MeasureArgumentError
 def equivalised(income, adults, children, scale="oecd_modified") -> exp.Expression:
     """income / household size in equivalent adults: scale 'oecd_modified' (1 / 0.5 / 0.3),
     'sqrt' (√size) or a size elasticity θ in [0, 1] (size^θ). Columns by name or as expressions."""
+    value: exp.Expression
     if isinstance(scale, str):
         value = exp.Literal.string(scale)
     elif isinstance(scale, numbers.Real) and not isinstance(scale, bool):

@@ -22,6 +22,8 @@ The measure then works in SQL text (``SELECT middle_share(x, 0.4, 0.9, w) …``)
 
 from __future__ import annotations
 
+from typing import Literal
+
 import sqlglot
 from sqlglot import exp
 
@@ -33,6 +35,9 @@ from uneven.sqltree import build as s
 from uneven.sqltree.constants import ConstantError, evaluate_constant
 
 _USER: set[str] = set()
+# the kinds of a parameter of a user's measure (numbers; catalog.spec.Param)
+_PARAM_KINDS: dict[str, Literal["fraction", "number", "nonnegative", "count"]] = {
+    "fraction": "fraction", "number": "number", "nonnegative": "nonnegative", "count": "count"}
 
 
 class MeasureDefinitionError(UnevenError):
@@ -118,12 +123,16 @@ def define_measure(name: str, *, result: str, reference, params: list[str] | tup
     if key in _USER and not replace:
         raise MeasureDefinitionError(f"define_measure(): {key!r} is already defined; pass replace=True")
     kinds = param_kinds or {}
-    specs = tuple(Param(p, kinds.get(p, "fraction")) for p in params)
+    unknown = sorted(k for k in kinds.values() if k not in _PARAM_KINDS)
+    if unknown:
+        raise MeasureDefinitionError(f"define_measure(): a parameter kind must be one of {', '.join(_PARAM_KINDS)}, "
+                                     f"got {unknown[0]!r}")
+    specs = tuple(Param(p, _PARAM_KINDS[kinds.get(p, "fraction")]) for p in params)
     names_for = {"ordered": _ordered_names, "moment": _moment_names}.get(pass_)
     if names_for is None:
         raise MeasureDefinitionError(f"define_measure(): pass_ must be 'ordered' or 'moment', got {pass_!r}")
     try:
-        tree = sqlglot.parse_one(result, read="duckdb")
+        tree = s.node(sqlglot.parse_one(result, read="duckdb"))
     except sqlglot.errors.SqlglotError as e:
         raise MeasureDefinitionError(f"define_measure(): cannot parse the result expression: {e}") from None
     measure = Measure(key, pass_, specs, "weight" if weighted else None, formula or result,

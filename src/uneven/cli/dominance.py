@@ -28,9 +28,9 @@ DESCRIPTION = (
 def register(sub) -> None:
     p = sub.add_parser("dominance", help="Lorenz dominance of one group over another, with a test",
                        description=DESCRIPTION,
-                       epilog="examples:\n  uneven dominance 'survey.parquet' disposable --group year --groups 2024 2023 "
-                       "--weight w\n  uneven dominance 'survey.parquet' income --group province --groups Arquimbel "
-                       "Bozzlevar --generalized --points 9 --level 0.9",
+                       epilog="examples:\n  uneven dominance 'survey.parquet' disposable --group year --groups "
+                       "2024 2023 --weight w\n  uneven dominance 'survey.parquet' income --group province "
+                       "--groups Arquimbel Bozzlevar --generalized --points 9 --level 0.9",
                        formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("relation", metavar="RELATION", help=RELATION_HELP)
     p.add_argument("value", metavar="VALUE", help="the value (income) column or expression")

@@ -46,7 +46,7 @@ def run(args) -> int:
     found = uneven.explain(read_sql(args.sql), connection(args), profile=args.profile, strict=args.strict,
                             tie_grouping=args.tie_grouping, ordered=args.ordered, **settings(args))
     if args.json:
-        doc = {"passes": found.passes, "read_once": found.read_once, "sql": found.sql}
+        doc: dict[str, object] = {"passes": found.passes, "read_once": found.read_once, "sql": found.sql}
         if found.operators is not None:
             doc.update({"total_seconds": found.total_seconds, "result_rows": found.result_rows,
                         "operators": found.operators, "system": found.system})

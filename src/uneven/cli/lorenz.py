@@ -25,7 +25,8 @@ def add_source_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("source", metavar="SOURCE",
                    help="a Parquet or CSV file or glob (e.g. 'data/*.parquet'), or a table or view of --database")
     p.add_argument("--value", required=True, metavar="COL", help="the column whose spread is measured (numeric)")
-    p.add_argument("--weight", metavar="COL", help="a weight column (e.g. survey weights); default: every row counts once")
+    p.add_argument("--weight", metavar="COL",
+                   help="a weight column (e.g. survey weights); default: every row counts once")
     p.add_argument("--by", metavar="COLS", help="group columns, comma-separated (default: all rows together)")
 
 

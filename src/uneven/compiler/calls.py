@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import TypeGuard
 
 from sqlglot import exp
 
@@ -62,11 +63,11 @@ def call_filter(node: exp.Expression) -> exp.Expression | None:
     return None
 
 
-def is_measure(node: exp.Expression) -> bool:
+def is_measure(node: exp.Expr) -> TypeGuard[exp.Anonymous]:
     return isinstance(node, exp.Anonymous) and catalog.lookup(node.name) is not None
 
 
-def is_aggregate(node: exp.Expression) -> bool:
+def is_aggregate(node: exp.Expr) -> bool:
     """An ordinary SQL aggregate call (not a window function, not a measure)."""
     if not isinstance(node, exp.AggFunc):
         return False
@@ -90,7 +91,8 @@ _FORBIDDEN_CLAUSES = {
 def check_position(node: exp.Anonymous, ctx: CompileContext) -> exp.Select:
     """Return the SELECT the call belongs to, or raise if the call stands where it cannot work."""
     name = node.name.lower()
-    child, anc = node, node.parent
+    child: exp.Expr = node
+    anc = node.parent
     if isinstance(anc, exp.Filter) and child.arg_key == "this":  # measure(...) FILTER (WHERE …)
         for sub in anc.expression.walk():
             if is_measure(sub) or isinstance(sub, (exp.AggFunc, exp.Window, exp.Select)):
@@ -101,8 +103,9 @@ def check_position(node: exp.Anonymous, ctx: CompileContext) -> exp.Select:
         raise ctx.error(MeasureUsageError, f"{name}() cannot be used as a window function (… OVER (…)); "
                         "it is an aggregate over each group", node, name)
     while anc is not None and not isinstance(anc, exp.Select):
-        if isinstance(anc, exp.AggFunc) or is_measure(anc):
-            outer = anc.name.lower() if is_measure(anc) else anc.sql_name().lower()
+        outer = (anc.name.lower() if is_measure(anc)
+                 else anc.sql_name().lower() if isinstance(anc, exp.AggFunc) else None)
+        if outer is not None:
             raise ctx.error(MeasureUsageError, f"{name}() cannot be nested inside {outer}(); "
                             "compute it in a subquery first", node, name)
         child, anc = anc, anc.parent
@@ -149,6 +152,7 @@ def read_call(node: exp.Anonymous, ctx: CompileContext) -> MeasureCall:
     the argument list, the named arguments, the count, the value, the parameters, the trailing
     argument, then the options' values)."""
     measure = catalog.lookup(node.name)
+    assert measure is not None  # find_calls gives measure calls only
     positional, options = _split_arguments(node, measure, ctx)
     need = _check_count(node, measure, positional, ctx)
     x = positional[0]
@@ -227,7 +231,7 @@ def _read_params(node: exp.Anonymous, measure: Measure, args: list, ctx: Compile
 
 
 def _check_trailing(node: exp.Anonymous, measure: Measure, trailing: exp.Expression, ctx: CompileContext) -> None:
-    _check_row_level(trailing, measure.trailing, measure.name, node, ctx)
+    _check_row_level(trailing, measure.trailing or "trailing argument", measure.name, node, ctx)
     if isinstance(trailing, exp.Literal) and measure.trailing == "weight" and not trailing.is_string:
         pass  # a constant weight is allowed and acts like no weight
     elif isinstance(trailing, exp.Null):

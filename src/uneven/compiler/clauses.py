@@ -21,6 +21,7 @@ from sqlglot import exp
 
 from uneven.compiler.context import CompileContext, span
 from uneven.errors import UnsupportedSqlError
+from uneven.sqltree import build as s
 from uneven.sqltree.volatile import is_order_dependent, is_volatile_call
 
 CARRIED = "carried"
@@ -114,18 +115,19 @@ JOIN_ARGS: dict[str, str] = {
 }
 
 # values of Join.kind / side / method: carried everywhere, or only on the named target dialects
-JOIN_KINDS = {"": CARRIED, "INNER": CARRIED, "OUTER": CARRIED, "CROSS": CARRIED,
+JoinState = str | tuple[str, ...]  # CARRIED, the dialects that carry it, or the words refusing it
+JOIN_KINDS: dict[str, JoinState] = {"": CARRIED, "INNER": CARRIED, "OUTER": CARRIED, "CROSS": CARRIED,
               "SEMI": ("duckdb", "spark"), "ANTI": ("duckdb", "spark"),
               "STRAIGHT_JOIN": "STRAIGHT_JOIN", "ARRAY": "ARRAY JOIN", "ALL": "ALL JOIN", "ANY": "ANY JOIN",
               "ASOF": "ASOF JOIN written as a join kind", "PASTE": "PASTE JOIN"}
-JOIN_SIDES = {"": CARRIED, "LEFT": CARRIED, "RIGHT": CARRIED, "FULL": CARRIED}
-JOIN_METHODS = {"": CARRIED, "NATURAL": CARRIED, "ASOF": ("duckdb",), "POSITIONAL": ("duckdb",)}
+JOIN_SIDES: dict[str, JoinState] = {"": CARRIED, "LEFT": CARRIED, "RIGHT": CARRIED, "FULL": CARRIED}
+JOIN_METHODS: dict[str, JoinState] = {"": CARRIED, "NATURAL": CARRIED, "ASOF": ("duckdb",), "POSITIONAL": ("duckdb",)}
 
 # sampling of the rows (TABLESAMPLE / USING SAMPLE): the targets that take each method, by percent
 # or by row count. DuckDB takes them all; PostgreSQL's built-in methods are SYSTEM and BERNOULLI,
 # by percent only; SQLite has no sampling; the other targets are refused because they cannot
 # evaluate a random source once (see MATERIALIZING).
-SAMPLE_METHODS = {
+SAMPLE_METHODS: dict[str, dict[str, tuple[str, ...]]] = {
     "duckdb": {"SYSTEM": ("percent", "rows"), "BERNOULLI": ("percent",), "RESERVOIR": ("percent", "rows")},
     "postgres": {"SYSTEM": ("percent",), "BERNOULLI": ("percent",)},
 }
@@ -142,7 +144,7 @@ def refuse(ctx: CompileContext, what: str, node: exp.Expression) -> UnsupportedS
     """The error naming the construct, at its position (or, when sqlglot kept none for it, at the
     nearest enclosing node that has one)."""
     while span(node)[0] is None and node.parent is not None:
-        node = node.parent
+        node = s.node(node.parent)
     return ctx.error(UnsupportedSqlError, f"{what} cannot be combined with measure calls", node)
 
 
@@ -283,7 +285,7 @@ def _volatile_in(parts, ctes: dict[str, exp.Expression], seen: set[str]) -> exp.
 def _visible_ctes(select: exp.Select) -> dict[str, exp.Expression]:
     """CTE name → body for every WITH on the way from the scope up to the statement."""
     out: dict[str, exp.Expression] = {}
-    node = select
+    node: exp.Expr | None = select
     while node is not None:
         with_ = node.args.get("with_") if isinstance(node, exp.Expression) else None
         for cte in (with_.expressions if with_ is not None else []):
@@ -306,11 +308,11 @@ def volatile_outside_sources(select: exp.Select) -> exp.Expression | None:
                 if not is_volatile_call(node):
                     continue
                 if arg == "group":
-                    return node
+                    return s.node(node)
                 anc = node.parent
                 while anc is not None and anc is not select:
                     if is_measure(anc) or (isinstance(anc, exp.Filter) and is_measure(anc.this)):
-                        return node
+                        return s.node(node)
                     anc = anc.parent
     return None
 

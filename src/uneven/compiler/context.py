@@ -4,12 +4,14 @@ from __future__ import annotations
 
 from collections import defaultdict
 from dataclasses import dataclass, field
-from typing import Protocol
+from typing import Protocol, TypeVar
 
 from sqlglot import exp
 
 from uneven.errors import UnevenError
 from uneven.sqltree.spans import span, text  # noqa: F401  (re-exported to the stages)
+
+E = TypeVar("E", bound=UnevenError)
 
 
 @dataclass(frozen=True)
@@ -61,7 +63,7 @@ class CompileContext:
         self.counters[kind] += 1
         return f"_uv_{kind}_{self.counters[kind]}"
 
-    def error(self, cls: type[UnevenError], message: str, node: exp.Expression | None = None,
-              function: str | None = None) -> UnevenError:
+    def error(self, cls: type[E], message: str, node: exp.Expression | None = None,
+              function: str | None = None) -> E:
         start, end = span(node) if node is not None else (None, None)
         return cls(message, sql=self.sql, start=start, end=end, function=function)

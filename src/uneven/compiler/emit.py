@@ -66,7 +66,7 @@ OTHER = (exp.Xor, exp.IntDiv, exp.BitwiseAnd, exp.BitwiseOr, exp.BitwiseXor, exp
 OPERATORS = tuple(LEVEL) + OTHER
 PREFIX = (exp.Not, exp.Neg, exp.BitwiseNot)
 # the argument keys that hold operands (the rest are lists in parentheses, flags, subqueries)
-OPERANDS = {exp.Between: ("this", "low", "high"), exp.In: ("this",)}
+OPERANDS: dict[type[exp.Expr], tuple[str, ...]] = {exp.Between: ("this", "low", "high"), exp.In: ("this",)}
 
 
 def _level(node: exp.Expression) -> int | None:
@@ -165,7 +165,7 @@ def _normalised(tree: exp.Expression) -> exp.Expression:
 
 
 def _parse(text: str, dialect: str) -> list[exp.Expression]:
-    return [_normalised(t) for t in sqlglot.parse(text, read=dialect) if t is not None]
+    return [_normalised(s.node(t)) for t in sqlglot.parse(text, read=dialect) if t is not None]
 
 
 def _first_difference(a: exp.Expression, b: exp.Expression) -> tuple[exp.Expression, exp.Expression]:

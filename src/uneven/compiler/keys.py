@@ -10,7 +10,7 @@ from uneven.errors import UnsupportedSqlError
 from uneven.sqltree.grouping import reads_source_column
 
 
-def _aggregated(e: exp.Expression) -> bool:
+def _aggregated(e: exp.Expr) -> bool:
     return any(is_measure(n) or is_aggregate(n) for n in e.walk())
 
 

@@ -22,6 +22,7 @@ from uneven.compiler.context import CompileContext, text
 from uneven.compiler.keys import resolve_group_keys
 from uneven.compiler.scope import output_aliases
 from uneven.errors import UnsupportedSqlError
+from uneven.sqltree import build as s
 from uneven.sqltree.build import cte, table
 from uneven.sqltree.grouping import scope_columns
 from uneven.sqltree.volatile import is_order_dependent, is_volatile_call
@@ -69,11 +70,11 @@ def materialize_scope(select: exp.Select, ctx: CompileContext) -> bool:
             k = (kept if quoted else kept.lower(), quoted)
             if k not in seen:
                 seen.add(k)
-                projections.append(exp.alias_(col.copy(), exp.to_identifier(kept, quoted=quoted)))
+                projections.append(s.node(exp.alias_(col.copy(), exp.to_identifier(kept, quoted=quoted))))
             if col.table:
                 col.replace(exp.column(exp.to_identifier(kept, quoted=True)))
     if not projections:
-        projections.append(exp.alias_(exp.Literal.number(1), "_uv_c0", quoted=True))
+        projections.append(s.alias(exp.Literal.number(1), "_uv_c0"))
 
     body = exp.Select(expressions=projections)
     for arg in ("from_", "joins", "laterals", "where", "sample"):

@@ -7,6 +7,7 @@ from sqlglot import exp
 from sqlglot.errors import ParseError, TokenError
 
 from uneven.errors import SqlParseError, UnsupportedSqlError
+from uneven.sqltree import build as s
 
 
 def _offset(sql: str, line: int, col: int) -> int:
@@ -18,7 +19,7 @@ def parse_statements(sql: str, read: str = "duckdb") -> list[exp.Expression]:
     if not isinstance(sql, str) or not sql.strip():
         raise SqlParseError("the query is empty")
     try:
-        statements = [s for s in sqlglot.parse(sql, read=read) if s is not None]
+        statements = [s.node(t) for t in sqlglot.parse(sql, read=read) if t is not None]
     except ParseError as e:
         first = (e.errors or [{}])[0]
         line, col = first.get("line"), first.get("col")

@@ -21,7 +21,7 @@ from uneven.compiler.types import check_argument_types
 from uneven.errors import MeasureUsageError, UnsupportedSqlError
 
 
-def _depth(node: exp.Expression) -> int:
+def _depth(node: exp.Expr) -> int:
     d = 0
     while node.parent is not None:
         node, d = node.parent, d + 1

@@ -213,7 +213,7 @@ SHAREABLE = {PassKind.ORDERED, PassKind.MOMENT}  # plain passes whose measures a
 def share_passes(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
     """Move the calls of an ordered or moment pass onto a linearized pass of the same value, weight
     and FILTER (when ``can_share(call)``), so an estimate and its standard error share one sort."""
-    linearized = {}
+    linearized: dict[tuple, PassPlan] = {}
     for plan in plans:
         if plan.kind == PassKind.LINEARIZED:
             linearized.setdefault(_rows_key(plan), plan)

@@ -10,9 +10,11 @@ cannot see types: the target engine's CAST decides (text that is not a number fa
 from __future__ import annotations
 
 import re
+from collections.abc import Iterable
 
 from sqlglot import exp
 
+from uneven.compiler.calls import MeasureCall
 from uneven.compiler.context import CompileContext, text
 from uneven.errors import MeasureArgumentError
 
@@ -26,9 +28,9 @@ def is_numeric_type(name: str) -> bool:
     return bool(_NUMERIC.match(name.strip())) or name.strip() in _NULL
 
 
-def typed_arguments(calls) -> list[tuple[exp.Expression, str, object]]:
+def typed_arguments(calls: Iterable[MeasureCall]) -> list[tuple[exp.Expression, str, MeasureCall]]:
     """(expression, role, call) for every argument that must be numeric: the value, and the weight."""
-    out = []
+    out: list[tuple[exp.Expression, str, MeasureCall]] = []
     for call in calls:
         out.append((call.x, "value", call))
         if call.trailing is not None and call.measure.trailing == "weight":

@@ -24,6 +24,13 @@ def pick_resolution(method: str, tolerance: float | None, resolution: float | No
     return check_resolution(DEFAULT_RESOLUTION if resolution is None else resolution)
 
 
+def bounded_resolution(tolerance: float | None, resolution: float | None) -> float:
+    """The relative bin width of a bounded query (``pick_resolution`` for method="bounded")."""
+    res = pick_resolution("bounded", tolerance, resolution)
+    assert res is not None  # a bounded query always has one
+    return res
+
+
 def interval_widths(df: pd.DataFrame) -> dict[str, float]:
     """Widest hi − lo over the rows, per measure column that has _lo and _hi companions."""
     out = {}

@@ -4,17 +4,20 @@ columns a SELECT's FROM clause provides (GROUP BY name resolution), what types m
 
 from __future__ import annotations
 
+from collections.abc import Sequence
+
 import duckdb
 from sqlglot import exp
 
 from uneven.compiler.emit import to_sql
 from uneven.engine.ties import duckdb_tie_counts
+from uneven.sqltree import build as s
 
 
-def probe_select(select: exp.Select, projections: list[exp.Expression], limit: bool = True) -> exp.Select | None:
+def probe_select(select: exp.Select, projections: Sequence[exp.Expression], limit: bool = True) -> exp.Select | None:
     """SELECT projections FROM <select's FROM, joins, laterals, WITH> [LIMIT 0] (None without FROM);
     the column and type probes of every engine (engine/adapters) build on it."""
-    probe = exp.Select(expressions=projections)
+    probe = exp.Select(expressions=list(projections))
     for arg in ("from_", "joins", "laterals", "with_"):
         value = select.args.get(arg)
         if value:
@@ -63,7 +66,7 @@ class DuckDBSchema:
             return None
         if not exprs:
             return []
-        projections = [exp.alias_(e.copy(), f"_uv_p{i + 1}", quoted=True) for i, e in enumerate(exprs)]
+        projections = [s.alias(e.copy(), f"_uv_p{i + 1}") for i, e in enumerate(exprs)]
         probe = probe_select(select, projections)
         if probe is None:
             probe = exp.Select(expressions=[p.copy() for p in projections])

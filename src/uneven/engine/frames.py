@@ -3,12 +3,21 @@ DuckDB's own Python API does for the frame that calls it (uneven calls DuckDB on
 
 from __future__ import annotations
 
+import inspect
 import types
 
 import sqlglot
 from sqlglot import exp
 
 _FRAME_TYPES = ("DataFrame", "Table", "RecordBatchReader", "DuckDBPyRelation", "Dataset")
+
+
+def callers_frame() -> types.FrameType | None:
+    """The frame of the code that called the function calling this one: where the data frames that
+    function's SQL names are held (None where the interpreter keeps no frames)."""
+    here = inspect.currentframe()
+    function = here.f_back if here is not None else None
+    return function.f_back if function is not None else None
 
 
 def _table_names(sql: str) -> set[str]:

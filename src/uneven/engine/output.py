@@ -6,6 +6,7 @@ import json
 import math
 import os
 import tempfile
+from collections.abc import Mapping
 from pathlib import Path
 
 import numpy as np
@@ -91,7 +92,7 @@ def _temp_beside(target: Path) -> tuple[int, str]:
     return fd, tmp
 
 
-def write_all(files: dict[Path, str | bytes], overwrite: bool = False) -> None:
+def write_all(files: Mapping[Path, str | bytes], overwrite: bool = False) -> None:
     """Write several files all or nothing: each to a temporary file beside it, then renamed."""
     check_targets(list(files), overwrite)
     temps: list[tuple[str, Path]] = []

@@ -38,7 +38,8 @@ def _over_source(select: exp.Select, projections: list[exp.Expression], conditio
     return out
 
 
-def is_tie_prone(type_name: str) -> bool:
+def is_tie_prone(type_name: object) -> bool:
+    """Whether a column type (its name, or DuckDB's type object) is one whose values often tie."""
     return str(type_name).upper().split("(")[0] in _TIE_PRONE
 
 
@@ -56,7 +57,10 @@ def duckdb_tie_counts(con: duckdb.DuckDBPyConnection, select: exp.Select, x: exp
         cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
         pairs = exp.ApproxDistinct(this=exp.Anonymous(this="hash", expressions=[k.copy() for k in keys] + [x.copy()]))
         counted = _over_source(select, [s.agg_count_star(), pairs], cond)
-        rows, distinct = con.execute(to_sql(counted)).fetchone()
+        counts = con.execute(to_sql(counted)).fetchone()
+        if counts is None:
+            return None
+        rows, distinct = counts
     except Exception:  # noqa: BLE001  the probe never fails a query: keep the plain plan
         return None
     return int(distinct or 0), int(rows or 0)
@@ -76,7 +80,7 @@ def adapter_tie_counts(adapter, select: exp.Select, x: exp.Expression, condition
             if not types or not is_tie_prone(types[0]):
                 return None
         cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
-        pairs = _over_source(select, [exp.alias_(s.agg_count_star(), "_uv_n", quoted=True)], cond)
+        pairs = _over_source(select, [s.alias(s.agg_count_star(), "_uv_n")], cond)
         pairs.set("group", exp.Group(expressions=[k.copy() for k in keys] + [x.copy()]))
         counted = exp.select(s.agg_count_star(), exp.Sum(this=exp.column("_uv_n", quoted=True))).from_(
             exp.Subquery(this=pairs, alias=exp.TableAlias(this=exp.to_identifier("_uv_t"))))

@@ -19,5 +19,8 @@ def density_at_quantile(x, p, w=None) -> float | None:
     """Siddiqui (1960) / Bloch–Gastwirth (1968) (from memory) difference quotient with the Hall–Sheather bandwidth."""
     h = hall_sheather(p, len(x))
     hi, lo = min(p + h, 1.0), max(p - h, 0.0)
-    spread = R.quantile_w(x, hi, w) - R.quantile_w(x, lo, w)
+    q_hi, q_lo = R.quantile_w(x, hi, w), R.quantile_w(x, lo, w)
+    if q_hi is None or q_lo is None:  # no rows
+        return None
+    spread = q_hi - q_lo
     return (hi - lo) / spread if spread > 0 else None

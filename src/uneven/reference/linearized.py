@@ -40,7 +40,8 @@ def _gini(x, w):
 
 
 def _lorenz(x, p, w):
-    # Binder & Kovacevic (1995, from memory) estimating-equation form: z_k = [p Q_p + (x_k − Q_p) 1(x_k ≤ Q_p) − L x_k] / T
+    # Binder & Kovacevic (1995, from memory) estimating-equation form:
+    # z_k = [p Q_p + (x_k − Q_p) 1(x_k ≤ Q_p) − L x_k] / T
     x, w, o = _sorted(x, w)
     xs, ws = x[o], w[o]
     C = np.cumsum(ws)
@@ -54,7 +55,8 @@ def _lorenz(x, p, w):
 
 
 def _quantile(x, p, w):
-    # z_k = (p − 1(x_k ≤ Q_p)) / (W f(Q_p))   (common practice; e.g. Serfling 1980, §2.5; Francisco & Fuller 1991; from memory)
+    # z_k = (p − 1(x_k ≤ Q_p)) / (W f(Q_p))
+    # (common practice; e.g. Serfling 1980, §2.5; Francisco & Fuller 1991; from memory)
     if not 0 < p < 1:
         return R.quantile_w(x, p, w), None
     x, w, o = _sorted(x, w)

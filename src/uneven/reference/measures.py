@@ -442,7 +442,7 @@ def _exact_sum(values) -> float:
     try:
         return math.fsum(values)
     except OverflowError:
-        total = sum(Fraction(v) for v in values)
+        total = sum((Fraction(v) for v in values), Fraction(0))
         if abs(total) > Fraction(np.finfo(np.float64).max):
             return math.inf if total > 0 else -math.inf
         return float(total)

@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import math
 import numbers
+from collections.abc import Callable
 
 import numpy as np
 
@@ -112,7 +113,10 @@ def wolfson(x, w=None) -> float | None:
     if m is None or m <= 0:
         return None
     mu = r.T / r.W
-    return float(2.0 * (mu / m) * (1.0 - 2.0 * R.lorenz(x, 0.5, w) - R.gini(x, w)))
+    half, gini = R.lorenz(x, 0.5, w), R.gini(x, w)
+    if half is None or gini is None:  # defined wherever the median is positive
+        return None
+    return float(2.0 * (mu / m) * (1.0 - 2.0 * half - gini))
 
 
 # equivalence scales ----------------------------------------------------------------------------
@@ -137,8 +141,9 @@ def equivalised(income, adults, children, scale="oecd_modified"):
 
 # influence functions (standard errors; the formulas in docs/poverty.md) ------------------------
 
-REFERENCES = {"below_line_share": below_line_share, "median_gap": median_gap, "fgt": fgt,
-              "fgt_relative": fgt_relative, "wolfson": wolfson}
+REFERENCES: dict[str, Callable[..., float | None]] = {
+    "below_line_share": below_line_share, "median_gap": median_gap, "fgt": fgt, "fgt_relative": fgt_relative,
+    "wolfson": wolfson}
 SE_MEASURES = ("below_line_share", "fgt", "fgt_relative", "wolfson")
 
 
@@ -167,7 +172,10 @@ def density_at_line(x, frac, w=None) -> float | None:
         return None
     h = min(hall_sheather(0.5, len(x)), H)
     hi, lo = min(H + h, 1.0), H - h
-    spread = R.quantile_w(x, hi, w) - R.quantile_w(x, lo, w)
+    q_hi, q_lo = R.quantile_w(x, hi, w), R.quantile_w(x, lo, w)
+    if q_hi is None or q_lo is None:  # no rows
+        return None
+    spread = q_hi - q_lo
     return (hi - lo) / spread if spread > 0 else None
 
 

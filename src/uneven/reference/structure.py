@@ -113,8 +113,8 @@ def _bounds_ok(ys, lo, hi) -> bool:
 
 
 def concentration_wagstaff(y, rank_by, lo, hi, w=None) -> float | None:
-    """Wagstaff's (2005, from memory) normalisation for an outcome bounded in [lo, hi]: C·(hi − lo)·μ / ((hi − μ)(μ − lo)).
-    None when a value lies outside the bounds or μ sits on a bound."""
+    """Wagstaff's (2005, from memory) normalisation for an outcome bounded in [lo, hi]:
+    C·(hi − lo)·μ / ((hi − μ)(μ − lo)). None when a value lies outside the bounds or μ sits on a bound."""
     (ys, _), ws = _arrays(y, rank_by, w=w)
     c = concentration(y, rank_by, w)
     if c is None or not _bounds_ok(ys, lo, hi):
@@ -216,6 +216,11 @@ def gini_sources(sources: dict[str, Any], w=None) -> list[dict] | None:
         S = math.fsum(ws * c) / T
         Gk = ref.gini(c, ws)
         Ck = concentration(c, total, ws)
+        if Ck is None:  # a source that adds up to 0 has no concentration, nor what is built on it
+            out.append({"source": name, "part_of_total": S, "own_gini": Gk, "conc_by_total": None,
+                        "corr_with_total": None, "gini_points": None, "part_of_gini": None,
+                        "gini_change_1pct": None})
+            continue
         out.append({"source": name, "part_of_total": S, "own_gini": Gk, "conc_by_total": Ck,
                     "corr_with_total": None if not Gk else Ck / Gk, "gini_points": S * Ck,
                     "part_of_gini": S * Ck / G, "gini_change_1pct": 0.01 * S * (Ck - G)})

@@ -9,6 +9,7 @@ read back from the picture (the tests do).
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass
 from xml.sax.saxutils import escape, quoteattr
 
@@ -97,7 +98,7 @@ def _axes(f: _Frame, x_ticks, y_ticks, x_labels, x_title: str, y_title: str) -> 
     return out
 
 
-def _legend(f: _Frame, series: list[Series], extra: list[tuple[str, str, bool]] = ()) -> list[str]:
+def _legend(f: _Frame, series: list[Series], extra: Sequence[tuple[str, str, bool]] = ()) -> list[str]:
     out, x, y = [], f.left + f.w + 14, f.top + 8
     for label, col, dashed in [(s.label, s.colour, s.dashed) for s in series] + list(extra):
         dash = ' stroke-dasharray="5 4"' if dashed else ""

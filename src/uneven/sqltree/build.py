@@ -6,7 +6,8 @@ identifiers are quoted by the generator and literals are typed nodes.
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Iterable, Iterator, Sequence
+from typing import cast, overload
 
 from sqlglot import exp
 
@@ -35,7 +36,13 @@ def lit(value: float | int | str) -> exp.Expression:
     return exp.Literal.number(str(value))
 
 
-def nodes(tree: exp.Expression):
+def node(e: exp.Expr) -> exp.Expression:
+    """``e`` typed as the node it is: sqlglot annotates what it parses, walks and builds as ``Expr``,
+    the root of its classes, while every node it makes is an ``Expression``."""
+    return cast(exp.Expression, e)
+
+
+def nodes(tree: exp.Expression) -> Iterator[exp.Expression]:
     """Every node of ``tree``, parents before children, in the order of sqlglot's depth-first walk
     (``tree.dfs()``); a plain stack over the nodes' arguments, several times faster than sqlglot's
     walks (a generator per node), which matters for the passes over a whole compiled query."""
@@ -43,7 +50,7 @@ def nodes(tree: exp.Expression):
     while stack:
         node = stack.pop()
         yield node
-        children = []
+        children: list[exp.Expression] = []
         for value in node.args.values():
             if isinstance(value, exp.Expression):
                 children.append(value)
@@ -69,15 +76,15 @@ def paren(e: exp.Expression) -> exp.Expression:
     return exp.Paren(this=e)
 
 
-def add(a, b):
+def add(a: exp.Expression, b: exp.Expression) -> exp.Add:
     return exp.Add(this=paren(a), expression=paren(b))
 
 
-def sub(a, b):
+def sub(a: exp.Expression, b: exp.Expression) -> exp.Sub:
     return exp.Sub(this=paren(a), expression=paren(b))
 
 
-def mul(a, b):
+def mul(a: exp.Expression, b: exp.Expression) -> exp.Expression:
     """Product that leaves out a literal factor of one (unweighted passes use w = 1)."""
     if is_one(a):
         return b
@@ -86,66 +93,66 @@ def mul(a, b):
     return exp.Mul(this=paren(a), expression=paren(b))
 
 
-def div(a, b):
+def div(a: exp.Expression, b: exp.Expression) -> exp.Div:
     return exp.Div(this=paren(a), expression=paren(b))
 
 
-def func(name: str, *args: exp.Expression) -> exp.Func:
-    return exp.func(name, *args)
+def func(name: str, *args: exp.Expression) -> exp.Expression:
+    return exp.func(name, *args)  # type: ignore[return-value]  # annotated Func; it builds a concrete node
 
 
-def agg_sum(e):
+def agg_sum(e: exp.Expression) -> exp.Sum:
     return exp.Sum(this=e)
 
 
-def agg_min(e):
+def agg_min(e: exp.Expression) -> exp.Min:
     return exp.Min(this=e)
 
 
-def agg_max(e):
+def agg_max(e: exp.Expression) -> exp.Max:
     return exp.Max(this=e)
 
 
-def agg_count_star():
+def agg_count_star() -> exp.Count:
     return exp.Count(this=exp.Star())
 
 
-def ln(e):
+def ln(e: exp.Expression) -> exp.Ln:
     return exp.Ln(this=e)
 
 
-def power(a, b):
+def power(a: exp.Expression, b: exp.Expression) -> exp.Pow:
     return exp.Pow(this=a, expression=b)
 
 
-def square(a):
+def square(a: exp.Expression) -> exp.Mul:
     """a * a: the same correctly rounded value as POWER(a, 2.0), and about 3x cheaper per row in
     DuckDB (pow is a library call); ``a`` is evaluated twice, so pass a column or a cheap term."""
     return exp.Mul(this=paren(a), expression=paren(a.copy()))
 
 
-def sqrt(e):
+def sqrt(e: exp.Expression) -> exp.Sqrt:
     return exp.Sqrt(this=e)
 
 
-def absval(e):
+def absval(e: exp.Expression) -> exp.Abs:
     return exp.Abs(this=e)
 
 
-def greatest(*args):
+def greatest(*args: exp.Expression) -> exp.Greatest:
     return exp.Greatest(this=args[0], expressions=list(args[1:]), ignore_nulls=True)
 
 
-def least(*args):
+def least(*args: exp.Expression) -> exp.Least:
     return exp.Least(this=args[0], expressions=list(args[1:]), ignore_nulls=True)
 
 
-def clamp(e, lo, hi):
+def clamp(e: exp.Expression, lo: exp.Expression, hi: exp.Expression) -> exp.Greatest:
     """max(lo, min(hi, e))."""
     return greatest(lo, least(hi, e))
 
 
-def cast_double(e):
+def cast_double(e: exp.Expression) -> exp.Expression:
     if isinstance(e, exp.Literal) and not e.is_string:
         return lit(float(e.this))
     if isinstance(e, exp.Cast) and e.to.this == exp.DataType.Type.DOUBLE:
@@ -153,65 +160,79 @@ def cast_double(e):
     return exp.cast(e, DOUBLE)
 
 
-def case(cond, then, otherwise=None) -> exp.Case:
+def case(cond: exp.Expression, then: exp.Expression, otherwise: exp.Expression | None = None) -> exp.Case:
     # built directly, taking ownership of its arguments like the other builders here
     # (Case().when() deep-copies them: a third of a moment query's compile time)
     return exp.Case(ifs=[exp.If(this=cond, true=then)], default=otherwise)
 
 
-def _connect(kind, conds):
+def _connect(kind: type[exp.And] | type[exp.Or], conds: Iterable[exp.Expression | None]) -> exp.Expression | None:
     """conds joined left-deep by AND or OR, the None ones left out (None when none is left).
     A condition that is itself a chain of the same connector is spliced in (AND and OR are
     associative in SQL's three-valued logic too), so ``and_(p, and_(q, r))`` is the chain p, q, r
     and prints without parentheses; any other operand keeps its grouping (compiler/emit.py)."""
-    conds = [part for c in conds if c is not None
-             for part in (c.flatten(unnest=False) if type(c) is kind else (c,))]
-    if not conds:
+    # flatten is annotated Expr; the operands of a chain are nodes (Expression)
+    parts: list[exp.Expression] = [part for c in conds if c is not None  # type: ignore[misc]
+                                   for part in (c.flatten(unnest=False) if type(c) is kind else (c,))]
+    if not parts:
         return None
-    out = conds[0]
-    for c in conds[1:]:
+    out = parts[0]
+    for c in parts[1:]:
         out = kind(this=out, expression=c)
     return out
 
 
-def and_(*conds):
+@overload
+def and_(first: exp.Expression, /, *conds: exp.Expression | None) -> exp.Expression: ...
+@overload
+def and_(first: exp.Expression | None, second: exp.Expression, /, *conds: exp.Expression | None) -> exp.Expression: ...
+@overload
+def and_(*conds: exp.Expression | None) -> exp.Expression | None: ...
+def and_(*conds: exp.Expression | None) -> exp.Expression | None:
+    """The conditions joined by AND (see _connect): a condition whenever the first one is given."""
     return _connect(exp.And, conds)
 
 
-def or_(*conds):
+@overload
+def or_(first: exp.Expression, /, *conds: exp.Expression | None) -> exp.Expression: ...
+@overload
+def or_(first: exp.Expression | None, second: exp.Expression, /, *conds: exp.Expression | None) -> exp.Expression: ...
+@overload
+def or_(*conds: exp.Expression | None) -> exp.Expression | None: ...
+def or_(*conds: exp.Expression | None) -> exp.Expression | None:
     return _connect(exp.Or, conds)
 
 
-def gt(a, b):
+def gt(a: exp.Expression, b: exp.Expression) -> exp.GT:
     return exp.GT(this=a, expression=b)
 
 
-def gte(a, b):
+def gte(a: exp.Expression, b: exp.Expression) -> exp.GTE:
     return exp.GTE(this=a, expression=b)
 
 
-def lt(a, b):
+def lt(a: exp.Expression, b: exp.Expression) -> exp.LT:
     return exp.LT(this=a, expression=b)
 
 
-def lte(a, b):
+def lte(a: exp.Expression, b: exp.Expression) -> exp.LTE:
     return exp.LTE(this=a, expression=b)
 
 
-def neq(a, b):
+def neq(a: exp.Expression, b: exp.Expression) -> exp.NEQ:
     return exp.NEQ(this=a, expression=b)
 
 
-def not_null(e):
+def not_null(e: exp.Expression) -> exp.Not:
     return exp.Not(this=exp.Is(this=e, expression=exp.Null()))
 
 
-def alias(e, name: str) -> exp.Alias:
+def alias(e: exp.Expression, name: str) -> exp.Alias:
     """e AS "name", on a copy of e (the caller may use e again)."""
     return exp.alias_(e, name, quoted=True)  # type: ignore[return-value]  # alias_ is annotated Expr; it builds an Alias
 
 
-def named(e, name: str) -> exp.Alias:
+def named(e: exp.Expression, name: str) -> exp.Alias:
     """e AS "name", taking ownership of e like the other builders here: for a tree built for this
     place alone (``alias`` deep-copies its argument, most of the copying of a compile). A tree in
     which some node stands in two places (a builder reused a subtree without copying it) is
@@ -223,7 +244,7 @@ def placed_once(tree: exp.Expression) -> bool:
     """Whether every node below ``tree`` names as its parent the node it stands under, in the slot
     it stands in (sqlglot re-parents a node placed into a second parent, so a node placed twice
     fails this at its first place)."""
-    stack = [tree]
+    stack: list[exp.Expression] = [tree]
     while stack:
         node = stack.pop()
         for key, value in node.args.items():
@@ -245,7 +266,7 @@ def raise_error(message: str) -> exp.Expression:
     return raise_error_expr(lit(message))
 
 
-def raise_error_expr(message: exp.Expression) -> exp.Expression:
+def raise_error_expr(message: exp.Expression) -> exp.Anonymous:
     return exp.Anonymous(this="error", expressions=[message])
 
 
@@ -266,8 +287,8 @@ def window(fn: exp.Expression, partition: Sequence[exp.Expression], order: Seque
     keeps the ORDER BY, so it shares the sort of the running columns)."""
     args = {"this": fn, "partition_by": partition or None, "over": "OVER"}
     if order:
-        args["order"] = exp.Order(expressions=[o if isinstance(o, exp.Ordered) else exp.Ordered(this=o, nulls_first=False)
-                                               for o in order])
+        args["order"] = exp.Order(expressions=[o if isinstance(o, exp.Ordered)
+                                               else exp.Ordered(this=o, nulls_first=False) for o in order])
     if running:
         args["spec"] = exp.WindowSpec(kind="ROWS", start="UNBOUNDED", start_side="PRECEDING",
                                       end="CURRENT ROW")
@@ -288,9 +309,9 @@ def table(name: str) -> exp.Table:
     return exp.Table(this=exp.to_identifier(name, quoted=True))
 
 
-def grouped(keys: list[exp.Expression], columns: list[exp.Expression], below: str) -> exp.Select:
+def grouped(keys: Sequence[exp.Expression], columns: Sequence[exp.Expression], below: str) -> exp.Select:
     """SELECT keys, columns FROM below GROUP BY keys (no GROUP BY without keys: one row)."""
-    out = exp.Select(expressions=[k.copy() for k in keys] + columns).from_(table(below), copy=False)
+    out = exp.Select(expressions=[k.copy() for k in keys] + list(columns)).from_(table(below), copy=False)
     if keys:
         out.set("group", exp.Group(expressions=[k.copy() for k in keys]))
     return out

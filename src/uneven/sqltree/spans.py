@@ -18,6 +18,6 @@ def span(node: exp.Expression) -> tuple[int | None, int | None]:
     return None, None
 
 
-def text(node: exp.Expression) -> str:
+def text(node: exp.Expr) -> str:
     """SQL of a node for messages, function names as written in lower case."""
     return node.sql("duckdb", normalize_functions="lower")

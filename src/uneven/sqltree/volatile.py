@@ -18,7 +18,7 @@ CLOCK_CLASSES = (exp.CurrentDate, exp.CurrentTimestamp, exp.CurrentTime)
 CLOCK_NAMES = frozenset({"now", "current_timestamp", "current_date", "get_current_time", "clock_timestamp"})
 
 
-def is_volatile_call(node: exp.Expression) -> bool:
+def is_volatile_call(node: exp.Expr) -> bool:
     if isinstance(node, VOLATILE_CLASSES):
         return True
     return isinstance(node, exp.Anonymous) and node.name.lower() in VOLATILE_NAMES

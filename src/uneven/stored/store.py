@@ -8,7 +8,6 @@ with ``uv_`` are the summary's; every other column is a group key.
 
 from __future__ import annotations
 
-import inspect
 from pathlib import Path
 
 import pandas as pd
@@ -20,8 +19,8 @@ from uneven.bounds import bins as b
 from uneven.bounds.measures import BOUNDED
 from uneven.compiler.generate import generate
 from uneven.engine.adapters import adapt, is_duckdb
-from uneven.engine.bounded import pick_resolution
-from uneven.engine.frames import register_caller_frames, register_frames_on
+from uneven.engine.bounded import bounded_resolution
+from uneven.engine.frames import callers_frame, register_caller_frames, register_frames_on
 from uneven.engine.runner import connect, execute_df
 from uneven.errors import MeasureArgumentError, SqlParseError, UnevenError
 from uneven.sqltree import build as s
@@ -57,7 +56,7 @@ class _Engine:
 
 def _parse(text: str, what: str) -> exp.Expression:
     try:
-        return sqlglot.parse_one(text, read="duckdb")
+        return s.node(sqlglot.parse_one(text, read="duckdb"))
     except sqlglot.errors.ParseError as e:
         raise SqlParseError(f"cannot read the {what} {text!r}: {str(e).splitlines()[0]}") from None
 
@@ -68,9 +67,9 @@ def _source(source, columns: list[str] | None = None) -> exp.Expression:
     if isinstance(source, (list, tuple)):
         if not source:
             raise UnevenError("no summaries given")
-        proj = [s.col(c) for c in columns] if columns is not None else [exp.Star()]
+        proj: list[exp.Expression] = [s.col(c) for c in columns] if columns is not None else [exp.Star()]
         selects = [exp.Select(expressions=[p.copy() for p in proj]).from_(_source(part)) for part in source]
-        union = selects[0]
+        union: exp.Expression = selects[0]
         for sel in selects[1:]:
             union = exp.Union(this=union, expression=sel, distinct=False)
         return exp.Subquery(this=union, alias=exp.TableAlias(this=exp.to_identifier("_uv_src", quoted=True)))
@@ -127,7 +126,7 @@ def _keys(by) -> list[tuple[str, exp.Expression]]:
         if name.lower().startswith(RESERVED_PREFIX):
             raise MeasureArgumentError(f"the group key name {name!r} starts with {RESERVED_PREFIX!r}, which "
                                        "summaries reserve for their own columns; rename it with AS")
-        out.append((name, node.unalias()))
+        out.append((name, s.node(node.unalias())))
     return out
 
 
@@ -158,7 +157,7 @@ def summarize(source, value: str, weight: str | None = None, *, by=(), where: st
     engine instead (``source`` then names a table or query there); its result, stored as a table or
     Parquet, merges with summaries made anywhere else at the same resolution.
     """
-    res = pick_resolution("bounded", tolerance, resolution)
+    res = bounded_resolution(tolerance, resolution)
     x = _parse(value, "value")
     w = _parse(weight, "weight") if weight is not None else None
     cond = _parse(where, "condition") if where is not None else None
@@ -169,7 +168,7 @@ def summarize(source, value: str, weight: str | None = None, *, by=(), where: st
                                "do not apply")
         return generate(select, dialect)
     connection = _Engine(con)
-    registered = connection.register_frames(generate(select, "duckdb"), inspect.currentframe().f_back)
+    registered = connection.register_frames(generate(select, "duckdb"), callers_frame())
     try:
         return _write(connection, select, parquet, table, replace)
     finally:
@@ -225,7 +224,7 @@ def merge_summaries(parts, *, by=None, parquet: str | Path | None = None, table:
     """Combine summaries of disjoint parts into the summary of their union (optionally rolled up to the
     key columns ``by``): counts and sums add, min and max take the min and max, per (keys, bin)."""
     connection = _Engine(con)
-    registered = _register(connection, parts, inspect.currentframe().f_back)
+    registered = _register(connection, parts, callers_frame())
     try:
         source, keys, sums = _summary_source(connection, parts)
         keys = _rollup_keys(keys, by)
@@ -306,7 +305,7 @@ def from_summary(summary, measures, *, by=None, con=None,
     if not calls:
         raise MeasureArgumentError("from_summary needs at least one measure")
     connection = _Engine(con)
-    registered = _register(connection, summary, inspect.currentframe().f_back)
+    registered = _register(connection, summary, callers_frame())
     try:
         source, keys, sums = _summary_source(connection, summary)
         select = measures_select(source, _rollup_keys(keys, by), sums, calls)

@@ -25,13 +25,15 @@ or when the groups are unions of whole strata; it ignores any covariance through
 
 from __future__ import annotations
 
-import inspect
 import math
+from collections.abc import Sequence
 
 import pandas as pd
 from sqlglot import exp
 
 from uneven import catalog
+from uneven.catalog.spec import Measure
+from uneven.engine.frames import callers_frame
 from uneven.errors import MeasureArgumentError
 from uneven.sqltree import build as s
 from uneven.tables.base import Spec, group_labels, parse_expression, session
@@ -72,7 +74,7 @@ def compare(relation: str, x1: str, x2: str | None = None, *, group: str | None 
             raise MeasureArgumentError(f"{fn}: comparing two groups needs both group= (the column) and groups= "
                                        "(its two values)")
         return compare_groups(relation, x1, group, groups, measure=measure, params=params, se=se, weight=weight,
-                              strata=strata, psu=psu, by=by, con=con, frame=inspect.currentframe().f_back)
+                              strata=strata, psu=psu, by=by, con=con, frame=callers_frame())
     if x2 is None:
         raise MeasureArgumentError(f"{fn}: give a second value of the same rows, or group= and groups=")
     if measure != "gini" or params or se not in (None, "design") or strata is not None or psu is not None:
@@ -83,7 +85,7 @@ def compare(relation: str, x1: str, x2: str | None = None, *, group: str | None 
     items = [s.alias(exp.Count(this=exp.Star()), "rows"), s.alias(spec.measure("gini", a), "gini_1"),
              s.alias(spec.measure("gini", b), "gini_2"), s.alias(spec.measure("gini_diff", a, b), "difference"),
              s.alias(spec.measure("gini_diff_se", a, b), "se")]
-    with session(spec, con, inspect.currentframe().f_back) as run:
+    with session(spec, con, callers_frame()) as run:
         out = run(spec.select(items, [a, b]))
     out["z"] = out["difference"] / out["se"].where(out["se"] > 0)
     return spec.rename(out, group_labels(by))
@@ -104,12 +106,12 @@ def two_levels(groups) -> tuple:
 
 
 def _measure(measure: str, params) -> tuple[str, tuple[float, ...]]:
-    def usable(m) -> bool:
+    def usable(m: Measure | None) -> bool:
         return (m is not None and catalog.lookup(f"{m.name}_se") is not None and m.trailing == "weight"
                 and not any(p.kind == "column" for p in m.params))
 
     m = catalog.lookup(measure) if isinstance(measure, str) else None
-    if not usable(m):
+    if m is None or not usable(m):
         have = sorted(n[:-3] for n in catalog.MEASURES if n.endswith("_se") and usable(catalog.lookup(n[:-3])))
         raise MeasureArgumentError(f"{FN}: measure must be one with a standard error ({', '.join(have)}), "
                                    f"got {measure!r}")
@@ -119,86 +121,155 @@ def _measure(measure: str, params) -> tuple[str, tuple[float, ...]]:
     return m.name, params
 
 
-def design_difference_sql(spec: Spec, x: exp.Expression, group: exp.Expression, levels: tuple,
-                          strata: exp.Expression | None, psu: exp.Expression | None) -> exp.Select:
-    """Per block of ``by``: rows and Gini of each group, and the linearized SE of G₁ − G₂ under the
-    shared design (strata, PSUs)."""
-    keys = spec.names()
-    part = lambda *extra: [s.col(k) for k in keys] + [s.col(e) for e in extra]  # noqa: E731
-    w = s.cast_double(spec.weight.copy()) if spec.weight is not None else ONE
-    member = s.and_(s.not_null(x.copy()), s.gt(w.copy(), ZERO))
+def _by(keys: Sequence[str], *extra: str) -> list[exp.Column]:
+    """The columns a block of ``by`` (and ``extra``) is partitioned or grouped on, by name."""
+    return [s.col(k) for k in keys] + [s.col(e) for e in extra]
+
+
+def _is_group(side: int) -> exp.Expression:
+    """The row belongs to the first (1) or the second (2) group."""
+    return exp.EQ(this=s.col("_uv_d"), expression=s.lit(side))
+
+
+def _design_rows(spec: Spec, x: exp.Expression, group: exp.Expression, levels: tuple,
+                 strata: exp.Expression | None, psu: exp.Expression | None) -> exp.Select:
+    """Every row of the design: its ``by`` keys, value, weight, group (1, 2 or NULL), stratum and PSU."""
+    w = s.cast_double(spec.weight.copy()) if spec.weight is not None else ONE.copy()
+    member = s.and_(s.not_null(x.copy()), s.gt(w.copy(), ZERO.copy()))
     d = s.case(s.and_(member, exp.EQ(this=group.copy(), expression=exp.convert(levels[0]))), s.lit(1))
     d = d.when(s.and_(member.copy(), exp.EQ(this=group.copy(), expression=exp.convert(levels[1]))), s.lit(2))
     # no PSU: each row its own, numbered in any order (Spark requires an ORDER BY in row_number's window)
     unit = psu.copy() if psu is not None else s.window(exp.RowNumber(), [], [x.copy()])
-    rows = exp.Select(expressions=[s.alias(b.copy(), n) for b, n in zip(spec.by, keys)] + [
+    rows = exp.Select(expressions=[s.alias(b.copy(), n) for b, n in zip(spec.by, spec.names())] + [
         s.alias(s.cast_double(x.copy()), "_uv_x"), s.alias(w, "_uv_w"), s.alias(d, "_uv_d"),
         s.alias(strata.copy() if strata is not None else s.lit(0), "_uv_h"),
         s.alias(unit, "_uv_psu")])
     rows.set("from_", spec.source.copy())
     if spec.weight is not None:
         rows.set("where", exp.Where(this=s.not_null(spec.weight.copy())))
+    return rows
+
+
+def _group_total(keys: Sequence[str], v: exp.Expression) -> exp.Window:
+    return s.window(s.agg_sum(v), _by(keys, "_uv_d"))
+
+
+def _design_windows(keys: Sequence[str]) -> exp.Select:
+    """Per row, within its group: running weight C and weighted value S (in order of the value),
+    and the group's totals W and T."""
     xv, wv = s.col("_uv_x"), s.col("_uv_w")
-    run_sum = lambda v: s.window(s.agg_sum(v), part("_uv_d"), [xv.copy()], running=True)  # noqa: E731
-    tot_sum = lambda v: s.window(s.agg_sum(v), part("_uv_d"))  # noqa: E731
-    win = exp.Select(expressions=part("_uv_d", "_uv_h", "_uv_psu") + [xv, wv,
-        s.alias(run_sum(wv.copy()), "_uv_c"), s.alias(run_sum(s.mul(wv.copy(), xv.copy())), "_uv_s"),
-        s.alias(tot_sum(wv.copy()), "_uv_wt"), s.alias(tot_sum(s.mul(wv.copy(), xv.copy())), "_uv_t")]
-    ).from_(s.table("_uv_cmp_rows"))
+
+    def running(v: exp.Expression) -> exp.Window:
+        return s.window(s.agg_sum(v), _by(keys, "_uv_d"), [xv.copy()], running=True)
+
+    return exp.Select(expressions=_by(keys, "_uv_d", "_uv_h", "_uv_psu") + [
+        xv, wv, s.alias(running(wv.copy()), "_uv_c"), s.alias(running(s.mul(wv.copy(), xv.copy())), "_uv_s"),
+        s.alias(_group_total(keys, wv.copy()), "_uv_wt"),
+        s.alias(_group_total(keys, s.mul(wv.copy(), xv.copy())), "_uv_t")]).from_(s.table("_uv_cmp_rows"))
+
+
+def _design_gini(keys: Sequence[str]) -> exp.Select:
+    """Each row with its group's Gini, G = Σ w x (2C − w − W) / (W T)."""
+    xv, wv = s.col("_uv_x"), s.col("_uv_w")
     W, T, C, S = s.col("_uv_wt"), s.col("_uv_t"), s.col("_uv_c"), s.col("_uv_s")
-    gini_term = s.mul(s.mul(wv.copy(), xv.copy()), s.sub(s.sub(s.mul(TWO, C.copy()), wv.copy()), W.copy()))
-    lin = exp.Select(expressions=part("_uv_d", "_uv_h", "_uv_psu") + [xv.copy(), wv.copy(), C.copy(), S.copy(),
-        W.copy(), T.copy(), s.alias(s.case(s.gt(T.copy(), ZERO), s.div(tot_sum(gini_term), s.mul(W.copy(), T.copy()))),
-                                    "_uv_g")]).from_(s.table("_uv_cmp_win"))
-    G = s.col("_uv_g")
-    z = s.div(s.sub(s.add(s.sub(s.mul(s.mul(TWO, C.copy()), xv.copy()), s.mul(TWO, S.copy())),
+    term = s.mul(s.mul(wv.copy(), xv.copy()), s.sub(s.sub(s.mul(TWO.copy(), C.copy()), wv.copy()), W.copy()))
+    gini = s.case(s.gt(T.copy(), ZERO.copy()), s.div(_group_total(keys, term), s.mul(W.copy(), T.copy())))
+    return exp.Select(expressions=_by(keys, "_uv_d", "_uv_h", "_uv_psu") + [
+        xv.copy(), wv.copy(), C.copy(), S.copy(), W.copy(), T.copy(), s.alias(gini, "_uv_g")]
+    ).from_(s.table("_uv_cmp_win"))
+
+
+def _design_score() -> exp.Expression:
+    """u_k: w·z of the row's own group's Gini, negated in the second group, 0 outside both, with
+    z = [2 C x − 2 S + T − W x − G (T + W x)] / (W T)."""
+    xv, wv = s.col("_uv_x"), s.col("_uv_w")
+    W, T, C, S, G = s.col("_uv_wt"), s.col("_uv_t"), s.col("_uv_c"), s.col("_uv_s"), s.col("_uv_g")
+    z = s.div(s.sub(s.add(s.sub(s.mul(s.mul(TWO.copy(), C.copy()), xv.copy()), s.mul(TWO.copy(), S.copy())),
                           s.sub(T.copy(), s.mul(W.copy(), xv.copy()))),
                     s.mul(G.copy(), s.add(T.copy(), s.mul(W.copy(), xv.copy())))), s.mul(W.copy(), T.copy()))
-    dcol = s.col("_uv_d")
-    is_ = lambda v: exp.EQ(this=dcol.copy(), expression=s.lit(v))  # noqa: E731
-    u = s.case(is_(1), s.mul(wv.copy(), z)).when(is_(2), exp.Neg(this=exp.Paren(this=s.mul(wv.copy(), z.copy()))))
-    u = exp.Coalesce(this=u, expressions=[ZERO.copy()])
-    in_group = lambda v, val: s.case(is_(v), val)  # noqa: E731
-    per_psu = exp.Select(expressions=part("_uv_h", "_uv_psu") + [
-        s.alias(s.agg_sum(u), "_uv_u"),
-        s.alias(exp.Count(this=in_group(1, s.lit(1))), "_uv_n1"), s.alias(exp.Count(this=in_group(2, s.lit(1))), "_uv_n2"),
+    u = s.case(_is_group(1), s.mul(wv.copy(), z))
+    u = u.when(_is_group(2), exp.Neg(this=exp.Paren(this=s.mul(wv.copy(), z.copy()))))
+    return exp.Coalesce(this=u, expressions=[ZERO.copy()])
+
+
+def _design_psus(keys: Sequence[str]) -> exp.Select:
+    """Per PSU: the total of u, the rows of each group, each group's Gini, whether each group has
+    rows and whether its Gini is undefined."""
+    G = s.col("_uv_g")
+
+    def in_group(side: int, value: exp.Expression) -> exp.Case:
+        return s.case(_is_group(side), value)
+
+    def undefined(side: int) -> exp.Case:
+        return s.case(s.and_(_is_group(side), exp.Is(this=G.copy(), expression=exp.Null())), s.lit(1))
+
+    return exp.Select(expressions=_by(keys, "_uv_h", "_uv_psu") + [
+        s.alias(s.agg_sum(_design_score()), "_uv_u"),
+        s.alias(exp.Count(this=in_group(1, s.lit(1))), "_uv_n1"),
+        s.alias(exp.Count(this=in_group(2, s.lit(1))), "_uv_n2"),
         s.alias(exp.Max(this=in_group(1, G.copy())), "_uv_g1"), s.alias(exp.Max(this=in_group(2, G.copy())), "_uv_g2"),
-        s.alias(exp.Max(this=in_group(1, s.lit(1))), "_uv_has1"), s.alias(exp.Max(this=in_group(2, s.lit(1))), "_uv_has2"),
-        s.alias(exp.Max(this=s.case(s.and_(is_(1), exp.Is(this=G.copy(), expression=exp.Null())), s.lit(1))), "_uv_bad1"),
-        s.alias(exp.Max(this=s.case(s.and_(is_(2), exp.Is(this=G.copy(), expression=exp.Null())), s.lit(1))), "_uv_bad2"),
-    ]).from_(s.table("_uv_cmp_lin")).group_by(*part("_uv_h", "_uv_psu"))
+        s.alias(exp.Max(this=in_group(1, s.lit(1))), "_uv_has1"),
+        s.alias(exp.Max(this=in_group(2, s.lit(1))), "_uv_has2"),
+        s.alias(exp.Max(this=undefined(1)), "_uv_bad1"), s.alias(exp.Max(this=undefined(2)), "_uv_bad2"),
+    ]).from_(s.table("_uv_cmp_lin")).group_by(*_by(keys, "_uv_h", "_uv_psu"))
+
+
+def _design_strata(keys: Sequence[str]) -> exp.Select:
+    """Per stratum: the number of PSUs and the sums of U and U², the group rows added up, the
+    flags and Gini carried."""
     U = s.col("_uv_u")
-    carry = ["_uv_n1", "_uv_n2"]
+    summed = ["_uv_n1", "_uv_n2"]
     highest = ["_uv_g1", "_uv_g2", "_uv_has1", "_uv_has2", "_uv_bad1", "_uv_bad2"]
-    per_stratum = exp.Select(expressions=part("_uv_h") + [
+    return exp.Select(expressions=_by(keys, "_uv_h") + [
         s.alias(s.agg_count_star(), "_uv_nu"), s.alias(s.agg_sum(U.copy()), "_uv_s1"),
         s.alias(s.agg_sum(s.mul(U.copy(), U.copy())), "_uv_s2")]
-        + [s.alias(s.agg_sum(s.col(c)), c) for c in carry] + [s.alias(exp.Max(this=s.col(c)), c) for c in highest]
-    ).from_(s.table("_uv_cmp_psu")).group_by(*part("_uv_h"))
+        + [s.alias(s.agg_sum(s.col(c)), c) for c in summed] + [s.alias(exp.Max(this=s.col(c)), c) for c in highest]
+    ).from_(s.table("_uv_cmp_psu")).group_by(*_by(keys, "_uv_h"))
+
+
+def _design_blocks(keys: Sequence[str]) -> exp.Select:
+    """Per block of ``by``: rows of each group, the two Gini, v = Σ_h n_h/(n_h − 1) Σ_c (U_hc − Ū_h)²
+    (as (n Σ U² − (Σ U)²)/(n − 1)), the fewest PSUs of a stratum and the flags."""
     n = s.cast_double(s.col("_uv_nu"))
     v_h = s.case(s.gt(s.col("_uv_nu"), s.lit(1)),
-                 s.div(s.sub(s.mul(n, s.col("_uv_s2")), s.mul(s.col("_uv_s1"), s.col("_uv_s1"))), s.sub(n.copy(), ONE)))
-    fin = exp.Select(expressions=part() + [
+                 s.div(s.sub(s.mul(n, s.col("_uv_s2")), s.mul(s.col("_uv_s1"), s.col("_uv_s1"))),
+                       s.sub(n.copy(), ONE.copy())))
+    fin = exp.Select(expressions=_by(keys) + [
         s.alias(s.agg_sum(s.col("_uv_n1")), "rows_1"), s.alias(s.agg_sum(s.col("_uv_n2")), "rows_2"),
         s.alias(exp.Max(this=s.col("_uv_g1")), "_uv_g1"), s.alias(exp.Max(this=s.col("_uv_g2")), "_uv_g2"),
         s.alias(s.agg_sum(v_h), "_uv_v"), s.alias(exp.Min(this=s.col("_uv_nu")), "_uv_fewest"),
         s.alias(exp.Max(this=s.col("_uv_bad1")), "_uv_bad1"), s.alias(exp.Max(this=s.col("_uv_bad2")), "_uv_bad2"),
         s.alias(exp.Max(this=s.col("_uv_has1")), "_uv_has1"), s.alias(exp.Max(this=s.col("_uv_has2")), "_uv_has2"),
     ]).from_(s.table("_uv_cmp_str"))
-    if keys:
-        fin = fin.group_by(*part())
-    ok = s.and_(exp.Is(this=s.col("_uv_bad1"), expression=exp.Null()), exp.Is(this=s.col("_uv_bad2"), expression=exp.Null()),
+    return fin.group_by(*_by(keys)) if keys else fin
+
+
+def _design_result(keys: Sequence[str]) -> exp.Select:
+    """The output columns: NULL Gini where a group has no rows or an undefined Gini, NULL SE also
+    where a stratum has a single PSU."""
+    ok = s.and_(exp.Is(this=s.col("_uv_bad1"), expression=exp.Null()),
+                exp.Is(this=s.col("_uv_bad2"), expression=exp.Null()),
                 s.not_null(s.col("_uv_has1")), s.not_null(s.col("_uv_has2")))
     g1 = s.case(ok, s.col("_uv_g1"))
     g2 = s.case(ok.copy(), s.col("_uv_g2"))
     se = s.case(s.and_(ok.copy(), s.gt(s.col("_uv_fewest"), s.lit(1))),
                 s.sqrt(s.greatest(s.col("_uv_v"), ZERO.copy())))
-    final = exp.Select(expressions=part() + [s.col("rows_1"), s.col("rows_2"), s.alias(g1, "gini_1"), s.alias(g2, "gini_2"),
-                                             s.alias(s.sub(g1.copy(), g2.copy()), "difference"), s.alias(se, "se")]
-                       ).from_(s.table("_uv_cmp_fin"))
-    final.set("with_", exp.With(expressions=[s.cte(rows, "_uv_cmp_rows"), s.cte(win, "_uv_cmp_win"),
-                                             s.cte(lin, "_uv_cmp_lin"), s.cte(per_psu, "_uv_cmp_psu"),
-                                             s.cte(per_stratum, "_uv_cmp_str"), s.cte(fin, "_uv_cmp_fin")]))
+    return exp.Select(expressions=_by(keys) + [
+        s.col("rows_1"), s.col("rows_2"), s.alias(g1, "gini_1"), s.alias(g2, "gini_2"),
+        s.alias(s.sub(g1.copy(), g2.copy()), "difference"), s.alias(se, "se")]).from_(s.table("_uv_cmp_fin"))
+
+
+def design_difference_sql(spec: Spec, x: exp.Expression, group: exp.Expression, levels: tuple,
+                          strata: exp.Expression | None, psu: exp.Expression | None) -> exp.Select:
+    """Per block of ``by``: rows and Gini of each group, and the linearized SE of G₁ − G₂ under the
+    shared design (strata, PSUs). One CTE per step: rows, windows, Gini, PSUs, strata, blocks."""
+    keys = spec.names()
+    final = _design_result(keys)
+    final.set("with_", exp.With(expressions=[
+        s.cte(_design_rows(spec, x, group, levels, strata, psu), "_uv_cmp_rows"),
+        s.cte(_design_windows(keys), "_uv_cmp_win"), s.cte(_design_gini(keys), "_uv_cmp_lin"),
+        s.cte(_design_psus(keys), "_uv_cmp_psu"), s.cte(_design_strata(keys), "_uv_cmp_str"),
+        s.cte(_design_blocks(keys), "_uv_cmp_fin")]))
     return final
 
 
@@ -222,7 +293,7 @@ def compare_groups(relation: str, x: str, group: str, groups, *, measure: str = 
     h = parse_expression(strata, "strata", FN) if strata is not None else None
     c = parse_expression(psu, "psu", FN) if psu is not None else None
     keys = spec.names()
-    with session(spec, con, frame or inspect.currentframe().f_back) as run:
+    with session(spec, con, frame or callers_frame()) as run:
         if method == "design":
             out = run(design_difference_sql(spec, xv, gv, levels, h, c))
         else:
@@ -262,7 +333,8 @@ def _independent(spec, run, name, params, xv, gv, levels, h, c) -> pd.DataFrame:
         def get(i, col, side=side):
             return None if side[i].empty or pd.isna(side[i][col].iloc[0]) else float(side[i][col].iloc[0])
         e1, e2, s1, s2 = get(1, "est"), get(2, "est"), get(1, "se"), get(2, "se")
-        rows.append({**{k: b[k] for k in keys}, "rows_1": int(side[1]["rows"].sum()), "rows_2": int(side[2]["rows"].sum()),
+        rows.append({**{k: b[k] for k in keys},
+                     "rows_1": int(side[1]["rows"].sum()), "rows_2": int(side[2]["rows"].sum()),
                      "gini_1": e1, "gini_2": e2, "difference": e1 - e2 if None not in (e1, e2) else None,
                      "se": math.hypot(s1, s2) if None not in (s1, s2) else None})
     return pd.DataFrame(rows).astype({"difference": float, "se": float, "gini_1": float, "gini_2": float})

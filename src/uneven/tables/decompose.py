@@ -2,11 +2,11 @@
 
 from __future__ import annotations
 
-import inspect
 import math
 
 import pandas as pd
 
+from uneven.engine.frames import callers_frame
 from uneven.errors import MeasureArgumentError
 from uneven.sqltree import build as s
 from uneven.tables.base import Spec, group_labels, parse_expression, session
@@ -30,11 +30,12 @@ def decompose(relation: str, x: str, subgroup: str, *, alpha: float = 0.0, weigh
     spec = Spec(fn, relation, by, weight)
     xv, sg = parse_expression(x, "value", fn), parse_expression(subgroup, "subgroup", fn)
     a = s.lit(float(alpha))
-    per = spec.select([s.alias(sg.copy(), "subgroup"), s.alias(spec.wsum(), "_uv_wg"), s.alias(spec.wsum(xv), "_uv_tg"),
-                       s.alias(spec.measure("ge", xv, a), "ge")], [xv, sg], [sg])
-    tot = spec.select([s.alias(spec.measure("ge", xv, a), "total"), s.alias(spec.measure("ge_between", xv, a, sg), "between"),
+    per = spec.select([s.alias(sg.copy(), "subgroup"), s.alias(spec.wsum(), "_uv_wg"),
+                       s.alias(spec.wsum(xv), "_uv_tg"), s.alias(spec.measure("ge", xv, a), "ge")], [xv, sg], [sg])
+    tot = spec.select([s.alias(spec.measure("ge", xv, a), "total"),
+                       s.alias(spec.measure("ge_between", xv, a, sg), "between"),
                        s.alias(spec.measure("ge_within", xv, a, sg), "within")], [xv, sg])
-    with session(spec, con, inspect.currentframe().f_back) as run:
+    with session(spec, con, callers_frame()) as run:
         parts, totals = run(per), run(tot)
     keys = spec.names()
     frames = []
@@ -90,7 +91,7 @@ def gini_sources(relation: str, sources: list[str], *, weight: str | None = None
     for i, c in enumerate(cols):
         items += [s.alias(spec.wsum(c), f"_uv_t{i}"), s.alias(spec.measure("gini", c), f"_uv_g{i}"),
                   s.alias(spec.measure("concentration", c, total), f"_uv_c{i}")]
-    with session(spec, con, inspect.currentframe().f_back) as run:
+    with session(spec, con, callers_frame()) as run:
         res = run(spec.select(items, cols))
     keys, rows = spec.names(), []
     for _, r in res.iterrows():
@@ -98,13 +99,15 @@ def gini_sources(relation: str, sources: list[str], *, weight: str | None = None
         for i, name in enumerate(sources):
             S = r[f"_uv_t{i}"] / T if T else None
             Gk, Ck = _num(r[f"_uv_g{i}"]), _num(r[f"_uv_c{i}"])
-            ok = S is not None and Ck is not None and not pd.isna(G)
+            points = share = change = pct_change = None
+            if S is not None and Ck is not None and not pd.isna(G):
+                points, change = S * Ck, 0.01 * S * (Ck - G)
+                if G:
+                    share, pct_change = S * Ck / G, S * Ck / G - S
             rows.append({**{k: r[k] for k in keys}, "source": name, "part_of_total": S, "own_gini": Gk,
                          "conc_by_total": Ck, "corr_with_total": Ck / Gk if Ck is not None and Gk else None,
-                         "gini_points": S * Ck if ok else None,
-                         "part_of_gini": S * Ck / G if ok and G else None,
-                         "gini_change_1pct": 0.01 * S * (Ck - G) if ok else None,
-                         "gini_pct_change_1pct": S * Ck / G - S if ok and G else None})
+                         "gini_points": points, "part_of_gini": share, "gini_change_1pct": change,
+                         "gini_pct_change_1pct": pct_change})
         rows.append({**{k: r[k] for k in keys}, "source": "total", "part_of_total": 1.0, "own_gini": _num(G),
                      "conc_by_total": _num(G), "corr_with_total": 1.0, "gini_points": _num(G),
                      "part_of_gini": 1.0 if not pd.isna(G) else None})

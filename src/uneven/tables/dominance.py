@@ -22,7 +22,6 @@ left out (L(0) = 0 and L(1) = 1 for every group: nothing to test there).
 
 from __future__ import annotations
 
-import inspect
 import math
 from dataclasses import dataclass
 from statistics import NormalDist
@@ -32,7 +31,8 @@ from sqlglot import exp
 
 from uneven.compiler.context import CompileOptions
 from uneven.compiler.emit import to_sql
-from uneven.engine.adapters import is_duckdb
+from uneven.engine.adapters import Adapter, is_duckdb
+from uneven.engine.frames import callers_frame
 from uneven.engine.session import session as engine_session
 from uneven.errors import MeasureArgumentError
 from uneven.sqltree import build as s
@@ -122,7 +122,7 @@ def lorenz_dominance(relation: str, x: str, group: str, groups, *, weight: str |
     sel.expressions.append(s.alias(gv.copy(), "_uv_grp"))
     where = exp.In(this=gv.copy(), expressions=[exp.convert(v) for v in levels])
     sel.set("where", exp.Where(this=s.and_(sel.args["where"].this, where)))
-    caller = frame or inspect.currentframe().f_back
+    caller = frame or callers_frame()
     if is_duckdb(con):
         with session(spec, con, caller) as run:
             res = run(sel)
@@ -130,6 +130,7 @@ def lorenz_dominance(relation: str, x: str, group: str, groups, *, weight: str |
         from uneven.api import run_on
         text_sql = to_sql(sel)
         with engine_session(con, text_sql, caller) as adapter:
+            assert isinstance(adapter, Adapter)  # con is not DuckDB's
             res = run_on(adapter, text_sql, CompileOptions(strict=False, tie_grouping="auto", method="exact"),
                          None, None)
     side = {str(v): i for i, v in enumerate(levels)}
@@ -149,10 +150,11 @@ def lorenz_dominance(relation: str, x: str, group: str, groups, *, weight: str |
         sa, sb = value(0, f"_uv_s{k}"), value(1, f"_uv_s{k}")
         d = a - b if None not in (a, b) else None
         se = math.hypot(sa, sb) if None not in (sa, sb) else None
-        t = d / se if d is not None and se else None
+        t = band_lo = band_hi = None
+        if d is not None and se:
+            t, band_lo, band_hi = d / se, d - c * se, d + c * se
         rows.append({"p": p, "ordinate_a": a, "ordinate_b": b, "difference": d, "se": se,
-                     "band_lo": d - c * se if t is not None else None, "band_hi": d + c * se if t is not None else None,
-                     "t": t})
+                     "band_lo": band_lo, "band_hi": band_hi, "t": t})
     table = pd.DataFrame(rows).astype(float)
     verdict = decide(list(table["t"]), c, levels[0], levels[1])
     return Dominance(verdict, levels, generalized, level, c, table)

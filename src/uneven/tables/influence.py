@@ -16,13 +16,12 @@ a total ≤ 0.
 
 from __future__ import annotations
 
-import inspect
-
 import pandas as pd
 from sqlglot import exp
 
 from uneven import catalog
 from uneven.compiler.clauses import MATERIALIZING
+from uneven.engine.frames import callers_frame
 from uneven.errors import MeasureArgumentError, UnsupportedSqlError
 from uneven.sqltree import build as s
 from uneven.tables.base import Spec, group_labels, parse_expression, session
@@ -168,7 +167,7 @@ def influence(relation: str, x: str, *, weight: str | None = None, by=(), k: int
     for j in range(1, k + 1):
         cut = exp.Filter(this=call.copy(), expression=exp.Where(this=s.gt(s.col("_uv_rank"), exp.Literal.number(j))))
         items.append(s.alias(cut, f"{name}_without_top_{j}"))
-    with session(spec, con, inspect.currentframe().f_back) as run:
+    with session(spec, con, callers_frame()) as run:
         if k and run.dialect not in MATERIALIZING:
             raise UnsupportedSqlError(
                 f"influence: the measure without the k largest rows cannot run on {run.label}: it numbers the rows "

@@ -8,4 +8,5 @@
 from uneven.compiler.dialects import Dialect
 from uneven.compiler.dialects import rules as r
 
-DIALECT = Dialect("bigquery", rules=(r.uniform_refused, r.expand_group_by_all, r.window_nulls_last_as_key), notes="emitted, not executed here")
+DIALECT = Dialect("bigquery", rules=(r.uniform_refused, r.expand_group_by_all, r.window_nulls_last_as_key),
+                  notes="emitted, not executed here")

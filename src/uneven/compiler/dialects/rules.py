@@ -54,6 +54,7 @@ def expand_group_by_all(tree: exp.Expression, dialect: str) -> exp.Expression:
         if not group.args.get("all"):
             continue
         select = group.parent
+        assert select is not None  # a GROUP BY stands in a SELECT
         keys = [p.unalias().copy() for p in select.expressions if not _aggregated(p) and reads_source_column(p)]
         group.set("all", None)
         group.set("expressions", keys)

@@ -11,7 +11,8 @@ from uneven.compiler.dialects import rules as r
 
 DIALECT = Dialect(
     "spark",
-    rules=(r.uniform_from_hash("xxhash64", signed=True), r.expand_group_by_all, r.raise_with("raise_error"), r.null_on_division_by_zero),
+    rules=(r.uniform_from_hash("xxhash64", signed=True), r.expand_group_by_all, r.raise_with("raise_error"),
+           r.null_on_division_by_zero),
     executed=True,
     notes="list results are arrays of structs; negative weights and strict mode raise through raise_error()",
     aliases=("sparksql",),

@@ -22,6 +22,7 @@ gives the same replicates; another engine's hash gives different (equally valid)
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 
 from sqlglot import exp
 
@@ -40,7 +41,7 @@ POISSON_CDF = tuple(math.exp(-1) * sum(1 / math.factorial(j) for j in range(k + 
 UNIFORM = "uneven_uniform"  # portable marker; each dialect writes it with its engine's hash
 
 
-def uniform(units: list[exp.Expression], r: exp.Expression, seed: int) -> exp.Expression:
+def uniform(units: Sequence[exp.Expression], r: exp.Expression, seed: int) -> exp.Expression:
     """u in [0, 1) from the engine's 64-bit hash of (unit, r, seed): the marker function
     ``uneven_uniform(unit, r, seed)``, which the dialect's ``uniform_from_hash`` rule rewrites
     (DuckDB ``hash``, Spark ``xxhash64``, PostgreSQL ``hashtextextended``, SQLite a registered
@@ -81,7 +82,8 @@ def lower_bootstrap_pass(source: Source, main, plan, name: str) -> tuple[list[ex
     ctes = [rows] + _draw_ctes(keys, plan.trailing is not None, unit, settings, name)
     ctes += _replicate_ctes(ctx, built, keys, name)
     ctes += _spread_ctes(keys, len(built), name)
-    out_cols, results = [], {}
+    out_cols: list[exp.Expression] = []
+    results: dict[tuple, exp.Expression] = {}
     for i, (call, _) in enumerate(built, start=1):
         out_cols.append(s.alias(_result(call, i), f"_uv_r{i}"))
         results[call.key] = s.col(f"_uv_r{i}", name)
@@ -196,4 +198,5 @@ PREFIX = "bs"
 
 
 def lower(source: Source, main, plan, name: str | None, settings) -> tuple[list[exp.CTE], dict]:
+    assert name is not None  # a pass with a PREFIX is given its CTE name
     return lower_bootstrap_pass(source, main, plan, name)

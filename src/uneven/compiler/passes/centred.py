@@ -16,6 +16,8 @@ value.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
+
 from sqlglot import exp
 
 from uneven.catalog.moment import ADAPTIVE_ACCURACY
@@ -81,16 +83,16 @@ def lower_centred_pass(source: Source, main: MainAggregate, plan, name: str
         one, mean = _one_pass(plan, main, name, keys, means, results)
         ctes.append(one)
     else:
-        mean = _from_main(exp.Select(expressions=keys + means), main)
+        mean = _from_main(exp.Select(expressions=[*keys, *means]), main)
     results = {key: ctx.checked(value) for key, value in results.items()}
-    marker = [s.alias(s.agg_count_star(), "_uv_rows")] if adaptive else []
-    rows = source.rows(source.key_projections() + [s.named(e, n) for n, e in ctx.terms.values()] + marker,
+    marker: list[exp.Expression] = [s.alias(s.agg_count_star(), "_uv_rows")] if adaptive else []
+    rows = source.rows([*source.key_projections(), *(s.named(e, n) for n, e in ctx.terms.values()), *marker],
                        ctx.valid_condition(), group_by=[k.copy() for k in source.keys] or None,
                        join=join_on_keys(source.keys, mean_name))
     return ctes + [cte(mean, mean_name), cte(rows, name)], results
 
 
-def _one_pass(plan, main: MainAggregate, name: str, keys: list[exp.Expression], means: list[exp.Expression],
+def _one_pass(plan, main: MainAggregate, name: str, keys: Sequence[exp.Expression], means: Sequence[exp.Expression],
               results: dict) -> tuple[exp.CTE, exp.Select]:
     """The adaptive variant's ``_one`` CTE (per group: μ, and each call's one-pass value and error
     bound over the main aggregate's compensated sums) and the mean SELECT that keeps the groups some
@@ -117,7 +119,8 @@ def _one_pass(plan, main: MainAggregate, name: str, keys: list[exp.Expression], 
 def _from_main(select: exp.Select, main: MainAggregate) -> exp.Select:
     """``select`` FROM the main aggregate, whose columns it reads unqualified."""
     select = select.from_(table(main.name), copy=False)
-    return select.transform(lambda n: s.col(n.name) if isinstance(n, exp.Column) and n.table == main.name else n,
+    # transform is annotated Expr; with copy=False it returns the Select it was given
+    return select.transform(lambda n: s.col(n.name) if isinstance(n, exp.Column) and n.table == main.name else n,  # type: ignore[return-value]
                             copy=False)
 
 
@@ -137,4 +140,5 @@ PREFIX = "cen"
 
 
 def lower(source: Source, main, plan, name: str | None, settings) -> tuple[list[exp.CTE], dict]:
+    assert name is not None  # a pass with a PREFIX is given its CTE name
     return lower_centred_pass(source, main, plan, name)

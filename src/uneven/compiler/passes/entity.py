@@ -61,4 +61,5 @@ PREFIX = "ent"
 
 
 def lower(source: Source, main, plan, name: str | None, settings) -> tuple[list[exp.CTE], dict]:
+    assert name is not None  # a pass with a PREFIX is given its CTE name
     return lower_entity_pass(source, main, plan, name)

@@ -45,7 +45,7 @@ def quantile_columns(ctx, keys) -> list[exp.Expression]:
 
 
 def below_columns(ctx, keys) -> list[exp.Expression]:
-    cols = []
+    cols: list[exp.Expression] = []
     for i, frac in enumerate(ctx.__dict__.get("line_fracs", []), start=1):
         below = s.lt(s.col("_uv_x"), s.mul(s.lit(frac), s.col("_uv_md")))
         cols.append(s.alias(s.window(s.agg_sum(s.case(below, ctx.w, s.lit(0.0))), _partition(keys)), f"_uv_pw{i}"))

@@ -14,6 +14,8 @@ query (engines do not share subexpressions that can raise; bench/README.md, "Mom
 
 from __future__ import annotations
 
+from collections.abc import Sequence
+
 from sqlglot import exp
 
 from uneven.catalog.spec import PassKind
@@ -24,7 +26,7 @@ from uneven.sqltree import build as s
 class MainAggregate:
     """Collects the scope's aggregate columns and lowers them to the main CTE."""
 
-    def __init__(self, name: str, keys: list[exp.Expression] = ()):
+    def __init__(self, name: str, keys: Sequence[exp.Expression] = ()):
         self.name = name
         self.keys = list(keys)  # the scope's group keys (row level), named in data errors
         self.columns: dict[exp.Expression, tuple[str, exp.Expression]] = {}  # tree → (column name, tree)

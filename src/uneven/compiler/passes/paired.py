@@ -61,8 +61,10 @@ def lower_paired_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
     ctx = PairedContext(weighted=w is not None)
     out_cols, results = build_results(plan.calls, ctx, name)
 
-    proj = source.key_projections() + [s.alias(s.cast_double(x.copy()), "_uv_x"), s.alias(s.cast_double(y.copy()), "_uv_y")]
-    cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()), s.not_null(y.copy()))
+    proj = source.key_projections() + [s.alias(s.cast_double(x.copy()), "_uv_x"),
+                                       s.alias(s.cast_double(y.copy()), "_uv_y")]
+    cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()),
+                  s.not_null(y.copy()))
     if w is not None:
         cw = checked_weight(w, weight_label(w))
         proj.append(s.alias(cw, "_uv_w"))
@@ -70,7 +72,8 @@ def lower_paired_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
     rows = source.rows(proj, cond)
     keys = source.key_columns()
     wv = s.col("_uv_w") if w is not None else s.lit(1.0)
-    cols = [k.copy() for k in keys] + [s.col("_uv_x"), s.col("_uv_y")] + ([s.col("_uv_w")] if w is not None else [])
+    cols: list[exp.Expression] = [*(k.copy() for k in keys), s.col("_uv_x"), s.col("_uv_y")]
+    cols += [s.col("_uv_w")] if w is not None else []
     win_cols = list(cols)
     for v in ("x", "y"):
         val = s.col(f"_uv_{v}")
@@ -114,4 +117,5 @@ PREFIX = "pair"
 
 
 def lower(source: Source, main, plan, name: str | None, settings) -> tuple[list[exp.CTE], dict]:
+    assert name is not None  # a pass with a PREFIX is given its CTE name
     return lower_paired_pass(source, main, plan, name)

@@ -112,4 +112,5 @@ PREFIX = "rnk"
 
 
 def lower(source: Source, main, plan, name: str | None, settings) -> tuple[list[exp.CTE], dict]:
+    assert name is not None  # a pass with a PREFIX is given its CTE name
     return lower_ranked_pass(source, main, plan, name)

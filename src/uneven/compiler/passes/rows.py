@@ -14,6 +14,8 @@ into columns of their own group CTEs (see ``lift_aggregates``).
 
 from __future__ import annotations
 
+from collections.abc import Callable, Sequence
+
 from sqlglot import exp
 
 from uneven.compiler.passes.columns import SortedColumns
@@ -86,11 +88,11 @@ class RowContext(SortedColumns):
         return s.agg_min(self.x)
 
 
-def window_columns(ctx: RowContext, keys: list[exp.Expression]) -> list[exp.Expression]:
+def window_columns(ctx: RowContext, keys: Sequence[exp.Expression]) -> list[exp.Expression]:
     """C, S and m in one window specification (one sort); W and n over the partition alone."""
     x, w = s.col("_uv_x"), ctx.w
     part = lambda: [k.copy() for k in keys]  # noqa: E731
-    cols = []
+    cols: list[exp.Expression] = []
     # the unweighted running count is a SUM of 1.0 in the same specification as S, so ties are
     # taken in the same order by both (ROW_NUMBER could order them differently)
     if "c" in ctx.used:
@@ -126,13 +128,15 @@ def lower_rows(source: Source, plan, name: str, ctx: RowContext,
     rows = source.rows(proj, cond)
     keys = source.key_columns()
     base = keys + [s.col("_uv_x")] + ([s.col("_uv_w")] if w is not None else []) + [s.col(n) for n in extra]
-    win = exp.Select(expressions=[k.copy() for k in base] + window_columns(ctx, keys)).from_(table(f"{name}_rows"), copy=False)
+    win = exp.Select(expressions=[k.copy() for k in base] + window_columns(ctx, keys)).from_(table(f"{name}_rows"),
+                                                                                            copy=False)
     return [cte(rows, f"{name}_rows")] + window_ctes(win, ctx, keys, name)
 
 
 # aggregates → group columns ------------------------------------------------------------------
 
-_COMBINE = {exp.Sum: s.agg_sum, exp.Count: s.agg_sum, exp.Min: s.agg_min, exp.Max: s.agg_max}
+_COMBINE: dict[type[exp.Expression], Callable[[exp.Expression], exp.Expression]] = {
+    exp.Sum: s.agg_sum, exp.Count: s.agg_sum, exp.Min: s.agg_min, exp.Max: s.agg_max}
 
 
 class Aggregates:

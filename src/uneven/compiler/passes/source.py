@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 from sqlglot import exp
@@ -25,8 +26,8 @@ class Source:
     def key_columns(self, table: str | None = None) -> list[exp.Column]:
         return [s.col(key_name(i), table) for i in range(len(self.keys))]
 
-    def rows(self, projections: list[exp.Expression], condition: exp.Expression | None = None,
-             group_by: list[exp.Expression] | None = None, join: exp.Join | None = None) -> exp.Select:
+    def rows(self, projections: Sequence[exp.Expression], condition: exp.Expression | None = None,
+             group_by: Sequence[exp.Expression] | None = None, join: exp.Join | None = None) -> exp.Select:
         """SELECT projections FROM <scope's FROM and joins [+ join]> WHERE <scope's WHERE AND condition>."""
         out = exp.Select(expressions=projections)
         for arg in ("from_", "joins", "laterals"):
@@ -46,7 +47,7 @@ class Source:
         return out
 
 
-def checked_weight(w: exp.Expression, label: str, keys: list[exp.Expression] = ()) -> exp.Expression:
+def checked_weight(w: exp.Expression, label: str, keys: Sequence[exp.Expression] = ()) -> exp.Expression:
     """The weight as DOUBLE, aborting the query on a negative, NaN or infinite one (DuckDB ``error``);
     the message names the argument and, when ``keys`` are given, the group of the row."""
     wd = s.cast_double(w.copy())
@@ -58,7 +59,7 @@ def checked_weight(w: exp.Expression, label: str, keys: list[exp.Expression] = (
     ], default=wd.copy())
 
 
-def checked_value(x: exp.Expression, label: str, keys: list[exp.Expression] = ()) -> exp.Expression:
+def checked_value(x: exp.Expression, label: str, keys: Sequence[exp.Expression] = ()) -> exp.Expression:
     """The value as DOUBLE, aborting the query on NaN or ±infinity (a sum over them would be NaN or
     infinite, never a usable measure); the message names the argument and the group of the row."""
     xd = s.cast_double(x.copy())
@@ -71,7 +72,7 @@ def value_weight_rows(x: exp.Expression, w: exp.Expression | None, condition: ex
     """(projections, row condition) of a pass that reads (value, weight) rows: x as DOUBLE ``_uv_x``
     and the checked weight as ``weight_name``; rows within ``condition`` (a FILTER or WHERE) whose
     value is not NULL and whose weight is > 0."""
-    proj = [s.alias(s.cast_double(x.copy()), "_uv_x")]
+    proj: list[exp.Expression] = [s.alias(s.cast_double(x.copy()), "_uv_x")]
     cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
     if w is not None:
         cw = checked_weight(w, weight_label(w))
@@ -80,7 +81,7 @@ def value_weight_rows(x: exp.Expression, w: exp.Expression | None, condition: ex
     return proj, cond
 
 
-def valid_value(x: exp.Expression, keys: list[exp.Expression] = ()) -> exp.Expression:
+def valid_value(x: exp.Expression, keys: Sequence[exp.Expression] = ()) -> exp.Expression:
     """Row condition: the value is not NULL, and (checked) finite."""
     return s.not_null(checked_value(x, weight_label(x), keys))
 
@@ -98,7 +99,7 @@ def finite_or_null(e: exp.Expression) -> exp.Expression:
     return s.case(s.gt(s.lit(1.0), s.mul(e.copy(), s.lit(0.0))), e.copy())
 
 
-def row_error(message: str, keys: list[exp.Expression] = ()) -> exp.Expression:
+def row_error(message: str, keys: Sequence[exp.Expression] = ()) -> exp.Expression:
     """error('<message> (the group k1=…, k2=…)') with the row's key values; the group is left out
     when the scope has no keys (one group: the whole input)."""
     if not keys:
@@ -117,7 +118,8 @@ def weight_label(w: exp.Expression) -> str:
 
 def build_results(calls: list, ctx, name: str) -> tuple[list[exp.Expression], dict[tuple, exp.Expression]]:
     """One aggregate column per distinct call (``_uv_r1`` …) and, per call key, its column in ``name``."""
-    columns, results = [], {}
+    columns: list[exp.Expression] = []
+    results: dict[tuple, exp.Expression] = {}
     for call in calls:
         if call.key in results:
             continue
@@ -131,7 +133,7 @@ def build_results(calls: list, ctx, name: str) -> tuple[list[exp.Expression], di
     return columns, results
 
 
-def join_on_keys(keys: list[exp.Expression], other: str, left: str | None = None) -> exp.Join:
+def join_on_keys(keys: Sequence[exp.Expression], other: str, left: str | None = None) -> exp.Join:
     """JOIN other ON each key IS NOT DISTINCT FROM other._uv_kN (a NULL key is a group); CROSS JOIN
     without keys. Keys are columns of ``left`` when given, else the scope's key expressions."""
     if not keys:

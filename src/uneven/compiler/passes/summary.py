@@ -54,4 +54,5 @@ PREFIX = "sum"
 
 
 def lower(source: Source, main, plan, name: str | None, settings) -> tuple[list[exp.CTE], dict]:
+    assert name is not None  # a pass with a PREFIX is given its CTE name
     return lower_summary_pass(source, main, plan, name, settings.resolution)

@@ -62,7 +62,7 @@ def _from_sqlalchemy(con) -> Adapter:
                                      "use postgresql+psycopg://… (psycopg 3) or sqlite:///…")
     adapter = adapt(driver)
     if hasattr(con, "raw_connection"):  # we checked a connection out of the engine's pool: give it back
-        adapter.close = raw.close
+        adapter.close = raw.close  # type: ignore[method-assign]  # close() gives the pooled connection back
     return adapter
 
 

@@ -18,7 +18,9 @@ an ``AdapterSchema``) are built here over ``describe``, so every engine answers 
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from decimal import Decimal
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -26,6 +28,7 @@ from sqlglot import exp
 
 from uneven.engine.columns import probe_select
 from uneven.engine.runner import translate_error
+from uneven.sqltree import build as s
 
 # DuckDB's names for the numeric types the compiler's type check accepts (compiler/types.py)
 NUMERIC, TEXT = "DOUBLE", "VARCHAR"
@@ -44,7 +47,7 @@ class Adapter:
         """Run ``sql``: column names, rows of Python values, column type names (None: unknown)."""
         raise NotImplementedError
 
-    def errors(self) -> tuple[type[BaseException], ...]:
+    def errors(self) -> tuple[type[Exception], ...]:
         """The driver's exception classes (wrapped as UnevenErrors naming the engine)."""
         raise NotImplementedError
 
@@ -85,7 +88,7 @@ class Adapter:
             raise self.translate(e) from None
         return frame_of(names, rows, types)
 
-    def translate(self, e: BaseException) -> Exception:
+    def translate(self, e: Exception) -> Exception:
         return translate_error(e, engine=self.label)
 
     def describe(self, sql: str) -> list[tuple[str, str | None]] | None:
@@ -100,13 +103,14 @@ class Adapter:
     def argument_types(self, select: exp.Select, exprs: list[exp.Expression]) -> list[str] | None:
         """Type names of ``exprs`` over ``select``'s FROM (None: unknown). Engines whose result
         description carries types answer from a LIMIT 0 probe; SQLite overrides (no types)."""
-        probe = probe_select(select, [exp.alias_(e.copy(), f"_uv_p{i + 1}", quoted=True) for i, e in enumerate(exprs)])
+        probe = probe_select(select, [s.alias(e.copy(), f"_uv_p{i + 1}") for i, e in enumerate(exprs)])
         if probe is None:
             return None
         found = self.describe(self.compile_probe(probe))
-        if found is None or len(found) != len(exprs) or any(t is None for _, t in found):
+        if found is None:
             return None
-        return [t for _, t in found]
+        types = [t for _, t in found if t is not None]
+        return types if len(types) == len(found) == len(exprs) else None
 
     def compile_probe(self, probe: exp.Select) -> str:
         from uneven.compiler.context import CompileContext, CompileOptions
@@ -198,7 +202,7 @@ def _column(values: list, type_name: str | None) -> pd.Series:
 def frame_of(names: list[str], rows: list[tuple], types: list[str | None]) -> pd.DataFrame:
     """A DataFrame of driver rows: float64 for numbers (NaN for NULL), int64 for whole numbers
     (Int64 with NULLs), bool, lists as arrays of dicts; column names kept, duplicates too."""
-    cols = list(zip(*rows)) if rows else [[] for _ in names]
+    cols: list[Sequence[Any]] = list(zip(*rows)) if rows else [[] for _ in names]
     data = {i: _column([_plain(v) for v in col], t) for i, (col, t) in enumerate(zip(cols, types))}
     df = pd.DataFrame(data) if data else pd.DataFrame(index=range(len(rows)))
     df.columns = list(names)

@@ -35,6 +35,7 @@ class PostgresAdapter(Adapter):
         try:
             with self.con.cursor() as cur:
                 cur.execute(sql)
+                out: tuple[list[str], list[tuple], list[str | None]]
                 if cur.description is None:
                     out = [], [], []
                 else:

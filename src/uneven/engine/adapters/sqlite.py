@@ -13,6 +13,7 @@ from sqlglot import exp
 from uneven.engine.adapters.base import NUMERIC, TEXT, Adapter, drop_table, plain_cell, quoted_table
 from uneven.engine.columns import probe_select
 from uneven.engine.sqlite import install_sqlite_functions, raised_message
+from uneven.sqltree import build as s
 
 _TYPES = {"f": "REAL", "i": "INTEGER", "u": "INTEGER", "b": "INTEGER"}
 
@@ -62,10 +63,10 @@ class SQLiteAdapter(Adapter):
     def argument_types(self, select: exp.Select, exprs: list[exp.Expression]) -> list[str] | None:
         """SQLite has no column types for expressions: one scan asks whether any row of an argument
         holds text or a blob (``typeof``), which CAST would read as 0 instead of refusing."""
-        projections = [exp.alias_(exp.Max(this=exp.In(this=exp.Anonymous(this="typeof", expressions=[e.copy()]),
-                                                       expressions=[exp.Literal.string("text"),
-                                                                    exp.Literal.string("blob")])),
-                                  f"_uv_p{i + 1}", quoted=True) for i, e in enumerate(exprs)]
+        projections = [s.alias(exp.Max(this=exp.In(this=exp.Anonymous(this="typeof", expressions=[e.copy()]),
+                                                   expressions=[exp.Literal.string("text"),
+                                                                exp.Literal.string("blob")])),
+                               f"_uv_p{i + 1}") for i, e in enumerate(exprs)]
         probe = probe_select(select, projections, limit=False)
         if probe is None:
             return None
@@ -91,7 +92,8 @@ class SQLiteAdapter(Adapter):
                                 "sqlite"))
         marks = exp.Tuple(expressions=[exp.Placeholder() for _ in frame.columns])
         insert = exp.Insert(this=table.copy(), expression=exp.Values(expressions=[marks]))
-        self.con.executemany(to_sql(insert, "sqlite"), [[plain_cell(v) for v in row] for row in frame.itertuples(index=False)])
+        self.con.executemany(to_sql(insert, "sqlite"),
+                             [[plain_cell(v) for v in row] for row in frame.itertuples(index=False)])
 
     def has_table(self, name: str) -> bool:
         rows = self.con.execute("SELECT 1 FROM sqlite_master WHERE name = ? UNION ALL "
@@ -106,7 +108,7 @@ class SQLiteAdapter(Adapter):
 def _json_lists(column: pd.Series) -> list | None:
     """The column's values as arrays of dicts when every non-NULL value is JSON text of a list of
     objects (the compiled SQL's list results); else None (the column is left alone)."""
-    out = []
+    out: list[np.ndarray | None] = []
     for v in column:
         if v is None:
             out.append(None)

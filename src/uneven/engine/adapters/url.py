@@ -53,10 +53,10 @@ def open_url(url: str) -> Adapter:
             raise EngineUnavailableError(f"no SQLite database file {path} (uneven opens existing files only)")
         try:
             # the command line runs queries in a worker thread (progress, Ctrl-C): one thread at a time
-            con = sqlite3.connect(f"file:{path}?mode=rw", uri=True, check_same_thread=False)
+            lite = sqlite3.connect(f"file:{path}?mode=rw", uri=True, check_same_thread=False)
         except sqlite3.Error as e:
             raise EngineUnavailableError(f"cannot open the SQLite database {path}: {_first_line(e)}") from None
-        return adapt(con, owned=True)
+        return adapt(lite, owned=True)
     if scheme == "spark":
         session, started = _spark(url)
         return adapt(session, owned=started)
