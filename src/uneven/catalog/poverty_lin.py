@@ -70,14 +70,16 @@ def fgt_relative(ctx, alpha: float, frac: float) -> Lin:
 
 
 def density_at_poor_median(ctx, frac: float) -> exp.Expression:
-    """f̂(M_p) = (q⁺ − q⁻)/(Q(q⁺) − Q(q⁻)), q± = H/2 ± h, h = min(K(0.5)·n^(−1/3), H/2): the spacing
-    of density_at_line around the level H/2 of the median of the rows below the line."""
+    """f̂(M_p) = (q⁺ − q⁻)/(Q(q⁺) − Q(q⁻)), q± = H/2 ± h clamped to [0, 1], h = K(0.5)·n^(−1/3): the
+    spacing of density_at_quantile around the level H/2 of the median of the rows below the line.
+    Clamped, not capped at H/2: q⁺ would then be H itself, a jump of the weighted CDF (the last row
+    below the line), where the running and the total weight round differently across engines."""
     q_row = s.div(s.mul(s.lit(0.5), ctx.below_weight_row(frac)), ctx.W_row)
-    h_row = s.least(s.mul(s.lit(K_MEDIAN), s.power(ctx.n_row, s.lit(-1.0 / 3.0))), q_row)
+    h_row = s.mul(s.lit(K_MEDIAN), s.power(ctx.n_row, s.lit(-1.0 / 3.0)))
     q_grp = s.div(s.mul(s.lit(0.5), s.agg_max(ctx.below_weight_row(frac))), ctx.W)
-    h_grp = s.least(s.mul(s.lit(K_MEDIAN), s.power(s.cast_double(ctx.n), s.lit(-1.0 / 3.0))), q_grp)
-    hi_row, lo_row = s.least(s.add(q_row.copy(), h_row), ONE), s.sub(q_row.copy(), h_row.copy())
-    hi_grp, lo_grp = s.least(s.add(q_grp.copy(), h_grp), ONE), s.sub(q_grp.copy(), h_grp.copy())
+    h_grp = s.mul(s.lit(K_MEDIAN), s.power(s.cast_double(ctx.n), s.lit(-1.0 / 3.0)))
+    hi_row, lo_row = s.least(s.add(q_row.copy(), h_row), ONE), s.greatest(s.sub(q_row.copy(), h_row.copy()), ZERO)
+    hi_grp, lo_grp = s.least(s.add(q_grp.copy(), h_grp), ONE), s.greatest(s.sub(q_grp.copy(), h_grp.copy()), ZERO)
     spread = s.sub(lz.quantile_at_expr(ctx, hi_row), lz.quantile_at_expr(ctx, lo_row))
     return s.case(s.gt(spread, ZERO), s.div(s.sub(hi_grp, lo_grp), spread.copy()))
 

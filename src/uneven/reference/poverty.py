@@ -185,13 +185,13 @@ def poor_median(x, frac, w=None) -> float | None:
 
 
 def density_at_poor_median(x, frac, w=None) -> float | None:
-    """(q⁺ − q⁻)/(Q(q⁺) − Q(q⁻)) over all rows, q± = H/2 ± h, h = min(K(0.5)·n^(−1/3), H/2)."""
+    """(q⁺ − q⁻)/(Q(q⁺) − Q(q⁻)) over all rows, q± = H/2 ± h clamped to [0, 1], h = K(0.5)·n^(−1/3)."""
     H = below_line_share(x, frac, w)
     if H is None:
         return None
     q = H / 2
-    h = min(hall_sheather(0.5, len(x)), q)
-    hi, lo = min(q + h, 1.0), q - h
+    h = hall_sheather(0.5, len(x))
+    hi, lo = min(q + h, 1.0), max(q - h, 0.0)
     spread = R.quantile_w(x, hi, w) - R.quantile_w(x, lo, w)
     return (hi - lo) / spread if spread > 0 else None
 
