@@ -224,3 +224,21 @@ def test_dominance_chart_renders_in_chromium(survey, tmp_path):
     assert inside.sum() > 400
     # below every other chart: the band starts under the trend chart's lines
     assert band_rows.min() > 1000
+
+
+def test_cli_report_with_dominance_on_an_sqlite_file(survey, tmp_path, capsys):
+    import sqlite3
+    path = tmp_path / "s.db"
+    lite = sqlite3.connect(path)
+    survey.to_sql("hh", lite, index=False)
+    lite.close()
+    out = tmp_path / "r.md"
+    assert main(["report", "hh", "--engine", f"sqlite:///{path}", "--value", "income", "--weight", "w", "--by",
+                 "province", "--time", "year", "--dominance", "Vellintor,Ostrevane", "-o", str(out)]) == 0
+    text = out.read_text()
+    want = report_data(survey, "income", weight="w", by="province", time="year",
+                       dominance="Vellintor,Ostrevane").dominance
+    assert f"**{want.verdict}**" in text and want.verdict == "Ostrevane dominates Vellintor"
+    rows = [ln for ln in text.splitlines() if ln.startswith("| 0.")]
+    assert [float(r.split("|")[4]) for r in rows] == pytest.approx(list(want.table["difference"]), rel=1e-4)
+    assert (tmp_path / "r-dominance.svg").exists()
