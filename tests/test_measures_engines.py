@@ -80,6 +80,7 @@ CASES = [
     ("fgt(x, 1.5, 12{w})", lambda x, w, e: RP.fgt(x, 1.5, 12.0, w)),
     ("wolfson(x{w})", lambda x, w, e: RP.wolfson(x, w)),
     ("below_line_share_se(x, 0.6{w})", lambda x, w, e: RSE.se("below_line_share", x, (0.6,), w)),
+    ("median_gap_se(x, 0.6{w})", lambda x, w, e: RSE.se("median_gap", x, (0.6,), w)),
     ("fgt_relative_se(x, 2, 0.6{w})", lambda x, w, e: RSE.se("fgt_relative", x, (2.0, 0.6), w)),
     ("fgt_se(x, 1, 12{w})", lambda x, w, e: RSE.se("fgt", x, (1.0, 12.0), w)),
     ("wolfson_se(x{w})", lambda x, w, e: RSE.se("wolfson", x, (), w)),

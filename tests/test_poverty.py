@@ -160,6 +160,123 @@ def test_relative_scores_less_their_median_part_are_derivatives():
         assert z[k] + P / M * zM[k] == pytest.approx(num, abs=1e-6)
 
 
+# --- the relative median gap's score (docs/poverty.md) -------------------------------------------
+# G = 1 − M_p/z, z = f·M, M_p = Q(H/2), H = F(z). For the exponential (F(x) = 1 − e^(−x), density
+# e^(−x)) every piece is in closed form: M = ln 2, z = f·ln 2, H = 1 − e^(−z), M_p = −ln(1 − H/2),
+# and the influence function (derived in docs/poverty.md) is constant between the jump points
+# M_p < z < M. Written here from the distribution, sharing nothing with reference.poverty.
+
+def _exponential_gap_if(frac: float) -> dict[str, float]:
+    M = math.log(2.0)
+    z = frac * M
+    H = 1.0 - math.exp(-z)
+    Mp = -math.log(1.0 - H / 2.0)
+    f_M, f_z, f_p = 0.5, math.exp(-z), 1.0 - H / 2.0
+
+    def gap_if(below_z: bool, at_or_below_mp: bool, at_or_below_m: bool) -> float:
+        if_m = (0.5 - at_or_below_m) / f_M
+        if_mp = (0.5 * below_z - at_or_below_mp + 0.5 * f_z * frac * if_m) / f_p
+        return -if_mp / z + Mp / z ** 2 * frac * if_m
+
+    return {"below M_p": gap_if(True, True, True), "M_p to z": gap_if(True, False, True),
+            "z to M": gap_if(False, False, True), "above M": gap_if(False, False, False),
+            "_edges": (Mp, z, M), "_gap": 1.0 - Mp / z, "_H": H}
+
+
+def test_median_gap_closed_form_on_the_exponential():
+    # the estimator on a fine grid of exponential quantiles equals the closed form 1 − M_p/z
+    n = 100_000
+    x = -np.log1p(-(np.arange(n) + 0.5) / n)
+    assert RP.median_gap(x, 0.6) == pytest.approx(_exponential_gap_if(0.6)["_gap"], abs=1e-4)
+
+
+def test_median_gap_score_is_the_numerical_influence_function():
+    # Data: the exponential's quantiles on a fine grid (no sampling noise), alternate weights 0.5 and
+    # 1.5. Moving a share ε of the weight into a range of values (F_ε = (1 − ε)F + ε·G_range) and
+    # back, the central difference of the estimator, [G(F_ε) − G(F_−ε)]/(2ε), is the influence
+    # function averaged over the range (Hampel 1974, from memory): it must equal the reference's
+    # score W·z_k there, and both the closed form above. Ranges avoid the jump points M_p, z, M.
+    n = 100_000
+    x = -np.log1p(-(np.arange(n) + 0.5) / n)
+    w = np.where(np.arange(n) % 2 == 0, 0.5, 1.5)
+    G, z = RP.influence("median_gap", x, (0.6,), w)
+    W = w.sum()
+    closed = _exponential_gap_if(0.6)
+    Mp, line, M = closed["_edges"]
+    assert (Mp, line, M) == pytest.approx((0.1865, 0.4159, 0.6931), abs=1e-4)
+    ranges = {"below M_p": (0.02, 0.17), "M_p to z": (0.2, 0.4), "z to M": (0.43, 0.68), "above M": (0.72, 5.0)}
+    eps = 0.004
+    for key, (lo, hi) in ranges.items():
+        inside = (x > lo) & (x < hi)
+        share = w[inside].sum() / W
+        lam = eps / share
+        up, down = w.copy(), w.copy()
+        up[inside] *= 1 + lam
+        down[inside] *= 1 - lam
+        e_up, e_down = lam * share / (1 + lam * share), -lam * share / (1 - lam * share)
+        numerical = (RP.median_gap(x, 0.6, up) - RP.median_gap(x, 0.6, down)) / (e_up - e_down)
+        score = W * z[inside]
+        assert np.ptp(score) == 0  # constant between the jump points, as the formula says
+        # 0.005: the difference's O(ε) curvature; the reference's densities are Siddiqui spacings
+        assert score[0] == pytest.approx(numerical, abs=0.005), key
+        assert score[0] == pytest.approx(closed[key], abs=0.005), key
+
+
+def _gap_monte_carlo(draw, reps: int, n: int, frac: float, seed: int, weighted: bool):
+    """(sd of the estimator over ``reps`` samples, mean of the reference's standard errors)."""
+    rng = np.random.default_rng(seed)
+    est, ses = [], []
+    for _ in range(reps):
+        x = draw(rng, n)
+        w = rng.uniform(0.5, 2.0, n) if weighted else None
+        est.append(RP.median_gap(x, frac, w))
+        ses.append(RSE.se("median_gap", x, (frac,), w))
+    return float(np.std(est, ddof=1)), float(np.mean(ses))
+
+
+def _uniform_gap_sd(frac: float, n: int) -> float:
+    # uniform(0, 1): M = ½, z = f/2, M_p = f/4, every density 1, and the median's part cancels:
+    # IF = (2/f)·[1(x ≤ f/4) − ½·1(x < f/2)], E[IF²] = (4/f²)·(f/2)·¼ = 1/(2f) (derived in docs/poverty.md)
+    return math.sqrt(1.0 / (2.0 * frac * n))
+
+
+def _exponential_gap_sd(frac: float, n: int) -> float:
+    c = _exponential_gap_if(frac)
+    Mp, z, M = c["_edges"]
+    probs = {"below M_p": 1 - math.exp(-Mp), "M_p to z": math.exp(-Mp) - math.exp(-z),
+             "z to M": math.exp(-z) - 0.5, "above M": 0.5}
+    return math.sqrt(sum(p * c[k] ** 2 for k, p in probs.items()) / n)
+
+
+def test_median_gap_se_monte_carlo_small_run():
+    # 200 samples: the Monte Carlo sd is itself uncertain by about 1/sqrt(2·199) = 5%, and the
+    # density spacings bias small-sample SEs a little: the bounds are loose (15%)
+    sd, se = _gap_monte_carlo(lambda r, n: r.exponential(1.0, n), 200, 1000, 0.6, 41, weighted=False)
+    want = _exponential_gap_sd(0.6, 1000)
+    print(f"median gap, exponential, n = 1000: Monte Carlo sd {sd:.5f}, mean SE {se:.5f}, asymptotic {want:.5f}")
+    assert sd == pytest.approx(want, rel=0.15) and se == pytest.approx(want, rel=0.15)
+    sd, se = _gap_monte_carlo(lambda r, n: r.uniform(0.0, 1.0, n), 200, 1000, 0.6, 42, weighted=False)
+    want = _uniform_gap_sd(0.6, 1000)
+    print(f"median gap, uniform, n = 1000: Monte Carlo sd {sd:.5f}, mean SE {se:.5f}, asymptotic {want:.5f}")
+    assert sd == pytest.approx(want, rel=0.15) and se == pytest.approx(want, rel=0.15)
+    sd, se = _gap_monte_carlo(lambda r, n: r.lognormal(0.0, 0.8, n), 200, 1000, 0.6, 43, weighted=True)
+    print(f"median gap, weighted lognormal, n = 1000: Monte Carlo sd {sd:.5f}, mean SE {se:.5f}")
+    assert se == pytest.approx(sd, rel=0.15)
+
+
+@pytest.mark.slow
+def test_median_gap_se_monte_carlo_large_run():
+    for name, draw, weighted, want in (
+            ("exponential", lambda r, n: r.exponential(1.0, n), False, _exponential_gap_sd(0.6, 4000)),
+            ("weighted lognormal", lambda r, n: r.lognormal(0.0, 0.8, n), True, None)):
+        sd, se = _gap_monte_carlo(draw, 2000, 4000, 0.6, 44, weighted)
+        print(f"median gap, {name}, n = 4000, 2000 samples: Monte Carlo sd {sd:.5f}, mean SE {se:.5f}"
+              + (f", asymptotic {want:.5f}" if want else ""))
+        assert se == pytest.approx(sd, rel=0.05)
+        if want:
+            assert sd == pytest.approx(want, rel=0.05)
+
+
 # --- Monte Carlo: intervals computed in SQL ------------------------------------------------------
 
 def _coverage(samples: int, n: int, seed: int):
@@ -203,8 +320,8 @@ def test_sql_standard_error_matches_reference_with_a_design():
                        "c": rng.integers(0, 8, n)})
     df["psu"] = df["h"] * 100 + df["c"]
     res = _run("SELECT below_line_share_se(x, 0.6, w, strata := h, psu := psu) AS a, "
-               "wolfson_se(x, w, strata := h, psu := psu) AS b, fgt_se(x, 2, 5, w, strata := h, psu := psu) AS c "
-               "FROM t", t=df)
+               "wolfson_se(x, w, strata := h, psu := psu) AS b, fgt_se(x, 2, 5, w, strata := h, psu := psu) AS c, "
+               "median_gap_se(x, 0.6, w, strata := h, psu := psu) AS d FROM t", t=df)
     args = (df.x.to_numpy(), )
     want_a = RSE.se("below_line_share", *args, (0.6,), df.w.to_numpy(), df.h.to_numpy(), df.psu.to_numpy())
     want_b = RSE.se("wolfson", *args, (), df.w.to_numpy(), df.h.to_numpy(), df.psu.to_numpy())
@@ -212,6 +329,8 @@ def test_sql_standard_error_matches_reference_with_a_design():
     assert res["a"][0] == pytest.approx(want_a, rel=1e-9)
     assert res["b"][0] == pytest.approx(want_b, rel=1e-9)
     assert res["c"][0] == pytest.approx(want_c, rel=1e-9)
+    want_d = RSE.se("median_gap", *args, (0.6,), df.w.to_numpy(), df.h.to_numpy(), df.psu.to_numpy())
+    assert res["d"][0] == pytest.approx(want_d, rel=1e-9) and want_d > 0
 
 
 def test_no_standard_error_for_fractional_alpha():
@@ -246,7 +365,6 @@ def test_bootstrap_agrees_with_linearization():
     res = _run("SELECT below_line_share_boot_se(x, 0.6, w, replicates := 400) AS hb, below_line_share_se(x, 0.6, w) AS hl, "
                "wolfson_boot_se(x, w, replicates := 400) AS pb, wolfson_se(x, w) AS pl, "
                "fgt_relative_boot_se(x, 2, 0.6, w, replicates := 400) AS fb, fgt_relative_se(x, 2, 0.6, w) AS fl, "
-               "median_gap_boot_se(x, 0.6, w, replicates := 400) AS gb FROM t", t=df)
-    for boot, lin in (("hb", "hl"), ("pb", "pl"), ("fb", "fl")):
+               "median_gap_boot_se(x, 0.6, w, replicates := 400) AS gb, median_gap_se(x, 0.6, w) AS gl FROM t", t=df)
+    for boot, lin in (("hb", "hl"), ("pb", "pl"), ("fb", "fl"), ("gb", "gl")):
         assert res[boot][0] == pytest.approx(res[lin][0], rel=0.15), (boot, res[boot][0], res[lin][0])
-    assert 0 < res["gb"][0] < 0.2  # the median gap's only standard error so far: the bootstrap

@@ -8,7 +8,7 @@ from uneven.catalog.spec import Measure, Param
 MEASURES: dict[str, Measure] = {m.name: m for m in (*ordered.MEASURES, *moment.MEASURES, *entity.MEASURES,
                                                  *structure.MEASURES, *poverty.MEASURES)}
 linearize.LINEARIZE.update(poverty_lin.LINEARIZE)  # the poverty-line indicators' and Wolfson's scores
-uncertainty.BOOTSTRAPPABLE = (*uncertainty.BOOTSTRAPPABLE, *poverty_lin.LINEARIZE, "median_gap")
+uncertainty.BOOTSTRAPPABLE = (*uncertainty.BOOTSTRAPPABLE, *poverty_lin.LINEARIZE)
 MEASURES.update({m.name: m for m in uncertainty.uncertainty_measures(MEASURES)})  # <m>_se, <m>_ci_lo/hi …
 
 

@@ -13,7 +13,8 @@ Osier 2009 linearize the at-risk-of-poverty rate this way; both from memory):
 f(M) is the Siddiqui / Bloch–Gastwirth quantile-spacing estimate with the Hall–Sheather bandwidth
 (linearize.density_at_quantile); f(z) is the same spacing around p = H (the share below the
 line) with the median's bandwidth, capped at H so it stays inside the distribution. For
-0 < α < 1 the derivative has no stable sample form: no standard error (NULL).
+0 < α < 1 the derivative has no stable sample form: no standard error (NULL). The relative median
+gap adds the density at the median of the rows below the line (median_gap, docs/poverty.md).
 """
 
 from __future__ import annotations
@@ -68,6 +69,40 @@ def fgt_relative(ctx, alpha: float, frac: float) -> Lin:
     return combine(est.copy(), (ONE, fixed), (s.mul(s.lit(frac), slope), median(ctx)))
 
 
+def density_at_poor_median(ctx, frac: float) -> exp.Expression:
+    """f̂(M_p) = (q⁺ − q⁻)/(Q(q⁺) − Q(q⁻)), q± = H/2 ± h clamped to [0, 1], h = K(0.5)·n^(−1/3): the
+    spacing of density_at_quantile around the level H/2 of the median of the rows below the line.
+    Clamped, not capped at H/2: q⁺ would then be H itself, a jump of the weighted CDF (the last row
+    below the line), where the running and the total weight round differently across engines."""
+    q_row = s.div(s.mul(s.lit(0.5), ctx.below_weight_row(frac)), ctx.W_row)
+    h_row = s.mul(s.lit(K_MEDIAN), s.power(ctx.n_row, s.lit(-1.0 / 3.0)))
+    q_grp = s.div(s.mul(s.lit(0.5), s.agg_max(ctx.below_weight_row(frac))), ctx.W)
+    h_grp = s.mul(s.lit(K_MEDIAN), s.power(s.cast_double(ctx.n), s.lit(-1.0 / 3.0)))
+    hi_row, lo_row = s.least(s.add(q_row.copy(), h_row), ONE), s.greatest(s.sub(q_row.copy(), h_row.copy()), ZERO)
+    hi_grp, lo_grp = s.least(s.add(q_grp.copy(), h_grp), ONE), s.greatest(s.sub(q_grp.copy(), h_grp.copy()), ZERO)
+    spread = s.sub(lz.quantile_at_expr(ctx, hi_row), lz.quantile_at_expr(ctx, lo_row))
+    return s.case(s.gt(spread, ZERO), s.div(s.sub(hi_grp, lo_grp), spread.copy()))
+
+
+def median_gap(ctx, frac: float) -> Lin:
+    """G = 1 − M_p/z, z = frac·M, M_p = Q(H/2) the median of the rows below the line (docs/poverty.md):
+
+        z_k(M_p) = [½·1(x_k < z) − 1(x_k ≤ M_p)] / (W f(M_p)) + frac·f(z)/(2 f(M_p)) · z_M,k
+        z_k(G)   = −z_k(M_p)/z + (1 − G)·frac/z · z_M,k
+    """
+    G = pov.build_median_gap(ctx, (frac,))
+    z = s.mul(s.lit(frac), s.agg_min(ctx.median_row))
+    f_p = density_at_poor_median(ctx, frac)
+    scale = s.div(ONE, s.mul(ctx.W, f_p))
+    below = s.case(pov.below_row(ctx, frac), ctx.w, ZERO)
+    at_or_below = s.case(s.lte(ctx.x, ctx.poor_median_row(frac)), ctx.w, ZERO)
+    direct = Lin(pov.poor_median(ctx, frac), [(below, s.mul(s.lit(0.5), scale)), (at_or_below, neg(scale.copy()))])
+    line = s.div(s.mul(s.lit(0.5 * frac), density_at_line(ctx, frac)), f_p.copy())
+    poor = combine(pov.poor_median(ctx, frac), (ONE, direct), (line, median(ctx)))
+    return combine(G, (s.div(s.lit(-1.0), z), poor),
+                   (s.div(s.mul(s.lit(frac), s.sub(ONE, G.copy())), z.copy()), median(ctx)))
+
+
 def median(ctx) -> Lin:
     """The weighted median M: z_k = (0.5 − 1(x_k ≤ M))/(W f(M)). The indicator reads M on every row
     (passes/line.py), so tied values on both sides of the half weight count alike, whatever their
@@ -104,6 +139,7 @@ def wolfson(ctx) -> Lin:
 
 LINEARIZE = {
     "below_line_share": lambda c, p: fgt_relative(c, 0.0, p[0]),
+    "median_gap": lambda c, p: median_gap(c, p[0]),
     "fgt_relative": lambda c, p: fgt_relative(c, p[0], p[1]),
     "fgt": lambda c, p: fgt(c, p[0], p[1]),
     "wolfson": lambda c, p: wolfson(c),

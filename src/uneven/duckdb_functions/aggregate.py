@@ -98,6 +98,9 @@ class OrderedListContext:
     def below_weight_row(self, frac):
         raise NeedsConstant("the relative poverty line reads the group's median on every row")
 
+    def poor_median_row(self, frac):
+        raise NeedsConstant("the relative poverty line reads the group's median on every row")
+
 
 class EntityListContext:
     """The entity pass over a group's entity totals, largest first (``_uv_v``)."""

@@ -144,7 +144,7 @@ def equivalised(income, adults, children, scale="oecd_modified"):
 REFERENCES: dict[str, Callable[..., float | None]] = {
     "below_line_share": below_line_share, "median_gap": median_gap, "fgt": fgt, "fgt_relative": fgt_relative,
     "wolfson": wolfson}
-SE_MEASURES = ("below_line_share", "fgt", "fgt_relative", "wolfson")
+SE_MEASURES = ("below_line_share", "median_gap", "fgt", "fgt_relative", "wolfson")
 
 
 def _sorted_rows(x, w):
@@ -179,6 +179,61 @@ def density_at_line(x, frac, w=None) -> float | None:
     return (hi - lo) / spread if spread > 0 else None
 
 
+def poor_median(x, frac, w=None) -> float | None:
+    """M_p: the weighted median of the rows strictly below frac × the median (None if there are none)."""
+    z = poverty_line(x, frac, w)
+    if z is None:
+        return None
+    x = np.asarray(x, dtype=np.float64)
+    wv = np.ones_like(x) if w is None else np.asarray(w, dtype=np.float64)
+    keep = x < z
+    if not keep.any():
+        return None
+    return R.quantile_w(x[keep], 0.5, wv[keep])
+
+
+def density_at_poor_median(x, frac, w=None) -> float | None:
+    """(q⁺ − q⁻)/(Q(q⁺) − Q(q⁻)) over all rows, q± = H/2 ± h clamped to [0, 1], h = K(0.5)·n^(−1/3)."""
+    H = below_line_share(x, frac, w)
+    if H is None:
+        return None
+    q = H / 2
+    h = hall_sheather(0.5, len(x))
+    hi, lo = min(q + h, 1.0), max(q - h, 0.0)
+    top, bottom = R.quantile_w(x, hi, w), R.quantile_w(x, lo, w)
+    if top is None or bottom is None:
+        return None
+    spread = top - bottom
+    return (hi - lo) / spread if spread > 0 else None
+
+
+def _median_gap_influence(x, frac, w):
+    """G = 1 − M_p/z with z = frac·M and M_p = Q(H/2), H = F(z⁻): by the chain rule (docs/poverty.md)
+
+        IF(H)   = 1(x < z) − H + f(z)·frac·IF(M)
+        IF(M_p) = [IF(H)/2 − (1(x ≤ M_p) − H/2)] / f(M_p)
+        IF(G)   = −IF(M_p)/z + (M_p/z²)·frac·IF(M)
+
+    and z_k = IF(x_k)/W."""
+    G = median_gap(x, frac, w)
+    if G is None:
+        return None, None
+    x = np.asarray(x, dtype=np.float64)
+    W = float(len(x)) if w is None else float(math.fsum(w))
+    z = poverty_line(x, frac, w)
+    H = below_line_share(x, frac, w)
+    Mp = poor_median(x, frac, w)
+    zM, _ = median_score(x, w)
+    f_line, f_poor = density_at_line(x, frac, w), density_at_poor_median(x, frac, w)
+    if zM is None or f_line is None or f_poor is None:
+        return G, None
+    if_M = W * zM
+    if_H = (x < z) - H + f_line * frac * if_M
+    if_Mp = (if_H / 2 - ((x <= Mp) - H / 2)) / f_poor
+    if_G = -if_Mp / z + Mp / z ** 2 * frac * if_M
+    return G, if_G / W
+
+
 def influence(name, x, params=(), w=None):
     """(estimate, z per row in input order), z None where no standard error exists."""
     x = np.asarray(x, dtype=np.float64)
@@ -208,6 +263,8 @@ def influence(name, x, params=(), w=None):
         g = np.where(x < z, ((z - x) / z) ** alpha if alpha else 1.0, 0.0)
         # F(ẑ) with ẑ = frac·M̂: z_k = (g_k − F)/W + ∂F/∂z · frac · z_M,k
         return F, (g - F) / W + slope * frac * zM
+    if name == "median_gap":
+        return _median_gap_influence(x, params[0], w)
     if name == "wolfson":
         P = wolfson(x, w)
         if P is None:

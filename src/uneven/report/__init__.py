@@ -19,12 +19,15 @@ DEFAULT_POINTS = 50
 
 
 def report_data(source, value: str, *, weight: str | None = None, by=None, time: str | None = None,
-                points: int = DEFAULT_POINTS, title: str | None = None, con=None, **settings) -> ReportData:
-    """Run the report's queries (on ``con`` or a new in-memory connection) and return their results."""
+                points: int = DEFAULT_POINTS, title: str | None = None, dominance=None,
+                dominance_generalized: bool = False, con=None, **settings) -> ReportData:
+    """Run the report's queries (on ``con`` or a new in-memory connection) and return their results.
+    ``dominance``: two groups of ``by`` (``"A,B"`` or a pair of labels) whose Lorenz curves (generalized
+    with ``dominance_generalized``) the report compares with a test (docs/dominance.md)."""
     connection, owned = open_connection(con, **settings)
     try:
         return collect(connection, make_spec(connection, source, value, weight, by, time), points=points,
-                       title=title)
+                       title=title, dominance=dominance, generalized=dominance_generalized)
     finally:
         if owned:
             connection.close()
@@ -51,14 +54,16 @@ def render_report(data: ReportData, path: str | Path, fmt: str) -> dict[Path, st
 
 def write_report(source, value: str, path: str | Path, *, weight: str | None = None, by=None,
                  time: str | None = None, format: str | None = None, points: int = DEFAULT_POINTS,  # noqa: A002
-                 title: str | None = None, overwrite: bool = False, con=None, **settings) -> Path:
+                 title: str | None = None, overwrite: bool = False, dominance=None,
+                 dominance_generalized: bool = False, con=None, **settings) -> Path:
     """Compute and write a report (HTML by default, Markdown for ``format="md"`` or a .md path).
 
     ``source``: a Parquet/CSV file or glob, a table or view of ``con``, or a DataFrame/Arrow table.
+    ``dominance``: two groups of ``by`` to compare (a section with the test, its chart and table).
     Returns the report's path. An existing file is replaced only with ``overwrite=True``.
     """
     fmt = report_format(path, format)
-    data = report_data(source, value, weight=weight, by=by, time=time, points=points, title=title, con=con,
-                       **settings)
+    data = report_data(source, value, weight=weight, by=by, time=time, points=points, title=title,
+                       dominance=dominance, dominance_generalized=dominance_generalized, con=con, **settings)
     write_all(render_report(data, path, fmt), overwrite=overwrite)
     return Path(path)

@@ -1,4 +1,5 @@
-"""The report's three pictures as SVG text: ranking (bars), Lorenz curves, trend (with a time column)."""
+"""The report's pictures as SVG text: ranking (bars), Lorenz curves, trend (with a time column) and the
+difference of two groups' curves with its band (with a dominance comparison)."""
 
 from __future__ import annotations
 
@@ -40,4 +41,6 @@ def all_charts(data: ReportData) -> dict[str, str]:
     trend = trend_svg(data)
     if trend:
         charts["trend"] = trend
+    if data.dominance is not None:
+        charts["dominance"] = data.dominance.svg()
     return charts

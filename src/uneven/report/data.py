@@ -21,8 +21,10 @@ import pandas as pd
 from sqlglot import exp
 
 from uneven.errors import UnevenError
+from uneven.report import dominance as dom
 from uneven.report.lorenz import check_points
 from uneven.report.query import Spec, alias, call, group_label, run_tree
+from uneven.tables.dominance import Dominance
 
 MAX_CURVES = 12  # curves per chart; with more groups the charts show the most and least unequal
 
@@ -121,6 +123,7 @@ class ReportData:
     period: str | None = None        # the latest period the table and curves are for
     periods: list[str] = field(default_factory=list)
     trend: dict[str, list[float]] = field(default_factory=dict)  # group label → Gini per period
+    dominance: Dominance | None = None  # two groups' Lorenz curves compared (report/dominance.py)
 
     def shown(self) -> list[Group]:
         """The groups drawn in charts: all, or the most and least unequal when there are too many."""
@@ -188,15 +191,21 @@ def rank_groups(groups: list[Group]) -> list[Group]:
     return defined + [g for g in groups if g.values["gini"] != g.values["gini"]]
 
 
-def collect(con, spec: Spec, *, points: int = 50, title: str | None = None) -> ReportData:
-    """Run the report's queries and gather their results."""
+def collect(con, spec: Spec, *, points: int = 50, title: str | None = None, dominance=None,
+            generalized: bool = False) -> ReportData:
+    """Run the report's queries and gather their results. ``dominance``: two group labels (``"A,B"``)
+    whose (with ``generalized``, generalized) Lorenz curves the report compares."""
     check_points(points)
+    pair = dom.pair(dominance)
+    if pair is not None:
+        dom.check_keys(spec)  # before the queries: a refusal should not cost a long run
     columns = [c for c in COLUMNS if spec.weight is not None or not c.weighted_only]
     names = spec.key_names
     per_group = run_tree(con, measures_select(spec, columns, points))
     if per_group.empty:
         raise UnevenError(f"{spec.source.label} has no rows to report on")
-    groups = rank_groups([_group(r, spec, columns, group_label(r, names)) for r in per_group.to_dict("records")])
+    records = per_group.to_dict("records")
+    groups = rank_groups([_group(r, spec, columns, group_label(r, names)) for r in records])
     overall = None
     if names:
         rec = run_tree(con, measures_select(spec, columns, points, keys=False)).to_dict("records")[0]
@@ -206,6 +215,9 @@ def collect(con, spec: Spec, *, points: int = 50, title: str | None = None) -> R
                       spec.time.name if spec.time is not None else None, spec.source.label, columns, groups, overall)
     if spec.time is not None:
         _add_trend(con, spec, data)
+    if pair is not None:
+        keys = {group_label(r, names): r[names[0]] for r in records} if len(names) == 1 else {}
+        data.dominance = dom.compare(con, spec, pair, keys, generalized)
     return data
 
 

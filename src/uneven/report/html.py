@@ -7,6 +7,7 @@ import datetime as _dt
 from html import escape
 
 import uneven
+from uneven.report import dominance as dom
 from uneven.report.charts import all_charts
 from uneven.report.data import CAUTIONS, FEW_ROWS, INTERVAL_NOTE, ReportData, format_value
 
@@ -30,6 +31,7 @@ table.measures tr.overall td { font-weight: 600; border-top: 2px solid #9ab; }
 table.measures .ci { color: #666; font-size: 80%; }
 table.measures tr.few td { background: #fff6e0; }
 table.measures .flag { color: #a05a00; font-weight: 600; }
+p.verdict { font-size: 16px; font-weight: 600; margin: 6px 0 10px; }
 .cautions { font-size: 13px; background: #fff6e0; border-left: 4px solid #d9a441; padding: 6px 12px 6px 28px; }
 """.replace("TABLE_HEAD", TABLE_HEAD)
 
@@ -102,6 +104,21 @@ def notes(data: ReportData) -> list[str]:
     return out
 
 
+def _dominance(data: ReportData, chart: str) -> list[str]:
+    d = data.dominance
+    if d is None:
+        return []
+    head = "".join(f"<th>{escape(h)}</th>" for h in dom.HEADERS)
+    rows = [f"<tr>{head}</tr>"] + ["<tr>" + "".join(f"<td>{escape(c)}</td>" for c in row) + "</tr>"
+                                   for row in dom.cells(d)]
+    return [f'<h2 id="dominance">Dominance: {escape(str(d.groups[0]))} and {escape(str(d.groups[1]))}</h2>',
+            f'<p class="verdict" id="dominance-verdict">{escape(d.verdict)}</p>',
+            f'<p class="meta">{escape(dom.summary(d))}</p>',
+            f'<div class="charts"><figure id="dominance-chart">{chart}</figure></div>',
+            '<div class="table-wrap"><table class="measures" id="dominance-table">\n' + "\n".join(rows)
+            + "\n</table></div>", f'<p class="notes">{escape(dom.NOTE)}</p>']
+
+
 def render_html(data: ReportData) -> str:
     charts = all_charts(data)
     today = _dt.date.today().isoformat()
@@ -119,6 +136,7 @@ def render_html(data: ReportData) -> str:
     if "trend" in charts:
         parts += [f'<h2 id="trend">Trend by {escape(data.time)}</h2>',
                   f'<div class="charts"><figure id="trend-chart">{charts["trend"]}</figure></div>']
+    parts += _dominance(data, charts.get("dominance", ""))
     parts.append('<h2 id="notes">Notes</h2><ul class="notes">'
                  + "".join(f"<li>{escape(n)}</li>" for n in notes(data)) + "</ul>")
     parts += ["</body>", "</html>", ""]

@@ -1,11 +1,12 @@
 """The report as Markdown: a table and lists in the text, and each chart as an SVG file written
-next to it (``NAME-ranking.svg``, ``NAME-lorenz.svg``, ``NAME-trend.svg``) that the text links by
-a relative path, so the folder renders wherever Markdown shows local images."""
+next to it (``NAME-ranking.svg``, ``NAME-lorenz.svg``, ``NAME-trend.svg``, ``NAME-dominance.svg``)
+that the text links by a relative path, so the folder renders wherever Markdown shows local images."""
 
 from __future__ import annotations
 
 from pathlib import Path
 
+from uneven.report import dominance as dom
 from uneven.report.charts import all_charts
 from uneven.report.data import ReportData, format_value
 from uneven.report.html import FEW_FLAG, cautions, describe, notes
@@ -31,6 +32,17 @@ def _table(data: ReportData) -> list[str]:
     return lines
 
 
+def _dominance(data: ReportData, stem: str) -> list[str]:
+    d = data.dominance
+    if d is None:
+        return []
+    lines = ["", f"## Dominance: {_cell(str(d.groups[0]))} and {_cell(str(d.groups[1]))}", "",
+             f"**{d.verdict}**", "", dom.summary(d), "", f"![Difference of the curves]({stem}-dominance.svg)", "",
+             "| " + " | ".join(dom.HEADERS) + " |", "|" + "|".join(["---:"] * len(dom.HEADERS)) + "|"]
+    lines += ["| " + " | ".join(_cell(c) for c in row) + " |" for row in dom.cells(d)]
+    return lines + ["", dom.NOTE]
+
+
 def render_markdown(data: ReportData, stem: str) -> tuple[str, dict[str, str]]:
     """The Markdown text and the side files it links ({file name: SVG text})."""
     charts = all_charts(data)
@@ -45,9 +57,11 @@ def render_markdown(data: ReportData, stem: str) -> tuple[str, dict[str, str]]:
     out += ["", "**Read with care:**", ""] + [f"- {n}" for n in cautions(data)]
     if "trend" in charts:
         out += ["", f"## Trend by {data.time}", "", f"![Gini by {data.time}]({stem}-trend.svg)"]
+    out += _dominance(data, stem)
     out += ["", "## Notes", ""] + [f"- {n}" for n in notes(data)] + [""]
     return "\n".join(out), files
 
 
-def side_file_names(path: Path, trend: bool = True) -> list[str]:
-    return [f"{path.stem}-{name}.svg" for name in ("ranking", "lorenz") + (("trend",) if trend else ())]
+def side_file_names(path: Path, trend: bool = True, dominance: bool = False) -> list[str]:
+    names = ("ranking", "lorenz") + (("trend",) if trend else ()) + (("dominance",) if dominance else ())
+    return [f"{path.stem}-{name}.svg" for name in names]

@@ -63,7 +63,7 @@ class Dominance:
 
     def svg(self) -> str:
         """The difference of the two curves over p with its simultaneous band (hand-written SVG)."""
-        from uneven.report.svg import difference_chart
+        from uneven.svg import difference_chart
         t = self.table
         kind = "generalized Lorenz" if self.generalized else "Lorenz"
         return difference_chart(list(t["p"]), list(t["difference"]), list(t["band_lo"]), list(t["band_hi"]),

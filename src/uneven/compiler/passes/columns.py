@@ -3,7 +3,8 @@
 ``RowColumns``: the value ``x`` and the weight ``w`` (1.0 when unweighted) of a pass's rows.
 ``SortedColumns``: in a window CTE over rows sorted by x, the running weight ``c`` (C_i), the group
 minimum ``min_row``, the group weight ``W_row`` and the relative poverty line's columns
-(``median_row``, ``below_weight_row(frac)``, ``quantile_row(p)``: window layers of passes/line.py);
+(``median_row``, ``below_weight_row(frac)``, ``poor_median_row(frac)``, ``quantile_row(p)``: window
+layers of passes/line.py);
 reading one records it in ``used`` so the
 lowering adds only the window columns a measure needs.
 """
@@ -45,6 +46,15 @@ class LineColumns:
         if frac not in fracs:
             fracs.append(frac)
         return s.col(f"_uv_pw{fracs.index(frac) + 1}")
+
+    def poor_median_row(self, frac: float) -> exp.Expression:
+        """M_p, the weighted median of the rows strictly below the line frac·M (the smallest x < frac·M
+        with C ≥ P/2), on every row: an indicator 1(x ≤ M_p) read against it counts tied values alike."""
+        self.below_weight_row(frac)
+        fracs = self.__dict__.setdefault("poor_fracs", [])
+        if frac not in fracs:
+            fracs.append(frac)
+        return s.col(f"_uv_pm{fracs.index(frac) + 1}")
 
     def quantile_row(self, p: float) -> exp.Expression:
         """Q_p, the group's weighted quantile (smallest x with C/W ≥ p), on every row: an indicator

@@ -10,6 +10,8 @@ read ``ctx.median_row`` or ``ctx.below_weight_row(frac)`` gets, after its window
           and Q_p = the same at p for each quantile whose standard error reads 1(x ≤ Q_p)
     _win  P_k = SUM(CASE WHEN x < frac_k·M THEN w ELSE 0 END) OVER (PARTITION BY keys)
           — the weight strictly below each line (only when a measure reads it)
+    _med2 M_p = MIN(CASE WHEN x < frac_k·M AND C ≥ P_k/2 THEN x END) OVER (PARTITION BY keys)
+          — the weighted median of the rows below the line (only for median_gap's standard error)
 
 The last layer takes the window CTE's usual name ``{name}_win``, so everything that reads the
 pass downstream (the GROUP BY of the measures, the linearized terms, the bootstrap) is unchanged.
@@ -52,6 +54,17 @@ def below_columns(ctx, keys) -> list[exp.Expression]:
     return cols
 
 
+def poor_median_columns(ctx, keys) -> list[exp.Expression]:
+    cols: list[exp.Expression] = []
+    fracs = ctx.__dict__.get("line_fracs", [])
+    for i, frac in enumerate(ctx.__dict__.get("poor_fracs", []), start=1):
+        below = s.lt(s.col("_uv_x"), s.mul(s.lit(frac), s.col("_uv_md")))
+        half = s.gte(s.col("_uv_c"), s.mul(s.lit(0.5), s.col(f"_uv_pw{fracs.index(frac) + 1}")))
+        first = s.window(s.agg_min(s.case(s.and_(below, half), s.col("_uv_x"))), _partition(keys))
+        cols.append(s.alias(first, f"_uv_pm{i}"))
+    return cols
+
+
 def window_ctes(win: exp.Select, ctx, keys, name: str) -> list[exp.CTE]:
     """``win`` as ``{name}_win``, or, when the measures read the line, ``win`` as ``{name}_srt``
     followed by the line layers, the last named ``{name}_win``."""
@@ -61,7 +74,11 @@ def window_ctes(win: exp.Select, ctx, keys, name: str) -> list[exp.CTE]:
     below = below_columns(ctx, keys)
     if below:
         layers.append(below)
-    names = [f"{name}_srt"] + [f"{name}_med"] * (len(layers) - 1) + [f"{name}_win"]
+    poor = poor_median_columns(ctx, keys)
+    if poor:
+        layers.append(poor)
+    middle = [f"{name}_med" + (str(i) if i > 1 else "") for i in range(1, len(layers))]
+    names = [f"{name}_srt"] + middle + [f"{name}_win"]
     out = [cte(win, names[0])]
     for i, cols in enumerate(layers, start=1):
         out.append(cte(exp.Select(expressions=[exp.Star()] + cols).from_(table(names[i - 1]), copy=False), names[i]))
