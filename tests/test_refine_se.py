@@ -133,10 +133,11 @@ def exact_se(score, x, w):
 CALLS = [(call.format(w=", w" if weighted else ""), ref, weighted) for weighted in (True, False)
          for call, ref in SCORES.items()]
 # Tolerances. The crowded group's values lie within 5e-5 of each other: the Lorenz scores there
-# are of the order of that spread while the estimate L enters them as m·(p − L), m = 1000, so its
-# last-digit rounding (both plans compute L the same way) leaves about 2e-12 of the SE; elsewhere
-# the SEs agree with the exact ones to 1e-12.
-TOLERANCE = {"crowded": 1e-11}
+# are of the order of that spread while the estimate L enters them as m·(p − L), m = 1000 and
+# p − L about 2e-6, so the rounding of the sums behind L (both plans compute L the same way) is
+# amplified about 1e9-fold relative: 2e-12 of the SE on DuckDB, 7e-11 on PostgreSQL, which adds
+# the same doubles in another order. Elsewhere the SEs agree with the exact ones to 1e-12.
+CROWDED = {"duckdb": 1e-11}
 
 
 def _group(df, key, weighted):
@@ -178,7 +179,7 @@ def test_cut_measure_standard_errors_are_exact_on_the_refine_plan(engine, data):
             want, value = _EXPECTED[key, i], row[f"m{i}"]
             value = None if value is None or value is pd.NA or (isinstance(value, float) and math.isnan(value)) \
                 else value
-            tol = TOLERANCE.get(key, 1e-12)
+            tol = CROWDED.get(engine.name, 1e-9) if key == "crowded" else 1e-12
             if (want is None) != (value is None) or (want is not None and abs(value - want) > tol * abs(want)
                                                       and abs(value - want) > 1e-300):
                 bad.append(f"{key} {call}: got {value}, want {want}")
