@@ -34,8 +34,8 @@ def main() -> None:
                 f"cos(2 * pi() * random())) AS x, 1 + floor(random() * 5) AS w FROM range({a.rows}) t(i)")
     cases = {"scan aggregate": "SELECT count(*) FROM (SELECT grp, sum(x), sum(w), count(*) FROM f GROUP BY grp)"}
     for name, key in KEYS.items():
-        cases[name] = (f"SELECT count(*), max(n) FROM (SELECT grp, b, sum(w), sum(w * x), min(x), max(x), count(*) AS n "
-                       f"FROM (SELECT grp, x, w, {key} AS b FROM f) GROUP BY grp, b)")
+        cases[name] = (f"SELECT count(*), max(n) FROM (SELECT grp, b, sum(w), sum(w * x), min(x), max(x), "
+                       f"count(*) AS n FROM (SELECT grp, x, w, {key} AS b FROM f) GROUP BY grp, b)")
     for name, sql in cases.items():
         best = float("inf")
         for _ in range(a.repeat):
