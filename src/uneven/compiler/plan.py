@@ -187,14 +187,16 @@ def route_refine(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
     bench/README.md, "Refine plan"), except when tie grouping is
     asked for (a variant of the window plan); "refine" the same, whatever tie grouping says;
     "window" never. A pass with a measure that needs the full order (Gini and its family) keeps
-    the window plan, and says which measure."""
+    the window plan, and says which measure. A linearized pass without a survey design whose calls
+    are all cut-based (their standard errors and intervals too) is refined the same way: the
+    scores' sums come from the bins (passes/refine_se.py)."""
     for plan in plans:
-        if plan.kind != PassKind.ORDERED or plan.columns or plan.options:
+        if plan.kind not in (PassKind.ORDERED, PassKind.LINEARIZED) or plan.columns or plan.options:
             continue
         if scope.options.ordered == "window":
             plan.order_reason = "window plan requested"
             continue
-        if scope.options.ordered == "auto" and scope.options.tie_grouping == "on":
+        if scope.options.ordered == "auto" and scope.options.tie_grouping == "on" and plan.kind == PassKind.ORDERED:
             plan.order_reason = "window plan: tie grouping requested"
             continue
         blocking = list(dict.fromkeys(r for r in (refinable(c) for c in plan.calls) if r))

@@ -29,6 +29,7 @@ from dataclasses import dataclass
 from sqlglot import exp
 
 from uneven.catalog.spec import PassKind
+from uneven.compiler.passes import refine_se as se
 from uneven.compiler.passes.source import (
     Source,
     checked_value,
@@ -52,6 +53,7 @@ ROWS_ALIAS = "_uv_r"
 class Cut:
     kind: str  # "below" (value held by the poorest p), "above" (by the richest p), "quantile"
     p: float
+    side: int = 0  # quantile cuts of a density: at p + h (1) or p − h (−1), h from the row count
 
 
 class RefineContext:
@@ -67,6 +69,23 @@ class RefineContext:
         if cut not in self.cuts:
             self.cuts.append(cut)
         return self.cuts.index(cut) + 1
+
+    def below_index(self, p: float) -> int:
+        """The index of the below cut at p (its indicator 1(C ≤ p·W) in a score)."""
+        return self._index(Cut("below", p))
+
+    def quantile_index(self, p: float) -> int:
+        return self._index(Cut("quantile", p))
+
+    @property
+    def m(self):
+        """The group's smallest value (scores are written in d = x − m: catalog/linearize.py)."""
+        return self._c("_uv_m")
+
+    @property
+    def n(self):
+        """The group's row count as a DOUBLE."""
+        return self._c("_uv_n")
 
     def _c(self, column: str) -> exp.Column:
         return s.col(column, f"{self.name}_cut")
@@ -102,9 +121,11 @@ class RefineContext:
         """Σ x_i·clamp(C_i − (1−p)·W, 0, w_i): the value held by the richest fraction p of the weight."""
         return self._mass("above", p)
 
-    def quantile(self, p: float) -> exp.Expression:
+    def quantile(self, p: float, side: int = 0) -> exp.Expression:
         """Smallest x_i with C_i/W ≥ p; the largest x when rounding leaves no row reaching p."""
-        i = self._index(Cut("quantile", p))
+        return self.quantile_value(self._index(Cut("quantile", p, side)))
+
+    def quantile_value(self, i: int) -> exp.Expression:
         j, lo, hi = (self._c(f"_uv_{n}{i}") for n in ("j", "lo", "hi"))
         inside = exp.Coalesce(this=s.col(f"_uv_q{i}", f"{self.name}_part"), expressions=[hi.copy()])
         return exp.Case(ifs=[exp.If(this=exp.Is(this=j, expression=exp.Null()), true=self._c("_uv_top")),
@@ -153,7 +174,7 @@ def refinable(call) -> str | None:
     from uneven import catalog  # noqa: PLC0415 (the catalog imports the compiler's builders)
 
     name = call.measure.name
-    if name not in BUILDS:
+    if name not in BUILDS and se.split_name(name) is None:
         return f"{name} needs the full order"
     entry = catalog.lookup(name)
     if entry is None or call.measure.build is not entry.build or len(call.params) != len(entry.constants) \
@@ -209,13 +230,23 @@ def lower_refine_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
     """CTEs of one refine pass and, for each call key, the column that holds its result."""
     weighted = plan.trailing is not None
     ctx = RefineContext(weighted, name)
-    out_cols, results = [], {}
+    out_cols, results, scored_calls = [], {}, []
     for call in plan.calls:
         if call.key in results:
             continue
         column = f"_uv_r{len(out_cols) + 1}"
-        out_cols.append(s.alias(BUILDS[call.measure.name](ctx, call.params), column))
+        split = se.split_name(call.measure.name)
+        if split is None:
+            out_cols.append(s.alias(BUILDS[call.measure.name](ctx, call.params), column))
+        else:  # a standard error or interval end: its score's coefficients go to the coef CTE
+            score = se.SCORES[split[0]](ctx, BUILDS, call.params)
+            scored_calls.append((len(out_cols) + 1, score, split[1], call.settings.get("level", 0.95)))
+            out_cols.append(s.alias(exp.Null(), column))
         results[call.key] = s.col(column, name)
+    with_se = bool(scored_calls)
+    dynamic = any(c.side for c in ctx.cuts)
+    if with_se:
+        coef_cols, scored = se.coef_columns(scored_calls, ctx)
 
     keys = source.key_columns()
     nk = len(keys)
@@ -226,10 +257,17 @@ def lower_refine_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
 
     # bins: one row per (group, bin)
     weight_sum = s.agg_sum(w.copy()) if weighted else s.cast_double(s.agg_count_star())
+    moments = []
+    if with_se:  # Σw², Σw²x, Σw²x² and the row count: a variance from the bins (refine_se.py)
+        w2 = s.mul(w.copy(), w.copy()) if weighted else s.lit(1.0)
+        moments = [s.alias(s.agg_count_star(), "_uv_nb"), s.alias(s.agg_sum(w2.copy()), "_uv_a0"),
+                   s.alias(s.agg_sum(s.mul(w2.copy(), x.copy())), "_uv_a1"),
+                   s.alias(s.agg_sum(s.mul(w2.copy(), s.mul(x.copy(), x.copy()))), "_uv_a2")]
     bins = exp.Select(expressions=group() + [s.col("_uv_b"), s.alias(weight_sum, "_uv_wb"),
                                              s.alias(s.agg_sum(s.mul(w.copy(), x.copy())), "_uv_tb"),
                                              s.alias(s.agg_min(x.copy()), "_uv_lo"),
-                                             s.alias(s.agg_max(x.copy()), "_uv_hi")]).from_(_rows(source, plan))
+                                             s.alias(s.agg_max(x.copy()), "_uv_hi")] + moments
+                          ).from_(_rows(source, plan))
     bins.set("group", exp.Group(expressions=group([s.col("_uv_b")])))
 
     kinds = {c.kind for c in ctx.cuts}
@@ -246,6 +284,11 @@ def lower_refine_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
     if "above" in kinds:
         cum_cols.append(s.alias(exp.Coalesce(this=_frame(s.agg_sum(tb.copy()), keys, "1", "FOLLOWING", "UNBOUNDED",
                                                          "FOLLOWING"), expressions=[zero.copy()]), "_uv_sn"))
+    if with_se:
+        cum_cols += [s.col(c) for c in ("_uv_tb", "_uv_a0", "_uv_a1", "_uv_a2")] + [
+            s.alias(s.cast_double(s.window(s.agg_sum(s.col("_uv_nb")), group())), "_uv_nt"),
+            s.alias(s.window(s.agg_min(s.col("_uv_lo")), group()), "_uv_gl"),
+            s.alias(s.window(s.agg_max(s.col("_uv_hi")), group()), "_uv_gh")]
     cum = exp.Select(expressions=cum_cols).from_(table(f"{name}_bins"))
 
     # mark: the first bin where each cut is reached (the same comparisons as the window plan's)
@@ -254,7 +297,7 @@ def lower_refine_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
     mark_cols = [s.col(n) for n in passed]
     for i, cut in enumerate(ctx.cuts, 1):
         if cut.kind == "quantile":
-            reached = s.gte(s.div(cb.copy(), wt.copy()), s.lit(cut.p))
+            reached = s.gte(s.div(cb.copy(), wt.copy()), _level(cut, s.col("_uv_nt")))
         else:
             target = cut.p if cut.kind == "below" else 1.0 - cut.p
             reached = s.gte(cb.copy(), s.mul(s.lit(target), wt.copy()))
@@ -263,9 +306,15 @@ def lower_refine_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
 
     js = [s.col(f"_uv_j{i}") for i in range(1, len(ctx.cuts) + 1)]
     is_cut = s.or_(*[exp.EQ(this=b.copy(), expression=j.copy()) for j in js])
-    need = exp.Select(expressions=group() + [s.col(n) for n in ("_uv_b", "_uv_cp", "_uv_wt")] + [j.copy() for j in js]
-                      ).from_(table(f"{name}_mark")).where(s.and_(s.lt(s.col("_uv_lo"), s.col("_uv_hi")),
-                                                                    s.paren(is_cut) if len(js) > 1 else is_cut))
+    read = s.and_(s.lt(s.col("_uv_lo"), s.col("_uv_hi")), s.paren(is_cut) if len(js) > 1 else is_cut)
+    if with_se:  # every bin of a tight group too (refine_se.py: its bin sums would lose digits)
+        gl, gh = s.col("_uv_gl"), s.col("_uv_gh")
+        tight = s.and_(s.lt(gl.copy(), gh.copy()), s.lt(s.sub(gh.copy(), gl.copy()), s.mul(
+            s.lit(se.TIGHT), s.greatest(s.absval(gl.copy()), s.absval(gh.copy())))))
+        read = s.or_(s.paren(read), s.paren(tight))
+    carried = ("_uv_b", "_uv_cp", "_uv_wt") + (("_uv_nt",) if dynamic else ())
+    need = exp.Select(expressions=group() + [s.col(n) for n in carried] + [j.copy() for j in js]
+                      ).from_(table(f"{name}_mark")).where(read.copy())
 
     # in: the rows of the bins to refine, with their running weight inside the bin
     nd = f"{name}_need"
@@ -276,7 +325,7 @@ def lower_refine_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
                else s.cast_double(s.window(exp.RowNumber(), part_by, [rx.copy()])))
     in_cols = [s.alias(s.col(key_name(i), ROWS_ALIAS), key_name(i)) for i in range(nk)] + [
         s.alias(rx.copy(), "_uv_x")] + ([s.alias(rw.copy(), "_uv_w")] if weighted else []) + [
-        s.alias(s.col(n, nd), n) for n in ("_uv_b", "_uv_cp", "_uv_wt")] + [
+        s.alias(s.col(n, nd), n) for n in carried] + [
         s.alias(s.col(f"_uv_j{i}", nd), f"_uv_j{i}") for i in range(1, len(js) + 1)] + [s.alias(running, "_uv_ci")]
     inside = exp.Select(expressions=in_cols).from_(_rows(source, plan))
     inside.append("joins", exp.Join(this=table(nd), on=on))
@@ -288,7 +337,8 @@ def lower_refine_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
     for i, cut in enumerate(ctx.cuts, 1):
         mine = exp.EQ(this=b.copy(), expression=s.col(f"_uv_j{i}"))
         if cut.kind == "quantile":
-            agg = s.agg_min(s.case(s.and_(mine, s.gte(s.div(c_i.copy(), wt.copy()), s.lit(cut.p))), x.copy()))
+            reached = s.gte(s.div(c_i.copy(), wt.copy()), _level(cut, s.col("_uv_nt")))
+            agg = s.agg_min(s.case(s.and_(mine, reached), x.copy()))
         else:
             if cut.kind == "below":
                 room = s.sub(s.mul(s.lit(cut.p), wt.copy()), s.sub(c_i.copy(), w.copy()))
@@ -303,6 +353,8 @@ def lower_refine_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
     # cut: per group, the totals and each cut bin's own columns
     cut_cols = group() + [s.alias(s.agg_max(s.col("_uv_wt")), "_uv_wt"), s.alias(s.agg_max(s.col("_uv_tt")), "_uv_tt"),
                           s.alias(s.agg_max(s.col("_uv_hi")), "_uv_top")]
+    if with_se:
+        cut_cols += [s.alias(s.agg_min(s.col("_uv_lo")), "_uv_m"), s.alias(s.agg_max(s.col("_uv_nt")), "_uv_n")]
     for i, cut in enumerate(ctx.cuts, 1):
         j = s.col(f"_uv_j{i}")
         at = lambda col: s.agg_max(s.case(exp.EQ(this=b.copy(), expression=j.copy()), s.col(col)))  # noqa: E731
@@ -324,8 +376,35 @@ def lower_refine_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
     else:
         final.append("joins", exp.Join(this=table(pt), kind="CROSS"))
     ctes = [cte(bins, f"{name}_bins"), cte(cum, f"{name}_cum"), cte(mark, f"{name}_mark"), cte(need, nd),
-            cte(inside, f"{name}_in"), cte(part, pt), cte(cuts, ct), cte(final, name)]
-    return ctes, results
+            cte(inside, f"{name}_in"), cte(part, pt), cte(cuts, ct)]
+    if not with_se:
+        return ctes + [cte(final, name)], results
+    # with standard errors: estimates and coefficients per group (coef), Σu and Σu² (var), then the SEs
+    coef = f"{name}_coef"
+    by_index = {sc.index: sc for sc in scored}
+    final.set("expressions", [c for j, c in enumerate(final.expressions, 1 - nk) if j not in by_index] + [
+        s.col("_uv_m", ct), s.col("_uv_n", ct), s.col("_uv_top", ct)] + coef_cols)
+    ctes.append(cte(final, coef))
+    cut_p = {i: c.p for i, c in enumerate(ctx.cuts, 1)}
+    var = se.variance_ctes(name, nk, scored, read, cut_p.__getitem__, weighted)
+    ctes += var
+    columns = [s.alias(s.col(key_name(i), coef), key_name(i)) for i in range(nk)] + [
+        s.alias(se.result_column(by_index[j], name) if j in by_index else s.col(c.alias_or_name, coef), c.alias_or_name)
+        for j, c in enumerate(out_cols, 1)]
+    out = exp.Select(expressions=columns).from_(table(coef))
+    vt = f"{name}_var"
+    if not var:
+        pass
+    elif keys:
+        out.append("joins", exp.Join(this=table(vt), side="LEFT", on=s.and_(*_null_safe_keys(nk, coef, vt))))
+    else:
+        out.append("joins", exp.Join(this=table(vt), kind="CROSS"))
+    return ctes + [cte(out, name)], results
+
+
+def _level(cut: Cut, n: exp.Expression) -> exp.Expression:
+    """The level a quantile cut compares C/W with: p, or p ± h for a density's cuts."""
+    return s.lit(cut.p) if not cut.side else se.level(cut.p, cut.side, n)
 
 
 # the registry's entry (passes/registry.py)
