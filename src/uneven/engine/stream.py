@@ -1,0 +1,82 @@
+"""Run the streamed ordered passes of a compiled query on DuckDB, then the query itself.
+
+For each job (compiler/passes/stream.StreamJob): the group totals first when a measure reads a cut
+(one hash aggregate, groups in the rows' order), then the sorted rows drained as Arrow batches
+(``con.sql(q).to_arrow_reader(rows)``: no extra copy, unlike ``con.execute``) into the numpy
+state of engine/streamsums.py, the kernels applied per group, and the results registered on the
+connection under the job's ``_uv_str_N`` name for the compiled query to join; unregistered at the
+end, whatever happened. Errors of the input policy raised by DuckDB while the rows stream come back
+as the same ``UnevenError``s as from the window plan.
+"""
+
+from __future__ import annotations
+
+import duckdb
+import numpy as np
+import pandas as pd
+import pyarrow as pa
+
+from uneven.compiler.passes.stream import StreamJob
+from uneven.engine.runner import translate_error
+from uneven.engine.streamsums import GroupValues, StreamState
+from uneven.errors import ExecutionError
+
+# rows per Arrow batch: large enough that numpy's per-batch overhead vanishes, small enough that a
+# batch's few float columns stay well inside the cache-friendly range (bench/README.md, "Stream plan")
+BATCH_ROWS = 1 << 19
+
+
+def run_job(con: duckdb.DuckDBPyConnection, job: StreamJob, batch_rows: int | None = None) -> pa.Table:
+    """The job's result table: its key columns and one DOUBLE column per call (NULL where undefined)."""
+    batch_rows = batch_rows or BATCH_ROWS
+    state = StreamState(job.needs, job.weighted)
+    totals_keys = None
+    try:
+        if job.totals_sql:
+            totals = con.sql(job.totals_sql).arrow()
+            totals = totals.read_all() if isinstance(totals, pa.RecordBatchReader) else totals
+            state.totals = totals.column("_uv_wt").to_numpy(zero_copy_only=False).astype(np.float64)
+            totals_keys = totals.select(job.keys)
+        reader = con.sql(job.rows_sql).to_arrow_reader(batch_rows)
+        schema = reader.schema
+        for batch in reader:
+            state.feed(batch, job.keys)
+    except duckdb.Error as e:
+        raise translate_error(e) from None
+    values, m = state.finish()
+    groups = state.started
+    if job.keys:
+        keys = (pa.Table.from_batches(state.key_parts) if state.key_parts
+                else pa.Table.from_batches([], schema=pa.schema([schema.field(k) for k in job.keys])))
+        if totals_keys is not None and not keys.equals(totals_keys.cast(keys.schema)):
+            raise ExecutionError("the streamed ordered pass found its groups in another order than the group "
+                                 "totals (an engine sorting keys inconsistently); run with ordered='window'")
+        columns = {name: keys.column(name) for name in job.keys}
+    else:  # one group, the whole input: one row, of NULLs when it has no rows
+        columns = {}
+    acc = GroupValues(values, m)
+    for column, kernel, params in job.columns:
+        if groups:
+            result = np.broadcast_to(np.asarray(kernel(acc, params), dtype=np.float64), (groups,))
+            columns[column] = pa.array(result, type=pa.float64(), from_pandas=True)  # NaN → NULL
+        else:
+            columns[column] = pa.nulls(0 if job.keys else 1, pa.float64())
+    return pa.table(columns)
+
+
+def execute_streamed(con: duckdb.DuckDBPyConnection, sql: str, jobs: list[StreamJob],
+                     batch_rows: int | None = None) -> pd.DataFrame:
+    """Run every job, register its results, run ``sql`` and fetch it as a DataFrame."""
+    registered = []
+    try:
+        for job in jobs:
+            table = run_job(con, job, batch_rows)
+            con.register(job.table, table)
+            registered.append(job.table)
+        try:
+            return con.execute(sql).fetchdf()
+        except duckdb.Error as e:
+            raise translate_error(e) from None
+    finally:
+        for name in registered:
+            con.unregister(name)
