@@ -151,7 +151,8 @@ def main() -> None:
         if "pandas" in results and "stream" in results:
             print(f"  pandas / stream: {results['pandas']['seconds'] / results['stream']['seconds']:.2f}")
         if "stream10" in results and "stream" in results:
-            print(f"  ten measures / one Gini (stream): {results['stream10']['seconds'] / results['stream']['seconds']:.2f}")
+            ten = results["stream10"]["seconds"] / results["stream"]["seconds"]
+            print(f"  ten measures / one Gini (stream): {ten:.2f}")
     print(f"\nload average after: {' '.join(f'{v:.2f}' for v in os.getloadavg())}")
 
 

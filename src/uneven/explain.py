@@ -128,20 +128,13 @@ def explain_query(sql: str, con: duckdb.DuckDBPyConnection, options: CompileOpti
     if profile:
         import time
 
-        from uneven.engine.stream import run_job  # noqa: PLC0415 (numpy and pyarrow only when profiling)
+        from uneven.engine.stream import streamed  # noqa: PLC0415 (numpy and pyarrow only when profiling)
 
-        registered = []
-        try:
-            start = time.perf_counter()
-            for job in ctx.stream_jobs:  # the streamed passes run first; their time is shown apart
-                con.register(job.table, run_job(con, job))
-                registered.append(job.table)
-            if registered:
+        start = time.perf_counter()
+        with streamed(con, ctx.stream_jobs):  # the streamed passes run first; their time is shown apart
+            if ctx.stream_jobs:
                 out.system["stream_seconds"] = round(time.perf_counter() - start, 3)
             run_profiled(con, compiled, out)
-        finally:
-            for name in registered:
-                con.unregister(name)
     return out
 
 

@@ -11,6 +11,9 @@ as the same ``UnevenError``s as from the window plan.
 
 from __future__ import annotations
 
+import contextlib
+from collections.abc import Iterator
+
 import duckdb
 import numpy as np
 import pandas as pd
@@ -64,19 +67,26 @@ def run_job(con: duckdb.DuckDBPyConnection, job: StreamJob, batch_rows: int | No
     return pa.table(columns)
 
 
-def execute_streamed(con: duckdb.DuckDBPyConnection, sql: str, jobs: list[StreamJob],
-                     batch_rows: int | None = None) -> pd.DataFrame:
-    """Run every job, register its results, run ``sql`` and fetch it as a DataFrame."""
+@contextlib.contextmanager
+def streamed(con: duckdb.DuckDBPyConnection, jobs: list[StreamJob], batch_rows: int | None = None) -> Iterator[None]:
+    """Run every job and register its results for the compiled query; unregistered on the way out."""
     registered = []
     try:
         for job in jobs:
             table = run_job(con, job, batch_rows)
             con.register(job.table, table)
             registered.append(job.table)
+        yield
+    finally:
+        for name in registered:
+            con.unregister(name)
+
+
+def execute_streamed(con: duckdb.DuckDBPyConnection, sql: str, jobs: list[StreamJob],
+                     batch_rows: int | None = None) -> pd.DataFrame:
+    """Run the jobs, then ``sql``, and fetch its result as a DataFrame."""
+    with streamed(con, jobs, batch_rows):
         try:
             return con.execute(sql).fetchdf()
         except duckdb.Error as e:
             raise translate_error(e) from None
-    finally:
-        for name in registered:
-            con.unregister(name)
