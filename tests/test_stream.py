@@ -297,3 +297,65 @@ def test_golden_fixture_streamed_equals_window(path, monkeypatch):
                 assert close(a, b), f"{path.name}: stream {g} vs window {w}"
             else:
                 assert a == b, f"{path.name}: stream {g} vs window {w}"
+
+
+# ---- user kernels: a user's own order-based measure through the same stream -------------------------
+
+def _middle_start(W, T, n, lo, hi):
+    return {"W": W, "T": T, "held": 0.0}
+
+
+def _middle_update(state, x, w, c, lo, hi):
+    before = c - w  # the running weight before each row
+    take = np.clip(hi * state["W"] - before, 0.0, w) - np.clip(lo * state["W"] - before, 0.0, w)
+    return {**state, "held": state["held"] + float(np.dot(x, take))}
+
+
+def _middle_finish(state, lo, hi):
+    return state["held"] / state["T"] if state["T"] > 0 else None
+
+
+def middle_share_reference(x, lo, hi, w=None):
+    """Independent of the kernel: the Lorenz curve's points (C_i/W, S_i/T) from a sort and
+    np.cumsum, read at lo and hi by linear interpolation (np.interp); DESIGN.md's definition."""
+    x = np.asarray(x, float)
+    w = np.ones_like(x) if w is None else np.asarray(w, float)
+    order = np.argsort(x, kind="stable")
+    xs, ws = x[order], w[order]
+    px = np.concatenate(([0.0], np.cumsum(ws) / ws.sum()))
+    py = np.concatenate(([0.0], np.cumsum(ws * xs) / (ws * xs).sum()))
+    return float(np.interp(hi, px, py) - np.interp(lo, px, py))
+
+
+@pytest.fixture()
+def middle_share():
+    measure = uneven.define_measure(
+        "middle_share", params=["lo", "hi"], result="(lorenz(hi) - lorenz(lo))",
+        reference=middle_share_reference,
+        kernel=uneven.ChunkKernel(_middle_start, _middle_update, _middle_finish))
+    yield measure
+    uneven.remove_measure("middle_share")
+
+
+@pytest.mark.parametrize("batch", [5, None])
+def test_user_kernel_runs_through_the_stream(grouped, middle_share, batch, monkeypatch):
+    if batch:
+        monkeypatch.setattr(stream_engine, "BATCH_ROWS", batch)
+    con, df = grouped
+    sql = "SELECT a, middle_share(x, 0.5, 0.9, w) AS m, gini(x, w) AS g FROM t GROUP BY a ORDER BY a"
+    found = uneven.explain(sql, con, ordered="stream")
+    assert [p["kind"] for p in found.passes] == ["stream"]
+    got = uneven.query(sql, con, ordered="stream")
+    assert_same_frames(got, uneven.query(sql, con, ordered="window"))
+    valid = df.dropna(subset=["x", "w"])
+    valid = valid[valid.w > 0]
+    for row in got.itertuples(index=False):
+        sel = valid[valid.a.isna()] if pd.isna(row.a) else valid[valid.a == row.a]
+        assert close(row.m, middle_share_reference(sel.x.to_numpy(), 0.5, 0.9, sel.w.to_numpy()), 1e-12)
+
+
+def test_user_kernel_only_on_the_ordered_pass():
+    with pytest.raises(uneven.UnevenError, match="kernel must be a ChunkKernel"):
+        uneven.define_measure("bad_kernel", result="sum(x)", pass_="moment", reference=lambda x, w=None: 0.0,
+                              kernel=uneven.ChunkKernel(_middle_start, _middle_update, _middle_finish))
+    assert uneven.catalog.lookup("bad_kernel") is None

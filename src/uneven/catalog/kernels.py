@@ -22,17 +22,39 @@ first run on a ``Recorder``).
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
-TOTAL_NEEDS = ("below", "above", "quantile")  # quantities that need the group's weight W beforehand
+TOTAL_NEEDS = ("below", "above", "quantile", "chunk")  # quantities that need the group's totals beforehand
+
+
+@dataclass(frozen=True)
+class ChunkKernel:
+    """A user's own order-based measure for the stream plan (``define_measure(kernel=…)``):
+
+    ``start(W, T, n, *params)``            the state of a group from its totals (Σw, Σw·x, rows)
+    ``update(state, x, w, c, *params)``    the state after a chunk of the group's rows, sorted by x:
+                                           numpy arrays of values, weights (1.0 when unweighted) and
+                                           running weights C_i (from the group's first row)
+    ``finish(state, *params)``             the measure (a float; None or NaN for NULL)
+
+    A group may arrive in any number of chunks; ``update`` must give the same state whatever the cuts.
+    """
+
+    start: Callable[..., Any]
+    update: Callable[..., Any]
+    finish: Callable[..., Any]
 
 
 @dataclass(frozen=True)
 class Need:
-    name: str  # "W", "n", "T", "gini_a", "gini_b", "below", "above", "quantile", "xmax"
+    name: str  # "W", "n", "T", "gini_a", "gini_b", "below", "above", "quantile", "xmax", "chunk"
     p: float | None = None
+    kernel: ChunkKernel | None = None  # "chunk": the user's kernel and its parameters
+    params: tuple = ()
 
 
 class Recorder:
@@ -74,6 +96,9 @@ class Recorder:
     def quantile(self, p: float):
         self._add(Need("xmax"))
         return self._add(Need("quantile", float(p)))
+
+    def chunk(self, kernel: ChunkKernel, params: tuple):
+        return self._add(Need("chunk", kernel=kernel, params=tuple(params)))
 
 
 

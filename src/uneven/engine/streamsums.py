@@ -36,7 +36,7 @@ def _combine(kind: str, a: np.ndarray, b: np.ndarray) -> np.ndarray:
 
 
 _KIND = {"W": _LAST, "n": _SUM, "gini_a": _SUM, "gini_b": _SUM, "below": _SUM, "above": _SUM,
-         "quantile": _MIN, "xmax": _LAST, "m": _LAST}
+         "quantile": _MIN, "xmax": _LAST, "m": _LAST, "chunk": _LAST}
 
 
 class GroupValues:
@@ -73,6 +73,11 @@ class GroupValues:
     def quantile(self, p: float):
         q = self._get(Need("quantile", float(p)))
         return np.where(np.isinf(q), self._get(Need("xmax")), q)
+
+    def chunk(self, kernel, params: tuple):
+        states = self._get(Need("chunk", kernel=kernel, params=tuple(params)))
+        out = [kernel.finish(state, *params) for state in states]
+        return np.array([np.nan if v is None else float(v) for v in out], dtype=np.float64)
 
 
 def compensated_prefix(v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -118,6 +123,8 @@ class StreamState:
     needs: list[Need]
     weighted: bool
     totals: np.ndarray | None = None  # W per group, in the stream's group order (when a need reads it)
+    totals_t: np.ndarray | None = None  # T and n per group (for user kernels' start)
+    totals_n: np.ndarray | None = None
     started: int = 0  # groups started so far
     last_key: tuple | None = None  # the keys of the last row seen
     carry_hi: float = 0.0  # running weight of the open group (hi + lo)
@@ -178,7 +185,7 @@ class StreamState:
                 c[segidx == 0] += self.carry_hi
             self.carry_hi, self.carry_lo = float(c[-1]), 0.0
 
-        part = self._segment_values(x, d, w, c, seg, gidx, m_seg)
+        part = self._segment_values(x, d, w, c, seg, gidx, m_seg, carried if continues else None)
         part["m"] = m_seg
         if carried is not None and continues:
             for key, arr in part.items():
@@ -188,7 +195,7 @@ class StreamState:
             self.done.setdefault(key, []).append(arr[:-1])
         self.open = {key: arr[-1] for key, arr in part.items()}
 
-    def _segment_values(self, x, d, w, c, seg, gidx, m_seg) -> dict:
+    def _segment_values(self, x, d, w, c, seg, gidx, m_seg, carried) -> dict:
         out: dict = {}
         wd = d if w is None else w * d
         ends = np.append(seg[1:], len(x)) - 1
@@ -204,6 +211,8 @@ class StreamState:
                 out[need] = np.add.reduceat(wd, seg)
             elif need.name == "xmax":
                 out[need] = x[ends].copy()
+            elif need.name == "chunk":
+                out[need] = self._chunks(need, x, w, c, seg, gidx, carried)
             else:
                 assert self.totals is not None
                 segs = np.diff(np.append(seg, len(x)))
@@ -223,11 +232,31 @@ class StreamState:
                 out[need] = np.add.reduceat(room * d, seg) + m_seg * np.add.reduceat(room, seg)
         return out
 
+    def _chunks(self, need: Need, x, w, c, seg, gidx, carried) -> np.ndarray:
+        """A user kernel's state per segment: started from the group's totals, or carried on."""
+        assert need.kernel is not None and self.totals is not None
+        kernel, params = need.kernel, need.params
+        bounds = np.append(seg, len(x))
+        states = np.empty(len(seg), dtype=object)
+        for j in range(len(seg)):
+            lo, hi = int(bounds[j]), int(bounds[j + 1])
+            g = int(gidx[j])
+            if j == 0 and carried is not None:
+                state = carried[need]
+            else:
+                state = kernel.start(float(self.totals[g]), float(self.totals_t[g]),  # type: ignore[index]
+                                     int(self.totals_n[g]), *params)  # type: ignore[index]
+            ww = w[lo:hi] if w is not None else np.ones(hi - lo)
+            states[j] = kernel.update(state, x[lo:hi], ww, c[lo:hi], *params)
+        return states
+
     def _close(self) -> None:
         """The open group ended with the last batch: it joins the finished groups."""
         if self.open is not None:
             for key, value in self.open.items():
-                self.done.setdefault(key, []).append(np.asarray([value]))
+                one = np.empty(1, dtype=object if isinstance(key, Need) and key.name == "chunk" else np.float64)
+                one[0] = value  # a user kernel's state may be any object (a tuple, a dict …)
+                self.done.setdefault(key, []).append(one)
             self.open = None
 
     def finish(self) -> tuple[dict[Need, np.ndarray], np.ndarray]:

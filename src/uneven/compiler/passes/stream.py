@@ -75,7 +75,10 @@ def lower_stream_pass(source: Source, plan, name: str) -> tuple[list[exp.CTE], d
     if any(n.name in TOTAL_NEEDS for n in recorder.needs):
         weight = (exp.Anonymous(this="fsum", expressions=[s.col("_uv_w")]) if w is not None
                   else s.cast_double(s.agg_count_star()))
-        totals = exp.Select(expressions=[s.col(k) for k in keys] + [s.alias(weight, "_uv_wt")]).from_(
+        wx = s.mul(s.col("_uv_w"), s.col("_uv_x")) if w is not None else s.col("_uv_x")
+        sums = [s.alias(weight, "_uv_wt"), s.alias(exp.Anonymous(this="fsum", expressions=[wx]), "_uv_tt"),
+                s.alias(s.agg_count_star(), "_uv_n")]
+        totals = exp.Select(expressions=[s.col(k) for k in keys] + sums).from_(
             exp.Subquery(this=rows.copy(), alias=exp.TableAlias(this=exp.to_identifier("_uv_rows"))), copy=False)
         if keys:
             totals.set("group", exp.Group(expressions=[s.col(k) for k in keys]))
