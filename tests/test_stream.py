@@ -359,3 +359,14 @@ def test_user_kernel_only_on_the_ordered_pass():
         uneven.define_measure("bad_kernel", result="sum(x)", pass_="moment", reference=lambda x, w=None: 0.0,
                               kernel=uneven.ChunkKernel(_middle_start, _middle_update, _middle_finish))
     assert uneven.catalog.lookup("bad_kernel") is None
+
+
+def test_values_near_the_double_limit_as_the_window_plan(tiny_batches):
+    # T fits but the Gini's products overflow: the scaled form (catalog/scaling.py); T overflows: NULL
+    con = duckdb.connect()
+    con.register("t", pd.DataFrame({"g": [1, 1, 1, 2, 2, 2], "x": [1e308, 1.0, 2.0, 1e308, 1e308, 2.0]}))
+    sql = "SELECT g, gini(x) AS gi, top_share(x, 0.2) AS ts, quantile_w(x, 0.5) AS q FROM t GROUP BY g ORDER BY g"
+    got = uneven.query(sql, con, ordered="stream")
+    assert_same_frames(got, uneven.query(sql, con, ordered="window"))
+    assert close(got.gi[0], R.gini(np.array([1e308, 1.0, 2.0])), 1e-12)  # numpy reference
+    assert got.gi.isna()[1] and got.ts.isna()[1] and got.q[1] == 1e308

@@ -9,9 +9,11 @@ as the window plan's builders in catalog/ordered.py):
 
 ``acc.W``            Σ w (the group's weight; the row count when unweighted)
 ``acc.n``            the row count
-``acc.T``            Σ w·x
-``acc.gini_num``     Σ w_i x_i (2C_i − w_i − W), computed on x − m (m the group's smallest value:
-                     the sum is unchanged by the shift and keeps its digits)
+``acc.T``            Σ w·x (NaN where it is not a finite number: no measure is defined from it)
+``acc.gini_ratio``   Σ w_i x_i (2C_i − w_i − W) / W / T, the numerator computed on x − m (m the
+                     group's smallest value: the sum is unchanged by the shift and keeps its
+                     digits); where its products overflow although T fits, on x·2⁻⁵¹² (as the
+                     window plan's catalog/scaling.py)
 ``acc.below(p)``     Σ x_i · clamp(p·W − C_{i−1}, 0, w_i): the value held by the poorest fraction p
 ``acc.above(p)``     Σ x_i · clamp(C_i − (1−p)·W, 0, w_i): the value held by the richest fraction p
 ``acc.quantile(p)``  the smallest x_i with C_i/W ≥ p (the largest x when rounding leaves none)
@@ -82,10 +84,10 @@ class Recorder:
         return self._add(Need("gini_b"))
 
     @property
-    def gini_num(self):
-        self._add(Need("W"))
-        self._add(Need("gini_b"))
-        return self._add(Need("gini_a"))
+    def gini_ratio(self):
+        for name in ("W", "gini_b", "gini_a", "gini_b_s", "gini_a_s"):
+            self._add(Need(name))
+        return np.ones(1)
 
     def below(self, p: float):
         return self._add(Need("below", float(p)))
@@ -114,8 +116,7 @@ def _div(num, den):
 
 
 def gini(acc, params):
-    # divided by W, then by T, as the window plan does (W·T may overflow where the ratio does not)
-    return _where(acc.T > 0, _div(_div(acc.gini_num, acc.W), acc.T))
+    return _where(acc.T > 0, acc.gini_ratio)
 
 
 def gini_corrected(acc, params):

@@ -28,6 +28,7 @@ class PassPlan:
     reason: str = ""  # why the planner chose the variant (shown by explain)
     options: dict = field(default_factory=dict)  # the pass-shaping named arguments (strata, psu, …)
     order_reason: str = ""  # why cut-based measures run on the window plan or the refine plan (route_refine)
+    probed: Any = None  # the tie probe's answer, once asked ((distinct, rows), or "unknown")
     job: Any = None  # the stream pass's job, set by its lowering (passes/stream.StreamJob)
 
 
@@ -104,7 +105,7 @@ def choose_variant(plan: PassPlan, scope: PlanScope) -> PassPlan:
     elif scope.engine is None or not scope.engine.probes_ties:
         plan.variant, plan.reason = "rows", "no engine to probe for ties (compile only)"
     else:
-        found = scope.engine.tie_counts(scope.select, plan.x, plan.condition, scope.keys)
+        found = probe_ties(plan, scope)
         if found is None:
             plan.variant, plan.reason = "rows", "value type rarely ties (not probed)"
         else:
@@ -244,8 +245,22 @@ STREAM_PAYS = "auto streams a weighted pass whose measures need the full order (
 
 
 def stream_pays(plan: PassPlan, scope: PlanScope) -> bool:
-    return (plan.trailing is not None and scope.options.tie_grouping != "on"
-            and any(refinable(c) for c in plan.calls))
+    if plan.trailing is None or scope.options.tie_grouping == "on" or not any(refinable(c) for c in plan.calls):
+        return False
+    if scope.options.tie_grouping == "auto" and scope.engine is not None and scope.engine.probes_ties:
+        found = probe_ties(plan, scope)  # few distinct values: the window plan's ties variant sorts far fewer rows
+        if found is not None and found[1] and found[0] / found[1] <= TIE_SHARE:
+            return False
+    return True
+
+
+def probe_ties(plan: PassPlan, scope: PlanScope) -> tuple[int, int] | None:
+    """The engine's tie probe of the pass's value, asked once per pass (it scans the data)."""
+    if plan.probed is None:
+        assert scope.engine is not None
+        found = scope.engine.tie_counts(scope.select, plan.x, plan.condition, scope.keys)
+        plan.probed = "unknown" if found is None else found
+    return None if plan.probed == "unknown" else plan.probed
 
 
 def stream_blocked(plan: PassPlan, scope: PlanScope) -> str | None:

@@ -34,6 +34,7 @@ def run_job(con: duckdb.DuckDBPyConnection, job: StreamJob, batch_rows: int | No
     batch_rows = batch_rows or BATCH_ROWS
     state = StreamState(job.needs, job.weighted)
     totals_keys = None
+    con.abort()  # a result the caller left unfinished would refuse con.sql (con.execute drops it too)
     try:
         if job.totals_sql:
             totals = con.sql(job.totals_sql).arrow()
@@ -44,8 +45,12 @@ def run_job(con: duckdb.DuckDBPyConnection, job: StreamJob, batch_rows: int | No
             totals_keys = totals.select(job.keys)
         reader = con.sql(job.rows_sql).to_arrow_reader(batch_rows)
         schema = reader.schema
-        for batch in reader:
-            state.feed(batch, job.keys)
+        try:  # an overflowing sum is allowed: such a group takes the scaled form, or is NULL
+            with np.errstate(over="ignore", invalid="ignore"):
+                for batch in reader:
+                    state.feed(batch, job.keys)
+        finally:
+            reader.close()  # an open result refuses every later call on the connection
     except duckdb.Error as e:
         raise translate_error(e) from None
     values, m = state.finish()

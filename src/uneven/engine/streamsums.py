@@ -35,7 +35,9 @@ def _combine(kind: str, a: np.ndarray, b: np.ndarray) -> np.ndarray:
     return b
 
 
-_KIND = {"W": _LAST, "n": _SUM, "gini_a": _SUM, "gini_b": _SUM, "below": _SUM, "above": _SUM,
+SCALE = 2.0 ** -512  # the scaled form's factor (catalog/scaling.py)
+_KIND = {"W": _LAST, "n": _SUM, "gini_a": _SUM, "gini_b": _SUM, "gini_a_s": _SUM, "gini_b_s": _SUM,
+         "below": _SUM, "above": _SUM,
          "quantile": _MIN, "xmax": _LAST, "m": _LAST, "chunk": _LAST}
 
 
@@ -58,11 +60,20 @@ class GroupValues:
 
     @property
     def T(self):
-        return self.m * self.W + self._get(Need("gini_b"))
+        with np.errstate(over="ignore", invalid="ignore"):
+            t = self.m * self.W + self._get(Need("gini_b"))
+        return np.where(np.isfinite(t), t, np.nan)
 
     @property
-    def gini_num(self):
-        return self._get(Need("gini_a")) - self.W * self._get(Need("gini_b"))
+    def gini_ratio(self):
+        """(num / W) / T: divided by W, then by T, as the window plan does (W·T may overflow where
+        the ratio does not); the form on x·2⁻⁵¹² where the plain one is not finite."""
+        W = self.W
+        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+            plain = (self._get(Need("gini_a")) - W * self._get(Need("gini_b"))) / W / self.T
+            t_s = self.m * SCALE * W + self._get(Need("gini_b_s"))
+            scaled = (self._get(Need("gini_a_s")) - W * self._get(Need("gini_b_s"))) / W / t_s
+        return np.where(np.isfinite(plain), plain, scaled)
 
     def below(self, p: float):
         return self._get(Need("below", float(p)))
@@ -209,6 +220,15 @@ class StreamState:
                 out[need] = np.add.reduceat(wd * twice, seg)
             elif need.name == "gini_b":
                 out[need] = np.add.reduceat(wd, seg)
+            elif need.name in ("gini_a_s", "gini_b_s"):
+                plain = out[Need(need.name[:-2])]  # recorded before it (kernels.Recorder.gini_ratio)
+                if np.isfinite(plain).all():
+                    out[need] = plain * SCALE  # exact: a power of two (underflow only where unused)
+                    continue
+                ds = x * SCALE - m_seg[np.cumsum(np.bincount(seg, minlength=len(x)) > 0) - 1] * SCALE
+                wds = ds if w is None else w * ds
+                out[need] = np.add.reduceat(wds * (2.0 * c - (w if w is not None else 1.0)), seg) \
+                    if need.name == "gini_a_s" else np.add.reduceat(wds, seg)
             elif need.name == "xmax":
                 out[need] = x[ends].copy()
             elif need.name == "chunk":
