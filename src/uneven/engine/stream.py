@@ -21,7 +21,7 @@ import pyarrow as pa
 
 from uneven.compiler.passes.stream import StreamJob
 from uneven.engine.runner import translate_error
-from uneven.engine.streamsums import GroupValues, StreamState
+from uneven.engine.streamsums import GroupValues, StreamState, same_keys
 from uneven.errors import ExecutionError
 
 # rows per Arrow batch: large enough that numpy's per-batch overhead vanishes, small enough that a
@@ -58,7 +58,7 @@ def run_job(con: duckdb.DuckDBPyConnection, job: StreamJob, batch_rows: int | No
     if job.keys:
         keys = (pa.Table.from_batches(state.key_parts) if state.key_parts
                 else pa.Table.from_batches([], schema=pa.schema([schema.field(k) for k in job.keys])))
-        if totals_keys is not None and not keys.equals(totals_keys.cast(keys.schema)):
+        if totals_keys is not None and not same_keys(keys, totals_keys.cast(keys.schema)):
             raise ExecutionError("the streamed ordered pass found its groups in another order than the group "
                                  "totals (an engine sorting keys inconsistently); run with ordered='window'")
         columns = {name: keys.column(name) for name in job.keys}

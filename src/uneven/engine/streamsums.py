@@ -112,6 +112,15 @@ def _same(a, b) -> bool:
     return bool(a == b)
 
 
+def same_keys(a: pa.Table, b: pa.Table) -> bool:
+    """The same key rows in the same order (NULL equals NULL, NaN equals NaN)."""
+    if a.num_rows != b.num_rows or a.num_columns != b.num_columns:
+        return False
+    if a.equals(b):
+        return True
+    return all(_same(u, v) for ca, cb in zip(a.columns, b.columns) for u, v in zip(ca.to_pylist(), cb.to_pylist()))
+
+
 def key_changes(cols: list[pa.Array], n: int) -> np.ndarray:
     """changed[i] for i ≥ 1: row i's keys differ from row i−1's (NULL equals NULL, NaN equals NaN)."""
     changed = np.zeros(n, dtype=bool)
@@ -119,7 +128,12 @@ def key_changes(cols: list[pa.Array], n: int) -> np.ndarray:
         if n < 2:
             break
         a, b = col.slice(1), col.slice(0, n - 1)
-        ne = pc.fill_null(pc.not_equal(a, b), False)
+        try:
+            ne = pc.fill_null(pc.not_equal(a, b), False)
+        except pa.ArrowNotImplementedError:  # lists, structs …: compared as Python values
+            values = col.to_pylist()
+            changed[1:] |= np.array([not _same(values[i], values[i - 1]) for i in range(1, n)], dtype=bool)
+            continue
         if pa.types.is_floating(col.type):
             ne = pc.and_(ne, pc.invert(pc.and_(pc.fill_null(pc.is_nan(a), False), pc.fill_null(pc.is_nan(b), False))))
         nulls = pc.not_equal(pc.is_null(a), pc.is_null(b))
