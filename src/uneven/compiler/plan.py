@@ -222,8 +222,9 @@ def route_stream(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
     for plan in plans:
         if plan.kind != PassKind.ORDERED or plan.columns or plan.options:
             continue
+        fusing = scope.keys and any(p.kind in FUSED_KINDS and _rows_key(p) == _rows_key(plan) for p in plans)
         wanted = scope.options.ordered == "stream" or (scope.options.ordered == "auto" and scope.options.stream
-                                                        and stream_pays(plan, scope))
+                                                        and not fusing and stream_pays(plan, scope))
         if not wanted:
             continue
         blocking = stream_blocked(plan, scope)
@@ -240,7 +241,8 @@ def route_stream(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
 
 # When "auto" streams (figures in bench/README.md, "Stream plan"): a weighted pass with a measure
 # that needs the full order (the refine plan cannot serve it), whose window plan pays a running
-# sum(w) window over every row.
+# sum(w) window over every row; not where centred measures would fuse onto the window plan
+# (fuse_centred: the stream would leave them a scan and a join of their own, not measured).
 STREAM_PAYS = "auto streams a weighted pass whose measures need the full order (bench/README.md, \"Stream plan\")"
 
 
