@@ -15,8 +15,9 @@ from uneven.compiler.pipeline import compile_with_context
 from uneven.engine.adapters import Adapter
 from uneven.engine.bounded import pick_resolution, run_bounded
 from uneven.engine.columns import DuckDBSchema
+from uneven.engine.runner import execute_df
 from uneven.engine.session import session
-from uneven.engine.stream import execute_streamed
+from uneven.engine.stream import StreamMemoryError, execute_streamed
 from uneven.explain import Explanation, explain_on, explain_query
 
 
@@ -86,7 +87,13 @@ def query(sql: str, con=None, *, memory_limit: str | None = None,
         def run(res):  # uneven runs it on DuckDB: an ordered pass may be streamed (engine/stream.py)
             compiled, ctx = compile_with_context(sql, replace(options, resolution=res, stream=True),
                                                  DuckDBSchema(target))
-            return execute_streamed(target, compiled, ctx.stream_jobs)
+            try:
+                return execute_streamed(target, compiled, ctx.stream_jobs)
+            except StreamMemoryError:
+                if options.ordered != "auto":
+                    raise
+            # auto: the sorted rows did not stream within the memory limit; the window plan spills
+            return execute_df(target, compile_sql(sql, replace(options, resolution=res), DuckDBSchema(target)))
         if method == "exact":
             return run(None)
         return run_bounded(run, chosen, tolerance, sql)

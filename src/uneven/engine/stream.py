@@ -24,9 +24,15 @@ from uneven.engine.runner import translate_error
 from uneven.engine.streamsums import GroupValues, StreamState, same_keys
 from uneven.errors import ExecutionError
 
-# rows per Arrow batch: large enough that numpy's per-batch overhead vanishes, small enough that a
-# batch's few float columns stay well inside the cache-friendly range (bench/README.md, "Stream plan")
-BATCH_ROWS = 1 << 19
+
+class StreamMemoryError(ExecutionError):
+    """The sorted rows did not stream within DuckDB's memory limit (query() with ordered="auto" then
+    runs the window plan, which spills its sort inside the window operator)."""
+
+
+# rows per Arrow batch: large enough that numpy's per-batch overhead vanishes (a few dozen numpy
+# calls per batch), small enough that a batch of keys, x and w stays a few MB of the memory limit
+BATCH_ROWS = 1 << 16
 
 
 def run_job(con: duckdb.DuckDBPyConnection, job: StreamJob, batch_rows: int | None = None) -> pa.Table:
@@ -35,6 +41,11 @@ def run_job(con: duckdb.DuckDBPyConnection, job: StreamJob, batch_rows: int | No
     state = StreamState(job.needs, job.weighted)
     totals_keys = None
     con.abort()  # a result the caller left unfinished would refuse con.sql (con.execute drops it too)
+    # an ordered result streamed to Arrow keeps its batches within memory_limit only without
+    # insertion-order preservation (the ORDER BY still orders it: checked per batch below)
+    found = con.execute("SELECT current_setting('preserve_insertion_order')").fetchone()
+    preserve = bool(found[0]) if found else True
+    con.execute("SET preserve_insertion_order = false")
     try:
         if job.totals_sql:
             totals = con.sql(job.totals_sql).arrow()
@@ -51,8 +62,16 @@ def run_job(con: duckdb.DuckDBPyConnection, job: StreamJob, batch_rows: int | No
                     state.feed(batch, job.keys)
         finally:
             reader.close()  # an open result refuses every later call on the connection
-    except duckdb.Error as e:
-        raise translate_error(e) from None
+    except (duckdb.Error, pa.ArrowException, OSError) as e:  # DuckDB's errors may surface through the Arrow reader
+        error = translate_error(e)
+        if "Out of Memory" in str(e):
+            raise StreamMemoryError(str(error)) from None
+        raise error from None
+    finally:
+        con.execute(f"SET preserve_insertion_order = {'true' if preserve else 'false'}")
+    if state.unsorted:
+        raise ExecutionError("the streamed ordered pass received rows out of order (values not sorted within "
+                             "a group, or a group split in two); run with ordered='window'")
     values, m = state.finish()
     groups = state.started
     if job.keys:
@@ -61,6 +80,9 @@ def run_job(con: duckdb.DuckDBPyConnection, job: StreamJob, batch_rows: int | No
         if totals_keys is not None and not same_keys(keys, totals_keys.cast(keys.schema)):
             raise ExecutionError("the streamed ordered pass found its groups in another order than the group "
                                  "totals (an engine sorting keys inconsistently); run with ordered='window'")
+        if keys.group_by(job.keys).aggregate([]).num_rows != keys.num_rows:
+            raise ExecutionError("the streamed ordered pass received a group in two parts (rows not sorted by "
+                                 "the group keys); run with ordered='window'")
         columns = {name: keys.column(name) for name in job.keys}
     else:  # one group, the whole input: one row, of NULLs when it has no rows
         columns = {}

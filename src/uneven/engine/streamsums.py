@@ -157,6 +157,8 @@ class StreamState:
     open: dict | None = None  # partial quantities of the open group (and "m": its smallest value)
     done: dict = field(default_factory=dict)  # quantity -> list of arrays of finished groups
     key_parts: list = field(default_factory=list)  # the rows that start a group (Arrow tables)
+    last_x: float = -math.inf  # the last value seen (the open group's), for the order check
+    unsorted: bool = False  # a value below its predecessor within a group was seen
 
     def feed(self, batch: pa.RecordBatch, key_names: list[str]) -> None:
         n = batch.num_rows
@@ -184,6 +186,10 @@ class StreamState:
         self.started += len(new)
 
         x = batch.column("_uv_x").to_numpy(zero_copy_only=False).astype(np.float64, copy=False)
+        steps = np.diff(x) < 0
+        if (steps & ~starts_mask[1:]).any() or (continues and x[0] < self.last_x):
+            self.unsorted = True
+        self.last_x = float(x[-1])
         m_seg = x[seg].copy()
         if carried is not None and continues:
             m_seg[0] = carried["m"]
