@@ -80,7 +80,7 @@ def run_job(con: duckdb.DuckDBPyConnection, job: StreamJob, batch_rows: int | No
         if totals_keys is not None and not same_keys(keys, totals_keys.cast(keys.schema)):
             raise ExecutionError("the streamed ordered pass found its groups in another order than the group "
                                  "totals (an engine sorting keys inconsistently); run with ordered='window'")
-        if keys.group_by(job.keys).aggregate([]).num_rows != keys.num_rows:
+        if _distinct_rows(keys) != keys.num_rows:
             raise ExecutionError("the streamed ordered pass received a group in two parts (rows not sorted by "
                                  "the group keys); run with ordered='window'")
         columns = {name: keys.column(name) for name in job.keys}
@@ -109,6 +109,13 @@ def streamed(con: duckdb.DuckDBPyConnection, jobs: list[StreamJob], batch_rows: 
     finally:
         for name in registered:
             con.unregister(name)
+
+
+def _distinct_rows(keys: pa.Table) -> int:
+    try:
+        return keys.group_by(keys.column_names).aggregate([]).num_rows
+    except pa.ArrowNotImplementedError:  # lists, structs …: as Python values
+        return len({repr(row) for row in zip(*(c.to_pylist() for c in keys.columns))})
 
 
 def execute_streamed(con: duckdb.DuckDBPyConnection, sql: str, jobs: list[StreamJob],
