@@ -30,7 +30,7 @@ def con():
 
 
 def test_passes_name_kind_inputs_measures_and_ctes(con):
-    found = uneven.explain(SQL, con)
+    found = uneven.explain(SQL, con, ordered="window")
     got = [(p["kind"], p["value"], p["weight"], p["entity"], p["filter"], p["measures"]) for p in found.passes]
     assert got == [("ordered", "x", "w", None, None, ["gini(x, w)", "palma(x, w)"]),
                    ("centred", "x", None, None, None, ["theil(x)"]),
@@ -48,7 +48,7 @@ def test_passes_name_kind_inputs_measures_and_ctes(con):
 
 
 def test_profile_lists_operators_and_leaves_profiling_off(con):
-    found = uneven.explain(SQL, con, profile=True)
+    found = uneven.explain(SQL, con, profile=True, ordered="window")
     assert found.result_rows == 3
     names = {o["name"] for o in found.operators}
     assert "WINDOW" in names and any("GROUP_BY" in n for n in names)
@@ -67,15 +67,19 @@ def test_cli_explain_text_json_and_errors(con, tmp_path, capsys):
     path = tmp_path / "d.parquet"
     con.execute(f"COPY t TO '{path}' (FORMAT parquet)")
     sql = f"SELECT g, gini(x, w) FROM '{path}' GROUP BY g"
-    assert main(["explain", sql]) == 0
+    assert main(["explain", sql]) == 0  # auto streams a weighted Gini when uneven runs it on DuckDB
     out = capsys.readouterr().out
-    assert "ordered [rows]" in out and "gini(x, w)" in out and "compiled SQL" not in out
+    assert "1. stream  value: x" in out and "gini(x, w)" in out and "compiled SQL" not in out
+    assert main(["explain", "--ordered", "window", sql]) == 0
+    out = capsys.readouterr().out
+    assert "ordered [rows]" in out and "window plan requested" in out
     assert main(["explain", "--show-sql", "--tie-grouping", "on", sql]) == 0
     out = capsys.readouterr().out
     assert "ordered [ties]" in out and "_uv_ord_1_ties" in out and "compiled SQL:" in out
     assert main(["explain", "--json", "--profile", "--top", "3", sql]) == 0
     doc = json.loads(capsys.readouterr().out)
-    assert doc["passes"][0]["kind"] == "ordered" and doc["result_rows"] == 3 and doc["operators"]
+    assert doc["passes"][0]["kind"] == "stream" and doc["result_rows"] == 3 and doc["operators"]
+    assert doc["system"]["stream_seconds"] >= 0
     assert main(["explain", "SELECT gini(x FROM t"]) == 2
     err = capsys.readouterr().err
     assert "could not parse" in err and "Traceback" not in err

@@ -41,7 +41,8 @@ def test_every_catalog_pass_is_registered():
 
 
 def test_plan_rules_run_in_their_declared_order():
-    assert plan.PLAN_RULES == (plan.share_passes, plan.route_refine, plan.fuse_centred, plan.choose_variants)
+    assert plan.PLAN_RULES == (plan.share_passes, plan.route_refine, plan.route_stream, plan.fuse_centred,
+                               plan.choose_variants)
 
 
 def test_generated_names_follow_the_registry_prefixes():

@@ -62,10 +62,11 @@ def compile_faithful(sql: str, dialect: str, **options) -> str:
     return assert_faithful(sql, dialect, pretty=False, **options)
 
 
-# The plan of cut-based measures (docs/refine.md) drawn per shape: the default ("auto": refine where
-# every measure on a value is cut-based), the window plan forced, the refine plan forced. The oracle
-# shares no code with either, so each plan is checked against it.
-PLANS = ({}, {"ordered": "window"}, {"ordered": "refine"})
+# The plan of the ordered measures (docs/plans.md) drawn per shape: the default ("auto": refine where
+# every measure on a value is cut-based), the window plan forced, the refine plan forced, and the
+# stream plan (on DuckDB, run as query() runs it; elsewhere compile() keeps the window plan). The
+# oracle shares no code with any of them, so each plan is checked against it.
+PLANS = ({}, {"ordered": "window"}, {"ordered": "refine"}, {"ordered": "stream"})
 
 
 # --- values ------------------------------------------------------------------------------------
@@ -137,7 +138,26 @@ def fetch(eng, compiled: str) -> list:
     return [tuple(plain(v) for v in row) for row in frame.itertuples(index=False, name=None)]
 
 
+def outcome_streamed(eng, sql: str):
+    """The outcome of ``sql`` as query() runs it on DuckDB with the stream plan: the streamed passes
+    first (engine/stream.py), then the compiled query joining their results."""
+    from uneven.compiler.context import CompileOptions  # noqa: PLC0415
+    from uneven.compiler.pipeline import compile_with_context  # noqa: PLC0415
+    from uneven.engine.stream import streamed  # noqa: PLC0415
+    try:
+        compiled, ctx = compile_with_context(sql, CompileOptions(stream=True, ordered="stream", pretty=False))
+    except uneven.UnevenError as e:
+        return ("refused", str(e).splitlines()[0])
+    try:
+        with streamed(eng.con, ctx.stream_jobs):
+            return ("rows", fetch(eng, compiled))
+    except Exception as e:  # noqa: BLE001 (the engine's own error type, or an input policy error)
+        return ("error", str(e).splitlines()[0][:300])
+
+
 def outcome_compiled(eng, sql: str, faithful: bool = True, **options):
+    if options.get("ordered") == "stream" and eng.name == "duckdb":
+        return outcome_streamed(eng, sql)
     try:
         if faithful:
             compiled = compile_faithful(sql, eng.dialect, **options)

@@ -227,7 +227,9 @@ def _kinds(sql, **options):
 def test_planner_refines_only_when_every_measure_is_cut_based():
     df = refine_data()  # noqa: F841 (read by the queries below)
     assert _kinds("SELECT g, top_share(x, 0.1, w), quantile_w(x, 0.5, w) FROM df GROUP BY g") == ["refine"]
-    assert _kinds("SELECT g, top_share(x, 0.1, w), gini(x, w) FROM df GROUP BY g") == ["ordered"]
+    # a weighted Gini beside it: the full order; on DuckDB, run by uneven, the stream plan (docs/plans.md)
+    assert _kinds("SELECT g, top_share(x, 0.1, w), gini(x, w) FROM df GROUP BY g") == ["stream"]
+    assert _kinds("SELECT g, top_share(x, 0.1), gini(x) FROM df GROUP BY g") == ["ordered"]
     assert _kinds("SELECT g, top_share(x, 0.1, w) FROM df GROUP BY g", ordered="window") == ["ordered"]
     assert _kinds("SELECT g, top_share(x, 0.1, w) FROM df GROUP BY g", tie_grouping="on") == ["ordered"]
     assert _kinds("SELECT g, top_share(x, 0.1, w) FROM df GROUP BY g", tie_grouping="on",

@@ -8,6 +8,7 @@ from uneven.api import compile, explain, measures, query  # noqa: A004
 from uneven.brackets import from_brackets, merge_brackets
 from uneven.builder import BuilderError, from_
 from uneven.builder.scalars import equivalised, person_weight
+from uneven.catalog.kernels import ChunkKernel
 from uneven.catalog.user import define_measure, remove_measure
 from uneven.duckdb_functions import FunctionConflictError, install, uninstall
 from uneven.engine.sqlite import install_sqlite_functions
@@ -32,8 +33,8 @@ __all__ = [
     # SQL text in, results or SQL out
     "compile", "query", "explain", "measures",
     # other front-ends: the builder, functions inside DuckDB, your own measures, SQLite support
-    "from_", "equivalised", "person_weight", "install", "uninstall", "define_measure", "remove_measure",
-    "install_sqlite_functions",
+    "from_", "equivalised", "person_weight", "install", "uninstall", "define_measure", "ChunkKernel",
+    "remove_measure", "install_sqlite_functions",
     # tables: decompositions, income sources, paired comparisons, outlier influence
     "decompose", "gini_sources", "compare", "influence", "lorenz_dominance",
     # bounded measures from stored, mergeable summaries

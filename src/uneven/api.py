@@ -11,11 +11,13 @@ from uneven.catalog import MEASURES
 from uneven.compiler import compile_sql
 from uneven.compiler.bounded import check_method
 from uneven.compiler.context import CompileOptions
+from uneven.compiler.pipeline import compile_with_context
 from uneven.engine.adapters import Adapter
 from uneven.engine.bounded import pick_resolution, run_bounded
 from uneven.engine.columns import DuckDBSchema
 from uneven.engine.runner import execute_df
 from uneven.engine.session import session
+from uneven.engine.stream import StreamMemoryError, execute_streamed
 from uneven.explain import Explanation, explain_on, explain_query
 
 
@@ -40,7 +42,8 @@ def compile(sql: str, dialect: str = "duckdb", *, read: str = "duckdb", pretty: 
     then a sort of only the rows in the bins that hold a cut, exact (docs/refine.md); ``"window"``: a
     sort of every row; ``"auto"`` (default): refine on every engine wherever all measures on a
     (value, weight, FILTER) are cut-based (a Gini beside them needs the sort anyway), and the window
-    plan when ``tie_grouping="on"``.
+    plan when ``tie_grouping="on"``. ``"stream"`` is for ``query``/``explain`` on DuckDB (compiled
+    SQL keeps the window plan: it must run anywhere).
     """
     return compile_sql(sql, CompileOptions(dialect=dialect, read=read, pretty=pretty, strict=strict,
                                            tie_grouping=tie_grouping, method=method,
@@ -68,7 +71,9 @@ def query(sql: str, con=None, *, memory_limit: str | None = None,
     ``method="bounded"``: intervals instead of a sort (see ``compile``); the result's
     ``attrs["uneven"]`` tells the resolution used and the widest interval of each measure. With a
     ``tolerance``, a Gini interval wider than it makes the query run once more with finer bins.
-    ``ordered``: see ``compile``.
+    ``ordered``: see ``compile``; on DuckDB also ``"stream"``: DuckDB sorts the pass's rows and numpy
+    reduces them batch by batch (docs/plans.md); ``"auto"`` streams a weighted pass whose measures
+    need the full order (Gini and its family), where it is measured to be cheaper.
     """
     method = check_method(method)
     chosen = pick_resolution(method, tolerance, resolution)
@@ -79,9 +84,16 @@ def query(sql: str, con=None, *, memory_limit: str | None = None,
         if isinstance(target, Adapter):
             return run_on(target, sql, options, chosen, tolerance)
 
-        def run(res):
-            compiled = compile_sql(sql, replace(options, resolution=res), DuckDBSchema(target))
-            return execute_df(target, compiled)
+        def run(res):  # uneven runs it on DuckDB: an ordered pass may be streamed (engine/stream.py)
+            compiled, ctx = compile_with_context(sql, replace(options, resolution=res, stream=True),
+                                                 DuckDBSchema(target))
+            try:
+                return execute_streamed(target, compiled, ctx.stream_jobs)
+            except StreamMemoryError:
+                if options.ordered != "auto":
+                    raise
+            # auto: the sorted rows did not stream within the memory limit; the window plan spills
+            return execute_df(target, compile_sql(sql, replace(options, resolution=res), DuckDBSchema(target)))
         if method == "exact":
             return run(None)
         return run_bounded(run, chosen, tolerance, sql)

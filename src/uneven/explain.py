@@ -62,7 +62,7 @@ class Explanation:
         if self.operators is not None and self.engine_plan is None:
             lines.append(f"\nprofile: {self.total_seconds:.3f} s in DuckDB, {self.result_rows} result rows")
             if self.system:
-                lines.append("  " + ", ".join(f"{k.replace('_', ' ')}: {_size(v)}" for k, v in self.system.items()))
+                lines.append("  " + ", ".join(f"{k.replace('_', ' ')}: {_size(v, k)}" for k, v in self.system.items()))
             lines.append(f"  {'operator':<24} {'seconds':>9} {'share':>6} {'rows':>12}  detail")
             total = sum(o["seconds"] for o in self.operators) or 1.0
             for o in self.operators[:top]:
@@ -84,7 +84,9 @@ class Explanation:
         return self.text()
 
 
-def _size(n) -> str:
+def _size(n, key: str = "") -> str:
+    if key.endswith("_seconds"):
+        return f"{n:.3f} s"
     if not isinstance(n, (int, float)):
         return str(n)
     for unit in ("B", "KB", "MB", "GB"):
@@ -120,11 +122,19 @@ def explain_query(sql: str, con: duckdb.DuckDBPyConnection, options: CompileOpti
     """Compile ``sql`` as ``query`` would on ``con`` (same probes) and describe its passes; with
     ``profile`` also run it once under DuckDB's profiler."""
     # the column and tie probes of query(); the argument types are not probed here
-    compiled, ctx = compile_with_context(sql, replace(options, dialect="duckdb", pretty=True),
+    compiled, ctx = compile_with_context(sql, replace(options, dialect="duckdb", pretty=True, stream=True),
                                          DuckDBSchema(con, types=False))
     out = Explanation(passes=ctx.chosen, sql=compiled, read_once=ctx.read_once)
     if profile:
-        run_profiled(con, compiled, out)
+        import time
+
+        from uneven.engine.stream import streamed  # noqa: PLC0415 (numpy and pyarrow only when profiling)
+
+        start = time.perf_counter()
+        with streamed(con, ctx.stream_jobs):  # the streamed passes run first; their time is shown apart
+            if ctx.stream_jobs:
+                out.system["stream_seconds"] = round(time.perf_counter() - start, 3)
+            run_profiled(con, compiled, out)
     return out
 
 
@@ -170,5 +180,5 @@ def summarise_profile(doc: dict, out: Explanation) -> None:
     out.operators = ops
     out.total_seconds = float(query.get("total_time", doc.get("latency", doc.get("operator_timing", 0.0))) or 0.0)
     system = doc.get("system") or {}
-    out.system = {k: system[k] for k in ("peak_buffer_memory", "peak_temp_dir_size", "total_bytes_spilled")
-                  if k in system}
+    out.system.update({k: system[k] for k in ("peak_buffer_memory", "peak_temp_dir_size", "total_bytes_spilled")
+                       if k in system})

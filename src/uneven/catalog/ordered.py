@@ -12,6 +12,7 @@ from __future__ import annotations
 from sqlglot import exp
 
 from uneven import reference as ref
+from uneven.catalog import kernels as k
 from uneven.catalog.scaling import plain_or_scaled, times
 from uneven.catalog.spec import Measure, Param
 from uneven.sqltree import build as s
@@ -109,25 +110,29 @@ def build_lorenz_curve(ctx, params):
 
 MEASURES = [
     Measure("gini", "ordered", (), "weight", "Σ w_i x_i (2C_i − w_i − W) / (W·T)", build_gini, ref.gini,
-            domain="any x; NULL when T ≤ 0"),
+            domain="any x; NULL when T ≤ 0", stream=k.gini),
     Measure("gini_corrected", "ordered", (), "weight", "gini · n/(n−1), n rows (small-sample variant)",
-            build_gini_corrected, ref.gini_corrected, domain="any x; NULL when T ≤ 0 or n < 2"),
+            build_gini_corrected, ref.gini_corrected, domain="any x; NULL when T ≤ 0 or n < 2",
+            stream=k.gini_corrected),
     Measure("lorenz", "ordered", (P,), "weight", "L(p): Lorenz curve through (C_i/W, S_i/T), linear between",
-            lambda c, p: lorenz_at(c, p[0]), ref.lorenz, domain="any x; NULL when T ≤ 0"),
+            lambda c, p: lorenz_at(c, p[0]), ref.lorenz, domain="any x; NULL when T ≤ 0", stream=k.lorenz),
     Measure("generalized_lorenz", "ordered", (P,), "weight", "μ·L(p)", build_generalized_lorenz,
-            ref.generalized_lorenz, domain="any x"),
+            ref.generalized_lorenz, domain="any x", stream=k.generalized_lorenz),
     Measure("bottom_share", "ordered", (P,), "weight", "L(p): share of the poorest fraction p",
-            lambda c, p: lorenz_at(c, p[0]), ref.bottom_share, domain="any x; NULL when T ≤ 0"),
+            lambda c, p: lorenz_at(c, p[0]), ref.bottom_share, domain="any x; NULL when T ≤ 0",
+            stream=k.lorenz),
     Measure("top_share", "ordered", (P,), "weight", "1 − L(1 − p): share of the richest fraction p",
-            lambda c, p: top_share_at(c, p[0]), ref.top_share, domain="any x; NULL when T ≤ 0"),
+            lambda c, p: top_share_at(c, p[0]), ref.top_share, domain="any x; NULL when T ≤ 0",
+            stream=k.top_share),
     Measure("palma", "ordered", (), "weight", "top_share(0.1) / bottom_share(0.4)", build_palma, ref.palma,
-            domain="any x; NULL when T ≤ 0 or the bottom share is 0"),
+            domain="any x; NULL when T ≤ 0 or the bottom share is 0", stream=k.palma),
     Measure("s80s20", "ordered", (), "weight", "top_share(0.2) / bottom_share(0.2)", build_s80s20, ref.s80s20,
-            domain="any x; NULL when T ≤ 0 or the bottom share is 0"),
+            domain="any x; NULL when T ≤ 0 or the bottom share is 0", stream=k.s80s20),
     Measure("quantile_w", "ordered", (P,), "weight", "smallest x_i with C_i/W ≥ p (weighted inverted CDF)",
-            lambda c, p: quantile_at(c, p[0]), ref.quantile_w, domain="any x"),
+            lambda c, p: quantile_at(c, p[0]), ref.quantile_w, domain="any x", stream=k.quantile_w),
     Measure("percentile_ratio", "ordered", (Param("hi", "fraction"), Param("lo", "fraction")), "weight",
-            "Q(hi) / Q(lo)", build_percentile_ratio, ref.percentile_ratio, domain="any x; NULL when Q(lo) = 0"),
+            "Q(hi) / Q(lo)", build_percentile_ratio, ref.percentile_ratio, domain="any x; NULL when Q(lo) = 0",
+            stream=k.percentile_ratio),
     Measure("lorenz_curve", "ordered", (Param("k", "count", "number of segments"),), "weight",
             "[(p, L(p)) for p = 0, 1/k, …, 1] as a list of structs", build_lorenz_curve, ref.lorenz_curve,
             returns="lorenz_points", domain="any x; NULL when T ≤ 0", max_count=1000),

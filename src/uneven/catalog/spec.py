@@ -20,6 +20,7 @@ class PassKind(StrEnum):
     CENTRED = "centred"
     ORDERED = "ordered"
     REFINE = "refine"
+    STREAM = "stream"
     ENTITY = "entity"
     SUBGROUP = "subgroup"
     RANKED = "ranked"
@@ -88,6 +89,9 @@ class Measure:
     # on a moment context with compensated sums; with it a centred measure may skip the centred
     # pass where the bound is small enough (the "adaptive" variant, compiler/passes/centred.py)
     error_bound: Callable[..., exp.Expression] | None = None
+    # stream(acc, params) -> per-group numpy results from the streamed ordered pass's group
+    # quantities (catalog/kernels.py); with it an ordered measure may run as a stream on DuckDB
+    stream: Callable[..., object] | None = None
 
     def pass_for(self, has_trailing: bool) -> PassKind:
         if isinstance(self.passes, tuple):

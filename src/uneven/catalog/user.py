@@ -18,6 +18,11 @@ Names the result may use:
 
 The measure then works in SQL text (``SELECT middle_share(x, 0.4, 0.9, w) …``), in the builder
 (``uneven.middle_share("x", 0.4, 0.9, weight="w")``) and in ``install`` (DuckDB macros).
+
+An ordered measure may also bring a numpy kernel (``kernel=uneven.ChunkKernel(start, update,
+finish)``, catalog/kernels.py): ``query``/``explain`` on DuckDB can then run it on the stream plan
+(DuckDB sorts, numpy reduces chunk by chunk: docs/plans.md, "User kernels"); ``compile()`` keeps
+the result expression's SQL.
 """
 
 from __future__ import annotations
@@ -29,6 +34,7 @@ from sqlglot import exp
 
 from uneven import catalog
 from uneven.catalog import ordered
+from uneven.catalog.kernels import ChunkKernel
 from uneven.catalog.spec import Measure, Param
 from uneven.errors import UnevenError
 from uneven.sqltree import build as s
@@ -108,12 +114,15 @@ def _builder(tree: exp.Expression, names_for, param_names: list[str]):
 
 def define_measure(name: str, *, result: str, reference, params: list[str] | tuple = (),
                    param_kinds: dict[str, str] | None = None, pass_: str = "ordered", weighted: bool = True,
-                   formula: str = "", domain: str = "", replace: bool = False) -> Measure:
+                   formula: str = "", domain: str = "", replace: bool = False,
+                   kernel: ChunkKernel | None = None) -> Measure:
     """Register a measure computed from ``result`` (SQL text over the pass's names; see module doc).
 
     ``reference(x, *params, w=None)`` is its numpy reference (used by tests and ``uneven.reference``
     style checks). Parameters are numbers (``param_kinds``: name → fraction|number|nonnegative|count,
     default fraction). Returns the catalog entry; the measure is available at once everywhere.
+    ``kernel``: the same measure as a numpy kernel over sorted chunks, for the stream plan (ordered
+    pass only; it must agree with ``result``).
     """
     if not isinstance(name, str) or not name.isidentifier() or name.startswith("_"):
         raise MeasureDefinitionError(f"define_measure(): name must be an identifier not starting with _, got {name!r}")
@@ -135,8 +144,12 @@ def define_measure(name: str, *, result: str, reference, params: list[str] | tup
         tree = s.node(sqlglot.parse_one(result, read="duckdb"))
     except sqlglot.errors.SqlglotError as e:
         raise MeasureDefinitionError(f"define_measure(): cannot parse the result expression: {e}") from None
+    if kernel is not None and (pass_ != "ordered" or not isinstance(kernel, ChunkKernel)):
+        raise MeasureDefinitionError("define_measure(): kernel must be a ChunkKernel(start, update, finish), "
+                                     "on the ordered pass")
+    stream = None if kernel is None else (lambda acc, values: acc.chunk(kernel, values))
     measure = Measure(key, pass_, specs, "weight" if weighted else None, formula or result,
-                      _builder(tree, names_for, list(params)), reference, domain=domain)
+                      _builder(tree, names_for, list(params)), reference, domain=domain, stream=stream)
     _check_builds(measure)
     catalog.register(measure)
     _USER.add(key)

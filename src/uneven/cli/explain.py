@@ -31,8 +31,8 @@ def register(sub) -> None:
     p.add_argument("--tie-grouping", choices=("auto", "on", "off"), default="auto",
                    help="group tied values before the ordered pass's window: auto (probe the data, default), "
                    "on, off")
-    p.add_argument("--ordered", choices=("auto", "refine", "window"), default="auto",
-                   help="plan of the cut-based measures: auto (default), refine or window (docs/refine.md)")
+    p.add_argument("--ordered", choices=("auto", "refine", "window", "stream"), default="auto",
+                   help="plan of the ordered measures: auto (default), refine, window or stream (docs/plans.md)")
     p.add_argument("--strict", action="store_true", help="compile every measure call as strict")
     add_engine_options(p)
     add_engine_url_option(p)

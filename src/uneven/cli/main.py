@@ -85,10 +85,11 @@ def add_method_options(p: argparse.ArgumentParser) -> None:
                    help="with --method bounded: the Gini interval width to aim at (picks the resolution)")
     p.add_argument("--resolution", type=float, metavar="R",
                    help="with --method bounded: relative bin width (default 0.01)")
-    p.add_argument("--ordered", choices=("auto", "refine", "window"), default="auto",
-                   help="plan of the cut-based measures (shares, Palma, quantiles): refine (bins, then a sort "
-                   "of the cut bins only), window (a sort of every row), auto (refine where every measure on "
-                   "the value is cut-based, default; docs/refine.md)")
+    p.add_argument("--ordered", choices=("auto", "refine", "window", "stream"), default="auto",
+                   help="plan of the ordered measures: refine (bins, then a sort of the cut bins only), window "
+                   "(a sort of every row in SQL), stream (DuckDB sorts, numpy reduces; when uneven runs the "
+                   "query on DuckDB), auto (refine where every measure on the value is cut-based, stream for a "
+                   "weighted Gini and its family on DuckDB, default; docs/plans.md)")
 
 
 def method_kwargs(args) -> dict:

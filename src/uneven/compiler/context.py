@@ -26,7 +26,9 @@ class CompileOptions:
     tie_grouping: str = "auto"  # the ordered pass's variant: "auto" | "on" | "off" (plan.choose_variant)
     method: str = "exact"  # or "bounded": intervals from one-pass binned summaries (compiler/bounded.py)
     resolution: float | None = None  # relative bin width of the summary pass (method="bounded"; None: default)
-    ordered: str = "auto"  # cut-based measures: "auto" | "refine" | "window" (plan.route_refine)
+    ordered: str = "auto"  # the ordered measures: "auto" | "refine" | "window" | "stream" (plan.route_refine,
+    #                        plan.route_stream)
+    stream: bool = False  # uneven runs the query on DuckDB itself: an ordered pass may be streamed
 
 
 class EngineSchema(Protocol):
@@ -57,6 +59,8 @@ class CompileContext:
     chosen: list[dict] = field(default_factory=list)
     # sources read once through a MATERIALIZED CTE, one record each (materialize.py; read by explain)
     read_once: list[dict] = field(default_factory=list)
+    # the streamed ordered passes to run before the query (compiler/passes/stream.py), innermost first
+    stream_jobs: list = field(default_factory=list)
 
     def name(self, kind: str) -> str:
         """Next deterministic name of a kind: ``_uv_ord_1``, ``_uv_ord_2``, …"""

@@ -100,6 +100,9 @@ def compile_with_context(sql: str, options: CompileOptions = DEFAULT_OPTIONS,
     options = check_options(options)
     ctx = CompileContext(sql=sql, options=options, engine=engine)
     tree = compile_tree(parse_one_statement(sql, options.read), ctx)
+    for job in ctx.stream_jobs:  # the streamed passes' queries, run by engine/stream.py before the query
+        job.rows_sql = generate(job.rows, "duckdb", pretty=False)
+        job.totals_sql = generate(job.totals, "duckdb", pretty=False) if job.totals is not None else ""
     return generate(tree, options.dialect, pretty=options.pretty, copy=False), ctx  # the tree is this compile's own
 
 

@@ -4,10 +4,12 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass, field
+from typing import Any
 
 from sqlglot import exp
 
 from uneven.catalog.spec import PassKind
+from uneven.compiler import clauses
 from uneven.compiler.calls import MeasureCall
 from uneven.compiler.context import CompileOptions, EngineSchema, text
 from uneven.compiler.passes.linearized import can_share
@@ -26,6 +28,8 @@ class PassPlan:
     reason: str = ""  # why the planner chose the variant (shown by explain)
     options: dict = field(default_factory=dict)  # the pass-shaping named arguments (strata, psu, …)
     order_reason: str = ""  # why cut-based measures run on the window plan or the refine plan (route_refine)
+    probed: Any = None  # the tie probe's answer, once asked ((distinct, rows), or "unknown")
+    job: Any = None  # the stream pass's job, set by its lowering (passes/stream.StreamJob)
 
 
 def plan_passes(calls: list[MeasureCall]) -> list[PassPlan]:
@@ -101,7 +105,7 @@ def choose_variant(plan: PassPlan, scope: PlanScope) -> PassPlan:
     elif scope.engine is None or not scope.engine.probes_ties:
         plan.variant, plan.reason = "rows", "no engine to probe for ties (compile only)"
     else:
-        found = scope.engine.tie_counts(scope.select, plan.x, plan.condition, scope.keys)
+        found = probe_ties(plan, scope)
         if found is None:
             plan.variant, plan.reason = "rows", "value type rarely ties (not probed)"
         else:
@@ -176,7 +180,7 @@ def describe_pass(plan: PassPlan, ctes: list[str]) -> dict:
             "reason": reason}
 
 
-ORDERED_PLANS = ("auto", "refine", "window")
+ORDERED_PLANS = ("auto", "refine", "window", "stream")
 
 
 def route_refine(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
@@ -196,6 +200,9 @@ def route_refine(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
         if scope.options.ordered == "window":
             plan.order_reason = "window plan requested"
             continue
+        if scope.options.ordered == "stream":
+            plan.order_reason = "stream plan requested"  # route_stream decides (or falls back to the window)
+            continue
         if scope.options.ordered == "auto" and scope.options.tie_grouping == "on" and plan.kind == PassKind.ORDERED:
             plan.order_reason = "window plan: tie grouping requested"
             continue
@@ -207,6 +214,74 @@ def route_refine(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
         plan.order_reason = ("refine plan: every measure reads the order only at its cuts (bins, then a sort "
                              "of the rows in the cut bins only)")
     return plans
+
+
+def route_stream(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
+    """Turn an ordered pass into a stream pass (compiler/passes/stream.py: DuckDB sorts, numpy reduces)
+    where uneven runs the query on DuckDB itself (``scope.options.stream``) and every call on the pass
+    has a kernel. "stream" asks for it; "auto" takes it where it is measured to be cheaper
+    (``stream_pays``). Otherwise the pass keeps the window plan, and ``order_reason`` says why."""
+    for plan in plans:
+        if plan.kind != PassKind.ORDERED or plan.columns or plan.options:
+            continue
+        fusing = scope.keys and any(p.kind in FUSED_KINDS and _rows_key(p) == _rows_key(plan) for p in plans)
+        wanted = scope.options.ordered == "stream" or (scope.options.ordered == "auto" and scope.options.stream
+                                                        and not fusing and stream_pays(plan, scope))
+        if not wanted:
+            continue
+        blocking = stream_blocked(plan, scope)
+        if blocking:
+            plan.order_reason = f"window plan: {blocking}" + (" (stream plan requested)"
+                                                              if scope.options.ordered == "stream" else "")
+            continue
+        plan.kind, plan.variant = PassKind.STREAM, "stream"
+        plan.order_reason = ("stream plan: DuckDB sorts the rows by (keys, value), numpy carries each group's "
+                             "running weight across the batches" + ("" if scope.options.ordered == "stream"
+                                                                    else f"; {STREAM_PAYS}"))
+    return plans
+
+
+# When "auto" streams (figures in bench/README.md, "Stream plan"): a weighted pass with a measure
+# that needs the full order (the refine plan cannot serve it), whose window plan pays a running
+# sum(w) window over every row; not where centred measures would fuse onto the window plan
+# (fuse_centred: the stream would leave them a scan and a join of their own, not measured).
+STREAM_PAYS = "auto streams a weighted pass whose measures need the full order (bench/README.md, \"Stream plan\")"
+
+
+def stream_pays(plan: PassPlan, scope: PlanScope) -> bool:
+    if plan.trailing is None or scope.options.tie_grouping == "on" or not any(refinable(c) for c in plan.calls):
+        return False
+    if scope.options.tie_grouping == "auto" and scope.engine is not None and scope.engine.probes_ties:
+        found = probe_ties(plan, scope)  # few distinct values: the window plan's ties variant sorts far fewer rows
+        if found is not None and found[1] and found[0] / found[1] <= TIE_SHARE:
+            return False
+    return True
+
+
+def probe_ties(plan: PassPlan, scope: PlanScope) -> tuple[int, int] | None:
+    """The engine's tie probe of the pass's value, asked once per pass (it scans the data)."""
+    if plan.probed is None:
+        assert scope.engine is not None
+        found = scope.engine.tie_counts(scope.select, plan.x, plan.condition, scope.keys)
+        plan.probed = "unknown" if found is None else found
+    return None if plan.probed == "unknown" else plan.probed
+
+
+def stream_blocked(plan: PassPlan, scope: PlanScope) -> str | None:
+    """Why the pass cannot be streamed, or None."""
+    if not scope.options.stream:
+        return "the stream plan runs only when uneven runs the query on DuckDB (compiled SQL is portable)"
+    missing = list(dict.fromkeys(c.measure.name for c in plan.calls if c.measure.stream is None))
+    if missing:
+        return "no stream kernel for " + ", ".join(missing)
+    if not all(isinstance(v, (int, float)) for c in plan.calls for v in c.params):
+        return "a parameter known only at run time"
+    if scope.select.parent is not None:
+        return "the measures are in a subquery or CTE (streamed only in the outermost SELECT)"
+    if clauses.volatile_reason(scope.select) is not None or any(
+            c.args.get("materialized") for c in scope.select.find_all(exp.CTE)):
+        return "the rows are read once through a MATERIALIZED CTE, which a stream would read again"
+    return None
 
 
 SHAREABLE = {PassKind.ORDERED, PassKind.MOMENT}  # plain passes whose measures a linearized pass can also compute
@@ -243,6 +318,7 @@ def _rows_key(plan: PassPlan) -> tuple:
 PLAN_RULES: tuple[Callable[[list[PassPlan], PlanScope], list[PassPlan]], ...] = (
     share_passes,
     route_refine,
+    route_stream,
     fuse_centred,
     choose_variants,
 )

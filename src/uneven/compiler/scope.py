@@ -73,7 +73,10 @@ def lower_passes(calls: list[MeasureCall], source: Source, main: MainAggregate, 
         lowering = PASSES[plan.kind]
         name = ctx.name(lowering.PREFIX) if lowering.PREFIX else None
         new, res = lowering.lower(source, main, plan, name, ctx.options)
-        ctx.chosen.append(describe_pass(plan, [c.alias for c in new] or [main.name]))
+        job = plan.job
+        if job is not None:
+            ctx.stream_jobs.append(job)
+        ctx.chosen.append(describe_pass(plan, [c.alias for c in new] or [job.table if job else main.name]))
         ctes += new
         results.update(res)
     unique = {call.key: call for call in calls}  # a call written twice is one result, wrapped once

@@ -12,9 +12,11 @@ from sqlglot import exp
 from uneven.compiler import compile_sql
 from uneven.compiler.context import CompileOptions
 from uneven.compiler.emit import to_sql
+from uneven.compiler.pipeline import compile_with_context
 from uneven.engine.adapters import Adapter, adapt, is_duckdb
 from uneven.engine.columns import DuckDBSchema
-from uneven.engine.runner import connect, execute_df
+from uneven.engine.runner import connect
+from uneven.engine.stream import execute_streamed
 from uneven.errors import UnevenError
 from uneven.report.source import Source, resolve_source
 
@@ -45,8 +47,10 @@ def run_tree(con: duckdb.DuckDBPyConnection, tree: exp.Expression) -> pd.DataFra
     """Compile a tree with measure calls and run it on ``con`` (DuckDB, or an engine adapter)."""
     if isinstance(con, Adapter):
         return con.execute(compile_sql(to_sql(tree), CompileOptions(dialect=con.dialect, pretty=False), con.schema()))
-    compiled = compile_sql(to_sql(tree), CompileOptions(pretty=False), DuckDBSchema(con, types=False, ties=False))
-    return execute_df(con, compiled)
+    # uneven runs it on DuckDB itself: an ordered pass may be streamed (engine/stream.py)
+    compiled, ctx = compile_with_context(to_sql(tree), CompileOptions(pretty=False, stream=True),
+                                         DuckDBSchema(con, types=False, ties=False))
+    return execute_streamed(con, compiled, ctx.stream_jobs)
 
 
 @dataclass

@@ -21,12 +21,13 @@ from uneven.compiler.passes import (
                                     paired,
                                     ranked,
                                     refine,
+                                    stream,
                                     subgroup,
                                     summary,
 )
 
-MODULES: tuple[ModuleType, ...] = (moment, centred, ordered, refine, entity, subgroup, ranked, paired, linearized,
-                                   bootstrap, summary)
+MODULES: tuple[ModuleType, ...] = (moment, centred, ordered, refine, stream, entity, subgroup, ranked, paired,
+                                   linearized, bootstrap, summary)
 
 PASSES: dict[PassKind, ModuleType] = {module.KIND: module for module in MODULES}
 

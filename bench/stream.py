@@ -1,0 +1,160 @@
+"""The stream plan (docs/plans.md) against the window plan, DuckDB's own sort and a pandas baseline.
+
+    python bench/stream.py                                  # 2M rows x 100 groups and 5M x 1
+    python bench/stream.py --sizes 20000000x1000 --repeat 3
+
+Data (fixed seed, written once to a Parquet file per size under the temp directory): lognormal
+values, uniform float weights, group ids drawn uniformly. Cases, each in a fresh subprocess (peak
+RSS = its own VmHWM), 2 threads, memory_limit 1GB by default:
+
+  sort        SELECT max(w) FROM (SELECT grp, x, w FROM f ORDER BY grp, x)     (DuckDB's sort)
+  window      SELECT grp, gini(x, w) … GROUP BY grp, ordered="window"          (the window plan)
+  stream      the same, ordered="stream"                                         (this plan)
+  pandas      read the file, sort_values, groupby cumsum, the same formula       (vectorized pandas)
+  sort_u, window_u, stream_u      the unweighted gini(x)
+  window10, stream10              ten order-based measures on one value (weighted)
+
+Prints the median of --repeat per case, peak RSS, the ratios the targets are stated in (to the sort
+of the same columns, measured in the same run) and the largest relative difference between the
+stream and window results. The machine's load average is printed first: figures taken while others
+share the cores are slower than on an idle machine, the ratios less so.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+TEN = ("gini(x, w), gini_corrected(x, w), lorenz(x, 0.3, w), top_share(x, 0.1, w), bottom_share(x, 0.5, w), "
+       "palma(x, w), s80s20(x, w), quantile_w(x, 0.5, w), percentile_ratio(x, 0.9, 0.1, w), "
+       "generalized_lorenz(x, 0.9, w)")
+CASES = ("sort", "window", "stream", "pandas", "sort_u", "window_u", "stream_u", "window10", "stream10")
+
+
+def make_data(rows: int, groups: int) -> Path:
+    import numpy as np
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+    path = Path(tempfile.gettempdir()) / f"uneven-stream-bench-{rows}x{groups}.parquet"
+    if not path.exists():
+        rng = np.random.default_rng(20261204)
+        table = pa.table({"grp": rng.integers(0, groups, rows, dtype=np.int64), "x": rng.lognormal(10.0, 1.0, rows),
+                          "w": rng.uniform(0.5, 3.0, rows)})
+        pq.write_table(table, path)
+    return path
+
+
+def _pandas_gini(path: str):
+    import pandas as pd
+    df = pd.read_parquet(path).sort_values(["grp", "x"], kind="stable")
+    g = df.groupby("grp", sort=False)
+    c = g["w"].cumsum()
+    wt = g["w"].transform("sum")
+    df["t"] = df["w"] * df["x"] * (2.0 * c - df["w"] - wt)
+    df["wx"] = df["w"] * df["x"]
+    s = df.groupby("grp").agg(num=("t", "sum"), W=("w", "sum"), T=("wx", "sum"))
+    return (s["num"] / s["W"] / s["T"]).tolist()
+
+
+def child(case: str, path: str, memory_limit: str, threads: int) -> dict:
+    import duckdb
+
+    import uneven
+    con = duckdb.connect()
+    con.execute(f"SET threads = {threads}")
+    con.execute(f"SET memory_limit = '{memory_limit}'")
+    con.execute(f"SET temp_directory = '{Path(tempfile.gettempdir()) / 'uneven-stream-bench-tmp'}'")
+    con.execute("SET preserve_insertion_order = false")
+    src = f"read_parquet('{path}')"
+    weighted = not case.endswith("_u")
+    measures = TEN if case.endswith("10") else ("gini(x, w)" if weighted else "gini(x)")
+    query = f"SELECT grp, {measures} FROM {src} GROUP BY grp ORDER BY grp"
+    t0 = time.perf_counter()
+    rows = None
+    if case.startswith("sort"):
+        cols = "grp, x, w" if weighted else "grp, x"
+        con.execute(f"SELECT max(x) FROM (SELECT {cols} FROM {src} ORDER BY grp, x)").fetchall()
+    elif case == "pandas":
+        rows = [[v] for v in _pandas_gini(path)]
+    else:
+        plan = "stream" if case.startswith("stream") else "window"
+        df = uneven.query(query, con, ordered=plan)
+        rows = df.drop(columns="grp").values.tolist()
+    seconds = time.perf_counter() - t0
+    hwm = None
+    for line in open("/proc/self/status"):
+        if line.startswith("VmHWM:"):
+            hwm = int(line.split()[1]) / 1024
+    return {"seconds": seconds, "peak_rss_mb": hwm, "rows": rows}
+
+
+def run_case(case: str, path: Path, a) -> dict:
+    with tempfile.TemporaryDirectory() as td:
+        out = Path(td) / "out.json"
+        subprocess.run([sys.executable, __file__, "--child", case, "--file", str(path), "--out", str(out),
+                        "--memory-limit", a.memory_limit, "--threads", str(a.threads)], check=True)
+        return json.loads(out.read_text())
+
+
+def _max_rel(a, b) -> float:
+    worst = 0.0
+    for ra, rb in zip(a, b):
+        for va, vb in zip(ra, rb):
+            if va is None or vb is None:
+                if va is not vb:
+                    return float("inf")
+                continue
+            worst = max(worst, abs(va - vb) / max(abs(vb), 1e-300))
+    return worst
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--sizes", default="2000000x100,5000000x1", help="ROWSxGROUPS, comma separated")
+    ap.add_argument("--repeat", type=int, default=3)
+    ap.add_argument("--cases", default=",".join(CASES))
+    ap.add_argument("--memory-limit", default="1GB")
+    ap.add_argument("--threads", type=int, default=2)
+    ap.add_argument("--child")
+    ap.add_argument("--file")
+    ap.add_argument("--out")
+    a = ap.parse_args()
+    if a.child:
+        Path(a.out).write_text(json.dumps(child(a.child, a.file, a.memory_limit, a.threads)))
+        return
+    print(f"load average before: {' '.join(f'{v:.2f}' for v in os.getloadavg())}; {os.cpu_count()} cores; "
+          f"threads {a.threads}, memory_limit {a.memory_limit}")
+    for size in a.sizes.split(","):
+        rows, groups = (int(v) for v in size.split("x"))
+        path = make_data(rows, groups)
+        results: dict[str, dict] = {}
+        for case in a.cases.split(","):
+            runs = [run_case(case, path, a) for _ in range(a.repeat)]
+            results[case] = {"seconds": statistics.median(r["seconds"] for r in runs),
+                             "peak_rss_mb": max(r["peak_rss_mb"] or 0 for r in runs), "rows": runs[0]["rows"]}
+        print(f"\n{rows:,} rows x {groups:,} groups (median of {a.repeat})")
+        print(f"  {'case':<10} {'seconds':>8} {'peak MB':>8} {'/ sort':>7}")
+        for case, r in results.items():
+            sort = results.get("sort_u" if case.endswith("_u") else "sort")
+            ratio = f"{r['seconds'] / sort['seconds']:7.2f}" if sort else ""
+            print(f"  {case:<10} {r['seconds']:8.3f} {r['peak_rss_mb']:8.0f} {ratio}")
+        for x, y in (("stream", "window"), ("stream_u", "window_u"), ("stream10", "window10"), ("pandas", "window")):
+            if x in results and y in results:
+                print(f"  max relative difference {x} vs {y}: {_max_rel(results[x]['rows'], results[y]['rows']):.2e}")
+        if "pandas" in results and "stream" in results:
+            print(f"  pandas / stream: {results['pandas']['seconds'] / results['stream']['seconds']:.2f}")
+        if "stream10" in results and "stream" in results:
+            ten = results["stream10"]["seconds"] / results["stream"]["seconds"]
+            print(f"  ten measures / one Gini (stream): {ten:.2f}")
+    print(f"\nload average after: {' '.join(f'{v:.2f}' for v in os.getloadavg())}")
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,102 @@
+"""Stream pass: an ordered pass that DuckDB sorts and uneven reduces with numpy (engine/stream.py).
+
+Only when uneven runs the query on DuckDB itself (``CompileOptions.stream``; never in ``compile()``'s
+portable SQL). The pass adds no CTE: its result is a table registered on the connection under
+``_uv_str_N`` with the columns a window pass's result CTE has (``_uv_k1`` … the group keys, one
+``_uv_rN`` per measure call), so the final SELECT joins it on the keys like any pass. The lowering
+records a ``StreamJob`` on the plan:
+
+rows    keys, x, w — the window plan's rows (input policy checks, FILTER, NULLs and zero weights
+        dropped), with the scope's own CTEs — ORDER BY keys, x
+totals  keys, W (fsum of w, or the row count) GROUP BY keys, ORDER BY keys — only when a measure
+        reads a cut (p·W) before the rows reach it; the groups come in the same order as the rows'
+columns the result columns with the numpy kernel and parameters of each call (catalog/kernels.py)
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass, field
+
+from sqlglot import exp
+
+from uneven.catalog.kernels import TOTAL_NEEDS, Need, Recorder
+from uneven.catalog.spec import PassKind
+from uneven.compiler.passes.source import (
+    Source,
+    checked_value,
+    checked_weight,
+    key_name,
+    weight_label,
+)
+from uneven.sqltree import build as s
+
+
+@dataclass
+class StreamJob:
+    table: str  # the name the results are registered under
+    keys: list[str]  # the key columns of rows, totals and the result table
+    weighted: bool
+    rows: exp.Select
+    totals: exp.Select | None
+    columns: list[tuple[str, Callable, tuple]]  # (result column, kernel, parameters)
+    needs: list[Need] = field(default_factory=list)
+    rows_sql: str = ""  # filled by the pipeline (the text of rows and totals for DuckDB)
+    totals_sql: str = ""
+
+
+def _ordered(select: exp.Select, columns: list[str]) -> exp.Select:
+    select.set("order", exp.Order(expressions=[exp.Ordered(this=s.col(c), nulls_first=False) for c in columns]))
+    return select
+
+
+def lower_stream_pass(source: Source, plan, name: str) -> tuple[list[exp.CTE], dict]:
+    x, w, condition = plan.x, plan.trailing, plan.condition
+    keys = [key_name(i) for i in range(len(source.keys))]
+    proj = source.key_projections() + [s.named(checked_value(x, weight_label(x), source.keys), "_uv_x")]
+    cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
+    if w is not None:
+        cw = checked_weight(w, weight_label(w), source.keys)
+        proj.append(s.named(cw, "_uv_w"))
+        cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
+    rows = source.rows(proj, cond)
+    with_ = source.select.args.get("with_")
+    recorder = Recorder()
+    columns: list[tuple[str, Callable, tuple]] = []
+    results: dict[tuple, exp.Expression] = {}
+    for call in plan.calls:
+        if call.key in results:
+            continue
+        call.measure.stream(recorder, call.params)
+        column = f"_uv_r{len(columns) + 1}"
+        columns.append((column, call.measure.stream, tuple(call.params)))
+        results[call.key] = s.col(column, name)
+    totals = None
+    if any(n.name in TOTAL_NEEDS for n in recorder.needs):
+        weight = (exp.Anonymous(this="fsum", expressions=[s.col("_uv_w")]) if w is not None
+                  else s.cast_double(s.agg_count_star()))
+        wx = s.mul(s.col("_uv_w"), s.col("_uv_x")) if w is not None else s.col("_uv_x")
+        sums = [s.alias(weight, "_uv_wt"), s.alias(exp.Anonymous(this="fsum", expressions=[wx]), "_uv_tt"),
+                s.alias(s.agg_count_star(), "_uv_n")]
+        totals = exp.Select(expressions=[s.col(k) for k in keys] + sums).from_(
+            exp.Subquery(this=rows.copy(), alias=exp.TableAlias(this=exp.to_identifier("_uv_rows"))), copy=False)
+        if keys:
+            totals.set("group", exp.Group(expressions=[s.col(k) for k in keys]))
+            _ordered(totals, keys)
+        if with_ is not None:
+            totals.set("with_", with_.copy())
+    _ordered(rows, keys + ["_uv_x"])
+    if with_ is not None:
+        rows.set("with_", with_.copy())
+    plan.job = StreamJob(name, keys, w is not None, rows, totals, columns, recorder.needs)
+    return [], results
+
+
+# the registry's entry (passes/registry.py)
+KIND = PassKind.STREAM
+PREFIX = "str"
+
+
+def lower(source: Source, main, plan, name: str | None, settings) -> tuple[list[exp.CTE], dict]:
+    assert name is not None
+    return lower_stream_pass(source, plan, name)

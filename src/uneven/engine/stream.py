@@ -1,0 +1,128 @@
+"""Run the streamed ordered passes of a compiled query on DuckDB, then the query itself.
+
+For each job (compiler/passes/stream.StreamJob): the group totals first when a measure reads a cut
+(one hash aggregate, groups in the rows' order), then the sorted rows drained as Arrow batches
+(``con.sql(q).to_arrow_reader(rows)``: no extra copy, unlike ``con.execute``) into the numpy
+state of engine/streamsums.py, the kernels applied per group, and the results registered on the
+connection under the job's ``_uv_str_N`` name for the compiled query to join; unregistered at the
+end, whatever happened. Errors of the input policy raised by DuckDB while the rows stream come back
+as the same ``UnevenError``s as from the window plan.
+"""
+
+from __future__ import annotations
+
+import contextlib
+from collections.abc import Iterator
+
+import duckdb
+import numpy as np
+import pandas as pd
+import pyarrow as pa
+
+from uneven.compiler.passes.stream import StreamJob
+from uneven.engine.runner import translate_error
+from uneven.engine.streamsums import GroupValues, StreamState, same_keys
+from uneven.errors import ExecutionError
+
+
+class StreamMemoryError(ExecutionError):
+    """The sorted rows did not stream within DuckDB's memory limit (query() with ordered="auto" then
+    runs the window plan, which spills its sort inside the window operator)."""
+
+
+# rows per Arrow batch: large enough that numpy's per-batch overhead vanishes (a few dozen numpy
+# calls per batch), small enough that a batch of keys, x and w stays a few MB of the memory limit
+BATCH_ROWS = 1 << 16
+
+
+def run_job(con: duckdb.DuckDBPyConnection, job: StreamJob, batch_rows: int | None = None) -> pa.Table:
+    """The job's result table: its key columns and one DOUBLE column per call (NULL where undefined)."""
+    batch_rows = batch_rows or BATCH_ROWS
+    state = StreamState(job.needs, job.weighted)
+    totals_keys = None
+    con.abort()  # a result the caller left unfinished would refuse con.sql (con.execute drops it too)
+    # an ordered result streamed to Arrow keeps its batches within memory_limit only without
+    # insertion-order preservation (the ORDER BY still orders it: checked per batch below)
+    found = con.execute("SELECT current_setting('preserve_insertion_order')").fetchone()
+    preserve = bool(found[0]) if found else True
+    con.execute("SET preserve_insertion_order = false")
+    try:
+        if job.totals_sql:
+            totals = con.sql(job.totals_sql).arrow()
+            totals = totals.read_all() if isinstance(totals, pa.RecordBatchReader) else totals
+            state.totals = totals.column("_uv_wt").to_numpy(zero_copy_only=False).astype(np.float64)
+            state.totals_t = totals.column("_uv_tt").to_numpy(zero_copy_only=False).astype(np.float64)
+            state.totals_n = totals.column("_uv_n").to_numpy(zero_copy_only=False).astype(np.float64)
+            totals_keys = totals.select(job.keys)
+        reader = con.sql(job.rows_sql).to_arrow_reader(batch_rows)
+        schema = reader.schema
+        try:  # an overflowing sum is allowed: such a group takes the scaled form, or is NULL
+            with np.errstate(over="ignore", invalid="ignore"):
+                for batch in reader:
+                    state.feed(batch, job.keys)
+        finally:
+            reader.close()  # an open result refuses every later call on the connection
+    except (duckdb.Error, pa.ArrowException, OSError) as e:  # DuckDB's errors may surface through the Arrow reader
+        error = translate_error(e)
+        if "Out of Memory" in str(e):
+            raise StreamMemoryError(str(error)) from None
+        raise error from None
+    finally:
+        con.execute(f"SET preserve_insertion_order = {'true' if preserve else 'false'}")
+    if state.unsorted:
+        raise ExecutionError("the streamed ordered pass received rows out of order (values not sorted within "
+                             "a group, or a group split in two); run with ordered='window'")
+    values, m = state.finish()
+    groups = state.started
+    if job.keys:
+        keys = (pa.Table.from_batches(state.key_parts) if state.key_parts
+                else pa.Table.from_batches([], schema=pa.schema([schema.field(k) for k in job.keys])))
+        if totals_keys is not None and not same_keys(keys, totals_keys.cast(keys.schema)):
+            raise ExecutionError("the streamed ordered pass found its groups in another order than the group "
+                                 "totals (an engine sorting keys inconsistently); run with ordered='window'")
+        if _distinct_rows(keys) != keys.num_rows:
+            raise ExecutionError("the streamed ordered pass received a group in two parts (rows not sorted by "
+                                 "the group keys); run with ordered='window'")
+        columns = {name: keys.column(name) for name in job.keys}
+    else:  # one group, the whole input: one row, of NULLs when it has no rows
+        columns = {}
+    acc = GroupValues(values, m)
+    for column, kernel, params in job.columns:
+        if groups:
+            result = np.broadcast_to(np.asarray(kernel(acc, params), dtype=np.float64), (groups,))
+            columns[column] = pa.array(result, type=pa.float64(), from_pandas=True)  # NaN → NULL
+        else:
+            columns[column] = pa.nulls(0 if job.keys else 1, pa.float64())
+    return pa.table(columns)
+
+
+@contextlib.contextmanager
+def streamed(con: duckdb.DuckDBPyConnection, jobs: list[StreamJob], batch_rows: int | None = None) -> Iterator[None]:
+    """Run every job and register its results for the compiled query; unregistered on the way out."""
+    registered = []
+    try:
+        for job in jobs:
+            table = run_job(con, job, batch_rows)
+            con.register(job.table, table)
+            registered.append(job.table)
+        yield
+    finally:
+        for name in registered:
+            con.unregister(name)
+
+
+def _distinct_rows(keys: pa.Table) -> int:
+    try:
+        return keys.group_by(keys.column_names).aggregate([]).num_rows
+    except pa.ArrowNotImplementedError:  # lists, structs …: as Python values
+        return len({repr(row) for row in zip(*(c.to_pylist() for c in keys.columns))})
+
+
+def execute_streamed(con: duckdb.DuckDBPyConnection, sql: str, jobs: list[StreamJob],
+                     batch_rows: int | None = None) -> pd.DataFrame:
+    """Run the jobs, then ``sql``, and fetch its result as a DataFrame."""
+    with streamed(con, jobs, batch_rows):
+        try:
+            return con.execute(sql).fetchdf()
+        except duckdb.Error as e:
+            raise translate_error(e) from None

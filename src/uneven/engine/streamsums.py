@@ -1,0 +1,307 @@
+"""The numpy side of the streamed ordered pass: per-group quantities over rows sorted by (keys, x),
+arriving in Arrow batches that may split a group (or a run of tied values) anywhere.
+
+Per batch: group boundaries from the key columns (a NULL key is a group of its own; NaN equals NaN,
+as in GROUP BY), the running weight C_i from a compensated prefix sum (each step's rounding error
+recovered exactly by the two-sum identity and summed apart), and per-segment sums by
+``np.add.reduceat``. The last group of a batch stays open: its running weight and its partial sums
+are carried into the next batch. What a kernel reads (catalog/kernels.py) is what is computed: the
+kernels are first run on a ``Recorder``.
+
+Digits: x enters every sum as d = x − m, m the group's smallest value (its first row), so the
+sums of a group of large nearly equal values keep their digits; T = m·W + Σ w·d.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+
+from uneven.catalog.kernels import Need
+
+# the quantities and how two partial values of one group combine (the earlier one first)
+_SUM, _MIN, _LAST = "sum", "min", "last"
+
+
+def _combine(kind: str, a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    if kind == _SUM:
+        return a + b
+    if kind == _MIN:
+        return np.minimum(a, b)
+    return b
+
+
+SCALE = 2.0 ** -512  # the scaled form's factor (catalog/scaling.py)
+_KIND = {"W": _LAST, "n": _SUM, "gini_a": _SUM, "gini_b": _SUM, "gini_a_s": _SUM, "gini_b_s": _SUM,
+         "below": _SUM, "above": _SUM,
+         "quantile": _MIN, "xmax": _LAST, "m": _LAST, "chunk": _LAST}
+
+
+class GroupValues:
+    """The quantities of every group, as the kernels read them (NaN where a group has none)."""
+
+    def __init__(self, values: dict[Need, np.ndarray], m: np.ndarray):
+        self.values, self.m = values, m
+
+    def _get(self, need: Need) -> np.ndarray:
+        return self.values[need]
+
+    @property
+    def W(self):
+        return self._get(Need("W"))
+
+    @property
+    def n(self):
+        return self._get(Need("n"))
+
+    @property
+    def T(self):
+        with np.errstate(over="ignore", invalid="ignore"):
+            t = self.m * self.W + self._get(Need("gini_b"))
+        return np.where(np.isfinite(t), t, np.nan)
+
+    @property
+    def gini_ratio(self):
+        """(num / W) / T: divided by W, then by T, as the window plan does (W·T may overflow where
+        the ratio does not); the form on x·2⁻⁵¹² where the plain one is not finite."""
+        W = self.W
+        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+            plain = (self._get(Need("gini_a")) - W * self._get(Need("gini_b"))) / W / self.T
+            t_s = self.m * SCALE * W + self._get(Need("gini_b_s"))
+            scaled = (self._get(Need("gini_a_s")) - W * self._get(Need("gini_b_s"))) / W / t_s
+        return np.where(np.isfinite(plain), plain, scaled)
+
+    def below(self, p: float):
+        return self._get(Need("below", float(p)))
+
+    def above(self, p: float):
+        return self._get(Need("above", float(p)))
+
+    def quantile(self, p: float):
+        q = self._get(Need("quantile", float(p)))
+        return np.where(np.isinf(q), self._get(Need("xmax")), q)
+
+    def chunk(self, kernel, params: tuple):
+        states = self._get(Need("chunk", kernel=kernel, params=tuple(params)))
+        out = [kernel.finish(state, *params) for state in states]
+        return np.array([np.nan if v is None else float(v) for v in out], dtype=np.float64)
+
+
+def compensated_prefix(v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(hi, lo): hi the running sums as np.cumsum gives them, lo the running sum of each step's exact
+    rounding error (two-sum: a + b = s + e exactly for s = fl(a + b)), so hi + lo is the prefix sum to
+    a few units of the last place whatever the number of rows."""
+    hi = np.cumsum(v)
+    prev = np.empty_like(hi)
+    prev[0] = 0.0
+    prev[1:] = hi[:-1]
+    bp = hi - prev
+    err = (prev - (hi - bp)) + (v - bp)
+    return hi, np.cumsum(err)
+
+
+def _same(a, b) -> bool:
+    if a is None or b is None:
+        return a is None and b is None
+    if isinstance(a, float) and isinstance(b, float) and math.isnan(a) and math.isnan(b):
+        return True
+    return bool(a == b)
+
+
+def same_keys(a: pa.Table, b: pa.Table) -> bool:
+    """The same key rows in the same order (NULL equals NULL, NaN equals NaN)."""
+    if a.num_rows != b.num_rows or a.num_columns != b.num_columns:
+        return False
+    if a.equals(b):
+        return True
+    return all(_same(u, v) for ca, cb in zip(a.columns, b.columns) for u, v in zip(ca.to_pylist(), cb.to_pylist()))
+
+
+def key_changes(cols: list[pa.Array], n: int) -> np.ndarray:
+    """changed[i] for i ≥ 1: row i's keys differ from row i−1's (NULL equals NULL, NaN equals NaN)."""
+    changed = np.zeros(n, dtype=bool)
+    for col in cols:
+        if n < 2:
+            break
+        a, b = col.slice(1), col.slice(0, n - 1)
+        try:
+            ne = pc.fill_null(pc.not_equal(a, b), False)
+        except pa.ArrowNotImplementedError:  # lists, structs …: compared as Python values
+            values = col.to_pylist()
+            changed[1:] |= np.array([not _same(values[i], values[i - 1]) for i in range(1, n)], dtype=bool)
+            continue
+        if pa.types.is_floating(col.type):
+            ne = pc.and_(ne, pc.invert(pc.and_(pc.fill_null(pc.is_nan(a), False), pc.fill_null(pc.is_nan(b), False))))
+        nulls = pc.not_equal(pc.is_null(a), pc.is_null(b))
+        changed[1:] |= np.asarray(pc.or_(ne, nulls).to_numpy(zero_copy_only=False), dtype=bool)
+    return changed
+
+
+@dataclass
+class StreamState:
+    """The open group carried from one batch to the next, and the finished groups."""
+
+    needs: list[Need]
+    weighted: bool
+    totals: np.ndarray | None = None  # W per group, in the stream's group order (when a need reads it)
+    totals_t: np.ndarray | None = None  # T and n per group (for user kernels' start)
+    totals_n: np.ndarray | None = None
+    started: int = 0  # groups started so far
+    last_key: tuple | None = None  # the keys of the last row seen
+    carry_hi: float = 0.0  # running weight of the open group (hi + lo)
+    carry_lo: float = 0.0
+    open: dict | None = None  # partial quantities of the open group (and "m": its smallest value)
+    done: dict = field(default_factory=dict)  # quantity -> list of arrays of finished groups
+    key_parts: list = field(default_factory=list)  # the rows that start a group (Arrow tables)
+    last_x: float = -math.inf  # the last value seen (the open group's), for the order check
+    unsorted: bool = False  # a value below its predecessor within a group was seen
+
+    def feed(self, batch: pa.RecordBatch, key_names: list[str]) -> None:
+        n = batch.num_rows
+        if n == 0:
+            return
+        keys = [batch.column(k) for k in key_names]
+        starts_mask = key_changes(keys, n)
+        first = tuple(k[0].as_py() for k in keys)
+        carried = self.open
+        continues = carried is not None and all(_same(a, b) for a, b in zip(first, self.last_key or ()))
+        starts_mask[0] = not continues
+        if not continues:
+            self._close()
+        self.last_key = tuple(k[n - 1].as_py() for k in keys)
+        seg = np.flatnonzero(starts_mask)
+        if continues:
+            seg = np.concatenate(([0], seg))
+        new = np.flatnonzero(starts_mask)
+        if len(new):
+            self.key_parts.append(batch.select(key_names).take(pa.array(new)))
+        nseg = len(seg)
+        segidx = np.cumsum(np.bincount(seg, minlength=n) > 0) - 1 if nseg > 1 else np.zeros(n, dtype=np.int64)
+        # the group index of each segment (the first may be the open group)
+        gidx = self.started - (1 if continues else 0) + np.arange(nseg)
+        self.started += len(new)
+
+        x = batch.column("_uv_x").to_numpy(zero_copy_only=False).astype(np.float64, copy=False)
+        steps = np.diff(x) < 0
+        if (steps & ~starts_mask[1:]).any() or (continues and x[0] < self.last_x):
+            self.unsorted = True
+        self.last_x = float(x[-1])
+        m_seg = x[seg].copy()
+        if carried is not None and continues:
+            m_seg[0] = carried["m"]
+        d = x - m_seg[segidx]
+
+        if self.weighted:
+            w = batch.column("_uv_w").to_numpy(zero_copy_only=False).astype(np.float64, copy=False)
+            hi, lo = compensated_prefix(w)
+            base_hi = np.where(seg > 0, hi[seg - 1], 0.0)
+            base_lo = np.where(seg > 0, lo[seg - 1], 0.0)
+            c_hi = hi - base_hi[segidx]
+            c_lo = lo - base_lo[segidx]
+            if continues:
+                first_seg = segidx == 0
+                c_hi[first_seg] += self.carry_hi
+                c_lo[first_seg] += self.carry_lo
+            c = c_hi + c_lo
+            self.carry_hi, self.carry_lo = float(c_hi[-1]), float(c_lo[-1])
+        else:
+            w = None
+            rows = np.arange(1, n + 1, dtype=np.float64)
+            c = rows - np.where(seg > 0, seg, 0).astype(np.float64)[segidx]
+            if continues:
+                c[segidx == 0] += self.carry_hi
+            self.carry_hi, self.carry_lo = float(c[-1]), 0.0
+
+        part = self._segment_values(x, d, w, c, seg, gidx, m_seg, carried if continues else None)
+        part["m"] = m_seg
+        if carried is not None and continues:
+            for key, arr in part.items():
+                if key != "m":
+                    arr[0] = _combine(_KIND[key if isinstance(key, str) else key.name], carried[key], arr[0])
+        for key, arr in part.items():
+            self.done.setdefault(key, []).append(arr[:-1])
+        self.open = {key: arr[-1] for key, arr in part.items()}
+
+    def _segment_values(self, x, d, w, c, seg, gidx, m_seg, carried) -> dict:
+        out: dict = {}
+        wd = d if w is None else w * d
+        ends = np.append(seg[1:], len(x)) - 1
+        for need in self.needs:
+            if need.name == "W":  # the running weight at the segment's last row (the open group's carry included)
+                out[need] = c[ends].copy()
+            elif need.name == "n":
+                out[need] = np.diff(np.append(seg, len(x))).astype(np.float64)
+            elif need.name == "gini_a":
+                twice = 2.0 * c - (w if w is not None else 1.0)
+                out[need] = np.add.reduceat(wd * twice, seg)
+            elif need.name == "gini_b":
+                out[need] = np.add.reduceat(wd, seg)
+            elif need.name in ("gini_a_s", "gini_b_s"):
+                plain = out[Need(need.name[:-2])]  # recorded before it (kernels.Recorder.gini_ratio)
+                if np.isfinite(plain).all():
+                    out[need] = plain * SCALE  # exact: a power of two (underflow only where unused)
+                    continue
+                ds = x * SCALE - m_seg[np.cumsum(np.bincount(seg, minlength=len(x)) > 0) - 1] * SCALE
+                wds = ds if w is None else w * ds
+                out[need] = np.add.reduceat(wds * (2.0 * c - (w if w is not None else 1.0)), seg) \
+                    if need.name == "gini_a_s" else np.add.reduceat(wds, seg)
+            elif need.name == "xmax":
+                out[need] = x[ends].copy()
+            elif need.name == "chunk":
+                out[need] = self._chunks(need, x, w, c, seg, gidx, carried)
+            else:
+                assert self.totals is not None
+                segs = np.diff(np.append(seg, len(x)))
+                wt = np.repeat(self.totals[gidx], segs)
+                ww = w if w is not None else 1.0
+                p = float(need.p)  # type: ignore[arg-type]
+                if need.name == "quantile":
+                    with np.errstate(divide="ignore", invalid="ignore"):
+                        reached = c / wt >= p
+                    out[need] = np.minimum.reduceat(np.where(reached, x, np.inf), seg)
+                    continue
+                if need.name == "below":
+                    room = np.clip(p * wt - (c - ww), 0.0, ww)
+                else:
+                    room = np.clip(c - (1.0 - p) * wt, 0.0, ww)
+                # Σ x·room = Σ d·room + m·Σ room: the large common part apart
+                out[need] = np.add.reduceat(room * d, seg) + m_seg * np.add.reduceat(room, seg)
+        return out
+
+    def _chunks(self, need: Need, x, w, c, seg, gidx, carried) -> np.ndarray:
+        """A user kernel's state per segment: started from the group's totals, or carried on."""
+        assert need.kernel is not None and self.totals is not None
+        kernel, params = need.kernel, need.params
+        bounds = np.append(seg, len(x))
+        states = np.empty(len(seg), dtype=object)
+        for j in range(len(seg)):
+            lo, hi = int(bounds[j]), int(bounds[j + 1])
+            g = int(gidx[j])
+            if j == 0 and carried is not None:
+                state = carried[need]
+            else:
+                state = kernel.start(float(self.totals[g]), float(self.totals_t[g]),  # type: ignore[index]
+                                     int(self.totals_n[g]), *params)  # type: ignore[index]
+            ww = w[lo:hi] if w is not None else np.ones(hi - lo)
+            states[j] = kernel.update(state, x[lo:hi], ww, c[lo:hi], *params)
+        return states
+
+    def _close(self) -> None:
+        """The open group ended with the last batch: it joins the finished groups."""
+        if self.open is not None:
+            for key, value in self.open.items():
+                one = np.empty(1, dtype=object if isinstance(key, Need) and key.name == "chunk" else np.float64)
+                one[0] = value  # a user kernel's state may be any object (a tuple, a dict …)
+                self.done.setdefault(key, []).append(one)
+            self.open = None
+
+    def finish(self) -> tuple[dict[Need, np.ndarray], np.ndarray]:
+        """The quantities of every group, in order, and each group's smallest value."""
+        self._close()
+        cat = {key: np.concatenate(parts) if parts else np.zeros(0) for key, parts in self.done.items()}
+        m = cat.pop("m", np.zeros(0))
+        return {need: cat.get(need, np.zeros(0)) for need in self.needs}, m
