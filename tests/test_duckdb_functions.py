@@ -283,9 +283,9 @@ def test_the_list_budget_follows_memory_limit():
     c.execute("SET memory_limit = '40MB'")  # DuckDB prints it as 38.1 MiB
     assert c.execute("SELECT current_setting('memory_limit')").fetchone()[0] == "38.1 MiB"
     # the budget is memory_limit / bytes per row of the form (duckdb_functions/aggregate.py)
-    assert c.execute("SELECT _uv_list_budget(200)").fetchone()[0] == pytest.approx(38.1 * 2 ** 20 / 200)
+    assert c.execute("SELECT _uv_list_budget(240)").fetchone()[0] == pytest.approx(38.1 * 2 ** 20 / 240)
     with pytest.raises(duckdb.Error, match="gini\\(\\): a group of 250000 rows .* memory_limit = 38.1 MiB "
-                                           "allows 199753 rows"):
+                                           "allows 166461 rows"):
         c.execute("SELECT gini(i) FROM range(250000) r(i)").fetchall()
     # a group of 1000 rows is within it: 1..1000 has Gini (n + 1) / (3n) - ... = (n - 1) / (3n) (uniform
     # integers, handbook closed form for 1..n, from memory; checked here by the pairwise definition)
