@@ -241,3 +241,56 @@ def test_a_parameter_constant_per_group_is_accepted_by_the_macros(con):
     # a column that varies within the group is refused by DuckDB's binder before anything runs
     with pytest.raises(duckdb.BinderException, match="must appear in the GROUP BY"):
         c.execute("SELECT grp, top_share(x, x / 100) FROM t GROUP BY grp").fetchall()
+
+
+def test_a_group_over_the_list_budget_stops_and_points_to_the_table_form():
+    # the list forms hold a group in memory outside DuckDB's memory_limit: a group with more rows than
+    # the budget stops with our error (naming the function and its table form) before the lambdas run;
+    # the budget is lowered here with the variable instead of using a large group
+    c = duckdb.connect()
+    c.execute("CREATE TABLE b AS SELECT i % 2 AS grp, CAST(1 + i AS DOUBLE) AS x, CAST(1 + i % 3 AS DOUBLE) AS w, "
+              "i % 7 AS e FROM range(101) r(i)")  # group 0: 51 rows, group 1: 50 rows
+    uneven.install(c)
+    c.execute("SET VARIABLE uneven_list_rows = 50")
+    for call, form in [("gini(x, w)", "gini_by("), ("top_share(x, 0.1)", "top_share_by("), ("cv(x, w)", "cv_by("),
+                       ("hhi(x, e)", "hhi_by("), ("cr(x, 2)", "cr_by(")]:
+        with pytest.raises(duckdb.Error) as err:
+            c.execute(f"SELECT grp, {call} FROM b GROUP BY grp").fetchall()
+        message = str(err.value)
+        assert f"{call.split('(')[0]}(): a group of 51 rows" in message and form in message, message
+        assert "SET VARIABLE uneven_list_rows" in message
+        # the group within the budget is measured as usual
+        assert c.execute(f"SELECT {call} FROM b WHERE grp = 1").fetchone()[0] is not None
+    # a moment measure keeps a few sums per group: no budget. fgt(x, 0, line) is the weighted share
+    # below the line (the headcount ratio, common practice), counted here directly
+    frame = c.execute("SELECT grp, x, w FROM b").fetchdf()
+    for grp, got in c.execute("SELECT grp, fgt(x, 0, 30, w) FROM b GROUP BY grp").fetchall():
+        part = frame[frame["grp"] == grp]
+        assert got == pytest.approx(part["w"][part["x"] < 30].sum() / part["w"].sum(), rel=1e-12)
+    # 0 turns the budget off: the numbers are the numpy reference's (uneven.reference, tested against
+    # closed forms and exact fractions in test_reference.py)
+    c.execute("SET VARIABLE uneven_list_rows = 0")
+    rows = c.execute("SELECT grp, gini(x, w) FROM b GROUP BY grp ORDER BY grp").fetchall()
+    for grp, got in rows:
+        part = frame[frame["grp"] == grp]
+        assert got == pytest.approx(uneven.reference.gini(part["x"].to_numpy(), part["w"].to_numpy()), rel=1e-12)
+    c.close()
+
+
+def test_the_list_budget_follows_memory_limit():
+    c = duckdb.connect()
+    uneven.install(c, measures=["gini"])
+    c.execute("SET memory_limit = '40MB'")  # DuckDB prints it as 38.1 MiB
+    assert c.execute("SELECT current_setting('memory_limit')").fetchone()[0] == "38.1 MiB"
+    # the budget is memory_limit / bytes per row of the form (duckdb_functions/aggregate.py)
+    assert c.execute("SELECT _uv_list_budget(240)").fetchone()[0] == pytest.approx(38.1 * 2 ** 20 / 240)
+    with pytest.raises(duckdb.Error, match="gini\\(\\): a group of 250000 rows .* memory_limit = 38.1 MiB "
+                                           "allows 166461 rows"):
+        c.execute("SELECT gini(i) FROM range(250000) r(i)").fetchall()
+    # a group of 1000 rows is within it: 1..1000 has Gini (n + 1) / (3n) - ... = (n - 1) / (3n) (uniform
+    # integers, handbook closed form for 1..n, from memory; checked here by the pairwise definition)
+    n = 1000
+    pairwise = sum(abs(i - j) for i in range(1, n + 1) for j in range(1, n + 1)) / (2 * n * n * (n + 1) / 2)
+    assert c.execute(f"SELECT gini(i + 1) FROM range({n}) r(i)").fetchone()[0] == pytest.approx(pairwise, rel=1e-12)
+    assert pairwise == pytest.approx((n - 1) / (3 * n), rel=1e-12)
+    c.close()

@@ -184,6 +184,45 @@ def checked_numeric(arg: exp.Expression, name: str, what: str) -> exp.Expression
     ], default=wd.copy())
 
 
+# Bytes per row a list form needs at its peak beyond DuckDB's memory_limit (the collected list and the
+# lists its lambdas build), measured on one group of 1M-2M rows (bench/installed_memory.py; figures in
+# bench/README.md, "Installed functions: memory"), rounded up. A group with more rows than
+# memory_limit / bytes stops with an error pointing to the table form, so the lists stay within about
+# the memory limit on top of what DuckDB itself counts.
+LIST_BYTES_PER_ROW = {"ordered": 240, "centred": 120, "entity": 240}
+LIST_BYTES_MEASURE = {"wolfson": 400}  # measured above the pass's figure
+
+
+def list_bytes_per_row(measure: Measure, kind: str) -> int:
+    return LIST_BYTES_MEASURE.get(measure.name, LIST_BYTES_PER_ROW[kind])
+
+
+def guard_rows(measure: Measure, kind: str, rows: exp.Expression, body: exp.Expression) -> exp.Expression:
+    """CASE WHEN <the group's list holds more rows than the budget> THEN error('…') ELSE body END: the
+    check runs before the lambdas build their lists (DuckDB evaluates a CASE branch only for the rows
+    that take it)."""
+    name, per_row = measure.name, list_bytes_per_row(measure, kind)
+    budget = L.call(L.BUDGET, exp.Literal.number(per_row))
+    trailing = f", '<{measure.trailing}>'" if measure.trailing else ""
+    params = "".join(f", <{p.name}>" for p in measure.params)
+    parts: list[exp.Expression] = [
+        s.lit(f"uneven: {name}(): a group of "), exp.cast(L.call("len", rows), exp.DataType.build("varchar")),
+        s.lit(f" rows is more than the aggregate form holds in memory (about {per_row} bytes per row in lists "
+              "that DuckDB's memory_limit does not count; memory_limit = "),
+        L.call("current_setting", s.lit("memory_limit")),
+        s.lit(" allows "), exp.cast(exp.cast(exp.Floor(this=budget.copy()), exp.DataType.build("bigint")),
+                                                    exp.DataType.build("varchar")),
+        s.lit(f" rows). Use the table form, which spills to disk: SELECT * FROM {name}_by('<table>', '<value>'"
+              f"{params}{trailing}, ['<key>', ...]); or SET VARIABLE {L.BUDGET_VARIABLE} = <rows> "
+              "(0: no limit) to hold larger groups in memory"),
+    ]
+    message = parts[0]
+    for part in parts[1:]:
+        message = exp.DPipe(this=message, expression=part, safe=True)
+    too_many = s.gt(L.call("len", rows.copy()), budget)
+    return exp.Case(ifs=[exp.If(this=too_many, true=s.raise_error_expr(message))], default=body)
+
+
 def build_aggregate(measure: Measure, has_trailing: bool, params: list[exp.Expression]) -> exp.Expression:
     """The macro body of one overload (raises NeedsConstant when a parameter shapes the plan)."""
     kind = measure.pass_for(has_trailing)
@@ -198,27 +237,30 @@ def build_aggregate(measure: Measure, has_trailing: bool, params: list[exp.Expre
         body = explore_build(lambda p: measure.build(ctx, p), params)
         rows = L.collect(L.struct(**{X: x.copy(), W: (w or s.lit(1.0)).copy()}), None, cond.copy())
         means = {"_uv_mu": s.div(ctx.T, ctx.W), "_uv_mup": s.case(s.gt(ctx.T, s.lit(0.0)), s.div(ctx.T, ctx.W))}
-        return L.bind(L.struct(_uv_l=rows, **means), G, body)
+        return L.bind(L.struct(_uv_l=rows, **means), G, guard_rows(measure, kind, L.field(L.var(G), "_uv_l"), body))
     if kind == "ordered":
         ctx = OrderedListContext(weighted)
         body = _rows_to_list(explore_build(lambda p: measure.build(ctx, p), params), ctx.rows)
         if weighted:
-            sums = L.call(L.SCAN, L.transform(ctx.rows.copy(), [E], L.field(L.var(E), W)))
+            sums = L.call(L.SCAN, L.transform(ctx.rows.copy(), [E], L.field(L.var(E), W)),
+                          L.call("len", ctx.rows.copy()))
             body = L.bind(sums, "_uv_cs", body)
         fields = {X: x.copy()} | ({W: w.copy()} if weighted else {})
         rows = L.collect(L.struct(**fields), x.copy(), cond)
-        return L.bind(L.struct(_uv_l=rows), G, body)
+        return L.bind(L.struct(_uv_l=rows), G, guard_rows(measure, kind, ctx.rows.copy(), body))
     if kind == "entity":
         ctx = EntityListContext()
         body = _rows_to_list(explore_build(lambda p: measure.build(ctx, p), params), L.var("_uv_v"))
-        return L.bind(_entity_totals(x, has_trailing), "_uv_v", body)
+        return L.bind(_entity_totals(measure, x, has_trailing), "_uv_v", body)
     raise NeedsConstant(f"no aggregate form for the {kind} pass")
 
 
-def _entity_totals(x: exp.Expression, with_entity: bool) -> exp.Expression:
-    """The group's entity totals, largest first (each row its own entity without an entity)."""
+def _entity_totals(measure: Measure, x: exp.Expression, with_entity: bool) -> exp.Expression:
+    """The group's entity totals, largest first (each row its own entity without an entity), or an
+    error where the group has more rows than the list budget (guard_rows)."""
     if not with_entity:
-        return L.collect(x.copy(), x.copy(), s.not_null(L.var("x")), desc=True)
+        values = L.collect(x.copy(), x.copy(), s.not_null(L.var("x")), desc=True)
+        return L.bind(values, "_uv_r", guard_rows(measure, "entity", L.var("_uv_r"), L.var("_uv_r")))
     rows = L.collect(L.struct(_uv_k=L.var("entity"), _uv_x=x.copy()), L.var("entity"),
                      s.and_(s.not_null(L.var("x")), s.not_null(L.var("entity"))))
     lst = L.var("_uv_r")
@@ -236,7 +278,7 @@ def _entity_totals(x: exp.Expression, with_entity: bool) -> exp.Expression:
     segment = L.call("list_slice", lst.copy(), start, b)
     total = L.call("list_sum", L.transform(segment, [E], L.field(L.var(E), "_uv_x")))
     totals = L.call("list_reverse_sort", L.transform(L.var("_uv_j"), ["_uv_b", I], total))
-    return L.bind(rows, "_uv_r", L.bind(ends, "_uv_j", totals))
+    return L.bind(rows, "_uv_r", guard_rows(measure, "entity", lst.copy(), L.bind(ends, "_uv_j", totals)))
 
 
 def param_checks(measure: Measure, body: exp.Expression) -> exp.Expression:

@@ -6,9 +6,11 @@ from sqlglot import exp
 
 from uneven.sqltree import build as s
 
-SCAN_STEP = "_uv_scan_step"
 SCAN = "_uv_scan"
-SCAN_STEPS = 40  # prefix sums by doubling: 2^40 rows per group is more than any group can hold
+BUDGET = "_uv_list_budget"
+BUDGET_VARIABLE = "uneven_list_rows"  # SET VARIABLE uneven_list_rows = N: the rows a list form may hold (0: any)
+UNITS = ["bytes", "KiB", "MiB", "GiB", "TiB", "PiB", "EiB"]  # how current_setting('memory_limit') prints
+SCAN_STEPS = 62  # prefix sums by doubling: strides 2^0 … 2^61 cover any list DuckDB can hold
 
 
 def ident(name: str) -> exp.Identifier:
@@ -62,16 +64,38 @@ def collect(value: exp.Expression, order: exp.Expression | None, where: exp.Expr
 
 
 def scan_macros() -> list[exp.Create]:
-    """Helper macros: inclusive prefix sums of a list of doubles by doubling (Hillis–Steele), each
-    step skipped once the stride passes the list's length; O(n log n) work, no copies per element."""
-    q, d, z, v, i = var("q"), var("d"), var("_uv_z"), var("_uv_v"), var("_uv_i")
-    added = s.case(s.gt(i, d), s.add(v, element(z, s.sub(i, d))), v)
-    step_body = s.case(s.gt(call("len", z), d), transform(z, ["_uv_v", "_uv_i"], added), z)
-    step = bind(q, "_uv_z", step_body)
-    body: exp.Expression = var("q")
-    for k in range(SCAN_STEPS):
-        body = call(SCAN_STEP, body, exp.Literal.number(2 ** k))
-    return [macro(SCAN_STEP, [(["q", "d"], step)]), macro(SCAN, [(["q"], body)])]
+    """Helper macro ``_uv_scan(q, n)``: inclusive prefix sums of the list of doubles ``q`` of length
+    ``n``, by doubling (Hillis–Steele): ⌈log2 n⌉ steps, each adding the element ``d`` places back.
+    The steps run inside one ``list_reduce`` over the strides, whose accumulator is the list, so
+    DuckDB keeps the current step's list only (nested step calls kept every step's list until the
+    whole expression was done: about 650 bytes per row; bench/README.md, "Installed functions:
+    memory")."""
+    acc, d, v, i, j = var("_uv_acc"), var("_uv_d"), var("_uv_v"), var("_uv_i"), var("_uv_j")
+    stride = element(d, exp.Literal.number(1))
+    added = s.case(s.gt(i, stride), s.add(v, element(acc, s.sub(i.copy(), stride.copy()))), v.copy())
+    step = lam(["_uv_acc", "_uv_d"], transform(acc.copy(), ["_uv_v", "_uv_i"], added))
+    power = exp.cast(exp.Pow(this=exp.Literal.number(2), expression=j), exp.DataType.build("bigint"))
+    exponents = call("list_filter", call("range", exp.Literal.number(0), exp.Literal.number(SCAN_STEPS)),
+                     lam(["_uv_j"], s.lt(power, var("n"))))
+    strides = transform(exponents, ["_uv_j"], exp.Array(expressions=[power.copy()]))
+    return [macro(SCAN, [(["q", "n"], call("list_reduce", strides, step, var("q")))])]
+
+
+def budget_macro() -> exp.Create:
+    """``_uv_list_budget(b)``: the most rows a list form needing ``b`` bytes per row may hold in one
+    group: the variable ``uneven_list_rows`` where set (a number ≤ 0: no budget, NULL), else DuckDB's
+    ``memory_limit`` divided by ``b``; NULL (no budget) where the setting does not read as a size."""
+    setting = call("current_setting", s.lit("memory_limit"))
+    number = exp.TryCast(this=call("regexp_extract", setting, s.lit("^[0-9.]+")), to=exp.DataType.build("double"))
+    unit = call("list_position", exp.Array(expressions=[s.lit(u) for u in UNITS]),
+                call("regexp_extract", setting.copy(), s.lit("[A-Za-z]+$")))
+    limit = s.mul(number, exp.Pow(this=s.lit(1024.0), expression=s.sub(unit, exp.Literal.number(1))))
+    chosen = exp.TryCast(this=call("getvariable", s.lit(BUDGET_VARIABLE)), to=exp.DataType.build("double"))
+    body = exp.Case(ifs=[exp.If(this=exp.Not(this=exp.Is(this=call("getvariable", s.lit(BUDGET_VARIABLE)),
+                                                            expression=exp.Null())),
+                                true=s.case(s.gt(chosen, s.lit(0.0)), chosen.copy()))],
+                    default=s.div(limit, var("b")))
+    return macro(BUDGET, [(["b"], body)])
 
 
 def macro(name: str, overloads: list[tuple[list[str], exp.Expression]]) -> exp.Create:
