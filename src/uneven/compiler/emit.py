@@ -208,7 +208,7 @@ def check_emission(tree: exp.Expression, text: str, dialect: str, **options) -> 
     if (dialect, text) in _CHECKED:
         return
     limit = sys.getrecursionlimit()
-    sys.setrecursionlimit(max(limit, 20_000))  # the parser recurses per nesting level (_uv_scan: 40 calls deep)
+    sys.setrecursionlimit(max(limit, 20_000))  # the parser recurses per nesting level (deeply nested installed macros)
     try:
         err = emission_error(tree, text, dialect, **options)
     finally:
