@@ -68,7 +68,8 @@ def step_body(weighted: bool) -> exp.Select:
                 exp.If(this=exp.NEQ(this=exp.Mul(this=w.copy(), expression=_n(0)), expression=_n(0)),
                        true=_fail("NaN or infinite weight in the weight argument of gini()")),
                 exp.If(this=exp.EQ(this=w.copy(), expression=_n(0)), true=exp.column("s"))]
-    ifs.append(exp.If(this=exp.and_(exp.GT(this=_state(1), expression=_n(0)), exp.LT(this=x.copy(), expression=_state(6))),
+    ifs.append(exp.If(this=exp.and_(exp.GT(this=_state(1), expression=_n(0)),
+                                    exp.LT(this=x.copy(), expression=_state(6))),
                       true=_fail("gini() received its rows out of order: write gini(x ORDER BY x) or "
                                  "gini(x, w ORDER BY x)")))
     return exp.select(exp.Case(ifs=ifs, default=new))
@@ -97,7 +98,8 @@ def _gini_definitions(sql) -> list[tuple[str, str, str, object]]:
     out.append(("_uv_gini_final", "helper", "gini", sql.SQL(
         "CREATE FUNCTION {}(s double precision[]) RETURNS double precision LANGUAGE sql IMMUTABLE STRICT "
         "PARALLEL SAFE AS {}").format(sql.Identifier("_uv_gini_final"), sql.Literal(to_sql(final_body(), "postgres")))))
-    for step, types in (("_uv_gini_step_w", "double precision, double precision"), ("_uv_gini_step", "double precision")):
+    for step, types in (("_uv_gini_step_w", "double precision, double precision"),
+                        ("_uv_gini_step", "double precision")):
         out.append(("gini", "aggregate", "gini", sql.SQL(
             "CREATE AGGREGATE {}(" + types + ") (SFUNC = {}, STYPE = double precision[], "
             "FINALFUNC = {}, INITCOND = {})").format(sql.Identifier("gini"), sql.Identifier(step),
@@ -232,8 +234,8 @@ def install(con, *, replace: bool = False, measures: list[str] | None = None) ->
                 for name, kind, measure, statement in defs:
                     if kind != "type" or not _type_exists(cur, name):  # a type is kept: others may use it
                         cur.execute(statement)
-                    cur.execute(sql.SQL("DELETE FROM {} WHERE name = %s AND kind = %s").format(sql.Identifier(REGISTRY)),
-                                (name, kind))
+                    cur.execute(sql.SQL("DELETE FROM {} WHERE name = %s AND kind = %s").format(
+                        sql.Identifier(REGISTRY)), (name, kind))
                     cur.execute(sql.SQL("INSERT INTO {} VALUES (%s, %s, %s)").format(sql.Identifier(REGISTRY)),
                                 (name, kind, measure))
     except psycopg.Error as e:

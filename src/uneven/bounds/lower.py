@@ -73,9 +73,12 @@ def lower_bounds(source: str, keys: list[exp.Column], columns: list[str], calls:
     if merge:
         ctes += join_overlaps(source, keys, columns, f"{name}_mrg")
         source = f"{name}_mrg"
-    powers = {b.power_of_column(c) for c in columns if b.power_of_column(c) is not None}
+    powers = {p for c in columns if (p := b.power_of_column(c)) is not None}
     ctx = BinContext(powers)
-    out, final, results, exact = [], [], {}, {}
+    out: list[exp.Expression] = []
+    final: list[exp.Expression] = []
+    results: dict[object, tuple[str, str, str]] = {}
+    exact: dict[object, bool] = {}
     for key, measure, params in calls:
         if key in results:
             continue
@@ -83,7 +86,7 @@ def lower_bounds(source: str, keys: list[exp.Column], columns: list[str], calls:
         i = len(results) + 1
         names = (f"_uv_r{i}", f"_uv_r{i}_lo", f"_uv_r{i}_hi")
         out += [_named(e, n) for e, n in zip((iv.point, iv.lo, iv.hi), names)]
-        wide = widen(Interval(*(s.col(n) for n in names)))
+        wide = widen(Interval(s.col(names[0]), s.col(names[1]), s.col(names[2])))
         final += [_named(e, n) for e, n in zip((wide.point, wide.lo, wide.hi), names)]
         results[key], exact[key] = names, iv.exact
     aggregates = [_named(e.copy(), n) for n, e in ctx.aggregates.values()]

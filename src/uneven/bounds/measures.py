@@ -16,7 +16,7 @@ Bins do not overlap, so every cross-bin comparison is known exactly.
 
 from __future__ import annotations
 
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
 from dataclasses import dataclass
 
 from sqlglot import exp
@@ -256,7 +256,8 @@ def mld(ctx, params=()):
 
 
 def cv(ctx, params=()):
-    # Σw(x − μ)² = Σ_b [W_b (m_b − μ)² + within_b], within_b = Σw x² − T_b²/W_b ∈ [0, W_b (c − m)(m − a)]
+    # Σw(x − μ)² = Σ_b [W_b (m_b − μ)² + within_b],
+    # within_b = Σw x² − T_b²/W_b ∈ [0, W_b (c − m)(m − a)]
     # (Bhatia–Davis); the interval is certified, the point uses the stored Σw·x² (clamped into it)
     mu = s.div(ctx.gt, ctx.gw)
     between = ctx.sum(s.mul(ctx.Wb, s.power(s.sub(ctx.m, mu), s.lit(2.0))))
@@ -279,9 +280,8 @@ def _power_sum(ctx, a: float) -> tuple[exp.Expression, exp.Expression, bool]:
     pw = lambda v: s.power(v, s.lit(float(a)))  # noqa: E731
     pos = s.gt(ctx.a, ZERO)
     jensen = s.mul(ctx.Wb, pw(ctx.m))
-    chord = s.case(s.gt(ctx.c, ctx.a),
-                   s.div(s.mul(ctx.Wb, s.add(s.mul(s.sub(ctx.c, ctx.m), pw(ctx.a)), s.mul(s.sub(ctx.m, ctx.a), pw(ctx.c)))),
-                         ctx.spread), jensen.copy())
+    mix = s.add(s.mul(s.sub(ctx.c, ctx.m), pw(ctx.a)), s.mul(s.sub(ctx.m, ctx.a), pw(ctx.c)))
+    chord = s.case(s.gt(ctx.c, ctx.a), s.div(s.mul(ctx.Wb, mix), ctx.spread), jensen.copy())
     convex = a > 1 or a < 0
     lo_t, hi_t = (jensen, chord) if convex else (chord, jensen)
     lo = exp.Coalesce(this=ctx.sum(s.case(pos, lo_t)), expressions=[ZERO])
@@ -325,7 +325,8 @@ def atkinson(ctx, params):
     return _if(domain, Interval(_mid(first, second), first.copy(), second.copy()))
 
 
-BOUNDED = {
+# measure name → its interval builder, called with the bins context and the measure's parameters
+BOUNDED: dict[str, Callable[[BinContext, tuple], Interval]] = {
     "gini": gini,
     "gini_corrected": gini_corrected,
     "lorenz": lambda ctx, p: lorenz_interval(ctx, p[0]),

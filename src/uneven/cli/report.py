@@ -34,7 +34,8 @@ def register(sub) -> None:
                        "Lorenz curves and, with --time, Gini over time. The table and curves are for the "
                        "latest --time value.", epilog=EPILOG, formatter_class=argparse.RawDescriptionHelpFormatter)
     add_source_options(p)
-    p.add_argument("--time", metavar="COL", help="a time column (e.g. year): adds the trend; the table is for its latest value")
+    p.add_argument("--time", metavar="COL",
+                   help="a time column (e.g. year): adds the trend; the table is for its latest value")
     p.add_argument("--format", choices=("html", "md"), help="html (default; .md output implies md) or md")
     p.add_argument("--output", "-o", metavar="FILE", help="the report file (default: uneven-report.html or .md)")
     p.add_argument("--title", help="the report's title")

@@ -38,15 +38,17 @@ def _rows(measure: Measure, fn: str) -> exp.Select:
 
     The columns are picked by name in an inner SELECT (one COLUMNS per expression, as DuckDB
     requires), and checked in the outer one."""
+    name = measure.trailing
+    assert name is not None  # every measure of the catalog takes a weight or an entity column
     keys = exp.Columns(this=L.lam(["c"], L.call("list_contains", L.var("keys"), L.var("c"))), unpack=True)
-    other = exp.Coalesce(this=L.var(measure.trailing), expressions=[L.var("value")])
+    other = exp.Coalesce(this=L.var(name), expressions=[L.var("value")])
     picked = exp.Select(expressions=[s.alias(L.call("struct_pack", keys), KEY),
                                      s.alias(_named_column(L.var("value")), "_uv_v0"),
                                      s.alias(_named_column(other), "_uv_t0")]).from_(
         exp.Table(this=L.call("query_table", L.var("source"))))
     value = param_checks(measure, checked_numeric(s.col("_uv_v0"), fn, "value column"))
-    is_null = exp.Is(this=L.var(measure.trailing), expression=exp.Null())
-    if measure.trailing == "weight":
+    is_null = exp.Is(this=L.var(name), expression=exp.Null())
+    if name == "weight":
         wd = checked_numeric(s.col("_uv_t0"), fn, "weight column")
         checked = s.case(s.lt(wd, s.lit(0.0)), s.raise_error(
             f"uneven: negative weight in the weight argument of {fn}()"), wd.copy())
@@ -76,5 +78,6 @@ def table_form(measure: Measure) -> tuple[str, exp.Create]:
     plan = rewrite_scope(select, [call], CompileContext())
     body = exp.Select(expressions=[exp.Unnest(expressions=[s.col(KEY)]), s.alias(s.col(RESULT), measure.name)]
                       ).from_(exp.Subquery(this=plan, alias=exp.TableAlias(this=exp.to_identifier("_uv_plan"))))
+    assert measure.trailing is not None  # as in _rows
     args = ["source", "value", *(p.name for p in measure.params), measure.trailing, "keys"]
     return fn, L.table_macro(fn, args, body)

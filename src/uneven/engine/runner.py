@@ -7,7 +7,7 @@ import re
 import duckdb
 import pandas as pd
 
-from uneven.errors import ExecutionError, InputDataError, UndefinedResultError
+from uneven.errors import ExecutionError, InputDataError, UndefinedResultError, UnevenError
 
 _SETTINGS = ("memory_limit", "threads", "temp_directory")
 
@@ -63,7 +63,7 @@ def _unquoted(message: str) -> str:
     return message[:-1] if message.endswith(')"') else message
 
 
-def translate_error(e: Exception, engine: str = "DuckDB") -> Exception:
+def translate_error(e: Exception, engine: str = "DuckDB") -> UnevenError:
     """An engine's error as an ``UnevenError``: the messages of the compiled SQL's own checks (error()
     calls, the same text on every engine) become InputDataError / UndefinedResultError; anything else
     is an ExecutionError naming ``engine`` (the runner is DuckDB; other engines' callers name theirs).
@@ -72,7 +72,8 @@ def translate_error(e: Exception, engine: str = "DuckDB") -> Exception:
     text = _ECHOED.sub("", str(e))
     m = re.search(r"uneven: (negative weight in .*?)(?:\n|$)", text)
     if m:
-        return InputDataError(f"{_unquoted(m.group(1))} (weights must be ≥ 0; rows with weight 0 change nothing and are skipped)")
+        return InputDataError(f"{_unquoted(m.group(1))} (weights must be ≥ 0; "
+                              "rows with weight 0 change nothing and are skipped)")
     m = re.search(r"uneven: (NaN or infinite (?:value|weight) in .*?)(?:\n|$)", text)
     if m:
         return InputDataError(f"{_unquoted(m.group(1))} (values and weights must be finite numbers; NULLs are "

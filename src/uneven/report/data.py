@@ -43,11 +43,17 @@ class Column:
 
 def _used(spec: Spec, e: exp.Expression) -> exp.Expression:
     """``e`` for the rows every measure uses (value not NULL, weight > 0), NULL for the others."""
-    cond = exp.Not(this=exp.Is(this=spec.value.copy(), expression=exp.Null()))
+    cond: exp.Expr = exp.Not(this=exp.Is(this=spec.value.copy(), expression=exp.Null()))
     if spec.weight is not None:
         cond = exp.GT(this=spec.weight.copy(), expression=exp.Literal.number(0))
         cond = exp.and_(cond, exp.Not(this=exp.Is(this=spec.value.copy(), expression=exp.Null())))
     return exp.Case(ifs=[exp.If(this=cond, true=e)])
+
+
+def _population(spec: Spec) -> exp.Expression:
+    """Σ weight over the rows used; the column is weighted_only, so a weight is given."""
+    assert spec.weight is not None
+    return exp.Sum(this=_used(spec, spec.weight.copy()))
 
 
 def _m(name, *params):
@@ -62,8 +68,7 @@ def _ci(name: str, *params):
 COLUMNS: tuple[Column, ...] = (
     Column("rows", "rows", lambda s: exp.Count(this=_used(s, s.value.copy())), "{:,.0f}",
            note="rows with a value (and a weight > 0)"),
-    Column("population", "population (Σ weight)", lambda s: exp.Sum(this=_used(s, s.weight.copy())), "{:,.0f}",
-           weighted_only=True),
+    Column("population", "population (Σ weight)", _population, "{:,.0f}", weighted_only=True),
     Column("mean", "mean", _m("generalized_lorenz", 1.0), "{:,.2f}", note="weighted mean μ = T/W"),
     Column("median", "median", _m("quantile_w", 0.5), "{:,.2f}", note="weighted median (inverted CDF)"),
     Column("gini", "Gini", _m("gini"), "{:.4f}", interval=_ci("gini")),
@@ -140,12 +145,13 @@ class ReportData:
 
 
 def _latest_filter(spec: Spec) -> exp.Expression:
+    assert spec.time is not None  # called only with a time column
     latest = exp.select(exp.Max(this=spec.time.copy())).from_(spec.source.from_.copy())
     return exp.EQ(this=spec.time.copy(), expression=exp.Subquery(this=latest))
 
 
 def measures_select(spec: Spec, columns: list[Column], points: int, keys: bool = True) -> exp.Select:
-    items = [k.copy() for k in spec.keys] if keys else []
+    items: list[exp.Expression] = [k.copy() for k in spec.keys] if keys else []
     items += [alias(c.build(spec), f"_uv_c_{c.key}") for c in columns]
     items += [alias(b(spec), f"_uv_c_{c.key}_{end}") for c in columns if c.interval
               for end, b in zip(("lo", "hi"), c.interval)]
@@ -159,6 +165,7 @@ def measures_select(spec: Spec, columns: list[Column], points: int, keys: bool =
 
 
 def trend_select(spec: Spec) -> exp.Select:
+    assert spec.time is not None  # the trend is read only with a time column
     keys = [k.copy() for k in spec.keys] + [spec.time.copy()]
     q = exp.select(*keys, alias(call("gini", spec.value, weight=spec.weight), "_uv_gini")).from_(
         spec.source.from_.copy()).group_by(*[k.copy() for k in keys])
@@ -222,6 +229,7 @@ def collect(con, spec: Spec, *, points: int = 50, title: str | None = None, domi
 
 
 def _add_trend(con, spec: Spec, data: ReportData) -> None:
+    assert spec.time is not None  # as in trend_select
     trend = run_tree(con, trend_select(spec))
     t = spec.time.name
     periods = [v for v in pd.unique(trend[t]) if not pd.isna(v)]

@@ -134,6 +134,7 @@ def render_html(data: ReportData) -> str:
     parts.append('<ul class="cautions" id="cautions">'
                  + "".join(f"<li>{escape(n)}</li>" for n in cautions(data)) + "</ul>")
     if "trend" in charts:
+        assert data.time is not None  # the trend is drawn only for a time column
         parts += [f'<h2 id="trend">Trend by {escape(data.time)}</h2>',
                   f'<div class="charts"><figure id="trend-chart">{charts["trend"]}</figure></div>']
     parts += _dominance(data, charts.get("dominance", ""))

@@ -48,7 +48,7 @@ def plot_lorenz(points: pd.DataFrame, path: str | Path | None = None, *, general
         raise UnevenError(f"{len(series)} groups: a plot shows at most {max_groups} curves to stay readable; "
                            "group by fewer columns, filter the source, raise the limit (--max-groups), or "
                            "write the points table instead (--output FILE.csv)")
-    fmt = None
+    fmt = ""
     if path is not None:
         fmt = Path(path).suffix.lower().lstrip(".")
         if fmt not in FORMATS:
@@ -87,5 +87,7 @@ def _save(fig, path: Path, fmt: str, overwrite: bool) -> None:
 
     from uneven.engine.output import write_all
     buf = io.BytesIO()
-    fig.savefig(buf, format=fmt, metadata={"Date": None} if fmt == "svg" else {"Software": "uneven"})
+    # no date in an SVG, so the same curves write the same file
+    metadata: dict[str, str | None] = {"Date": None} if fmt == "svg" else {"Software": "uneven"}
+    fig.savefig(buf, format=fmt, metadata=metadata)
     write_all({path: buf.getvalue()}, overwrite=overwrite)

@@ -16,6 +16,7 @@ from sqlglot import exp
 
 from uneven.engine.runner import translate_error
 from uneven.errors import UnevenError
+from uneven.sqltree import build as s
 
 FRAME_NAME = "_uv_source"  # the name a caller's DataFrame is registered under
 _READERS = {".parquet": "read_parquet", ".pq": "read_parquet", ".csv": "read_csv", ".tsv": "read_csv",
@@ -97,7 +98,7 @@ def resolve_source(con: duckdb.DuckDBPyConnection, source) -> Source:
             raise SourceError(f"{source}: unknown file type (use .parquet or .csv files, e.g. 'data/*.parquet')")
         if "://" not in source and not glob.glob(source, recursive=True):
             raise SourceError(f"no file matches {source}")
-        src = Source(exp.func(reader, exp.Literal.string(source)), source)
+        src = Source(s.node(exp.func(reader, exp.Literal.string(source))), source)
     else:
         src = Source(_table_expression(con, source), f"the table {source}")
     src.columns = describe(con, src)
@@ -131,5 +132,6 @@ def describe(con: duckdb.DuckDBPyConnection, src: Source) -> dict[str, str]:
     try:
         rows = con.execute(exp.Describe(this=probe).sql("duckdb")).fetchall()
     except duckdb.Error as e:
-        raise SourceError(f"cannot read {src.label}: {translate_error(e).message.removeprefix('DuckDB could not run the query: ')}") from None
+        why = translate_error(e).message.removeprefix("DuckDB could not run the query: ")
+        raise SourceError(f"cannot read {src.label}: {why}") from None
     return {r[0]: r[1] for r in rows}

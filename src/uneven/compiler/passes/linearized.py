@@ -24,6 +24,7 @@ PSU has no variance estimate: the group's SE is then NULL.
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from statistics import NormalDist
 
 from sqlglot import exp
@@ -69,9 +70,9 @@ def _cross_name(j: int, k: int) -> str:
     return f"_uv_q{j}_{k}"
 
 
-def _stats(terms: Terms, unit_cols: dict[int, exp.Expression]) -> list[exp.Expression]:
+def _stats(terms: Terms, unit_cols: Mapping[int, exp.Expression]) -> list[exp.Expression]:
     """n, Σ U_j and Σ U_j·U_l over the units (rows or PSUs) of a stratum or group."""
-    out = [s.alias(s.agg_count_star(), "_uv_nu")]
+    out: list[exp.Expression] = [s.alias(s.agg_count_star(), "_uv_nu")]
     out += [s.alias(s.agg_sum(unit_cols[j].copy()), _sum_name(j)) for j in unit_cols]
     out += [s.alias(s.agg_sum(s.mul(unit_cols[j].copy(), unit_cols[k].copy())), _cross_name(j, k))
             for j, k in terms.pairs]
@@ -210,11 +211,15 @@ def _result_columns(lifted, equal, K, enough, name: str) -> tuple:
     """Estimates and coefficients once per group (_coef), the variances over them (_var), then the
     standard errors: NULL where the variance is (no density at a quantile: a NULL coefficient),
     exactly 0 where the values are equal, a rounding below 0 counted as 0."""
-    named, variances, columns, results = [], [], [], {}
+    named: list[exp.Expression] = []
+    variances: list[exp.Expression] = []
+    columns: list[exp.Expression] = []
+    results: dict[tuple, exp.Column] = {}
     for i, (call, est, role, coefs) in enumerate(lifted, start=1):
         named.append(s.alias(est, f"_uv_e{i}"))
         named += [s.alias(c, f"_uv_c{i}_{j}") for j, c in (coefs or {}).items()]
         e = s.col(f"_uv_e{i}")
+        value: exp.Expression
         if role is None:
             value = e
         elif coefs is None:
@@ -231,7 +236,8 @@ def _result_columns(lifted, equal, K, enough, name: str) -> tuple:
 
 def _standard_error(e: exp.Expression, v: exp.Expression, equal, enough) -> exp.Expression:
     zero = s.or_(s.paren(equal.copy()), s.lt(v.copy(), s.lit(0.0)))
-    return s.case(s.and_(s.not_null(e.copy()), enough.copy(), s.not_null(v.copy())), s.case(zero, s.lit(0.0), s.sqrt(v)))
+    known = s.and_(s.not_null(e.copy()), enough.copy(), s.not_null(v.copy()))
+    return s.case(known, s.case(zero, s.lit(0.0), s.sqrt(v)))
 
 
 def _output_ctes(named, variances, columns, keys, name: str) -> list[exp.CTE]:
@@ -239,7 +245,8 @@ def _output_ctes(named, variances, columns, keys, name: str) -> list[exp.CTE]:
     ctes = [cte(coef, f"{name}_coef")]
     below = f"{name}_coef"
     if variances:
-        ctes.append(cte(exp.Select(expressions=[exp.Star()] + variances).from_(table(below), copy=False), f"{name}_var"))
+        var = exp.Select(expressions=[exp.Star()] + variances).from_(table(below), copy=False)
+        ctes.append(cte(var, f"{name}_var"))
         below = f"{name}_var"
     final = exp.Select(expressions=[k.copy() for k in keys] + columns).from_(table(below), copy=False)
     ctes.append(cte(final, name))
@@ -262,4 +269,5 @@ PREFIX = "lin"
 
 
 def lower(source: Source, main, plan, name: str | None, settings) -> tuple[list[exp.CTE], dict]:
+    assert name is not None  # a pass with a PREFIX is given its CTE name
     return lower_linearized_pass(source, main, plan, name)

@@ -99,12 +99,13 @@ def _window_columns(ctx: OrderedContext, keys: list[exp.Expression],
                     minimum: exp.Select | None) -> list[exp.Expression]:
     x, w = s.col("_uv_x"), ctx.w
     part = lambda: [k.copy() for k in keys]  # noqa: E731
-    cols = []
+    cols: list[exp.Expression] = []
     if "c" in ctx.used:
         running = (s.window(s.agg_sum(w.copy()), part(), [x.copy()], running=True) if ctx.weighted
                    else s.window(exp.RowNumber(), part(), [x.copy()]))
         cols.append(s.alias(running, "_uv_c"))
     if "min" in ctx.used:
+        first: exp.Expression
         if keys:
             # the partition minimum over the whole frame, in the same specification as C: DuckDB
             # computes it once per partition (FIRST_VALUE over the running frame cost about ten
@@ -159,7 +160,7 @@ def lower_ordered_pass(source: Source, main, plan, name: str) -> tuple[list[exp.
         cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
     rows = source.rows(proj, cond)
 
-    keys = source.key_columns()
+    keys: list[exp.Expression] = list(source.key_columns())
     base_cols = keys + [s.col("_uv_x")] + ([s.col("_uv_w")] if ctx.weighted else [])
     base_cols += [s.col("_uv_n")] if "n" in ctx.used else []
     minimum = None if keys else source.rows([s.agg_min(xd.copy())], cond.copy())  # one group only
@@ -182,6 +183,7 @@ PREFIX = "ord"
 
 
 def lower(source: Source, main, plan, name: str | None, settings) -> tuple[list[exp.CTE], dict]:
+    assert name is not None  # a pass with a PREFIX is given its CTE name
     return lower_ordered_pass(source, main, plan, name)
 
 
