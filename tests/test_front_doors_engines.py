@@ -77,7 +77,7 @@ def test_spark_dataframe_as_the_builders_source(loaded):
     assert close(out["g"].iloc[0], R.gini(x, w)) and close(out["top"].iloc[0], R.top_share(x, 0.1, w))
 
 
-def _engine_url(engine, tmp_path) -> str:
+def engine_url(engine, tmp_path) -> str:
     data = make_groups()
     if engine.name == "sqlite":
         import sqlite3
@@ -107,7 +107,7 @@ def _engine_url(engine, tmp_path) -> str:
 
 def test_cli_query_bounded_with_engine_url(loaded, tmp_path, capsys):
     from uneven.cli.main import main
-    url = _engine_url(loaded, tmp_path)
+    url = engine_url(loaded, tmp_path)
     assert main(["query", "--engine", url, "--method", "bounded", "--format", "csv",
                  "SELECT grp, gini(x, w) AS g FROM t_fd WHERE grp = 'g2' GROUP BY grp"]) == 0
     out = pd.read_csv(pd.io.common.StringIO(capsys.readouterr().out))

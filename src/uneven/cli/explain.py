@@ -24,7 +24,9 @@ def register(sub) -> None:
                        "the slowest operators are listed.",
                        epilog=EPILOG, formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("sql", metavar="SQL", help="the query: its text, - for standard input, or @FILE")
-    p.add_argument("--profile", action="store_true", help="run the query once and show time per DuckDB operator")
+    p.add_argument("--profile", action="store_true",
+                   help="run the query once and show time per DuckDB operator (on another engine: its plan, "
+                   "analyzed where it can be, and the run time)")
     p.add_argument("--top", type=int, default=15, metavar="N", help="operators to list with --profile (default 15)")
     p.add_argument("--show-sql", action="store_true", help="also print the compiled SQL")
     p.add_argument("--json", action="store_true", help="print the explanation as JSON")
@@ -50,6 +52,10 @@ def run(args) -> int:
         if found.operators is not None:
             doc.update({"total_seconds": found.total_seconds, "result_rows": found.result_rows,
                         "operators": found.operators, "system": found.system})
+        if found.engine_plan is not None:  # another engine: its own plan, and its run time when profiled
+            doc.update({"engine": found.engine, "engine_plan": found.engine_plan})
+            if found.total_seconds is not None:
+                doc.update({"total_seconds": found.total_seconds, "result_rows": found.result_rows})
         print(json.dumps(doc, indent=2))
     else:
         print(found.text(show_sql=args.show_sql, top=args.top))

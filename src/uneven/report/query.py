@@ -82,11 +82,19 @@ def make_spec(con: duckdb.DuckDBPyConnection, source, value: str, weight: str | 
 
 def open_connection(con=None, **settings) -> tuple[duckdb.DuckDBPyConnection, bool]:
     """The connection to use and whether we opened it (and so must close it). Another engine's
-    adapter (engine/adapters) is used as it is: its settings are its own."""
+    adapter (engine/adapters) is used as it is: its settings are its own; DuckDB settings given with
+    another engine's connection are an error."""
     if isinstance(con, Adapter):
         return con, False
     if con is not None and not is_duckdb(con):
-        return adapt(con), False
+        adapter = adapt(con)
+        given = [f"{k}=" for k, v in settings.items() if v not in (None, False)]
+        if given:  # as query(con=…) refuses them: never a setting dropped silently
+            adapter.close()
+            what = "is a DuckDB setting" if len(given) == 1 else "are DuckDB settings"
+            raise UnevenError(f"{', '.join(given)} {what}; it does not apply to {adapter.label}: "
+                              f"set {adapter.label}'s own options on its connection instead")
+        return adapter, False
     owned = con is None
     progress = False
     if not owned:  # keep the caller's progress setting (a progress line may be reading it)
