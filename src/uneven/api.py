@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import inspect
 from dataclasses import replace
 
 import pandas as pd
@@ -15,6 +14,7 @@ from uneven.compiler.pipeline import compile_with_context
 from uneven.engine.adapters import Adapter
 from uneven.engine.bounded import pick_resolution, run_bounded
 from uneven.engine.columns import DuckDBSchema
+from uneven.engine.frames import callers_frame
 from uneven.engine.runner import execute_df
 from uneven.engine.session import session
 from uneven.engine.stream import StreamMemoryError, execute_streamed
@@ -79,7 +79,7 @@ def query(sql: str, con=None, *, memory_limit: str | None = None,
     chosen = pick_resolution(method, tolerance, resolution)
     options = CompileOptions(read=read, pretty=False, strict=strict, tie_grouping=tie_grouping, method=method,
                              ordered=ordered)
-    with session(con, sql, inspect.currentframe().f_back, memory_limit=memory_limit, threads=threads,
+    with session(con, sql, callers_frame(), memory_limit=memory_limit, threads=threads,
                  temp_directory=temp_directory, progress=progress) as target:
         if isinstance(target, Adapter):
             return run_on(target, sql, options, chosen, tolerance)
@@ -96,6 +96,7 @@ def query(sql: str, con=None, *, memory_limit: str | None = None,
             return execute_df(target, compile_sql(sql, replace(options, resolution=res), DuckDBSchema(target)))
         if method == "exact":
             return run(None)
+        assert chosen is not None  # a bounded query always has a resolution (pick_resolution)
         return run_bounded(run, chosen, tolerance, sql)
 
 
@@ -121,7 +122,7 @@ def explain(sql: str, con=None, *, profile: bool = False,
     ``engine_plan`` holds the engine's own plan (PostgreSQL's EXPLAIN, with ``profile=True``
     EXPLAIN ANALYZE; Spark's EXPLAIN; SQLite's EXPLAIN QUERY PLAN)."""
     options = CompileOptions(read=read, strict=strict, tie_grouping=tie_grouping, ordered=ordered)
-    with session(con, sql, inspect.currentframe().f_back, memory_limit=memory_limit, threads=threads,
+    with session(con, sql, callers_frame(), memory_limit=memory_limit, threads=threads,
                  temp_directory=temp_directory) as target:
         if isinstance(target, Adapter):
             return explain_on(sql, target, options, profile=profile)

@@ -119,7 +119,8 @@ class MacroMomentContext(MomentContext):
     """The moment pass as streaming aggregates over the macro's arguments (no list)."""
 
     def __init__(self, x: exp.Expression, w: exp.Expression | None, cond: exp.Expression):
-        self.main = _Passthrough()
+        # a duck-typed stand-in for MainAggregate: add() hands back the sum itself, not a column
+        self.main = _Passthrough()  # type: ignore[assignment]
         self.args = {X: x} | ({W: w} if w is not None else {})
         self.weighted = w is not None
         self._valid = cond
@@ -160,7 +161,7 @@ class CentredListContext(MacroMomentContext):
 def _row_inputs(name: str, trailing_kind: str | None, weighted: bool):
     """(value, weight) as checked DOUBLE expressions over the macro arguments, and the row filter."""
     x = checked_numeric(L.var("x"), name, "value x")
-    cond = s.not_null(L.var("x"))
+    cond: exp.Expression = s.not_null(L.var("x"))
     w = None
     if weighted:
         wd = checked_numeric(L.var("w"), name, "weight w")
@@ -230,27 +231,28 @@ def build_aggregate(measure: Measure, has_trailing: bool, params: list[exp.Expre
     weighted = has_trailing and measure.trailing == "weight"
     x, w, cond = _row_inputs(name, measure.trailing, weighted)
     if kind == "moment":
-        ctx = MacroMomentContext(x, w, cond)
-        return explore_build(lambda p: measure.build(ctx, p), params)
+        mctx = MacroMomentContext(x, w, cond)
+        return explore_build(lambda p: measure.build(mctx, p), params)
     if kind == "centred":
-        ctx = CentredListContext(x, w, cond)
-        body = explore_build(lambda p: measure.build(ctx, p), params)
+        cctx = CentredListContext(x, w, cond)
+        body = explore_build(lambda p: measure.build(cctx, p), params)
         rows = L.collect(L.struct(**{X: x.copy(), W: (w or s.lit(1.0)).copy()}), None, cond.copy())
-        means = {"_uv_mu": s.div(ctx.T, ctx.W), "_uv_mup": s.case(s.gt(ctx.T, s.lit(0.0)), s.div(ctx.T, ctx.W))}
+        means = {"_uv_mu": s.div(cctx.T, cctx.W),
+                 "_uv_mup": s.case(s.gt(cctx.T, s.lit(0.0)), s.div(cctx.T, cctx.W))}
         return L.bind(L.struct(_uv_l=rows, **means), G, guard_rows(measure, kind, L.field(L.var(G), "_uv_l"), body))
     if kind == "ordered":
-        ctx = OrderedListContext(weighted)
-        body = _rows_to_list(explore_build(lambda p: measure.build(ctx, p), params), ctx.rows)
+        octx = OrderedListContext(weighted)
+        body = _rows_to_list(explore_build(lambda p: measure.build(octx, p), params), octx.rows)
         if weighted:
-            sums = L.call(L.SCAN, L.transform(ctx.rows.copy(), [E], L.field(L.var(E), W)),
-                          L.call("len", ctx.rows.copy()))
+            sums = L.call(L.SCAN, L.transform(octx.rows.copy(), [E], L.field(L.var(E), W)),
+                          L.call("len", octx.rows.copy()))
             body = L.bind(sums, "_uv_cs", body)
         fields = {X: x.copy()} | ({W: w.copy()} if weighted else {})
         rows = L.collect(L.struct(**fields), x.copy(), cond)
-        return L.bind(L.struct(_uv_l=rows), G, guard_rows(measure, kind, ctx.rows.copy(), body))
+        return L.bind(L.struct(_uv_l=rows), G, guard_rows(measure, kind, octx.rows.copy(), body))
     if kind == "entity":
-        ctx = EntityListContext()
-        body = _rows_to_list(explore_build(lambda p: measure.build(ctx, p), params), L.var("_uv_v"))
+        ectx = EntityListContext()
+        body = _rows_to_list(explore_build(lambda p: measure.build(ectx, p), params), L.var("_uv_v"))
         return L.bind(_entity_totals(measure, x, has_trailing), "_uv_v", body)
     raise NeedsConstant(f"no aggregate form for the {kind} pass")
 
@@ -265,10 +267,10 @@ def _entity_totals(measure: Measure, x: exp.Expression, with_entity: bool) -> ex
                      s.and_(s.not_null(L.var("x")), s.not_null(L.var("entity"))))
     lst = L.var("_uv_r")
     i = L.var(I)
+    following = L.field(L.element(lst.copy(), s.add(i.copy(), exp.Literal.number(1))), "_uv_k")
     last = exp.Or(this=exp.EQ(this=i, expression=L.call("len", lst.copy())),
                   expression=exp.NullSafeNEQ(this=L.field(L.element(lst.copy(), i.copy()), "_uv_k"),
-                                             expression=L.field(L.element(lst.copy(), s.add(i.copy(), exp.Literal.number(1))),
-                                                                "_uv_k")))
+                                             expression=following))
     ends = L.call("list_filter", L.call("range", exp.Literal.number(1), s.add(L.call("len", lst.copy()),
                                                                               exp.Literal.number(1))),
                   L.lam([I], last))
@@ -287,9 +289,11 @@ def param_checks(measure: Measure, body: exp.Expression) -> exp.Expression:
     ifs = []
     for p in measure.params:
         v = L.var(p.name)
-        bad, what = None, None
+        bad: exp.Expression | None = None
+        what: str | None = None
         if p.kind == "fraction":
-            bad, what = exp.Or(this=s.lt(v, s.lit(0.0)), expression=s.gt(v.copy(), s.lit(1.0))), "a fraction between 0 and 1"
+            bad = exp.Or(this=s.lt(v, s.lit(0.0)), expression=s.gt(v.copy(), s.lit(1.0)))
+            what = "a fraction between 0 and 1"
         elif p.kind == "nonnegative":
             bad, what = s.lt(v, s.lit(0.0)), "at least 0"
         elif p.kind == "count":

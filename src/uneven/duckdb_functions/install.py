@@ -88,9 +88,10 @@ def definitions(measures: list[Measure] | None = None) -> list[Definition]:
 def equivalised_macro() -> exp.Create:
     """equivalised(income, adults, children[, scale]): the compiler's scalar (compiler/scalars.py) as a
     macro; the scale is positional here (a macro overload), 'oecd_modified' when left out."""
-    args = [exp.column(a) for a in ("income", "adults", "children", "scale")]
-    return L.macro("equivalised", [(["income", "adults", "children"], macro_body(*args[:3], None)),
-                                   (["income", "adults", "children", "scale"], macro_body(*args))])
+    income, adults, children, scale = (exp.column(a) for a in ("income", "adults", "children", "scale"))
+    return L.macro("equivalised", [(["income", "adults", "children"], macro_body(income, adults, children, None)),
+                                   (["income", "adults", "children", "scale"],
+                                    macro_body(income, adults, children, scale))])
 
 
 # the printed statements of recent install() calls, keyed by the catalog entries they were built

@@ -19,6 +19,7 @@ from uneven.engine.runner import connect
 from uneven.engine.stream import execute_streamed
 from uneven.errors import UnevenError
 from uneven.report.source import Source, resolve_source
+from uneven.sqltree import build as s
 
 
 def as_list(by) -> list[str]:
@@ -40,10 +41,10 @@ def call(name: str, value: exp.Expression, *params: float, weight: exp.Expressio
 
 
 def alias(e: exp.Expression, name: str) -> exp.Alias:
-    return exp.alias_(e, name, quoted=True)
+    return s.alias(e, name)
 
 
-def run_tree(con: duckdb.DuckDBPyConnection, tree: exp.Expression) -> pd.DataFrame:
+def run_tree(con: duckdb.DuckDBPyConnection | Adapter, tree: exp.Expression) -> pd.DataFrame:
     """Compile a tree with measure calls and run it on ``con`` (DuckDB, or an engine adapter)."""
     if isinstance(con, Adapter):
         return con.execute(compile_sql(to_sql(tree), CompileOptions(dialect=con.dialect, pretty=False), con.schema()))
@@ -67,7 +68,7 @@ class Spec:
         return [k.name for k in self.keys]
 
 
-def make_spec(con: duckdb.DuckDBPyConnection, source, value: str, weight: str | None = None, by=None,
+def make_spec(con: duckdb.DuckDBPyConnection | Adapter, source, value: str, weight: str | None = None, by=None,
               time: str | None = None) -> Spec:
     if not value:
         raise UnevenError("a value column is needed (--value COL)")
@@ -80,7 +81,7 @@ def make_spec(con: duckdb.DuckDBPyConnection, source, value: str, weight: str | 
                 src.column(weight, "--weight", numeric=True) if weight else None, keys, t)
 
 
-def open_connection(con=None, **settings) -> tuple[duckdb.DuckDBPyConnection, bool]:
+def open_connection(con=None, **settings) -> tuple[duckdb.DuckDBPyConnection | Adapter, bool]:
     """The connection to use and whether we opened it (and so must close it). Another engine's
     adapter (engine/adapters) is used as it is: its settings are its own; DuckDB settings given with
     another engine's connection are an error."""

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import glob
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import duckdb
 from sqlglot import exp
@@ -17,6 +18,9 @@ from sqlglot import exp
 from uneven.engine.runner import translate_error
 from uneven.errors import UnevenError
 from uneven.sqltree import build as s
+
+if TYPE_CHECKING:  # annotations only: the adapters are imported where they are used
+    from uneven.engine.adapters import Adapter
 
 FRAME_NAME = "_uv_source"  # the name a caller's DataFrame is registered under
 _READERS = {".parquet": "read_parquet", ".pq": "read_parquet", ".csv": "read_csv", ".tsv": "read_csv",
@@ -78,10 +82,10 @@ def _table_expression(con: duckdb.DuckDBPyConnection, name: str) -> exp.Table:
     return exp.table_(table, db=db, catalog=catalog, quoted=True)
 
 
-def resolve_source(con: duckdb.DuckDBPyConnection, source) -> Source:
+def resolve_source(con: duckdb.DuckDBPyConnection | Adapter, source) -> Source:
     """A ``Source`` for ``source``: a DataFrame/Arrow table, a file path or glob, or a table name."""
-    from uneven.engine.adapters import Adapter
-    if isinstance(con, Adapter):
+    from uneven.engine.adapters import Adapter as EngineAdapter
+    if isinstance(con, EngineAdapter):
         return _resolve_on(con, source)
     if not isinstance(source, str):
         try:

@@ -102,7 +102,9 @@ class RefineContext:
         i = self._index(Cut(kind, p))
         j, cp, held, lo, hi, wb = (self._c(f"_uv_{n}{i}") for n in ("j", "cp", "s", "lo", "hi", "wb"))
         zero = s.lit(0.0)
-        if kind == "below":  # Σ over the bin's rows of x·clamp(p·W − C_{i−1}, 0, w): one value → lo·clamp(p·W − C⁻, 0, Σw)
+        nothing_reached: exp.Expression
+        # below: Σ over the bin's rows of x·clamp(p·W − C_{i−1}, 0, w); one value → lo·clamp(p·W − C⁻, 0, Σw)
+        if kind == "below":
             room = s.sub(s.mul(s.lit(p), self.W), cp)
             nothing_reached = self._c("_uv_tt")  # the cut lies past every bin (p = 1 and rounding): all of T
         else:  # Σ x·clamp(C_i − (1−p)·W, 0, w): one value → lo·clamp(C⁻ + Σw − (1−p)·W, 0, Σw)
@@ -151,7 +153,8 @@ def _top(ctx, p):
 
 
 def _curve(ctx, k):
-    points = [s.struct(p=s.lit(j / k), lorenz=s.cast_double(s.div(ctx.below(j / k), s.col("_uv_tt", f"{ctx.name}_cut"))))
+    total = s.col("_uv_tt", f"{ctx.name}_cut")
+    points = [s.struct(p=s.lit(j / k), lorenz=s.cast_double(s.div(ctx.below(j / k), total.copy())))
               for j in range(k + 1)]
     return s.case(s.gt(ctx.T, s.lit(0.0)), s.array(*points))
 
@@ -210,7 +213,8 @@ def _rows(source: Source, plan) -> exp.Subquery:
         cw = checked_weight(w, weight_label(w), source.keys)
         proj.append(s.alias(cw, "_uv_w"))
         cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
-    inner = exp.Subquery(this=source.rows(proj, cond), alias=exp.TableAlias(this=exp.to_identifier("_uv_v", quoted=True)))
+    inner = exp.Subquery(this=source.rows(proj, cond),
+                         alias=exp.TableAlias(this=exp.to_identifier("_uv_v", quoted=True)))
     cols = source.key_columns() + [s.col("_uv_x")] + ([s.col("_uv_w")] if w is not None else [])
     outer = exp.Select(expressions=cols + [s.alias(bin_key(s.col("_uv_x")), "_uv_b")]).from_(inner)
     return exp.Subquery(this=outer, alias=exp.TableAlias(this=exp.to_identifier(ROWS_ALIAS, quoted=True)))
@@ -230,7 +234,9 @@ def lower_refine_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
     """CTEs of one refine pass and, for each call key, the column that holds its result."""
     weighted = plan.trailing is not None
     ctx = RefineContext(weighted, name)
-    out_cols, results, scored_calls = [], {}, []
+    out_cols: list[exp.Expression] = []
+    results: dict[tuple, exp.Expression] = {}
+    scored_calls: list[tuple] = []
     for call in plan.calls:
         if call.key in results:
             continue
@@ -294,7 +300,7 @@ def lower_refine_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
     # mark: the first bin where each cut is reached (the same comparisons as the window plan's)
     cb, wt, b = s.col("_uv_cb"), s.col("_uv_wt"), s.col("_uv_b")
     passed = [c.alias_or_name for c in cum_cols]
-    mark_cols = [s.col(n) for n in passed]
+    mark_cols: list[exp.Expression] = [s.col(n) for n in passed]
     for i, cut in enumerate(ctx.cuts, 1):
         if cut.kind == "quantile":
             reached = s.gte(s.div(cb.copy(), wt.copy()), _level(cut, s.col("_uv_nt")))
@@ -318,7 +324,8 @@ def lower_refine_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
 
     # in: the rows of the bins to refine, with their running weight inside the bin
     nd = f"{name}_need"
-    on = s.and_(*_null_safe_keys(nk, ROWS_ALIAS, nd), exp.EQ(this=s.col("_uv_b", ROWS_ALIAS), expression=s.col("_uv_b", nd)))
+    on = s.and_(*_null_safe_keys(nk, ROWS_ALIAS, nd),
+                exp.EQ(this=s.col("_uv_b", ROWS_ALIAS), expression=s.col("_uv_b", nd)))
     rx, rw = s.col("_uv_x", ROWS_ALIAS), (s.col("_uv_w", ROWS_ALIAS) if weighted else s.lit(1.0))
     part_by = [s.col(key_name(i), ROWS_ALIAS) for i in range(nk)] + [s.col("_uv_b", ROWS_ALIAS)]
     running = (s.window(s.agg_sum(rw.copy()), part_by, [rx.copy()], running=True) if weighted
@@ -336,6 +343,7 @@ def lower_refine_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
     part_cols = group()
     for i, cut in enumerate(ctx.cuts, 1):
         mine = exp.EQ(this=b.copy(), expression=s.col(f"_uv_j{i}"))
+        agg: exp.Expression
         if cut.kind == "quantile":
             reached = s.gte(s.div(c_i.copy(), wt.copy()), _level(cut, s.col("_uv_nt")))
             agg = s.agg_min(s.case(s.and_(mine, reached), x.copy()))
@@ -362,8 +370,8 @@ def lower_refine_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
         if cut.kind != "quantile":
             cut_cols += [s.alias(at("_uv_cp"), f"_uv_cp{i}"), s.alias(at("_uv_wb"), f"_uv_wb{i}"),
                          s.alias(at("_uv_sp" if cut.kind == "below" else "_uv_sn"), f"_uv_s{i}")]
-        cut_cols += [s.alias(s.agg_min(s.case(exp.EQ(this=b.copy(), expression=j.copy()), s.col("_uv_lo"))), f"_uv_lo{i}"),
-                     s.alias(at("_uv_hi"), f"_uv_hi{i}")]
+        low = s.agg_min(s.case(exp.EQ(this=b.copy(), expression=j.copy()), s.col("_uv_lo")))
+        cut_cols += [s.alias(low, f"_uv_lo{i}"), s.alias(at("_uv_hi"), f"_uv_hi{i}")]
     cuts = exp.Select(expressions=cut_cols).from_(table(f"{name}_mark"))
     if keys:
         cuts.set("group", exp.Group(expressions=group()))
@@ -413,6 +421,7 @@ PREFIX = "ref"
 
 
 def lower(source: Source, main, plan, name: str | None, settings) -> tuple[list[exp.CTE], dict]:
+    assert name is not None  # a pass with a PREFIX is given its CTE name
     return lower_refine_pass(source, main, plan, name)
 
 
