@@ -340,6 +340,15 @@ def test_sqlalchemy_engine_and_connection(tmp_path):
     with eng.connect() as c:
         assert close(uneven.query("SELECT gini(x) AS g FROM t", c)["g"].iloc[0], 56 / 128)
     assert eng.pool.checkedout() == 0  # the connection taken from the pool went back
+    # the report takes its connection from the pool the same way, and gives it back
+    from uneven.report import report_data
+    data = report_data("t", "x", points=4, con=eng)
+    assert close(data.groups[0].values["gini"], 56 / 128)
+    assert eng.pool.checkedout() == 0
+    raw = sqlite3.connect(path)  # the caller's own driver connection stays open after the report
+    report_data("t", "x", points=4, con=raw)
+    assert raw.execute("SELECT count(*) FROM t").fetchone()[0] == 4
+    raw.close()
 
 
 def test_sqlalchemy_over_postgres():

@@ -82,9 +82,10 @@ def make_spec(con: duckdb.DuckDBPyConnection | Adapter, source, value: str, weig
 
 
 def open_connection(con=None, **settings) -> tuple[duckdb.DuckDBPyConnection | Adapter, bool]:
-    """The connection to use and whether we opened it (and so must close it). Another engine's
-    adapter (engine/adapters) is used as it is: its settings are its own; DuckDB settings given with
-    another engine's connection are an error."""
+    """The connection to use and whether we must close it when done. Another engine's adapter
+    (engine/adapters) is used as it is: its settings are its own; DuckDB settings given with another
+    engine's connection are an error. An adapter made here for a driver connection is closed too:
+    that leaves the caller's connection open and gives a SQLAlchemy pool its connection back."""
     if isinstance(con, Adapter):
         return con, False
     if con is not None and not is_duckdb(con):
@@ -95,7 +96,7 @@ def open_connection(con=None, **settings) -> tuple[duckdb.DuckDBPyConnection | A
             what = "is a DuckDB setting" if len(given) == 1 else "are DuckDB settings"
             raise UnevenError(f"{', '.join(given)} {what}; it does not apply to {adapter.label}: "
                               f"set {adapter.label}'s own options on its connection instead")
-        return adapter, False
+        return adapter, True
     owned = con is None
     progress = False
     if not owned:  # keep the caller's progress setting (a progress line may be reading it)
