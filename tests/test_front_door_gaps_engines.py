@@ -83,7 +83,10 @@ def test_cli_explain_profile_with_engine_url(loaded, tmp_path, capsys):
     sql = "SELECT grp, gini(x, w) AS g FROM t_fd GROUP BY grp"
     assert main(["explain", "--profile", "--engine", url, sql]) == 0
     text = capsys.readouterr().out
-    assert "ordered" in text  # the pass the planner chose
+    # the pass the planner chose: on DuckDB, which uneven runs itself, auto streams a weighted pass
+    # that needs the full order (docs/plans.md); other engines run the compiled window plan
+    kind = "stream" if loaded.name == "duckdb" else "ordered"
+    assert kind in text
     if loaded.name == "duckdb":
         assert "4 result rows" in text and "s in DuckDB" in text
     else:
@@ -92,7 +95,7 @@ def test_cli_explain_profile_with_engine_url(loaded, tmp_path, capsys):
         assert "actual time" in text  # EXPLAIN (ANALYZE, BUFFERS)
     assert main(["explain", "--profile", "--json", "--engine", url, sql]) == 0
     doc = json.loads(capsys.readouterr().out)
-    assert [p["kind"] for p in doc["passes"]] == ["ordered"]
+    assert [p["kind"] for p in doc["passes"]] == [kind]
     assert doc["result_rows"] == 4 and doc["total_seconds"] > 0
 
 

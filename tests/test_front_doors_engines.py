@@ -39,7 +39,8 @@ def close(a, b, rel=1e-9) -> bool:
 
 def test_explain_with_profile_runs_the_query_once(loaded):
     found = uneven.explain("SELECT grp, gini(x, w) FROM t_fd GROUP BY grp", con_of(loaded), profile=True)
-    assert [p["kind"] for p in found.passes] == ["ordered"]
+    # on DuckDB, which uneven runs itself, auto streams a weighted pass that needs the full order
+    assert [p["kind"] for p in found.passes] == ["stream" if loaded.name == "duckdb" else "ordered"]
     assert found.total_seconds is not None and found.total_seconds > 0
     if loaded.name == "duckdb":
         assert found.operators  # DuckDB's profiler: time per operator
