@@ -21,14 +21,12 @@ from uneven.compiler.passes.line import window_ctes
 from uneven.compiler.passes.source import (
     Source,
     build_results,
-    checked_value,
-    checked_weight,
+    checked_rows,
     cte,
     finite_or_null,
     grouped,
     key_name,
     table,
-    weight_label,
 )
 from uneven.sqltree import build as s
 
@@ -152,12 +150,7 @@ def lower_ordered_pass(source: Source, main, plan, name: str) -> tuple[list[exp.
     out_cols, results = build_results(calls, ctx, name)
 
     xd = s.cast_double(x.copy())
-    proj = source.key_projections() + [s.named(checked_value(x, weight_label(x), source.keys), "_uv_x")]
-    cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
-    if w is not None:
-        cw = checked_weight(w, weight_label(w), source.keys)
-        proj.append(s.named(cw, "_uv_w"))
-        cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
+    proj, cond = checked_rows(source, x, w, condition)
     rows = source.rows(proj, cond)
 
     keys: list[exp.Expression] = list(source.key_columns())

@@ -32,13 +32,11 @@ from uneven.catalog.spec import PassKind
 from uneven.compiler.passes import refine_se as se
 from uneven.compiler.passes.source import (
     Source,
-    checked_value,
-    checked_weight,
+    checked_rows,
     cte,
     finite_or_null,
     key_name,
     table,
-    weight_label,
 )
 from uneven.sqltree import build as s
 
@@ -207,12 +205,7 @@ def bin_key(x: exp.Expression) -> exp.Expression:
 def _rows(source: Source, plan) -> exp.Subquery:
     """(SELECT keys, x, w, b FROM (the pass's valid rows)) AS _uv_r — built anew for each use."""
     x, w, condition = plan.x, plan.trailing, plan.condition
-    proj = source.key_projections() + [s.alias(checked_value(x, weight_label(x), source.keys), "_uv_x")]
-    cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
-    if w is not None:
-        cw = checked_weight(w, weight_label(w), source.keys)
-        proj.append(s.alias(cw, "_uv_w"))
-        cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
+    proj, cond = checked_rows(source, x, w, condition)
     inner = exp.Subquery(this=source.rows(proj, cond),
                          alias=exp.TableAlias(this=exp.to_identifier("_uv_v", quoted=True)))
     cols = source.key_columns() + [s.col("_uv_x")] + ([s.col("_uv_w")] if w is not None else [])

@@ -67,6 +67,20 @@ def checked_value(x: exp.Expression, label: str, keys: Sequence[exp.Expression] 
                   xd.copy())
 
 
+def checked_rows(source: Source, x: exp.Expression, w: exp.Expression | None,
+                 condition: exp.Expression | None) -> tuple[list[exp.Expression], exp.Expression]:
+    """(projections, row condition) of a pass that orders its rows by value (ordered, refine, stream):
+    the group keys, x checked as ``_uv_x`` and w checked as ``_uv_w`` (the input policy's errors name
+    the row's group); rows within ``condition`` (a FILTER) whose value is not NULL and weight > 0."""
+    proj = source.key_projections() + [s.named(checked_value(x, weight_label(x), source.keys), "_uv_x")]
+    cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
+    if w is not None:
+        cw = checked_weight(w, weight_label(w), source.keys)
+        proj.append(s.named(cw, "_uv_w"))
+        cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
+    return proj, cond
+
+
 def value_weight_rows(x: exp.Expression, w: exp.Expression | None, condition: exp.Expression | None,
                       weight_name: str = "_uv_w") -> tuple[list[exp.Expression], exp.Expression]:
     """(projections, row condition) of a pass that reads (value, weight) rows: x as DOUBLE ``_uv_x``

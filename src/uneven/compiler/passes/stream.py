@@ -24,10 +24,8 @@ from uneven.catalog.kernels import TOTAL_NEEDS, Need, Recorder
 from uneven.catalog.spec import PassKind
 from uneven.compiler.passes.source import (
     Source,
-    checked_value,
-    checked_weight,
+    checked_rows,
     key_name,
-    weight_label,
 )
 from uneven.sqltree import build as s
 
@@ -53,12 +51,7 @@ def _ordered(select: exp.Select, columns: list[str]) -> exp.Select:
 def lower_stream_pass(source: Source, plan, name: str) -> tuple[list[exp.CTE], dict]:
     x, w, condition = plan.x, plan.trailing, plan.condition
     keys = [key_name(i) for i in range(len(source.keys))]
-    proj = source.key_projections() + [s.named(checked_value(x, weight_label(x), source.keys), "_uv_x")]
-    cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
-    if w is not None:
-        cw = checked_weight(w, weight_label(w), source.keys)
-        proj.append(s.named(cw, "_uv_w"))
-        cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
+    proj, cond = checked_rows(source, x, w, condition)
     rows = source.rows(proj, cond)
     with_ = source.select.args.get("with_")
     recorder = Recorder()
