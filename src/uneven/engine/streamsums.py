@@ -258,7 +258,8 @@ class StreamState:
                 segs = np.diff(np.append(seg, len(x)))
                 wt = np.repeat(self.totals[gidx], segs)
                 ww = w if w is not None else 1.0
-                p = float(need.p)  # type: ignore[arg-type]
+                assert need.p is not None  # a cut (quantile, below, above) always has its p
+                p = float(need.p)
                 if need.name == "quantile":
                     with np.errstate(divide="ignore", invalid="ignore"):
                         reached = c / wt >= p
@@ -274,7 +275,8 @@ class StreamState:
 
     def _chunks(self, need: Need, x, w, c, seg, gidx, carried) -> np.ndarray:
         """A user kernel's state per segment: started from the group's totals, or carried on."""
-        assert need.kernel is not None and self.totals is not None
+        assert need.kernel is not None and self.totals is not None  # a kernel's pass reads the totals first
+        assert self.totals_t is not None and self.totals_n is not None
         kernel, params = need.kernel, need.params
         bounds = np.append(seg, len(x))
         states = np.empty(len(seg), dtype=object)
@@ -284,8 +286,7 @@ class StreamState:
             if j == 0 and carried is not None:
                 state = carried[need]
             else:
-                state = kernel.start(float(self.totals[g]), float(self.totals_t[g]),  # type: ignore[index]
-                                     int(self.totals_n[g]), *params)  # type: ignore[index]
+                state = kernel.start(float(self.totals[g]), float(self.totals_t[g]), int(self.totals_n[g]), *params)
             ww = w[lo:hi] if w is not None else np.ones(hi - lo)
             states[j] = kernel.update(state, x[lo:hi], ww, c[lo:hi], *params)
         return states
