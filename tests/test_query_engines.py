@@ -186,8 +186,10 @@ def test_an_unknown_connection_is_refused_by_name():
 
 def test_duckdb_settings_do_not_apply_elsewhere():
     con = sqlite3.connect(":memory:")
-    with pytest.raises(uneven.UnevenError, match="memory_limit is a DuckDB setting"):
+    with pytest.raises(uneven.UnevenError, match="memory_limit is a DuckDB setting; it does not apply to SQLite"):
         uneven.query("SELECT 1", con, memory_limit="1GB")
+    with pytest.raises(uneven.UnevenError, match="threads, temp_directory are DuckDB settings; .* SQLite's own"):
+        uneven.explain("SELECT 1", con, threads=2, temp_directory="/tmp")
 
 
 def test_sqlite_functions_installed_on_first_use_and_again_harmlessly():

@@ -31,8 +31,12 @@ def session(con=None, sql: str = "", caller: types.FrameType | None = None, *, m
     settings = {"memory_limit": memory_limit, "threads": threads, "temp_directory": temp_directory,
                 "progress": progress}
     if not is_duckdb(con):
-        check_duckdb_settings(**settings)
         adapter = adapt(con)
+        try:
+            check_duckdb_settings(adapter.label, **settings)
+        except UnevenError:
+            adapter.close()  # an adapter made here (a SQLAlchemy pool's connection goes back)
+            raise
         registered = register_frames_on(adapter, sql, caller)
         try:
             yield adapter
@@ -52,8 +56,9 @@ def session(con=None, sql: str = "", caller: types.FrameType | None = None, *, m
             connection.close()
 
 
-def check_duckdb_settings(**settings) -> None:
+def check_duckdb_settings(engine: str, **settings) -> None:
+    """Refuse DuckDB settings given with another engine's connection, naming that engine."""
     given = [name for name, value in settings.items() if value not in (None, False)]
     if given:
         raise UnevenError(f"{', '.join(given)} {'is a DuckDB setting' if len(given) == 1 else 'are DuckDB settings'}"
-                          "; set the other engine's own options on its connection instead")
+                          f"; it does not apply to {engine}: set {engine}'s own options on its connection instead")
