@@ -23,7 +23,8 @@ from sqlglot import exp
 from uneven.errors import UnevenError
 from uneven.report import dominance as dom
 from uneven.report.lorenz import check_points
-from uneven.report.query import Spec, alias, call, group_label, run_tree
+from uneven.report.query import Spec, call, group_label, run_tree
+from uneven.sqltree import build as s
 from uneven.tables.dominance import Dominance
 
 MAX_CURVES = 12  # curves per chart; with more groups the charts show the most and least unequal
@@ -152,10 +153,10 @@ def _latest_filter(spec: Spec) -> exp.Expression:
 
 def measures_select(spec: Spec, columns: list[Column], points: int, keys: bool = True) -> exp.Select:
     items: list[exp.Expression] = [k.copy() for k in spec.keys] if keys else []
-    items += [alias(c.build(spec), f"_uv_c_{c.key}") for c in columns]
-    items += [alias(b(spec), f"_uv_c_{c.key}_{end}") for c in columns if c.interval
+    items += [s.alias(c.build(spec), f"_uv_c_{c.key}") for c in columns]
+    items += [s.alias(b(spec), f"_uv_c_{c.key}_{end}") for c in columns if c.interval
               for end, b in zip(("lo", "hi"), c.interval)]
-    items.append(alias(call("lorenz_curve", spec.value, points, weight=spec.weight), "_uv_curve"))
+    items.append(s.alias(call("lorenz_curve", spec.value, points, weight=spec.weight), "_uv_curve"))
     q = exp.select(*items).from_(spec.source.from_.copy())
     if spec.time is not None:
         q = q.where(_latest_filter(spec))
@@ -167,7 +168,7 @@ def measures_select(spec: Spec, columns: list[Column], points: int, keys: bool =
 def trend_select(spec: Spec) -> exp.Select:
     assert spec.time is not None  # the trend is read only with a time column
     keys = [k.copy() for k in spec.keys] + [spec.time.copy()]
-    q = exp.select(*keys, alias(call("gini", spec.value, weight=spec.weight), "_uv_gini")).from_(
+    q = exp.select(*keys, s.alias(call("gini", spec.value, weight=spec.weight), "_uv_gini")).from_(
         spec.source.from_.copy()).group_by(*[k.copy() for k in keys])
     return q.order_by(*[exp.Ordered(this=k.copy(), nulls_first=False) for k in keys])
 

@@ -15,7 +15,8 @@ import pandas as pd
 from sqlglot import exp
 
 from uneven.errors import UnevenError
-from uneven.report.query import Spec, alias, call, make_spec, open_connection, run_tree
+from uneven.report.query import Spec, call, make_spec, open_connection, run_tree
+from uneven.sqltree import build as s
 
 POINT_COLUMNS = ("p", "lorenz", "generalized_lorenz")
 MAX_POINTS = 1000  # the catalog's limit for lorenz_curve's k
@@ -31,8 +32,8 @@ def check_points(points) -> int:
 def curve_select(spec: Spec, points: int) -> exp.Select:
     """The query tree: one row per group with its curve (``_uv_curve``) and mean (``_uv_mean``)."""
     keys = [k.copy() for k in spec.keys]
-    q = exp.select(*keys, alias(call("lorenz_curve", spec.value, points, weight=spec.weight), "_uv_curve"),
-                   alias(call("generalized_lorenz", spec.value, 1.0, weight=spec.weight), "_uv_mean"),
+    q = exp.select(*keys, s.alias(call("lorenz_curve", spec.value, points, weight=spec.weight), "_uv_curve"),
+                   s.alias(call("generalized_lorenz", spec.value, 1.0, weight=spec.weight), "_uv_mean"),
                    ).from_(spec.source.from_.copy())
     if keys:
         q = q.group_by(*[k.copy() for k in keys]).order_by(

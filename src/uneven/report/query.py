@@ -19,7 +19,6 @@ from uneven.engine.runner import connect
 from uneven.engine.stream import execute_streamed
 from uneven.errors import UnevenError
 from uneven.report.source import Source, resolve_source
-from uneven.sqltree import build as s
 
 
 def as_list(by) -> list[str]:
@@ -38,10 +37,6 @@ def call(name: str, value: exp.Expression, *params: float, weight: exp.Expressio
     if weight is not None:
         args.append(weight.copy())
     return exp.Anonymous(this=name, expressions=args)
-
-
-def alias(e: exp.Expression, name: str) -> exp.Alias:
-    return s.alias(e, name)
 
 
 def run_tree(con: duckdb.DuckDBPyConnection | Adapter, tree: exp.Expression) -> pd.DataFrame:
