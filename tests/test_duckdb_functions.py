@@ -294,3 +294,78 @@ def test_the_list_budget_follows_memory_limit():
     assert c.execute(f"SELECT gini(i + 1) FROM range({n}) r(i)").fetchone()[0] == pytest.approx(pairwise, rel=1e-12)
     assert pairwise == pytest.approx((n - 1) / (3 * n), rel=1e-12)
     c.close()
+
+
+def _entity_frame() -> pd.DataFrame:
+    """Groups that exercise the entity forms: one entity, two, many (with zero values), tied totals,
+    NULL entities and values, a negative entity total (NULL), mixed signs with a positive total."""
+    rng = np.random.default_rng(18)
+    parts = [
+        pd.DataFrame({"grp": "one", "x": [1.5, 2.5, 4.0], "e": ["a", "a", "a"]}),
+        pd.DataFrame({"grp": "two", "x": [3.0, 1.0, 2.0, 0.0], "e": ["b", "a", "a", "b"]}),
+        pd.DataFrame({"grp": "many", "x": np.where(rng.random(3000) < 0.1, 0.0, rng.lognormal(1.0, 1.5, 3000)),
+                      "e": [f"f{i}" for i in rng.integers(0, 700, 3000)]}),
+        # four entities of total 6 and two of total 2: cr(x, 3, e) cuts through the tie
+        pd.DataFrame({"grp": "ties", "x": [1.0, 5.0, 2.0, 4.0, 3.0, 3.0, 6.0, 2.0, 1.0, 1.0],
+                      "e": ["p", "p", "q", "q", "r", "r", "s", "t", "u", "u"]}),
+        pd.DataFrame({"grp": "nulls", "x": [1.0, None, 4.0, 2.0, 7.0, None],
+                      "e": ["a", "a", None, "b", None, "c"]}),
+        pd.DataFrame({"grp": "zeros", "x": [0.0, 0.0, 0.0], "e": ["a", "b", "b"]}),
+        pd.DataFrame({"grp": "negative", "x": [5.0, -2.0, -1.0, 3.0], "e": ["a", "b", "b", "c"]}),
+        pd.DataFrame({"grp": "mixed", "x": [5.0, -2.0, 3.0, 1.0, 4.0], "e": ["a", "a", "b", "b", "c"]}),
+    ]
+    df = pd.concat(parts, ignore_index=True)
+    df["x"] = df["x"].astype("Float64")
+    return df
+
+
+@pytest.mark.parametrize("call,ref", [("hhi(x, e)", lambda x, e: uneven.reference.hhi(x, e)),
+                                      ("cr(x, 1, e)", lambda x, e: uneven.reference.cr(x, 1, e)),
+                                      ("cr(x, 3, e)", lambda x, e: uneven.reference.cr(x, 3, e)),
+                                      ("cr(x, 50, e)", lambda x, e: uneven.reference.cr(x, 50, e))])
+@pytest.mark.parametrize("key_type", ["varchar", "integer"])
+def test_entity_forms_equal_compiler_and_reference(call, ref, key_type):
+    # the entity totals of the macro (running sums restarting at each entity) against the compiled
+    # entity pass (GROUP BY entity, 1e-12) and the numpy reference (uneven.reference: exact sums per
+    # entity; rows with a NULL value or entity left out, as the SQL aggregate convention skips them)
+    df = _entity_frame()
+    c = duckdb.connect()
+    c.register("frame", df)
+    entity = "e" if key_type == "varchar" else "CAST(hash(e) % 100000 AS INTEGER)"
+    c.execute(f"CREATE TABLE t AS SELECT grp, x, {entity} AS e FROM frame")
+    c.unregister("frame")
+    uneven.install(c)
+    sql = f"SELECT grp, {call} AS v FROM t GROUP BY grp"
+    registered = _rows(c.execute(sql).fetchdf())
+    compiled = _rows(uneven.query(sql, con=c))
+    assert set(registered) == set(compiled) == set(df["grp"])
+    for key in compiled:
+        assert _agree(registered[key], compiled[key]), (key, registered[key], compiled[key])
+    table = c.execute("SELECT grp, x, e FROM t WHERE x IS NOT NULL AND e IS NOT NULL").fetchdf()
+    for key in compiled:
+        part = table[table["grp"] == key]
+        want = ref(part["x"].to_numpy(float), part["e"].to_list()) if len(part) else None
+        assert _agree(registered[key], want), (key, registered[key], want)
+    # the outcomes the groups were built for: NULL without a positive total or with a negative entity
+    assert registered["zeros"] is None and registered["negative"] is None and registered["mixed"] is not None
+    c.close()
+
+
+def test_entity_totals_restart_at_each_entity():
+    # _uv_segment_scan against plain numpy: the running sum of each run of equal keys (np.cumsum per
+    # run), on runs of length 1 to 40 so that every doubling stride crosses run boundaries
+    rng = np.random.default_rng(7)
+    lengths = rng.integers(1, 41, 300)
+    keys = np.repeat(np.arange(lengths.size), lengths)
+    values = rng.normal(size=keys.size)
+    c = duckdb.connect()
+    uneven.install(c, measures=["hhi"])
+    got = c.execute("SELECT _uv_segment_scan(?::DOUBLE[], ?::BIGINT[], ?)",
+                    [values.tolist(), keys.tolist(), int(keys.size)]).fetchone()[0]
+    starts = np.concatenate([[0], np.cumsum(lengths)[:-1]])
+    want = np.concatenate([np.cumsum(values[s:s + n]) for s, n in zip(starts, lengths)])
+    assert np.allclose(got, want, rtol=1e-12, atol=1e-12)
+    # one element and none
+    assert c.execute("SELECT _uv_segment_scan([2.5], [1], 1)").fetchone()[0] == [2.5]
+    assert c.execute("SELECT _uv_segment_scan([]::DOUBLE[], []::INTEGER[], 0)").fetchone()[0] == []
+    c.close()

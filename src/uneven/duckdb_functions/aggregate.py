@@ -11,8 +11,9 @@ uses, written against contexts whose columns are list elements instead of window
   is held in memory.
 * centred pass (cv, hoover): the group mean from streaming sums, the deviations over a list of the
   group's values (in memory).
-* entity pass (hhi with an entity, cr): the group's values (with their entity) in a list, summed per
-  entity and sorted (in memory).
+* entity pass (hhi with an entity, cr): the group's values (with their entity) in a list sorted by
+  entity, summed per entity by running sums that restart at each entity (n·log n), the totals sorted
+  (in memory).
 
 Rows are skipped and groups give NULL exactly as in the compiled SQL (the same builds); a negative
 weight, a text value or weight and an out-of-range parameter stop the query with an error naming
@@ -267,6 +268,10 @@ def _entity_totals(measure: Measure, x: exp.Expression, with_entity: bool) -> ex
                      s.and_(s.not_null(L.var("x")), s.not_null(L.var("entity"))))
     lst = L.var("_uv_r")
     i = L.var(I)
+    # the rows are sorted by entity: running sums restart at each entity (_uv_segment_scan, n·log n),
+    # and the last row of each entity holds its total
+    sums = L.call(L.SEGMENT_SCAN, L.transform(lst.copy(), [E], L.field(L.var(E), "_uv_x")),
+                  L.transform(lst.copy(), [E], L.field(L.var(E), "_uv_k")), L.call("len", lst.copy()))
     following = L.field(L.element(lst.copy(), s.add(i.copy(), exp.Literal.number(1))), "_uv_k")
     last = exp.Or(this=exp.EQ(this=i, expression=L.call("len", lst.copy())),
                   expression=exp.NullSafeNEQ(this=L.field(L.element(lst.copy(), i.copy()), "_uv_k"),
@@ -274,13 +279,8 @@ def _entity_totals(measure: Measure, x: exp.Expression, with_entity: bool) -> ex
     ends = L.call("list_filter", L.call("range", exp.Literal.number(1), s.add(L.call("len", lst.copy()),
                                                                               exp.Literal.number(1))),
                   L.lam([I], last))
-    b = L.var("_uv_b")
-    start = s.add(exp.Coalesce(this=L.element(L.var("_uv_j"), s.sub(i.copy(), exp.Literal.number(1))),
-                               expressions=[exp.Literal.number(0)]), exp.Literal.number(1))
-    segment = L.call("list_slice", lst.copy(), start, b)
-    total = L.call("list_sum", L.transform(segment, [E], L.field(L.var(E), "_uv_x")))
-    totals = L.call("list_reverse_sort", L.transform(L.var("_uv_j"), ["_uv_b", I], total))
-    return L.bind(rows, "_uv_r", guard_rows(measure, "entity", lst.copy(), L.bind(ends, "_uv_j", totals)))
+    totals = L.call("list_reverse_sort", L.transform(ends, ["_uv_b"], L.element(L.var("_uv_s"), L.var("_uv_b"))))
+    return L.bind(rows, "_uv_r", guard_rows(measure, "entity", lst.copy(), L.bind(sums, "_uv_s", totals)))
 
 
 def param_checks(measure: Measure, body: exp.Expression) -> exp.Expression:

@@ -68,7 +68,8 @@ def has_aggregate_macro(m: Measure) -> bool:
 
 def definitions(measures: list[Measure] | None = None) -> list[Definition]:
     """Every CREATE MACRO statement, helpers first, then per measure its aggregate and table forms."""
-    out = [Definition(c.this.this.name, "helper", None, c) for c in [*L.scan_macros(), L.budget_macro()]]
+    helpers = [*L.scan_macros(), *L.segment_scan_macros(), L.budget_macro()]
+    out = [Definition(c.this.this.name, "helper", None, c) for c in helpers]
     out.append(Definition("equivalised", "scalar", None, equivalised_macro()))
     for m in (measures if measures is not None else list(MEASURES.values())):
         if not has_macros(m):

@@ -7,6 +7,7 @@ from sqlglot import exp
 from uneven.sqltree import build as s
 
 SCAN = "_uv_scan"
+SEGMENT_SCAN = "_uv_segment_scan"
 BUDGET = "_uv_list_budget"
 BUDGET_VARIABLE = "uneven_list_rows"  # SET VARIABLE uneven_list_rows = N: the rows a list form may hold (0: any)
 UNITS = ["bytes", "KiB", "MiB", "GiB", "TiB", "PiB", "EiB"]  # how current_setting('memory_limit') prints
@@ -79,6 +80,31 @@ def scan_macros() -> list[exp.Create]:
                      lam(["_uv_j"], s.lt(power, var("n"))))
     strides = transform(exponents, ["_uv_j"], exp.Array(expressions=[power.copy()]))
     return [macro(SCAN, [(["q", "n"], call("list_reduce", strides, step, var("q")))])]
+
+
+def segment_scan_macros() -> list[exp.Create]:
+    """Helper macro ``_uv_segment_scan(q, keys, n)``: prefix sums of the doubles ``q`` that restart
+    wherever ``keys`` changes, for a list where equal keys are adjacent (sorted by key). The same
+    doubling as ``_uv_scan``, with one more test per step: after the step of stride ``d`` element
+    ``i`` holds the sum of the elements in (i − 2d, i] with its key, because element ``i − d`` covers
+    (i − 2d, i − d] with its own key, which is ``i``'s key exactly when it is added (equal keys are
+    adjacent: an element before ``i`` with another key has no element of ``i``'s key before it).
+    The last element of each run of a key then holds that key's total: n·log n work, where a slice
+    per key copies the whole list each time (quadratic in the number of keys). ``keys`` is bound
+    once by a lambda (a macro argument is substituted as text: read inside the step it would be
+    rebuilt for every element)."""
+    acc, d, v, i, k = var("_uv_acc"), var("_uv_d"), var("_uv_v"), var("_uv_i"), var("_uv_k")
+    stride = element(d, exp.Literal.number(1))
+    back = s.sub(i.copy(), stride.copy())
+    same = exp.NullSafeEQ(this=element(k.copy(), back.copy()), expression=element(k.copy(), i.copy()))
+    added = s.case(s.and_(s.gt(i, stride), same), s.add(v, element(acc, back.copy())), v.copy())
+    step = lam(["_uv_acc", "_uv_d"], transform(acc.copy(), ["_uv_v", "_uv_i"], added))
+    power = exp.cast(exp.Pow(this=exp.Literal.number(2), expression=var("_uv_j")), exp.DataType.build("bigint"))
+    exponents = call("list_filter", call("range", exp.Literal.number(0), exp.Literal.number(SCAN_STEPS)),
+                     lam(["_uv_j"], s.lt(power, var("n"))))
+    strides = transform(exponents, ["_uv_j"], exp.Array(expressions=[power.copy()]))
+    body = bind(var("keys"), "_uv_k", call("list_reduce", strides, step, var("q")))
+    return [macro(SEGMENT_SCAN, [(["q", "keys", "n"], body)])]
 
 
 def budget_macro() -> exp.Create:
