@@ -2,6 +2,7 @@
 
     python bench/installed_memory.py                              # 2M rows in one group, memory_limit 300MB
     python bench/installed_memory.py --rows 500000 --cases gini_w,collect_struct
+    python bench/installed_memory.py --rows 1000000 --entities 10000,100000,1000000 --cases hhi_e,cr_e --no-guard
 
 Each case runs in a fresh child process, one at a time: the child creates a table of N rows in one
 group (lognormal-like values exp(2u), weights 1..3), sets ``memory_limit``, installs the macros and
@@ -12,7 +13,8 @@ reads its resident set (VmRSS) before the query and its peak (VmHWM) after it. B
 Cases: ``scan`` (count and sum), ``collect`` (``len(list(x ORDER BY x))``), ``collect_struct``
 (the same over ``{x, w}`` structs, what the ordered macros collect), ``gini_u`` / ``gini_w`` (the
 aggregate macros), ``cv_w``, ``ge_w``, ``atkinson_w`` (the centred list form), ``theil_w``, ``palma_w``,
-``wolfson_w``, ``hhi_e`` / ``cr_e`` (entity totals of 100,000 entities),
+``wolfson_w``, ``hhi_e`` / ``cr_e`` (entity totals; ``--entities`` sets how many entities the group
+holds, a list runs each case once per count, default 100,000),
 ``gini_by`` (the table form: the window plan).
 """
 
@@ -49,7 +51,7 @@ CHILD = textwrap.dedent("""
     import json, sys, time
     sys.path.insert(0, {src!r})
     import duckdb, uneven
-    n, limit, threads, query, guard = {n!r}, {limit!r}, {threads!r}, {query!r}, {guard!r}
+    n, limit, threads, query, guard, entities = {n!r}, {limit!r}, {threads!r}, {query!r}, {guard!r}, {entities!r}
     def status(key):
         line = [l for l in open("/proc/self/status") if l.startswith(key)][0]
         return int(line.split()[1]) * 1024
@@ -57,7 +59,7 @@ CHILD = textwrap.dedent("""
     con.execute("SET threads = " + str(threads))
     con.execute("SET enable_progress_bar = false")
     con.execute("CREATE TABLE t AS SELECT 0 AS grp, exp(random() * 2) AS x, CAST(1 + (i % 3) AS DOUBLE) AS w, "
-                "i % 100000 AS e FROM range(" + str(n) + ") r(i)")
+                "i % " + str(entities) + " AS e FROM range(" + str(n) + ") r(i)")
     con.execute("SET memory_limit = '" + limit + "'")
     uneven.install(con)
     if not guard:
@@ -78,9 +80,12 @@ CHILD = textwrap.dedent("""
 """)
 
 
-def run(case: str, n: int, limit: str, threads: int, guard: bool, timeout: float) -> dict:
-    code = CHILD.format(src=SRC, n=n, limit=limit, threads=threads, query=QUERIES[case], guard=guard)
+def run(case: str, n: int, limit: str, threads: int, guard: bool, timeout: float, entities: int = 100_000) -> dict:
+    code = CHILD.format(src=SRC, n=n, limit=limit, threads=threads, query=QUERIES[case], guard=guard,
+                        entities=entities)
     head = dict(case=case, rows=n, memory_limit=limit, guard=guard)
+    if case.endswith("_e"):
+        head["entities"] = entities
     try:
         out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=timeout)
     except subprocess.TimeoutExpired:
@@ -98,12 +103,15 @@ def main(argv=None) -> int:
     ap.add_argument("--cases", default=",".join(QUERIES))
     ap.add_argument("--no-guard", action="store_true", help="turn the installed functions' row budget off")
     ap.add_argument("--timeout", type=float, default=600)
+    ap.add_argument("--entities", default="100000", help="entities in the group for hhi_e/cr_e (a comma list)")
     args = ap.parse_args(argv)
     results = []
     for case in args.cases.split(","):
-        r = run(case, args.rows, args.memory_limit, args.threads, not args.no_guard, args.timeout)
-        print(json.dumps(r), flush=True)
-        results.append(r)
+        counts = [int(e) for e in args.entities.split(",")] if case.endswith("_e") else [100_000]
+        for entities in counts:
+            r = run(case, args.rows, args.memory_limit, args.threads, not args.no_guard, args.timeout, entities)
+            print(json.dumps(r), flush=True)
+            results.append(r)
     out = HERE / "results" / "installed_memory.json"
     out.parent.mkdir(exist_ok=True)
     out.write_text(json.dumps(results, indent=1))

@@ -191,6 +191,8 @@ def checked_numeric(arg: exp.Expression, name: str, what: str) -> exp.Expression
 # bench/README.md, "Installed functions: memory"), rounded up. A group with more rows than
 # memory_limit / bytes stops with an error pointing to the table form, so the lists stay within about
 # the memory limit on top of what DuckDB itself counts.
+# The entity forms (restarting prefix sums over the {entity, x} list) measured 58–228 on 1M rows with
+# 10,000 to 1,000,000 entities.
 LIST_BYTES_PER_ROW = {"ordered": 240, "centred": 120, "entity": 240}
 LIST_BYTES_MEASURE = {"wolfson": 400}  # measured above the pass's figure
 
