@@ -129,7 +129,7 @@ def bench_file(label: str, path: Path, cases: list[str], limits: dict[str, str],
                   f"point error {c['max_point_error']:.3g}", flush=True)
         if case in results:
             for base in ("exact", "sort", "scan", "bounded_before"):
-                if base in results:
+                if base in results and base != case:
                     ratio = results[case]["seconds"] / results[base]["seconds"]
                     results[case][f"ratio_{base}"] = ratio
                     print(f"{label:6} {case} / {base}: {ratio:.3f}", flush=True)

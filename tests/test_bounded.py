@@ -324,3 +324,13 @@ def test_nan_or_infinite_value_stops_the_bounded_query():
             with pytest.raises(uneven.InputDataError, match=r"NaN or infinite value in the value argument x "
                                                             r"\(the group g=a\)"):
                 uneven.query(f"SELECT g, gini(x) FROM {source} GROUP BY g", method=method)
+
+
+def test_nan_or_infinite_value_stops_a_stored_summary():
+    # summarize() reads the same checked value as the query's summary pass (docs/input-policy.md)
+    t = pd.DataFrame({"g": ["a", "a", "b"], "x": [1.0, math.inf, 3.0], "w": [1.0, 2.0, 1.0]})  # noqa: F841
+    with pytest.raises(uneven.InputDataError, match=r"NaN or infinite value in the value argument x \(the group g=a\)"):
+        uneven.summarize("t", "x", "w", by=["g"])
+    t2 = pd.DataFrame({"g": ["a", "b"], "x": [1.0, 3.0], "w": [1.0, -2.0]})  # noqa: F841
+    with pytest.raises(uneven.InputDataError, match=r"negative weight in the weight argument w \(the group g=b\)"):
+        uneven.summarize("t2", "x", "w", by=["g"])
