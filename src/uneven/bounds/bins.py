@@ -6,9 +6,11 @@ values are binned the same way on −x (``uv_sign`` = −1, mirrored), zeros hav
 (``uv_sign`` = 0). The bin index is only a grouping key: every bound works from what the bin
 *stores* (its exact min and max, weight and sums), so bins computed by engines whose LN rounds
 differently at an edge, or summaries at different resolutions, still give valid bounds once
-overlapping bins are joined (``lower.py``).
+overlapping bins are joined (``lower.py``). A stored summary keeps the pair (``uv_sign``, ``uv_bin``);
+the summary pass inside a query groups on the same bins through one BIGINT key (``bin_key``).
 
-Each bin keeps, over its rows (NULL x or weight, and zero weights, skipped):
+Each bin keeps, over its rows (NULL x or weight, and zero weights, skipped), what the measures
+read of (a stored summary keeps them all):
     uv_n      row count                 uv_w      Σw              uv_wx     Σw·x
     uv_min    smallest x                uv_max    largest x       uv_wx2    Σw·x²
     uv_wlnx   Σw·ln x  (x > 0 rows)     uv_wxlnx  Σw·x·ln x  (x > 0 rows)
