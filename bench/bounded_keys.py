@@ -9,7 +9,8 @@ Cases, interleaved (a load that drifts touches them alike), the fastest of --rep
 
   scan         SELECT grp, sum(x), sum(w), count(*) FROM f GROUP BY grp
   sort         SELECT max(w) FROM (SELECT grp, x, w FROM f ORDER BY grp, x)
-  keys         the bins GROUP BY alone (Σw, Σw·x, min, max per bin, what a Gini reads) with each key:
+  keys         the bins GROUP BY alone (Σw, Σw·x, min, max per bin, what a Gini reads, all read by the
+               outer query so that none is pruned) with each key:
                the (sign, FLOOR(ln|x|/ln(1+r))) pair a stored summary keeps, the same index as one
                BIGINT (bins.bin_key, the summary pass's), one LN and a CAST with no FLOOR (rounds on
                DuckDB and PostgreSQL, truncates on Spark and SQLite: different bins per engine), and
@@ -39,7 +40,7 @@ import sqlglot
 
 def key_cases(r: float) -> dict[str, str]:
     sc = repr(1.0 / math.log1p(r))
-    aggs = "sum(w), sum(w * x), min(x), max(x)"
+    aggs = "sum(w) AS a, sum(w * x) AS b, min(x) AS c, max(x) AS d"
     floor = f"CAST(FLOOR(LN({{v}}) * {sc}) AS BIGINT)"
     pair = (f"CASE WHEN x > 0 THEN 1 WHEN x < 0 THEN -1 ELSE 0 END AS s, CASE WHEN x > 0 THEN "
             f"{floor.format(v='x')} WHEN x < 0 THEN {floor.format(v='-x')} ELSE 0 END AS b")
@@ -51,7 +52,9 @@ def key_cases(r: float) -> dict[str, str]:
               "-(1048576 + CAST(LN(-x) * 50.0 AS BIGINT)) ELSE 0 END AS b")
 
     def q(key: str, group: str) -> str:
-        return f"SELECT count(*) FROM (SELECT grp, {aggs} FROM (SELECT grp, x, w, {key} FROM f) GROUP BY {group})"
+        # the outer query reads every aggregate: a bare count(*) would let DuckDB drop them
+        return (f"SELECT count(*), sum(a), sum(b), min(c), max(d) FROM (SELECT grp, {aggs} "
+                f"FROM (SELECT grp, x, w, {key} FROM f) GROUP BY {group})")
 
     return {"key: sign + FLOOR index (stored)": q(pair, "grp, s, b"),
             "key: one BIGINT, FLOOR (bin_key)": q(one, "grp, b"),
@@ -76,7 +79,8 @@ def bounded_cases(r: float, before: Path | None = None) -> dict[str, str]:
     tree = sqlglot.parse_one(sql, read="duckdb")
     with_ = tree.args["with_"]
     (bins,) = [c.alias for c in with_.expressions if c.alias.endswith("_bins")]
-    only_bins = f'{with_.sql("duckdb")} SELECT count(*) FROM "{bins}"'
+    reads = ", ".join(f'sum("{c}")' for c in ("uv_w", "uv_wx", "uv_min", "uv_max"))
+    only_bins = f'{with_.sql("duckdb")} SELECT count(*), {reads} FROM "{bins}"'
     return {f"{label}, r = {r:g}": sql, f"  its bins CTE alone, r = {r:g}{' (before)' if before else ''}": only_bins}
 
 
