@@ -16,8 +16,10 @@ import duckdb
 import numpy as np
 import pandas as pd
 import pytest
+import sqlglot
 from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
+from sqlglot import exp
 
 import uneven
 from uneven import reference as ref
@@ -223,3 +225,112 @@ def test_edge_values_land_consistently(con):
     xs = edges + [math.nextafter(e, 0) for e in edges] + [math.nextafter(e, math.inf) for e in edges]
     data = pd.DataFrame({"g": 0, "x": xs, "w": 1.0})
     check_inside(run_bounded(con, data, False, 0.01), data, False)
+
+
+# --- what the bins keep: only the sums a query's measures read -------------------------------------
+
+def _bins_select(sql: str) -> exp.Select:
+    tree = sqlglot.parse_one(sql, read="duckdb")
+    (bins,) = [c.this for c in tree.find_all(exp.CTE) if c.alias.endswith("_bins")]
+    return bins
+
+
+def test_gini_only_bins_take_no_log():
+    # a Gini reads Σw, Σw·x, min and max per bin (docs/bounded.md, "Gini"): its bins GROUP BY keeps
+    # those four, and the one LN per row is the bin key's (two branches: x > 0 and x < 0), never
+    # inside an aggregate (no Σw·ln x, Σw·x·ln x)
+    sql = uneven.compile("SELECT g, gini(x, w) FROM t GROUP BY g", method="bounded")
+    bins = _bins_select(sql)
+    assert sorted(e.alias for e in bins.expressions if e.alias.startswith("uv_")) == \
+        ["uv_max", "uv_min", "uv_w", "uv_wx"]
+    tree = sqlglot.parse_one(sql, read="duckdb")
+    logs = list(tree.find_all(exp.Ln))
+    assert len(logs) == 2
+    assert all(ln.find_ancestor(exp.AggFunc) is None for ln in logs)
+    assert all(ln.find_ancestor(exp.Alias).alias == "uv_bin" for ln in logs)
+    # the same walk finds the log sums where a measure reads them (Theil: Σw·x·ln x)
+    theil = sqlglot.parse_one(uneven.compile("SELECT g, theil(x, w) FROM t GROUP BY g", method="bounded"),
+                              read="duckdb")
+    assert any(ln.find_ancestor(exp.AggFunc) is not None for ln in theil.find_all(exp.Ln))
+
+
+def _fixed_data() -> pd.DataFrame:
+    # invented: three groups of lognormal values with real weights, one with negatives and zeros
+    rng = np.random.default_rng(20261204)
+    parts = []
+    for g, n in enumerate((400, 150, 1)):
+        x = rng.lognormal(2.0, 1.2, n)
+        if g == 1:
+            x[:20] = -x[:20]
+            x[20:25] = 0.0
+        parts.append(pd.DataFrame({"g": g, "x": x, "w": rng.uniform(0.2, 4.0, n)}))
+    return pd.concat(parts, ignore_index=True)
+
+
+def test_gini_interval_same_with_every_bin_column(con):
+    # a Gini-only query (four bin columns) against the same Gini in a query whose other measures
+    # make the bins keep every column (Σw·x², both log sums, the count, a power sum): the bins are
+    # the same, so the interval is the same to rounding (1e-12)
+    data = _fixed_data()
+    rest = ", theil(x, w) AS t, mld(x, w) AS m, cv(x, w) AS c, ge(x, 3, w) AS e, gini_corrected(x, w) AS k"
+    con.register("t", data)
+    try:
+        alone = con.execute(uneven.compile("SELECT g, gini(x, w) AS gi FROM t GROUP BY g ORDER BY g",
+                                           method="bounded")).fetchdf()
+        full_sql = uneven.compile(f"SELECT g, gini(x, w) AS gi{rest} FROM t GROUP BY g ORDER BY g", method="bounded")
+        full = con.execute(full_sql).fetchdf()
+    finally:
+        con.unregister("t")
+    kept = {e.alias for e in _bins_select(full_sql).expressions}
+    assert {"uv_n", "uv_wx2", "uv_wlnx", "uv_wxlnx", "uv_pow_3"} <= kept
+    for col in ("gi", "gi_lo", "gi_hi"):
+        np.testing.assert_allclose(alone[col].to_numpy(float), full[col].to_numpy(float), rtol=1e-12, atol=1e-15)
+    for g, sub in data.groupby("g"):  # and the reference inside (uneven.reference)
+        exact = ref.gini(sub["x"].to_numpy(float), sub["w"].to_numpy(float))
+        assert alone["gi_lo"][g] <= exact <= alone["gi_hi"][g]
+
+
+def test_in_query_key_makes_the_stored_summary_bins(con):
+    # the summary pass groups on one key (bins.bin_key: sign and index in one BIGINT); a stored
+    # summary keeps the (uv_sign, uv_bin) pair. Both must make the same bins: the intervals from
+    # the stored summary equal the query's to rounding (1e-12), at two resolutions
+    data = _fixed_data()
+    con.register("t", data)
+    try:
+        for r in (0.01, 0.3):
+            q = con.execute(uneven.compile("SELECT g, gini(x, w) AS gi, top_share(x, 0.1, w) AS ts FROM t "
+                                           "GROUP BY g ORDER BY g", method="bounded", resolution=r)).fetchdf()
+            summary = uneven.summarize("t", "x", "w", by=["g"], resolution=r, con=con)
+            con.register("s", summary)
+            try:
+                stored = uneven.from_summary("s", ["gini AS gi", "top_share(0.1) AS ts"], by=["g"], con=con)
+            finally:
+                con.unregister("s")
+            stored = stored.sort_values("g").reset_index(drop=True)
+            for col in ("gi", "gi_lo", "gi_hi", "ts", "ts_lo", "ts_hi"):
+                np.testing.assert_allclose(q[col].to_numpy(float), stored[col].to_numpy(float), rtol=1e-12,
+                                           atol=1e-15)
+    finally:
+        con.unregister("t")
+
+
+def test_nan_or_infinite_value_stops_the_bounded_query():
+    # the input policy (docs/input-policy.md): the same error as the exact method, naming the group,
+    # before the bin key's LN or cast could fail on the value
+    t = pd.DataFrame({"g": ["a", "a", "b"], "x": [1.0, 2.0, 3.0], "bad": [False, True, False]})  # noqa: F841
+    for value in ("CAST('NaN' AS DOUBLE)", "CAST('Infinity' AS DOUBLE)", "-CAST('Infinity' AS DOUBLE)"):
+        source = f"(SELECT g, CASE WHEN bad THEN {value} ELSE x END AS x FROM t) s"
+        for method in ("bounded", "exact"):
+            with pytest.raises(uneven.InputDataError, match=r"NaN or infinite value in the value argument x "
+                                                            r"\(the group g=a\)"):
+                uneven.query(f"SELECT g, gini(x) FROM {source} GROUP BY g", method=method)
+
+
+def test_nan_or_infinite_value_stops_a_stored_summary():
+    # summarize() reads the same checked value as the query's summary pass (docs/input-policy.md)
+    t = pd.DataFrame({"g": ["a", "a", "b"], "x": [1.0, math.inf, 3.0], "w": [1.0, 2.0, 1.0]})  # noqa: F841
+    with pytest.raises(uneven.InputDataError, match=r"NaN or infinite value in the value argument x \(the group g=a\)"):
+        uneven.summarize("t", "x", "w", by=["g"])
+    t2 = pd.DataFrame({"g": ["a", "b"], "x": [1.0, 3.0], "w": [1.0, -2.0]})  # noqa: F841
+    with pytest.raises(uneven.InputDataError, match=r"negative weight in the weight argument w \(the group g=b\)"):
+        uneven.summarize("t2", "x", "w", by=["g"])

@@ -6,9 +6,11 @@ values are binned the same way on −x (``uv_sign`` = −1, mirrored), zeros hav
 (``uv_sign`` = 0). The bin index is only a grouping key: every bound works from what the bin
 *stores* (its exact min and max, weight and sums), so bins computed by engines whose LN rounds
 differently at an edge, or summaries at different resolutions, still give valid bounds once
-overlapping bins are joined (``lower.py``).
+overlapping bins are joined (``lower.py``). A stored summary keeps the pair (``uv_sign``, ``uv_bin``);
+the summary pass inside a query groups on the same bins through one BIGINT key (``bin_key``).
 
-Each bin keeps, over its rows (NULL x or weight, and zero weights, skipped):
+Each bin keeps, over its rows (NULL x or weight, and zero weights, skipped), what the measures
+read of (a stored summary keeps them all):
     uv_n      row count                 uv_w      Σw              uv_wx     Σw·x
     uv_min    smallest x                uv_max    largest x       uv_wx2    Σw·x²
     uv_wlnx   Σw·ln x  (x > 0 rows)     uv_wxlnx  Σw·x·ln x  (x > 0 rows)
@@ -90,6 +92,27 @@ def bin_keys(x: exp.Expression, resolution: float) -> list[exp.Expression]:
     bin_ = s.case(s.gt(x.copy(), zero), index(x.copy()),
                   s.case(s.lt(x.copy(), zero), index(exp.Neg(this=s.paren(x.copy()))), s.lit(0)))
     return [s.alias(sign, SIGN), s.alias(bin_, BIN)]
+
+
+KEY_OFFSET = 1 << 31  # above |floor(ln|x| / ln(1 + r))| for every finite x ≠ 0 and r ≥ MIN_RESOLUTION (< 7.5e8)
+
+
+def bin_key(x: exp.Expression, resolution: float) -> exp.Expression:
+    """The (sign, bin index) pair of ``bin_keys`` as one BIGINT grouping key, for a summary that is
+    grouped and measured in the same query (the summary pass): 0 for zero, KEY_OFFSET + the index for
+    x > 0, −(KEY_OFFSET + the index of −x) for x < 0. The same bins as the pair (one index per pair,
+    FLOOR on every engine: a CAST alone rounds on some engines and truncates on others), one key
+    column less to hash, and non-decreasing in x like the pair's order. One LN per row."""
+    zero = s.lit(0.0)
+    scale = s.lit(1.0 / math.log1p(resolution))
+
+    def index(v: exp.Expression) -> exp.Expression:
+        return s.add(exp.cast(exp.Floor(this=s.mul(s.ln(v), scale.copy())), "bigint"), s.lit(KEY_OFFSET))
+
+    return exp.Case(ifs=[exp.If(this=s.gt(x.copy(), zero), true=index(x.copy())),
+                         exp.If(this=s.lt(x.copy(), zero.copy()),
+                                true=exp.Neg(this=s.paren(index(exp.Neg(this=s.paren(x.copy()))))))],
+                    default=s.lit(0))
 
 
 def bin_aggregates(x: exp.Expression, w: exp.Expression, powers=()) -> list[exp.Expression]:

@@ -19,11 +19,15 @@ def summary_select(source: exp.Expression, value: exp.Expression, weight: exp.Ex
                    keys: list[tuple[str, exp.Expression]], resolution: float, powers=(),
                    where: exp.Expression | None = None) -> exp.Select:
     """SELECT keys, sign, bin, <bin columns>, resolution FROM (rows of source) GROUP BY keys, sign, bin."""
-    columns, cond = value_weight_rows(value, weight, where)
-    proj = [s.alias(e.copy(), n) for n, e in keys] + columns + b.bin_keys(s.cast_double(value.copy()), resolution)
-    rows = exp.Select(expressions=proj).from_(source.copy())
-    rows.set("where", exp.Where(this=cond))
+    columns, cond = value_weight_rows(value, weight, where, keys=[e for _, e in keys])
+    checked = exp.Select(expressions=[s.alias(e.copy(), n) for n, e in keys] + columns).from_(source.copy())
+    checked.set("where", exp.Where(this=cond))
     key_cols = [s.col(n) for n, _ in keys]
+    # sign and bin read the checked value: NaN or ±infinity stops the query with the input policy's
+    # error (naming the group) before LN or the cast to BIGINT can fail on it
+    rows = exp.Select(expressions=[k.copy() for k in key_cols] + [s.col(c.alias) for c in columns]
+                      + b.bin_keys(s.col("_uv_x"), resolution)).from_(
+        exp.Subquery(this=checked, alias=exp.TableAlias(this=exp.to_identifier("_uv_v", quoted=True))))
     w = s.col("_uv_w") if weight is not None else s.lit(1.0)
     out = exp.Select(expressions=[k.copy() for k in key_cols] + [s.col(b.SIGN), s.col(b.BIN)]
                      + b.bin_aggregates(s.col("_uv_x"), w, powers) + [s.alias(s.lit(float(resolution)), b.RESOLUTION)])

@@ -82,14 +82,17 @@ def checked_rows(source: Source, x: exp.Expression, w: exp.Expression | None,
 
 
 def value_weight_rows(x: exp.Expression, w: exp.Expression | None, condition: exp.Expression | None,
-                      weight_name: str = "_uv_w") -> tuple[list[exp.Expression], exp.Expression]:
+                      weight_name: str = "_uv_w", keys: Sequence[exp.Expression] | None = None
+                      ) -> tuple[list[exp.Expression], exp.Expression]:
     """(projections, row condition) of a pass that reads (value, weight) rows: x as DOUBLE ``_uv_x``
     and the checked weight as ``weight_name``; rows within ``condition`` (a FILTER or WHERE) whose
-    value is not NULL and whose weight is > 0."""
-    proj: list[exp.Expression] = [s.alias(s.cast_double(x.copy()), "_uv_x")]
+    value is not NULL and whose weight is > 0. With ``keys`` (the group keys, possibly none), x is
+    checked too (NaN and ±infinity stop the query) and the errors name the row's group."""
+    xd = s.cast_double(x.copy()) if keys is None else checked_value(x, weight_label(x), keys)
+    proj: list[exp.Expression] = [s.alias(xd, "_uv_x")]
     cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
     if w is not None:
-        cw = checked_weight(w, weight_label(w))
+        cw = checked_weight(w, weight_label(w), keys or ())
         proj.append(s.alias(cw, weight_name))
         cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
     return proj, cond

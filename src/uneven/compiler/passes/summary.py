@@ -1,8 +1,11 @@
 """Summary pass (``method="bounded"``): one GROUP BY into log-spaced bins, then intervals per group.
 
-rows CTE:  keys, x, w, bin sign and index      (NULL x or weight, and zero weights, dropped)
-bins CTE:  GROUP BY keys, sign, index: count, Σw, Σw·x, min, max, Σw·x², Σw·ln x, Σw·x·ln x,
-           Σw·x^a for the GE/Atkinson parameters of the pass's calls (so those are exact)
+rows CTE:  keys, x, w (checked by the input policy: NaN, ±infinity and negative weights stop the query
+           naming the group; NULL x or weight, and zero weights, dropped) and the bin key of x
+           (bins.bin_key: sign and index in one BIGINT, one LN per row)
+bins CTE:  GROUP BY keys, key: only the bin columns the pass's calls read (a Gini: Σw, Σw·x, min,
+           max; Σw·x², Σw·ln x, Σw·x·ln x and the count when a call reads them; Σw·x^a for the
+           GE/Atkinson parameters of the calls, so those are exact)
 cum CTE and result CTE: see bounds/lower.py (no overlap joining: one GROUP BY gives disjoint bins)
 
 No sort of the rows: the only windows run over the bins (a few thousand per group at most).
@@ -16,7 +19,7 @@ from uneven.bounds import bins as b
 from uneven.bounds.lower import lower_bounds
 from uneven.bounds.measures import powers_needed
 from uneven.catalog.spec import PassKind
-from uneven.compiler.passes.source import Source, cte, table, value_weight_rows
+from uneven.compiler.passes.source import Source, checked_rows, cte, table
 from uneven.sqltree import build as s
 
 
@@ -26,11 +29,16 @@ def lower_summary_pass(source: Source, main, plan, name: str, resolution: float 
     (key, "hi") to its bounds. ``resolution``: relative bin width (default bins.DEFAULT_RESOLUTION)."""
     resolution = b.DEFAULT_RESOLUTION if resolution is None else resolution
     x, w, condition = plan.x, plan.trailing, plan.condition
-    columns, cond = value_weight_rows(x, w, condition)
-    proj = source.key_projections() + columns + b.bin_keys(s.cast_double(x.copy()), resolution)
-    rows = source.rows(proj, cond)
-
+    proj, cond = checked_rows(source, x, w, condition)
+    checked = exp.Subquery(this=source.rows(proj, cond), alias=exp.TableAlias(this=exp.to_identifier("_uv_v",
+                                                                                                   quoted=True)))
     keys = source.key_columns()
+    # the key reads the checked x: a NaN or infinite value stops the query with its message before
+    # LN or the cast to BIGINT can fail on it
+    rows = exp.Select(expressions=[k.copy() for k in keys] + [s.col("_uv_x")]
+                      + ([s.col("_uv_w")] if w is not None else [])
+                      + [s.alias(b.bin_key(s.col("_uv_x"), resolution), b.BIN)]).from_(checked)
+
     powers = sorted({a for call in plan.calls for a in powers_needed(call.measure.name, call.params)})
     wcol = s.col("_uv_w") if w is not None else s.lit(1.0)
     aggs = b.bin_aggregates(s.col("_uv_x"), wcol, powers)
@@ -39,7 +47,7 @@ def lower_summary_pass(source: Source, main, plan, name: str, resolution: float 
                                             merge=False)
     aggs = [a for a in aggs if a.alias in read]  # only what the calls read (e.g. Gini: no Σw·x², Σw·ln x)
     bins = exp.Select(expressions=[k.copy() for k in keys] + aggs).from_(table(f"{name}_rows"))
-    bins.set("group", exp.Group(expressions=[k.copy() for k in keys] + [s.col(b.SIGN), s.col(b.BIN)]))
+    bins.set("group", exp.Group(expressions=[k.copy() for k in keys] + [s.col(b.BIN)]))
     results = {}
     for key, (point, lo, hi) in names.items():
         results[key] = s.col(point, name)
