@@ -91,11 +91,27 @@ class GroupValues:
         return np.array([np.nan if v is None else float(v) for v in out], dtype=np.float64)
 
 
-def compensated_prefix(v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+EXACT_BELOW = 2.0 ** 53  # every integer up to 2^53 is a double: sums of integers below it are exact
+
+
+def prefix_sums(w: np.ndarray, start: float = 0.0) -> tuple[np.ndarray, np.ndarray | None]:
+    """The running sums of the weights ``w`` (non-negative: the input policy stops a negative one) as
+    (hi, lo), hi + lo to a few units of the last place; lo is None where hi is exact as it is: the
+    weights are integers and ``start`` (the running weight carried into them; inf when it is not
+    an exact integer) plus their sum stays below 2^53, so no step of the plain cumsum rounds (a
+    cumsum of integers is exact while every partial sum is an integer of at most 53 bits)."""
+    hi = np.cumsum(w)
+    if (len(w) and start + hi[-1] < EXACT_BELOW and float(start).is_integer()
+            and (w[:64] == np.floor(w[:64])).all() and (w == np.floor(w)).all()):  # (fractions: seen at once)
+        return hi, None
+    return compensated_prefix(w, hi)
+
+
+def compensated_prefix(v: np.ndarray, hi: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """(hi, lo): hi the running sums as np.cumsum gives them, lo the running sum of each step's exact
     rounding error (two-sum: a + b = s + e exactly for s = fl(a + b)), so hi + lo is the prefix sum to
-    a few units of the last place whatever the number of rows."""
-    hi = np.cumsum(v)
+    a few units of the last place whatever the number of rows (``hi``: np.cumsum(v), when known)."""
+    hi = np.cumsum(v) if hi is None else hi
     prev = np.empty_like(hi)
     prev[0] = 0.0
     prev[1:] = hi[:-1]
@@ -197,17 +213,20 @@ class StreamState:
 
         if self.weighted:
             w = batch.column("_uv_w").to_numpy(zero_copy_only=False).astype(np.float64, copy=False)
-            hi, lo = compensated_prefix(w)
-            base_hi = np.where(seg > 0, hi[seg - 1], 0.0)
-            base_lo = np.where(seg > 0, lo[seg - 1], 0.0)
-            c_hi = hi - base_hi[segidx]
-            c_lo = lo - base_lo[segidx]
+            carry_hi, carry_lo = (self.carry_hi, self.carry_lo) if continues else (0.0, 0.0)
+            hi, lo = prefix_sums(w, carry_hi if carry_lo == 0.0 else math.inf)
+            c_hi = hi - np.where(seg > 0, hi[seg - 1], 0.0)[segidx] if nseg > 1 or seg[0] > 0 else hi
             if continues:
-                first_seg = segidx == 0
-                c_hi[first_seg] += self.carry_hi
-                c_lo[first_seg] += self.carry_lo
-            c = c_hi + c_lo
-            self.carry_hi, self.carry_lo = float(c_hi[-1]), float(c_lo[-1])
+                c_hi[:seg[1] if nseg > 1 else n] += carry_hi  # the open group's rows come first
+            if lo is None:  # integers below 2^53: every running weight is exact as it is
+                c = c_hi
+                self.carry_hi, self.carry_lo = float(c_hi[-1]), 0.0
+            else:
+                c_lo = lo - np.where(seg > 0, lo[seg - 1], 0.0)[segidx]
+                if continues:
+                    c_lo[:seg[1] if nseg > 1 else n] += carry_lo
+                c = c_hi + c_lo
+                self.carry_hi, self.carry_lo = float(c_hi[-1]), float(c_lo[-1])
         else:
             w = None
             rows = np.arange(1, n + 1, dtype=np.float64)
