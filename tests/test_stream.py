@@ -39,9 +39,11 @@ def reference_row(x, w) -> list:
             R.percentile_ratio(x, 0.9, 0.1, w), R.generalized_lorenz(x, 0.9, w)]
 
 
-@pytest.fixture()
-def tiny_batches(monkeypatch):
+@pytest.fixture(params=[False, True], ids=["serial", "reader_thread"])
+def tiny_batches(monkeypatch, request):
+    # batches of 7 rows, read in the caller's thread and on the reader thread (engine/prefetch.py)
     monkeypatch.setattr(stream_engine, "BATCH_ROWS", 7)
+    monkeypatch.setattr(stream_engine, "PREFETCH", request.param)
 
 
 def close(a, b, tol=1e-12) -> bool:
@@ -475,9 +477,11 @@ def test_a_consumer_that_stops_leaves_no_reader_thread():
 
 def test_an_error_while_reducing_stops_the_reader_and_frees_the_connection(grouped, tiny_batches, monkeypatch):
     con, _ = grouped
+    monkeypatch.setattr(stream_engine, "PREFETCH", True)
     sql = "SELECT a, gini(x, w) FROM t GROUP BY a ORDER BY a"
     want = uneven.query(sql, con, ordered="stream")
     seen = []
+    original_feed = stream_engine.StreamState.feed
 
     def failing_feed(self, batch, keys):
         seen.append(batch.num_rows)
@@ -487,8 +491,7 @@ def test_an_error_while_reducing_stops_the_reader_and_frees_the_connection(group
     with pytest.raises(uneven.ExecutionError, match="stopped while reducing"):
         uneven.query(sql, con, ordered="stream")
     assert not _reader_threads()
-    monkeypatch.undo()
-    monkeypatch.setattr(stream_engine, "BATCH_ROWS", 7)
+    monkeypatch.setattr(stream_engine.StreamState, "feed", original_feed)
     assert_same_frames(uneven.query(sql, con, ordered="stream"), want, tol=0.0)  # the connection still works
 
 

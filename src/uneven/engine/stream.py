@@ -34,8 +34,11 @@ class StreamMemoryError(ExecutionError):
 # rows per Arrow batch: large enough that numpy's per-batch overhead vanishes (a few dozen numpy
 # calls per batch), small enough that a batch of keys, x and w stays a few MB of the memory limit
 BATCH_ROWS = 1 << 16
-# batches are read ahead on a thread of their own while numpy reduces the last ones (engine/prefetch.py)
-PREFETCH = True
+# read the batches ahead on a thread of their own while numpy reduces the last ones (engine/prefetch.py):
+# off, since it measured 4-5% slower on a shared machine (DuckDB holds the GIL for about 60% of a
+# batch's fetch, so little overlaps; bench/README.md, "Stream plan"); bench/stream.py's stream_p
+# case measures it against the serial loop in the same run
+PREFETCH = False
 
 
 def run_job(con: duckdb.DuckDBPyConnection, job: StreamJob, batch_rows: int | None = None) -> pa.Table:
