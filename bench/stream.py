@@ -186,7 +186,8 @@ def main() -> None:
             ratio = f"{r['seconds'] / sort['seconds']:7.2f}" if sort and "seconds" in sort else ""
             print(f"  {case:<10} {r['seconds']:8.3f} {r['peak_rss_mb']:8.0f} {ratio:>7} {left:>16}")
         ok = {case: r for case, r in results.items() if "seconds" in r}
-        for x, y in (("stream", "window"), ("stream_p", "stream"), ("stream_u", "window_u"), ("stream10", "window10"), ("pandas", "window")):
+        for x, y in (("stream", "window"), ("stream_p", "stream"), ("stream_u", "window_u"), ("stream10", "window10"),
+                     ("pandas", "window")):
             if x in ok and y in ok:
                 print(f"  max relative difference {x} vs {y}: {_max_rel(ok[x]['rows'], ok[y]['rows']):.2e}")
         for x, y, what in (("stream", "window", "stream / window, weighted"),
