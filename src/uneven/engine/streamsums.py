@@ -202,8 +202,8 @@ class StreamState:
         self.started += len(new)
 
         x = batch.column("_uv_x").to_numpy(zero_copy_only=False).astype(np.float64, copy=False)
-        steps = np.diff(x) < 0
-        if (steps & ~starts_mask[1:]).any() or (continues and x[0] < self.last_x):
+        steps = x[1:] < x[:-1]  # (a step down is allowed only where a group starts: checked where there is one)
+        if (steps.any() and (steps & ~starts_mask[1:]).any()) or (continues and x[0] < self.last_x):
             self.unsorted = True
         self.last_x = float(x[-1])
         m_seg = x[seg].copy()
