@@ -230,12 +230,13 @@ def test_fallback_to_the_window_plan_says_why(grouped, sql, reason):
     uneven.query(sql, con, ordered="stream")  # and it runs
 
 
-def test_auto_streams_only_a_weighted_pass_that_needs_the_full_order(grouped):
+def test_auto_streams_a_pass_that_needs_the_full_order_weighted_or_not(grouped):
     con, _ = grouped
     kinds = lambda sql: [p["kind"] for p in uneven.explain(sql, con).passes]  # noqa: E731
     assert kinds("SELECT a, gini(x, w) FROM t GROUP BY a") == ["stream"]
     assert kinds("SELECT a, top_share(x, 0.1, w) FROM t GROUP BY a") == ["refine"]
-    assert kinds("SELECT a, gini(x) FROM t GROUP BY a") == ["ordered"]
+    assert kinds("SELECT a, gini(x) FROM t GROUP BY a") == ["stream"]
+    assert kinds("SELECT a, gini(x), cv(x) FROM t GROUP BY a") == ["ordered"]  # cv fuses onto the window plan
     found = uneven.explain("SELECT a, gini(x, w) FROM t GROUP BY a", con)
     assert "bench/README.md" in found.passes[0]["reason"] and found.passes[0]["ctes"] == ["_uv_str_1"]
 
@@ -529,3 +530,22 @@ def test_reader_errors_are_the_serial_paths_errors(monkeypatch):
         errors.append((type(info.value), str(info.value)))
     assert errors[0] == errors[1] and "the rows stopped coming" in errors[0][1]
     assert not _reader_threads()
+
+
+def test_values_out_of_order_within_a_group_are_caught_and_a_new_group_may_start_lower():
+    # the order check (docs/plans.md, "Memory"): a value below its predecessor is allowed only where a
+    # group starts, also across a batch boundary
+    import pyarrow as pa
+
+    from uneven.catalog.kernels import Need
+    from uneven.engine.streamsums import StreamState
+
+    def fed(*batches) -> bool:
+        state = StreamState([Need("W")], weighted=False)
+        for keys, xs in batches:
+            state.feed(pa.record_batch({"_uv_k1": pa.array(keys), "_uv_x": pa.array(xs, pa.float64())}), ["_uv_k1"])
+        return state.unsorted
+    assert not fed(([1, 1, 2, 2], [5.0, 6.0, 1.0, 2.0]))  # steps down where the group starts
+    assert fed(([1, 1, 2, 2], [5.0, 6.0, 2.0, 1.0]))  # steps down inside group 2
+    assert not fed(([1, 1], [5.0, 6.0]), ([2, 2], [1.0, 2.0]))
+    assert fed(([1, 1], [5.0, 6.0]), ([1, 2], [4.0, 7.0]))  # group 1 goes on lower in the next batch
