@@ -125,7 +125,7 @@ def run_case(case: str, path: Path, a) -> dict:
                               capture_output=True, text=True)
         files, size = temp_files()
         if done.returncode != 0 or not out.exists():
-            lines = (done.stderr or "").strip().splitlines()
+            lines = [line for line in (done.stderr or "").strip().splitlines() if "Error" in line]
             return {"failed": lines[-1] if lines else f"exit code {done.returncode}", "temp_files": files,
                     "temp_bytes": size}
         return {**json.loads(out.read_text()), "temp_files": files, "temp_bytes": size}
