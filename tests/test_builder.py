@@ -201,3 +201,6 @@ def test_df_streams_as_query_does_and_explain_says_so(frame, tmp_path, monkeypat
     kept = uneven.from_(relation).agg(g=uneven.gini("x", weight="w"))
     assert [p["kind"] for p in kept.explain().passes] == ["ordered"]  # read through the relation: window plan
     assert abs(kept.df()["g"][0] - R.gini(np.array([1.0, 3.0]), np.array([2.0, 1.0]))) <= 1e-12
+    import sqlite3
+    on_sqlite = uneven.from_(frame, con=sqlite3.connect(":memory:")).agg(g=uneven.gini("income", weight="w"))
+    assert [p["kind"] for p in on_sqlite.explain().passes] == ["ordered"]  # compiled for SQLite: never streamed
