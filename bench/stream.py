@@ -2,14 +2,20 @@
 
     python bench/stream.py                                  # 2M rows x 100 groups and 5M x 1
     python bench/stream.py --sizes 20000000x1000 --repeat 3
+    python bench/stream.py --sizes 100000000x1 --cases sort,stream,window --repeat 1
+    python bench/stream.py --data entities --sizes 1200000x200000   # 200k entities of 6 periods each
 
 Data (fixed seed, written once to a Parquet file per size under the temp directory): lognormal
-values, uniform float weights, group ids drawn uniformly. Cases, each in a fresh subprocess (peak
-RSS = its own VmHWM), 2 threads, memory_limit 1GB by default:
+values, uniform float weights; ``--data uniform`` (default) draws group ids uniformly,
+``--data entities`` gives every group exactly ROWS/GROUPS rows (the per-entity case: the Gini of
+each entity across its periods), in shuffled order; ``--weights integer`` draws weights 1 to 4.
+Cases, each in a fresh subprocess (peak RSS = its own VmHWM), 2 threads, memory_limit 1GB by
+default; DuckDB's temp directory is checked for files left behind after each case:
 
   sort        SELECT max(w) FROM (SELECT grp, x, w FROM f ORDER BY grp, x)     (DuckDB's sort)
   window      SELECT grp, gini(x, w) … GROUP BY grp, ordered="window"          (the window plan)
   stream      the same, ordered="stream"                                         (this plan)
+  stream_p    the same, with the sorted batches read ahead on a thread (engine/stream.PREFETCH)
   pandas      read the file, sort_values, groupby cumsum, the same formula       (vectorized pandas)
   sort_u, window_u, stream_u      the unweighted gini(x)
   window10, stream10              ten order-based measures on one value (weighted)
@@ -35,20 +41,33 @@ from pathlib import Path
 TEN = ("gini(x, w), gini_corrected(x, w), lorenz(x, 0.3, w), top_share(x, 0.1, w), bottom_share(x, 0.5, w), "
        "palma(x, w), s80s20(x, w), quantile_w(x, 0.5, w), percentile_ratio(x, 0.9, 0.1, w), "
        "generalized_lorenz(x, 0.9, w)")
-CASES = ("sort", "window", "stream", "pandas", "sort_u", "window_u", "stream_u", "window10", "stream10")
+CASES = ("sort", "window", "stream", "stream_p", "pandas", "sort_u", "window_u", "stream_u", "window10", "stream10")
 
 
-def make_data(rows: int, groups: int) -> Path:
+TEMP = Path(tempfile.gettempdir()) / "uneven-stream-bench-tmp"
+
+
+def make_data(rows: int, groups: int, data: str = "uniform", weights: str = "float") -> Path:
     import numpy as np
     import pyarrow as pa
     import pyarrow.parquet as pq
-    path = Path(tempfile.gettempdir()) / f"uneven-stream-bench-{rows}x{groups}.parquet"
+    suffix = ("" if data == "uniform" else f"-{data}") + ("" if weights == "float" else f"-{weights}")
+    path = Path(tempfile.gettempdir()) / f"uneven-stream-bench-{rows}x{groups}{suffix}.parquet"
     if not path.exists():
         rng = np.random.default_rng(20261204)
-        table = pa.table({"grp": rng.integers(0, groups, rows, dtype=np.int64), "x": rng.lognormal(10.0, 1.0, rows),
-                          "w": rng.uniform(0.5, 3.0, rows)})
-        pq.write_table(table, path)
+        if data == "entities":  # every entity has rows // groups periods, the rows in shuffled order
+            grp = rng.permutation(np.arange(rows, dtype=np.int64) % groups)
+        else:
+            grp = rng.integers(0, groups, rows, dtype=np.int64)
+        w = rng.integers(1, 5, rows).astype(np.float64) if weights == "integer" else rng.uniform(0.5, 3.0, rows)
+        pq.write_table(pa.table({"grp": grp, "x": rng.lognormal(10.0, 1.0, rows), "w": w}), path)
     return path
+
+
+def temp_files() -> tuple[int, int]:
+    """Files and bytes in DuckDB's temp directory of the benchmark."""
+    found = [p for p in TEMP.rglob("*") if p.is_file()] if TEMP.exists() else []
+    return len(found), sum(p.stat().st_size for p in found)
 
 
 def _pandas_gini(path: str):
@@ -70,7 +89,7 @@ def child(case: str, path: str, memory_limit: str, threads: int) -> dict:
     con = duckdb.connect()
     con.execute(f"SET threads = {threads}")
     con.execute(f"SET memory_limit = '{memory_limit}'")
-    con.execute(f"SET temp_directory = '{Path(tempfile.gettempdir()) / 'uneven-stream-bench-tmp'}'")
+    con.execute(f"SET temp_directory = '{TEMP}'")
     con.execute("SET preserve_insertion_order = false")
     src = f"read_parquet('{path}')"
     weighted = not case.endswith("_u")
@@ -84,6 +103,8 @@ def child(case: str, path: str, memory_limit: str, threads: int) -> dict:
     elif case == "pandas":
         rows = [[v] for v in _pandas_gini(path)]
     else:
+        import uneven.engine.stream
+        uneven.engine.stream.PREFETCH = case == "stream_p"
         plan = "stream" if case.startswith("stream") else "window"
         df = uneven.query(query, con, ordered=plan)
         rows = df.drop(columns="grp").values.tolist()
@@ -96,11 +117,18 @@ def child(case: str, path: str, memory_limit: str, threads: int) -> dict:
 
 
 def run_case(case: str, path: Path, a) -> dict:
+    """One case in a fresh process; a case that fails (out of memory …) is reported, not fatal."""
     with tempfile.TemporaryDirectory() as td:
         out = Path(td) / "out.json"
-        subprocess.run([sys.executable, __file__, "--child", case, "--file", str(path), "--out", str(out),
-                        "--memory-limit", a.memory_limit, "--threads", str(a.threads)], check=True)
-        return json.loads(out.read_text())
+        done = subprocess.run([sys.executable, __file__, "--child", case, "--file", str(path), "--out", str(out),
+                               "--memory-limit", a.memory_limit, "--threads", str(a.threads)],
+                              capture_output=True, text=True)
+        files, size = temp_files()
+        if done.returncode != 0 or not out.exists():
+            lines = [line for line in (done.stderr or "").strip().splitlines() if "Error" in line]
+            return {"failed": lines[-1] if lines else f"exit code {done.returncode}", "temp_files": files,
+                    "temp_bytes": size}
+        return {**json.loads(out.read_text()), "temp_files": files, "temp_bytes": size}
 
 
 def _max_rel(a, b) -> float:
@@ -122,6 +150,8 @@ def main() -> None:
     ap.add_argument("--cases", default=",".join(CASES))
     ap.add_argument("--memory-limit", default="1GB")
     ap.add_argument("--threads", type=int, default=2)
+    ap.add_argument("--data", choices=("uniform", "entities"), default="uniform")
+    ap.add_argument("--weights", choices=("float", "integer"), default="float")
     ap.add_argument("--child")
     ap.add_argument("--file")
     ap.add_argument("--out")
@@ -130,29 +160,44 @@ def main() -> None:
         Path(a.out).write_text(json.dumps(child(a.child, a.file, a.memory_limit, a.threads)))
         return
     print(f"load average before: {' '.join(f'{v:.2f}' for v in os.getloadavg())}; {os.cpu_count()} cores; "
-          f"threads {a.threads}, memory_limit {a.memory_limit}")
+          f"threads {a.threads}, memory_limit {a.memory_limit}; data {a.data}, {a.weights} weights")
     for size in a.sizes.split(","):
         rows, groups = (int(v) for v in size.split("x"))
-        path = make_data(rows, groups)
+        path = make_data(rows, groups, a.data, a.weights)
         results: dict[str, dict] = {}
         for case in a.cases.split(","):
             runs = [run_case(case, path, a) for _ in range(a.repeat)]
+            failed = [r["failed"] for r in runs if "failed" in r]
+            left = max(r["temp_files"] for r in runs), max(r["temp_bytes"] for r in runs)
+            if failed:
+                results[case] = {"failed": failed[0], "left": left}
+                continue
             results[case] = {"seconds": statistics.median(r["seconds"] for r in runs),
-                             "peak_rss_mb": max(r["peak_rss_mb"] or 0 for r in runs), "rows": runs[0]["rows"]}
-        print(f"\n{rows:,} rows x {groups:,} groups (median of {a.repeat})")
-        print(f"  {'case':<10} {'seconds':>8} {'peak MB':>8} {'/ sort':>7}")
+                             "peak_rss_mb": max(r["peak_rss_mb"] or 0 for r in runs), "rows": runs[0]["rows"],
+                             "left": left}
+        print(f"\n{rows:,} rows x {groups:,} groups, {a.data} (median of {a.repeat})")
+        print(f"  {'case':<10} {'seconds':>8} {'peak MB':>8} {'/ sort':>7} {'temp files left':>16}")
         for case, r in results.items():
+            left = f"{r['left'][0]} ({r['left'][1] / 1e6:.0f} MB)"
+            if "failed" in r:
+                print(f"  {case:<10} failed: {r['failed']}; temp files left {left}")
+                continue
             sort = results.get("sort_u" if case.endswith("_u") else "sort")
-            ratio = f"{r['seconds'] / sort['seconds']:7.2f}" if sort else ""
-            print(f"  {case:<10} {r['seconds']:8.3f} {r['peak_rss_mb']:8.0f} {ratio}")
-        for x, y in (("stream", "window"), ("stream_u", "window_u"), ("stream10", "window10"), ("pandas", "window")):
-            if x in results and y in results:
-                print(f"  max relative difference {x} vs {y}: {_max_rel(results[x]['rows'], results[y]['rows']):.2e}")
-        if "pandas" in results and "stream" in results:
-            print(f"  pandas / stream: {results['pandas']['seconds'] / results['stream']['seconds']:.2f}")
-        if "stream10" in results and "stream" in results:
-            ten = results["stream10"]["seconds"] / results["stream"]["seconds"]
-            print(f"  ten measures / one Gini (stream): {ten:.2f}")
+            ratio = f"{r['seconds'] / sort['seconds']:7.2f}" if sort and "seconds" in sort else ""
+            print(f"  {case:<10} {r['seconds']:8.3f} {r['peak_rss_mb']:8.0f} {ratio:>7} {left:>16}")
+        ok = {case: r for case, r in results.items() if "seconds" in r}
+        for x, y in (("stream", "window"), ("stream_p", "stream"), ("stream_u", "window_u"), ("stream10", "window10"),
+                     ("pandas", "window")):
+            if x in ok and y in ok:
+                print(f"  max relative difference {x} vs {y}: {_max_rel(ok[x]['rows'], ok[y]['rows']):.2e}")
+        for x, y, what in (("stream", "window", "stream / window, weighted"),
+                           ("stream_u", "window_u", "stream / window, unweighted"),
+                           ("stream_p", "stream", "reader thread / serial (stream)"),
+                           ("pandas", "stream", "pandas / stream"),
+                           ("stream10", "stream", "ten measures / one Gini (stream)"),
+                           ("window10", "window", "ten measures / one Gini (window)")):
+            if x in ok and y in ok:
+                print(f"  {what}: {ok[x]['seconds'] / ok[y]['seconds']:.2f}")
     print(f"\nload average after: {' '.join(f'{v:.2f}' for v in os.getloadavg())}")
 
 

@@ -165,3 +165,42 @@ def test_bounded_builder_errors(frame):
         q.df(tolerance=1e-3)
     with pytest.raises(uneven.UnevenError, match="resolution must"):
         q.method("bounded", resolution=5)
+
+
+def test_df_streams_as_query_does_and_explain_says_so(frame, tmp_path, monkeypatch):
+    # the builder's exact run on DuckDB plans like uneven.query: the weighted Gini streams (docs/plans.md);
+    # its numbers are the window plan's (to 1e-12) and the numpy reference's (uneven.reference)
+    import uneven.engine.stream as stream_engine
+    frame.to_parquet(tmp_path / "a.parquet")
+    ran = []
+    original = stream_engine.run_job
+
+    def counting(con, job, batch_rows=None):
+        ran.append(job.table)
+        return original(con, job, batch_rows)
+    monkeypatch.setattr(stream_engine, "run_job", counting)
+    for src in (frame, str(tmp_path / "a.parquet")):
+        q = uneven.from_(src).filter("year = 2024").group_by("province").agg(
+            g=uneven.gini("income", weight="w"), q=uneven.quantile_w("income", 0.5, weight="w"))
+        found = q.explain()
+        assert [p["kind"] for p in found.passes] == ["stream"], found.passes
+        assert "stream plan" in found.passes[0]["reason"]
+        ran.clear()
+        got = q.df()
+        assert ran == ["_uv_str_1"]  # the stream job ran, then the compiled query
+        con = duckdb.connect()
+        con.register("f", frame)
+        want = uneven.query("SELECT province, gini(income, w) AS g, quantile_w(income, 0.5, w) AS q FROM f "
+                            "WHERE year = 2024 GROUP BY province ORDER BY province", con, ordered="window")
+        assert list(got["province"]) == list(want["province"])
+        assert np.allclose(got["g"], want["g"], rtol=1e-12, atol=0) and list(got["q"]) == list(want["q"])
+        for province, g in zip(got["province"], got["g"]):
+            rows = frame[(frame.year == 2024) & (frame.province == province)]
+            assert abs(g - R.gini(rows.income.to_numpy(), rows.w.to_numpy())) <= 1e-12 * g
+    relation = duckdb.connect().sql("SELECT 1.0 AS x, 2.0 AS w UNION ALL SELECT 3.0, 1.0")
+    kept = uneven.from_(relation).agg(g=uneven.gini("x", weight="w"))
+    assert [p["kind"] for p in kept.explain().passes] == ["ordered"]  # read through the relation: window plan
+    assert abs(kept.df()["g"][0] - R.gini(np.array([1.0, 3.0]), np.array([2.0, 1.0]))) <= 1e-12
+    import sqlite3
+    on_sqlite = uneven.from_(frame, con=sqlite3.connect(":memory:")).agg(g=uneven.gini("income", weight="w"))
+    assert [p["kind"] for p in on_sqlite.explain().passes] == ["ordered"]  # compiled for SQLite: never streamed

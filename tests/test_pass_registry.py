@@ -55,7 +55,7 @@ def test_generated_names_follow_the_registry_prefixes():
 def test_pass_kinds_read_as_their_names():
     # catalog entries write passes="ordered"; explain shows the kind as plain text
     assert PassKind("ordered") is PassKind.ORDERED and f"{PassKind.REFINE}" == "refine"
-    shown = uneven.explain("SELECT gini(x) FROM (VALUES (1.0), (2.0)) t(x)").passes[0]["kind"]
+    shown = uneven.explain("SELECT gini(x) FROM (VALUES (1.0), (2.0)) t(x)", ordered="window").passes[0]["kind"]
     assert shown == "ordered" and type(shown) is str
 
 

@@ -288,7 +288,9 @@ def test_cli_engine_query_lorenz_explain(engine, data, tmp_path, monkeypatch, ca
 
     assert main(["explain", "--engine", url, "SELECT gini(x) FROM t"]) == 0
     shown = capsys.readouterr().out
-    assert "ordered" in shown and (engine.name == "duckdb" or f"{engine.label}'s plan:" in shown)
+    # on DuckDB, run by uneven, the Gini streams (docs/plans.md); elsewhere the window plan's ordered pass
+    assert ("stream" if engine.name == "duckdb" else "ordered") in shown
+    assert engine.name == "duckdb" or f"{engine.label}'s plan:" in shown
 
 
 def test_cli_engine_report(engine, data, tmp_path, monkeypatch):

@@ -229,16 +229,18 @@ def test_planner_refines_only_when_every_measure_is_cut_based():
     assert _kinds("SELECT g, top_share(x, 0.1, w), quantile_w(x, 0.5, w) FROM df GROUP BY g") == ["refine"]
     # a weighted Gini beside it: the full order; on DuckDB, run by uneven, the stream plan (docs/plans.md)
     assert _kinds("SELECT g, top_share(x, 0.1, w), gini(x, w) FROM df GROUP BY g") == ["stream"]
-    assert _kinds("SELECT g, top_share(x, 0.1), gini(x) FROM df GROUP BY g") == ["ordered"]
+    assert _kinds("SELECT g, top_share(x, 0.1), gini(x) FROM df GROUP BY g") == ["stream"]  # unweighted too
+    assert _kinds("SELECT g, top_share(x, 0.1), gini(x) FROM df GROUP BY g", ordered="refine") == ["ordered"]
     assert _kinds("SELECT g, top_share(x, 0.1, w) FROM df GROUP BY g", ordered="window") == ["ordered"]
     assert _kinds("SELECT g, top_share(x, 0.1, w) FROM df GROUP BY g", tie_grouping="on") == ["ordered"]
     assert _kinds("SELECT g, top_share(x, 0.1, w) FROM df GROUP BY g", tie_grouping="on",
                   ordered="refine") == ["refine"]
     assert _kinds("SELECT g, lorenz_curve(x, 50, w) FROM df GROUP BY g") == ["ordered"]
-    reasons = [p["reason"] for p in uneven.explain("SELECT g, palma(x), gini(x) FROM df GROUP BY g").passes]
+    reasons = [p["reason"] for p in uneven.explain("SELECT g, palma(x), gini(x) FROM df GROUP BY g",
+                                                   ordered="refine").passes]
     assert reasons[0].startswith("window plan: gini needs the full order")
     # a Gini on another value leaves the cut-based value on the refine plan
-    assert sorted(_kinds("SELECT g, palma(x), gini(w) FROM df GROUP BY g")) == ["ordered", "refine"]
+    assert sorted(_kinds("SELECT g, palma(x), gini(w) FROM df GROUP BY g", ordered="refine")) == ["ordered", "refine"]
 
 
 @pytest.mark.parametrize("dialect", ["duckdb", "postgres", "spark", "sqlite", "trino", "bigquery", "snowflake"])

@@ -39,9 +39,11 @@ def reference_row(x, w) -> list:
             R.percentile_ratio(x, 0.9, 0.1, w), R.generalized_lorenz(x, 0.9, w)]
 
 
-@pytest.fixture()
-def tiny_batches(monkeypatch):
+@pytest.fixture(params=[False, True], ids=["serial", "reader_thread"])
+def tiny_batches(monkeypatch, request):
+    # batches of 7 rows, read in the caller's thread and on the reader thread (engine/prefetch.py)
     monkeypatch.setattr(stream_engine, "BATCH_ROWS", 7)
+    monkeypatch.setattr(stream_engine, "PREFETCH", request.param)
 
 
 def close(a, b, tol=1e-12) -> bool:
@@ -228,12 +230,13 @@ def test_fallback_to_the_window_plan_says_why(grouped, sql, reason):
     uneven.query(sql, con, ordered="stream")  # and it runs
 
 
-def test_auto_streams_only_a_weighted_pass_that_needs_the_full_order(grouped):
+def test_auto_streams_a_pass_that_needs_the_full_order_weighted_or_not(grouped):
     con, _ = grouped
     kinds = lambda sql: [p["kind"] for p in uneven.explain(sql, con).passes]  # noqa: E731
     assert kinds("SELECT a, gini(x, w) FROM t GROUP BY a") == ["stream"]
     assert kinds("SELECT a, top_share(x, 0.1, w) FROM t GROUP BY a") == ["refine"]
-    assert kinds("SELECT a, gini(x) FROM t GROUP BY a") == ["ordered"]
+    assert kinds("SELECT a, gini(x) FROM t GROUP BY a") == ["stream"]
+    assert kinds("SELECT a, gini(x), cv(x) FROM t GROUP BY a") == ["ordered"]  # cv fuses onto the window plan
     found = uneven.explain("SELECT a, gini(x, w) FROM t GROUP BY a", con)
     assert "bench/README.md" in found.passes[0]["reason"] and found.passes[0]["ctes"] == ["_uv_str_1"]
 
@@ -374,3 +377,175 @@ def test_values_near_the_double_limit_as_the_window_plan(tiny_batches):
     assert_same_frames(got, uneven.query(sql, con, ordered="window"))
     assert close(got.gi[0], R.gini(np.array([1e308, 1.0, 2.0])), 1e-12)  # numpy reference
     assert got.gi.isna()[1] and got.ts.isna()[1] and got.q[1] == 1e308
+
+
+# ---- the plain prefix sum of integer weights, and its fallback --------------------------------------
+
+def _exact_prefix(w, start=0) -> list[Fraction]:
+    """Running sums in exact rational arithmetic (Python fractions): the outside check."""
+    out, run = [], Fraction(start)
+    for v in w:
+        run += Fraction(float(v))
+        out.append(run)
+    return out
+
+
+@pytest.mark.parametrize("w, start, plain", [
+    (np.random.default_rng(3).integers(0, 1000, 5000).astype(float), 0.0, True),  # small integers
+    (np.array([2.0 ** 52, 2.0 ** 51, 2.0 ** 50, 1.0, 1.0]), 0.0, True),  # large, below 2^53: exact
+    (np.array([2.0 ** 53 - 4, 1.0, 1.0, 1.0, 1.0, 1.0, 3.0]), 0.0, False),  # crosses 2^53: must fall back
+    (np.array([1.0, 2.0, 3.0]), 2.0 ** 53 - 2, False),  # the carried running weight crosses it
+    (np.array([1.0, 2.0, 3.0]), 0.5, False),  # a carried running weight that is not an integer
+    (np.array([1.0, 0.1, 3.0]), 0.0, False),  # a fractional weight
+])
+def test_integer_weights_take_the_plain_prefix_sum_only_where_exact(w, start, plain):
+    from uneven.engine.streamsums import compensated_prefix, prefix_sums
+    hi, lo = prefix_sums(w, start)
+    assert (lo is None) == plain
+    exact = _exact_prefix(w, start if math.isfinite(start) else 0)
+    got = [Fraction(float(h)) + (Fraction(float(v)) if lo is not None else 0) + Fraction(start)
+           for h, v in zip(hi, lo if lo is not None else hi)]
+    assert got == exact  # exact rational arithmetic: integers below 2^53, or two-sum's recovered errors
+    c_hi, c_lo = compensated_prefix(w)  # where the plain sum is taken, the compensated one agrees bit for bit
+    if plain:
+        assert np.array_equal(hi, c_hi) and not c_lo.any()
+
+
+@pytest.mark.parametrize("scale", [1.0, 2.0 ** 46])
+def test_integer_weights_stream_as_exact_fractions_and_as_the_compensated_path(scale, tiny_batches, monkeypatch):
+    # integer weights, batches of 7 rows cutting the groups; at 2^46 each the running weight of the
+    # large group crosses 2^53 within the stream, so later batches must take the compensated path
+    import uneven.engine.streamsums as sums
+    rng = np.random.default_rng(29)
+    n = 60
+    x = rng.lognormal(3.0, 1.2, n)
+    w = rng.integers(1, 9, n).astype(float) * scale
+    g = np.where(np.arange(n) < 45, 1, 2)
+    con = duckdb.connect()
+    con.register("t", pd.DataFrame({"g": g, "x": x, "w": w}))
+    sql = "SELECT g, gini(x, w) AS gi, lorenz(x, 0.3, w) AS lo, quantile_w(x, 0.6, w) AS q FROM t GROUP BY g ORDER BY g"
+    taken = []
+    original = sums.prefix_sums
+
+    def spy(v, start=0.0):
+        out = original(v, start)
+        taken.append(out[1] is None)
+        return out
+    monkeypatch.setattr(sums, "prefix_sums", spy)
+    got = uneven.query(sql, con, ordered="stream")
+    assert any(taken) and (all(taken) if scale == 1.0 else not all(taken)), taken
+    for i, key in enumerate((1, 2)):
+        xs, ws = x[g == key], w[g == key]
+        assert rel(got.gi[i], exact_gini(xs, ws)) <= 1e-12
+        assert rel(got.lo[i], exact_lorenz(xs, ws, 0.3)) <= 1e-12
+        assert got.q[i] == float(exact_quantile(xs, ws, 0.6))
+    monkeypatch.setattr(sums, "prefix_sums", lambda v, start=0.0: sums.compensated_prefix(v))
+    assert_same_frames(got, uneven.query(sql, con, ordered="stream"), tol=0.0)
+
+
+# ---- the reader thread: errors come through, nothing is left running ------------------------------
+
+def _reader_threads() -> list:
+    import threading
+
+    from uneven.engine.prefetch import THREAD_NAME
+    return [t for t in threading.enumerate() if t.name == THREAD_NAME]
+
+
+def test_reader_thread_hands_over_items_in_order_and_the_readers_own_error():
+    from uneven.engine.prefetch import prefetched
+    failure = ValueError("the reader failed")
+
+    def reader():
+        yield from range(5)
+        raise failure
+    got = []
+    with pytest.raises(ValueError) as info:
+        for item in prefetched(reader(), depth=2):
+            got.append(item)
+    assert got == [0, 1, 2, 3, 4] and info.value is failure
+    assert not _reader_threads()
+
+
+def test_a_consumer_that_stops_leaves_no_reader_thread():
+    import contextlib
+
+    from uneven.engine.prefetch import prefetched
+    with contextlib.closing(prefetched(iter(range(10_000)), depth=1)) as items:
+        assert next(items) == 0  # the thread now waits on a full queue
+    assert not _reader_threads()
+
+
+def test_an_error_while_reducing_stops_the_reader_and_frees_the_connection(grouped, tiny_batches, monkeypatch):
+    con, _ = grouped
+    monkeypatch.setattr(stream_engine, "PREFETCH", True)
+    sql = "SELECT a, gini(x, w) FROM t GROUP BY a ORDER BY a"
+    want = uneven.query(sql, con, ordered="stream")
+    seen = []
+    original_feed = stream_engine.StreamState.feed
+
+    def failing_feed(self, batch, keys):
+        seen.append(batch.num_rows)
+        if len(seen) == 2:
+            raise uneven.ExecutionError("stopped while reducing")
+    monkeypatch.setattr(stream_engine.StreamState, "feed", failing_feed)
+    with pytest.raises(uneven.ExecutionError, match="stopped while reducing"):
+        uneven.query(sql, con, ordered="stream")
+    assert not _reader_threads()
+    monkeypatch.setattr(stream_engine.StreamState, "feed", original_feed)
+    assert_same_frames(uneven.query(sql, con, ordered="stream"), want, tol=0.0)  # the connection still works
+
+
+def test_reader_errors_are_the_serial_paths_errors(monkeypatch):
+    # an Arrow reader failing midway: the same UnevenError with and without the reader thread
+    import pyarrow as pa
+
+    from uneven.compiler.passes.stream import StreamJob
+
+    def batches():
+        yield pa.record_batch({"_uv_x": pa.array([1.0, 2.0]), "_uv_w": pa.array([1.0, 1.0])})
+        raise pa.ArrowInvalid("the rows stopped coming")
+
+    class Relation:
+        def to_arrow_reader(self, rows):
+            schema = pa.schema([("_uv_x", pa.float64()), ("_uv_w", pa.float64())])
+            return pa.RecordBatchReader.from_batches(schema, batches())
+
+    class Connection:  # DuckDB's connection, but for the rows query
+        def __init__(self):
+            self.con = duckdb.connect()
+
+        def sql(self, q):
+            return Relation()
+
+        def __getattr__(self, name):
+            return getattr(self.con, name)
+    job = StreamJob("_uv_str_1", [], True, None, None, [], [])
+    job.rows_sql = "SELECT 1"
+    errors = []
+    for prefetch in (True, False):
+        monkeypatch.setattr(stream_engine, "PREFETCH", prefetch)
+        with pytest.raises(uneven.UnevenError) as info:
+            stream_engine.run_job(Connection(), job)
+        errors.append((type(info.value), str(info.value)))
+    assert errors[0] == errors[1] and "the rows stopped coming" in errors[0][1]
+    assert not _reader_threads()
+
+
+def test_values_out_of_order_within_a_group_are_caught_and_a_new_group_may_start_lower():
+    # the order check (docs/plans.md, "Memory"): a value below its predecessor is allowed only where a
+    # group starts, also across a batch boundary
+    import pyarrow as pa
+
+    from uneven.catalog.kernels import Need
+    from uneven.engine.streamsums import StreamState
+
+    def fed(*batches) -> bool:
+        state = StreamState([Need("W")], weighted=False)
+        for keys, xs in batches:
+            state.feed(pa.record_batch({"_uv_k1": pa.array(keys), "_uv_x": pa.array(xs, pa.float64())}), ["_uv_k1"])
+        return state.unsorted
+    assert not fed(([1, 1, 2, 2], [5.0, 6.0, 1.0, 2.0]))  # steps down where the group starts
+    assert fed(([1, 1, 2, 2], [5.0, 6.0, 2.0, 1.0]))  # steps down inside group 2
+    assert not fed(([1, 1], [5.0, 6.0]), ([2, 2], [1.0, 2.0]))
+    assert fed(([1, 1], [5.0, 6.0]), ([1, 2], [4.0, 7.0]))  # group 1 goes on lower in the next batch

@@ -72,8 +72,8 @@ def query(sql: str, con=None, *, memory_limit: str | None = None,
     ``attrs["uneven"]`` tells the resolution used and the widest interval of each measure. With a
     ``tolerance``, a Gini interval wider than it makes the query run once more with finer bins.
     ``ordered``: see ``compile``; on DuckDB also ``"stream"``: DuckDB sorts the pass's rows and numpy
-    reduces them batch by batch (docs/plans.md); ``"auto"`` streams a weighted pass whose measures
-    need the full order (Gini and its family), where it is measured to be cheaper.
+    reduces them batch by batch (docs/plans.md); ``"auto"`` streams a pass whose measures need the
+    full order (Gini and its family), weighted or not, where it is measured to be cheaper.
     """
     method = check_method(method)
     chosen = pick_resolution(method, tolerance, resolution)

@@ -21,10 +21,14 @@ from uneven.compiler import compile_sql
 from uneven.compiler.bounded import check_method
 from uneven.compiler.context import CompileOptions
 from uneven.compiler.emit import to_sql
+from uneven.compiler.pipeline import compile_with_context
 from uneven.engine.adapters import adapt, is_duckdb
 from uneven.engine.bounded import bounded_resolution, pick_resolution, run_bounded
+from uneven.engine.columns import DuckDBSchema
 from uneven.engine.runner import connect, translate_error
+from uneven.engine.stream import StreamMemoryError, execute_streamed
 from uneven.errors import MeasureArgumentError, SqlParseError, UnevenError
+from uneven.explain import Explanation, explain_on, explain_query
 from uneven.sqltree import build as s
 
 SOURCE = "_uv_source"
@@ -137,13 +141,61 @@ class Query:
             if isinstance(self.frame, duckdb.DuckDBPyRelation):
                 self._check_types(dict(zip(self.frame.columns, map(str, self.frame.types))))
                 return self.frame.query(SOURCE, compiled)
-            if self.frame is not None:
-                con.register(SOURCE, self.frame)
-            probe = con.sql(to_sql(exp.select("*").from_(self.source.copy()).limit(0)))
-            self._check_types(dict(zip(probe.columns, map(str, probe.types))))
+            self._register(con)
             return con.sql(compiled)
         except duckdb.Error as e:
             raise translate_error(e) from None
+
+    def _run_streamed(self, ordered: str) -> pd.DataFrame:
+        """An exact run on DuckDB as ``uneven.query`` does it: compiled with the connection's probes, an
+        ordered pass may stream (engine/stream.py; docs/plans.md); with ``ordered="auto"``, a stream that
+        does not fit in the memory limit runs again on the window plan."""
+        con = connect(self.con)
+        try:
+            self._register(con)
+            sql = to_sql(self.tree())
+            compiled, ctx = compile_with_context(sql, CompileOptions(pretty=False, ordered=ordered, stream=True),
+                                                 DuckDBSchema(con))
+            try:
+                return execute_streamed(con, compiled, ctx.stream_jobs)
+            except StreamMemoryError:
+                if ordered != "auto":
+                    raise
+            return con.sql(compile_sql(sql, CompileOptions(pretty=False, ordered="window"),
+                                       DuckDBSchema(con))).df()
+        except duckdb.Error as e:
+            raise translate_error(e) from None
+
+    def _register(self, con: duckdb.DuckDBPyConnection) -> None:
+        """Register a frame source and check the types of the measures' columns."""
+        if self.frame is not None:
+            con.register(SOURCE, self.frame)
+        probe = con.sql(to_sql(exp.select("*").from_(self.source.copy()).limit(0)))
+        self._check_types(dict(zip(probe.columns, map(str, probe.types))))
+
+    def explain(self, *, profile: bool = False, ordered: str = "auto") -> Explanation:
+        """The passes ``.df()`` runs on DuckDB, as ``uneven.explain`` gives them (which plan each ordered
+        pass takes, and why); with ``profile=True`` the query runs once under DuckDB's profiler."""
+        if not is_duckdb(self.con):
+            adapter = adapt(self.con)
+            if self.frame is not None:
+                adapter.register(SOURCE, self.frame)
+            try:
+                return explain_on(to_sql(self.tree()), adapter, CompileOptions(ordered=ordered), profile=profile)
+            finally:
+                if self.frame is not None:
+                    adapter.unregister(SOURCE)
+        if isinstance(self.frame, duckdb.DuckDBPyRelation):  # run through the relation itself: never streamed
+            compiled, ctx = compile_with_context(to_sql(self.tree()), CompileOptions(ordered=ordered))
+            return Explanation(passes=ctx.chosen, sql=compiled)
+        con = connect(self.con)
+        try:
+            self._register(con)
+            return explain_query(to_sql(self.tree()), con, CompileOptions(ordered=ordered), profile=profile)
+        except duckdb.Error as e:
+            raise translate_error(e) from None
+        finally:
+            self._cleanup()
 
     def _run_on(self, method: str = "exact", resolution: float | None = None) -> pd.DataFrame:
         """Run on an engine other than DuckDB (the builder's ``con``: engine/adapters)."""
@@ -166,6 +218,9 @@ class Query:
     def df(self, *, method: str | None = None, tolerance: float | None = None,
            resolution: float | None = None) -> pd.DataFrame:
         """Run on DuckDB, or on the engine of ``con`` given to ``from_`` (PostgreSQL, Spark, SQLite).
+        On DuckDB an exact run is planned as ``uneven.query`` plans it, so an ordered pass may take the
+        stream plan (docs/plans.md; ``.explain()`` says which), except over a DuckDB relation, which
+        is read through the relation itself and keeps the window plan.
         ``method="bounded"`` (or an earlier ``.method("bounded")``): intervals, as ``uneven.query``
         gives them, with the resolution and widths in ``attrs["uneven"]`` and one run with finer bins
         when a share-scale interval is wider than ``tolerance``."""
@@ -176,6 +231,8 @@ class Query:
             return run_bounded(lambda r: self._run_on(name, r), bounded_resolution(tol, res), tol,
                                to_sql(self.tree()))
         try:
+            if name == "exact" and not isinstance(self.frame, duckdb.DuckDBPyRelation):
+                return self._run_streamed("auto")
             if name == "exact":
                 return self._run().df()
             return run_bounded(lambda r: self._run(name, r).df(), bounded_resolution(tol, res), tol,

@@ -12,7 +12,7 @@ as the same ``UnevenError``s as from the window plan.
 from __future__ import annotations
 
 import contextlib
-from collections.abc import Iterator
+from collections.abc import Generator, Iterator
 
 import duckdb
 import numpy as np
@@ -20,6 +20,7 @@ import pandas as pd
 import pyarrow as pa
 
 from uneven.compiler.passes.stream import StreamJob
+from uneven.engine.prefetch import prefetched
 from uneven.engine.runner import translate_error
 from uneven.engine.streamsums import GroupValues, StreamState, same_keys
 from uneven.errors import ExecutionError
@@ -33,6 +34,11 @@ class StreamMemoryError(ExecutionError):
 # rows per Arrow batch: large enough that numpy's per-batch overhead vanishes (a few dozen numpy
 # calls per batch), small enough that a batch of keys, x and w stays a few MB of the memory limit
 BATCH_ROWS = 1 << 16
+# read the batches ahead on a thread of their own while numpy reduces the last ones (engine/prefetch.py):
+# off, since it measured 4-5% slower on a shared machine (DuckDB holds the GIL for about 60% of a
+# batch's fetch, so little overlaps; bench/README.md, "Stream plan"); bench/stream.py's stream_p
+# case measures it against the serial loop in the same run
+PREFETCH = False
 
 
 def run_job(con: duckdb.DuckDBPyConnection, job: StreamJob, batch_rows: int | None = None) -> pa.Table:
@@ -57,10 +63,11 @@ def run_job(con: duckdb.DuckDBPyConnection, job: StreamJob, batch_rows: int | No
         reader = con.sql(job.rows_sql).to_arrow_reader(batch_rows)
         schema = reader.schema
         try:  # an overflowing sum is allowed: such a group takes the scaled form, or is NULL
-            with np.errstate(over="ignore", invalid="ignore"):
-                for batch in reader:
+            with np.errstate(over="ignore", invalid="ignore"), \
+                    contextlib.closing(prefetched(reader) if PREFETCH else _serial(reader)) as batches:
+                for batch in batches:
                     state.feed(batch, job.keys)
-        finally:
+        finally:  # (the reader thread is joined first: closing(prefetched) returns only then)
             reader.close()  # an open result refuses every later call on the connection
     except (duckdb.Error, pa.ArrowException, OSError) as e:  # DuckDB's errors may surface through the Arrow reader
         error = translate_error(e)
@@ -109,6 +116,10 @@ def streamed(con: duckdb.DuckDBPyConnection, jobs: list[StreamJob], batch_rows: 
     finally:
         for name in registered:
             con.unregister(name)
+
+
+def _serial(reader: pa.RecordBatchReader) -> Generator[pa.RecordBatch, None, None]:
+    yield from reader
 
 
 def _distinct_rows(keys: pa.Table) -> int:

@@ -91,17 +91,36 @@ class GroupValues:
         return np.array([np.nan if v is None else float(v) for v in out], dtype=np.float64)
 
 
-def compensated_prefix(v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+EXACT_BELOW = 2.0 ** 53  # every integer up to 2^53 is a double: sums of integers below it are exact
+
+
+def prefix_sums(w: np.ndarray, start: float = 0.0) -> tuple[np.ndarray, np.ndarray | None]:
+    """The running sums of the weights ``w`` (non-negative: the input policy stops a negative one) as
+    (hi, lo), hi + lo to a few units of the last place; lo is None where hi is exact as it is: the
+    weights are integers and ``start`` (the running weight carried into them; inf when it is not
+    an exact integer) plus their sum stays below 2^53, so no step of the plain cumsum rounds (a
+    cumsum of integers is exact while every partial sum is an integer of at most 53 bits)."""
+    hi = np.cumsum(w)
+    if (len(w) and start + hi[-1] < EXACT_BELOW and float(start).is_integer()
+            and (w[:64] == np.floor(w[:64])).all() and (w == np.floor(w)).all()):  # (fractions: seen at once)
+        return hi, None
+    return compensated_prefix(w, hi)
+
+
+def compensated_prefix(v: np.ndarray, hi: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """(hi, lo): hi the running sums as np.cumsum gives them, lo the running sum of each step's exact
     rounding error (two-sum: a + b = s + e exactly for s = fl(a + b)), so hi + lo is the prefix sum to
-    a few units of the last place whatever the number of rows."""
-    hi = np.cumsum(v)
-    prev = np.empty_like(hi)
-    prev[0] = 0.0
-    prev[1:] = hi[:-1]
-    bp = hi - prev
-    err = (prev - (hi - bp)) + (v - bp)
-    return hi, np.cumsum(err)
+    a few units of the last place whatever the number of rows (``hi``: np.cumsum(v), when known)."""
+    hi = np.cumsum(v) if hi is None else hi
+    err = np.zeros_like(hi)  # the first step, 0 + v[0], is exact
+    if len(hi) > 1:  # in place, two arrays for five passes: s = prev + v rounded, bp = s − prev
+        prev, s, e = hi[:-1], hi[1:], err[1:]
+        bp = np.subtract(s, prev)
+        np.subtract(s, bp, out=e)
+        np.subtract(prev, e, out=e)  # prev − (s − bp)
+        np.subtract(v[1:], bp, out=bp)  # v − bp
+        np.add(e, bp, out=e)
+    return hi, np.cumsum(err, out=err)
 
 
 def _same(a, b) -> bool:
@@ -127,6 +146,10 @@ def key_changes(cols: list[pa.Array], n: int) -> np.ndarray:
     for col in cols:
         if n < 2:
             break
+        if pa.types.is_integer(col.type) and col.null_count == 0:  # the common key: numpy, no copy
+            k = col.to_numpy()
+            changed[1:] |= k[1:] != k[:-1]
+            continue
         a, b = col.slice(1), col.slice(0, n - 1)
         try:
             ne = pc.fill_null(pc.not_equal(a, b), False)
@@ -180,40 +203,46 @@ class StreamState:
         if len(new):
             self.key_parts.append(batch.select(key_names).take(pa.array(new)))
         nseg = len(seg)
-        segidx = np.cumsum(np.bincount(seg, minlength=n) > 0) - 1 if nseg > 1 else np.zeros(n, dtype=np.int64)
+        lens = np.diff(np.append(seg, n))  # rows per segment (seg[0] is 0: the batch starts a segment)
+
+        def spread(per_segment: np.ndarray):  # each segment's value on each of its rows
+            return per_segment[0] if nseg == 1 else np.repeat(per_segment, lens)
         # the group index of each segment (the first may be the open group)
         gidx = self.started - (1 if continues else 0) + np.arange(nseg)
         self.started += len(new)
 
         x = batch.column("_uv_x").to_numpy(zero_copy_only=False).astype(np.float64, copy=False)
-        steps = np.diff(x) < 0
-        if (steps & ~starts_mask[1:]).any() or (continues and x[0] < self.last_x):
+        steps = x[1:] < x[:-1]  # (a step down is allowed only where a group starts: checked where there is one)
+        if (steps.any() and (steps & ~starts_mask[1:]).any()) or (continues and x[0] < self.last_x):
             self.unsorted = True
         self.last_x = float(x[-1])
         m_seg = x[seg].copy()
         if carried is not None and continues:
             m_seg[0] = carried["m"]
-        d = x - m_seg[segidx]
+        d = x - spread(m_seg)
 
         if self.weighted:
             w = batch.column("_uv_w").to_numpy(zero_copy_only=False).astype(np.float64, copy=False)
-            hi, lo = compensated_prefix(w)
-            base_hi = np.where(seg > 0, hi[seg - 1], 0.0)
-            base_lo = np.where(seg > 0, lo[seg - 1], 0.0)
-            c_hi = hi - base_hi[segidx]
-            c_lo = lo - base_lo[segidx]
+            carry_hi, carry_lo = (self.carry_hi, self.carry_lo) if continues else (0.0, 0.0)
+            hi, lo = prefix_sums(w, carry_hi if carry_lo == 0.0 else math.inf)
+            c_hi = hi - spread(np.where(seg > 0, hi[seg - 1], 0.0)) if nseg > 1 else hi
             if continues:
-                first_seg = segidx == 0
-                c_hi[first_seg] += self.carry_hi
-                c_lo[first_seg] += self.carry_lo
-            c = c_hi + c_lo
-            self.carry_hi, self.carry_lo = float(c_hi[-1]), float(c_lo[-1])
+                c_hi[:seg[1] if nseg > 1 else n] += carry_hi  # the open group's rows come first
+            if lo is None:  # integers below 2^53: every running weight is exact as it is
+                c = c_hi
+                self.carry_hi, self.carry_lo = float(c_hi[-1]), 0.0
+            else:
+                c_lo = lo - spread(np.where(seg > 0, lo[seg - 1], 0.0)) if nseg > 1 else lo
+                if continues:
+                    c_lo[:seg[1] if nseg > 1 else n] += carry_lo
+                c = c_hi + c_lo
+                self.carry_hi, self.carry_lo = float(c_hi[-1]), float(c_lo[-1])
         else:
             w = None
             rows = np.arange(1, n + 1, dtype=np.float64)
-            c = rows - np.where(seg > 0, seg, 0).astype(np.float64)[segidx]
+            c = rows - spread(seg.astype(np.float64)) if nseg > 1 else rows
             if continues:
-                c[segidx == 0] += self.carry_hi
+                c[:lens[0]] += self.carry_hi
             self.carry_hi, self.carry_lo = float(c[-1]), 0.0
 
         part = self._segment_values(x, d, w, c, seg, gidx, m_seg, carried if continues else None)
