@@ -270,7 +270,8 @@ def test_sub_bins_are_exact_on_crowded_bins(engine, crowded_want):
 
 
 def _rows_sorted(con, sql: str) -> int:
-    """How many rows the refine plan sorts: the row count of its in CTE (the only per-row window)."""
+    """How many rows the refine plan sorts: the row count of its in CTE (the only window over rows:
+    the distinct values of the cut sub-bins)."""
     import sqlglot
     tree = sqlglot.parse_one(uneven.compile(sql, ordered="refine"), read="duckdb")
     name = next(c.alias for c in tree.args["with_"].expressions if c.alias.endswith("_in"))
@@ -287,12 +288,17 @@ def test_sub_bins_sort_few_rows_of_a_crowded_group():
     n = 200_000
     con = duckdb.connect()
     con.register("c", pd.DataFrame({"x": 1000.0 * (1.0 + 5e-5 * rng.random(n)), "w": rng.integers(1, 5, n) * 1.0,
-                                    "flat": np.where(np.arange(n) < 50, 999.99, 1000.0)}))
+                                    "flat": np.where(np.arange(n) < 50, 999.99, 1000.0),
+                                    "noisy": np.where(np.arange(n) < n // 100, 1000.0 + rng.uniform(-0.01, 0.01, n),
+                                                      1000.0)}))
     # 200,000 values within 5e-5 relative: one bin; four cuts, each in a sub-bin of about n/1024 rows
     sql = "SELECT top_share(x, 0.1, w), palma(x, w), quantile_w(x, 0.5, w) FROM c"
     assert 0 < _rows_sorted(con, sql) < 4 * 3 * n / 1024
     # a near-constant column: the cut sub-bins hold one value, nothing is sorted
     assert _rows_sorted(con, "SELECT top_share(flat, 0.1, w), quantile_w(flat, 0.5, w) FROM c") == 0
+    # near-constant with 1 % noise: the cut sub-bin holds the big tie run and a few other values,
+    # and a tie run is one row of the in CTE
+    assert 0 < _rows_sorted(con, "SELECT top_share(noisy, 0.1, w), quantile_w(noisy, 0.5, w) FROM c") < 100
 
 
 # ---- the same outcome as the window plan, and the planner's choice -----------------------------

@@ -17,7 +17,8 @@ sm CTE    … running weight inside the bin offset by the bin's C_b⁻ (C⁻ bef
           it), the value before (S⁻) or after (S⁺) it inside the bin, and per cut c its sub-bin k_c
           (the first reaching the cut; the bin's last when rounding leaves none reaching it)
 sn CTE    the cut sub-bins whose min < max
-in CTE    their rows, with the running weight inside the sub-bin                (the only sort)
+in CTE    their distinct values with each one's total weight (a GROUP BY), and the running weight
+          inside the sub-bin                          (the only sort: of the distinct values)
 part CTE  keys, per cut, the part of the cut bin: its sub-bins' totals before (or after) the cut's
           sub-bin, plus that sub-bin's own part (closed form, or the sorted rows)   GROUP BY keys
 """
@@ -130,19 +131,20 @@ def sub_bin_ctes(name: str, rows: exp.Subquery, rows_alias: str, nk: int, cuts, 
     sneed = exp.Select(expressions=group([s.col(c) for c in carried_sn]) + [j.copy() for j in js] + [
         k.copy() for k in ks]).from_(table(sm)).where(s.and_(s.lt(s.col("_uv_lo"), s.col("_uv_hi")), any_cut.copy()))
 
-    # in: the rows of those sub-bins, with the running weight inside the sub-bin
+    # in: the distinct values of those sub-bins with their total weight (a tie run is one row: its
+    # clamps add up to one clamp of its weight), and the running weight inside the sub-bin
     on = s.and_(*null_safe_keys(nk, cr, sn), exp.EQ(this=s.col("_uv_b", cr), expression=s.col("_uv_b", sn)),
                 exp.EQ(this=s.col("_uv_sb", cr), expression=s.col("_uv_sb", sn)))
-    cx, cw = s.col("_uv_x", cr), (s.col("_uv_w", cr) if weighted else s.lit(1.0))
-    part_by = [s.col(key_name(i), cr) for i in range(nk)] + [s.col("_uv_b", cr), s.col("_uv_sb", cr)]
-    running = (s.window(s.agg_sum(cw.copy()), part_by, [cx.copy()], running=True) if weighted
-               else s.cast_double(s.window(exp.RowNumber(), part_by, [cx.copy()])))
-    in_cols = [s.alias(s.col(key_name(i), cr), key_name(i)) for i in range(nk)] + [s.alias(cx.copy(), "_uv_x")] + (
-        [s.alias(cw.copy(), "_uv_w")] if weighted else []) + [
-        s.alias(s.col(n, sn), n) for n in carried_sn] + [
-        s.alias(s.col(c.name, sn), c.name) for c in js + ks] + [s.alias(running, "_uv_ci")]
-    inside = exp.Select(expressions=in_cols).from_(table(cr))
-    inside.append("joins", exp.Join(this=table(sn), on=on))
+    by_value = [s.col(key_name(i), cr) for i in range(nk)] + [s.col(c, cr) for c in ("_uv_b", "_uv_sb", "_uv_x")]
+    tie_weight = s.agg_sum(s.col("_uv_w", cr)) if weighted else s.cast_double(s.agg_count_star())
+    values = exp.Select(expressions=[s.alias(c.copy(), c.name) for c in by_value] + [s.alias(tie_weight, "_uv_w")] + [
+        s.alias(s.agg_max(s.col(n, sn)), n) for n in carried_sn if n not in ("_uv_b", "_uv_sb")] + [
+        s.alias(s.agg_max(s.col(c.name, sn)), c.name) for c in js + ks]).from_(table(cr))
+    values.append("joins", exp.Join(this=table(sn), on=on))
+    values.set("group", exp.Group(expressions=[c.copy() for c in by_value]))
+    running = s.window(s.agg_sum(s.col("_uv_w")), group([b.copy(), s.col("_uv_sb")]), [x.copy()], running=True)
+    inside = exp.Select(expressions=[exp.Star(), s.alias(running, "_uv_ci")]).from_(
+        exp.Subquery(this=values, alias=exp.TableAlias(this=exp.to_identifier("_uv_t", quoted=True))))
 
     # part: per cut, the sub-bin totals before (after) its sub-bin plus that sub-bin's own part, from
     # the sub-bins (closed form when it holds one value; its largest value for a quantile, the
@@ -151,6 +153,7 @@ def sub_bin_ctes(name: str, rows: exp.Subquery, rows_alias: str, nk: int, cuts, 
     wsub = s.col("_uv_wb")
     from_subs, from_rows = group(), group()
     c_i = s.add(cs.copy(), s.col("_uv_ci"))
+    tw = s.col("_uv_w")  # the weight of a value's tie run in the in CTE
     for i, cut in enumerate(cuts, 1):
         q = f"_uv_q{i}"
         if cut.kind == "quantile":
@@ -160,7 +163,7 @@ def sub_bin_ctes(name: str, rows: exp.Subquery, rows_alias: str, nk: int, cuts, 
             continue
         if cut.kind == "below":
             room_one = s.sub(s.mul(s.lit(cut.p), wt.copy()), cs.copy())
-            room_row = s.sub(s.mul(s.lit(cut.p), wt.copy()), s.sub(c_i.copy(), w.copy()))
+            room_row = s.sub(s.mul(s.lit(cut.p), wt.copy()), s.sub(c_i.copy(), tw.copy()))
             held = s.col("_uv_sp")
         else:
             room_one = s.sub(s.add(cs.copy(), wsub.copy()), s.mul(s.lit(1.0 - cut.p), wt.copy()))
@@ -169,7 +172,7 @@ def sub_bin_ctes(name: str, rows: exp.Subquery, rows_alias: str, nk: int, cuts, 
         single = s.case(exp.EQ(this=lo.copy(), expression=hi.copy()),
                         s.mul(lo.copy(), s.clamp(room_one, zero.copy(), wsub.copy())), zero.copy())
         from_subs.append(s.alias(s.case(at_cut(i - 1), s.add(held, single)), q))
-        from_rows.append(s.alias(s.case(at_cut(i - 1), s.mul(x.copy(), s.clamp(room_row, zero.copy(), w.copy()))), q))
+        from_rows.append(s.alias(s.case(at_cut(i - 1), s.mul(x.copy(), s.clamp(room_row, zero.copy(), tw.copy()))), q))
     subs_q = exp.Select(expressions=from_subs).from_(table(sm)).where(any_cut.copy())
     rows_q = exp.Select(expressions=from_rows).from_(table(inn))
     both = exp.union(subs_q, rows_q, distinct=False)
