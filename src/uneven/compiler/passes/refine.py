@@ -12,7 +12,9 @@ cum CTE   … running weight C_b up to and with the bin, C_b⁻ before it, the v
           (S_b⁻) or above (S_b⁺) it, group totals W and T            (windows over the bins only)
 mark CTE  … per cut c, j_c = the first bin of the group where the cut is reached
 need CTE  the cut bins whose min < max (a bin of one value needs no order)
-in CTE    the rows of those bins (a join on keys and b), with the running weight inside the bin
+cr … in   sub-bins between each such bin's min and max, and a sort of the distinct values of the
+          sub-bins holding a cut only (refine_sub.py); with standard errors instead the in CTE:
+          every row of those bins (a join on keys and b) with its running weight inside the bin
 part CTE  keys, per cut, the interpolated part inside its bin                GROUP BY keys
 cut CTE   keys, W, T, largest x and, per cut, the cut bin's C_b⁻, S_b⁻ or S_b⁺, min, max, Σw
 result    keys, one column per call: cut LEFT JOIN part
