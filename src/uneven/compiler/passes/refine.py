@@ -224,8 +224,10 @@ def _frame(fn, keys, start, start_side, end, end_side=None):
 _null_safe_keys = sub.null_safe_keys
 
 
-def lower_refine_pass(source: Source, main, plan, name: str) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:
-    """CTEs of one refine pass and, for each call key, the column that holds its result."""
+def lower_refine_pass(source: Source, main, plan, name: str,
+                      sub_bins: bool = True) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:
+    """CTEs of one refine pass and, for each call key, the column that holds its result; ``sub_bins``
+    False sorts each cut bin whole (as with standard errors)."""
     weighted = plan.trailing is not None
     ctx = RefineContext(weighted, name)
     out_cols: list[exp.Expression] = []
@@ -313,12 +315,13 @@ def lower_refine_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
             s.lit(se.TIGHT), s.greatest(s.absval(gl.copy()), s.absval(gh.copy())))))
         read = s.or_(s.paren(read), s.paren(tight))
     carried = ("_uv_b", "_uv_cp", "_uv_wt") + (("_uv_nt",) if dynamic else ())
-    bounds = () if with_se else ("_uv_lo", "_uv_hi")  # the sub-bins are cut between the bin's min and max
+    sorted_whole = with_se or not sub_bins
+    bounds = () if sorted_whole else ("_uv_lo", "_uv_hi")  # the sub-bins are cut between the bin's min and max
     need = exp.Select(expressions=group() + [s.col(n) for n in carried + bounds] + [j.copy() for j in js]
                       ).from_(table(f"{name}_mark")).where(read.copy())
 
     nd = f"{name}_need"
-    if with_se:  # the variance reads each row of the cut bins with its running weight: sorted whole
+    if sorted_whole:  # the variance reads each row of the cut bins with its running weight: sorted whole
         inner_ctes = _sorted_cut_bins(source, plan, name, nk, ctx, carried, js)
     else:  # a second level of bins inside the cut bins, and a sort of the cut sub-bins only
         inner_ctes = sub.sub_bin_ctes(name, _rows(source, plan), ROWS_ALIAS, nk, ctx.cuts, weighted, carried, _level)
@@ -436,7 +439,9 @@ PREFIX = "ref"
 
 def lower(source: Source, main, plan, name: str | None, settings) -> tuple[list[exp.CTE], dict]:
     assert name is not None  # a pass with a PREFIX is given its CTE name
-    return lower_refine_pass(source, main, plan, name)
+    # Spark inlines every CTE where it is read; with the sub-bins' CTEs its driver ran out of memory
+    # planning a query of many cuts (docs/refine.md, "Crowded bins"): there the cut bins are sorted whole
+    return lower_refine_pass(source, main, plan, name, sub_bins=getattr(settings, "dialect", "duckdb") != "spark")
 
 
 __all__ = ["KIND", "PREFIX", "lower", "lower_refine_pass", "refinable", "RefineContext", "bin_key", "BUILDS"]
