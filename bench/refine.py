@@ -15,6 +15,16 @@ memory_limit 1GB by default:
 
 Prints times (median of --repeat), peak RSS, the ratios the targets are stated in, and the largest
 relative difference between the refine and window results. Data: bench/gen_data.py (bench/data/).
+
+    python bench/refine.py --crowded --rows 2000000 --cases window,refine
+    python bench/refine.py --crowded --baseline /path/to/other/src --cases refine,refine_base
+
+``--crowded`` makes its own small files instead (numpy, fixed seed, bench/data/crowd_*.parquet):
+``lognormal`` (--rows rows x 100 groups, as g1000), ``crowded`` (--rows rows in one group, values
+within 5e-5 relative of 1000: one 2 % bin holds every row) and ``flat`` (--rows rows in one group,
+99 % exactly 1000 and 1 % within 1000 ± 0.01: a near-constant group). ``--baseline`` times the
+refine plan compiled by another source tree of the package as the case ``refine_base`` (both in the
+same run, to measure a change of the plan).
 """
 
 from __future__ import annotations
@@ -31,6 +41,31 @@ from pathlib import Path
 BENCH = Path(__file__).resolve().parent
 MEASURES = "top_share(x, 0.1, w), palma(x, w), s80s20(x, w), quantile_w(x, 0.5, w)"
 CASES = ("sort", "scan", "bins", "window", "refine")
+CROWDED = ("lognormal", "crowded", "flat")
+CROWD_SEED = 20261204
+
+
+def crowded_file(kind: str, rows: int) -> Path:
+    """bench/data/crowd_<kind>_<rows>.parquet, written once (numpy, fixed seed)."""
+    import numpy as np
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+    path = BENCH / "data" / f"crowd_{kind}_{rows}.parquet"
+    if path.exists():
+        return path
+    rng = np.random.default_rng([CROWD_SEED, CROWDED.index(kind)])
+    if kind == "lognormal":
+        grp = rng.integers(0, 100, rows).astype(np.int32)
+        x = np.exp(rng.uniform(-1.5, 1.5, 100))[grp] * 1000.0 * np.exp(rng.standard_normal(rows))
+    elif kind == "crowded":
+        grp = np.zeros(rows, np.int32)
+        x = 1000.0 * (1.0 + 5e-5 * rng.random(rows))
+    else:
+        grp = np.zeros(rows, np.int32)
+        x = np.where(rng.random(rows) < 0.01, 1000.0 + rng.uniform(-0.01, 0.01, rows), 1000.0)
+    path.parent.mkdir(exist_ok=True)
+    pq.write_table(pa.table({"grp": grp, "x": x, "w": rng.uniform(0.5, 3.0, rows)}), path)
+    return path
 
 
 def _bins_sql(path: str) -> str:
@@ -54,7 +89,7 @@ def child(case: str, path: str, memory_limit: str, threads: int) -> dict:
            "scan": f"SELECT grp, sum(x), sum(w), count(*) FROM read_parquet('{path}') GROUP BY grp",
            "bins": _bins_sql(path)}.get(case)
     if sql is None:
-        sql = uneven.compile(query, ordered=case, pretty=False)
+        sql = uneven.compile(query, ordered="refine" if case == "refine_base" else case, pretty=False)
     t0 = time.perf_counter()
     rows = con.execute(sql).fetchall()
     seconds = time.perf_counter() - t0
@@ -63,16 +98,20 @@ def child(case: str, path: str, memory_limit: str, threads: int) -> dict:
         if line.startswith("VmHWM:"):
             hwm = int(line.split()[1]) / 1024
     out = {"seconds": seconds, "peak_rss_mb": hwm}
-    if case in ("window", "refine"):
+    if case in ("window", "refine", "refine_base"):
         out["rows"] = [list(r) for r in rows]
     return out
 
 
 def run_case(case: str, path: Path, a) -> dict:
+    import os
+    env = dict(os.environ)
+    if case == "refine_base":
+        env["PYTHONPATH"] = a.baseline
     with tempfile.TemporaryDirectory() as td:
         out = Path(td) / "out.json"
         subprocess.run([sys.executable, __file__, "--child", case, "--file", str(path), "--out", str(out),
-                        "--memory-limit", a.memory_limit, "--threads", str(a.threads)], check=True)
+                        "--memory-limit", a.memory_limit, "--threads", str(a.threads)], check=True, env=env)
         return json.loads(out.read_text())
 
 
@@ -95,6 +134,9 @@ def main(argv=None) -> int:
     p.add_argument("--memory-limit", default="1GB")
     p.add_argument("--threads", type=int, default=2)
     p.add_argument("--cases", default=",".join(CASES))
+    p.add_argument("--crowded", action="store_true", help="the small crowded files (module docstring)")
+    p.add_argument("--rows", type=int, default=2_000_000, help="rows of each --crowded file")
+    p.add_argument("--baseline", help="another source tree (its src/) timed as the case refine_base")
     p.add_argument("--child", help=argparse.SUPPRESS)
     p.add_argument("--file", help=argparse.SUPPRESS)
     p.add_argument("--out", help=argparse.SUPPRESS)
@@ -102,8 +144,9 @@ def main(argv=None) -> int:
     if a.child:
         Path(a.out).write_text(json.dumps(child(a.child, a.file, a.memory_limit, a.threads)))
         return 0
-    for kind in a.datasets.split(","):
-        path = BENCH / "data" / f"{kind}.parquet"
+    kinds = CROWDED if a.crowded and a.datasets == "g1000,one" else a.datasets.split(",")
+    for kind in kinds:
+        path = crowded_file(kind, a.rows) if a.crowded else BENCH / "data" / f"{kind}.parquet"
         if not path.exists():
             print(f"{path} missing: python bench/gen_data.py --kinds {kind}", file=sys.stderr)
             return 1
@@ -115,6 +158,9 @@ def main(argv=None) -> int:
             print(f"{kind:6} {case:7} {results[case]['seconds']:8.2f} s  peak RSS {results[case]['peak_rss_mb']:6.0f} MB",
                   flush=True)
         t = {c: r["seconds"] for c, r in results.items()}
+        if "refine" in t and "refine_base" in t:
+            print(f"{kind}: refine / refine_base {t['refine'] / t['refine_base']:.2f}; max relative difference "
+                  f"{_max_rel(results['refine']['rows'], results['refine_base']['rows']):.1e}")
         if "refine" in t and "window" in t:
             print(f"{kind}: refine / window {t['refine'] / t['window']:.2f}; max relative difference "
                   f"{_max_rel(results['refine']['rows'], results['window']['rows']):.1e}")

@@ -199,6 +199,108 @@ def test_refine_plan_raises_the_input_policy_errors(engine, data):
         engine.run("SELECT g, top_share(x, 0.1, w - 3) FROM t GROUP BY g", ordered="refine")
 
 
+# ---- crowded bins: the second level of sub-bins (refine_sub.py) ------------------------------------
+
+def crowded_data() -> pd.DataFrame:
+    """Groups whose values sit in one or two 2 % bins, so every cut falls in a crowded bin and the
+    sub-bins between the bin's min and max decide which rows are sorted."""
+    rng = np.random.default_rng(20261204)
+    groups = {}
+    n = 1500
+    # values within 5e-5 relative of 1000, a long tie run inside, integer weights
+    wide = np.round(1000.0 * (1.0 + 5e-5 * rng.random(n)), 9)
+    wide[:150] = wide[150]
+    groups["crowded_wide"] = (wide, rng.integers(1, 6, n).astype(float))
+    # ties on the sub-bin edges lo + k·(hi − lo)/1024 and one ulp either side, fractional weights
+    lo, hi = 1000.0, 1000.05
+    edges = lo + (hi - lo) * rng.integers(0, 1025, 300) / 1024.0
+    near = np.concatenate([edges, np.nextafter(edges, 0.0), np.nextafter(edges, 2e3), [lo, hi]])
+    at_edges = np.concatenate([near, near[:200]])  # tie runs of two or three rows on the edges
+    groups["crowded_edges"] = (at_edges, np.round(rng.uniform(0.1, 3.0, len(at_edges)), 3))
+    # a near-constant group: the cut sub-bin holds one value (no sort at all)
+    flat = np.full(n, 1000.0)
+    flat[:12] = 1000.0 + np.linspace(-0.01, 0.01, 12)
+    groups["near_constant"] = (flat, rng.integers(1, 4, n).astype(float))
+    # most rows in one sub-bin (five values 1e-10 apart), the bin's range set by two outliers
+    cluster = 1000.01 + rng.integers(0, 5, 800) * 1e-10
+    cluster[:2] = [1000.0, 1000.049]
+    groups["crowded_cluster"] = (cluster, rng.integers(1, 4, 800).astype(float))
+    # crowded negatives beside crowded positives (two crowded bins of opposite sign) and zeros
+    signs = np.concatenate([-np.round(1000.0 * (1.0 + 5e-5 * rng.random(600)), 9),
+                            np.round(3000.0 * (1.0 + 5e-5 * rng.random(900)), 9), np.zeros(40)])
+    groups["crowded_signs"] = (signs, rng.integers(1, 4, len(signs)).astype(float))
+    # a third of the weights zero (they change nothing), the rest fractional
+    zw = np.round(1000.0 * (1.0 + 5e-5 * rng.random(n)), 9)
+    wz = np.round(rng.uniform(0.01, 2.0, n), 4)
+    wz[::3] = 0.0
+    groups["crowded_zero_weights"] = (zw, wz)
+    frames = [pd.DataFrame({"g": k, "x": x, "w": w}) for k, (x, w) in groups.items()]
+    df = pd.concat(frames, ignore_index=True)
+    df["x"] = df["x"].astype("Float64")
+    df["w"] = df["w"].astype("Float64")
+    df.loc[7, "x"] = pd.NA  # NULL values and weights are skipped
+    df.loc[9, "w"] = pd.NA
+    empty = pd.DataFrame({"g": "no_valid_row", "x": pd.array([pd.NA], dtype="Float64"),
+                          "w": pd.array([1.0], dtype="Float64")})
+    return pd.concat([df, empty], ignore_index=True)
+
+
+@pytest.fixture(scope="module")
+def crowded_want():
+    df = crowded_data()
+    return {(key, i): _want(df, key, ref, weighted)
+            for key in dict.fromkeys(df["g"]) for i, (_, ref, weighted) in enumerate(CALLS)}
+
+
+def test_sub_bins_are_exact_on_crowded_bins(engine, crowded_want):
+    # expected: exact fractions from the contract's definitions (module docstring), not compiler code
+    engine.load(crowded_data(), "crowd")
+    calls = ", ".join(f"{call} AS m{i}" for i, (call, _, _) in enumerate(CALLS))
+    got = engine.run(f"SELECT g, {calls} FROM crowd GROUP BY g", ordered="refine")
+    assert sorted(got["g"]) == sorted({k for k, _ in crowded_want})
+    bad = []
+    for row in got.to_dict("records"):
+        for i, (call, _, _) in enumerate(CALLS):
+            value, want = row[f"m{i}"], crowded_want[(row["g"], i)]
+            if isinstance(value, np.ndarray):
+                value = list(value)
+            if not _close(value, want):
+                bad.append(f"{row['g']} {call}: got {value}, want {want if want is None or isinstance(want, list) else float(want)}")
+    assert not bad, "\n".join(bad[:20])
+
+
+def _rows_sorted(con, sql: str) -> int:
+    """How many rows the refine plan sorts: the row count of its in CTE (the only window over rows:
+    the distinct values of the cut sub-bins)."""
+    import sqlglot
+    tree = sqlglot.parse_one(uneven.compile(sql, ordered="refine"), read="duckdb")
+    name = next(c.alias for c in tree.args["with_"].expressions if c.alias.endswith("_in"))
+    tree.set("expressions", [sqlglot.exp.Count(this=sqlglot.exp.Star())])
+    for arg in ("group", "order", "joins", "where", "having"):
+        tree.set(arg, None)
+    tree.set("from_", sqlglot.exp.From(this=sqlglot.exp.to_table(f'"{name}"')))
+    return con.execute(tree.sql("duckdb")).fetchone()[0]
+
+
+def test_sub_bins_sort_few_rows_of_a_crowded_group():
+    import duckdb
+    rng = np.random.default_rng(7)
+    n = 200_000
+    con = duckdb.connect()
+    con.register("c", pd.DataFrame({"x": 1000.0 * (1.0 + 5e-5 * rng.random(n)), "w": rng.integers(1, 5, n) * 1.0,
+                                    "flat": np.where(np.arange(n) < 50, 999.99, 1000.0),
+                                    "noisy": np.where(np.arange(n) < n // 100, 1000.0 + rng.uniform(-0.01, 0.01, n),
+                                                      1000.0)}))
+    # 200,000 values within 5e-5 relative: one bin; four cuts, each in a sub-bin of about n/1024 rows
+    sql = "SELECT top_share(x, 0.1, w), palma(x, w), quantile_w(x, 0.5, w) FROM c"
+    assert 0 < _rows_sorted(con, sql) < 4 * 3 * n / 1024
+    # a near-constant column: the cut sub-bins hold one value, nothing is sorted
+    assert _rows_sorted(con, "SELECT top_share(flat, 0.1, w), quantile_w(flat, 0.5, w) FROM c") == 0
+    # near-constant with 1 % noise: the cut sub-bin holds the big tie run and a few other values,
+    # and a tie run is one row of the in CTE
+    assert 0 < _rows_sorted(con, "SELECT top_share(noisy, 0.1, w), quantile_w(noisy, 0.5, w) FROM c") < 100
+
+
 # ---- the same outcome as the window plan, and the planner's choice -----------------------------
 
 def test_refine_equals_window_plan_on_duckdb():
@@ -264,3 +366,12 @@ def test_random_source_is_read_once():
         row = uneven.query(sql, ordered="refine").iloc[0]
         assert row["q0"] == row["lo"] and row["q1"] == row["hi"]
         assert row["lo"] < row["q5"] < row["hi"]
+
+
+@pytest.mark.parametrize("dialect", ["duckdb", "postgres", "spark", "sqlite", "trino", "bigquery", "snowflake"])
+def test_sub_bins_are_emitted_for_every_dialect_but_spark(dialect):
+    # Spark sorts its cut bins whole (docs/refine.md, "Crowded bins"); so does the plan with an SE
+    sql = "SELECT g, top_share(x, 0.1, w), palma(x, w) FROM t GROUP BY g"
+    assert ('_uv_ref_1_cr' in uneven.compile(sql, dialect=dialect).replace('`', '"')) == (dialect != "spark")
+    assert '_uv_ref_1_cr' not in uneven.compile("SELECT g, top_share_se(x, 0.1, w) FROM t GROUP BY g",
+                                                 dialect=dialect).replace('`', '"')

@@ -12,7 +12,9 @@ cum CTE   … running weight C_b up to and with the bin, C_b⁻ before it, the v
           (S_b⁻) or above (S_b⁺) it, group totals W and T            (windows over the bins only)
 mark CTE  … per cut c, j_c = the first bin of the group where the cut is reached
 need CTE  the cut bins whose min < max (a bin of one value needs no order)
-in CTE    the rows of those bins (a join on keys and b), with the running weight inside the bin
+cr … in   sub-bins between each such bin's min and max, and a sort of the distinct values of the
+          sub-bins holding a cut only (refine_sub.py); with standard errors instead the in CTE:
+          every row of those bins (a join on keys and b) with its running weight inside the bin
 part CTE  keys, per cut, the interpolated part inside its bin                GROUP BY keys
 cut CTE   keys, W, T, largest x and, per cut, the cut bin's C_b⁻, S_b⁻ or S_b⁺, min, max, Σw
 result    keys, one column per call: cut LEFT JOIN part
@@ -24,12 +26,14 @@ sorted rows, whatever rounding an engine's ln does at a bin edge.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 from sqlglot import exp
 
 from uneven.catalog.spec import PassKind
 from uneven.compiler.passes import refine_se as se
+from uneven.compiler.passes import refine_sub as sub
 from uneven.compiler.passes.source import (
     Source,
     checked_rows,
@@ -214,17 +218,16 @@ def _rows(source: Source, plan) -> exp.Subquery:
 
 
 def _frame(fn, keys, start, start_side, end, end_side=None):
-    spec = exp.WindowSpec(kind="ROWS", start=start, start_side=start_side, end=end, end_side=end_side)
-    return exp.Window(this=fn, partition_by=[k.copy() for k in keys] or None, over="OVER", spec=spec,
-                      order=exp.Order(expressions=[exp.Ordered(this=s.col("_uv_b"), nulls_first=False)]))
+    return sub.frame(fn, keys, "_uv_b", start, start_side, end, end_side)
 
 
-def _null_safe_keys(n: int, left: str, right: str) -> list[exp.Expression]:
-    return [exp.NullSafeEQ(this=s.col(key_name(i), left), expression=s.col(key_name(i), right)) for i in range(n)]
+_null_safe_keys = sub.null_safe_keys
 
 
-def lower_refine_pass(source: Source, main, plan, name: str) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:
-    """CTEs of one refine pass and, for each call key, the column that holds its result."""
+def lower_refine_pass(source: Source, main, plan, name: str,
+                      sub_bins: bool = True) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:
+    """CTEs of one refine pass and, for each call key, the column that holds its result; ``sub_bins``
+    False sorts each cut bin whole (as with standard errors)."""
     weighted = plan.trailing is not None
     ctx = RefineContext(weighted, name)
     out_cols: list[exp.Expression] = []
@@ -312,45 +315,18 @@ def lower_refine_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
             s.lit(se.TIGHT), s.greatest(s.absval(gl.copy()), s.absval(gh.copy())))))
         read = s.or_(s.paren(read), s.paren(tight))
     carried = ("_uv_b", "_uv_cp", "_uv_wt") + (("_uv_nt",) if dynamic else ())
-    need = exp.Select(expressions=group() + [s.col(n) for n in carried] + [j.copy() for j in js]
+    sorted_whole = with_se or not sub_bins
+    bounds = () if sorted_whole else ("_uv_lo", "_uv_hi")  # the sub-bins are cut between the bin's min and max
+    need = exp.Select(expressions=group() + [s.col(n) for n in carried + bounds] + [j.copy() for j in js]
                       ).from_(table(f"{name}_mark")).where(read.copy())
 
-    # in: the rows of the bins to refine, with their running weight inside the bin
     nd = f"{name}_need"
-    on = s.and_(*_null_safe_keys(nk, ROWS_ALIAS, nd),
-                exp.EQ(this=s.col("_uv_b", ROWS_ALIAS), expression=s.col("_uv_b", nd)))
-    rx, rw = s.col("_uv_x", ROWS_ALIAS), (s.col("_uv_w", ROWS_ALIAS) if weighted else s.lit(1.0))
-    part_by = [s.col(key_name(i), ROWS_ALIAS) for i in range(nk)] + [s.col("_uv_b", ROWS_ALIAS)]
-    running = (s.window(s.agg_sum(rw.copy()), part_by, [rx.copy()], running=True) if weighted
-               else s.cast_double(s.window(exp.RowNumber(), part_by, [rx.copy()])))
-    in_cols = [s.alias(s.col(key_name(i), ROWS_ALIAS), key_name(i)) for i in range(nk)] + [
-        s.alias(rx.copy(), "_uv_x")] + ([s.alias(rw.copy(), "_uv_w")] if weighted else []) + [
-        s.alias(s.col(n, nd), n) for n in carried] + [
-        s.alias(s.col(f"_uv_j{i}", nd), f"_uv_j{i}") for i in range(1, len(js) + 1)] + [s.alias(running, "_uv_ci")]
-    inside = exp.Select(expressions=in_cols).from_(_rows(source, plan))
-    inside.append("joins", exp.Join(this=table(nd), on=on))
+    if sorted_whole:  # the variance reads each row of the cut bins with its running weight: sorted whole
+        inner_ctes = _sorted_cut_bins(source, plan, name, nk, ctx, carried, js)
+    else:  # a second level of bins inside the cut bins, and a sort of the cut sub-bins only
+        inner_ctes = sub.sub_bin_ctes(name, _rows(source, plan), ROWS_ALIAS, nk, ctx.cuts, weighted, carried, _level)
 
-    # part: each cut's share of its bin, summed over the bin's rows in order
-    ci, cp = s.col("_uv_ci"), s.col("_uv_cp")
-    c_i = s.add(cp.copy(), ci.copy())  # C_i: the running weight of the whole group at row i
-    part_cols = group()
-    for i, cut in enumerate(ctx.cuts, 1):
-        mine = exp.EQ(this=b.copy(), expression=s.col(f"_uv_j{i}"))
-        agg: exp.Expression
-        if cut.kind == "quantile":
-            reached = s.gte(s.div(c_i.copy(), wt.copy()), _level(cut, s.col("_uv_nt")))
-            agg = s.agg_min(s.case(s.and_(mine, reached), x.copy()))
-        else:
-            if cut.kind == "below":
-                room = s.sub(s.mul(s.lit(cut.p), wt.copy()), s.sub(c_i.copy(), w.copy()))
-            else:
-                room = s.sub(c_i.copy(), s.mul(s.lit(1.0 - cut.p), wt.copy()))
-            agg = s.agg_sum(s.case(mine, s.mul(x.copy(), s.clamp(room, zero.copy(), w.copy()))))
-        part_cols.append(s.alias(agg, f"_uv_q{i}"))
-    part = exp.Select(expressions=part_cols).from_(table(f"{name}_in"))
-    if keys:
-        part.set("group", exp.Group(expressions=group()))
-
+    # cut: per group, the totals and each cut bin's own columns
     # cut: per group, the totals and each cut bin's own columns
     cut_cols = group() + [s.alias(s.agg_max(s.col("_uv_wt")), "_uv_wt"), s.alias(s.agg_max(s.col("_uv_tt")), "_uv_tt"),
                           s.alias(s.agg_max(s.col("_uv_hi")), "_uv_top")]
@@ -377,7 +353,7 @@ def lower_refine_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
     else:
         final.append("joins", exp.Join(this=table(pt), kind="CROSS"))
     ctes = [cte(bins, f"{name}_bins"), cte(cum, f"{name}_cum"), cte(mark, f"{name}_mark"), cte(need, nd),
-            cte(inside, f"{name}_in"), cte(part, pt), cte(cuts, ct)]
+            *inner_ctes, cte(cuts, ct)]
     if not with_se:
         return ctes + [cte(final, name)], results
     # with standard errors: estimates and coefficients per group (coef), Σu and Σu² (var), then the SEs
@@ -403,6 +379,54 @@ def lower_refine_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
     return ctes + [cte(out, name)], results
 
 
+def _sorted_cut_bins(source: Source, plan, name: str, nk: int, ctx: RefineContext, carried: tuple[str, ...],
+                     js: Sequence[exp.Expression]) -> list[exp.CTE]:
+    """The in CTE (every row of the bins to read, with its running weight inside its bin: one sort of
+    them) and the part CTE (each cut's part inside its bin, from those rows)."""
+    weighted = ctx.weighted
+    nd = f"{name}_need"
+    x = s.col("_uv_x")
+    w = s.col("_uv_w") if weighted else s.lit(1.0)
+    zero = s.lit(0.0)
+    b, wt = s.col("_uv_b"), s.col("_uv_wt")
+    group = lambda: [s.col(key_name(i)) for i in range(nk)]  # noqa: E731
+    on = s.and_(*_null_safe_keys(nk, ROWS_ALIAS, nd),
+                exp.EQ(this=s.col("_uv_b", ROWS_ALIAS), expression=s.col("_uv_b", nd)))
+    rx, rw = s.col("_uv_x", ROWS_ALIAS), (s.col("_uv_w", ROWS_ALIAS) if weighted else s.lit(1.0))
+    part_by = [s.col(key_name(i), ROWS_ALIAS) for i in range(nk)] + [s.col("_uv_b", ROWS_ALIAS)]
+    running = (s.window(s.agg_sum(rw.copy()), part_by, [rx.copy()], running=True) if weighted
+               else s.cast_double(s.window(exp.RowNumber(), part_by, [rx.copy()])))
+    in_cols = [s.alias(s.col(key_name(i), ROWS_ALIAS), key_name(i)) for i in range(nk)] + [
+        s.alias(rx.copy(), "_uv_x")] + ([s.alias(rw.copy(), "_uv_w")] if weighted else []) + [
+        s.alias(s.col(n, nd), n) for n in carried] + [
+        s.alias(s.col(f"_uv_j{i}", nd), f"_uv_j{i}") for i in range(1, len(js) + 1)] + [s.alias(running, "_uv_ci")]
+    inside = exp.Select(expressions=in_cols).from_(_rows(source, plan))
+    inside.append("joins", exp.Join(this=table(nd), on=on))
+
+    # part: each cut's share of its bin, summed over the bin's rows in order
+    ci, cp = s.col("_uv_ci"), s.col("_uv_cp")
+    c_i = s.add(cp.copy(), ci.copy())  # C_i: the running weight of the whole group at row i
+    part_cols: list[exp.Expression] = list(group())
+    for i, cut in enumerate(ctx.cuts, 1):
+        mine = exp.EQ(this=b.copy(), expression=s.col(f"_uv_j{i}"))
+        agg: exp.Expression
+        if cut.kind == "quantile":
+            reached = s.gte(s.div(c_i.copy(), wt.copy()), _level(cut, s.col("_uv_nt")))
+            agg = s.agg_min(s.case(s.and_(mine, reached), x.copy()))
+        else:
+            if cut.kind == "below":
+                room = s.sub(s.mul(s.lit(cut.p), wt.copy()), s.sub(c_i.copy(), w.copy()))
+            else:
+                room = s.sub(c_i.copy(), s.mul(s.lit(1.0 - cut.p), wt.copy()))
+            agg = s.agg_sum(s.case(mine, s.mul(x.copy(), s.clamp(room, zero.copy(), w.copy()))))
+        part_cols.append(s.alias(agg, f"_uv_q{i}"))
+    part = exp.Select(expressions=part_cols).from_(table(f"{name}_in"))
+    if nk:
+        part.set("group", exp.Group(expressions=group()))
+
+    return [cte(inside, f"{name}_in"), cte(part, f"{name}_part")]
+
+
 def _level(cut: Cut, n: exp.Expression) -> exp.Expression:
     """The level a quantile cut compares C/W with: p, or p ± h for a density's cuts."""
     return s.lit(cut.p) if not cut.side else se.level(cut.p, cut.side, n)
@@ -415,7 +439,9 @@ PREFIX = "ref"
 
 def lower(source: Source, main, plan, name: str | None, settings) -> tuple[list[exp.CTE], dict]:
     assert name is not None  # a pass with a PREFIX is given its CTE name
-    return lower_refine_pass(source, main, plan, name)
+    # Spark inlines every CTE where it is read; with the sub-bins' CTEs its driver ran out of memory
+    # planning a query of many cuts (docs/refine.md, "Crowded bins"): there the cut bins are sorted whole
+    return lower_refine_pass(source, main, plan, name, sub_bins=getattr(settings, "dialect", "duckdb") != "spark")
 
 
 __all__ = ["KIND", "PREFIX", "lower", "lower_refine_pass", "refinable", "RefineContext", "bin_key", "BUILDS"]
