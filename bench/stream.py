@@ -14,8 +14,9 @@ default; DuckDB's temp directory is checked for files left behind after each cas
 
   sort        SELECT max(w) FROM (SELECT grp, x, w FROM f ORDER BY grp, x)     (DuckDB's sort)
   window      SELECT grp, gini(x, w) … GROUP BY grp, ordered="window"          (the window plan)
-  stream      the same, ordered="stream"                                         (this plan)
-  stream_p    the same, with the sorted batches read ahead on a thread (engine/stream.PREFETCH)
+  stream      the same, ordered="stream", batches read in the caller's thread    (this plan)
+  stream_p    the same, with the sorted batches read ahead on a thread (engine/stream.PREFETCH,
+              the default); every other stream case reads in the caller's thread
   pandas      read the file, sort_values, groupby cumsum, the same formula       (vectorized pandas)
   sort_u, window_u, stream_u      the unweighted gini(x)
   window10, stream10              ten order-based measures on one value (weighted)

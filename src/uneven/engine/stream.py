@@ -35,10 +35,10 @@ class StreamMemoryError(ExecutionError):
 # calls per batch), small enough that a batch of keys, x and w stays a few MB of the memory limit
 BATCH_ROWS = 1 << 16
 # read the batches ahead on a thread of their own while numpy reduces the last ones (engine/prefetch.py):
-# off, since it measured 4-5% slower on a shared machine (DuckDB holds the GIL for about 60% of a
-# batch's fetch, so little overlaps; bench/README.md, "Stream plan"); bench/stream.py's stream_p
-# case measures it against the serial loop in the same run
-PREFETCH = False
+# on, since it measured 0.93-0.94x the serial loop on an idle machine at 20M rows x 1000 groups (two runs);
+# on a busy one it measured 4-5% slower (DuckDB holds the GIL for about 60% of a batch's fetch, so only
+# the rest overlaps; bench/README.md, "Stream plan"). bench/stream.py's stream_p case measures both
+PREFETCH = True
 
 
 def run_job(con: duckdb.DuckDBPyConnection, job: StreamJob, batch_rows: int | None = None) -> pa.Table:
