@@ -10,14 +10,11 @@ from uneven.catalog import MEASURES
 from uneven.compiler import compile_sql
 from uneven.compiler.bounded import check_method
 from uneven.compiler.context import CompileOptions
-from uneven.compiler.pipeline import compile_with_context
 from uneven.engine.adapters import Adapter
 from uneven.engine.bounded import pick_resolution, run_bounded
-from uneven.engine.columns import DuckDBSchema
 from uneven.engine.frames import callers_frame
-from uneven.engine.runner import execute_df
 from uneven.engine.session import session
-from uneven.engine.stream import StreamMemoryError, execute_streamed
+from uneven.engine.stream import execute_planned
 from uneven.explain import Explanation, explain_on, explain_query
 
 
@@ -85,15 +82,7 @@ def query(sql: str, con=None, *, memory_limit: str | None = None,
             return run_on(target, sql, options, chosen, tolerance)
 
         def run(res):  # uneven runs it on DuckDB: an ordered pass may be streamed (engine/stream.py)
-            compiled, ctx = compile_with_context(sql, replace(options, resolution=res, stream=True),
-                                                 DuckDBSchema(target))
-            try:
-                return execute_streamed(target, compiled, ctx.stream_jobs)
-            except StreamMemoryError:
-                if options.ordered != "auto":
-                    raise
-            # auto: the sorted rows did not stream within the memory limit; the window plan spills
-            return execute_df(target, compile_sql(sql, replace(options, resolution=res), DuckDBSchema(target)))
+            return execute_planned(target, sql, replace(options, resolution=res))
         if method == "exact":
             return run(None)
         assert chosen is not None  # a bounded query always has a resolution (pick_resolution)

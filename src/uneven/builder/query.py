@@ -24,9 +24,8 @@ from uneven.compiler.emit import to_sql
 from uneven.compiler.pipeline import compile_with_context
 from uneven.engine.adapters import adapt, is_duckdb
 from uneven.engine.bounded import bounded_resolution, pick_resolution, run_bounded
-from uneven.engine.columns import DuckDBSchema
 from uneven.engine.runner import connect, translate_error
-from uneven.engine.stream import StreamMemoryError, execute_streamed
+from uneven.engine.stream import execute_planned
 from uneven.errors import MeasureArgumentError, SqlParseError, UnevenError
 from uneven.explain import Explanation, explain_on, explain_query
 from uneven.sqltree import build as s
@@ -149,20 +148,11 @@ class Query:
     def _run_streamed(self, ordered: str) -> pd.DataFrame:
         """An exact run on DuckDB as ``uneven.query`` does it: compiled with the connection's probes, an
         ordered pass may stream (engine/stream.py; docs/plans.md); with ``ordered="auto"``, a stream that
-        does not fit in the memory limit runs again on the window plan."""
+        does not fit in the memory limit runs again on the plan compile() emits (engine.stream.execute_planned)."""
         con = connect(self.con)
         try:
             self._register(con)
-            sql = to_sql(self.tree())
-            compiled, ctx = compile_with_context(sql, CompileOptions(pretty=False, ordered=ordered, stream=True),
-                                                 DuckDBSchema(con))
-            try:
-                return execute_streamed(con, compiled, ctx.stream_jobs)
-            except StreamMemoryError:
-                if ordered != "auto":
-                    raise
-            return con.sql(compile_sql(sql, CompileOptions(pretty=False, ordered="window"),
-                                       DuckDBSchema(con))).df()
+            return execute_planned(con, to_sql(self.tree()), CompileOptions(pretty=False, ordered=ordered))
         except duckdb.Error as e:
             raise translate_error(e) from None
 

@@ -13,15 +13,20 @@ from __future__ import annotations
 
 import contextlib
 from collections.abc import Generator, Iterator
+from dataclasses import replace
 
 import duckdb
 import numpy as np
 import pandas as pd
 import pyarrow as pa
 
+from uneven.compiler import compile_sql
+from uneven.compiler.context import CompileOptions
 from uneven.compiler.passes.stream import StreamJob
+from uneven.compiler.pipeline import compile_with_context
+from uneven.engine.columns import DuckDBSchema
 from uneven.engine.prefetch import prefetched
-from uneven.engine.runner import translate_error
+from uneven.engine.runner import execute_df, translate_error
 from uneven.engine.streamsums import GroupValues, StreamState, same_keys
 from uneven.errors import ExecutionError
 
@@ -137,3 +142,16 @@ def execute_streamed(con: duckdb.DuckDBPyConnection, sql: str, jobs: list[Stream
             return con.execute(sql).fetchdf()
         except duckdb.Error as e:
             raise translate_error(e) from None
+
+
+def execute_planned(con: duckdb.DuckDBPyConnection, sql: str, options: CompileOptions) -> pd.DataFrame:
+    """Compile ``sql`` for a run by uneven itself on DuckDB, where an ordered pass may stream, and run
+    it; with ``ordered="auto"``, a stream whose sorted rows do not fit in the memory limit runs again
+    on the plan ``compile()`` emits (the window plan spills its sort)."""
+    compiled, ctx = compile_with_context(sql, replace(options, stream=True), DuckDBSchema(con))
+    try:
+        return execute_streamed(con, compiled, ctx.stream_jobs)
+    except StreamMemoryError:
+        if options.ordered != "auto":
+            raise
+    return execute_df(con, compile_sql(sql, options, DuckDBSchema(con)))
