@@ -64,22 +64,29 @@ def collect(value: exp.Expression, order: exp.Expression | None, where: exp.Expr
     return exp.Filter(this=agg, expression=exp.Where(this=where)) if where is not None else agg
 
 
-def scan_macros() -> list[exp.Create]:
-    """Helper macro ``_uv_scan(q, n)``: inclusive prefix sums of the list of doubles ``q`` of length
-    ``n``, by doubling (Hillis–Steele): ⌈log2 n⌉ steps, each adding the element ``d`` places back.
-    The steps run inside one ``list_reduce`` over the strides, whose accumulator is the list, so
-    DuckDB keeps the current step's list only (nested step calls kept every step's list until the
-    whole expression was done: about 650 bytes per row; bench/README.md, "Installed functions:
-    memory")."""
-    acc, d, v, i, j = var("_uv_acc"), var("_uv_d"), var("_uv_v"), var("_uv_i"), var("_uv_j")
+def _doubling(q: exp.Expression, added) -> exp.Expression:
+    """Prefix sums of the list ``q`` (length ``n``, a macro argument) by doubling (Hillis–Steele):
+    ⌈log2 n⌉ steps inside one ``list_reduce`` over the strides, whose accumulator is the list, so
+    DuckDB keeps the current step's list only. ``added(v, i, stride, acc)`` is element ``i``'s new
+    value in the step of stride ``stride``."""
+    acc, d, v, i = var("_uv_acc"), var("_uv_d"), var("_uv_v"), var("_uv_i")
     stride = element(d, exp.Literal.number(1))
-    added = s.case(s.gt(i, stride), s.add(v, element(acc, s.sub(i.copy(), stride.copy()))), v.copy())
-    step = lam(["_uv_acc", "_uv_d"], transform(acc.copy(), ["_uv_v", "_uv_i"], added))
-    power = exp.cast(exp.Pow(this=exp.Literal.number(2), expression=j), exp.DataType.build("bigint"))
+    step = lam(["_uv_acc", "_uv_d"], transform(acc.copy(), ["_uv_v", "_uv_i"], added(v, i, stride, acc)))
+    power = exp.cast(exp.Pow(this=exp.Literal.number(2), expression=var("_uv_j")), exp.DataType.build("bigint"))
     exponents = call("list_filter", call("range", exp.Literal.number(0), exp.Literal.number(SCAN_STEPS)),
                      lam(["_uv_j"], s.lt(power, var("n"))))
     strides = transform(exponents, ["_uv_j"], exp.Array(expressions=[power.copy()]))
-    return [macro(SCAN, [(["q", "n"], call("list_reduce", strides, step, var("q")))])]
+    return call("list_reduce", strides, step, q)
+
+
+def scan_macros() -> list[exp.Create]:
+    """Helper macro ``_uv_scan(q, n)``: inclusive prefix sums of the list of doubles ``q`` of length
+    ``n``, by doubling (``_doubling``: each step adds the element ``d`` places back). Nested step
+    calls kept every step's list until the whole expression was done: about 650 bytes per row;
+    bench/README.md, "Installed functions: memory"."""
+    def added(v, i, stride, acc):
+        return s.case(s.gt(i, stride), s.add(v, element(acc, s.sub(i.copy(), stride.copy()))), v.copy())
+    return [macro(SCAN, [(["q", "n"], _doubling(var("q"), added))])]
 
 
 def segment_scan_macros() -> list[exp.Create]:
@@ -93,18 +100,13 @@ def segment_scan_macros() -> list[exp.Create]:
     per key copies the whole list each time (quadratic in the number of keys). ``keys`` is bound
     once by a lambda (a macro argument is substituted as text: read inside the step it would be
     rebuilt for every element)."""
-    acc, d, v, i, k = var("_uv_acc"), var("_uv_d"), var("_uv_v"), var("_uv_i"), var("_uv_k")
-    stride = element(d, exp.Literal.number(1))
-    back = s.sub(i.copy(), stride.copy())
-    same = exp.NullSafeEQ(this=element(k.copy(), back.copy()), expression=element(k.copy(), i.copy()))
-    added = s.case(s.and_(s.gt(i, stride), same), s.add(v, element(acc, back.copy())), v.copy())
-    step = lam(["_uv_acc", "_uv_d"], transform(acc.copy(), ["_uv_v", "_uv_i"], added))
-    power = exp.cast(exp.Pow(this=exp.Literal.number(2), expression=var("_uv_j")), exp.DataType.build("bigint"))
-    exponents = call("list_filter", call("range", exp.Literal.number(0), exp.Literal.number(SCAN_STEPS)),
-                     lam(["_uv_j"], s.lt(power, var("n"))))
-    strides = transform(exponents, ["_uv_j"], exp.Array(expressions=[power.copy()]))
-    body = bind(var("keys"), "_uv_k", call("list_reduce", strides, step, var("q")))
-    return [macro(SEGMENT_SCAN, [(["q", "keys", "n"], body)])]
+    k = var("_uv_k")
+
+    def added(v, i, stride, acc):
+        back = s.sub(i.copy(), stride.copy())
+        same = exp.NullSafeEQ(this=element(k.copy(), back.copy()), expression=element(k.copy(), i.copy()))
+        return s.case(s.and_(s.gt(i, stride), same), s.add(v, element(acc, back.copy())), v.copy())
+    return [macro(SEGMENT_SCAN, [(["q", "keys", "n"], bind(var("keys"), "_uv_k", _doubling(var("q"), added)))])]
 
 
 def budget_macro() -> exp.Create:
