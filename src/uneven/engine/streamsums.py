@@ -227,14 +227,14 @@ class StreamState:
             hi, lo = prefix_sums(w, carry_hi if carry_lo == 0.0 else math.inf)
             c_hi = hi - spread(np.where(seg > 0, hi[seg - 1], 0.0)) if nseg > 1 else hi
             if continues:
-                c_hi[:seg[1] if nseg > 1 else n] += carry_hi  # the open group's rows come first
+                c_hi[:lens[0]] += carry_hi  # the open group's rows come first
             if lo is None:  # integers below 2^53: every running weight is exact as it is
                 c = c_hi
                 self.carry_hi, self.carry_lo = float(c_hi[-1]), 0.0
             else:
                 c_lo = lo - spread(np.where(seg > 0, lo[seg - 1], 0.0)) if nseg > 1 else lo
                 if continues:
-                    c_lo[:seg[1] if nseg > 1 else n] += carry_lo
+                    c_lo[:lens[0]] += carry_lo
                 c = c_hi + c_lo
                 self.carry_hi, self.carry_lo = float(c_hi[-1]), float(c_lo[-1])
         else:
