@@ -36,7 +36,7 @@ from uneven.compiler.passes import refine_se as se
 from uneven.compiler.passes import refine_sub as sub
 from uneven.compiler.passes.source import (
     Source,
-    checked_rows,
+    binned_rows,
     cte,
     finite_or_null,
     key_name,
@@ -208,12 +208,7 @@ def bin_key(x: exp.Expression) -> exp.Expression:
 
 def _rows(source: Source, plan) -> exp.Subquery:
     """(SELECT keys, x, w, b FROM (the pass's valid rows)) AS _uv_r — built anew for each use."""
-    x, w, condition = plan.x, plan.trailing, plan.condition
-    proj, cond = checked_rows(source, x, w, condition)
-    inner = exp.Subquery(this=source.rows(proj, cond),
-                         alias=exp.TableAlias(this=exp.to_identifier("_uv_v", quoted=True)))
-    cols = source.key_columns() + [s.col("_uv_x")] + ([s.col("_uv_w")] if w is not None else [])
-    outer = exp.Select(expressions=cols + [s.alias(bin_key(s.col("_uv_x")), "_uv_b")]).from_(inner)
+    outer = binned_rows(source, plan.x, plan.trailing, plan.condition, bin_key(s.col("_uv_x")), "_uv_b")
     return exp.Subquery(this=outer, alias=exp.TableAlias(this=exp.to_identifier(ROWS_ALIAS, quoted=True)))
 
 
@@ -298,11 +293,7 @@ def lower_refine_pass(source: Source, main, plan, name: str,
     passed = [c.alias_or_name for c in cum_cols]
     mark_cols: list[exp.Expression] = [s.col(n) for n in passed]
     for i, cut in enumerate(ctx.cuts, 1):
-        if cut.kind == "quantile":
-            reached = s.gte(s.div(cb.copy(), wt.copy()), _level(cut, s.col("_uv_nt")))
-        else:
-            target = cut.p if cut.kind == "below" else 1.0 - cut.p
-            reached = s.gte(cb.copy(), s.mul(s.lit(target), wt.copy()))
+        reached = sub.reached(cut, cb, wt, _level)
         mark_cols.append(s.alias(s.window(s.agg_min(s.case(reached, b.copy())), group()), f"_uv_j{i}"))
     mark = exp.Select(expressions=mark_cols).from_(table(f"{name}_cum"))
 
@@ -326,7 +317,6 @@ def lower_refine_pass(source: Source, main, plan, name: str,
     else:  # a second level of bins inside the cut bins, and a sort of the cut sub-bins only
         inner_ctes = sub.sub_bin_ctes(name, _rows(source, plan), ROWS_ALIAS, nk, ctx.cuts, weighted, carried, _level)
 
-    # cut: per group, the totals and each cut bin's own columns
     # cut: per group, the totals and each cut bin's own columns
     cut_cols = group() + [s.alias(s.agg_max(s.col("_uv_wt")), "_uv_wt"), s.alias(s.agg_max(s.col("_uv_tt")), "_uv_tt"),
                           s.alias(s.agg_max(s.col("_uv_hi")), "_uv_top")]
@@ -411,8 +401,7 @@ def _sorted_cut_bins(source: Source, plan, name: str, nk: int, ctx: RefineContex
         mine = exp.EQ(this=b.copy(), expression=s.col(f"_uv_j{i}"))
         agg: exp.Expression
         if cut.kind == "quantile":
-            reached = s.gte(s.div(c_i.copy(), wt.copy()), _level(cut, s.col("_uv_nt")))
-            agg = s.agg_min(s.case(s.and_(mine, reached), x.copy()))
+            agg = s.agg_min(s.case(s.and_(mine, sub.reached(cut, c_i, wt, _level)), x.copy()))
         else:
             if cut.kind == "below":
                 room = s.sub(s.mul(s.lit(cut.p), wt.copy()), s.sub(c_i.copy(), w.copy()))

@@ -113,8 +113,8 @@ def sub_bin_ctes(name: str, rows: exp.Subquery, rows_alias: str, nk: int, cuts, 
     ck = s.col("_uv_ck")
     mark_cols: list[exp.Expression] = [s.col(c.alias_or_name) for c in inner.expressions]
     for i, cut in enumerate(cuts, 1):
-        reached = _reached(cut, ck, wt, level)
-        first = s.window(s.agg_min(s.case(reached, s.col("_uv_sb"))), by_bin)
+        hit = reached(cut, ck, wt, level)
+        first = s.window(s.agg_min(s.case(hit, s.col("_uv_sb"))), by_bin)
         mark_cols.append(s.alias(exp.Coalesce(this=first, expressions=[s.col("_uv_sl")]), f"_uv_sk{i}"))
     smark = exp.Select(expressions=mark_cols).from_(
         exp.Subquery(this=inner, alias=exp.TableAlias(this=exp.to_identifier("_uv_s", quoted=True))))
@@ -158,7 +158,7 @@ def sub_bin_ctes(name: str, rows: exp.Subquery, rows_alias: str, nk: int, cuts, 
         q = f"_uv_q{i}"
         if cut.kind == "quantile":
             from_subs.append(s.alias(s.case(at_cut(i - 1), hi.copy()), q))
-            mine = s.and_(at_cut(i - 1), _reached(cut, c_i, wt, level))
+            mine = s.and_(at_cut(i - 1), reached(cut, c_i, wt, level))
             from_rows.append(s.alias(s.case(mine, x.copy()), q))
             continue
         if cut.kind == "below":
@@ -185,7 +185,7 @@ def sub_bin_ctes(name: str, rows: exp.Subquery, rows_alias: str, nk: int, cuts, 
             cte(part, f"{name}_part")]
 
 
-def _reached(cut, c: exp.Expression, wt: exp.Expression, level) -> exp.Expression:
+def reached(cut, c: exp.Expression, wt: exp.Expression, level) -> exp.Expression:
     """The window plan's comparison: C/W ≥ level (quantile), C ≥ p·W (below), C ≥ (1−p)·W (above)."""
     if cut.kind == "quantile":
         return s.gte(s.div(c.copy(), wt.copy()), level(cut, s.col("_uv_nt")))
@@ -193,4 +193,4 @@ def _reached(cut, c: exp.Expression, wt: exp.Expression, level) -> exp.Expressio
     return s.gte(c.copy(), s.mul(s.lit(target), wt.copy()))
 
 
-__all__ = ["SUB_BINS", "frame", "null_safe_keys", "sub_bin_ctes", "sub_bin_key"]
+__all__ = ["SUB_BINS", "frame", "null_safe_keys", "reached", "sub_bin_ctes", "sub_bin_key"]

@@ -81,6 +81,19 @@ def checked_rows(source: Source, x: exp.Expression, w: exp.Expression | None,
     return proj, cond
 
 
+def binned_rows(source: Source, x: exp.Expression, w: exp.Expression | None, condition: exp.Expression | None,
+                key: exp.Expression, key_alias: str) -> exp.Select:
+    """SELECT keys, _uv_x, _uv_w, ``key`` AS ``key_alias`` FROM (the checked rows) AS _uv_v: a pass
+    that groups its rows into bins of the value (refine, summary). ``key`` reads ``_uv_x``, the
+    checked value, so a NaN or infinite value stops the query with the input policy's message before
+    a LN or a cast in the key can fail on it."""
+    proj, cond = checked_rows(source, x, w, condition)
+    checked = exp.Subquery(this=source.rows(proj, cond),
+                           alias=exp.TableAlias(this=exp.to_identifier("_uv_v", quoted=True)))
+    cols = source.key_columns() + [s.col("_uv_x")] + ([s.col("_uv_w")] if w is not None else [])
+    return exp.Select(expressions=cols + [s.alias(key, key_alias)]).from_(checked)
+
+
 def value_weight_rows(x: exp.Expression, w: exp.Expression | None, condition: exp.Expression | None,
                       weight_name: str = "_uv_w", keys: Sequence[exp.Expression] | None = None
                       ) -> tuple[list[exp.Expression], exp.Expression]:

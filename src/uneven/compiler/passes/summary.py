@@ -19,7 +19,7 @@ from uneven.bounds import bins as b
 from uneven.bounds.lower import lower_bounds
 from uneven.bounds.measures import powers_needed
 from uneven.catalog.spec import PassKind
-from uneven.compiler.passes.source import Source, checked_rows, cte, table
+from uneven.compiler.passes.source import Source, binned_rows, cte, table
 from uneven.sqltree import build as s
 
 
@@ -29,15 +29,8 @@ def lower_summary_pass(source: Source, main, plan, name: str, resolution: float 
     (key, "hi") to its bounds. ``resolution``: relative bin width (default bins.DEFAULT_RESOLUTION)."""
     resolution = b.DEFAULT_RESOLUTION if resolution is None else resolution
     x, w, condition = plan.x, plan.trailing, plan.condition
-    proj, cond = checked_rows(source, x, w, condition)
-    checked = exp.Subquery(this=source.rows(proj, cond), alias=exp.TableAlias(this=exp.to_identifier("_uv_v",
-                                                                                                   quoted=True)))
     keys = source.key_columns()
-    # the key reads the checked x: a NaN or infinite value stops the query with its message before
-    # LN or the cast to BIGINT can fail on it
-    rows = exp.Select(expressions=[k.copy() for k in keys] + [s.col("_uv_x")]
-                      + ([s.col("_uv_w")] if w is not None else [])
-                      + [s.alias(b.bin_key(s.col("_uv_x"), resolution), b.BIN)]).from_(checked)
+    rows = binned_rows(source, x, w, condition, b.bin_key(s.col("_uv_x"), resolution), b.BIN)
 
     powers = sorted({a for call in plan.calls for a in powers_needed(call.measure.name, call.params)})
     wcol = s.col("_uv_w") if w is not None else s.lit(1.0)
