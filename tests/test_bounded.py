@@ -336,7 +336,7 @@ def test_nan_or_infinite_value_stops_a_stored_summary():
         uneven.summarize("t2", "x", "w", by=["g"])
 
 
-def _gini_bounds_two_sums(bins: pd.DataFrame) -> tuple[float, float]:
+def gini_bounds_two_sums(bins: pd.DataFrame) -> tuple[float, float]:
     """The Gini interval of one group's bins, in numpy, in the form of docs/bounded.md ("Gini") with
     two running sums: G_lo = Σ_b (T_b·C_{<b} − W_b·S_{<b}) / (W·T), G_hi = G_lo + Σ_b W_b²(c − m)(m − a)
     / ((c − a)·W·T) (bounds for grouped data from class means and limits, Gastwirth 1972, cited from
@@ -366,7 +366,7 @@ def test_gini_one_running_sum_equals_two(con):
                                            method="bounded", resolution=r)).fetchdf()
             summary = uneven.summarize("t", "x", "w", by=["g"], resolution=r, con=con)
             for g, bins in summary.groupby("g"):
-                lo, hi = _gini_bounds_two_sums(bins)
+                lo, hi = gini_bounds_two_sums(bins)
                 assert q["gi_lo"][g] == pytest.approx(lo - 1e-11 * (1 + abs(lo)), rel=1e-12, abs=1e-15)
                 assert q["gi_hi"][g] == pytest.approx(hi + 1e-11 * (1 + abs(hi)), rel=1e-12, abs=1e-15)
                 exact = ref.gini(data.loc[data["g"] == g, "x"].to_numpy(float),
