@@ -334,3 +334,54 @@ def test_nan_or_infinite_value_stops_a_stored_summary():
     t2 = pd.DataFrame({"g": ["a", "b"], "x": [1.0, 3.0], "w": [1.0, -2.0]})  # noqa: F841
     with pytest.raises(uneven.InputDataError, match=r"negative weight in the weight argument w \(the group g=b\)"):
         uneven.summarize("t2", "x", "w", by=["g"])
+
+
+def gini_bounds_two_sums(bins: pd.DataFrame) -> tuple[float, float]:
+    """The Gini interval of one group's bins, in numpy, in the form of docs/bounded.md ("Gini") with
+    two running sums: G_lo = Σ_b (T_b·C_{<b} − W_b·S_{<b}) / (W·T), G_hi = G_lo + Σ_b W_b²(c − m)(m − a)
+    / ((c − a)·W·T) (bounds for grouped data from class means and limits, Gastwirth 1972, cited from
+    memory). Independent of the compiler's form, which uses one running sum."""
+    bins = bins.sort_values(["uv_min", "uv_max"])
+    wb, tb = bins["uv_w"].to_numpy(float), bins["uv_wx"].to_numpy(float)
+    a, c = bins["uv_min"].to_numpy(float), bins["uv_max"].to_numpy(float)
+    cp, sp = np.cumsum(wb) - wb, np.cumsum(tb) - tb
+    m = np.clip(tb / wb, a, c)
+    den = wb.sum() * tb.sum()
+    lo = float(np.sum(tb * cp - wb * sp)) / den
+    spread = np.where(c > a, c - a, 1.0)
+    within = float(np.sum(np.where(c > a, wb * wb * (c - m) * (m - a) / spread, 0.0))) / den
+    return lo, lo + within
+
+
+def test_gini_one_running_sum_equals_two(con):
+    # the Gini's between-bin term is computed with one running sum, Σ_b T_b·(2·C_{<b} + W_b) − W·T,
+    # equal in exact arithmetic to the proof's Σ_b (T_b·C_{<b} − W_b·S_{<b}): the interval equals the
+    # two-sum form computed in numpy from the stored bins of the same data to 1e-12 (both widened by
+    # the rounding allowance, 1e-11·(1 + |bound|)), at two resolutions
+    data = _fixed_data()
+    con.register("t", data)
+    try:
+        for r in (0.01, 0.3):
+            q = con.execute(uneven.compile("SELECT g, gini(x, w) AS gi FROM t GROUP BY g ORDER BY g",
+                                           method="bounded", resolution=r)).fetchdf()
+            summary = uneven.summarize("t", "x", "w", by=["g"], resolution=r, con=con)
+            for g, bins in summary.groupby("g"):
+                lo, hi = gini_bounds_two_sums(bins)
+                assert q["gi_lo"][g] == pytest.approx(lo - 1e-11 * (1 + abs(lo)), rel=1e-12, abs=1e-15)
+                assert q["gi_hi"][g] == pytest.approx(hi + 1e-11 * (1 + abs(hi)), rel=1e-12, abs=1e-15)
+                exact = ref.gini(data.loc[data["g"] == g, "x"].to_numpy(float),
+                                 data.loc[data["g"] == g, "w"].to_numpy(float))
+                assert lo <= exact <= hi and hi - lo < (0.05 if r == 0.3 else 1e-3)
+    finally:
+        con.unregister("t")
+
+
+def test_gini_reads_one_window():
+    # a Gini-only query runs one window over the bins (the running weight C_{<b}); Theil runs none
+    def windows(sql: str) -> list[exp.Window]:
+        return list(sqlglot.parse_one(sql, read="duckdb").find_all(exp.Window))
+    gini = windows(uneven.compile("SELECT g, gini(x, w) FROM t GROUP BY g", method="bounded"))
+    assert len(gini) == 1 and gini[0].this.this.name == "uv_w"
+    assert windows(uneven.compile("SELECT g, theil(x, w) FROM t GROUP BY g", method="bounded")) == []
+    # a Lorenz ordinate reads the running weight and the group's total weight
+    assert len(windows(uneven.compile("SELECT g, lorenz(x, 0.3, w) FROM t GROUP BY g", method="bounded"))) == 2

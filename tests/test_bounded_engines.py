@@ -18,7 +18,7 @@ import pytest
 import uneven
 from conftest import make_groups
 from engines import EngineError, engine_or_skip
-from test_bounded import MEASURES, RATIOS
+from test_bounded import MEASURES, RATIOS, gini_bounds_two_sums
 
 # (output name, select item, weighted, reference): every call of MEASURES, weighted and unweighted
 ITEMS = [(f"w{i}", m, True, r) for i, (m, r) in enumerate(MEASURES)] + \
@@ -120,6 +120,27 @@ def test_same_intervals_as_duckdb(engine, batch, duckdb_batch):
                 assert (a is None) == (b is None), (engine.name, item, key, col, a, b)
                 if a is not None:
                     assert a == pytest.approx(b, rel=1e-9, abs=1e-12), (engine.name, item, key, col, a, b)
+
+
+def test_gini_one_running_sum_on_every_engine(engine, batch):
+    # the Gini's SQL uses one running sum (docs/bounded.md, "Gini", *One running sum*); on every engine
+    # its interval equals the proof's two-running-sum form computed in numpy from that engine's own
+    # stored bins (summarize(), compiled for the engine and run there), widened by the rounding
+    # allowance 1e-11·(1 + |bound|)
+    bins = engine.execute(uneven.summarize("t", "x", "w", by=["grp"], dialect=engine.dialect))
+    bins = bins.assign(**{c: pd.to_numeric(bins[c]) for c in ("uv_w", "uv_wx", "uv_min", "uv_max")})
+    compared = 0
+    for key, part in bins.groupby("grp", dropna=False):
+        row = _row(batch, None if pd.isna(key) else key)
+        got_lo, got_hi = _number(row["w0_lo"]), _number(row["w0_hi"])  # w0: gini(x, w)
+        if part["uv_wx"].sum() <= 0:
+            assert got_lo is None and got_hi is None, (engine.name, key)
+            continue
+        lo, hi = gini_bounds_two_sums(part)
+        assert got_lo == pytest.approx(lo - 1e-11 * (1 + abs(lo)), rel=1e-10, abs=1e-13), (engine.name, key)
+        assert got_hi == pytest.approx(hi + 1e-11 * (1 + abs(hi)), rel=1e-10, abs=1e-13), (engine.name, key)
+        compared += 1
+    assert compared >= 3
 
 
 def test_negative_weight_stops_the_bounded_query(engine, batch):

@@ -4,7 +4,9 @@
                     a bin starts a new island unless its min is below the largest max before it;
                     the bins of one island are added up (min of mins, max of maxes)
     <name>_cum      each bin with the running weight C_{<b} and value S_{<b} of the bins before it
-                    (ordered by min, then max) and the group totals W, T at row level
+                    (ordered by min, then max) and the group totals W, T at row level: only those the
+                    measures read (a Gini reads C_{<b} alone, Theil or MLD none), since a window costs
+                    about as much as a sort of the bins and not every engine drops one nobody reads
     <name>_agg      GROUP BY keys: the aggregates over bins the measures use (each once)
     <name>_raw      per call, point, lo and hi columns (expressions over those aggregates)
     <name>          the same, lo and hi widened by the rounding allowance (measures.widen)
@@ -18,8 +20,6 @@ from uneven.bounds import bins as b
 from uneven.bounds.measures import BOUNDED, BinContext, Interval, widen
 from uneven.sqltree import build as s
 from uneven.sqltree.build import cte, grouped, table
-
-RUNNING = ("uv_w", "uv_wx", "uv_min", "uv_max")  # the bin columns running_sums itself reads (bins.W, WX, MIN, MAX)
 
 
 def _window(fn, keys, frame_end: str | None):
@@ -46,15 +46,24 @@ def join_overlaps(source: str, keys: list[exp.Column], columns: list[str], name:
     return [cte(prev, f"{name}_prev"), cte(isl, f"{name}_isl"), cte(merged, name)]
 
 
-def running_sums(source: str, keys: list[exp.Column], columns: list[str], name: str) -> exp.CTE:
+def _per_bin(keys: list[exp.Column]) -> dict[str, tuple[exp.Expression, tuple[str, ...]]]:
+    """The computed columns of the cum CTE: name → (expression, the bin columns it reads)."""
     zero = s.lit(0.0)
     before = lambda c: exp.Coalesce(this=_window(s.agg_sum(s.col(c)), keys, "previous"),  # noqa: E731
                                     expressions=[zero.copy()])
-    mean = s.clamp(s.div(s.col(b.WX), s.col(b.W)), s.col(b.MIN), s.col(b.MAX))
-    cols = [k.copy() for k in keys] + [s.col(c) for c in columns] + [s.alias(mean, "_uv_m"),
-        s.alias(before(b.W), "_uv_cp"), s.alias(before(b.WX), "_uv_sp"),
-        s.alias(_window(s.agg_sum(s.col(b.W)), keys, None), "_uv_gw"),
-        s.alias(_window(s.agg_sum(s.col(b.WX)), keys, None), "_uv_gt")]
+    order = (b.MIN, b.MAX)
+    return {"_uv_m": (s.clamp(s.div(s.col(b.WX), s.col(b.W)), s.col(b.MIN), s.col(b.MAX)), (b.WX, b.W) + order),
+            "_uv_cp": (before(b.W), (b.W,) + order), "_uv_sp": (before(b.WX), (b.WX,) + order),
+            "_uv_gw": (_window(s.agg_sum(s.col(b.W)), keys, None), (b.W,)),
+            "_uv_gt": (_window(s.agg_sum(s.col(b.WX)), keys, None), (b.WX,))}
+
+
+def running_sums(source: str, keys: list[exp.Column], columns: list[str], name: str,
+                 read: set[str] | None = None) -> exp.CTE:
+    """The cum CTE: the bin ``columns`` and, of the clamped mean, the running sums and the group
+    totals, those named in ``read`` (all when None)."""
+    cols = [k.copy() for k in keys] + [s.col(c) for c in columns] + [
+        s.alias(e, n) for n, (e, _) in _per_bin(keys).items() if read is None or n in read]
     return cte(exp.Select(expressions=cols).from_(table(source)), name)
 
 
@@ -93,8 +102,10 @@ def lower_bounds(source: str, keys: list[exp.Column], columns: list[str], calls:
     # the measures read bins only through these aggregates: bin columns none of them reads are left
     # out of the window (and, in the summary pass, of the bins GROUP BY: less state per (group, bin))
     read = {c.name for _, e in ctx.aggregates.values() for c in e.find_all(exp.Column)}
-    columns = [c for c in columns if c in RUNNING or c in read]
-    ctes.append(running_sums(source, keys, columns, f"{name}_cum"))
+    per_bin = {n: needs for n, (_, needs) in _per_bin(keys).items() if n in read}
+    needed = read | {c for needs in per_bin.values() for c in needs}
+    ctes.append(running_sums(source, keys, [c for c in columns if c in read], f"{name}_cum", set(per_bin)))
+    columns = [c for c in columns if c in needed]
     ctes.append(cte(grouped(keys, aggregates, f"{name}_cum"), f"{name}_agg"))
     ctes.append(cte(exp.Select(expressions=[k.copy() for k in keys] + out).from_(table(f"{name}_agg")),
                     f"{name}_raw"))
