@@ -98,7 +98,7 @@ def run_job(con: duckdb.DuckDBPyConnection, job: StreamJob, batch_rows: int | No
         empty = kept.finish() if kept is not None else []
         if empty:  # the groups none of whose rows counts: NULL results (appended after the others)
             keys = pa.concat_tables([keys] + [pa.Table.from_batches([e]).cast(keys.schema) for e in empty])
-        if _distinct_rows(keys) != keys.num_rows:
+        if not _increasing(keys) and _distinct_rows(keys) != keys.num_rows:
             raise ExecutionError("the streamed ordered pass received a group in two parts (rows not sorted by "
                                  "the group keys); run with ordered='window'")
         columns = {name: keys.column(name) for name in job.keys}
@@ -154,6 +154,9 @@ class KeptGroups:
             w = batch.column("_uv_w").to_numpy(zero_copy_only=False)
             with np.errstate(invalid="ignore"):
                 valid &= w > 0.0  # (NULL is NaN here: not counted)
+        if valid.all() and (self.counted or self.last is None):  # the common batch: nothing to keep
+            self.last, self.counted = keys.slice(n - 1, 1), True
+            return batch
         continues = self.last is not None and same_keys(pa.Table.from_batches([keys.slice(0, 1)]),
                                                         pa.Table.from_batches([self.last]))
         if not continues:
@@ -181,6 +184,15 @@ class KeptGroups:
 
 def _serial(reader: pa.RecordBatchReader) -> Generator[pa.RecordBatch, None, None]:
     yield from reader
+
+
+def _increasing(keys: pa.Table) -> bool:
+    """One integer key without NULLs, strictly increasing: every group once, seen without a hash
+    aggregate (which took a tenth of the stream's time over 200k groups of 6 rows)."""
+    if keys.num_columns != 1 or not pa.types.is_integer(keys.schema.types[0]) or keys.column(0).null_count:
+        return False
+    k = keys.column(0).to_numpy()
+    return bool((k[1:] > k[:-1]).all())
 
 
 def _distinct_rows(keys: pa.Table) -> int:
