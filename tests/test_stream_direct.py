@@ -244,3 +244,24 @@ def test_kept_groups_across_batch_boundaries():
     assert [b.column("_uv_x").to_pylist() for b in fed] == [[1.0, 2.0], [], [2.0]]
     empty = pa.Table.from_batches(kept.finish())
     assert empty.column("_uv_k1").to_pylist() == [2, None, 4]
+
+
+def test_the_key_type_probe_is_asked_only_when_nothing_else_blocks():
+    from uneven.compiler.direct import direct_blocked
+    from uneven.compiler.parse import parse_one_statement
+
+    asked = []
+
+    def types():
+        asked.append(1)
+        return ["BIGINT"]
+
+    select = parse_one_statement("SELECT g, gini(x), count(*) FROM t GROUP BY g", "duckdb")
+    keys = [select.args["group"].expressions[0]]
+    assert direct_blocked([], select, keys, types) == "count(*) is an ordinary aggregate, read from the main GROUP BY"
+    assert direct_blocked(["moment"], select, keys, types).endswith("(moment)")
+    assert not asked
+    select = parse_one_statement("SELECT g, gini(x), sum(gini(x)) OVER () FROM t GROUP BY g", "duckdb")
+    assert direct_blocked([], select, keys, types) is None and asked == [1]  # a window function is no aggregate
+    assert direct_blocked([], select, keys, lambda: None) == "the group keys' types are unknown"
+    assert direct_blocked([], select, keys, lambda: ["DECIMAL(18,3)"]) is None

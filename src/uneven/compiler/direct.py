@@ -20,7 +20,7 @@ The direct form serves a scope when everything its final SELECT reads per group 
 
 from __future__ import annotations
 
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 
 from sqlglot import exp
 
@@ -66,12 +66,13 @@ def key_type_blocked(types: list[str] | None, keys: list[exp.Expression]) -> str
 
 
 def direct_blocked(others: list[str], select: exp.Select, keys: list[exp.Expression],
-                   types: list[str] | None) -> str | None:
+                   types: Callable[[], list[str] | None]) -> str | None:
     """Why the scope's final SELECT must join the stream's table to the main aggregate, or None.
-    ``others``: the kinds of the scope's other passes after the plan rules."""
+    ``others``: the kinds of the scope's other passes after the plan rules; ``types()`` the group
+    keys' type names (an engine probe, asked last, only when nothing else blocks)."""
     if others:
         return "the scope has other passes beside the stream (" + ", ".join(dict.fromkeys(others)) + ")"
     found = plain_aggregate(select)
     if found is not None:
         return f"{text(found)} is an ordinary aggregate, read from the main GROUP BY"
-    return key_type_blocked(types, keys)
+    return key_type_blocked(types() if keys else [], keys)

@@ -304,9 +304,8 @@ def choose_stream_form(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan
             blocking: str | None = "the direct form is turned off"
         else:
             probe = getattr(scope.engine, "key_types", None)  # DuckDB's schema (the only engine that streams)
-            types = probe(scope.select, scope.keys) if probe is not None else None
             blocking = direct_blocked([p.kind.value for p in plans if p is not plan], scope.select, scope.keys,
-                                      types)
+                                      lambda: probe(scope.select, scope.keys) if probe is not None else None)
         plan.direct = blocking is None
         plan.reason = ("direct: the final SELECT reads the stream's table, one row per group (no second read "
                        "of the source, no join on the keys)" if plan.direct
