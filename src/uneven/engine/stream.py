@@ -149,13 +149,13 @@ class KeptGroups:
             return batch
         keys = batch.select(self.keys)
         x = batch.column("_uv_x")
-        valid = np.ones(n, dtype=bool) if x.null_count == 0 else np.asarray(x.is_valid()).astype(bool)
+        valid = np.ones(n, dtype=bool) if x.null_count == 0 else x.is_valid().to_numpy(zero_copy_only=False)
         if self.weighted:
             w = batch.column("_uv_w").to_numpy(zero_copy_only=False)
             with np.errstate(invalid="ignore"):
                 valid &= w > 0.0  # (NULL is NaN here: not counted)
         if valid.all() and (self.counted or self.last is None):  # the common batch: nothing to keep
-            self.last, self.counted = keys.slice(n - 1, 1), True
+            self.last, self.counted = _last_row(keys), True
             return batch
         continues = self.last is not None and same_keys(pa.Table.from_batches([keys.slice(0, 1)]),
                                                         pa.Table.from_batches([self.last]))
@@ -169,7 +169,7 @@ class KeptGroups:
         idle = seg[:-1][~counted[:-1]]  # closed groups (all but the last) without a counted row
         if len(idle):
             self.empty.append(keys.take(pa.array(idle)))
-        self.last, self.counted = keys.slice(n - 1, 1), bool(counted[-1])
+        self.last, self.counted = _last_row(keys), bool(counted[-1])
         return batch if valid.all() else batch.filter(pa.array(valid))
 
     def _close(self) -> None:
@@ -180,6 +180,11 @@ class KeptGroups:
     def finish(self) -> list[pa.RecordBatch]:
         self._close()
         return self.empty
+
+
+def _last_row(keys: pa.RecordBatch) -> pa.RecordBatch:
+    """The last row, copied (a slice would hold the whole batch in memory while it is kept)."""
+    return keys.take(pa.array([keys.num_rows - 1]))
 
 
 def _serial(reader: pa.RecordBatchReader) -> Generator[pa.RecordBatch, None, None]:
