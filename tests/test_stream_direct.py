@@ -51,11 +51,15 @@ def data():
 
 
 def form(sql: str, con) -> str:
-    """The stream pass's form as explain reports it ("direct" or "joined"), or "" without a stream."""
-    streamed = [p for p in uneven.explain(sql, con, ordered="stream").passes if p["kind"] == "stream"]
+    """The stream pass's form as explain reports it ("direct" or "joined"), or "" without a stream;
+    checked against the SQL that runs (the direct form reads no main aggregate)."""
+    found = uneven.explain(sql, con, ordered="stream")
+    streamed = [p for p in found.passes if p["kind"] == "stream"]
     if not streamed:
         return ""
-    return "direct" if "direct:" in streamed[0]["reason"] else "joined"
+    said = "direct" if "direct:" in streamed[0]["reason"] else "joined"
+    assert ("_uv_agg_1" not in found.sql) is (said == "direct"), found.sql
+    return said
 
 
 def same_as_window(sql: str, con, ordered: bool = True) -> pd.DataFrame:

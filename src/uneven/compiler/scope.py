@@ -81,7 +81,7 @@ def lower_passes(calls: list[MeasureCall], source: Source, main: MainAggregate, 
         job = plan.job
         if job is not None:
             ctx.stream_jobs.append(job)
-            if job.direct:  # the stream's table is the grouped relation: keys (and strict guards) read it
+            if plan.direct:  # the stream's table is the grouped relation: keys (and strict guards) read it
                 main.name = job.table
         ctx.chosen.append(describe_pass(plan, [c.alias for c in new] or [job.table if job else main.name]))
         ctes += new

@@ -52,7 +52,7 @@ def run_job(con: duckdb.DuckDBPyConnection, job: StreamJob, batch_rows: int | No
     """The job's result table: its key columns and one DOUBLE column per call (NULL where undefined)."""
     batch_rows = batch_rows or BATCH_ROWS
     state = StreamState(job.needs, job.weighted)
-    kept = KeptGroups(job.keys, job.weighted) if job.direct else None
+    kept = KeptGroups(job.keys, job.weighted) if job.keeps_groups else None
     totals_keys = None
     con.abort()  # a result the caller left unfinished would refuse con.sql (con.execute drops it too)
     # an ordered result streamed to Arrow keeps its batches within memory_limit only without

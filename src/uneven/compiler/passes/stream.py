@@ -48,7 +48,7 @@ class StreamJob:
     needs: list[Need] = field(default_factory=list)
     rows_sql: str = ""  # filled by the pipeline (the text of rows and totals for DuckDB)
     totals_sql: str = ""
-    direct: bool = False  # rows the pass does not count come too, with NULL x, to keep their groups
+    keeps_groups: bool = False  # direct form with keys: rows the pass does not count come too (NULL x)
 
 
 def _ordered(select: exp.Select, columns: list[str]) -> exp.Select:
@@ -93,7 +93,7 @@ def lower_stream_pass(source: Source, plan, name: str) -> tuple[list[exp.CTE], d
     if with_ is not None:
         rows.set("with_", with_.copy())
     plan.job = StreamJob(name, keys, w is not None, rows, totals, columns, recorder.needs,
-                         direct=plan.direct and bool(keys))
+                         keeps_groups=plan.direct and bool(keys))
     return [], results
 
 
