@@ -14,11 +14,14 @@ default; DuckDB's temp directory is checked for files left behind after each cas
 
   sort        SELECT max(w) FROM (SELECT grp, x, w FROM f ORDER BY grp, x)     (DuckDB's sort)
   window      SELECT grp, gini(x, w) … GROUP BY grp, ordered="window"          (the window plan)
-  stream      the same, ordered="stream", batches read in the caller's thread    (this plan)
+  stream      the same, ordered="stream", batches read in the caller's thread    (this plan; its direct
+              form where it serves: the final SELECT reads the stream's table, compiler/direct.py)
+  streamj     the same, the final SELECT joining the stream's table to the main GROUP BY (the joined
+              form, plan.STREAM_DIRECT off)
   stream_p    the same, with the sorted batches read ahead on a thread (engine/stream.PREFETCH,
               the default); every other stream case reads in the caller's thread
   pandas      read the file, sort_values, groupby cumsum, the same formula       (vectorized pandas)
-  sort_u, window_u, stream_u      the unweighted gini(x)
+  sort_u, window_u, stream_u, streamj_u      the unweighted gini(x)
   window10, stream10              ten order-based measures on one value (weighted)
 
 Prints the median of --repeat per case, peak RSS, the ratios the targets are stated in (to the sort
@@ -42,7 +45,8 @@ from pathlib import Path
 TEN = ("gini(x, w), gini_corrected(x, w), lorenz(x, 0.3, w), top_share(x, 0.1, w), bottom_share(x, 0.5, w), "
        "palma(x, w), s80s20(x, w), quantile_w(x, 0.5, w), percentile_ratio(x, 0.9, 0.1, w), "
        "generalized_lorenz(x, 0.9, w)")
-CASES = ("sort", "window", "stream", "stream_p", "pandas", "sort_u", "window_u", "stream_u", "window10", "stream10")
+CASES = ("sort", "window", "stream", "streamj", "stream_p", "pandas", "sort_u", "window_u", "stream_u", "streamj_u",
+         "window10", "stream10")
 
 
 TEMP = Path(tempfile.gettempdir()) / "uneven-stream-bench-tmp"
@@ -104,8 +108,10 @@ def child(case: str, path: str, memory_limit: str, threads: int) -> dict:
     elif case == "pandas":
         rows = [[v] for v in _pandas_gini(path)]
     else:
+        import uneven.compiler.plan
         import uneven.engine.stream
         uneven.engine.stream.PREFETCH = case == "stream_p"
+        uneven.compiler.plan.STREAM_DIRECT = not case.startswith("streamj")
         plan = "stream" if case.startswith("stream") else "window"
         df = uneven.query(query, con, ordered=plan)
         rows = df.drop(columns="grp").values.tolist()
@@ -187,11 +193,14 @@ def main() -> None:
             ratio = f"{r['seconds'] / sort['seconds']:7.2f}" if sort and "seconds" in sort else ""
             print(f"  {case:<10} {r['seconds']:8.3f} {r['peak_rss_mb']:8.0f} {ratio:>7} {left:>16}")
         ok = {case: r for case, r in results.items() if "seconds" in r}
-        for x, y in (("stream", "window"), ("stream_p", "stream"), ("stream_u", "window_u"), ("stream10", "window10"),
+        for x, y in (("stream", "window"), ("streamj", "stream"), ("streamj_u", "stream_u"),
+                     ("stream_p", "stream"), ("stream_u", "window_u"), ("stream10", "window10"),
                      ("pandas", "window")):
             if x in ok and y in ok:
                 print(f"  max relative difference {x} vs {y}: {_max_rel(ok[x]['rows'], ok[y]['rows']):.2e}")
         for x, y, what in (("stream", "window", "stream / window, weighted"),
+                           ("stream", "streamj", "direct / joined form (stream), weighted"),
+                           ("stream_u", "streamj_u", "direct / joined form (stream), unweighted"),
                            ("stream_u", "window_u", "stream / window, unweighted"),
                            ("stream_p", "stream", "reader thread / serial (stream)"),
                            ("pandas", "stream", "pandas / stream"),

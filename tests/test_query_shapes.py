@@ -143,9 +143,11 @@ def outcome_streamed(eng, sql: str):
     first (engine/stream.py), then the compiled query joining their results."""
     from uneven.compiler.context import CompileOptions  # noqa: PLC0415
     from uneven.compiler.pipeline import compile_with_context  # noqa: PLC0415
+    from uneven.engine.columns import DuckDBSchema  # noqa: PLC0415
     from uneven.engine.stream import streamed  # noqa: PLC0415
-    try:
-        compiled, ctx = compile_with_context(sql, CompileOptions(stream=True, ordered="stream", pretty=False))
+    try:  # the key types probed as query() probes them: the direct form where it serves (compiler/direct.py)
+        compiled, ctx = compile_with_context(sql, CompileOptions(stream=True, ordered="stream", pretty=False),
+                                             DuckDBSchema(eng.con, types=False, ties=False))
     except uneven.UnevenError as e:
         return ("refused", str(e).splitlines()[0])
     try:

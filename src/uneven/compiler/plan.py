@@ -12,6 +12,7 @@ from uneven.catalog.spec import PassKind
 from uneven.compiler import clauses
 from uneven.compiler.calls import MeasureCall
 from uneven.compiler.context import CompileOptions, EngineSchema, text
+from uneven.compiler.direct import direct_blocked
 from uneven.compiler.passes.linearized import can_share
 from uneven.compiler.passes.refine import refinable
 
@@ -30,6 +31,7 @@ class PassPlan:
     order_reason: str = ""  # why cut-based measures run on the window plan or the refine plan (route_refine)
     probed: Any = None  # the tie probe's answer, once asked ((distinct, rows), or "unknown")
     job: Any = None  # the stream pass's job, set by its lowering (passes/stream.StreamJob)
+    direct: bool = False  # stream pass: the final SELECT reads its result table alone (choose_stream_form)
 
 
 def plan_passes(calls: list[MeasureCall]) -> list[PassPlan]:
@@ -286,6 +288,31 @@ def stream_blocked(plan: PassPlan, scope: PlanScope) -> str | None:
     return None
 
 
+# The direct form of a streamed scope (compiler/direct.py): the final SELECT reads the stream's table
+# alone, without the main aggregate's second read of the source and its join on the keys (bench/README.md,
+# "Stream plan"). A switch for measuring the joined form beside it (bench/stream.py); always on otherwise.
+STREAM_DIRECT = True
+
+
+def choose_stream_form(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
+    """Mark the stream pass ``direct`` where the scope's final SELECT can read its result table alone
+    (compiler/direct.py says when); else it joins the table on the keys. ``reason`` says which and why."""
+    for plan in plans:
+        if plan.kind != PassKind.STREAM:
+            continue
+        if not STREAM_DIRECT:
+            blocking: str | None = "the direct form is turned off"
+        else:
+            probe = getattr(scope.engine, "key_types", None)  # DuckDB's schema (the only engine that streams)
+            blocking = direct_blocked([p.kind.value for p in plans if p is not plan], scope.select, scope.keys,
+                                      lambda: probe(scope.select, scope.keys) if probe is not None else None)
+        plan.direct = blocking is None
+        plan.reason = ("direct: the final SELECT reads the stream's table, one row per group (no second read "
+                       "of the source, no join on the keys)" if plan.direct
+                       else f"joined on the keys to the main GROUP BY: {blocking}")
+    return plans
+
+
 SHAREABLE = {PassKind.ORDERED, PassKind.MOMENT}  # plain passes whose measures a linearized pass can also compute
 
 
@@ -323,4 +350,5 @@ PLAN_RULES: tuple[Callable[[list[PassPlan], PlanScope], list[PassPlan]], ...] = 
     route_stream,
     fuse_centred,
     choose_variants,
+    choose_stream_form,
 )

@@ -31,7 +31,9 @@ def rewrite_scope(select: exp.Select, calls: list[MeasureCall], ctx: CompileCont
     keys = resolve_group_keys(select, ctx)
     source = Source(select, keys)
     main = MainAggregate(ctx.name("agg"), keys)
+    grouped_by = main.name  # the main aggregate's CTE, unless the stream's table is the grouped relation
     pass_ctes, pass_names, results = lower_passes(calls, source, main, ctx)
+    direct = main.name != grouped_by  # (lower_passes renamed it: compiler/direct.py)
 
     replace = _replacer(results, main, keys)
     outputs = output_aliases(select)
@@ -59,8 +61,11 @@ def rewrite_scope(select: exp.Select, calls: list[MeasureCall], ctx: CompileCont
 
     with_ = select.args.get("with_") or select.args.get("with")
     ctes = [c.copy() for c in with_.expressions] if with_ else []
-    ctes += [main.lower(source)] + pass_ctes
-    final.set("with_", exp.With(expressions=ctes, recursive=with_.args.get("recursive") if with_ else None))
+    if direct and main.columns:  # the planner's check (direct.plain_aggregate) let an aggregate through
+        raise AssertionError("the direct form of a streamed scope read an aggregate of the main GROUP BY")
+    ctes += ([] if direct else [main.lower(source)]) + pass_ctes
+    if ctes:
+        final.set("with_", exp.With(expressions=ctes, recursive=with_.args.get("recursive") if with_ else None))
     return final
 
 
@@ -76,6 +81,8 @@ def lower_passes(calls: list[MeasureCall], source: Source, main: MainAggregate, 
         job = plan.job
         if job is not None:
             ctx.stream_jobs.append(job)
+            if plan.direct:  # the stream's table is the grouped relation: keys (and strict guards) read it
+                main.name = job.table
         ctx.chosen.append(describe_pass(plan, [c.alias for c in new] or [job.table if job else main.name]))
         ctes += new
         results.update(res)

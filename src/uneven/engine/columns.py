@@ -64,6 +64,11 @@ class DuckDBSchema:
         compiled SQL's own CAST decides)."""
         if not self.types:
             return None
+        return self.key_types(select, exprs)
+
+    def key_types(self, select: exp.Select, exprs: list[exp.Expression]) -> list[str] | None:
+        """The same probe whatever ``types`` says: the stream plan's direct form reads the group keys'
+        types (compiler/direct.py), for query and explain alike."""
         if not exprs:
             return []
         projections = [s.alias(e.copy(), f"_uv_p{i + 1}") for i, e in enumerate(exprs)]

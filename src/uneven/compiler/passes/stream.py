@@ -11,6 +11,13 @@ rows    keys, x, w — the window plan's rows (input policy checks, FILTER, NULL
 totals  keys, W (fsum of w, or the row count) GROUP BY keys, ORDER BY keys — only when a measure
         reads a cut (p·W) before the rows reach it; the groups come in the same order as the rows'
 columns the result columns with the numpy kernel and parameters of each call (catalog/kernels.py)
+
+In the direct form (``plan.direct``, compiler/direct.py) the final SELECT reads the result table alone,
+so the table must hold every group of the user's WHERE, also those with no row the pass counts (every
+value NULL, every weight zero, every row outside the FILTER): the rows query then reads every row of
+the WHERE, with ``_uv_x`` and ``_uv_w`` NULL where the FILTER drops a row or its value is NULL (zero
+weights as they are); engine/stream.py keeps the groups none of whose rows counts, with NULL results,
+and feeds the rest to the kernels.
 """
 
 from __future__ import annotations
@@ -41,6 +48,7 @@ class StreamJob:
     needs: list[Need] = field(default_factory=list)
     rows_sql: str = ""  # filled by the pipeline (the text of rows and totals for DuckDB)
     totals_sql: str = ""
+    keeps_groups: bool = False  # direct form with keys: rows the pass does not count come too (NULL x)
 
 
 def _ordered(select: exp.Select, columns: list[str]) -> exp.Select:
@@ -78,11 +86,28 @@ def lower_stream_pass(source: Source, plan, name: str) -> tuple[list[exp.CTE], d
             _ordered(totals, keys)
         if with_ is not None:
             totals.set("with_", with_.copy())
+    if plan.direct and keys:  # (without keys the table has its one row whatever the rows)
+        kept = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
+        rows = source.rows(direct_projections(proj, kept))
     _ordered(rows, keys + ["_uv_x"])
     if with_ is not None:
         rows.set("with_", with_.copy())
-    plan.job = StreamJob(name, keys, w is not None, rows, totals, columns, recorder.needs)
+    plan.job = StreamJob(name, keys, w is not None, rows, totals, columns, recorder.needs,
+                         keeps_groups=plan.direct and bool(keys))
     return [], results
+
+
+def direct_projections(proj: list[exp.Expression], kept: exp.Expression) -> list[exp.Expression]:
+    """The checked rows' projections with x and w NULL where ``kept`` (the FILTER, x not NULL) does not
+    hold: every row of the user's WHERE comes, so every group does; the values and weights are checked
+    on the rows the window plan checks. Zero weights come as they are (engine/stream.py drops them)."""
+    out: list[exp.Expression] = []
+    for p in proj:
+        if isinstance(p, exp.Alias) and p.alias in ("_uv_x", "_uv_w"):
+            out.append(s.named(s.case(kept.copy(), p.this.copy()), p.alias))
+        else:
+            out.append(p.copy())
+    return out
 
 
 # the registry's entry (passes/registry.py)
