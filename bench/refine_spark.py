@@ -13,6 +13,8 @@ process with a time limit, and reports the time to plan (analysis and optimizati
   sub           the sub-bins forced on Spark (with the row-count switch at its default)
   sub_noprop    the same with spark.sql.constraintPropagation.enabled=false (a setting a user's
                 cluster would not have: a diagnosis, not a fix)
+  sub_noinfer   the sub-bins with only the optimizer rule InferFiltersFromConstraints excluded
+                (spark.sql.optimizer.excludedRules; a diagnosis too)
 """
 
 from __future__ import annotations
@@ -28,7 +30,7 @@ import time
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parent.parent
-VARIANTS = ("whole", "sub", "sub_noprop")
+VARIANTS = ("whole", "sub", "sub_noprop", "sub_noinfer")
 
 
 def child(variant: str) -> dict:
@@ -50,6 +52,9 @@ def child(variant: str) -> dict:
                .config("spark.driver.extraJavaOptions", "-XX:+UseSerialGC"))
     if variant == "sub_noprop":
         builder = builder.config("spark.sql.constraintPropagation.enabled", "false")
+    if variant == "sub_noinfer":
+        builder = builder.config("spark.sql.optimizer.excludedRules",
+                                 "org.apache.spark.sql.catalyst.optimizer.InferFiltersFromConstraints")
     spark = builder.getOrCreate()
     spark.sparkContext.setLogLevel("FATAL")
     refine_data().to_parquet(folder / "t.parquet", index=False)

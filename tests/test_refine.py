@@ -454,6 +454,8 @@ def test_random_source_is_read_once():
 def test_sub_bins_are_emitted_for_every_dialect_but_spark(dialect):
     # Spark sorts its cut bins whole (docs/refine.md, "Crowded bins"); so does the plan with an SE
     sql = "SELECT g, top_share(x, 0.1, w), palma(x, w) FROM t GROUP BY g"
-    assert ('_uv_ref_1_cr' in uneven.compile(sql, dialect=dialect).replace('`', '"')) == (dialect != "spark")
+    compiled = uneven.compile(sql, dialect=dialect).replace('`', '"')
+    # with the switch's whole-bin branch beside them (wr)
+    assert ('_uv_ref_1_cr' in compiled) == ('_uv_ref_1_wr' in compiled) == (dialect != "spark")
     assert '_uv_ref_1_cr' not in uneven.compile("SELECT g, top_share_se(x, 0.1, w) FROM t GROUP BY g",
                                                  dialect=dialect).replace('`', '"')
