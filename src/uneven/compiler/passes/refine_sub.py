@@ -11,11 +11,11 @@ value: the closed form of a bin of one value). Each step of sb is a rounded IEEE
 positive operands or a cast, all non-decreasing in x, so sub-bins are runs of the sorted rows
 exactly as bins are; only that monotonicity is used, never where an engine puts a sub-bin's edge.
 
-cr CTE    the rows of the cut bins with min < max (a join to need), with their sub-bin sb and
-          their bin's row count n_b
-wr CTE    the rows of the cut bins with n_b ≤ WHOLE_BIN_ROWS, each with its running weight inside
-          its bin: such a bin is sorted whole (cheaper than the sub-bin level's passes over it)
-sb CTE    keys, b, sb over the bins with n_b > WHOLE_BIN_ROWS (crowded): Σw, Σw·x, min, max (and the
+cr CTE    the rows of the cut bins with min < max (a join to need), with their sub-bin sb, or −1
+          when their bin's row count n_b ≤ WHOLE_BIN_ROWS
+wr CTE    the rows with sb = −1, each with its running weight inside its bin: such a bin is sorted
+          whole (cheaper than the sub-bin level's passes over it)
+sb CTE    keys, b, sb over the rows with sb ≥ 0 (bins of more rows: crowded): Σw, Σw·x, min, max (and the
           bin's C⁻, W, cut bins carried)                                     GROUP BY keys, b, sb
 sm CTE    … running weight inside the bin offset by the bin's C_b⁻ (C⁻ before the sub-bin, C with
           it), the value before (S⁻) or after (S⁺) it inside the bin, and per cut c its sub-bin k_c
@@ -85,7 +85,6 @@ def sub_bin_ctes(name: str, rows: exp.Subquery, rows_alias: str, nk: int, cuts, 
     refine.Cut; ``level(cut, n)`` a quantile cut's level. With ``whole_rows``, a cut bin of at most
     that many rows is sorted whole instead of getting sub-bins."""
     nd, cr, sb, sm, sn, inn = (f"{name}_{t}" for t in ("need", "cr", "sb", "sm", "sn", "in"))
-    nb = s.col("_uv_nb")
     keys = [s.col(key_name(i)) for i in range(nk)]
     group = lambda extra=(): [k.copy() for k in keys] + list(extra)  # noqa: E731
     x, b, zero = s.col("_uv_x"), s.col("_uv_b"), s.lit(0.0)
@@ -100,11 +99,13 @@ def sub_bin_ctes(name: str, rows: exp.Subquery, rows_alias: str, nk: int, cuts, 
     on = s.and_(*null_safe_keys(nk, rows_alias, nd),
                 exp.EQ(this=s.col("_uv_b", rows_alias), expression=s.col("_uv_b", nd)))
     rx = s.col("_uv_x", rows_alias)
+    sb_key: exp.Expression = sub_bin_key(rx.copy(), s.col("_uv_lo", nd), s.col("_uv_hi", nd))
+    if whole_rows is not None:  # a bin sorted whole is marked by the sub-bin −1 (no wider rows to store)
+        sb_key = s.case(s.lte(s.col("_uv_nb", nd), s.lit(whole_rows)), exp.Neg(this=s.lit(1)), sb_key)
     cr_cols = [s.alias(s.col(key_name(i), rows_alias), key_name(i)) for i in range(nk)] + [
         s.alias(rx.copy(), "_uv_x")] + ([s.alias(s.col("_uv_w", rows_alias), "_uv_w")] if weighted else []) + [
-        s.alias(s.col(n, nd), n) for n in ["_uv_b", *passed] + (["_uv_nb"] if whole_rows is not None else [])] + [
-        s.alias(s.col(j.name, nd), j.name) for j in js] + [
-        s.alias(sub_bin_key(rx.copy(), s.col("_uv_lo", nd), s.col("_uv_hi", nd)), "_uv_sb")]
+        s.alias(s.col(n, nd), n) for n in ["_uv_b", *passed]] + [
+        s.alias(s.col(j.name, nd), j.name) for j in js] + [s.alias(sb_key, "_uv_sb")]
     crow = exp.Select(expressions=cr_cols).from_(rows)
     crow.append("joins", exp.Join(this=table(nd), on=on))
 
@@ -115,7 +116,7 @@ def sub_bin_ctes(name: str, rows: exp.Subquery, rows_alias: str, nk: int, cuts, 
         s.alias(s.agg_min(x.copy()), "_uv_lo"), s.alias(s.agg_max(x.copy()), "_uv_hi")] + [
         s.alias(s.agg_max(s.col(n)), n) for n in passed + [j.name for j in js]]).from_(table(cr))
     if whole_rows is not None:  # the crowded bins only; the others are sorted whole (wr)
-        sbins = sbins.where(s.gt(nb.copy(), s.lit(whole_rows)))
+        sbins = sbins.where(s.gte(s.col("_uv_sb"), s.lit(0)))
     sbins.set("group", exp.Group(expressions=group([b.copy(), s.col("_uv_sb")])))
 
     # sm: running sums over the sub-bins of each bin (offset by the bin's C⁻), and each cut's sub-bin
@@ -208,7 +209,7 @@ def sub_bin_ctes(name: str, rows: exp.Subquery, rows_alias: str, nk: int, cuts, 
                                   else s.cast_double(s.window(exp.RowNumber(), by_bin_x, [x.copy()])))
         whole = exp.Select(expressions=group([x.copy()]) + ([w.copy()] if weighted else []) + [
             s.col(c) for c in ["_uv_b", *passed]] + [j.copy() for j in js] + [s.alias(in_bin, "_uv_ci")]
-                           ).from_(table(cr)).where(s.lte(nb.copy(), s.lit(whole_rows)))
+                           ).from_(table(cr)).where(s.lt(s.col("_uv_sb"), s.lit(0)))
         whole_ctes = [cte(whole, wr)]
         c_row = s.add(s.col("_uv_cp"), s.col("_uv_ci"))  # the group's running weight at the row
         whole_q = exp.Select(expressions=group() + [
