@@ -21,6 +21,7 @@ import pandas as pd
 import pytest
 
 import uneven
+from uneven.compiler.passes import refine_sub
 from uneven.errors import MeasureUsageError
 
 # ---- exact oracle ---------------------------------------------------------------------------------
@@ -252,8 +253,10 @@ def crowded_want():
             for key in dict.fromkeys(df["g"]) for i, (_, ref, weighted) in enumerate(CALLS)}
 
 
-def test_sub_bins_are_exact_on_crowded_bins(engine, crowded_want):
-    # expected: exact fractions from the contract's definitions (module docstring), not compiler code
+def test_sub_bins_are_exact_on_crowded_bins(engine, crowded_want, monkeypatch):
+    # expected: exact fractions from the contract's definitions (module docstring), not compiler code;
+    # every cut bin takes the sub-bin path here (the groups hold fewer rows than the switch's default)
+    monkeypatch.setattr(refine_sub, "WHOLE_BIN_ROWS", 0)
     engine.load(crowded_data(), "crowd")
     calls = ", ".join(f"{call} AS m{i}" for i, (call, _, _) in enumerate(CALLS))
     got = engine.run(f"SELECT g, {calls} FROM crowd GROUP BY g", ordered="refine")
@@ -269,17 +272,23 @@ def test_sub_bins_are_exact_on_crowded_bins(engine, crowded_want):
     assert not bad, "\n".join(bad[:20])
 
 
-def _rows_sorted(con, sql: str) -> int:
-    """How many rows the refine plan sorts: the row count of its in CTE (the only window over rows:
-    the distinct values of the cut sub-bins)."""
+def _cte_rows(con, sql: str, suffix: str, what=None) -> list:
+    """The rows of the refine plan's CTE whose name ends with ``suffix`` (``what``: the projection,
+    count(*) by default), read by cutting the compiled query down to that CTE."""
     import sqlglot
     tree = sqlglot.parse_one(uneven.compile(sql, ordered="refine"), read="duckdb")
-    name = next(c.alias for c in tree.args["with_"].expressions if c.alias.endswith("_in"))
-    tree.set("expressions", [sqlglot.exp.Count(this=sqlglot.exp.Star())])
+    name = next(c.alias for c in tree.args["with_"].expressions if c.alias.endswith(suffix))
+    tree.set("expressions", [what or sqlglot.exp.Count(this=sqlglot.exp.Star())])
     for arg in ("group", "order", "joins", "where", "having"):
         tree.set(arg, None)
     tree.set("from_", sqlglot.exp.From(this=sqlglot.exp.to_table(f'"{name}"')))
-    return con.execute(tree.sql("duckdb")).fetchone()[0]
+    return con.execute(tree.sql("duckdb")).fetchall()
+
+
+def _rows_sorted(con, sql: str) -> int:
+    """How many rows the refine plan sorts: the rows of its in CTE (the distinct values of the cut
+    sub-bins) and of its wr CTE (the rows of the cut bins sorted whole), its only windows over rows."""
+    return sum(_cte_rows(con, sql, suffix)[0][0] for suffix in ("_in", "_wr"))
 
 
 def test_sub_bins_sort_few_rows_of_a_crowded_group():
@@ -299,6 +308,79 @@ def test_sub_bins_sort_few_rows_of_a_crowded_group():
     # near-constant with 1 % noise: the cut sub-bin holds the big tie run and a few other values,
     # and a tie run is one row of the in CTE
     assert 0 < _rows_sorted(con, "SELECT top_share(noisy, 0.1, w), quantile_w(noisy, 0.5, w) FROM c") < 100
+
+
+# ---- the switch: small cut bins sorted whole, crowded ones cut into sub-bins ----------------------
+
+SWITCH_ROWS = 64  # the switch's threshold in these tests (refine_sub.WHOLE_BIN_ROWS), so small data cross it
+
+
+def switch_data() -> pd.DataFrame:
+    """Groups on both sides of the switch at SWITCH_ROWS rows per cut bin, one query."""
+    rng = np.random.default_rng(20261205)
+
+    def one_bin(n):  # n values within 5e-5 relative of 1000 (one 2 % bin), a tie run across the middle
+        v = np.round(1000.0 + rng.integers(0, 40, n) * 0.001, 3)
+        v[n // 3: n // 2 + 4] = 1000.02
+        return v
+
+    groups = {
+        "edge_at": (one_bin(SWITCH_ROWS), rng.integers(1, 4, SWITCH_ROWS).astype(float)),  # sorted whole
+        "edge_above": (one_bin(SWITCH_ROWS + 1), rng.integers(1, 4, SWITCH_ROWS + 1).astype(float)),  # sub-bins
+    }
+    # one group with cuts on both paths: 200 values spread over six decades in pairs 0.2 % apart, each
+    # pair inside one bin whether an engine's cast rounds or truncates (ln x·50 = k + 0.25 and k + 0.35:
+    # bins of two or more rows hold the 0.1 and 0.2 cuts and the top shares), around 300 crowded in one
+    # bin at 1000 (the middle cuts, with a tie run across the median), fractional weights
+    base = np.exp((rng.integers(0, 690, 100) + 0.25) / 50)
+    spread = np.concatenate([base, base * np.exp(0.1 / 50)])
+    groups["mixed"] = (np.concatenate([spread, one_bin(300)]), np.round(rng.uniform(0.2, 3.0, 500), 3))
+    groups["ordinary"] = (np.round(rng.lognormal(3, 1, 300), 2), rng.integers(1, 6, 300).astype(float))
+    frames = [pd.DataFrame({"g": k, "x": x, "w": w}) for k, (x, w) in groups.items()]
+    df = pd.concat(frames, ignore_index=True)
+    df["x"] = df["x"].astype("Float64")
+    df["w"] = df["w"].astype("Float64")
+    return df
+
+
+def test_switch_is_exact_on_both_sides_in_one_query(engine, monkeypatch):
+    # expected: exact fractions from the contract's definitions (module docstring), not compiler code
+    monkeypatch.setattr(refine_sub, "WHOLE_BIN_ROWS", SWITCH_ROWS)
+    df = switch_data()
+    engine.load(df, "sw")
+    calls = ", ".join(f"{call} AS m{i}" for i, (call, _, _) in enumerate(CALLS))
+    got = engine.run(f"SELECT g, {calls} FROM sw GROUP BY g", ordered="refine")
+    assert sorted(got["g"]) == sorted(set(df["g"]))
+    bad = []
+    for row in got.to_dict("records"):
+        for i, (call, ref, weighted) in enumerate(CALLS):
+            value, want = row[f"m{i}"], _want(df, row["g"], ref, weighted)
+            if isinstance(value, np.ndarray):
+                value = list(value)
+            if not _close(value, want):
+                bad.append(f"{row['g']} {call}: got {value}, want {want if want is None or isinstance(want, list) else float(want)}")
+    assert not bad, "\n".join(bad[:20])
+
+
+def test_switch_takes_each_path_at_its_threshold(monkeypatch):
+    import duckdb
+    from sqlglot import exp
+    default = refine_sub.WHOLE_BIN_ROWS
+    monkeypatch.setattr(refine_sub, "WHOLE_BIN_ROWS", SWITCH_ROWS)
+    con = duckdb.connect()
+    con.register("sw", switch_data())
+    sql = "SELECT g, top_share(x, 0.1, w), palma(x, w), quantile_w(x, 0.5, w) FROM sw GROUP BY g"
+
+    def keys(suffix):  # the groups with a row in the CTE
+        return {r[0] for r in _cte_rows(con, sql, suffix, exp.column("_uv_k1"))}
+
+    # a cut bin of exactly SWITCH_ROWS rows is sorted whole, one of SWITCH_ROWS + 1 gets sub-bins; the
+    # mixed group's cuts take both paths; the ordinary group's bins hold a few rows each
+    assert keys("_wr") == {"edge_at", "mixed", "ordinary"}
+    assert keys("_sb") == {"edge_above", "mixed"}
+    # at the default threshold these small groups' cut bins are all sorted whole
+    monkeypatch.setattr(refine_sub, "WHOLE_BIN_ROWS", default)
+    assert _cte_rows(con, sql, "_sb")[0][0] == 0 < _cte_rows(con, sql, "_wr")[0][0]
 
 
 # ---- the same outcome as the window plan, and the planner's choice -----------------------------
@@ -372,6 +454,8 @@ def test_random_source_is_read_once():
 def test_sub_bins_are_emitted_for_every_dialect_but_spark(dialect):
     # Spark sorts its cut bins whole (docs/refine.md, "Crowded bins"); so does the plan with an SE
     sql = "SELECT g, top_share(x, 0.1, w), palma(x, w) FROM t GROUP BY g"
-    assert ('_uv_ref_1_cr' in uneven.compile(sql, dialect=dialect).replace('`', '"')) == (dialect != "spark")
+    compiled = uneven.compile(sql, dialect=dialect).replace('`', '"')
+    # with the switch's whole-bin branch beside them (wr)
+    assert ('_uv_ref_1_cr' in compiled) == ('_uv_ref_1_wr' in compiled) == (dialect != "spark")
     assert '_uv_ref_1_cr' not in uneven.compile("SELECT g, top_share_se(x, 0.1, w) FROM t GROUP BY g",
                                                  dialect=dialect).replace('`', '"')

@@ -252,6 +252,9 @@ def lower_refine_pass(source: Source, main, plan, name: str,
     zero = s.lit(0.0)
     group = lambda extra=(): [k.copy() for k in keys] + list(extra)  # noqa: E731
 
+    sorted_whole = with_se or not sub_bins
+    switch = not sorted_whole  # each cut bin sorted whole or cut into sub-bins by its row count _uv_nb
+
     # bins: one row per (group, bin)
     weight_sum = s.agg_sum(w.copy()) if weighted else s.cast_double(s.agg_count_star())
     moments = []
@@ -264,12 +267,13 @@ def lower_refine_pass(source: Source, main, plan, name: str,
                                              s.alias(s.agg_sum(s.mul(w.copy(), x.copy())), "_uv_tb"),
                                              s.alias(s.agg_min(x.copy()), "_uv_lo"),
                                              s.alias(s.agg_max(x.copy()), "_uv_hi")] + moments
-                          ).from_(_rows(source, plan))
+                          + ([s.alias(s.agg_count_star(), "_uv_nb")] if switch else [])).from_(_rows(source, plan))
     bins.set("group", exp.Group(expressions=group([s.col("_uv_b")])))
 
     kinds = {c.kind for c in ctx.cuts}
     wb, tb = s.col("_uv_wb"), s.col("_uv_tb")
-    cum_cols = group() + [s.col(c) for c in ("_uv_b", "_uv_wb", "_uv_lo", "_uv_hi")] + [
+    cum_cols = group() + [s.col(c) for c in ("_uv_b", "_uv_wb", "_uv_lo", "_uv_hi")] + (
+        [s.col("_uv_nb")] if switch else []) + [
         s.alias(_frame(s.agg_sum(wb.copy()), keys, "UNBOUNDED", "PRECEDING", "CURRENT ROW"), "_uv_cb"),
         s.alias(exp.Coalesce(this=_frame(s.agg_sum(wb.copy()), keys, "UNBOUNDED", "PRECEDING", "1", "PRECEDING"),
                              expressions=[zero.copy()]), "_uv_cp"),
@@ -306,8 +310,8 @@ def lower_refine_pass(source: Source, main, plan, name: str,
             s.lit(se.TIGHT), s.greatest(s.absval(gl.copy()), s.absval(gh.copy())))))
         read = s.or_(s.paren(read), s.paren(tight))
     carried = ("_uv_b", "_uv_cp", "_uv_wt") + (("_uv_nt",) if dynamic else ())
-    sorted_whole = with_se or not sub_bins
-    bounds = () if sorted_whole else ("_uv_lo", "_uv_hi")  # the sub-bins are cut between the bin's min and max
+    # the sub-bins are cut between the bin's min and max; its row count picks the path
+    bounds = () if sorted_whole else ("_uv_lo", "_uv_hi", "_uv_nb")
     need = exp.Select(expressions=group() + [s.col(n) for n in carried + bounds] + [j.copy() for j in js]
                       ).from_(table(f"{name}_mark")).where(read.copy())
 
@@ -315,7 +319,8 @@ def lower_refine_pass(source: Source, main, plan, name: str,
     if sorted_whole:  # the variance reads each row of the cut bins with its running weight: sorted whole
         inner_ctes = _sorted_cut_bins(source, plan, name, nk, ctx, carried, js)
     else:  # a second level of bins inside the cut bins, and a sort of the cut sub-bins only
-        inner_ctes = sub.sub_bin_ctes(name, _rows(source, plan), ROWS_ALIAS, nk, ctx.cuts, weighted, carried, _level)
+        inner_ctes = sub.sub_bin_ctes(name, _rows(source, plan), ROWS_ALIAS, nk, ctx.cuts, weighted, carried, _level,
+                                      whole_rows=sub.WHOLE_BIN_ROWS)
 
     # cut: per group, the totals and each cut bin's own columns
     cut_cols = group() + [s.alias(s.agg_max(s.col("_uv_wt")), "_uv_wt"), s.alias(s.agg_max(s.col("_uv_tt")), "_uv_tt"),
@@ -377,7 +382,6 @@ def _sorted_cut_bins(source: Source, plan, name: str, nk: int, ctx: RefineContex
     nd = f"{name}_need"
     x = s.col("_uv_x")
     w = s.col("_uv_w") if weighted else s.lit(1.0)
-    zero = s.lit(0.0)
     b, wt = s.col("_uv_b"), s.col("_uv_wt")
     group = lambda: [s.col(key_name(i)) for i in range(nk)]  # noqa: E731
     on = s.and_(*_null_safe_keys(nk, ROWS_ALIAS, nd),
@@ -399,15 +403,7 @@ def _sorted_cut_bins(source: Source, plan, name: str, nk: int, ctx: RefineContex
     part_cols: list[exp.Expression] = list(group())
     for i, cut in enumerate(ctx.cuts, 1):
         mine = exp.EQ(this=b.copy(), expression=s.col(f"_uv_j{i}"))
-        agg: exp.Expression
-        if cut.kind == "quantile":
-            agg = s.agg_min(s.case(s.and_(mine, sub.reached(cut, c_i, wt, _level)), x.copy()))
-        else:
-            if cut.kind == "below":
-                room = s.sub(s.mul(s.lit(cut.p), wt.copy()), s.sub(c_i.copy(), w.copy()))
-            else:
-                room = s.sub(c_i.copy(), s.mul(s.lit(1.0 - cut.p), wt.copy()))
-            agg = s.agg_sum(s.case(mine, s.mul(x.copy(), s.clamp(room, zero.copy(), w.copy()))))
+        agg = (s.agg_min if cut.kind == "quantile" else s.agg_sum)(sub.row_part(cut, mine, x, c_i, w, wt, _level))
         part_cols.append(s.alias(agg, f"_uv_q{i}"))
     part = exp.Select(expressions=part_cols).from_(table(f"{name}_in"))
     if nk:
