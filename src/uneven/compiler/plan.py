@@ -285,6 +285,11 @@ def stream_blocked(plan: PassPlan, scope: PlanScope) -> str | None:
     if clauses.volatile_reason(scope.select) is not None or any(
             c.args.get("materialized") for c in scope.select.find_all(exp.CTE)):
         return "the rows are read once through a MATERIALIZED CTE, which a stream would read again"
+    probe = getattr(scope.engine, "collated_keys", None)  # DuckDB's schema (the only engine that streams)
+    collated = probe(scope.select, scope.keys) if probe is not None and scope.keys else None
+    if collated is not None:
+        return (f"the group key {collated} compares text under a collation (GROUP BY merges strings the stream, "
+                "which compares bytes, would keep apart)")
     return None
 
 

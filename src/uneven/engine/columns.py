@@ -29,6 +29,10 @@ def probe_select(select: exp.Select, projections: Sequence[exp.Expression], limi
     return probe
 
 
+# pairs of different strings that a collation may compare equal: case, accents, Unicode normal forms
+_DIFFERENT_STRINGS = (("a", "A"), ("e", "\u00e9"), ("\u00e9", "e\u0301"), ("a", "a "))
+
+
 class DuckDBSchema:
     """The compiler's ``EngineSchema`` on a DuckDB connection, for one compilation (its column
     answers are cached by SELECT node). ``types`` and ``ties`` turn those probes off for a caller
@@ -80,6 +84,38 @@ class DuckDBSchema:
         except Exception:  # a help, never a failure of its own
             return None
         return [r[1] for r in rows] if len(rows) == len(exprs) else None
+
+    def collated_keys(self, select: exp.Select, keys: list[exp.Expression]) -> str | None:
+        """The first text group key (as SQL) whose comparisons make different strings equal (a collation,
+        the key column's own or ``default_collation``), or None: GROUP BY then merges what the stream,
+        which compares bytes, would keep apart. Read without data: a CASE keeps the key's collation."""
+        if not keys:
+            return None
+        types = self.key_types(select, keys)
+        if types is None:  # unknown types: only the session's collation can be read
+            found = self.con.execute("SELECT current_setting('default_collation')").fetchone()
+            return keys[0].sql("duckdb") if found and found[0] else None
+        for key, kind in zip(keys, types):
+            if kind.upper().startswith("VARCHAR") and self._merges_strings(select, key):
+                return key.sql("duckdb")
+        return None
+
+    def _merges_strings(self, select: exp.Select, key: exp.Expression) -> bool:
+        inner = probe_select(select, [s.alias(key.copy(), "_uv_p")])
+        if inner is None:
+            return False
+        key_col = exp.column("_uv_p", "_uv_q")
+        tests = [exp.EQ(this=exp.If(this=exp.Is(this=key_col.copy(), expression=exp.Null()),
+                                    true=exp.Literal.string(a), false=key_col.copy()),
+                        expression=exp.Literal.string(b)) for a, b in _DIFFERENT_STRINGS]
+        probe = exp.select(exp.or_(*tests)).from_(exp.select("1").subquery("_uv_one")).join(
+            inner.subquery("_uv_q"), on=exp.true(), join_type="left")
+        sql = probe.sql("duckdb")
+        try:
+            found = self.con.execute(sql).fetchone()
+        except Exception:  # a probe that cannot run: assume the worst, the window plan is always right
+            return True
+        return bool(found and found[0])
 
     def tie_counts(self, select: exp.Select, x: exp.Expression, condition: exp.Expression | None,
                    keys: list[exp.Expression]) -> tuple[int, int] | None:
