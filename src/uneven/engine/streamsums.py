@@ -18,6 +18,7 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
+import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 
@@ -445,6 +446,23 @@ def curve_contributions(k: int, d: np.ndarray, w: np.ndarray | None, c: np.ndarr
     return out, a_end.astype(np.float64)
 
 
+def segmented_prefix(v: np.ndarray, lens: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """compensated_prefix restarted at every segment (``lens`` rows each): no segment's sums leak
+    into the next one's digits (a difference of batch-wide prefix sums would leave a small group
+    after a large one with the large one's rounding)."""
+    if len(lens) <= 1:
+        return compensated_prefix(v)
+    codes = np.repeat(np.arange(len(lens)), lens)
+    hi = pd.Series(v).groupby(codes, sort=False).cumsum().to_numpy(copy=True)
+    prev = np.empty_like(hi)
+    prev[1:] = hi[:-1]
+    starts = np.cumsum(lens) - lens
+    prev[starts] = 0.0
+    bp = hi - prev  # two-sum of prev + v = hi: the exact rounding error of each step
+    err = (prev - (hi - bp)) + (v - bp)
+    return hi, pd.Series(err).groupby(codes, sort=False).cumsum().to_numpy()
+
+
 def gini_moments(d: np.ndarray, w: np.ndarray | None, c: np.ndarray, seg: np.ndarray,
                  carried_sd: float | None) -> tuple[np.ndarray, np.ndarray]:
     """Per segment [n, the means of t1 … t3, their centred cross sums] (the Gini's row terms,
@@ -455,12 +473,10 @@ def gini_moments(d: np.ndarray, w: np.ndarray | None, c: np.ndarray, seg: np.nda
     nseg = len(seg)
     ww = np.ones(n) if w is None else w
     wd = ww * d
-    hi, lo = compensated_prefix(wd)
+    hi, lo = segmented_prefix(wd, lens)
+    if carried_sd is not None:  # the open group's S_d so far, as (hi, lo) through its first segment
+        hi[:lens[0]] += carried_sd
     run = hi + lo
-    if nseg > 1:
-        run -= np.repeat(np.where(seg > 0, run[seg - 1], 0.0), lens)
-    if carried_sd is not None:
-        run[:lens[0]] += carried_sd
     terms = (2.0 * ww * (c * d - run), wd, ww)
     means = [np.add.reduceat(t, seg) / lens for t in terms]
     centred = [t - (m[0] if nseg == 1 else np.repeat(m, lens)) for t, m in zip(terms, means)]
