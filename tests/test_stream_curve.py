@@ -291,3 +291,33 @@ def test_linearized_pass_streams_under_stream_and_auto_and_a_design_keeps_the_wi
     assert "survey design (strata) is not streamed" in designed.passes[0]["reason"]
     # compile() never streams: the same portable SQL whatever the option
     assert uneven.compile(sql, ordered="stream") == uneven.compile(sql, ordered="window")
+
+
+def test_curve_of_many_small_groups_matches_the_window_plan(batch):
+    # 3000 groups of 1 to 6 rows: each row crosses several of the 50 cuts, many groups per batch
+    rng = np.random.default_rng(9)
+    sizes = rng.integers(1, 7, 3000)
+    g = np.repeat(np.arange(3000), sizes)
+    con = duckdb.connect()
+    con.register("t", pd.DataFrame({"g": g, "x": rng.lognormal(0, 1, len(g)).round(2),
+                                    "w": rng.integers(1, 4, len(g)).astype(float)}))
+    sql = "SELECT g, lorenz_curve(x, 50, w) AS c FROM t GROUP BY g ORDER BY g"
+    got = uneven.query(sql, con, ordered="stream")
+    assert_same_curves(got.c, uneven.query(sql, con, ordered="window").c)
+    assert len(got) == 3000
+
+
+def test_a_group_whose_running_weight_overflows_leaves_the_next_group_alone(batch):
+    # group 1's weights sum past the largest double: its results are NULL, as in the window plan;
+    # group 2 in the same batch keeps its values (its running weight restarts: streamsums.segmented_prefix)
+    con = duckdb.connect()
+    con.register("t", pd.DataFrame({"g": [1, 1, 1, 2, 2], "x": [1.0, 2.0, 3.0, 1.0, 2.0],
+                                    "w": [1e308, 1e308, 1e308, 1.0, 3.0]}))
+    sql = "SELECT g, lorenz_curve(x, 4, w) AS c, gini(x, w) AS gi, lorenz(x, 0.5, w) AS l FROM t GROUP BY g ORDER BY g"
+    got = uneven.query(sql, con, ordered="stream")
+    want = uneven.query(sql, con, ordered="window")
+    assert_same_curves(got.c, want.c)
+    assert_same_frames(got[["g", "gi", "l"]], want[["g", "gi", "l"]])
+    assert curves(got.c)[0] is None and math.isnan(got.gi[0])  # Σ w·x is not a finite number: NULL
+    # two rows 1 and 2 of weights 1 and 3: G = 1·3·|1 − 2| / (4²·7/4) = 3/28 (by hand)
+    assert got.gi[1] == pytest.approx(3 / 28, rel=1e-15)

@@ -265,14 +265,17 @@ class StreamState:
             w = batch.column("_uv_w").to_numpy(zero_copy_only=False).astype(np.float64, copy=False)
             carry_hi, carry_lo = (self.carry_hi, self.carry_lo) if continues else (0.0, 0.0)
             hi, lo = prefix_sums(w, carry_hi if carry_lo == 0.0 else math.inf)
-            c_hi = hi - spread(np.where(seg > 0, hi[seg - 1], 0.0)) if nseg > 1 else hi
+            restart = nseg > 1 and not math.isfinite(hi[-1])  # a group's overflow must not reach the next
+            if restart:
+                hi, lo = segmented_prefix(w, lens)
+            c_hi = hi - spread(np.where(seg > 0, hi[seg - 1], 0.0)) if nseg > 1 and not restart else hi
             if continues:
                 c_hi[:lens[0]] += carry_hi  # the open group's rows come first
             if lo is None:  # integers below 2^53: every running weight is exact as it is
                 c = c_hi
                 self.carry_hi, self.carry_lo = float(c_hi[-1]), 0.0
             else:
-                c_lo = lo - spread(np.where(seg > 0, lo[seg - 1], 0.0)) if nseg > 1 else lo
+                c_lo = lo - spread(np.where(seg > 0, lo[seg - 1], 0.0)) if nseg > 1 and not restart else lo
                 if continues:
                     c_lo[:lens[0]] += carry_lo
                 c = c_hi + c_lo
@@ -424,11 +427,20 @@ def curve_contributions(k: int, d: np.ndarray, w: np.ndarray | None, c: np.ndarr
         before[0] = carried_a
     cross = np.flatnonzero(a > before)
     count = a[cross] - before[cross]
+    total = int(count.sum())
     rows = np.repeat(cross, count)
-    cut = np.repeat(before[cross], count) + (np.arange(int(count.sum())) - np.repeat(np.cumsum(count) - count, count))
+    cut = np.repeat(before[cross], count) + (np.arange(total) - np.repeat(np.cumsum(count) - count, count))
     seg_of_row = np.repeat(np.arange(nseg), lens)
-    # the sum of w·d before each crossing row, per segment: chunks between consecutive break points
-    bp = np.union1d(seg, cross)
+    # the sum of w·d before each crossing row, per segment: chunks between consecutive break points.
+    # A new group's first row crosses cut 0 (t_0 = 0 < C), so the break points are the crossing rows
+    # and, when the batch goes on with an open group that crosses nothing at row 0, row 0
+    lead = 0 if len(cross) and cross[0] == 0 else 1
+    fresh = seg[1:] if carried_a is not None else seg
+    simple = bool((a[fresh] > 0).all())
+    if simple:
+        bp = np.concatenate((np.zeros(lead, dtype=cross.dtype), cross))
+    else:  # a running weight that is not a finite number (an overflowing sum): every break point spelled out
+        bp = np.union1d(seg, cross)
     chunk = np.add.reduceat(ww * d, bp) if n else np.zeros(0)
     bseg = seg_of_row[bp]
     pos = np.arange(len(bp)) - np.searchsorted(bp, seg)[bseg]
@@ -442,7 +454,8 @@ def curve_contributions(k: int, d: np.ndarray, w: np.ndarray | None, c: np.ndarr
     out = np.where(np.arange(k + 1)[None, :] >= a_end[:, None], whole[:, None], 0.0)
     rs = seg_of_row[rows]
     target = cuts[cut] * (totals[rs])
-    out[rs, cut] = upto[rs, pos[np.searchsorted(bp, rows)]] + d[rows] * (target - (c[rows] - ww[rows]))
+    at = np.repeat(pos[lead:], count) if simple else pos[np.searchsorted(bp, rows)]
+    out[rs, cut] = upto[rs, at] + d[rows] * (target - (c[rows] - ww[rows]))
     return out, a_end.astype(np.float64)
 
 
