@@ -23,6 +23,9 @@ default; DuckDB's temp directory is checked for files left behind after each cas
   pandas      read the file, sort_values, groupby cumsum, the same formula       (vectorized pandas)
   sort_u, window_u, stream_u, streamj_u      the unweighted gini(x)
   window10, stream10              ten order-based measures on one value (weighted)
+  window_curve, stream_curve      lorenz_curve(x, 50, w)
+  window_se, stream_se            gini(x, w), gini_se(x, w)
+  window_rep, stream_rep          lorenz_curve(x, 50, w), theil(x, w) (the report's ordered pass)
 
 Prints the median of --repeat per case, peak RSS, the ratios the targets are stated in (to the sort
 of the same columns, measured in the same run) and the largest relative difference between the
@@ -47,6 +50,13 @@ TEN = ("gini(x, w), gini_corrected(x, w), lorenz(x, 0.3, w), top_share(x, 0.1, w
        "generalized_lorenz(x, 0.9, w)")
 CASES = ("sort", "window", "stream", "streamj", "stream_p", "pandas", "sort_u", "window_u", "stream_u", "streamj_u",
          "window10", "stream10")
+# further cases, window_<name> and stream_<name> (the stream reading ahead, as by default):
+# curve  a Lorenz curve of 50 segments (today's auto: the window plan; refine takes k ≤ 20 only)
+# se     the weighted Gini and its linearized standard error (the linearized pass)
+# rep    the report's ordered pass: the curve beside theil, which fuses onto the window plan
+# fus    a Gini beside theil (a centred measure that fuses onto the window plan)
+MORE = {"curve": "lorenz_curve(x, 50, w)", "se": "gini(x, w), gini_se(x, w)",
+        "rep": "lorenz_curve(x, 50, w), theil(x, w)", "fus": "gini(x, w), theil(x, w)"}
 
 
 TEMP = Path(tempfile.gettempdir()) / "uneven-stream-bench-tmp"
@@ -98,7 +108,8 @@ def child(case: str, path: str, memory_limit: str, threads: int) -> dict:
     con.execute("SET preserve_insertion_order = false")
     src = f"read_parquet('{path}')"
     weighted = not case.endswith("_u")
-    measures = TEN if case.endswith("10") else ("gini(x, w)" if weighted else "gini(x)")
+    more = next((m for key, m in MORE.items() if case.endswith("_" + key)), None)
+    measures = more or (TEN if case.endswith("10") else ("gini(x, w)" if weighted else "gini(x)"))
     query = f"SELECT grp, {measures} FROM {src} GROUP BY grp ORDER BY grp"
     t0 = time.perf_counter()
     rows = None
@@ -110,11 +121,12 @@ def child(case: str, path: str, memory_limit: str, threads: int) -> dict:
     else:
         import uneven.compiler.plan
         import uneven.engine.stream
-        uneven.engine.stream.PREFETCH = case == "stream_p"
+        uneven.engine.stream.PREFETCH = case == "stream_p" or more is not None
         uneven.compiler.plan.STREAM_DIRECT = not case.startswith("streamj")
         plan = "stream" if case.startswith("stream") else "window"
         df = uneven.query(query, con, ordered=plan)
-        rows = df.drop(columns="grp").values.tolist()
+        rows = [[float(v) for cell in row for v in ([p["lorenz"] for p in cell] if hasattr(cell, "__len__")
+                                                    else [cell])] for row in df.drop(columns="grp").values]
     seconds = time.perf_counter() - t0
     hwm = None
     for line in open("/proc/self/status"):
@@ -195,7 +207,7 @@ def main() -> None:
         ok = {case: r for case, r in results.items() if "seconds" in r}
         for x, y in (("stream", "window"), ("streamj", "stream"), ("streamj_u", "stream_u"),
                      ("stream_p", "stream"), ("stream_u", "window_u"), ("stream10", "window10"),
-                     ("pandas", "window")):
+                     ("pandas", "window"), *((f"stream_{k}", f"window_{k}") for k in MORE)):
             if x in ok and y in ok:
                 print(f"  max relative difference {x} vs {y}: {_max_rel(ok[x]['rows'], ok[y]['rows']):.2e}")
         for x, y, what in (("stream", "window", "stream / window, weighted"),
@@ -205,7 +217,8 @@ def main() -> None:
                            ("stream_p", "stream", "reader thread / serial (stream)"),
                            ("pandas", "stream", "pandas / stream"),
                            ("stream10", "stream", "ten measures / one Gini (stream)"),
-                           ("window10", "window", "ten measures / one Gini (window)")):
+                           ("window10", "window", "ten measures / one Gini (window)"),
+                           *((f"stream_{k}", f"window_{k}", f"stream / window, {m}") for k, m in MORE.items())):
             if x in ok and y in ok:
                 print(f"  {what}: {ok[x]['seconds'] / ok[y]['seconds']:.2f}")
     print(f"\nload average after: {' '.join(f'{v:.2f}' for v in os.getloadavg())}")

@@ -135,5 +135,6 @@ MEASURES = [
             stream=k.percentile_ratio),
     Measure("lorenz_curve", "ordered", (Param("k", "count", "number of segments"),), "weight",
             "[(p, L(p)) for p = 0, 1/k, …, 1] as a list of structs", build_lorenz_curve, ref.lorenz_curve,
-            returns="lorenz_points", domain="any x; NULL when T ≤ 0", max_count=1000),
+            returns="lorenz_points", domain="any x; NULL when T ≤ 0", max_count=1000,
+            stream=k.lorenz_curve),
 ]

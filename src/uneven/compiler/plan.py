@@ -219,14 +219,21 @@ def route_refine(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
 
 
 def route_stream(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
-    """Turn an ordered pass into a stream pass (compiler/passes/stream.py: DuckDB sorts, numpy reduces)
-    where uneven runs the query on DuckDB itself (``scope.options.stream``) and every call on the pass
-    has a kernel. "stream" asks for it; "auto" takes it where it is measured to be cheaper
-    (``stream_pays``). Otherwise the pass keeps the window plan, and ``order_reason`` says why."""
+    """Turn an ordered pass, or a linearized pass without a survey design, into a stream pass
+    (compiler/passes/stream.py: DuckDB sorts, numpy reduces) where uneven runs the query on DuckDB
+    itself (``scope.options.stream``) and every call on the pass has a kernel. "stream" asks for it;
+    "auto" takes it where it is measured to be cheaper (``stream_pays``). Otherwise the pass keeps the
+    window plan, and ``order_reason`` says why."""
     for plan in plans:
-        if plan.kind != PassKind.ORDERED or plan.columns or plan.options:
+        if plan.kind not in (PassKind.ORDERED, PassKind.LINEARIZED) or plan.columns:
             continue
-        fusing = scope.keys and any(p.kind in FUSED_KINDS and _rows_key(p) == _rows_key(plan) for p in plans)
+        if plan.options:  # a survey design (strata, PSU): the stream has no PSU or stratum sums
+            if plan.kind == PassKind.LINEARIZED and scope.options.ordered == "stream" and scope.options.stream:
+                plan.order_reason = ("window plan: a survey design (" + ", ".join(sorted(plan.options))
+                                     + ") is not streamed (stream plan requested)")
+            continue
+        fusing = plan.kind == PassKind.ORDERED and scope.keys and not _has_curve(plan) and any(
+            p.kind in FUSED_KINDS and _rows_key(p) == _rows_key(plan) for p in plans)
         wanted = scope.options.ordered == "stream" or (scope.options.ordered == "auto" and scope.options.stream
                                                         and not fusing and stream_pays(plan, scope))
         if not wanted:
@@ -247,12 +254,25 @@ def route_stream(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
 # the full order (the refine plan cannot serve it). Weighted, the window plan pays a running sum(w)
 # window over every row; unweighted, its row_number() form measured slower than the stream too
 # (0.68-0.92x on 2M x 100, 5M x 1 and 200k groups of 6 rows, and 0.82-0.91x on a quiet machine).
-# Not where centred measures would fuse onto the window plan (fuse_centred: the stream would leave
-# them a scan and a join of their own, not measured).
+# Not where centred measures would fuse onto the window plan (fuse_centred: the stream leaves them a
+# scan and a join of their own), except beside a lorenz_curve (_has_curve). A Gini beside theil measured
+# 0.73x too at 2M x 100, but the many-small-groups case, where that join weighs most, is not measured.
+# A linearized pass (gini_se and the estimates sharing its sort) streams under "auto" as well: measured
+# cheaper than its window plan's chain of CTEs (bench/README.md, "Stream plan").
+LINEARIZED_STREAMS = True
 STREAM_PAYS = "auto streams a pass whose measures need the full order (bench/README.md, \"Stream plan\")"
 
 
+def _has_curve(plan: PassPlan) -> bool:
+    """A lorenz_curve on the pass: its window form (cells, then a grid of k+1 conditional sums) costs
+    more than the centred measures' own pass that streaming leaves them (the report's ordered pass,
+    the curve beside theil: stream 0.76x window at 2M x 100, bench/README.md, "Stream plan")."""
+    return any(c.measure.name == "lorenz_curve" for c in plan.calls)
+
+
 def stream_pays(plan: PassPlan, scope: PlanScope) -> bool:
+    if plan.kind == PassKind.LINEARIZED:  # the window plan's linearized pass has no ties variant: no probe
+        return LINEARIZED_STREAMS and any(refinable(c) for c in plan.calls)
     if scope.options.tie_grouping == "on" or not any(refinable(c) for c in plan.calls):
         return False
     if scope.options.tie_grouping == "auto" and scope.engine is not None and scope.engine.probes_ties:

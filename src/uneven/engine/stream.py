@@ -104,17 +104,37 @@ def run_job(con: duckdb.DuckDBPyConnection, job: StreamJob, batch_rows: int | No
         columns = {name: keys.column(name) for name in job.keys}
     else:  # one group, the whole input: one row, of NULLs when it has no rows
         columns = {}
-    acc = GroupValues(values, m)
+    acc = GroupValues(values, m, state.totals)
     nulls = keys.num_rows - groups if job.keys else 0
     for column, kernel, params in job.columns:
         if groups:
-            result = np.broadcast_to(np.asarray(kernel(acc, params), dtype=np.float64), (groups,))
-            columns[column] = pa.array(result, type=pa.float64(), from_pandas=True)  # NaN → NULL
+            result = np.asarray(kernel(acc, params), dtype=np.float64)
+            if result.ndim == 2:  # lorenz_curve: a list of (p, L(p)) per group, NULL where T ≤ 0
+                columns[column] = curve_column(result)
+            else:
+                result = np.broadcast_to(result, (groups,))
+                columns[column] = pa.array(result, type=pa.float64(), from_pandas=True)  # NaN → NULL
             if nulls:
-                columns[column] = pa.concat_arrays([columns[column], pa.nulls(nulls, pa.float64())])
+                columns[column] = pa.concat_arrays([columns[column], pa.nulls(nulls, columns[column].type)])
         else:
-            columns[column] = pa.nulls(nulls if job.keys else 1, pa.float64())
+            columns[column] = pa.nulls(nulls if job.keys else 1, CURVE_TYPE if getattr(kernel, "curve", False)
+                                       else pa.float64())
     return pa.table(columns)
+
+
+CURVE_TYPE = pa.list_(pa.struct([("p", pa.float64()), ("lorenz", pa.float64())]))  # the window plan's type
+
+
+def curve_column(values: np.ndarray) -> pa.Array:
+    """(groups, k+1) ordinates as the window plan's list of structs {p: j/k, lorenz: L(j/k)} per group;
+    NULL for a row of NaN (a group whose total is ≤ 0)."""
+    groups, points = values.shape
+    k = points - 1
+    p = np.tile(np.arange(points) / k, groups)
+    structs = pa.StructArray.from_arrays([pa.array(p), pa.array(values.ravel())], names=["p", "lorenz"])
+    offsets = pa.array(np.arange(groups + 1, dtype=np.int32) * points)
+    defined = ~np.isnan(values).all(axis=1)
+    return pa.ListArray.from_arrays(offsets, structs, type=CURVE_TYPE, mask=pa.array(~defined))
 
 
 @contextlib.contextmanager

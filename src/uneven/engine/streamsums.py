@@ -18,6 +18,7 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
+import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 
@@ -27,25 +28,45 @@ from uneven.catalog.kernels import Need
 _SUM, _MIN, _LAST = "sum", "min", "last"
 
 
+_MOMENTS = "moments"  # (n, means, centred cross sums) of row terms, merged by Chan's pairwise update
+
+
 def _combine(kind: str, a: np.ndarray, b: np.ndarray) -> np.ndarray:
     if kind == _SUM:
         return a + b
     if kind == _MIN:
         return np.minimum(a, b)
+    if kind == _MOMENTS:
+        return merge_moments(a, b)
     return b
+
+
+TERMS = 3  # the Gini's row terms on the stream (catalog/kernels.gini_variance)
+
+
+def merge_moments(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Two parts' [n, means (TERMS), centred cross sums (TERMS²)] as one (Chan, Golub and LeVeque's
+    pairwise update, common practice): M = M_a + M_b + δ δᵀ n_a n_b / n, δ = mean_b − mean_a."""
+    na, nb = a[0], b[0]
+    n = na + nb
+    delta = b[1:1 + TERMS] - a[1:1 + TERMS]
+    mean = a[1:1 + TERMS] + delta * (nb / n)
+    M = a[1 + TERMS:] + b[1 + TERMS:] + np.outer(delta, delta).ravel() * (na * nb / n)
+    return np.concatenate(([n], mean, M))
 
 
 SCALE = 2.0 ** -512  # the scaled form's factor (catalog/scaling.py)
 _KIND = {"W": _LAST, "n": _SUM, "gini_a": _SUM, "gini_b": _SUM, "gini_a_s": _SUM, "gini_b_s": _SUM,
          "below": _SUM, "above": _SUM,
-         "quantile": _MIN, "xmax": _LAST, "m": _LAST, "chunk": _LAST}
+         "quantile": _MIN, "xmax": _LAST, "m": _LAST, "chunk": _LAST, "curve": _SUM, "curve_a": _LAST,
+         "gini_moments": _MOMENTS, "gini_sd": _SUM}
 
 
 class GroupValues:
     """The quantities of every group, as the kernels read them (NaN where a group has none)."""
 
-    def __init__(self, values: dict[Need, np.ndarray], m: np.ndarray):
-        self.values, self.m = values, m
+    def __init__(self, values: dict[Need, np.ndarray], m: np.ndarray, totals: np.ndarray | None = None):
+        self.values, self.m, self.totals = values, m, totals  # totals: W per group from the totals query
 
     def _get(self, need: Need) -> np.ndarray:
         return self.values[need]
@@ -84,6 +105,25 @@ class GroupValues:
     def quantile(self, p: float):
         q = self._get(Need("quantile", float(p)))
         return np.where(np.isinf(q), self._get(Need("xmax")), q)
+
+    @property
+    def xmax(self):
+        return self._get(Need("xmax"))
+
+    def curve(self, k: int) -> np.ndarray:
+        """(groups, k+1): Σ_i x_i·clamp(t_j − C_{i−1}, 0, w_i) at t_j = (j/k)·W, from the sums on
+        d = x − m (``curve_contributions``) plus m·Σ clamp(…) = m·min(t_j, C_n)."""
+        assert self.totals is not None  # a curve's pass reads the totals first
+        held = self._get(Need("curve", float(k)))
+        targets = (np.arange(k + 1) / k)[None, :] * self.totals[:, None]
+        with np.errstate(over="ignore", invalid="ignore"):
+            return held + self.m[:, None] * np.minimum(targets, self.W[:, None])
+
+    @property
+    def gini_moments(self):
+        """(n, means (groups, 3), centred cross sums (groups, 3, 3)) of the Gini's row terms."""
+        rows = self._get(Need("gini_moments"))
+        return rows[:, 0], rows[:, 1:1 + TERMS], rows[:, 1 + TERMS:].reshape(-1, TERMS, TERMS)
 
     def chunk(self, kernel, params: tuple):
         states = self._get(Need("chunk", kernel=kernel, params=tuple(params)))
@@ -225,14 +265,17 @@ class StreamState:
             w = batch.column("_uv_w").to_numpy(zero_copy_only=False).astype(np.float64, copy=False)
             carry_hi, carry_lo = (self.carry_hi, self.carry_lo) if continues else (0.0, 0.0)
             hi, lo = prefix_sums(w, carry_hi if carry_lo == 0.0 else math.inf)
-            c_hi = hi - spread(np.where(seg > 0, hi[seg - 1], 0.0)) if nseg > 1 else hi
+            restart = nseg > 1 and not math.isfinite(hi[-1])  # a group's overflow must not reach the next
+            if restart:
+                hi, lo = segmented_prefix(w, lens)
+            c_hi = hi - spread(np.where(seg > 0, hi[seg - 1], 0.0)) if nseg > 1 and not restart else hi
             if continues:
                 c_hi[:lens[0]] += carry_hi  # the open group's rows come first
             if lo is None:  # integers below 2^53: every running weight is exact as it is
                 c = c_hi
                 self.carry_hi, self.carry_lo = float(c_hi[-1]), 0.0
             else:
-                c_lo = lo - spread(np.where(seg > 0, lo[seg - 1], 0.0)) if nseg > 1 else lo
+                c_lo = lo - spread(np.where(seg > 0, lo[seg - 1], 0.0)) if nseg > 1 and not restart else lo
                 if continues:
                     c_lo[:lens[0]] += carry_lo
                 c = c_hi + c_lo
@@ -282,6 +325,14 @@ class StreamState:
                 out[need] = x[ends].copy()
             elif need.name == "chunk":
                 out[need] = self._chunks(need, x, w, c, seg, gidx, carried)
+            elif need.name == "curve":
+                assert self.totals is not None and need.p is not None  # a curve reads the totals first
+                a_key = Need("curve_a", need.p)
+                out[need], out[a_key] = curve_contributions(
+                    int(need.p), d, w, c, seg, self.totals[gidx], None if carried is None else int(carried[a_key]))
+            elif need.name == "gini_moments":
+                sd_key = Need("gini_sd")
+                out[need], out[sd_key] = gini_moments(d, w, c, seg, None if carried is None else carried[sd_key])
             else:
                 assert self.totals is not None
                 segs = np.diff(np.append(seg, len(x)))
@@ -324,6 +375,9 @@ class StreamState:
         """The open group ended with the last batch: it joins the finished groups."""
         if self.open is not None:
             for key, value in self.open.items():
+                if isinstance(value, np.ndarray) and value.ndim:  # a row of a 2-D quantity (curve, moments)
+                    self.done.setdefault(key, []).append(value[None, :])
+                    continue
                 one = np.empty(1, dtype=object if isinstance(key, Need) and key.name == "chunk" else np.float64)
                 one[0] = value  # a user kernel's state may be any object (a tuple, a dict …)
                 self.done.setdefault(key, []).append(one)
@@ -335,3 +389,116 @@ class StreamState:
         cat = {key: np.concatenate(parts) if parts else np.zeros(0) for key, parts in self.done.items()}
         m = cat.pop("m", np.zeros(0))
         return {need: cat.get(need, np.zeros(0)) for need in self.needs}, m
+
+
+def curve_contributions(k: int, d: np.ndarray, w: np.ndarray | None, c: np.ndarray, seg: np.ndarray,
+                        totals: np.ndarray, carried_a: int | None) -> tuple[np.ndarray, np.ndarray]:
+    """One batch's part of Σ_i d_i·clamp(t_j − C_{i−1}, 0, w_i), t_j = (j/k)·W, for j = 0 … k: a
+    (segments, k+1) array, summed over the batches of a group; and a_end, each segment's a at its
+    last row (carried into the next batch).
+
+    a_i = #{j : t_j < C_i} is the number of cuts reached before row i ends (from ceil(k·C_i/W),
+    corrected against the targets themselves, so it is exact whatever the rounding: one pass per
+    row, not one per cut). Rows sorted by x, so a never decreases within a group; the cuts
+    a_{i−1} … a_i − 1 cross row i, which holds (t_j − C_{i−1})·d_i of cut j; every row before it
+    is whole: the sum of w·d before row i, read from one cumulative sum over the chunks between
+    consecutive crossing rows. A cut the segment does not reach (j ≥ a_end) takes its whole sum;
+    a cut crossed in an earlier batch (j < the carried a) takes nothing."""
+    n, nseg = len(d), len(seg)
+    lens = np.diff(np.append(seg, n))
+    ww = np.ones(n) if w is None else w
+    wrow = totals[0] if nseg == 1 else np.repeat(totals, lens)
+    cuts = np.append(np.arange(k + 1) / k, np.inf)  # p_j = j/k as the window plan's literals; t_{k+1} = ∞
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        guess = np.nan_to_num(np.ceil(c * k / wrow), nan=0.0, posinf=k + 1.0, neginf=0.0)
+    a = np.clip(guess, 0, k + 1).astype(np.int64)
+    for _ in range(8):  # rounding of k·C/W leaves a within one or two of the count
+        with np.errstate(invalid="ignore", over="ignore"):
+            up = cuts[a] * wrow < c
+            down = (a > 0) & (cuts[np.maximum(a - 1, 0)] * wrow >= c)
+        if not (up.any() or down.any()):
+            break
+        a += up
+        a -= down
+    before = np.empty(n, dtype=np.int64)
+    before[1:] = a[:-1]
+    before[seg] = 0
+    if carried_a is not None:
+        before[0] = carried_a
+    cross = np.flatnonzero(a > before)
+    count = a[cross] - before[cross]
+    total = int(count.sum())
+    rows = np.repeat(cross, count)
+    cut = np.repeat(before[cross], count) + (np.arange(total) - np.repeat(np.cumsum(count) - count, count))
+    seg_of_row = np.repeat(np.arange(nseg), lens)
+    # the sum of w·d before each crossing row, per segment: chunks between consecutive break points.
+    # A new group's first row crosses cut 0 (t_0 = 0 < C), so the break points are the crossing rows
+    # and, when the batch goes on with an open group that crosses nothing at row 0, row 0
+    lead = 0 if len(cross) and cross[0] == 0 else 1
+    fresh = seg[1:] if carried_a is not None else seg
+    simple = bool((a[fresh] > 0).all())
+    if simple:
+        bp = np.concatenate((np.zeros(lead, dtype=cross.dtype), cross))
+    else:  # a running weight that is not a finite number (an overflowing sum): every break point spelled out
+        bp = np.union1d(seg, cross)
+    chunk = np.add.reduceat(ww * d, bp) if n else np.zeros(0)
+    bseg = seg_of_row[bp]
+    pos = np.arange(len(bp)) - np.searchsorted(bp, seg)[bseg]
+    table = np.zeros((nseg, int(pos.max()) + 1 if len(pos) else 1))
+    table[bseg, pos] = chunk
+    running = np.cumsum(table, axis=1)
+    upto = np.zeros_like(running)
+    upto[:, 1:] = running[:, :-1]
+    whole = running[:, -1]
+    a_end = a[np.append(seg[1:], n) - 1]
+    out = np.where(np.arange(k + 1)[None, :] >= a_end[:, None], whole[:, None], 0.0)
+    rs = seg_of_row[rows]
+    target = cuts[cut] * (totals[rs])
+    at = np.repeat(pos[lead:], count) if simple else pos[np.searchsorted(bp, rows)]
+    out[rs, cut] = upto[rs, at] + d[rows] * (target - (c[rows] - ww[rows]))
+    return out, a_end.astype(np.float64)
+
+
+def segmented_prefix(v: np.ndarray, lens: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """compensated_prefix restarted at every segment (``lens`` rows each): no segment's sums leak
+    into the next one's digits (a difference of batch-wide prefix sums would leave a small group
+    after a large one with the large one's rounding)."""
+    if len(lens) <= 1:
+        return compensated_prefix(v)
+    codes = np.repeat(np.arange(len(lens)), lens)
+    hi = pd.Series(v).groupby(codes, sort=False).cumsum().to_numpy(copy=True)
+    prev = np.empty_like(hi)
+    prev[1:] = hi[:-1]
+    starts = np.cumsum(lens) - lens
+    prev[starts] = 0.0
+    bp = hi - prev  # two-sum of prev + v = hi: the exact rounding error of each step
+    err = (prev - (hi - bp)) + (v - bp)
+    return hi, pd.Series(err).groupby(codes, sort=False).cumsum().to_numpy()
+
+
+def gini_moments(d: np.ndarray, w: np.ndarray | None, c: np.ndarray, seg: np.ndarray,
+                 carried_sd: float | None) -> tuple[np.ndarray, np.ndarray]:
+    """Per segment [n, the means of t1 … t3, their centred cross sums] (the Gini's row terms,
+    catalog/kernels.gini_variance: t1 = w·2(C·d − S_d), t2 = w·d, t3 = w), and each segment's Σ w·d
+    (the running S_d carried into the next batch). S_d is a compensated prefix sum, as C is."""
+    n = len(d)
+    lens = np.diff(np.append(seg, n))
+    nseg = len(seg)
+    ww = np.ones(n) if w is None else w
+    wd = ww * d
+    hi, lo = segmented_prefix(wd, lens)
+    if carried_sd is not None:  # the open group's S_d so far, as (hi, lo) through its first segment
+        hi[:lens[0]] += carried_sd
+    run = hi + lo
+    terms = (2.0 * ww * (c * d - run), wd, ww)
+    means = [np.add.reduceat(t, seg) / lens for t in terms]
+    centred = [t - (m[0] if nseg == 1 else np.repeat(m, lens)) for t, m in zip(terms, means)]
+    out = np.empty((nseg, 1 + TERMS + TERMS * TERMS))
+    out[:, 0] = lens
+    for j in range(TERMS):
+        out[:, 1 + j] = means[j]
+        for l_ in range(j, TERMS):
+            s = np.add.reduceat(centred[j] * centred[l_], seg)
+            out[:, 1 + TERMS + j * TERMS + l_] = s
+            out[:, 1 + TERMS + l_ * TERMS + j] = s
+    return out, np.add.reduceat(wd, seg)

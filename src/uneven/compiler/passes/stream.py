@@ -10,7 +10,11 @@ rows    keys, x, w — the window plan's rows (input policy checks, FILTER, NULL
         dropped), with the scope's own CTEs — ORDER BY keys, x
 totals  keys, W (fsum of w, or the row count) GROUP BY keys, ORDER BY keys — only when a measure
         reads a cut (p·W) before the rows reach it; the groups come in the same order as the rows'
-columns the result columns with the numpy kernel and parameters of each call (catalog/kernels.py)
+columns the result columns with the numpy kernel and parameters of each call (catalog/kernels.py;
+        an interval's confidence level comes last)
+
+A linearized pass without a survey design whose calls all have kernels (gini_se, gini_ci_lo/hi and
+the plain ordered measures sharing its sort) is lowered the same way (plan.route_stream).
 
 In the direct form (``plan.direct``, compiler/direct.py) the final SELECT reads the result table alone,
 so the table must hold every group of the user's WHERE, also those with no row the pass counts (every
@@ -68,9 +72,10 @@ def lower_stream_pass(source: Source, plan, name: str) -> tuple[list[exp.CTE], d
     for call in plan.calls:
         if call.key in results:
             continue
-        call.measure.stream(recorder, call.params)
+        params = tuple(call.params) + ((call.settings.get("level", 0.95),) if "level" in call.measure.options else ())
+        call.measure.stream(recorder, params)
         column = f"_uv_r{len(columns) + 1}"
-        columns.append((column, call.measure.stream, tuple(call.params)))
+        columns.append((column, call.measure.stream, params))
         results[call.key] = s.col(column, name)
     totals = None
     if any(n.name in TOTAL_NEEDS for n in recorder.needs):
