@@ -154,3 +154,17 @@ def test_joined_with_count_same_values(loaded):
             assert got[k][0] == pytest.approx(ref[k][0], rel=1e-12) and got[k][1] == pytest.approx(ref[k][1], rel=1e-12)
     counts = {_plain(r["g"]): int(r["n"]) for _, r in a.iterrows()}
     assert counts["filtered"] == 5 and counts["all_null_x"] == 5  # rows of the WHERE, counted by count(*)
+
+
+def test_strict_names_a_group_with_no_counted_row():
+    """strict: the direct form's result CTE carries the keys the error names (DuckDB's error())."""
+    import duckdb
+
+    con = duckdb.connect()
+    con.register("d", direct_data())
+    con.execute("CREATE TABLE t AS SELECT * FROM d")
+    sql = uneven.compile("SELECT g, gini(x, w) AS gi FROM t WHERE g = 'all_zero_w' OR g = 'north' GROUP BY g",
+                         method="bounded", strict=True)
+    assert "_uv_agg_" not in sql
+    with pytest.raises(duckdb.Error, match="undefined .NULL. for the group g=all_zero_w"):
+        con.execute(sql).fetchall()
