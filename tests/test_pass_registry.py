@@ -42,7 +42,7 @@ def test_every_catalog_pass_is_registered():
 
 def test_plan_rules_run_in_their_declared_order():
     assert plan.PLAN_RULES == (plan.share_passes, plan.route_refine, plan.route_stream, plan.fuse_centred,
-                               plan.choose_variants, plan.choose_stream_form)
+                               plan.choose_variants, plan.choose_stream_form, plan.choose_summary_form)
 
 
 def test_generated_names_follow_the_registry_prefixes():

@@ -10,6 +10,11 @@
     <name>_agg      GROUP BY keys: the aggregates over bins the measures use (each once)
     <name>_raw      per call, point, lo and hi columns (expressions over those aggregates)
     <name>          the same, lo and hi widened by the rounding allowance (measures.widen)
+
+With ``present`` (the summary pass's direct form), the bins table also holds one placeholder row per
+group for the rows it does not count, all of whose bin columns and ``present`` are NULL: the windows
+skip it (SUM ignores NULL), every aggregate over the bins reads only rows where ``present`` is not
+NULL, and a group with no other row gets NULL results, as the joined form's LEFT JOIN gives it.
 """
 
 from __future__ import annotations
@@ -62,7 +67,7 @@ def running_sums(source: str, keys: list[exp.Column], columns: list[str], name: 
                  read: set[str] | None = None) -> exp.CTE:
     """The cum CTE: the bin ``columns`` and, of the clamped mean, the running sums and the group
     totals, those named in ``read`` (all when None)."""
-    cols = [k.copy() for k in keys] + [s.col(c) for c in columns] + [
+    cols = [k.copy() for k in keys] + [s.col(c) for c in dict.fromkeys(columns)] + [
         s.alias(e, n) for n, (e, _) in _per_bin(keys).items() if read is None or n in read]
     return cte(exp.Select(expressions=cols).from_(table(source)), name)
 
@@ -73,11 +78,26 @@ def _named(e: exp.Expression, name: str) -> exp.Alias:
     return exp.Alias(this=e, alias=exp.to_identifier(name, quoted=True))
 
 
+def only_present(aggregate: exp.Expression, present: str) -> exp.Expression:
+    """``aggregate`` with the argument of every aggregate function in it read only where the column
+    ``present`` is not NULL (SUM, MIN and MAX skip the NULL the CASE gives elsewhere)."""
+    def fn(node: exp.Expression) -> exp.Expression:
+        if isinstance(node, exp.AggFunc) and not isinstance(node.this, exp.Star):
+            node.set("this", s.case(s.not_null(s.col(present)), node.this))
+        return node
+
+    return aggregate.transform(fn, copy=True)
+
+
+PRESENT_COUNT = "_uv_nb"  # the direct form's count of a group's counted bins (0: a placeholder alone)
+
+
 def lower_bounds(source: str, keys: list[exp.Column], columns: list[str], calls: list[tuple], name: str,
-                 merge: bool) -> tuple[list[exp.CTE], dict, dict, list[str]]:
+                 merge: bool, present: str | None = None) -> tuple[list[exp.CTE], dict, dict, list[str]]:
     """CTEs computing intervals for ``calls`` = [(key, measure name, params)] from the bins table
     ``source`` (key columns ``keys``, bin columns ``columns``). Returns (ctes, {key: (point, lo, hi)
-    column names in ``name``}, {key: exact flag}, the bin columns the measures read)."""
+    column names in ``name``}, {key: exact flag}, the bin columns the measures read). ``present``: a
+    bins column NULL only on a group's placeholder row (module docstring)."""
     ctes = []
     if merge:
         ctes += join_overlaps(source, keys, columns, f"{name}_mrg")
@@ -98,16 +118,23 @@ def lower_bounds(source: str, keys: list[exp.Column], columns: list[str], calls:
         wide = widen(Interval(s.col(names[0]), s.col(names[1]), s.col(names[2])))
         final += [_named(e, n) for e, n in zip((wide.point, wide.lo, wide.hi), names)]
         results[key], exact[key] = names, iv.exact
-    aggregates = [_named(e.copy(), n) for n, e in ctx.aggregates.values()]
+    aggregates = [_named(e.copy() if present is None else only_present(e, present), n)
+                  for n, e in ctx.aggregates.values()]
+    kept: list[exp.Expression] = []
+    if present is not None:  # a group of the placeholder alone has no counted bin: NULL results
+        aggregates.append(_named(exp.Count(this=s.col(present)), PRESENT_COUNT))
+        kept = [s.col(PRESENT_COUNT)]
+        final = [_named(s.case(s.gt(s.col(PRESENT_COUNT), s.lit(0)), e.this), e.alias) for e in final]
     # the measures read bins only through these aggregates: bin columns none of them reads are left
     # out of the window (and, in the summary pass, of the bins GROUP BY: less state per (group, bin))
     read = {c.name for _, e in ctx.aggregates.values() for c in e.find_all(exp.Column)}
     per_bin = {n: needs for n, (_, needs) in _per_bin(keys).items() if n in read}
     needed = read | {c for needs in per_bin.values() for c in needs}
-    ctes.append(running_sums(source, keys, [c for c in columns if c in read], f"{name}_cum", set(per_bin)))
+    ctes.append(running_sums(source, keys, [c for c in columns if c in read] + ([present] if present else []),
+                             f"{name}_cum", set(per_bin)))
     columns = [c for c in columns if c in needed]
     ctes.append(cte(grouped(keys, aggregates, f"{name}_cum"), f"{name}_agg"))
-    ctes.append(cte(exp.Select(expressions=[k.copy() for k in keys] + out).from_(table(f"{name}_agg")),
+    ctes.append(cte(exp.Select(expressions=[k.copy() for k in keys] + out + kept).from_(table(f"{name}_agg")),
                     f"{name}_raw"))
     ctes.append(cte(exp.Select(expressions=[k.copy() for k in keys] + final).from_(table(f"{name}_raw")), name))
     return ctes, results, exact, columns

@@ -16,6 +16,11 @@ The direct form serves a scope when everything its final SELECT reads per group 
   fine, the table has the same rows;
 - every group key has a type that comes back from Arrow as it went (``KEY_TYPES``; HUGEINT, ENUM,
   UUID, BIT … come back as another type, and so would the key column of the result).
+
+The bounded method's summary pass has a direct form too (``summary_direct_blocked``): its result CTE
+is the grouped relation (one row per group of the user's WHERE: passes/summary.py keeps a placeholder
+bin for a group's uncounted rows), under the first two conditions (no other pass, no ordinary
+aggregate); its keys never leave the engine, so their types do not matter.
 """
 
 from __future__ import annotations
@@ -76,3 +81,13 @@ def direct_blocked(others: list[str], select: exp.Select, keys: list[exp.Express
     if found is not None:
         return f"{text(found)} is an ordinary aggregate, read from the main GROUP BY"
     return key_type_blocked(types() if keys else [], keys)
+
+
+def summary_direct_blocked(others: list[str], select: exp.Select) -> str | None:
+    """Why the scope's final SELECT must join the summary pass's result CTE to the main aggregate, or None."""
+    if others:
+        return "the scope has other passes beside the summary (" + ", ".join(dict.fromkeys(others)) + ")"
+    found = plain_aggregate(select)
+    if found is not None:
+        return f"{text(found)} is an ordinary aggregate, read from the main GROUP BY"
+    return None

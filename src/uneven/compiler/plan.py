@@ -12,7 +12,7 @@ from uneven.catalog.spec import PassKind
 from uneven.compiler import clauses
 from uneven.compiler.calls import MeasureCall
 from uneven.compiler.context import CompileOptions, EngineSchema, text
-from uneven.compiler.direct import direct_blocked
+from uneven.compiler.direct import direct_blocked, summary_direct_blocked
 from uneven.compiler.passes.linearized import can_share
 from uneven.compiler.passes.refine import refinable
 
@@ -31,7 +31,7 @@ class PassPlan:
     order_reason: str = ""  # why cut-based measures run on the window plan or the refine plan (route_refine)
     probed: Any = None  # the tie probe's answer, once asked ((distinct, rows), or "unknown")
     job: Any = None  # the stream pass's job, set by its lowering (passes/stream.StreamJob)
-    direct: bool = False  # stream pass: the final SELECT reads its result table alone (choose_stream_form)
+    direct: bool = False  # stream or summary pass: the final SELECT reads its result alone (choose_*_form)
 
 
 def plan_passes(calls: list[MeasureCall]) -> list[PassPlan]:
@@ -338,6 +338,26 @@ def choose_stream_form(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan
     return plans
 
 
+# The direct form of the summary pass (method="bounded"; compiler/direct.py): the final SELECT reads the
+# pass's result CTE, one row per group, without a second read of the source and a join on the keys
+# (docs/bounded.md, "Cost"). A switch for measuring the joined form beside it (bench/bounded_direct.py).
+SUMMARY_DIRECT = True
+
+
+def choose_summary_form(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
+    """Mark the summary pass ``direct`` where the scope's final SELECT can read its result CTE alone."""
+    for plan in plans:
+        if plan.kind != PassKind.SUMMARY:
+            continue
+        blocking = ("the direct form is turned off" if not SUMMARY_DIRECT else
+                    summary_direct_blocked([p.kind.value for p in plans if p is not plan], scope.select))
+        plan.direct = blocking is None
+        plan.reason = ("direct: the final SELECT reads the pass's result, one row per group (no second read of "
+                       "the source, no join on the keys)" if plan.direct
+                       else f"joined on the keys to the main GROUP BY: {blocking}")
+    return plans
+
+
 SHAREABLE = {PassKind.ORDERED, PassKind.MOMENT}  # plain passes whose measures a linearized pass can also compute
 
 
@@ -376,4 +396,5 @@ PLAN_RULES: tuple[Callable[[list[PassPlan], PlanScope], list[PassPlan]], ...] = 
     fuse_centred,
     choose_variants,
     choose_stream_form,
+    choose_summary_form,
 )

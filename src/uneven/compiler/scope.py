@@ -12,6 +12,7 @@ from __future__ import annotations
 
 from sqlglot import exp
 
+from uneven.catalog.spec import PassKind
 from uneven.compiler.bounded import bounded_items, route_bounded
 from uneven.compiler.calls import MeasureCall, call_key, is_aggregate, is_measure
 from uneven.compiler.context import CompileContext, text
@@ -83,6 +84,8 @@ def lower_passes(calls: list[MeasureCall], source: Source, main: MainAggregate, 
             ctx.stream_jobs.append(job)
             if plan.direct:  # the stream's table is the grouped relation: keys (and strict guards) read it
                 main.name = job.table
+        if plan.direct and plan.kind == PassKind.SUMMARY:  # its result CTE is the grouped relation
+            main.name = new[-1].alias
         ctx.chosen.append(describe_pass(plan, [c.alias for c in new] or [job.table if job else main.name]))
         ctes += new
         results.update(res)
