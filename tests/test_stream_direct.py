@@ -9,6 +9,8 @@ Tiny batches make batches split groups, and runs of rows the pass does not count
 
 from __future__ import annotations
 
+from fractions import Fraction
+
 import duckdb
 import numpy as np
 import pandas as pd
@@ -145,6 +147,21 @@ def test_groups_without_a_counted_row_are_kept_with_null_results(data, batches):
         sel = rows_of(df, a=row.a)
         assert close(None if pd.isna(row.g) else row.g, reference(sel, R.gini))
         assert close(None if pd.isna(row.q) else row.q, reference(sel, R.quantile_w, 0.4))
+
+
+def test_a_curve_beside_groups_without_a_counted_row(batches):
+    # the curve's list column takes NULL rows for such groups as the float columns do; ordinates
+    # against exact fractions: group a's Lorenz points (C/W, S/T) = (1/4, 1/13), (1/2, 3/13), (1, 1),
+    # so L(1/2) = 3/13 (DESIGN.md's contract: linear between the points)
+    con = duckdb.connect()
+    con.execute("CREATE TABLE t AS SELECT * FROM (VALUES ('a', 1.0, 1.0), ('a', 2.0, 1.0), ('a', 5.0, 2.0), "
+                "('b', NULL, 1.0), ('c', 3.0, 0.0)) v(k, x, w)")
+    sql = "SELECT k, lorenz_curve(x, 2, w) AS c, gini(x, w) AS g FROM t GROUP BY k ORDER BY k"
+    assert form(sql, con) == "direct"
+    got, want = (uneven.query(sql, con, ordered=plan) for plan in ("stream", "window"))
+    assert [[p["lorenz"] for p in got.c[0]]] == [[p["lorenz"] for p in want.c[0]]]
+    assert close([p["lorenz"] for p in got.c[0]][1], float(Fraction(3, 13)))
+    assert got.c[1:].isna().all() and want.c[1:].isna().all() and got.g[1:].isna().all()
 
 
 def test_a_filter_that_keeps_no_row_of_a_group(data, batches):
