@@ -86,6 +86,32 @@ def test_streamed_measures_match_exact_fractions_to_1e12(name, batch, monkeypatc
         assert rel(g, e) <= 1e-12, f"{name} {label}: {g} vs exact {float(e)}"
 
 
+@pytest.mark.parametrize("batch", [None, 97, 7])
+@pytest.mark.parametrize("name", sorted(DATA))
+def test_streamed_wolfson_matches_exact_fractions(name, batch, monkeypatch):
+    # 2·(μ/M)·(1 − 2·L(0.5) − G) (Wolfson's polarization index, from memory), each part in exact
+    # fractions from the definitions in DESIGN.md; NULL unless T > 0 and the median M > 0. The error
+    # is bounded against the size of the terms, since 1 − 2·L(0.5) − G may cancel
+    if batch:
+        monkeypatch.setattr(stream_engine, "BATCH_ROWS", batch)
+    x, w = DATA[name]
+    con = duckdb.connect()
+    con.register("t", pd.DataFrame({"x": x, "w": w}))
+    sql = "SELECT wolfson(x, w) AS v FROM t"
+    assert "stream plan" in str(uneven.explain(sql, con))
+    got = uneven.query(sql, con).v[0]
+    W = sum(Fraction(float(b)) for b in w)
+    T = sum(Fraction(float(a)) * Fraction(float(b)) for a, b in zip(x, w))
+    M = exact_quantile(x, w, 0.5)
+    if T <= 0 or M <= 0:
+        assert pd.isna(got)
+        return
+    scale = 2 * abs(T / W / M)
+    want = scale * (1 - 2 * exact_lorenz(x, w, 0.5) - exact_gini(x, w))
+    size = scale * (1 + 2 * abs(exact_lorenz(x, w, 0.5)) + abs(exact_gini(x, w)))
+    assert abs(Fraction(float(got)) - want) <= Fraction(1, 10**12) * size, f"{name}: {got} vs {float(want)}"
+
+
 def test_ties_split_across_batches_match_exact_fractions(tiny_batches):
     # 5 distinct values in runs of 3 to 40 rows: batches of 7 rows cut every run and the groups
     rng = np.random.default_rng(11)
@@ -218,7 +244,7 @@ def test_compile_always_emits_the_portable_window_sql():
 
 
 @pytest.mark.parametrize("sql, reason", [
-    ("SELECT a, gini(x, w), wolfson(x, w) FROM t GROUP BY a", "no stream kernel for wolfson"),
+    ("SELECT a, gini(x, w), below_line_share(x, 0.6, w) FROM t GROUP BY a", "no stream kernel for below_line_share"),
     ("SELECT a, gini_se(x, w), theil_se(x, w) FROM t GROUP BY a", "no stream kernel for theil_se"),
     ("SELECT a, gini_se(x, w, psu := b) FROM t GROUP BY a", "a survey design (psu) is not streamed"),
     ("SELECT * FROM (SELECT a, gini(x, w) AS v FROM t GROUP BY a) s", "in a subquery or CTE"),

@@ -178,6 +178,15 @@ def percentile_ratio(acc, params):
     return _ratio(acc.quantile(hi), acc.quantile(lo))
 
 
+def wolfson(acc, params):
+    """2·(μ/M)·(1 − 2·L(0.5) − G), as catalog/poverty.build_wolfson: NULL unless T > 0 and M > 0."""
+    M, T = acc.quantile(0.5), acc.T
+    inner = 1.0 - 2.0 * lorenz(acc, (0.5,)) - gini(acc, ())
+    with np.errstate(invalid="ignore"):
+        ok = (T > 0) & (M > 0)
+    return _where(ok, 2.0 * _div(_div(T, acc.W), M) * inner)
+
+
 def lorenz_curve(acc, params):
     """(groups, k+1): L(j/k) for j = 0 … k, a row of NaN where T ≤ 0 (the window plan's NULL list)."""
     k = int(params[0])

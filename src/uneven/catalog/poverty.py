@@ -13,6 +13,7 @@ from __future__ import annotations
 
 from sqlglot import exp
 
+from uneven.catalog import kernels as k
 from uneven.catalog import ordered as ordc
 from uneven.catalog.spec import Measure, Param
 from uneven.reference import poverty as ref
@@ -115,5 +116,5 @@ MEASURES = [
             "Σ w·1(x < line)·((line − x)/line)^alpha / W (Foster–Greer–Thorbecke)", build_fgt, ref.fgt,
             domain="any x; line > 0", check=_line_positive),
     Measure("wolfson", "ordered", (), "weight", "2·(μ/M)·(1 − 2·L(0.5) − G)", build_wolfson, ref.wolfson,
-            domain="any x; NULL when T ≤ 0 or the median ≤ 0"),
+            domain="any x; NULL when T ≤ 0 or the median ≤ 0", stream=k.wolfson),
 ]
