@@ -75,18 +75,18 @@ def direct_blocked(others: list[str], select: exp.Select, keys: list[exp.Express
     """Why the scope's final SELECT must join the stream's table to the main aggregate, or None.
     ``others``: the kinds of the scope's other passes after the plan rules; ``types()`` the group
     keys' type names (an engine probe, asked last, only when nothing else blocks)."""
-    if others:
-        return "the scope has other passes beside the stream (" + ", ".join(dict.fromkeys(others)) + ")"
-    found = plain_aggregate(select)
-    if found is not None:
-        return f"{text(found)} is an ordinary aggregate, read from the main GROUP BY"
-    return key_type_blocked(types() if keys else [], keys)
+    return _scope_blocked("stream", others, select) or key_type_blocked(types() if keys else [], keys)
 
 
 def summary_direct_blocked(others: list[str], select: exp.Select) -> str | None:
     """Why the scope's final SELECT must join the summary pass's result CTE to the main aggregate, or None."""
+    return _scope_blocked("summary", others, select)
+
+
+def _scope_blocked(kind: str, others: list[str], select: exp.Select) -> str | None:
+    """The conditions both direct forms share: no other pass, no ordinary aggregate."""
     if others:
-        return "the scope has other passes beside the summary (" + ", ".join(dict.fromkeys(others)) + ")"
+        return f"the scope has other passes beside the {kind} (" + ", ".join(dict.fromkeys(others)) + ")"
     found = plain_aggregate(select)
     if found is not None:
         return f"{text(found)} is an ordinary aggregate, read from the main GROUP BY"

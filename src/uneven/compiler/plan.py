@@ -331,10 +331,7 @@ def choose_stream_form(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan
             probe = getattr(scope.engine, "key_types", None)  # DuckDB's schema (the only engine that streams)
             blocking = direct_blocked([p.kind.value for p in plans if p is not plan], scope.select, scope.keys,
                                       lambda: probe(scope.select, scope.keys) if probe is not None else None)
-        plan.direct = blocking is None
-        plan.reason = ("direct: the final SELECT reads the stream's table, one row per group (no second read "
-                       "of the source, no join on the keys)" if plan.direct
-                       else f"joined on the keys to the main GROUP BY: {blocking}")
+        _mark_direct(plan, blocking, "the stream's table")
     return plans
 
 
@@ -351,11 +348,14 @@ def choose_summary_form(plans: list[PassPlan], scope: PlanScope) -> list[PassPla
             continue
         blocking = ("the direct form is turned off" if not SUMMARY_DIRECT else
                     summary_direct_blocked([p.kind.value for p in plans if p is not plan], scope.select))
-        plan.direct = blocking is None
-        plan.reason = ("direct: the final SELECT reads the pass's result, one row per group (no second read of "
-                       "the source, no join on the keys)" if plan.direct
-                       else f"joined on the keys to the main GROUP BY: {blocking}")
+        _mark_direct(plan, blocking, "the pass's result")
     return plans
+
+
+def _mark_direct(plan: PassPlan, blocking: str | None, read: str) -> None:
+    plan.direct = blocking is None
+    plan.reason = (f"direct: the final SELECT reads {read}, one row per group (no second read of the source, "
+                   "no join on the keys)" if plan.direct else f"joined on the keys to the main GROUP BY: {blocking}")
 
 
 SHAREABLE = {PassKind.ORDERED, PassKind.MOMENT}  # plain passes whose measures a linearized pass can also compute

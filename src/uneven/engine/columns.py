@@ -43,6 +43,7 @@ class DuckDBSchema:
         self.types = types
         self.probes_ties = ties
         self._columns: dict[int, set[str] | None] = {}
+        self._types: dict[tuple, list[str] | None] = {}  # the planner's stream checks ask for the keys twice
 
     def source_columns(self, select: exp.Select) -> set[str] | None:
         """Runs ``SELECT * FROM <from> LIMIT 0``; None when it cannot (then aliases are taken)."""
@@ -75,6 +76,12 @@ class DuckDBSchema:
         types (compiler/direct.py), for query and explain alike."""
         if not exprs:
             return []
+        key = (id(select), tuple(e.sql("duckdb") for e in exprs))
+        if key not in self._types:
+            self._types[key] = self._probe_types(select, exprs)
+        return self._types[key]
+
+    def _probe_types(self, select: exp.Select, exprs: list[exp.Expression]) -> list[str] | None:
         projections = [s.alias(e.copy(), f"_uv_p{i + 1}") for i, e in enumerate(exprs)]
         probe = probe_select(select, projections)
         if probe is None:
