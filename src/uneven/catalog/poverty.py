@@ -14,6 +14,7 @@ from __future__ import annotations
 from sqlglot import exp
 
 from uneven.catalog import kernels as k
+from uneven.catalog import kernels_line as kl
 from uneven.catalog import ordered as ordc
 from uneven.catalog.spec import Measure, Param
 from uneven.reference import poverty as ref
@@ -104,14 +105,14 @@ def build_wolfson(ctx, params):
 MEASURES = [
     Measure("below_line_share", "ordered", (FRAC,), "weight",
             "Σ w·1(x < frac·M) / W, M the weighted median", build_below_line_share, ref.below_line_share,
-            domain="any x; NULL when the median ≤ 0", check=_frac_positive),
+            domain="any x; NULL when the median ≤ 0", check=_frac_positive, stream=kl.median),
     Measure("median_gap", "ordered", (FRAC,), "weight",
             "(z − M_p) / z, z = frac·M, M_p the weighted median of the rows below z", build_median_gap,
             ref.median_gap, domain="any x; NULL when the median ≤ 0 or nobody is below the line",
-            check=_frac_positive),
+            check=_frac_positive, stream=kl.median),
     Measure("fgt_relative", "ordered", (ALPHA, FRAC), "weight",
             "Σ w·1(x < z)·((z − x)/z)^alpha / W, z = frac·M", build_fgt_relative, ref.fgt_relative,
-            domain="any x; NULL when the median ≤ 0", check=_frac_positive),
+            domain="any x; NULL when the median ≤ 0", check=_frac_positive, stream=kl.median),
     Measure("fgt", "moment", (ALPHA, LINE), "weight",
             "Σ w·1(x < line)·((line − x)/line)^alpha / W (Foster–Greer–Thorbecke)", build_fgt, ref.fgt,
             domain="any x; line > 0", check=_line_positive),

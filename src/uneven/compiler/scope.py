@@ -81,12 +81,13 @@ def lower_passes(calls: list[MeasureCall], source: Source, main: MainAggregate, 
         new, res = lowering.lower(source, main, plan, name, ctx.options)
         job = plan.job
         if job is not None:
-            ctx.stream_jobs.append(job)
+            ctx.stream_jobs += [job, *job.followers]  # (followers read its table: passes/stream_line.py)
             if plan.direct:  # the stream's table is the grouped relation: keys (and strict guards) read it
                 main.name = job.table
         if plan.direct and plan.kind == PassKind.SUMMARY:  # its result CTE is the grouped relation
             main.name = new[-1].alias
-        ctx.chosen.append(describe_pass(plan, [c.alias for c in new] or [job.table if job else main.name]))
+        tables = [job.table, *(f.table for f in job.followers)] if job else []
+        ctx.chosen.append(describe_pass(plan, tables + [c.alias for c in new] or [main.name]))
         ctes += new
         results.update(res)
     unique = {call.key: call for call in calls}  # a call written twice is one result, wrapped once

@@ -38,6 +38,7 @@ from uneven.compiler.passes.source import (
     checked_rows,
     key_name,
 )
+from uneven.compiler.passes.stream_line import lower_line_stage
 from uneven.sqltree import build as s
 
 
@@ -53,6 +54,7 @@ class StreamJob:
     rows_sql: str = ""  # filled by the pipeline (the text of rows and totals for DuckDB)
     totals_sql: str = ""
     keeps_groups: bool = False  # direct form with keys: rows the pass does not count come too (NULL x)
+    followers: list = field(default_factory=list)  # jobs run right after this one (passes/stream_line.py)
 
 
 def _ordered(select: exp.Select, columns: list[str]) -> exp.Select:
@@ -99,7 +101,7 @@ def lower_stream_pass(source: Source, plan, name: str) -> tuple[list[exp.CTE], d
         rows.set("with_", with_.copy())
     plan.job = StreamJob(name, keys, w is not None, rows, totals, columns, recorder.needs,
                          keeps_groups=plan.direct and bool(keys))
-    return [], results
+    return lower_line_stage(source, plan, name, plan.job, results), results
 
 
 def direct_projections(proj: list[exp.Expression], kept: exp.Expression) -> list[exp.Expression]:
