@@ -1,6 +1,6 @@
 """Every benchmark figure in one command: the measure families against the baselines (run.py, three
 repeats), the cost curves (curves.py), the out-of-core guarantee (ooc.py), the bounded method
-(bounded.py) and the stream plan (stream.py), one after the other, at full size. Takes about two
+(bounded.py) and the stream plan (stream.py, stream_line.py), one after the other, at full size. Takes about two
 hours on 2 cores and writes about 6 GB of data to bench/data (deleted per point for the curves) and
 the stream plan's Parquet files to the temp directory.
 
@@ -26,6 +26,7 @@ FULL = [
     ["ooc.py", "--rows", "100000000"],
     ["bounded.py"],
     ["stream.py", "--sizes", "20000000x1000,100000000x1"],
+    ["stream_line.py"],
 ]
 def main(argv=None) -> int:
     argparse.ArgumentParser(description="Run every benchmark part in sequence, at full size.").parse_args(argv)

@@ -287,3 +287,17 @@ def test_results_are_unregistered_afterwards(grouped):
     for table in ("_uv_str_1", "_uv_str_1_pm1"):
         with pytest.raises(duckdb.Error):
             con.execute(f"SELECT * FROM {table}")
+
+
+def test_auto_streams_the_line_measures_and_says_why(grouped):
+    # measured cheaper than the window plan, each alone and beside a Gini, weighted or not
+    # (bench/README.md, "Stream plan, the median-line measures")
+    con, _ = grouped
+    for measures in ("below_line_share(x, 0.6, w)", "median_gap(x, 0.6)", "fgt_relative(x, 2, 0.6, w)",
+                     "gini(x, w), below_line_share(x, 0.6, w), median_gap(x, 0.6, w), fgt_relative(x, 2, 0.6, w)"):
+        found = uneven.explain(f"SELECT a, {measures} FROM t GROUP BY a", con)
+        assert [p["kind"] for p in found.passes] == ["stream"], found.passes
+        assert "bench/README.md" in found.passes[0]["reason"] and "median-line" in found.passes[0]["reason"]
+    # beside a centred measure the pass keeps the window plan, which carries it in its own sort
+    found = uneven.explain("SELECT a, below_line_share(x, 0.6, w), theil(x, w) FROM t GROUP BY a", con)
+    assert [p["kind"] for p in found.passes] == ["ordered"]
