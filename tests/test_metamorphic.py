@@ -171,6 +171,14 @@ def check_metamorphic(eng, seed: int, count: int, per_shape: int | None) -> None
                                    ordered=shape.limit is None)
             if problem:
                 failures.append(f"case {case} (seed {seed}) window plan:\n{shape.sql()}\n{problem}")
+        if per_shape is None and eng.name == "duckdb":
+            # the stream plan (query() on DuckDB: engine/stream.py) against the compiled default: the
+            # same rows (long runs only, so the CI draws stay as they are)
+            checks += 1
+            problem = same_outcome(base, outcome_compiled(eng, shape.sql(), ordered="stream"),
+                                   ordered=shape.limit is None)
+            if problem:
+                failures.append(f"case {case} (seed {seed}) stream plan:\n{shape.sql()}\n{problem}")
         if shape.where and (per_shape is None or rng.random() < 0.5):
             checks += 1
             problem = check_where_filter_subquery(eng, shape)

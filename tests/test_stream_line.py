@@ -135,8 +135,11 @@ def grouped():
     return con, df
 
 
+# at 0.6 and 0.5 the sums come from the second streams' totals (median_gap streams the rows below those
+# lines), at 0.7 from the line GROUP BY
 LINE = ("below_line_share(x, 0.6, w) AS h, median_gap(x, 0.6, w) AS m, fgt_relative(x, 1, 0.6, w) AS f1, "
-        "fgt_relative(x, 2, 0.5, w) AS f2, median_gap(x, 0.5, w) AS m5")
+        "fgt_relative(x, 2, 0.5, w) AS f2, median_gap(x, 0.5, w) AS m5, below_line_share(x, 0.7, w) AS h7, "
+        "fgt_relative(x, 2, 0.7, w) AS f7")
 
 
 def forms(sql: str, con) -> list[str]:
@@ -149,7 +152,8 @@ def test_multi_column_null_keys_match_window_and_reference_direct_and_joined(gro
     sql = f"SELECT a, b, {LINE}{extra} FROM t GROUP BY a, b ORDER BY a, b"
     reasons = forms(sql, con)
     assert len(reasons) == 1 and reasons[0].split("; ")[-1].startswith(form)
-    assert "_uv_str_1_line" in reasons[0] and "_uv_str_1_pm1, _uv_str_1_pm2" in reasons[0]
+    assert "_uv_str_1_line" in reasons[0] and "(_uv_str_1_pm1, _uv_str_1_pm2)" in reasons[0]
+    assert "its totals query summing the other measures" in reasons[0]
     got = uneven.query(sql, con, ordered="stream")
     assert_same_frames(got, uneven.query(sql, con, ordered="window"))
     valid = df.dropna(subset=["x", "w"])
@@ -159,8 +163,9 @@ def test_multi_column_null_keys_match_window_and_reference_direct_and_joined(gro
                     & (valid.b.isna() if pd.isna(row.b) else valid.b == row.b)]
         xs, ws = sel.x.to_numpy(), sel.w.to_numpy()
         want = [RP.below_line_share(xs, 0.6, ws), RP.median_gap(xs, 0.6, ws), RP.fgt_relative(xs, 1.0, 0.6, ws),
-                RP.fgt_relative(xs, 2.0, 0.5, ws), RP.median_gap(xs, 0.5, ws)]  # numpy reference
-        for value, ref in zip((row.h, row.m, row.f1, row.f2, row.m5), want):
+                RP.fgt_relative(xs, 2.0, 0.5, ws), RP.median_gap(xs, 0.5, ws), RP.below_line_share(xs, 0.7, ws),
+                RP.fgt_relative(xs, 2.0, 0.7, ws)]  # numpy reference
+        for value, ref in zip((row.h, row.m, row.f1, row.f2, row.m5, row.h7, row.f7), want):
             assert close(value, ref, 1e-10), (row, ref)
 
 
@@ -188,24 +193,27 @@ EDGE = pd.DataFrame({
           1.0, 1.0, 1.0]})
 
 
+@pytest.mark.parametrize("gap", [True, False], ids=["with-gap", "sums-only"])
 @pytest.mark.parametrize("extra", ["", ", count(*) AS n"])
-def test_edge_groups_give_the_window_plans_nulls(batch, extra):
+def test_edge_groups_give_the_window_plans_nulls(batch, extra, gap):
+    # with a median_gap the sums come from its second stream's totals, without one from the line GROUP BY
     con = duckdb.connect()
     con.register("t", EDGE)
-    sql = (f"SELECT g, below_line_share(x, 0.6, w) AS h, median_gap(x, 0.6, w) AS m, fgt_relative(x, 1, 0.6, w) AS f"
-           f"{extra} FROM t GROUP BY g ORDER BY g")
+    sql = (f"SELECT g, below_line_share(x, 0.6, w) AS h, {'median_gap(x, 0.6, w)' if gap else '0'} AS m, "
+           f"fgt_relative(x, 1, 0.6, w) AS f{extra} FROM t GROUP BY g ORDER BY g")
     got = uneven.query(sql, con, ordered="stream")
     assert_same_frames(got, uneven.query(sql, con, ordered="window"))
     assert got.g.tolist() == [1, 2, 3, 4, 5, 6, 7, 8]
     # group 1: M = 2 (C/W reaches 1/2 at x = 2), z = 1.2, one row of four below (x = 1): H = 1/4,
     # M_p = 1, gap (1.2 − 1)/1.2, FGT_1 = ((1.2 − 1)/1.2)/4 (by hand)
-    assert got.h[0] == 0.25 and got.m[0] == pytest.approx(0.2 / 1.2, rel=1e-15)
-    assert got.f[0] == pytest.approx(0.2 / 1.2 / 4, rel=1e-15)
+    assert got.h[0] == 0.25 and got.f[0] == pytest.approx(0.2 / 1.2 / 4, rel=1e-15)
     assert got.h.isna().tolist() == [False, True, False, False, True, True, False, True]
-    assert got.m.isna().tolist() == [False, True, True, True, True, True, False, True]
     assert got.h[2] == 0 and got.f[2] == 0 and got.h[3] == 0  # nobody below the line: 0, and no gap
     # group 7 without its zero-weight row: 1, 3, 8; M = 3, z = 1.8, one row below of three
     assert got.h[6] == pytest.approx(1 / 3, rel=1e-15)
+    if gap:
+        assert got.m[0] == pytest.approx(0.2 / 1.2, rel=1e-15)
+        assert got.m.isna().tolist() == [False, True, True, True, True, True, False, True]
 
 
 def test_no_group_keys_and_no_rows(batch):
@@ -269,9 +277,10 @@ def test_jobs_stream_the_rows_below_the_line_only_after_the_medians(grouped):
     compiled, ctx = compile_with_context(sql, CompileOptions(stream=True, ordered="stream"), DuckDBSchema(con))
     assert [j.table for j in ctx.stream_jobs] == ["_uv_str_1", "_uv_str_1_pm1", "_uv_str_1_pm2"]
     first, *poor = ctx.stream_jobs
-    assert [c[0] for c in first.columns] == ["_uv_md"]  # one median column serves every line measure
-    for job in poor:  # the rows below the line, joined to the medians; P from their totals
+    assert [c[0] for c in first.columns] == ["_uv_md", "_uv_wa"]  # one median serves every line measure
+    for job in poor:  # the rows below the line, joined to the medians; P and the fgt sums from their totals
         assert '"_uv_str_1"."_uv_md"' in job.rows_sql and "FSUM" in job.totals_sql
+    assert [j.kept_totals for j in poor] == [["_uv_wt", "_uv_s1"], ["_uv_wt", "_uv_s1"]]
     assert "_uv_str_1_line" in compiled
     # compile() never streams: the same portable window SQL whatever the option
     assert uneven.compile(sql, ordered="stream") == uneven.compile(sql, ordered="window")

@@ -27,6 +27,11 @@ def poor_median(acc, params):
     return acc.quantile(0.5)
 
 
+def weight(acc, params):
+    """W, the group's weight (its row count when unweighted)."""
+    return acc.W
+
+
 median.line = True  # type: ignore[attr-defined]  # the pass's table holds M (stream_line.py builds the measure)
 
 

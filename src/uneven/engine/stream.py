@@ -119,6 +119,8 @@ def run_job(con: duckdb.DuckDBPyConnection, job: StreamJob, batch_rows: int | No
         else:
             columns[column] = pa.nulls(nulls if job.keys else 1, CURVE_TYPE if getattr(kernel, "curve", False)
                                        else pa.float64())
+    for name in job.kept_totals:  # sums of the totals query, one per group in the stream's order (stream_line.py)
+        columns[name] = totals.column(name)
     return pa.table(columns)
 
 

@@ -55,6 +55,7 @@ class StreamJob:
     totals_sql: str = ""
     keeps_groups: bool = False  # direct form with keys: rows the pass does not count come too (NULL x)
     followers: list = field(default_factory=list)  # jobs run right after this one (passes/stream_line.py)
+    kept_totals: list[str] = field(default_factory=list)  # totals columns the result table keeps (stream_line.py)
 
 
 def _ordered(select: exp.Select, columns: list[str]) -> exp.Select:

@@ -35,10 +35,12 @@ from sqlglot import exp
 
 from uneven.catalog import kernels_line as kl
 from uneven.catalog.kernels import Recorder
+from uneven.catalog.poverty import gap_term
 from uneven.compiler.passes.source import Source, checked_rows, cte, join_on_keys, key_name
 from uneven.sqltree import build as s
 
 MEDIAN = "_uv_md"  # the pass table's column of the group's median
+WEIGHT = "_uv_wa"  # the pass table's column of the group's weight (when sums come from a second stream)
 ROWS = "_uv_v"  # the pass's rows, as a subquery joined to the pass's table
 
 
@@ -97,67 +99,96 @@ def line_cte(source: Source, plan, table: str, calls: list, name: str) -> tuple[
     return cte(select, name), results
 
 
-def poor_rows_job(source: Source, plan, job: Any, frac: float, table: str) -> Any:
-    """A stream job over the rows below frac·M only, sorted by (keys, x); its column ``_uv_r1`` is M_p."""
+def poor_rows_job(source: Source, plan, job: Any, frac: float, table: str, folded: list) -> Any:
+    """A stream job over the rows below frac·M only, sorted by (keys, x): its column ``_uv_r1`` is M_p.
+    Its totals query (a GROUP BY of the same rows) gives P (``_uv_wt``) and, kept in its table, the
+    sums of the ``folded`` calls at the same line: Σ w·((z − x)/z)^α per fgt_relative (``_uv_sK``)."""
     weighted = plan.trailing is not None
-    rows = _joined_rows(source, plan, job.table)
     median = s.col(MEDIAN, job.table)
-    rows.set("expressions", _keys(source) + [s.named(s.col("_uv_x", ROWS), "_uv_x")]
-             + ([s.named(s.col("_uv_w", ROWS), "_uv_w")] if weighted else []))
-    rows.set("where", exp.Where(this=s.and_(s.gt(median, s.lit(0.0)),
-                                            s.lt(s.col("_uv_x", ROWS), s.mul(s.lit(frac), median.copy())))))
-    with_ = source.select.args.get("with_")
-    weight = exp.Anonymous(this="fsum", expressions=[s.col("_uv_w")]) if weighted else s.cast_double(s.agg_count_star())
-    wx = s.mul(s.col("_uv_w"), s.col("_uv_x")) if weighted else s.col("_uv_x")
-    sums = [s.alias(weight, "_uv_wt"), s.alias(exp.Anonymous(this="fsum", expressions=[wx]), "_uv_tt"),
-            s.alias(s.agg_count_star(), "_uv_n")]
-    keys = [key_name(i) for i in range(len(source.keys))]
-    below = exp.Subquery(this=rows.copy(), alias=exp.TableAlias(this=exp.to_identifier("_uv_rows", quoted=True)))
-    totals = exp.Select(expressions=[s.col(k) for k in keys] + sums).from_(below, copy=False)
+    x, w = s.col("_uv_x", ROWS), (s.col("_uv_w", ROWS) if weighted else None)
+    base = _joined_rows(source, plan, job.table)
+    below = s.lt(x.copy(), s.mul(s.lit(frac), median.copy()))
+    base.set("where", exp.Where(this=s.and_(s.gt(median, s.lit(0.0)), below)))
+    keys = [s.col(key_name(i), ROWS) for i in range(len(source.keys))]
+    rows = base.copy()
+    rows.set("expressions", _keys(source) + [s.named(x.copy(), "_uv_x")] + ([s.named(w.copy(), "_uv_w")] if w else []))
+    rows.set("order", _order([k.copy() for k in keys] + [x.copy()]))
+    fsum = lambda e: exp.Anonymous(this="fsum", expressions=[e])  # noqa: E731
+    sums = [s.alias(fsum(w.copy()) if w else s.cast_double(s.agg_count_star()), "_uv_wt"),
+            s.alias(fsum(s.mul(w.copy(), x.copy()) if w else x.copy()), "_uv_tt"), s.alias(s.agg_count_star(), "_uv_n")]
+    kept = ["_uv_wt"]
+    for call in folded:
+        if call.measure.name == "fgt_relative":
+            term = gap_term(x.copy(), s.mul(s.lit(frac), median.copy()), w.copy() if w else s.lit(1.0), call.params[0])
+            kept.append(f"_uv_s{len(kept)}")
+            sums.append(s.alias(s.agg_sum(term), kept[-1]))
+    totals = base.copy()
+    totals.set("expressions", _keys(source) + sums)
     if keys:
-        totals.set("group", exp.Group(expressions=[s.col(k) for k in keys]))
-        totals.set("order", _order([s.col(k) for k in keys]))
-    rows.set("order", _order([s.col(k, ROWS) for k in keys] + [s.col("_uv_x", ROWS)]))
+        totals.set("group", exp.Group(expressions=[k.copy() for k in keys]))
+        totals.set("order", _order([k.copy() for k in keys]))
+    with_ = source.select.args.get("with_")
     for select in (rows, totals):
         if with_ is not None:
             select.set("with_", with_.copy())
     recorder = Recorder()
     kl.poor_median(recorder, (frac,))
     return replace(job, table=table, rows=rows, totals=totals, columns=[("_uv_r1", kl.poor_median, (frac,))],
-                   needs=recorder.needs, keeps_groups=False, followers=[])
+                   needs=recorder.needs, keeps_groups=False, followers=[], kept_totals=kept)
 
 
 def _order(columns: Sequence[exp.Expression]) -> exp.Order:
     return exp.Order(expressions=[exp.Ordered(this=c, nulls_first=False) for c in columns])
 
 
+def _frac(call) -> float:
+    return float(call.params[-1])  # (frac,) or (alpha, frac)
+
+
 def lower_line_stage(source: Source, plan, name: str, job: Any, results: dict) -> list[exp.CTE]:
     """Rewrite the results of the pass's median-line calls (their kernels only gave the stream's table
-    a median column) into the stages above; returns the CTEs the final query needs."""
+    a median column) into the stages above; returns the CTEs the final query needs. Where a
+    median_gap streams the rows below a line, the sums of the other calls at that line come from
+    that stream's totals query instead of the line CTE (one join of every row to the medians fewer)."""
     calls = list({c.key: c for c in plan.calls if kl.is_line(c.measure.stream)}.values())
     if not calls:
         return []
     job.columns = [c for c in job.columns if not kl.is_line(c[1])] + [(MEDIAN, kl.median, ())]
-    summed = [c for c in calls if c.measure.name != "median_gap"]
+    fracs = list(dict.fromkeys(_frac(c) for c in calls if c.measure.name == "median_gap"))
+    summed = [c for c in calls if c.measure.name != "median_gap" and _frac(c) not in fracs]
+    folded = [c for c in calls if c.measure.name != "median_gap" and _frac(c) in fracs]
     ctes: list[exp.CTE] = []
     if summed:
         line, built = line_cte(source, plan, name, summed, f"{name}_line")
         ctes.append(line)
         results.update(built)
-    fracs: list[float] = []
-    for call in calls:
-        if call.measure.name != "median_gap":
-            continue
-        frac = float(call.params[0])
-        if frac not in fracs:
-            fracs.append(frac)
-            job.followers.append(poor_rows_job(source, plan, job, frac, f"{name}_pm{len(fracs)}"))
-        z = s.mul(s.lit(frac), s.col(MEDIAN, name))
-        gap = s.div(s.sub(z, s.col("_uv_r1", f"{name}_pm{fracs.index(frac) + 1}")), z.copy())
-        results[call.key] = s.case(s.gt(s.col(MEDIAN, name), s.lit(0.0)), gap)
+    if folded:  # W for the folded sums: the stream's Σ w (the window plan's SUM(w) to rounding)
+        job.columns.append((WEIGHT, kl.weight, ()))
+        recorder = Recorder()
+        recorder.needs = list(job.needs)
+        kl.weight(recorder, ())
+        job.needs = recorder.needs
+    median = s.col(MEDIAN, name)
+    for i, frac in enumerate(fracs, start=1):
+        here = [c for c in folded if _frac(c) == frac]
+        poor = poor_rows_job(source, plan, job, frac, f"{name}_pm{i}", here)
+        job.followers.append(poor)
+        sums = iter(poor.kept_totals[1:])
+        for call in calls:
+            if _frac(call) != frac:
+                continue
+            if call.measure.name == "median_gap":
+                z = s.mul(s.lit(frac), median.copy())
+                value: exp.Expression = s.div(s.sub(z, s.col("_uv_r1", poor.table)), z.copy())
+            else:
+                column = "_uv_wt" if call.measure.name == "below_line_share" else next(sums)
+                total = exp.Coalesce(this=s.col(column, poor.table), expressions=[s.lit(0.0)])
+                value = s.div(total, s.col(WEIGHT, name))
+            results[call.key] = s.case(s.gt(median.copy(), s.lit(0.0)), value)
     stages = [f"their sums in {name}_line, a GROUP BY of the rows joined to the streamed medians"] if summed else []
     if fracs:
         tables = ", ".join(j.table for j in job.followers)
-        stages.append(f"median_gap's poor median from a second stream of the rows below the line ({tables})")
+        stages.append(f"a second stream of the rows below the line ({tables}) for median_gap's poor median"
+                      + (", its totals query summing the other measures at that line" if folded else ""))
     plan.order_reason += "; the median-line measures: " + "; ".join(stages)
     return ctes
