@@ -261,7 +261,8 @@ def route_stream(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
 # cheaper than its window plan's chain of CTEs (bench/README.md, "Stream plan").
 # The median-line measures (below_line_share, median_gap, fgt_relative: compiler/passes/stream_line.py) stream
 # under "auto" too: their stream, line GROUP BY and (median_gap) second stream of the rows below the line
-# measured 0.50-0.82x the window plan at 2M x 100, each alone and the three beside a Gini, weighted or not.
+# measured 0.50-0.87x the window plan at 2M x 100, each alone and the three beside a Gini, weighted or not
+# (two runs); over 200k groups of 6 rows 0.85-1.13x alone and 1.00x the three beside a Gini.
 LINEARIZED_STREAMS = True
 STREAM_PAYS = "auto streams a pass whose measures need the full order (bench/README.md, \"Stream plan\")"
 

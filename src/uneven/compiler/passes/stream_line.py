@@ -6,7 +6,8 @@ may be too large to keep. So, with memory bounded per group (a few doubles, as e
 
 1. the pass's own stream (passes/stream.py) computes M per group: one column ``_uv_md`` of its table
    ``_uv_str_N`` (the quantile at 0.5, the window plan's median, catalog/ordered.quantile_at);
-2. ``below_line_share`` and ``fgt_relative`` are sums over the rows below z: a CTE of the final query,
+2. ``below_line_share`` and ``fgt_relative`` are sums over the rows below z: at a line without a
+   ``median_gap`` (else see 3.), a CTE of the final query,
    ``{name}_line``, groups the pass's rows (the window plan's rows: input checks, FILTER, NULLs and
    zero weights dropped) joined to that table on the keys (NULL keys: IS NOT DISTINCT FROM) and
    applies the catalog's own builders to them, with the median read from the table instead of the
@@ -19,6 +20,9 @@ may be too large to keep. So, with memory bounded per group (a few doubles, as e
    the smallest x below z with C ≥ P/2, the window plan's ``poor_median`` (the rows below z come
    first in the group's sort, so their running weight is the group's). Jobs run in order, so its
    SQL reads the first job's registered table. A group nobody is below has no row there: NULL.
+   Its totals query also sums the other line measures at the same line (P, Σ w·((z − x)/z)^α),
+   which its table keeps (``StreamJob.kept_totals``): such a line needs no line CTE, so every row is
+   joined to the medians once, not twice; the sums are divided by W from the first stream (``_uv_wa``).
 
 The final SELECT joins ``{name}_line`` and ``{name}_pmK`` on the keys, to the main aggregate in the
 joined form or to the pass's table in the direct form (compiler/direct.py), which the stages keep:
