@@ -310,3 +310,17 @@ def test_auto_streams_the_line_measures_and_says_why(grouped):
     # beside a centred measure the pass keeps the window plan, which carries it in its own sort
     found = uneven.explain("SELECT a, below_line_share(x, 0.6, w), theil(x, w) FROM t GROUP BY a", con)
     assert [p["kind"] for p in found.passes] == ["ordered"]
+
+
+@pytest.mark.parametrize("measure, words", [
+    ("below_line_share(x, 0, w)", "frac must be above 0"),
+    ("median_gap(x, 1.5, w)", "frac must be a fraction between 0 and 1"),
+    ("fgt_relative(x, -1, 0.6, w)", "alpha must be at least 0"),
+    ("fgt_relative(x, 2, x, w)", "frac must be a numeric constant"),
+])
+def test_bad_parameters_stop_both_plans_alike(measure, words):
+    con = duckdb.connect()
+    con.register("t", pd.DataFrame({"g": [1, 2], "x": [1.0, 2.0], "w": [1.0, 1.0]}))
+    for plan in ("stream", "window"):
+        with pytest.raises(uneven.MeasureArgumentError, match=words):
+            uneven.query(f"SELECT g, {measure} FROM t GROUP BY g", con, ordered=plan)
