@@ -14,8 +14,9 @@ file per size under the temp directory). Cases, each in a fresh subprocess, 2 th
 
 with <m> one of: ``h`` below_line_share(x, 0.6, w); ``g`` median_gap(x, 0.6, w); ``f``
 fgt_relative(x, 2, 0.6, w); ``all`` the three beside gini(x, w). Prints the median of --repeat per
-case, its ratio to the sort, stream / window per measure and the largest relative difference between
-the two plans' results. The load average is printed before and after: the machine may be shared.
+case, its ratio to the sort, the peak RSS of its process (VmHWM), stream / window per measure and
+the largest relative difference between the two plans' results. The load average is printed before
+and after: the machine may be shared.
 """
 
 from __future__ import annotations
@@ -52,13 +53,21 @@ def child(case: str, path: str, memory_limit: str, threads: int) -> dict:
     if case.startswith("sort"):
         cols = "grp, x, w" if weighted else "grp, x"
         con.execute(f"SELECT max(x) FROM (SELECT {cols} FROM {src} ORDER BY grp, x)").fetchall()
-        return {"seconds": time.perf_counter() - t0, "rows": None}
+        return {"seconds": time.perf_counter() - t0, "rows": None, "peak_rss_mb": _peak_rss()}
     plan, m = case.split("_")[:2]
     measures = MEASURES[m].format(w=", w" if weighted else "")
     df = uneven.query(f"SELECT grp, {measures} FROM {src} GROUP BY grp ORDER BY grp", con, ordered=plan)
     seconds = time.perf_counter() - t0
-    return {"seconds": seconds, "rows": [[None if v != v else float(v) for v in row]
-                                         for row in df.drop(columns="grp").values]}
+    return {"seconds": seconds, "peak_rss_mb": _peak_rss(),
+            "rows": [[None if v != v else float(v) for v in row] for row in df.drop(columns="grp").values]}
+
+
+def _peak_rss() -> float | None:
+    """This process's peak resident set (VmHWM), in MB."""
+    for line in open("/proc/self/status"):
+        if line.startswith("VmHWM:"):
+            return int(line.split()[1]) / 1024
+    return None
 
 
 def run_case(case: str, path: Path, a) -> dict:
@@ -110,15 +119,17 @@ def main() -> None:
         for _ in range(a.repeat):  # interleaved: a change in the machine's load touches every case alike
             for case in cases:
                 r = run_case(case, path, a)
-                results.setdefault(case, {"runs": [], "rows": r["rows"]})["runs"].append(r["seconds"])
+                kept = results.setdefault(case, {"runs": [], "rows": r["rows"], "peak": 0.0})
+                kept["runs"].append(r["seconds"])
+                kept["peak"] = max(kept["peak"], r["peak_rss_mb"] or 0.0)
         print(f"\n{rows:,} rows x {groups:,} groups (median of {a.repeat}, interleaved)")
-        print(f"  {'case':<14} {'seconds':>8} {'/ sort':>7}")
+        print(f"  {'case':<14} {'seconds':>8} {'/ sort':>7} {'peak MB':>8}")
         for case in cases:
             r = results[case]
             r["seconds"] = statistics.median(r["runs"])
             sort = results.get("sort_u" if case.endswith("_u") else "sort")
             ratio = f"{r['seconds'] / sort['seconds']:7.2f}" if sort and "seconds" in sort else ""
-            print(f"  {case:<14} {r['seconds']:8.3f} {ratio:>7}")
+            print(f"  {case:<14} {r['seconds']:8.3f} {ratio:>7} {r['peak']:8.0f}")
         for case in cases:
             if case.startswith("stream_") and case.replace("stream_", "window_") in results:
                 other = results[case.replace("stream_", "window_")]
