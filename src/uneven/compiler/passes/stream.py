@@ -31,6 +31,7 @@ from dataclasses import dataclass, field
 
 from sqlglot import exp
 
+from uneven.catalog.design_kernels import stream_kernel
 from uneven.catalog.kernels import TOTAL_NEEDS, Need, Recorder
 from uneven.catalog.spec import PassKind
 from uneven.compiler.passes.source import (
@@ -64,6 +65,7 @@ def lower_stream_pass(source: Source, plan, name: str) -> tuple[list[exp.CTE], d
     x, w, condition = plan.x, plan.trailing, plan.condition
     keys = [key_name(i) for i in range(len(source.keys))]
     proj, cond = checked_rows(source, x, w, condition)
+    proj += design_projections(plan.options)
     rows = source.rows(proj, cond)
     with_ = source.select.args.get("with_")
     recorder = Recorder()
@@ -73,9 +75,11 @@ def lower_stream_pass(source: Source, plan, name: str) -> tuple[list[exp.CTE], d
         if call.key in results:
             continue
         params = tuple(call.params) + ((call.settings.get("level", 0.95),) if "level" in call.measure.options else ())
-        call.measure.stream(recorder, params)
+        kernel = stream_kernel(call.measure, bool(plan.options))
+        assert kernel is not None  # plan.stream_blocked keeps a pass without kernels on the window plan
+        kernel(recorder, params)
         column = f"_uv_r{len(columns) + 1}"
-        columns.append((column, call.measure.stream, params))
+        columns.append((column, kernel, params))
         results[call.key] = s.col(column, name)
     totals = None
     if any(n.name in TOTAL_NEEDS for n in recorder.needs):
@@ -100,6 +104,13 @@ def lower_stream_pass(source: Source, plan, name: str) -> tuple[list[exp.CTE], d
     plan.job = StreamJob(name, keys, w is not None, rows, totals, columns, recorder.needs,
                          keeps_groups=plan.direct and bool(keys))
     return [], results
+
+
+def design_projections(options: dict) -> list[exp.Expression]:
+    """A survey design's row columns (``strata``, ``psu``) as ``_uv_h`` and ``_uv_psu``, which
+    engine/streamdesign.py reads (the window plan's linearized pass carries them the same way)."""
+    names = {"strata": "_uv_h", "psu": "_uv_psu"}
+    return [s.named(options[k].copy(), names[k]) for k in ("strata", "psu") if k in options]
 
 
 def direct_projections(proj: list[exp.Expression], kept: exp.Expression) -> list[exp.Expression]:
