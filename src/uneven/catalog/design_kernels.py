@@ -4,8 +4,8 @@ strata := h, psu := c)``, ``gini_ci_lo``, ``gini_ci_hi``).
 The score is the one without a design (catalog/kernels.gini_variance; catalog/linearize.gini):
 u_k = c1·t1_k + c2·t2_k + c3·t3_k with t1 = w·2(C·d − S_d), t2 = w·d, t3 = w on d = x − m. The
 variance is the window plan's (compiler/passes/linearized.py): the with-replacement variance of the
-PSU totals within strata, Σ_h n_h/(n_h − 1) Σ_{c in h} (U_hc − Ū_h)² = Σ c_j c_l K_jl, where the
-stream carries K (engine/streamdesign.py) instead of the rows' moments. Its outcomes are the window
+PSU totals within strata, Σ_h n_h/(n_h − 1) Σ_{c in h} (U_hc − Ū_h)², which engine/streamdesign.py
+forms at each group's end from the PSUs' sums of the row terms. Its outcomes are the window
 plan's: NULL where a stratum has one unit (PSU, or row without ``psu``), where the Gini is NULL, or
 where the variance is not a finite number; exactly 0 where every value of the group is equal.
 """
@@ -20,20 +20,9 @@ import numpy as np
 from uneven.catalog import kernels
 
 
-def gini_design_variance(acc):
-    """(G, Σ_j Σ_l c_j c_l K_jl, the fewest units of a stratum) per group."""
-    G = kernels.gini(acc, ())
-    W, T, m = acc.W, acc.T, acc.m
-    fewest, K = acc.gini_design
-    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        Td = T - m * W
-        c = np.stack([1.0 / (W * T), -1.0 / T - G / T, (Td - G * T) / W / T - m * G / T], axis=1)
-        v = np.einsum("gj,gjl,gl->g", c, K, c)
-    return G, v, fewest
-
-
 def gini_se(acc, params):
-    G, v, fewest = gini_design_variance(acc)
+    G = kernels.gini(acc, ())
+    fewest, v = acc.gini_design
     with np.errstate(invalid="ignore"):
         zero = (acc.xmax == acc.m) | (v < 0)
         known = np.isfinite(G) & (fewest > 1) & np.isfinite(v)

@@ -125,10 +125,10 @@ class Recorder:
         return np.ones(1), np.ones((1, 3)), np.ones((1, 3, 3))
 
     @property
-    def gini_design(self):  # a survey design's (fewest units, K): catalog/design_kernels.py
+    def gini_design(self):  # a survey design's (fewest units, variance): catalog/design_kernels.py
         self._add(Need("xmax"))
         self._add(Need("gini_design"))
-        return np.ones(1), np.ones((1, 3, 3))
+        return np.ones(1), np.ones(1)
 
 
 

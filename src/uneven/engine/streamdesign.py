@@ -3,13 +3,14 @@
 The window plan's linearized pass (compiler/passes/linearized.py) takes the with-replacement
 variance of the PSU totals of the score u_k = Σ_j c_j·t_kj within strata:
 
-    v = Σ_h n_h/(n_h − 1) · Σ_{c in h} (U_hc − Ū_h)²  =  Σ_j Σ_l c_j c_l K_jl,
-    K = Σ_h n_h/(n_h − 1) · M_h,   M_h the centred cross sums of the units' term totals in stratum h
+    v = Σ_h n_h/(n_h − 1) · Σ_{c in h} (U_hc − Ū_h)²,   U_hc = Σ_j c_j·T_hcj
 
-with the units the PSUs (each row its own unit without ``psu``; one stratum without ``strata``). The
-coefficients c_j are known only at a group's end, but K is not: this module carries, per group, what
-K needs while the sorted rows stream, and gives each finished group one row [fewest units in a
-stratum, K (TERMS² values)]; the kernel (catalog/design_kernels.py) forms Σ c_j c_l K_jl.
+with the units the PSUs (each row its own unit without ``psu``; one stratum without ``strata``),
+T_hcj the unit's total of the row term t_j (t1 = w·2(C·d − S_d), t2 = w·d, t3 = w on d = x − m:
+catalog/kernels.gini_variance) and c_j the coefficients, known only at a group's end (they read the
+group's W, T, Gini and smallest value m). This module carries, per group, what v needs while the
+sorted rows stream, and gives each finished group one row [fewest units in a stratum, v]; the
+kernel (catalog/design_kernels.py) takes the standard error from it.
 
 A PSU's rows are spread all over the sorted order (sorted by value, not by PSU), so its totals are
 only complete at the group's end:
@@ -17,15 +18,19 @@ only complete at the group's end:
 - with ``psu``: per batch the row terms are summed per (group, stratum, PSU) cell (integer codes,
   ``np.bincount``); the open group (the last of a batch, continued by the next) keeps its cells as a
   list of parts, merged again (summed per PSU) whenever they double in size, so memory and work stay
-  linear in the group's number of PSUs, not its rows; at the group's end the PSU totals are complete
-  and each stratum's M_h is computed from them in two passes (means first, then the centred products);
-- strata without ``psu``: every row is a unit, complete at once: per batch each (group, stratum)
-  cell's n, means and centred cross sums, merged across batches by the pairwise update (Chan, Golub
-  and LeVeque; common practice), so nothing per row is kept.
+  linear in the group's number of PSUs, not its rows. At the group's end each PSU's score total
+  U_hc = Σ_j c_j·T_hcj is formed first, then each stratum's Σ (U_hc − Ū_h)² in two passes (the
+  mean, then the centred squares): the terms cancel in U (the Gini's rank term against w·d), and
+  forming U before the spread keeps the digits a quadratic form in the terms' cross sums loses;
+- strata without ``psu``: every row is a unit, complete at once, so nothing per row is kept: per
+  batch each (group, stratum) cell's count, means and centred cross sums of the three terms, merged
+  across batches by the pairwise update (Chan, Golub and LeVeque; common practice); at the group's
+  end v = Σ_h n_h/(n_h − 1)·cᵀ M_h c.
 
-Both keep the digits the window plan's raw sums (n·Q − S·S) lose: every M_h is centred at its
-stratum's mean. Stratum and PSU values are matched as ``GROUP BY`` matches them: NULL is a value of
-its own, NaN equals NaN, 0.0 equals −0.0 (engine/streamdesign.Codes).
+Both keep the digits the window plan's raw sums (n·Q − S·S) lose: everything is centred at its
+stratum's mean. The coefficients come from the group's own sums, carried here beside the cells
+(Σ w·d·(2C − w), Σ w·d, W, m: the Gini as the kernels form it). Stratum and PSU values are matched
+as ``GROUP BY`` matches them: NULL is a value of its own, NaN equals NaN, 0.0 equals −0.0 (``Codes``).
 
 This module is a leaf (numpy, pandas, pyarrow): engine/streamsums.py computes the row terms and
 feeds them here.
@@ -118,7 +123,7 @@ def merged_moments(cell: np.ndarray, ncell: int, n: np.ndarray, mean: np.ndarray
 
 def design_rows(group: np.ndarray, stratum: np.ndarray, n: np.ndarray, mean: np.ndarray, M: np.ndarray,
                 groups: int) -> np.ndarray:
-    """(groups, 1 + J²): per group [the fewest units of any of its strata, K = Σ_h n_h/(n_h − 1)·M_h],
+    """(groups, 1 + J²): per group [the fewest units of any of its strata, Σ_h n_h/(n_h − 1)·M_h],
     from complete units or parts of strata (n, means, centred cross sums), merged per (group, stratum)
     first. A stratum of one unit adds nothing to K (the window plan's NULL term, which SUM skips) and
     makes ``fewest`` 1: the standard error is then NULL."""
@@ -139,21 +144,21 @@ def design_rows(group: np.ndarray, stratum: np.ndarray, n: np.ndarray, mean: np.
 
 class DesignSums:
     """The per-group design state of one streamed pass (see the module's docstring). ``feed`` takes a
-    batch's row terms and segments and returns one row per segment ([fewest, K], NaN for the last,
+    batch's row terms and segments and returns one row per segment ([fewest, v], NaN for the last,
     still open segment); ``close`` gives the open group's row when its last batch has gone by."""
 
-    def __init__(self, terms: int):
-        self.terms = terms
+    width = 2
+
+    def __init__(self) -> None:
         self.codes = {STRATUM: Codes(), PSU: Codes()}
         self.parts: list[tuple] = []  # the open group's parts: (stratum, psu, sums) or (stratum, n, mean, M)
         self.size = 0  # rows of the open group's parts
         self.merged_size = 0  # rows of its parts after their last merge
+        self.sums = np.zeros(GROUP_SUMS)  # the open group's [Σ w·d·(2C − w), Σ w·d, W, m]
 
-    @property
-    def width(self) -> int:
-        return 1 + self.terms * self.terms
-
-    def feed(self, t: np.ndarray, seg: np.ndarray, columns: dict[str, pa.Array], continues: bool) -> np.ndarray:
+    def feed(self, t: np.ndarray, c: np.ndarray, m: np.ndarray, seg: np.ndarray, columns: dict[str, pa.Array],
+             continues: bool) -> np.ndarray:
+        """``t`` the row terms (rows, 3), ``c`` the running weight, ``m`` each segment's smallest value."""
         n, nseg = len(t), len(seg)
         lens = np.diff(np.append(seg, n))
         g = np.repeat(np.arange(nseg), lens)
@@ -163,25 +168,30 @@ class DesignSums:
             parts: tuple = (g_c, h_c, p_c, cell_sums(cell, t, len(g_c)))
         else:
             parts = self._row_moments(g, h, t)
-        if not continues:
+        sums = np.stack([np.add.reduceat(t[:, 1] * (2.0 * c - t[:, 2]), seg), np.add.reduceat(t[:, 1], seg),
+                         c[np.append(seg[1:], n) - 1], m], axis=1)
+        if continues:  # the open group goes on: its cells join its parts, its sums add up
+            sums[0, :2] += self.sums[:2]
+        else:
             self._reset()
         out = np.full((nseg, self.width), np.nan)
-        if continues:  # the open group goes on: its cells join its parts
+        if continues:
             self._add(self._take(parts, 0))
         if nseg > 1:  # every segment but the last ends in this batch
             closed = self._select(parts, (parts[0] > (0 if continues else -1)) & (parts[0] < nseg - 1))
             if continues:  # the open group ends here: its merged parts as segment 0
                 closed = _concat(self._finished(0), closed)
-            out[:nseg - 1] = self._rows(closed, nseg)[:nseg - 1]
+            out[:nseg - 1] = self._rows(closed, sums[:nseg - 1])
             self._reset()
             self._add(self._take(parts, nseg - 1))
         elif not continues:
             self._add(self._take(parts, 0))
+        self.sums = sums[-1].copy()
         return out
 
     def close(self) -> np.ndarray:
-        """The open group's row ([fewest, K]); the state is then empty."""
-        row = self._rows(self._finished(0), 1)[0]
+        """The open group's row ([fewest, v]); the state is then empty."""
+        row = self._rows(self._finished(0), self.sums[None, :])[0]
         self._reset()
         return row
 
@@ -238,18 +248,40 @@ class DesignSums:
 
     def _reset(self) -> None:
         self.parts, self.size, self.merged_size = [], 0, 0
+        self.sums = np.zeros(GROUP_SUMS)
 
-    def _rows(self, cells: tuple | None, groups: int) -> np.ndarray:
-        """[fewest, K] per segment of ``cells`` (segment, stratum, psu, sums) or (segment, stratum, n,
-        means, centred cross sums)."""
+    def _rows(self, cells: tuple | None, sums: np.ndarray) -> np.ndarray:
+        """[fewest, v] per segment of ``cells`` (segment, stratum, psu, sums) or (segment, stratum, n,
+        means, centred cross sums), with ``sums`` each segment's group sums (``coefficients``)."""
+        groups = len(sums)
         if cells is None or len(cells[0]) == 0:
             return np.full((groups, self.width), np.nan)
-        if len(cells) == 4:  # complete PSU totals: each a unit of count 1, its totals as means, no spread
-            g_c, h_c, _, sums = cells
+        coef = coefficients(sums)
+        if len(cells) == 4:  # complete PSU totals: each PSU's score total U first, a unit of count 1
+            g_c, h_c, _, totals = cells
             units = len(g_c)
-            return design_rows(g_c, h_c, np.ones(units), sums, np.zeros((units, self.terms, self.terms)), groups)
-        g_c, h_c, count, mean, M = cells
-        return design_rows(g_c, h_c, count, mean, M, groups)
+            with np.errstate(invalid="ignore", over="ignore"):
+                U = np.einsum("uj,uj->u", totals, coef[g_c])
+            return design_rows(g_c, h_c, np.ones(units), U[:, None], np.zeros((units, 1, 1)), groups)
+        g_c, h_c, count, mean, M = cells  # rows as units: the score's mean and spread per stratum cell
+        with np.errstate(invalid="ignore", over="ignore"):
+            U = np.einsum("uj,uj->u", mean, coef[g_c])
+            spread = np.einsum("uj,ujl,ul->u", coef[g_c], M, coef[g_c])
+        return design_rows(g_c, h_c, count, U[:, None], spread[:, None, None], groups)
+
+
+GROUP_SUMS = 4  # [Σ w·d·(2C − w), Σ w·d, W, m] per group
+
+
+def coefficients(sums: np.ndarray) -> np.ndarray:
+    """(groups, 3): c1 … c3 of the Gini's score u = c1·t1 + c2·t2 + c3·t3 (catalog/kernels.gini_variance)
+    from each group's [A = Σ w·d·(2C − w), B = Σ w·d, W, m]: T = m·W + B, G = (A − W·B)/W/T (NaN
+    unless T > 0), c1 = 1/(W·T), c2 = −(1 + G)/T, c3 = (B − G·T)/W/T − m·G/T."""
+    A, B, W, m = sums.T
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        T = m * W + B
+        G = np.where(T > 0, (A - W * B) / W / T, np.nan)
+        return np.stack([1.0 / (W * T), -1.0 / T - G / T, (B - G * T) / W / T - m * G / T], axis=1)
 
 
 def _concat(a: tuple | None, b: tuple) -> tuple:

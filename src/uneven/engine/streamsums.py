@@ -61,7 +61,7 @@ _KIND = {"W": _LAST, "n": _SUM, "gini_a": _SUM, "gini_b": _SUM, "gini_a_s": _SUM
          "below": _SUM, "above": _SUM,
          "quantile": _MIN, "xmax": _LAST, "m": _LAST, "chunk": _LAST, "curve": _SUM, "curve_a": _LAST,
          "gini_moments": _MOMENTS, "gini_sd": _SUM,
-         "gini_design": _LAST, "design_sd": _SUM}  # (gini_design: engine/streamdesign.py builds each row)
+         "gini_design": _LAST, "design_sd": _LAST}  # (gini_design: engine/streamdesign.py builds each row)
 
 
 class GroupValues:
@@ -129,10 +129,10 @@ class GroupValues:
 
     @property
     def gini_design(self):
-        """(the fewest units of any stratum, K (groups, 3, 3)) per group: the survey design's
-        between-unit cross sums of the Gini's row terms (engine/streamdesign.py)."""
+        """(the fewest units of any stratum, v) per group: the survey design's variance of the Gini's
+        score totals (engine/streamdesign.py)."""
         rows = self._get(Need("gini_design"))
-        return rows[:, 0], rows[:, 1:].reshape(-1, TERMS, TERMS)
+        return rows[:, 0], rows[:, 1]
 
     def chunk(self, kernel, params: tuple):
         states = self._get(Need("chunk", kernel=kernel, params=tuple(params)))
@@ -348,8 +348,8 @@ class StreamState:
             elif need.name == "gini_design":  # per (stratum, PSU) sums of the row terms: engine/streamdesign.py
                 sd_key = Need("design_sd")
                 terms, out[sd_key] = gini_terms(d, w, c, seg, None if carried is None else carried[sd_key])
-                design = self.designs.setdefault(need, DesignSums(TERMS))
-                out[need] = design.feed(terms, seg, self.design_columns, carried is not None)
+                design = self.designs.setdefault(need, DesignSums())
+                out[need] = design.feed(terms, c, m_seg, seg, self.design_columns, carried is not None)
             else:
                 assert self.totals is not None
                 segs = np.diff(np.append(seg, len(x)))
@@ -526,11 +526,13 @@ def gini_moments(d: np.ndarray, w: np.ndarray | None, c: np.ndarray, seg: np.nda
 def gini_terms(d: np.ndarray, w: np.ndarray | None, c: np.ndarray, seg: np.ndarray,
                carried_sd: float | None) -> tuple[np.ndarray, np.ndarray]:
     """(rows, 3): the Gini's row terms t1 = w·2(C·d − S_d), t2 = w·d, t3 = w, as ``gini_moments`` forms
-    them, for the survey design's per-PSU sums; and each segment's Σ w·d (carried into the next batch)."""
+    them, for the survey design's per-PSU sums; and the running S_d at each segment's last row (carried into
+    the next batch as one double: the compensated sum rounded once, not a sum of per-batch sums)."""
     lens = np.diff(np.append(seg, len(d)))
     ww = np.ones(len(d)) if w is None else w
     wd = ww * d
     hi, lo = segmented_prefix(wd, lens)
+    run = hi + lo
     if carried_sd is not None:
-        hi[:lens[0]] += carried_sd
-    return np.stack((2.0 * ww * (c * d - (hi + lo)), wd, ww), axis=1), np.add.reduceat(wd, seg)
+        run[:lens[0]] += carried_sd
+    return np.stack((2.0 * ww * (c * d - run), wd, ww), axis=1), run[np.append(seg[1:], len(d)) - 1]
