@@ -13,8 +13,10 @@ totals  keys, W (fsum of w, or the row count) GROUP BY keys, ORDER BY keys — o
 columns the result columns with the numpy kernel and parameters of each call (catalog/kernels.py;
         an interval's confidence level comes last)
 
-A linearized pass without a survey design whose calls all have kernels (gini_se, gini_ci_lo/hi and
-the plain ordered measures sharing its sort) is lowered the same way (plan.route_stream).
+A linearized pass whose calls all have kernels (gini_se, gini_ci_lo/hi and the plain ordered measures
+sharing its sort) is lowered the same way (plan.route_stream); with a survey design the rows also
+bring the stratum and PSU (``_uv_h``, ``_uv_psu``: engine/streamdesign.py) and its standard errors
+take the design's kernels (catalog/design_kernels.py).
 
 In the direct form (``plan.direct``, compiler/direct.py) the final SELECT reads the result table alone,
 so the table must hold every group of the user's WHERE, also those with no row the pass counts (every
