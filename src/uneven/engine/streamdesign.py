@@ -89,10 +89,17 @@ def _hashable(value):
 
 def dense(*codes: np.ndarray) -> tuple[np.ndarray, list[np.ndarray]]:
     """(cell of each row, each column's value per cell) for the distinct rows of integer ``codes``."""
-    cell, _ = pd.factorize(codes[0])
-    for c in codes[1:]:
-        local, _ = pd.factorize(c)
-        cell, _ = pd.factorize(cell.astype(np.int64) * (int(local.max()) + 1 if len(local) else 1) + local)
+    locals_ = [codes[0]] + [pd.factorize(c)[0].astype(np.int64) for c in codes[1:]]
+    spans = [int(c.max()) + 1 if len(c) else 1 for c in locals_]
+    if len(codes[0]) and codes[0].min() >= 0 and math.prod(float(s) for s in spans) < 2.0 ** 62:
+        key = locals_[0].astype(np.int64)  # (the first column is the batch's segment index: 0 … nseg − 1)
+        for c, span in zip(locals_[1:], spans[1:]):
+            key = key * span + c
+        cell, _ = pd.factorize(key)
+    else:
+        cell, _ = pd.factorize(codes[0])
+        for c, span in zip(locals_[1:], spans[1:]):
+            cell, _ = pd.factorize(cell.astype(np.int64) * span + c)
     ncell = int(cell.max()) + 1 if len(cell) else 0
     first = np.full(ncell, len(cell), dtype=np.int64)
     np.minimum.at(first, cell, np.arange(len(cell)))

@@ -531,8 +531,10 @@ def gini_terms(d: np.ndarray, w: np.ndarray | None, c: np.ndarray, seg: np.ndarr
     lens = np.diff(np.append(seg, len(d)))
     ww = np.ones(len(d)) if w is None else w
     wd = ww * d
-    hi, lo = segmented_prefix(wd, lens)
-    run = hi + lo
+    if len(seg) <= 16:  # few groups in the batch: one compensated prefix sum per group, no grouped cumsum
+        run = np.concatenate([np.add(*compensated_prefix(wd[a:a + k])) for a, k in zip(seg, lens)])
+    else:
+        run = np.add(*segmented_prefix(wd, lens))
     if carried_sd is not None:
         run[:lens[0]] += carried_sd
     return np.stack((2.0 * ww * (c * d - run), wd, ww), axis=1), run[np.append(seg[1:], len(d)) - 1]
