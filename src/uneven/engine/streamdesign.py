@@ -132,7 +132,7 @@ def design_rows(group: np.ndarray, stratum: np.ndarray, n: np.ndarray, mean: np.
                 groups: int) -> np.ndarray:
     """(groups, 1 + J²): per group [the fewest units of any of its strata, Σ_h n_h/(n_h − 1)·M_h],
     from complete units or parts of strata (n, means, centred cross sums), merged per (group, stratum)
-    first. A stratum of one unit adds nothing to K (the window plan's NULL term, which SUM skips) and
+    first. A stratum of one unit adds nothing to the sum (the window plan's NULL term, which SUM skips) and
     makes ``fewest`` 1: the standard error is then NULL."""
     J = mean.shape[1]
     cell, (g_of, _) = dense(group, stratum)
