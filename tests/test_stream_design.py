@@ -16,6 +16,7 @@ from fractions import Fraction
 import duckdb
 import numpy as np
 import pandas as pd
+import pyarrow as pa
 import pytest
 
 import uneven
@@ -294,3 +295,46 @@ def test_explain_says_the_design_streams_and_compile_is_unchanged(survey):
     other = uneven.explain("SELECT a, theil_se(x, w, strata := h) FROM t GROUP BY a", con, ordered="stream")
     assert other.passes[0]["kind"] == "linearized"
     assert "no stream kernel for theil_se" in other.passes[0]["reason"]
+
+
+# ---- the accumulator's state ----------------------------------------------------------------------
+
+def test_codes_match_values_as_group_by_does_and_stay_stable_across_batches():
+    # GROUP BY's equality (DuckDB, checked in a query: 0.0 and -0.0 one group, NaN one group, NULL one)
+    from uneven.engine.streamdesign import Codes
+    codes = Codes()
+    first = codes.encode(pa.array([0.0, -0.0, float("nan"), None, 2.5, float("nan")]))
+    second = codes.encode(pa.array([2.5, None, float("nan"), 7.0]))
+    assert first.tolist() == [first[0], first[0], first[2], first[3], first[4], first[2]]
+    assert len(set(first.tolist())) == 4  # 0.0, NaN, NULL, 2.5
+    assert second.tolist()[:3] == [first[4], first[3], first[2]] and second[3] not in first
+    text = Codes()
+    a, null, b, a2 = text.encode(pa.array(["a", None, "b", "a"])).tolist()
+    assert a == a2 and len({a, null, b}) == 3
+    assert text.encode(pa.array(["b", "c", None])).tolist()[::2] == [b, null]
+
+
+def test_an_open_group_keeps_its_psus_not_its_rows():
+    # one group streamed in 2000 batches of 50 rows over 40 PSUs: the open group's parts merge as they
+    # double, so they stay a few thousand cells (not 100,000 rows), and the variance is the one of the
+    # whole group's PSU totals fed at once
+    from uneven.engine.streamdesign import PSU, STRATUM, DesignSums
+    rng = np.random.default_rng(2)
+    n, size = 100_000, 50
+    t = rng.normal(size=(n, 3))
+    c = np.cumsum(rng.uniform(0.5, 2.0, n))
+    h, p = rng.integers(0, 4, n), rng.integers(0, 40, n)
+    streamed = DesignSums()
+    biggest = 0
+    for start in range(0, n, size):
+        part = slice(start, start + size)
+        out = streamed.feed(t[part], c[part], np.zeros(1), np.array([0]),
+                            {STRATUM: pa.array(h[part]), PSU: pa.array(p[part])}, start > 0)
+        assert np.isnan(out).all()  # the group is still open
+        biggest = max(biggest, streamed.size)
+    assert biggest <= 2 * 1024 + size
+    whole = DesignSums()
+    whole.feed(t, c, np.zeros(1), np.array([0]), {STRATUM: pa.array(h), PSU: pa.array(p)}, False)
+    a, b = streamed.close(), whole.close()
+    assert a[0] == b[0] and a[0] >= 30  # the fewest PSUs of a stratum (40 PSUs drawn in each)
+    assert abs(a[1] - b[1]) <= 1e-12 * abs(b[1])
