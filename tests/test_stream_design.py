@@ -338,3 +338,16 @@ def test_an_open_group_keeps_its_psus_not_its_rows():
     a, b = streamed.close(), whole.close()
     assert a[0] == b[0] and a[0] >= 30  # the fewest PSUs of a stratum (40 PSUs drawn in each)
     assert abs(a[1] - b[1]) <= 1e-12 * abs(b[1])
+
+
+def test_a_collated_stratum_keeps_the_window_plan():
+    # GROUP BY merges 'a' and 'A' under NOCASE; the stream's codes compare bytes: the window plan, and why
+    con = duckdb.connect()
+    con.execute("CREATE TABLE t (x DOUBLE, w DOUBLE, h VARCHAR COLLATE NOCASE)")
+    con.execute("INSERT INTO t VALUES (1, 1, 'a'), (2, 1, 'A'), (3, 2, 'b'), (5, 1, 'B'), (4, 1, 'a')")
+    sql = "SELECT gini_se(x, w, strata := h) AS se FROM t"
+    found = uneven.explain(sql, con, ordered="stream")
+    assert found.passes[0]["kind"] == "linearized"
+    assert "survey design's column h compares text under a collation" in found.passes[0]["reason"]
+    v = exact_design_variance([1, 2, 3, 5, 4], [1, 1, 2, 1, 1], ["a", "a", "b", "b", "a"], None)  # NOCASE strata
+    assert v is not None and rel(uneven.query(sql, con, ordered="stream").se[0] ** 2, v) <= 1e-12

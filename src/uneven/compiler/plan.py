@@ -324,6 +324,11 @@ def stream_blocked(plan: PassPlan, scope: PlanScope) -> str | None:
     if collated is not None:
         return (f"the group key {collated} compares text under a collation (GROUP BY merges strings the stream, "
                 "which compares bytes, would keep apart)")
+    design = [plan.options[k] for k in ("strata", "psu") if k in plan.options]
+    collated = probe(scope.select, design) if probe is not None and design else None
+    if collated is not None:  # the window plan groups the design's units with GROUP BY too
+        return (f"the survey design's column {collated} compares text under a collation (GROUP BY merges "
+                "strings the stream, which compares bytes, would keep apart)")
     return None
 
 
