@@ -27,6 +27,7 @@ FULL = [
     ["bounded.py"],
     ["stream.py", "--sizes", "20000000x1000,100000000x1"],
     ["stream_line.py"],
+    ["stream_design.py", "--repeat", "3"],
 ]
 def main(argv=None) -> int:
     argparse.ArgumentParser(description="Run every benchmark part in sequence, at full size.").parse_args(argv)

@@ -80,7 +80,13 @@ MEASURES = [
 # standard errors, on with se_measures (UNEVEN_FUZZ_SE=1). Off by default for a known difference:
 # the reference raises (TypeError) instead of giving NULL where the Gini is undefined (all weights 0,
 # or a total <= 0). (The weighted SE of equal values is exactly 0 now; the reference gives 0 or ~1e-17.)
-SE_MEASURES = [("gini_se", [], "weight"), ("theil_se", [], "weight"), ("top_share_se", ["fraction"], "weight")]
+SE_MEASURES = [("gini_se", [], "weight"), ("theil_se", [], "weight"), ("top_share_se", ["fraction"], "weight"),
+               ("gini_ci_hi", [], "weight")]
+# a survey design on a standard error (strata := …, psu := …), drawn on half of the SE calls: text,
+# integer and expression columns, NULLs among them (a NULL stratum or PSU is a value of its own)
+DESIGN_COLUMNS = ["t.province", "t.hh_size", "t.year", "t.hh_size % 3", "COALESCE(t.province, 'none')",
+                  "t.hh_id % 7", "t.hh_id % 40", "CASE WHEN t.gross > 1000 THEN 'a' ELSE 'b' END"]
+SE_NAMES = {m[0] for m in SE_MEASURES}
 RATIOS = [("0.9", "0.1"), ("0.8", "0.2"), ("0.75", "0.25"), ("0.5 + 0.4", "0.1")]
 
 MAIN_NUM = ["gross", "disposable", "weight"]
@@ -332,6 +338,9 @@ class Grammar:
             args += [self.pick(self.params[k]) for k in kinds]
         if self.chance(0.6):
             args.append(self.weight_arg(dim) if trailing == "weight" else self.entity_arg(dim))
+        if name in SE_NAMES and self.chance(0.5):
+            design = self.pick([["strata"], ["psu"], ["strata", "psu"], ["strata", "psu"]])
+            args += [f"{k} := {self.pick(DESIGN_COLUMNS)}" for k in design]
         return f"{name}({', '.join(args)})"
 
     def measure_item(self, m: str, dim: bool) -> str:

@@ -36,6 +36,7 @@ from test_query_shapes import compare_rows, outcome_compiled, same_value
 
 CI_SHAPES = 100
 CI_SEED = 20261204
+SE_MEASURES = os.environ.get("UNEVEN_FUZZ_SE") == "1"  # standard errors and survey designs too (grammar.py)
 MAX_MEASURES = 1  # the forms below do not depend on how many measures share a query; one keeps CI quick
 TABLES = ("survey", "rough", "dim")
 
@@ -150,7 +151,7 @@ def check_where_filter_subquery(eng, shape) -> str | None:
 
 def check_metamorphic(eng, seed: int, count: int, per_shape: int | None) -> None:
     rng = random.Random(seed)
-    g = Grammar(random.Random(seed), {"limit"}, max_measures=MAX_MEASURES)
+    g = Grammar(random.Random(seed), {"limit"}, max_measures=MAX_MEASURES, se_measures=SE_MEASURES)
     failures, checks, start = [], 0, time.monotonic()
     for case in range(count):
         shape = g.shape()

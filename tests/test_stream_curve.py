@@ -278,7 +278,7 @@ def test_gini_se_edge_groups(batch):
     assert v is not None and rel(got.se[4] ** 2, v) <= 1e-12
 
 
-def test_linearized_pass_streams_under_stream_and_auto_and_a_design_keeps_the_window(grouped):
+def test_linearized_pass_streams_under_stream_and_auto(grouped):
     con, _ = grouped
     sql = "SELECT a, gini(x, w), gini_se(x, w) FROM t GROUP BY a"
     for ordered in ("stream", "auto"):
@@ -286,9 +286,9 @@ def test_linearized_pass_streams_under_stream_and_auto_and_a_design_keeps_the_wi
         assert [p["kind"] for p in found.passes] == ["stream"], found.passes
         assert "stream plan" in found.passes[0]["reason"]
     assert streamed_kinds(sql, con, "window") == ["linearized"]
+    # with a survey design too (tests/test_stream_design.py)
     designed = uneven.explain("SELECT a, gini_se(x, w, strata := b) FROM t GROUP BY a", con, ordered="stream")
-    assert designed.passes[0]["kind"] == "linearized"
-    assert "survey design (strata) is not streamed" in designed.passes[0]["reason"]
+    assert designed.passes[0]["kind"] == "stream"
     # compile() never streams: the same portable SQL whatever the option
     assert uneven.compile(sql, ordered="stream") == uneven.compile(sql, ordered="window")
 

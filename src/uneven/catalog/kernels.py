@@ -124,6 +124,12 @@ class Recorder:
         self._add(Need("gini_moments"))
         return np.ones(1), np.ones((1, 3)), np.ones((1, 3, 3))
 
+    @property
+    def gini_design(self):  # a survey design's (fewest units, variance): catalog/design_kernels.py
+        self._add(Need("xmax"))
+        self._add(Need("gini_design"))
+        return np.ones(1), np.ones(1)
+
 
 
 def _where(cond, value):

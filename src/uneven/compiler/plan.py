@@ -8,6 +8,7 @@ from typing import Any
 
 from sqlglot import exp
 
+from uneven.catalog.design_kernels import stream_kernel
 from uneven.catalog.spec import PassKind
 from uneven.compiler import clauses
 from uneven.compiler.calls import MeasureCall
@@ -227,7 +228,7 @@ def route_stream(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
     for plan in plans:
         if plan.kind not in (PassKind.ORDERED, PassKind.LINEARIZED) or plan.columns:
             continue
-        if plan.options:  # a survey design (strata, PSU): the stream has no PSU or stratum sums
+        if plan.options and (plan.kind != PassKind.LINEARIZED or not DESIGN_STREAMS):  # (DESIGN_STREAMS below)
             if plan.kind == PassKind.LINEARIZED and scope.options.ordered == "stream" and scope.options.stream:
                 plan.order_reason = ("window plan: a survey design (" + ", ".join(sorted(plan.options))
                                      + ") is not streamed (stream plan requested)")
@@ -247,6 +248,8 @@ def route_stream(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
         plan.order_reason = ("stream plan: DuckDB sorts the rows by (keys, value), numpy carries each group's "
                              "running weight across the batches" + ("" if scope.options.ordered == "stream"
                                                                     else f"; {STREAM_PAYS}"))
+        if plan.options:
+            plan.order_reason += "; " + design_reason(plan)
     return plans
 
 
@@ -264,6 +267,16 @@ def route_stream(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
 # measured 0.50-0.87x the window plan at 2M x 100, each alone and the three beside a Gini, weighted or not
 # (two runs); over 200k groups of 6 rows 0.85-1.13x alone and 1.00x the three beside a Gini.
 LINEARIZED_STREAMS = True
+# A linearized pass with a survey design (strata :=, psu :=) streams too: the stream carries each
+# group's sums per (stratum, PSU) (engine/streamdesign.py); measured in bench/README.md, "Stream plan".
+DESIGN_STREAMS = True
+
+
+def design_reason(plan: PassPlan) -> str:
+    """explain's words for a streamed survey design."""
+    parts = [k for k in ("strata", "psu") if k in plan.options]
+    return ("the survey design (" + ", ".join(parts) + ") is carried per group as sums of the score's terms per "
+            + " and ".join({"strata": "stratum", "psu": "PSU"}[k] for k in parts))
 STREAM_PAYS = "auto streams a pass whose measures need the full order (bench/README.md, \"Stream plan\")"
 
 
@@ -299,9 +312,10 @@ def stream_blocked(plan: PassPlan, scope: PlanScope) -> str | None:
     """Why the pass cannot be streamed, or None."""
     if not scope.options.stream:
         return "the stream plan runs only when uneven runs the query on DuckDB (compiled SQL is portable)"
-    missing = list(dict.fromkeys(c.measure.name for c in plan.calls if c.measure.stream is None))
+    missing = list(dict.fromkeys(c.measure.name for c in plan.calls
+                                 if stream_kernel(c.measure, bool(plan.options)) is None))
     if missing:
-        return "no stream kernel for " + ", ".join(missing)
+        return "no stream kernel for " + ", ".join(missing) + (" with a survey design" if plan.options else "")
     if not all(isinstance(v, (int, float)) for c in plan.calls for v in c.params):
         return "a parameter known only at run time"
     if scope.select.parent is not None:
@@ -314,6 +328,11 @@ def stream_blocked(plan: PassPlan, scope: PlanScope) -> str | None:
     if collated is not None:
         return (f"the group key {collated} compares text under a collation (GROUP BY merges strings the stream, "
                 "which compares bytes, would keep apart)")
+    design = [plan.options[k] for k in ("strata", "psu") if k in plan.options]
+    collated = probe(scope.select, design) if probe is not None and design else None
+    if collated is not None:  # the window plan groups the design's units with GROUP BY too
+        return (f"the survey design's column {collated} compares text under a collation (GROUP BY merges "
+                "strings the stream, which compares bytes, would keep apart)")
     return None
 
 

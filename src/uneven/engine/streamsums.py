@@ -23,6 +23,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from uneven.catalog.kernels import Need
+from uneven.engine.streamdesign import DESIGN_COLUMNS, DesignSums
 
 # the quantities and how two partial values of one group combine (the earlier one first)
 _SUM, _MIN, _LAST = "sum", "min", "last"
@@ -59,7 +60,8 @@ SCALE = 2.0 ** -512  # the scaled form's factor (catalog/scaling.py)
 _KIND = {"W": _LAST, "n": _SUM, "gini_a": _SUM, "gini_b": _SUM, "gini_a_s": _SUM, "gini_b_s": _SUM,
          "below": _SUM, "above": _SUM,
          "quantile": _MIN, "xmax": _LAST, "m": _LAST, "chunk": _LAST, "curve": _SUM, "curve_a": _LAST,
-         "gini_moments": _MOMENTS, "gini_sd": _SUM}
+         "gini_moments": _MOMENTS, "gini_sd": _SUM,
+         "gini_design": _LAST, "design_sd": _LAST}  # (gini_design: engine/streamdesign.py builds each row)
 
 
 class GroupValues:
@@ -124,6 +126,13 @@ class GroupValues:
         """(n, means (groups, 3), centred cross sums (groups, 3, 3)) of the Gini's row terms."""
         rows = self._get(Need("gini_moments"))
         return rows[:, 0], rows[:, 1:1 + TERMS], rows[:, 1 + TERMS:].reshape(-1, TERMS, TERMS)
+
+    @property
+    def gini_design(self):
+        """(the fewest units of any stratum, v) per group: the survey design's variance of the Gini's
+        score totals (engine/streamdesign.py)."""
+        rows = self._get(Need("gini_design"))
+        return rows[:, 0], rows[:, 1]
 
     def chunk(self, kernel, params: tuple):
         states = self._get(Need("chunk", kernel=kernel, params=tuple(params)))
@@ -222,6 +231,8 @@ class StreamState:
     key_parts: list = field(default_factory=list)  # the rows that start a group (Arrow tables)
     last_x: float = -math.inf  # the last value seen (the open group's), for the order check
     unsorted: bool = False  # a value below its predecessor within a group was seen
+    designs: dict = field(default_factory=dict)  # Need -> DesignSums (a survey design's per-PSU state)
+    design_columns: dict = field(default_factory=dict)  # the batch's stratum and PSU columns
 
     def feed(self, batch: pa.RecordBatch, key_names: list[str]) -> None:
         n = batch.num_rows
@@ -252,6 +263,7 @@ class StreamState:
         self.started += len(new)
 
         x = batch.column("_uv_x").to_numpy(zero_copy_only=False).astype(np.float64, copy=False)
+        self.design_columns = {c: batch.column(c) for c in DESIGN_COLUMNS if c in batch.schema.names}
         steps = x[1:] < x[:-1]  # (a step down is allowed only where a group starts: checked where there is one)
         if (steps.any() and (steps & ~starts_mask[1:]).any()) or (continues and x[0] < self.last_x):
             self.unsorted = True
@@ -333,6 +345,11 @@ class StreamState:
             elif need.name == "gini_moments":
                 sd_key = Need("gini_sd")
                 out[need], out[sd_key] = gini_moments(d, w, c, seg, None if carried is None else carried[sd_key])
+            elif need.name == "gini_design":  # per (stratum, PSU) sums of the row terms: engine/streamdesign.py
+                sd_key = Need("design_sd")
+                terms, out[sd_key] = gini_terms(d, w, c, seg, None if carried is None else carried[sd_key])
+                design = self.designs.setdefault(need, DesignSums())
+                out[need] = design.feed(terms, c, m_seg, seg, self.design_columns, carried is not None)
             else:
                 assert self.totals is not None
                 segs = np.diff(np.append(seg, len(x)))
@@ -375,6 +392,8 @@ class StreamState:
         """The open group ended with the last batch: it joins the finished groups."""
         if self.open is not None:
             for key, value in self.open.items():
+                if key in self.designs:  # its row is known only now that the group has ended
+                    value = self.designs[key].close()
                 if isinstance(value, np.ndarray) and value.ndim:  # a row of a 2-D quantity (curve, moments)
                     self.done.setdefault(key, []).append(value[None, :])
                     continue
@@ -502,3 +521,20 @@ def gini_moments(d: np.ndarray, w: np.ndarray | None, c: np.ndarray, seg: np.nda
             out[:, 1 + TERMS + j * TERMS + l_] = s
             out[:, 1 + TERMS + l_ * TERMS + j] = s
     return out, np.add.reduceat(wd, seg)
+
+
+def gini_terms(d: np.ndarray, w: np.ndarray | None, c: np.ndarray, seg: np.ndarray,
+               carried_sd: float | None) -> tuple[np.ndarray, np.ndarray]:
+    """(rows, 3): the Gini's row terms t1 = w·2(C·d − S_d), t2 = w·d, t3 = w, as ``gini_moments`` forms
+    them, for the survey design's per-PSU sums; and the running S_d at each segment's last row (carried into
+    the next batch as one double: the compensated sum rounded once, not a sum of per-batch sums)."""
+    lens = np.diff(np.append(seg, len(d)))
+    ww = np.ones(len(d)) if w is None else w
+    wd = ww * d
+    if len(seg) <= 16:  # few groups in the batch: one compensated prefix sum per group, no grouped cumsum
+        run = np.concatenate([np.add(*compensated_prefix(wd[a:a + k])) for a, k in zip(seg, lens)])
+    else:
+        run = np.add(*segmented_prefix(wd, lens))
+    if carried_sd is not None:
+        run[:lens[0]] += carried_sd
+    return np.stack((2.0 * ww * (c * d - run), wd, ww), axis=1), run[np.append(seg[1:], len(d)) - 1]

@@ -13,8 +13,10 @@ totals  keys, W (fsum of w, or the row count) GROUP BY keys, ORDER BY keys — o
 columns the result columns with the numpy kernel and parameters of each call (catalog/kernels.py;
         an interval's confidence level comes last)
 
-A linearized pass without a survey design whose calls all have kernels (gini_se, gini_ci_lo/hi and
-the plain ordered measures sharing its sort) is lowered the same way (plan.route_stream).
+A linearized pass whose calls all have kernels (gini_se, gini_ci_lo/hi and the plain ordered measures
+sharing its sort) is lowered the same way (plan.route_stream); with a survey design the rows also
+bring the stratum and PSU (``_uv_h``, ``_uv_psu``: engine/streamdesign.py) and its standard errors
+take the design's kernels (catalog/design_kernels.py).
 
 In the direct form (``plan.direct``, compiler/direct.py) the final SELECT reads the result table alone,
 so the table must hold every group of the user's WHERE, also those with no row the pass counts (every
@@ -31,6 +33,7 @@ from dataclasses import dataclass, field
 
 from sqlglot import exp
 
+from uneven.catalog.design_kernels import stream_kernel
 from uneven.catalog.kernels import TOTAL_NEEDS, Need, Recorder
 from uneven.catalog.spec import PassKind
 from uneven.compiler.passes.source import (
@@ -67,6 +70,7 @@ def lower_stream_pass(source: Source, plan, name: str) -> tuple[list[exp.CTE], d
     x, w, condition = plan.x, plan.trailing, plan.condition
     keys = [key_name(i) for i in range(len(source.keys))]
     proj, cond = checked_rows(source, x, w, condition)
+    proj += design_projections(plan.options)
     rows = source.rows(proj, cond)
     with_ = source.select.args.get("with_")
     recorder = Recorder()
@@ -76,9 +80,11 @@ def lower_stream_pass(source: Source, plan, name: str) -> tuple[list[exp.CTE], d
         if call.key in results:
             continue
         params = tuple(call.params) + ((call.settings.get("level", 0.95),) if "level" in call.measure.options else ())
-        call.measure.stream(recorder, params)
+        kernel = stream_kernel(call.measure, bool(plan.options))
+        assert kernel is not None  # plan.stream_blocked keeps a pass without kernels on the window plan
+        kernel(recorder, params)
         column = f"_uv_r{len(columns) + 1}"
-        columns.append((column, call.measure.stream, params))
+        columns.append((column, kernel, params))
         results[call.key] = s.col(column, name)
     totals = None
     if any(n.name in TOTAL_NEEDS for n in recorder.needs):
@@ -103,6 +109,13 @@ def lower_stream_pass(source: Source, plan, name: str) -> tuple[list[exp.CTE], d
     plan.job = StreamJob(name, keys, w is not None, rows, totals, columns, recorder.needs,
                          keeps_groups=plan.direct and bool(keys))
     return lower_line_stage(source, plan, name, plan.job, results), results
+
+
+def design_projections(options: dict) -> list[exp.Expression]:
+    """A survey design's row columns (``strata``, ``psu``) as ``_uv_h`` and ``_uv_psu``, which
+    engine/streamdesign.py reads (the window plan's linearized pass carries them the same way)."""
+    names = {"strata": "_uv_h", "psu": "_uv_psu"}
+    return [s.named(options[k].copy(), names[k]) for k in ("strata", "psu") if k in options]
 
 
 def direct_projections(proj: list[exp.Expression], kept: exp.Expression) -> list[exp.Expression]:

@@ -1,0 +1,53 @@
+"""The Gini's linearized standard error with a survey design on the stream plan (``gini_se(x, w,
+strata := h, psu := c)``, ``gini_ci_lo``, ``gini_ci_hi``).
+
+The score is the one without a design (catalog/kernels.gini_variance; catalog/linearize.gini):
+u_k = c1·t1_k + c2·t2_k + c3·t3_k with t1 = w·2(C·d − S_d), t2 = w·d, t3 = w on d = x − m. The
+variance is the window plan's (compiler/passes/linearized.py): the with-replacement variance of the
+PSU totals within strata, Σ_h n_h/(n_h − 1) Σ_{c in h} (U_hc − Ū_h)², which engine/streamdesign.py
+forms at each group's end from the PSUs' sums of the row terms. Its outcomes are the window
+plan's: NULL where a stratum has one unit (PSU, or row without ``psu``), where the Gini is NULL, or
+where the variance is not a finite number; exactly 0 where every value of the group is equal.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from statistics import NormalDist
+
+import numpy as np
+
+from uneven.catalog import kernels
+
+
+def gini_se(acc, params):
+    G = kernels.gini(acc, ())
+    fewest, v = acc.gini_design
+    with np.errstate(invalid="ignore"):
+        zero = (acc.xmax == acc.m) | (v < 0)
+        known = np.isfinite(G) & (fewest > 1) & np.isfinite(v)
+        return np.where(known, np.where(zero, 0.0, np.sqrt(np.abs(v))), np.nan)
+
+
+def _critical(level: float) -> float:
+    return NormalDist().inv_cdf(0.5 + level / 2.0)
+
+
+def gini_ci_lo(acc, params):
+    return kernels.gini(acc, ()) - _critical(params[-1]) * gini_se(acc, params)
+
+
+def gini_ci_hi(acc, params):
+    return kernels.gini(acc, ()) + _critical(params[-1]) * gini_se(acc, params)
+
+
+DESIGN_KERNELS: dict[str, Callable] = {"gini_se": gini_se, "gini_ci_lo": gini_ci_lo, "gini_ci_hi": gini_ci_hi}
+
+
+def stream_kernel(measure, designed: bool) -> Callable | None:
+    """The stream kernel of a call on a pass with a survey design (``designed``) or without: a measure
+    whose variance reads the design (it accepts ``strata``/``psu``) needs a design kernel; the plain
+    measures sharing the pass keep theirs."""
+    if designed and measure.pass_options:
+        return DESIGN_KERNELS.get(measure.name)
+    return measure.stream
