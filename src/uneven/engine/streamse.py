@@ -7,6 +7,9 @@ form keeps the digits that raw sums of squares lose. The open group carries, bes
 Q_p where a quantile term has found it (the first x with C/W ≥ p: later rows tied with it count as
 at or below it) and its running Σ w·d (the rank term's S_d), as engine/streamsums.gini_moments does.
 
+``below_d`` (p): Σ d·clamp(p·W − C_{i−1}, 0, w_i), the value held below the cut measured from the
+group's smallest value, so p − L(p) = (p·Σw·d − below_d)/T keeps its digits where L(p) is close to p.
+
 ``qband`` (p, side): the quantile at p ± K(p)·n^(−1/3) clamped to [0, 1], n the group's rows from the
 totals query: the smallest x with C/W ≥ that level (inf where none does; the kernel reads the largest
 x then), the window plan's Hall–Sheather spacing (catalog/linearize.density_at_quantile).
@@ -35,9 +38,9 @@ def merge_rows(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     return np.concatenate(([n], mean, M))
 
 
-NEEDS = ("se_moments", "qband")
+NEEDS = ("se_moments", "qband", "below_d")
 # how two partial values of one group combine (engine/streamsums._combine): a function, or "sum"/"min"
-KINDS: dict[str, Any] = {"se_moments": merge_rows, "se_q": "min", "se_s": "sum", "qband": "min"}
+KINDS: dict[str, Any] = {"se_moments": merge_rows, "se_q": "min", "se_s": "sum", "qband": "min", "below_d": "sum"}
 
 
 def _carrier(need: Need, name: str) -> Need:
@@ -61,6 +64,10 @@ def segment_values(need: Need, x: np.ndarray, d: np.ndarray, w: np.ndarray | Non
         level_row = level[0] if len(seg) == 1 else np.repeat(level, lens)
         reached = c / wt_row >= level_row
         return {need: np.minimum.reduceat(np.where(reached, x, np.inf), seg)}
+    if need.name == "below_d":  # Σ d·clamp(p·W − C_{i−1}, 0, w_i): the value below the cut, past the minimum
+        assert need.p is not None
+        ww = 1.0 if w is None else w
+        return {need: np.add.reduceat(np.clip(float(need.p) * wt_row - (c - ww), 0.0, ww) * d, seg)}
     return _moments(need, x, d, w, c, seg, lens, wt_row, carried, prefix)
 
 
