@@ -106,6 +106,8 @@ def lorenz_score(acc, p: float) -> Score:
     L = k.lorenz(acc, (p,))
     Q, m, T = acc.quantile(p), acc.m, acc.T
     Td, Bd = deviation_sums(acc, p)
+    if p >= 1.0:  # L(1) = 1 whatever the sample: its score is 0 (the general form leaves rounding noise)
+        return Score(L, {ONE: np.zeros(np.shape(L))})
     with _with():
         Qd = Q - m
         inv_T = 1.0 / T

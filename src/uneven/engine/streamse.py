@@ -86,7 +86,9 @@ def _moments(need: Need, x, d, w, c, seg, lens, wt_row, carried, prefix: Callabl
         elif kind == "d":
             cols.append(ww * d)
         elif kind in ("bel", "dbel"):
-            below = c <= p * wt_row  # the window plan's 1(C ≤ p·W)
+            # the window plan's 1(C ≤ p·W); at p = 1 every row, as C_n = W (the rounding of the running
+            # and the total weight would leave the last row out, and L(1) = 1 a standard error of noise)
+            below = c <= p * wt_row if p < 1.0 else np.ones(len(c), dtype=bool)
             cols.append(ww * below if kind == "bel" else ww * d * below)
         elif kind == "qle":
             j = quantiles.index(p)
