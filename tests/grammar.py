@@ -80,7 +80,11 @@ MEASURES = [
 # standard errors, on with se_measures (UNEVEN_FUZZ_SE=1). Off by default for a known difference:
 # the reference raises (TypeError) instead of giving NULL where the Gini is undefined (all weights 0,
 # or a total <= 0). (The weighted SE of equal values is exactly 0 now; the reference gives 0 or ~1e-17.)
-SE_MEASURES = [("gini_se", [], "weight"), ("theil_se", [], "weight"), ("top_share_se", ["fraction"], "weight")]
+SE_MEASURES = [("gini_se", [], "weight"), ("theil_se", [], "weight"), ("top_share_se", ["fraction"], "weight"),
+               # the cut-based errors and intervals the stream plan serves too (catalog/kernels_se.py)
+               ("lorenz_se", ["fraction"], "weight"), ("generalized_lorenz_ci_lo", ["fraction"], "weight"),
+               ("palma_se", [], "weight"), ("quantile_w_se", ["fraction"], "weight"),
+               ("percentile_ratio_ci_hi", ["hi", "lo"], "weight"), ("wolfson_se", [], "weight")]
 RATIOS = [("0.9", "0.1"), ("0.8", "0.2"), ("0.75", "0.25"), ("0.5 + 0.4", "0.1")]
 
 MAIN_NUM = ["gross", "disposable", "weight"]

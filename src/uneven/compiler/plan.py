@@ -258,7 +258,9 @@ def route_stream(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
 # scan and a join of their own), except beside a lorenz_curve (_has_curve). A Gini beside theil measured
 # 0.73x too at 2M x 100, but the many-small-groups case, where that join weighs most, is not measured.
 # A linearized pass (gini_se and the estimates sharing its sort) streams under "auto" as well: measured
-# cheaper than its window plan's chain of CTEs (bench/README.md, "Stream plan").
+# cheaper than its window plan's chain of CTEs (bench/README.md, "Stream plan"). The cut-based errors beside
+# gini_se (catalog/kernels_se.py) stream with it: 0.63x the window plan at 2M x 100; alone they keep the
+# refine plan, 0.78x the stream there (bench/README.md, "Stream plan: cut-based standard errors").
 LINEARIZED_STREAMS = True
 STREAM_PAYS = "auto streams a pass whose measures need the full order (bench/README.md, \"Stream plan\")"
 
