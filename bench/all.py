@@ -26,6 +26,7 @@ FULL = [
     ["ooc.py", "--rows", "100000000"],
     ["bounded.py"],
     ["stream.py", "--sizes", "20000000x1000,100000000x1"],
+    ["stream_se.py", "--sizes", "2000000x100"],
 ]
 def main(argv=None) -> int:
     argparse.ArgumentParser(description="Run every benchmark part in sequence, at full size.").parse_args(argv)
