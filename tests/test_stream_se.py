@@ -176,11 +176,7 @@ def test_cut_standard_errors_match_exact_fractions(name, batch):
     for measure in EXACT_NAMES:
         v = exact_variance(measure, e)
         assert v is not None and v > 0
-        # wolfson on the Pareto tail: the Gini's rank term and w·d cancel on the upper rows inside the
-        # quadratic form (their coefficients are of opposite sign there), which amplifies the centred
-        # sums' rounding: measured up to 2.8e-12 (batches of 7; the window plan's raw sums 7e-14)
-        tol = 5e-12 if measure == "wolfson" and name.startswith("pareto") else 1e-12
-        assert rel(got[measure] ** 2, v) <= tol, (measure, got[measure], math.sqrt(float(v)))
+        assert rel(got[measure] ** 2, v) <= 1e-12, (measure, got[measure], math.sqrt(float(v)))
 
 
 def test_ties_at_the_cuts_and_exact_cut_points(batch):

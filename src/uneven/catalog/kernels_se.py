@@ -9,7 +9,7 @@ smallest value:
 
     ("one", 0)   w                       ("d", 0)     w·d
     ("bel", p)   w·1(C ≤ p·W)            ("dbel", p)  w·d·1(C ≤ p·W)
-    ("qle", p)   w·1(x ≤ Q_p)            ("rank", 0)  w·2(C·d − S_d)   (the Gini's rank term)
+    ("qle", p)   w·1(x ≤ Q_p)            ("rank", 0)  2w((C − W)·d − S_d)   (the Gini's rank term − 2W·w·d)
 
 The variance is the window plan's with-replacement n/(n−1)·Σ_k (u_k − ū)² = n/(n−1)·cᵀMc, M the
 centred cross sums of the row terms. The stream carries each group's n, the terms' means and M
@@ -160,7 +160,10 @@ def gini_score(acc) -> Score:
     W, T, m = acc.W, acc.T, acc.m
     with _with():
         Td = T - m * W
-        return Score(G, {RANK: 1.0 / (W * T), D: -1.0 / T - G / T, ONE: (Td - G * T) / W / T - m * G / T})
+        # on the row term 2w((C − W)·d − S_d) = rank − 2W·w·d (engine/streamse.py): c2 + 2W·c1 = (1 − G)/T. On
+        # the upper rows C − W is small, so the term does not grow with d there; with the plain rank
+        # term its w·d part and c2·w·d cancel on the upper tail, and wolfson_se lost digits to it
+        return Score(G, {RANK: 1.0 / (W * T), D: (1.0 - G) / T, ONE: (Td - G * T) / W / T - m * G / T})
 
 
 def mean_score(acc) -> Score:

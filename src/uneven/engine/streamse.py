@@ -98,12 +98,12 @@ def _moments(need: Need, x, d, w, c, seg, lens, wt_row, carried, prefix: Callabl
                 q[0] = min(q[0], carried[q_key][j])
             found[:, j] = q
             cols.append(ww * (~reached | (x == (q[0] if nseg == 1 else np.repeat(q, lens)))))
-        elif kind == "rank":
+        elif kind == "rank":  # 2w((C − W)·d − S_d): the Gini's rank term less 2W·w·d (kernels_se.gini_score)
             wd = ww * d
             hi, lo = prefix(wd, lens)
             if carried is not None:  # the open group's S_d so far
                 hi[:lens[0]] += carried[s_key]
-            cols.append(2.0 * ww * (c * d - (hi + lo)))
+            cols.append(2.0 * ww * ((c - wt_row) * d - (hi + lo)))
             out[s_key] = np.add.reduceat(wd, seg)
         else:
             raise ValueError(f"unknown row term {kind}")
