@@ -150,7 +150,8 @@ def check_where_filter_subquery(eng, shape) -> str | None:
 
 def check_metamorphic(eng, seed: int, count: int, per_shape: int | None) -> None:
     rng = random.Random(seed)
-    g = Grammar(random.Random(seed), {"limit"}, max_measures=MAX_MEASURES)
+    g = Grammar(random.Random(seed), {"limit"}, max_measures=MAX_MEASURES,
+                se_measures=os.environ.get("UNEVEN_FUZZ_SE") == "1")  # standard errors too (test_query_shapes.py)
     failures, checks, start = [], 0, time.monotonic()
     for case in range(count):
         shape = g.shape()
@@ -171,6 +172,12 @@ def check_metamorphic(eng, seed: int, count: int, per_shape: int | None) -> None
                                    ordered=shape.limit is None)
             if problem:
                 failures.append(f"case {case} (seed {seed}) window plan:\n{shape.sql()}\n{problem}")
+        if per_shape is None:  # the stream plan forced (query() on DuckDB: docs/plans.md) against the default
+            checks += 1
+            problem = same_outcome(base, outcome_compiled(eng, shape.sql(), ordered="stream"),
+                                   ordered=shape.limit is None)
+            if problem:
+                failures.append(f"case {case} (seed {seed}) stream plan:\n{shape.sql()}\n{problem}")
         if shape.where and (per_shape is None or rng.random() < 0.5):
             checks += 1
             problem = check_where_filter_subquery(eng, shape)
