@@ -3,6 +3,7 @@ stream") against the window plan, the refine plan and DuckDB's own sort of the s
 
     python bench/stream_se.py                                 # 2M rows x 100 groups, median of 3
     python bench/stream_se.py --sizes 20000000x1000 --repeat 3
+    python bench/stream_se.py --data entities --sizes 1200000x200000   # 200k groups of 6 rows
 
 Data: bench/stream.py's (lognormal values, uniform float weights, fixed seed, one Parquet file per
 size). Each case in a fresh subprocess, 2 threads, memory_limit 1GB:
@@ -84,6 +85,7 @@ def main() -> None:
     ap.add_argument("--sizes", default="2000000x100")
     ap.add_argument("--repeat", type=int, default=3)
     ap.add_argument("--cases", default=",".join(CASES))
+    ap.add_argument("--data", choices=("uniform", "entities"), default="uniform")
     ap.add_argument("--child")
     ap.add_argument("--file")
     ap.add_argument("--out")
@@ -94,12 +96,12 @@ def main() -> None:
     print(f"load average before: {' '.join(f'{v:.2f}' for v in os.getloadavg())}; {os.cpu_count()} cores")
     for size in a.sizes.split(","):
         rows, groups = (int(v) for v in size.split("x"))
-        path = make_data(rows, groups)
+        path = make_data(rows, groups, a.data)
         res = {}
         for case in a.cases.split(","):
             runs = [run_case(case, path) for _ in range(a.repeat)]
             res[case] = {"seconds": statistics.median(r["seconds"] for r in runs), "rows": runs[0]["rows"]}
-        print(f"\n{rows:,} rows x {groups:,} groups (median of {a.repeat})")
+        print(f"\n{rows:,} rows x {groups:,} groups, {a.data} (median of {a.repeat})")
         sort = res.get("sort", {}).get("seconds")
         for case, r in res.items():
             print(f"  {case:<11} {r['seconds']:7.3f} s" + (f"  {r['seconds'] / sort:5.2f}x sort" if sort else ""))
