@@ -337,3 +337,13 @@ def test_auto_refines_cut_errors_alone_and_streams_them_beside_the_gini_se(group
     assert [p["kind"] for p in mixed.passes] == ["stream"] and "stream plan" in mixed.passes[0]["reason"]
     forced = uneven.explain("SELECT a, lorenz_se(x, 0.4, w) FROM t GROUP BY a", grouped, ordered="stream")
     assert [p["kind"] for p in forced.passes] == ["stream"]
+
+
+def test_filter_having_and_expressions_around_the_errors(grouped, batch):
+    sql = ("SELECT a, round(lorenz_se(x, 0.4, w) FILTER (WHERE b = 'n') * 1000, 9) AS l, "
+           "palma_ci_hi(x, w) FILTER (WHERE x > 1) - palma(x, w) FILTER (WHERE x > 1) AS half, "
+           "quantile_w_se(x, 0.5, w) AS q FROM t GROUP BY a HAVING quantile_w_se(x, 0.5, w) > 0 ORDER BY a")
+    assert "stream" in [p["kind"] for p in uneven.explain(sql, grouped, ordered="stream").passes]
+    got = uneven.query(sql, grouped, ordered="stream")
+    assert_same_frames(got, uneven.query(sql, grouped, ordered="window"), 1e-11)
+    assert len(got) > 0 and (got.half > 0).all()  # the interval's upper end lies above the estimate
