@@ -328,7 +328,7 @@ def test_a_survey_design_keeps_the_window_plan_and_compile_never_streams(grouped
 
 
 def test_auto_refines_cut_errors_alone_and_streams_them_beside_the_gini_se(grouped):
-    # bench/README.md, "Stream plan: cut-based standard errors": alone, the refine plan measured 0.78x the
+    # bench/README.md, "Stream plan: cut-based standard errors": alone, the refine plan measured 0.72-0.78x the
     # stream (2M x 100); beside gini_se, which refine cannot serve, the stream 0.63x the window plan
     alone = uneven.explain("SELECT a, lorenz_se(x, 0.4, w), quantile_w_se(x, 0.5, w) FROM t GROUP BY a", grouped,
                            ordered="auto")

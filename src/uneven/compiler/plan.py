@@ -259,8 +259,9 @@ def route_stream(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
 # 0.73x too at 2M x 100, but the many-small-groups case, where that join weighs most, is not measured.
 # A linearized pass (gini_se and the estimates sharing its sort) streams under "auto" as well: measured
 # cheaper than its window plan's chain of CTEs (bench/README.md, "Stream plan"). The cut-based errors beside
-# gini_se (catalog/kernels_se.py) stream with it: 0.63x the window plan at 2M x 100; alone they keep the
-# refine plan, 0.78x the stream there (bench/README.md, "Stream plan: cut-based standard errors").
+# gini_se (catalog/kernels_se.py) stream with it: 0.63-0.83x the window plan (2M x 100, 200k groups of 6
+# rows); alone they keep the refine plan, 0.72-0.78x the stream at 2M x 100 (bench/README.md, "Stream
+# plan: cut-based standard errors").
 LINEARIZED_STREAMS = True
 STREAM_PAYS = "auto streams a pass whose measures need the full order (bench/README.md, \"Stream plan\")"
 
