@@ -49,10 +49,12 @@ def _carrier(need: Need, name: str) -> Need:
 
 def segment_values(need: Need, x: np.ndarray, d: np.ndarray, w: np.ndarray | None, c: np.ndarray,
                    seg: np.ndarray, wt: np.ndarray, nt: np.ndarray, carried: dict | None,
-                   prefix: Callable) -> dict:
+                   prefix: Callable, cache: dict) -> dict:
     """The need's value per segment (and its carriers), ``wt`` and ``nt`` each segment's group weight
     and row count from the totals query, ``carried`` the open group's values (its first segment);
-    ``prefix(v, lens)`` the compensated running sums restarted per segment (streamsums.segmented_prefix)."""
+    ``prefix(v, lens)`` the compensated running sums restarted per segment (streamsums.segmented_prefix);
+    ``cache`` one dict per batch, shared by the batch's needs: a term's centred column and a pair's cross
+    sums are computed once however many errors read them."""
     n = len(x)
     lens = np.diff(np.append(seg, n))
     wt_row = wt[0] if len(seg) == 1 else np.repeat(wt, lens)
@@ -68,58 +70,67 @@ def segment_values(need: Need, x: np.ndarray, d: np.ndarray, w: np.ndarray | Non
         assert need.p is not None
         ww = 1.0 if w is None else w
         return {need: np.add.reduceat(np.clip(float(need.p) * wt_row - (c - ww), 0.0, ww) * d, seg)}
-    return _moments(need, x, d, w, c, seg, lens, wt_row, carried, prefix)
+    return _moments(need, x, d, w, c, seg, lens, wt_row, carried, prefix, cache)
 
 
-def _moments(need: Need, x, d, w, c, seg, lens, wt_row, carried, prefix: Callable) -> dict:
+def _moments(need: Need, x, d, w, c, seg, lens, wt_row, carried, prefix: Callable, cache: dict) -> dict:
     terms = need.params
     nseg, K = len(seg), len(terms)
     ww = np.ones(len(x)) if w is None else w
     out: dict = {}
-    cols = []
     q_key, s_key = _carrier(need, "se_q"), _carrier(need, "se_s")
     quantiles = [p for kind, p in terms if kind == "qle"]
     found = np.empty((nseg, len(quantiles)))
-    for kind, p in terms:
-        if kind == "one":
-            cols.append(ww)
-        elif kind == "d":
-            cols.append(ww * d)
-        elif kind in ("bel", "dbel"):
-            # the window plan's 1(C ≤ p·W); at p = 1 every row, as C_n = W (the rounding of the running
-            # and the total weight would leave the last row out, and L(1) = 1 a standard error of noise)
-            below = c <= p * wt_row if p < 1.0 else np.ones(len(c), dtype=bool)
-            cols.append(ww * below if kind == "bel" else ww * d * below)
-        elif kind == "qle":
-            j = quantiles.index(p)
-            reached = c / wt_row >= p  # as the quantile: the first such row holds Q_p
-            q = np.minimum.reduceat(np.where(reached, x, np.inf), seg)
-            if carried is not None:
-                q[0] = min(q[0], carried[q_key][j])
-            found[:, j] = q
-            cols.append(ww * (~reached | (x == (q[0] if nseg == 1 else np.repeat(q, lens)))))
-        elif kind == "rank":  # 2w((C − W)·d − S_d): the Gini's rank term less 2W·w·d (kernels_se.gini_score)
-            wd = ww * d
-            hi, lo = prefix(wd, lens)
-            if carried is not None:  # the open group's S_d so far
-                hi[:lens[0]] += carried[s_key]
-            cols.append(2.0 * ww * ((c - wt_row) * d - (hi + lo)))
-            out[s_key] = np.add.reduceat(wd, seg)
-        else:
-            raise ValueError(f"unknown row term {kind}")
-    if quantiles:
-        out[q_key] = found
+    centred = []
     rows = np.empty((nseg, 1 + K + K * K))
     rows[:, 0] = lens
-    centred = []
-    for j, t in enumerate(cols):
-        mean = np.add.reduceat(t, seg) / lens
+    for j, (kind, p) in enumerate(terms):
+        if (kind, p) not in cache:  # a term's column is the same for every error of the batch
+            col, extra = _term(kind, p, x, d, ww, c, seg, lens, wt_row, carried, q_key, s_key, prefix, quantiles)
+            mean = np.add.reduceat(col, seg) / lens
+            cache[(kind, p)] = (col - (mean[0] if nseg == 1 else np.repeat(mean, lens)), mean, extra)
+        col, mean, extra = cache[(kind, p)]
+        centred.append(col)
         rows[:, 1 + j] = mean
-        centred.append(t - (mean[0] if nseg == 1 else np.repeat(mean, lens)))
+        if kind == "qle":
+            found[:, quantiles.index(p)] = extra
+        elif kind == "rank":
+            out[s_key] = extra
+    if quantiles:
+        out[q_key] = found
     for j in range(K):
         for m in range(j, K):
-            v = np.add.reduceat(centred[j] * centred[m], seg)
-            rows[:, 1 + K + j * K + m] = v
-            rows[:, 1 + K + m * K + j] = v
+            pair = (terms[j], terms[m])
+            if pair not in cache:
+                cache[pair] = np.add.reduceat(centred[j] * centred[m], seg)
+            rows[:, 1 + K + j * K + m] = cache[pair]
+            rows[:, 1 + K + m * K + j] = cache[pair]
     out[need] = rows
     return out
+
+
+def _term(kind: str, p: float, x, d, ww, c, seg, lens, wt_row, carried, q_key, s_key, prefix, quantiles) -> tuple:
+    """A row term's column, and what its group carries: Q_p found (qle), the segments' Σ w·d (rank)."""
+    nseg = len(seg)
+    if kind == "one":
+        return ww, None
+    if kind == "d":
+        return ww * d, None
+    if kind in ("bel", "dbel"):
+        # the window plan's 1(C ≤ p·W); at p = 1 every row, as C_n = W (the rounding of the running
+        # and the total weight would leave the last row out, and L(1) = 1 a standard error of noise)
+        below = c <= p * wt_row if p < 1.0 else np.ones(len(c), dtype=bool)
+        return (ww * below if kind == "bel" else ww * d * below), None
+    if kind == "qle":
+        reached = c / wt_row >= p  # as the quantile: the first such row holds Q_p
+        q = np.minimum.reduceat(np.where(reached, x, np.inf), seg)
+        if carried is not None:
+            q[0] = min(q[0], carried[q_key][quantiles.index(p)])
+        return ww * (~reached | (x == (q[0] if nseg == 1 else np.repeat(q, lens)))), q
+    if kind == "rank":  # 2w((C − W)·d − S_d): the Gini's rank term less 2W·w·d (kernels_se.gini_score)
+        wd = ww * d
+        hi, lo = prefix(wd, lens)
+        if carried is not None:  # the open group's S_d so far
+            hi[:lens[0]] += carried[s_key]
+        return 2.0 * ww * ((c - wt_row) * d - (hi + lo)), np.add.reduceat(wd, seg)
+    raise ValueError(f"unknown row term {kind}")

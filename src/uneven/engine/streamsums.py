@@ -309,6 +309,7 @@ class StreamState:
 
     def _segment_values(self, x, d, w, c, seg, gidx, m_seg, carried) -> dict:
         out: dict = {}
+        shared: dict = {}  # the batch's row terms of the standard errors (engine/streamse.py)
         wd = d if w is None else w * d
         ends = np.append(seg[1:], len(x)) - 1
         for need in self.needs:
@@ -342,7 +343,7 @@ class StreamState:
             elif need.name in streamse.NEEDS:
                 assert self.totals is not None and self.totals_n is not None  # read with the totals first
                 out.update(streamse.segment_values(need, x, d, w, c, seg, self.totals[gidx], self.totals_n[gidx],
-                                                   carried, segmented_prefix))
+                                                   carried, segmented_prefix, shared))
             elif need.name == "gini_moments":
                 sd_key = Need("gini_sd")
                 out[need], out[sd_key] = gini_moments(d, w, c, seg, None if carried is None else carried[sd_key])
