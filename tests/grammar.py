@@ -81,7 +81,11 @@ MEASURES = [
 # the reference raises (TypeError) instead of giving NULL where the Gini is undefined (all weights 0,
 # or a total <= 0). (The weighted SE of equal values is exactly 0 now; the reference gives 0 or ~1e-17.)
 SE_MEASURES = [("gini_se", [], "weight"), ("theil_se", [], "weight"), ("top_share_se", ["fraction"], "weight"),
-               ("gini_ci_hi", [], "weight")]
+               ("gini_ci_hi", [], "weight"),
+               # the cut-based errors and intervals the stream plan serves too (catalog/kernels_se.py)
+               ("lorenz_se", ["fraction"], "weight"), ("generalized_lorenz_ci_lo", ["fraction"], "weight"),
+               ("palma_se", [], "weight"), ("quantile_w_se", ["fraction"], "weight"),
+               ("percentile_ratio_ci_hi", ["hi", "lo"], "weight"), ("wolfson_se", [], "weight")]
 # a survey design on a standard error (strata := …, psu := …), drawn on half of the SE calls: text,
 # integer and expression columns, NULLs among them (a NULL stratum or PSU is a value of its own)
 DESIGN_COLUMNS = ["t.province", "t.hh_size", "t.year", "t.hh_size % 3", "COALESCE(t.province, 'none')",

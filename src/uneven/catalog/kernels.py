@@ -33,7 +33,8 @@ from typing import Any
 
 import numpy as np
 
-TOTAL_NEEDS = ("below", "above", "quantile", "chunk", "curve")  # quantities that need the group's totals beforehand
+# quantities that need the group's totals beforehand
+TOTAL_NEEDS = ("below", "above", "quantile", "chunk", "curve", "se_moments", "qband")
 
 
 @dataclass(frozen=True)
@@ -102,6 +103,10 @@ class Recorder:
     def quantile(self, p: float):
         self._add(Need("xmax"))
         return self._add(Need("quantile", float(p)))
+
+    def read(self, need: Need):
+        """A quantity of a kernel module of its own (catalog/kernels_se.py), recorded like the others."""
+        return self._add(need)
 
     def chunk(self, kernel: ChunkKernel, params: tuple):
         return self._add(Need("chunk", kernel=kernel, params=tuple(params)))

@@ -261,7 +261,10 @@ def route_stream(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
 # scan and a join of their own), except beside a lorenz_curve (_has_curve). A Gini beside theil measured
 # 0.73x too at 2M x 100, but the many-small-groups case, where that join weighs most, is not measured.
 # A linearized pass (gini_se and the estimates sharing its sort) streams under "auto" as well: measured
-# cheaper than its window plan's chain of CTEs (bench/README.md, "Stream plan").
+# cheaper than its window plan's chain of CTEs (bench/README.md, "Stream plan"). The cut-based errors beside
+# gini_se (catalog/kernels_se.py) stream with it: 0.63-0.83x the window plan (2M x 100, 200k groups of 6
+# rows); alone they keep the refine plan, 0.72-0.78x the stream at 2M x 100 (bench/README.md, "Stream
+# plan: cut-based standard errors").
 # The median-line measures (below_line_share, median_gap, fgt_relative: compiler/passes/stream_line.py) stream
 # under "auto" too: their stream, line GROUP BY and (median_gap) second stream of the rows below the line
 # measured 0.50-0.87x the window plan at 2M x 100, each alone and the three beside a Gini, weighted or not

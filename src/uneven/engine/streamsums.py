@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -23,6 +24,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from uneven.catalog.kernels import Need
+from uneven.engine import streamse
 from uneven.engine.streamdesign import DESIGN_COLUMNS, DesignSums
 
 # the quantities and how two partial values of one group combine (the earlier one first)
@@ -32,7 +34,9 @@ _SUM, _MIN, _LAST = "sum", "min", "last"
 _MOMENTS = "moments"  # (n, means, centred cross sums) of row terms, merged by Chan's pairwise update
 
 
-def _combine(kind: str, a: np.ndarray, b: np.ndarray) -> np.ndarray:
+def _combine(kind, a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    if callable(kind):  # a merge of its own (engine/streamse.py)
+        return kind(a, b)
     if kind == _SUM:
         return a + b
     if kind == _MIN:
@@ -57,11 +61,12 @@ def merge_moments(a: np.ndarray, b: np.ndarray) -> np.ndarray:
 
 
 SCALE = 2.0 ** -512  # the scaled form's factor (catalog/scaling.py)
-_KIND = {"W": _LAST, "n": _SUM, "gini_a": _SUM, "gini_b": _SUM, "gini_a_s": _SUM, "gini_b_s": _SUM,
+_KIND: dict[str, Any] = {"W": _LAST, "n": _SUM, "gini_a": _SUM, "gini_b": _SUM, "gini_a_s": _SUM, "gini_b_s": _SUM,
          "below": _SUM, "above": _SUM,
          "quantile": _MIN, "xmax": _LAST, "m": _LAST, "chunk": _LAST, "curve": _SUM, "curve_a": _LAST,
          "gini_moments": _MOMENTS, "gini_sd": _SUM,
          "gini_design": _LAST, "design_sd": _LAST}  # (gini_design: engine/streamdesign.py builds each row)
+_KIND.update(streamse.KINDS)  # the cut-based standard errors' sums
 
 
 class GroupValues:
@@ -133,6 +138,10 @@ class GroupValues:
         score totals (engine/streamdesign.py)."""
         rows = self._get(Need("gini_design"))
         return rows[:, 0], rows[:, 1]
+
+    def read(self, need: Need) -> np.ndarray:
+        """A quantity of a kernel module of its own (catalog/kernels_se.py)."""
+        return self._get(need)
 
     def chunk(self, kernel, params: tuple):
         states = self._get(Need("chunk", kernel=kernel, params=tuple(params)))
@@ -312,6 +321,7 @@ class StreamState:
 
     def _segment_values(self, x, d, w, c, seg, gidx, m_seg, carried) -> dict:
         out: dict = {}
+        shared: dict = {}  # the batch's row terms of the standard errors (engine/streamse.py)
         wd = d if w is None else w * d
         ends = np.append(seg[1:], len(x)) - 1
         for need in self.needs:
@@ -342,6 +352,10 @@ class StreamState:
                 a_key = Need("curve_a", need.p)
                 out[need], out[a_key] = curve_contributions(
                     int(need.p), d, w, c, seg, self.totals[gidx], None if carried is None else int(carried[a_key]))
+            elif need.name in streamse.NEEDS:
+                assert self.totals is not None and self.totals_n is not None  # read with the totals first
+                out.update(streamse.segment_values(need, x, d, w, c, seg, self.totals[gidx], self.totals_n[gidx],
+                                                   carried, segmented_prefix, shared))
             elif need.name == "gini_moments":
                 sd_key = Need("gini_sd")
                 out[need], out[sd_key] = gini_moments(d, w, c, seg, None if carried is None else carried[sd_key])
