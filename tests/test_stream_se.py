@@ -318,11 +318,11 @@ def test_negative_weight_stops_with_the_window_plans_error():
     assert "the group g=1" in str(streamed.value)  # (the linearized window pass names "the whole input")
 
 
-def test_a_survey_design_keeps_the_window_plan_and_compile_never_streams(grouped):
+def test_a_cut_error_with_a_survey_design_keeps_the_window_plan_and_compile_never_streams(grouped):
     designed = uneven.explain("SELECT a, lorenz_se(x, 0.4, w, strata := b) FROM t GROUP BY a", grouped,
                               ordered="stream")
     assert designed.passes[0]["kind"] == "linearized"
-    assert "survey design (strata) is not streamed" in designed.passes[0]["reason"]
+    assert "no stream kernel for lorenz_se with a survey design" in designed.passes[0]["reason"]
     sql = "SELECT a, gini_se(x, w), lorenz_se(x, 0.4, w), quantile_w_se(x, 0.5, w) FROM t GROUP BY a"
     assert uneven.compile(sql, ordered="stream") == uneven.compile(sql, ordered="window")
 
