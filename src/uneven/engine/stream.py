@@ -64,9 +64,9 @@ def run_job(con: duckdb.DuckDBPyConnection, job: StreamJob, batch_rows: int | No
         if job.totals_sql:
             totals = con.sql(job.totals_sql).arrow()
             totals = totals.read_all() if isinstance(totals, pa.RecordBatchReader) else totals
-            state.totals, state.totals_t, state.totals_n = (
+            state.totals, state.totals_t, state.totals_n = (  # (T and n only for a user's kernel)
                 totals.column(name).to_numpy(zero_copy_only=False).astype(np.float64)
-                for name in ("_uv_wt", "_uv_tt", "_uv_n"))
+                if name in totals.column_names else None for name in ("_uv_wt", "_uv_tt", "_uv_n"))
             totals_keys = totals.select(job.keys)
         reader = con.sql(job.rows_sql).to_arrow_reader(batch_rows)
         schema = reader.schema

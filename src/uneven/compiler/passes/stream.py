@@ -8,8 +8,9 @@ records a ``StreamJob`` on the plan:
 
 rows    keys, x, w — the window plan's rows (input policy checks, FILTER, NULLs and zero weights
         dropped), with the scope's own CTEs — ORDER BY keys, x
-totals  keys, W (fsum of w, or the row count) GROUP BY keys, ORDER BY keys — only when a measure
-        reads a cut (p·W) before the rows reach it; the groups come in the same order as the rows'
+totals  keys, W (fsum of w, or the row count; with T and n for a user's kernel) GROUP BY keys, ORDER BY
+        keys — only when a measure reads a cut (p·W) before the rows reach it; the groups come in the
+        same order as the rows'
 columns the result columns with the numpy kernel and parameters of each call (catalog/kernels.py;
         an interval's confidence level comes last)
 
@@ -84,6 +85,8 @@ def lower_stream_pass(source: Source, plan, name: str) -> tuple[list[exp.CTE], d
         wx = s.mul(s.col("_uv_w"), s.col("_uv_x")) if w is not None else s.col("_uv_x")
         sums = [s.alias(weight, "_uv_wt"), s.alias(exp.Anonymous(this="fsum", expressions=[wx]), "_uv_tt"),
                 s.alias(s.agg_count_star(), "_uv_n")]
+        if not any(n.name == "chunk" for n in recorder.needs):  # T and n serve users' kernels' start only
+            sums = sums[:1]
         totals = exp.Select(expressions=[s.col(k) for k in keys] + sums).from_(
             exp.Subquery(this=rows.copy(), alias=exp.TableAlias(this=exp.to_identifier("_uv_rows"))), copy=False)
         if keys:
