@@ -54,6 +54,8 @@ class StreamJob:
     rows_sql: str = ""  # filled by the pipeline (the text of rows and totals for DuckDB)
     totals_sql: str = ""
     keeps_groups: bool = False  # direct form with keys: rows the pass does not count come too (NULL x)
+    fast_rows_sql: str = ""  # rows and totals with the input checks left to numpy (passes/stream_checks.py)
+    fast_totals_sql: str = ""
 
 
 def _ordered(select: exp.Select, columns: list[str]) -> exp.Select:
@@ -96,7 +98,9 @@ def lower_stream_pass(source: Source, plan, name: str) -> tuple[list[exp.CTE], d
             totals.set("with_", with_.copy())
     if plan.direct and keys:  # (without keys the table has its one row whatever the rows)
         kept = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
-        rows = source.rows(direct_projections(proj, kept))
+        # a value is checked where the window plan checks it: on the rows its WHERE keeps (weight > 0)
+        counted = s.and_(kept.copy(), s.gt(s.cast_double(w.copy()), s.lit(0.0))) if w is not None else None
+        rows = source.rows(direct_projections(proj, kept, counted))
     _ordered(rows, keys + ["_uv_x"])
     if with_ is not None:
         rows.set("with_", with_.copy())
@@ -105,14 +109,18 @@ def lower_stream_pass(source: Source, plan, name: str) -> tuple[list[exp.CTE], d
     return [], results
 
 
-def direct_projections(proj: list[exp.Expression], kept: exp.Expression) -> list[exp.Expression]:
+def direct_projections(proj: list[exp.Expression], kept: exp.Expression,
+                       counted: exp.Expression | None = None) -> list[exp.Expression]:
     """The checked rows' projections with x and w NULL where ``kept`` (the FILTER, x not NULL) does not
     hold: every row of the user's WHERE comes, so every group does; the values and weights are checked
-    on the rows the window plan checks. Zero weights come as they are (engine/stream.py drops them)."""
+    on the rows the window plan checks (x only where ``counted``, the weight > 0, holds too: a value
+    beside a zero or NULL weight is dropped unchecked, as the window plan's WHERE drops it). Zero
+    weights come as they are (engine/stream.py drops them)."""
     out: list[exp.Expression] = []
     for p in proj:
         if isinstance(p, exp.Alias) and p.alias in ("_uv_x", "_uv_w"):
-            out.append(s.named(s.case(kept.copy(), p.this.copy()), p.alias))
+            when = counted if p.alias == "_uv_x" and counted is not None else kept
+            out.append(s.named(s.case(when.copy(), p.this.copy()), p.alias))
         else:
             out.append(p.copy())
     return out
