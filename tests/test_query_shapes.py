@@ -155,16 +155,16 @@ def outcome_streamed(eng, sql: str):
     except uneven.UnevenError as e:
         return ("refused", str(e).splitlines()[0])
     import uneven.engine.streamcuts as streamcuts  # noqa: PLC0415
-    slices = streamcuts.SLICES
-    if STREAM_SLICES is not None:
-        streamcuts.SLICES = int(STREAM_SLICES)
+    slices, min_rows = streamcuts.SLICES, streamcuts.MIN_ROWS
+    if STREAM_SLICES is not None:  # (and every batch takes the cut search, however short its groups)
+        streamcuts.SLICES, streamcuts.MIN_ROWS = int(STREAM_SLICES), 0
     try:
         with streamed(eng.con, ctx.stream_jobs, STREAM_BATCH):
             return ("rows", fetch(eng, compiled))
     except Exception as e:  # noqa: BLE001 (the engine's own error type, or an input policy error)
         return ("error", str(e).splitlines()[0][:300])
     finally:
-        streamcuts.SLICES = slices
+        streamcuts.SLICES, streamcuts.MIN_ROWS = slices, min_rows
 
 
 def outcome_compiled(eng, sql: str, faithful: bool = True, **options):

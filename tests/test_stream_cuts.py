@@ -3,7 +3,7 @@ ordinates, shares, Palma, S80/S20, quantiles and percentile ratios, checked agai
 arithmetic (Python ``fractions``: the references of tests/test_numerics.py, written from the
 definitions in DESIGN.md) and against the window plan row for row, with batches of 3 and 7 rows and
 whole, read serially and on the reader thread, each segment searched on its own slice and all
-segments on complex keys (``streamcuts.SLICES``).
+segments on complex keys (``streamcuts.SLICES``), whatever the rows per group (``streamcuts.MIN_ROWS``).
 
 The numerics data of tests/test_numerics.py stand side by side as four groups of one table, so a
 batch holds groups of very different sizes of values one after the other (values from 1e-9 to
@@ -64,6 +64,7 @@ def batches(monkeypatch, request):
 @pytest.fixture(params=[0, 10_000], ids=["complex-keys", "slices"])
 def search(monkeypatch, request):
     monkeypatch.setattr(streamcuts, "SLICES", request.param)
+    monkeypatch.setattr(streamcuts, "MIN_ROWS", 0)  # every batch takes the cut search, however short its groups
 
 
 def test_cut_measures_match_exact_fractions(numerics, batches, search):

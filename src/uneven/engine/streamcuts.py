@@ -35,11 +35,15 @@ CUT_NAMES = ("below", "above", "quantile")
 
 
 SLICES = 32  # up to this many segments in a batch, each is searched on its own slice
+# a batch of shorter segments on average (rows per segment) is summed row by row: with a few rows per
+# group the per-segment work here costs more than the passes it saves (bench/README.md, "Stream plan")
+MIN_ROWS = 16
 
 
 def applies(c: np.ndarray, totals: np.ndarray) -> bool:
-    """Whether the batch's running weights and its groups' totals are all finite."""
-    return bool(np.isfinite(c).all() and np.isfinite(totals).all())
+    """Whether the batch's segments are long enough on average, and its running weights and its groups'
+    totals all finite."""
+    return bool(len(c) >= MIN_ROWS * len(totals) and np.isfinite(c).all() and np.isfinite(totals).all())
 
 
 def locate(c: np.ndarray, seg: np.ndarray, ends: np.ndarray, targets: np.ndarray, side: str) -> np.ndarray:
