@@ -27,6 +27,11 @@ default; DuckDB's temp directory is checked for files left behind after each cas
   window_se, stream_se            gini(x, w), gini_se(x, w)
   window_rep, stream_rep          lorenz_curve(x, 50, w), theil(x, w) (the report's ordered pass)
 
+A case named ``CASE@base`` runs CASE on the source tree given by ``--base-src`` (e.g. an earlier
+revision exported with ``git archive REV src | tar -x -C DIR``, then ``--base-src DIR/src``), in the
+same run, interleaved with the others: before and after a change, measured alike. A size may carry
+its data kind, ``6000000x1000000:entities``, so one run holds every target's case.
+
 Prints the median of --repeat per case, peak RSS, the ratios the targets are stated in (to the sort
 of the same columns, measured in the same run) and the largest relative difference between the
 stream and window results. The machine's load average is printed first: figures taken while others
@@ -140,11 +145,17 @@ def child(case: str, path: str, memory_limit: str, threads: int) -> dict:
 
 def run_case(case: str, path: Path, a) -> dict:
     """One case in a fresh process; a case that fails (out of memory …) is reported, not fatal."""
+    env = dict(os.environ)
+    if case.endswith("@base"):
+        if not a.base_src:
+            return {"failed": "no --base-src given", "temp_files": 0, "temp_bytes": 0}
+        rest = [p for p in env.get("PYTHONPATH", "").split(os.pathsep) if p]
+        env["PYTHONPATH"] = os.pathsep.join([a.base_src, *rest])
     with tempfile.TemporaryDirectory() as td:
         out = Path(td) / "out.json"
-        done = subprocess.run([sys.executable, __file__, "--child", case, "--file", str(path), "--out", str(out),
-                               "--memory-limit", a.memory_limit, "--threads", str(a.threads)],
-                              capture_output=True, text=True)
+        done = subprocess.run([sys.executable, __file__, "--child", case.removesuffix("@base"), "--file", str(path),
+                               "--out", str(out), "--memory-limit", a.memory_limit, "--threads", str(a.threads)],
+                              capture_output=True, text=True, env=env)
         files, size = temp_files()
         if done.returncode != 0 or not out.exists():
             lines = [line for line in (done.stderr or "").strip().splitlines() if "Error" in line]
@@ -174,6 +185,7 @@ def main() -> None:
     ap.add_argument("--threads", type=int, default=2)
     ap.add_argument("--data", choices=("uniform", "entities"), default="uniform")
     ap.add_argument("--weights", choices=("float", "integer"), default="float")
+    ap.add_argument("--base-src", help="the source tree of the CASE@base cases (its src/ folder)")
     ap.add_argument("--child")
     ap.add_argument("--file")
     ap.add_argument("--out")
@@ -184,11 +196,18 @@ def main() -> None:
     print(f"load average before: {' '.join(f'{v:.2f}' for v in os.getloadavg())}; {os.cpu_count()} cores; "
           f"threads {a.threads}, memory_limit {a.memory_limit}; data {a.data}, {a.weights} weights")
     for size in a.sizes.split(","):
+        size, _, kind = size.partition(":")
+        data = kind or a.data
         rows, groups = (int(v) for v in size.split("x"))
-        path = make_data(rows, groups, a.data, a.weights)
+        path = make_data(rows, groups, data, a.weights)
         results: dict[str, dict] = {}
-        for case in a.cases.split(","):
-            runs = [run_case(case, path, a) for _ in range(a.repeat)]
+        cases = a.cases.split(",")
+        every: dict[str, list] = {case: [] for case in cases}
+        for _ in range(a.repeat):  # interleaved: each repeat runs every case once
+            for case in cases:
+                every[case].append(run_case(case, path, a))
+        for case in cases:
+            runs = every[case]
             failed = [r["failed"] for r in runs if "failed" in r]
             left = max(r["temp_files"] for r in runs), max(r["temp_bytes"] for r in runs)
             if failed:
@@ -197,16 +216,16 @@ def main() -> None:
             results[case] = {"seconds": statistics.median(r["seconds"] for r in runs),
                              "peak_rss_mb": max(r["peak_rss_mb"] or 0 for r in runs), "rows": runs[0]["rows"],
                              "left": left}
-        print(f"\n{rows:,} rows x {groups:,} groups, {a.data} (median of {a.repeat})")
-        print(f"  {'case':<10} {'seconds':>8} {'peak MB':>8} {'/ sort':>7} {'temp files left':>16}")
+        print(f"\n{rows:,} rows x {groups:,} groups, {data} (median of {a.repeat}, interleaved)")
+        print(f"  {'case':<14} {'seconds':>8} {'peak MB':>8} {'/ sort':>7} {'temp files left':>16}")
         for case, r in results.items():
             left = f"{r['left'][0]} ({r['left'][1] / 1e6:.0f} MB)"
             if "failed" in r:
-                print(f"  {case:<10} failed: {r['failed']}; temp files left {left}")
+                print(f"  {case:<14} failed: {r['failed']}; temp files left {left}")
                 continue
-            sort = results.get("sort_u" if case.endswith("_u") else "sort")
+            sort = results.get("sort_u" if case.removesuffix("@base").endswith("_u") else "sort")
             ratio = f"{r['seconds'] / sort['seconds']:7.2f}" if sort and "seconds" in sort else ""
-            print(f"  {case:<10} {r['seconds']:8.3f} {r['peak_rss_mb']:8.0f} {ratio:>7} {left:>16}")
+            print(f"  {case:<14} {r['seconds']:8.3f} {r['peak_rss_mb']:8.0f} {ratio:>7} {left:>16}")
         ok = {case: r for case, r in results.items() if "seconds" in r}
         for x, y in (("stream", "window"), ("streamj", "stream"), ("streamj_u", "stream_u"),
                      ("stream_p", "stream"), ("stream_u", "window_u"), ("stream10", "window10"),
@@ -221,6 +240,9 @@ def main() -> None:
                            ("pandas", "stream", "pandas / stream"),
                            ("stream10", "stream", "ten measures / one Gini (stream)"),
                            ("window10", "window", "ten measures / one Gini (window)"),
+                           ("stream10@base", "stream@base", "ten measures / one Gini (stream, base)"),
+                           *((f"{c}", f"{c}@base", f"{c} / {c}@base (after / before)")
+                             for c in ("stream", "stream_p", "stream_u", "stream10", "streamj")),
                            *((f"stream_{k}", f"window_{k}", f"stream / window, {m}") for k, m in MORE.items())):
             if x in ok and y in ok:
                 print(f"  {what}: {ok[x]['seconds'] / ok[y]['seconds']:.2f}")

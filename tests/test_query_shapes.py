@@ -49,6 +49,10 @@ SE_MEASURES = os.environ.get("UNEVEN_FUZZ_SE") == "1"  # standard errors too (no
 # the emission invariant on every Nth shape of a long run (1: every shape, as CI does); the oracle
 # comparison runs on every shape whatever N is
 EMISSION_EVERY = int(os.environ.get("UNEVEN_EMISSION_EVERY", "1"))
+# rows per Arrow batch of the stream plan in a long run (e.g. 3: batches cut groups and runs of ties
+# anywhere), and UNEVEN_STREAM_SLICES=0 to search every batch's cuts on complex keys (engine/streamcuts.py)
+STREAM_BATCH = int(os.environ.get("UNEVEN_STREAM_BATCH", "0")) or None
+STREAM_SLICES = os.environ.get("UNEVEN_STREAM_SLICES")
 
 
 def compile_faithful(sql: str, dialect: str, **options) -> str:
@@ -150,11 +154,17 @@ def outcome_streamed(eng, sql: str):
                                              DuckDBSchema(eng.con, types=False, ties=False))
     except uneven.UnevenError as e:
         return ("refused", str(e).splitlines()[0])
+    import uneven.engine.streamcuts as streamcuts  # noqa: PLC0415
+    slices, min_rows = streamcuts.SLICES, streamcuts.MIN_ROWS
+    if STREAM_SLICES is not None:  # (and every batch takes the cut search, however short its groups)
+        streamcuts.SLICES, streamcuts.MIN_ROWS = int(STREAM_SLICES), 0
     try:
-        with streamed(eng.con, ctx.stream_jobs):
+        with streamed(eng.con, ctx.stream_jobs, STREAM_BATCH):
             return ("rows", fetch(eng, compiled))
     except Exception as e:  # noqa: BLE001 (the engine's own error type, or an input policy error)
         return ("error", str(e).splitlines()[0][:300])
+    finally:
+        streamcuts.SLICES, streamcuts.MIN_ROWS = slices, min_rows
 
 
 def outcome_compiled(eng, sql: str, faithful: bool = True, **options):

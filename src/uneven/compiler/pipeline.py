@@ -14,6 +14,7 @@ from uneven.compiler.context import CompileContext, CompileOptions, EngineSchema
 from uneven.compiler.generate import check_dialect, check_read_dialect, generate
 from uneven.compiler.materialize import materialize_scope
 from uneven.compiler.parse import parse_one_statement
+from uneven.compiler.passes.stream_checks import unchecked
 from uneven.compiler.plan import ORDERED_PLANS, TIE_GROUPING
 from uneven.compiler.scalars import expand_scalars
 from uneven.compiler.scope import rewrite_scope
@@ -103,6 +104,8 @@ def compile_with_context(sql: str, options: CompileOptions = DEFAULT_OPTIONS,
     for job in ctx.stream_jobs:  # the streamed passes' queries, run by engine/stream.py before the query
         job.rows_sql = generate(job.rows, "duckdb", pretty=False)
         job.totals_sql = generate(job.totals, "duckdb", pretty=False) if job.totals is not None else ""
+        job.fast_rows_sql = generate(unchecked(job.rows), "duckdb", pretty=False)  # (checks in numpy)
+        job.fast_totals_sql = generate(unchecked(job.totals), "duckdb", pretty=False) if job.totals is not None else ""
     return generate(tree, options.dialect, pretty=options.pretty, copy=False), ctx  # the tree is this compile's own
 
 

@@ -48,8 +48,40 @@ BATCH_ROWS = 1 << 16
 PREFETCH = True
 
 
+# stream the rows with the input checks in numpy (compiler/passes/stream_checks.py) where the job has
+# that form; a batch with a row the checks may refuse sends the job back to the checked queries
+NUMPY_CHECKS = True
+
+
+class _Suspect(Exception):
+    """A streamed batch holds a NaN or infinite value, or a negative, NaN or infinite weight."""
+
+
+def suspect(batch: pa.RecordBatch, weighted: bool) -> bool:
+    """Whether a row of ``batch`` may be one the input policy refuses (NULLs are no such row)."""
+    for name in ("_uv_x", "_uv_w") if weighted else ("_uv_x",):
+        column = batch.column(name)
+        v = (column.drop_null() if column.null_count else column).to_numpy(zero_copy_only=False)
+        if len(v) == 0:
+            continue
+        low, high = v.min(), v.max()  # NaN anywhere makes both NaN
+        if not (np.isfinite(low) and np.isfinite(high)) or (name == "_uv_w" and low < 0):
+            return True
+    return False
+
+
 def run_job(con: duckdb.DuckDBPyConnection, job: StreamJob, batch_rows: int | None = None) -> pa.Table:
     """The job's result table: its key columns and one DOUBLE column per call (NULL where undefined)."""
+    if NUMPY_CHECKS and job.fast_rows_sql:
+        try:
+            return _run_job(con, job, batch_rows, job.fast_rows_sql, job.fast_totals_sql, checked=False)
+        except _Suspect:  # the checked queries decide: DuckDB's error names the group, as on the window plan
+            pass
+    return _run_job(con, job, batch_rows, job.rows_sql, job.totals_sql, checked=True)
+
+
+def _run_job(con: duckdb.DuckDBPyConnection, job: StreamJob, batch_rows: int | None, rows_sql: str,
+             totals_sql: str, checked: bool) -> pa.Table:
     batch_rows = batch_rows or BATCH_ROWS
     state = StreamState(job.needs, job.weighted)
     kept = KeptGroups(job.keys, job.weighted) if job.keeps_groups else None
@@ -61,19 +93,21 @@ def run_job(con: duckdb.DuckDBPyConnection, job: StreamJob, batch_rows: int | No
     preserve = bool(found[0]) if found else True
     con.execute("SET preserve_insertion_order = false")
     try:
-        if job.totals_sql:
-            totals = con.sql(job.totals_sql).arrow()
+        if totals_sql:
+            totals = con.sql(totals_sql).arrow()
             totals = totals.read_all() if isinstance(totals, pa.RecordBatchReader) else totals
-            state.totals, state.totals_t, state.totals_n = (
+            state.totals, state.totals_t, state.totals_n = (  # (T and n only for a user's kernel)
                 totals.column(name).to_numpy(zero_copy_only=False).astype(np.float64)
-                for name in ("_uv_wt", "_uv_tt", "_uv_n"))
+                if name in totals.column_names else None for name in ("_uv_wt", "_uv_tt", "_uv_n"))
             totals_keys = totals.select(job.keys)
-        reader = con.sql(job.rows_sql).to_arrow_reader(batch_rows)
+        reader = con.sql(rows_sql).to_arrow_reader(batch_rows)
         schema = reader.schema
         try:  # an overflowing sum is allowed: such a group takes the scaled form, or is NULL
             with np.errstate(over="ignore", invalid="ignore"), \
                     contextlib.closing(prefetched(reader) if PREFETCH else _serial(reader)) as batches:
                 for batch in batches:
+                    if not checked and suspect(batch, job.weighted):
+                        raise _Suspect
                     state.feed(batch if kept is None else kept.take(batch), job.keys)
         finally:  # (the reader thread is joined first: closing(prefetched) returns only then)
             reader.close()  # an open result refuses every later call on the connection

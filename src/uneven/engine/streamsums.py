@@ -24,7 +24,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from uneven.catalog.kernels import Need
-from uneven.engine import streamse
+from uneven.engine import streamcuts, streamse
 from uneven.engine.streamdesign import DESIGN_COLUMNS, DesignSums
 
 # the quantities and how two partial values of one group combine (the earlier one first)
@@ -324,7 +324,15 @@ class StreamState:
         shared: dict = {}  # the batch's row terms of the standard errors (engine/streamse.py)
         wd = d if w is None else w * d
         ends = np.append(seg[1:], len(x)) - 1
+        cuts = [need for need in self.needs if need.name in streamcuts.CUT_NAMES]
+        if cuts and self.totals is not None:  # every cut at once (engine/streamcuts.py) where the sums are finite
+            W = self.totals[gidx]
+            found = streamcuts.cut_parts(cuts, x, d, wd, w, c, seg, ends + 1 - seg, W, m_seg) \
+                if streamcuts.applies(c, W) else None
+            out.update(found or {})
         for need in self.needs:
+            if need in out:
+                continue
             if need.name == "W":  # the running weight at the segment's last row (the open group's carry included)
                 out[need] = c[ends].copy()
             elif need.name == "n":

@@ -8,8 +8,9 @@ records a ``StreamJob`` on the plan:
 
 rows    keys, x, w — the window plan's rows (input policy checks, FILTER, NULLs and zero weights
         dropped), with the scope's own CTEs — ORDER BY keys, x
-totals  keys, W (fsum of w, or the row count) GROUP BY keys, ORDER BY keys — only when a measure
-        reads a cut (p·W) before the rows reach it; the groups come in the same order as the rows'
+totals  keys, W (fsum of w, or the row count; with T and n for a user's kernel) GROUP BY keys, ORDER BY
+        keys — only when a measure reads a cut (p·W) before the rows reach it; the groups come in the
+        same order as the rows'
 columns the result columns with the numpy kernel and parameters of each call (catalog/kernels.py;
         an interval's confidence level comes last)
 
@@ -59,6 +60,8 @@ class StreamJob:
     keeps_groups: bool = False  # direct form with keys: rows the pass does not count come too (NULL x)
     followers: list = field(default_factory=list)  # jobs run right after this one (passes/stream_line.py)
     kept_totals: list[str] = field(default_factory=list)  # totals columns the result table keeps (stream_line.py)
+    fast_rows_sql: str = ""  # rows and totals with the input checks left to numpy (passes/stream_checks.py)
+    fast_totals_sql: str = ""
 
 
 def _ordered(select: exp.Select, columns: list[str]) -> exp.Select:
@@ -93,6 +96,8 @@ def lower_stream_pass(source: Source, plan, name: str) -> tuple[list[exp.CTE], d
         wx = s.mul(s.col("_uv_w"), s.col("_uv_x")) if w is not None else s.col("_uv_x")
         sums = [s.alias(weight, "_uv_wt"), s.alias(exp.Anonymous(this="fsum", expressions=[wx]), "_uv_tt"),
                 s.alias(s.agg_count_star(), "_uv_n")]
+        if not any(n.name == "chunk" for n in recorder.needs):  # T and n serve users' kernels' start only
+            sums = sums[:1]
         totals = exp.Select(expressions=[s.col(k) for k in keys] + sums).from_(
             exp.Subquery(this=rows.copy(), alias=exp.TableAlias(this=exp.to_identifier("_uv_rows"))), copy=False)
         if keys:
@@ -102,7 +107,9 @@ def lower_stream_pass(source: Source, plan, name: str) -> tuple[list[exp.CTE], d
             totals.set("with_", with_.copy())
     if plan.direct and keys:  # (without keys the table has its one row whatever the rows)
         kept = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
-        rows = source.rows(direct_projections(proj, kept))
+        # a value is checked where the window plan checks it: on the rows its WHERE keeps (weight > 0)
+        counted = s.and_(kept.copy(), s.gt(s.cast_double(w.copy()), s.lit(0.0))) if w is not None else None
+        rows = source.rows(direct_projections(proj, kept, counted))
     _ordered(rows, keys + ["_uv_x"])
     if with_ is not None:
         rows.set("with_", with_.copy())
@@ -118,14 +125,18 @@ def design_projections(options: dict) -> list[exp.Expression]:
     return [s.named(options[k].copy(), names[k]) for k in ("strata", "psu") if k in options]
 
 
-def direct_projections(proj: list[exp.Expression], kept: exp.Expression) -> list[exp.Expression]:
+def direct_projections(proj: list[exp.Expression], kept: exp.Expression,
+                       counted: exp.Expression | None = None) -> list[exp.Expression]:
     """The checked rows' projections with x and w NULL where ``kept`` (the FILTER, x not NULL) does not
     hold: every row of the user's WHERE comes, so every group does; the values and weights are checked
-    on the rows the window plan checks. Zero weights come as they are (engine/stream.py drops them)."""
+    on the rows the window plan checks (x only where ``counted``, the weight > 0, holds too: a value
+    beside a zero or NULL weight is dropped unchecked, as the window plan's WHERE drops it). Zero
+    weights come as they are (engine/stream.py drops them)."""
     out: list[exp.Expression] = []
     for p in proj:
         if isinstance(p, exp.Alias) and p.alias in ("_uv_x", "_uv_w"):
-            out.append(s.named(s.case(kept.copy(), p.this.copy()), p.alias))
+            when = counted if p.alias == "_uv_x" and counted is not None else kept
+            out.append(s.named(s.case(when.copy(), p.this.copy()), p.alias))
         else:
             out.append(p.copy())
     return out
