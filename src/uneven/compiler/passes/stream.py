@@ -35,7 +35,7 @@ from dataclasses import dataclass, field
 from sqlglot import exp
 
 from uneven.catalog.design_kernels import stream_kernel
-from uneven.catalog.kernels import TOTAL_NEEDS, Need, Recorder
+from uneven.catalog.kernels import COUNT_NEEDS, TOTAL_NEEDS, Need, Recorder
 from uneven.catalog.spec import PassKind
 from uneven.compiler.passes.source import (
     Source,
@@ -96,8 +96,8 @@ def lower_stream_pass(source: Source, plan, name: str) -> tuple[list[exp.CTE], d
         wx = s.mul(s.col("_uv_w"), s.col("_uv_x")) if w is not None else s.col("_uv_x")
         sums = [s.alias(weight, "_uv_wt"), s.alias(exp.Anonymous(this="fsum", expressions=[wx]), "_uv_tt"),
                 s.alias(s.agg_count_star(), "_uv_n")]
-        if not any(n.name == "chunk" for n in recorder.needs):  # T and n serve users' kernels' start only
-            sums = sums[:1]
+        if not any(n.name == "chunk" for n in recorder.needs):  # T serves users' kernels' start only; n those
+            sums = [sums[0]] + ([sums[2]] if any(n.name in COUNT_NEEDS for n in recorder.needs) else [])  # and SEs
         totals = exp.Select(expressions=[s.col(k) for k in keys] + sums).from_(
             exp.Subquery(this=rows.copy(), alias=exp.TableAlias(this=exp.to_identifier("_uv_rows"))), copy=False)
         if keys:
