@@ -31,40 +31,25 @@ from uneven.engine.streamdesign import DESIGN_COLUMNS, DesignSums
 _SUM, _MIN, _LAST = "sum", "min", "last"
 
 
-_MOMENTS = "moments"  # (n, means, centred cross sums) of row terms, merged by Chan's pairwise update
-
-
 def _combine(kind, a: np.ndarray, b: np.ndarray) -> np.ndarray:
-    if callable(kind):  # a merge of its own (engine/streamse.py)
+    if callable(kind):  # a merge of its own (engine/streamse.merge_rows: Chan's pairwise update)
         return kind(a, b)
     if kind == _SUM:
         return a + b
     if kind == _MIN:
         return np.minimum(a, b)
-    if kind == _MOMENTS:
-        return merge_moments(a, b)
     return b
 
 
 TERMS = 3  # the Gini's row terms on the stream (catalog/kernels.gini_variance)
 
 
-def merge_moments(a: np.ndarray, b: np.ndarray) -> np.ndarray:
-    """Two parts' [n, means (TERMS), centred cross sums (TERMS²)] as one (Chan, Golub and LeVeque's
-    pairwise update, common practice): M = M_a + M_b + δ δᵀ n_a n_b / n, δ = mean_b − mean_a."""
-    na, nb = a[0], b[0]
-    n = na + nb
-    delta = b[1:1 + TERMS] - a[1:1 + TERMS]
-    mean = a[1:1 + TERMS] + delta * (nb / n)
-    M = a[1 + TERMS:] + b[1 + TERMS:] + np.outer(delta, delta).ravel() * (na * nb / n)
-    return np.concatenate(([n], mean, M))
-
-
 SCALE = 2.0 ** -512  # the scaled form's factor (catalog/scaling.py)
 _KIND: dict[str, Any] = {"W": _LAST, "n": _SUM, "gini_a": _SUM, "gini_b": _SUM, "gini_a_s": _SUM, "gini_b_s": _SUM,
          "below": _SUM, "above": _SUM,
          "quantile": _MIN, "xmax": _LAST, "m": _LAST, "chunk": _LAST, "curve": _SUM, "curve_a": _LAST,
-         "gini_moments": _MOMENTS, "gini_sd": _SUM,
+         "gini_moments": streamse.merge_rows,  # (n, means, centred cross sums)
+         "gini_sd": _SUM,
          "gini_design": _LAST, "design_sd": _LAST}  # (gini_design: engine/streamdesign.py builds each row)
 _KIND.update(streamse.KINDS)  # the cut-based standard errors' sums
 
