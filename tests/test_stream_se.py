@@ -347,3 +347,34 @@ def test_filter_having_and_expressions_around_the_errors(grouped, batch):
     got = uneven.query(sql, grouped, ordered="stream")
     assert_same_frames(got, uneven.query(sql, grouped, ordered="window"), 1e-11)
     assert len(got) > 0 and (got.half > 0).all()  # the interval's upper end lies above the estimate
+
+
+def test_generalized_lorenz_error_is_defined_where_the_total_is_not_positive():
+    # GL(p) = B(p)/W needs no positive total (its domain: any x), and neither does its score
+    # z_k = [p·Q + (x_k − Q)·1(C_k ≤ pW) − GL]/W (the estimating-equation form with W for T, from memory);
+    # the variance n/(n−1)·Σ(w z − mean)² in exact fractions here, on negative values (T < 0)
+    x = [-6, -4, -4, -5, -1, -3, -2]
+    w = [1, 3, 2, 1, 2, 1, 4]
+    con = duckdb.connect()
+    con.execute("CREATE TABLE t AS SELECT * FROM (VALUES " + ", ".join(f"({a}, {b})" for a, b in zip(x, w))
+                + ") v(x, w)")
+    for p in (Fraction(0), Fraction(2, 5), Fraction(1)):
+        rows = sorted(zip(x, w))
+        W = sum(Fraction(b) for _, b in rows)
+        C, B, Q = Fraction(0), Fraction(0), None
+        for a, b in rows:
+            B += a * max(Fraction(0), min(p * W - C, Fraction(b)))
+            C += b
+            if Q is None and C / W >= p:
+                Q = Fraction(a)
+        GL = B / W
+        C, u = Fraction(0), []
+        for a, b in rows:
+            C += b
+            u.append(b * (p * Q + (a - Q) * (1 if C <= p * W else 0) - GL) / W)
+        mean = sum(u) / len(u)
+        var = Fraction(len(u), len(u) - 1) * sum((v - mean) ** 2 for v in u)
+        for ordered in ("window", "stream"):
+            got = uneven.query(f"SELECT generalized_lorenz_se(x, {float(p)}, w) AS se FROM t", con,
+                               ordered=ordered)["se"][0]
+            assert got is not None and abs(got ** 2 - float(var)) <= 1e-12 * max(float(var), 1e-300), (p, ordered)

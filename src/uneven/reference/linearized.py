@@ -54,6 +54,21 @@ def _lorenz(x, p, w):
     return L, _unsort(z, o)
 
 
+def _generalized_lorenz(x, p, w):
+    # GL = B/W with B = Σ x_i clamp(pW − C_{i−1}, 0, w_i): z_k = [p Q_p + (x_k − Q_p) 1(C_k ≤ pW) − GL] / W
+    # (the estimating-equation form of _lorenz with W in place of T, from memory). Defined for any x,
+    # as the measure is: no division by the total T, so a total ≤ 0 has a linearization too
+    x, w, o = _sorted(x, w)
+    xs, ws = x[o], w[o]
+    C = np.cumsum(ws)
+    W = C[-1]
+    GL, Q = R.generalized_lorenz(x, p, w), R.quantile_w(x, p, w)
+    if GL is None or Q is None:
+        return None, None
+    below = (C <= p * W).astype(float)
+    return GL, _unsort((p * Q + (xs - Q) * below - GL) / W, o)
+
+
 def _quantile(x, p, w):
     # z_k = (p − 1(x_k ≤ Q_p)) / (W f(Q_p))
     # (common practice; e.g. Serfling 1980, §2.5; Francisco & Fuller 1991; from memory)
@@ -134,15 +149,7 @@ def influence(name: str, x, params=(), w=None):
         L, z = _lorenz(x, 1 - params[0], w)
         return R.top_share(x, params[0], w), -z
     if name == "generalized_lorenz":
-        p = params[0]
-        L, zL = _lorenz(x, p, w)
-        if L is None or zL is None:  # no positive total: its linearization is undefined
-            return None, None
-        x_, w_ = np.asarray(x, float), (np.ones(len(x)) if w is None else np.asarray(w, float))
-        W, T = w_.sum(), (w_ * x_).sum()
-        GL = L * T / W
-        # GL = L·T/W: z = (T z_L + L x_k − GL) / W
-        return GL, (T * zL + L * x_ - GL) / W
+        return _generalized_lorenz(x, params[0], w)
     if name == "palma":
         top = influence("top_share", x, (0.1,), w)
         return _ratio(top, _lorenz(x, 0.4, w))
