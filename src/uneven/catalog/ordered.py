@@ -65,6 +65,16 @@ def rank_term(ctx) -> exp.Expression:
     return s.mul(ctx.w, s.mul(s.lit(2.0), s.sub(s.mul(ctx.c, ctx.x), ctx.s)))
 
 
+def upper_rank_term(ctx) -> exp.Expression:
+    """w_k · 2((C_k − W)·d_k − S_d,k), d = x − m, S_d the running Σ w·d = S − C·m: the rank term less
+    2W·w_k·d_k. On the upper rows C − W is small, so the term stays of the order of the spread there
+    (catalog/linearize.gini). Ties: (C_k − W)·d_k − S_d,k = Σ_{j≤k} w_j (d_k − d_j) − W d_k, as free of
+    their order as the rank term."""
+    d = s.sub(ctx.x, ctx.min_row)
+    s_d = s.sub(ctx.s, s.mul(ctx.c, ctx.min_row))
+    return s.mul(ctx.w, s.mul(s.lit(2.0), s.sub(s.mul(s.paren(s.sub(ctx.c, ctx.W_row)), d), s_d)))
+
+
 def build_gini(ctx, params):
     # Σ w_i x_i (2C_i − w_i − W) / (W·T). Shifting x by a per-group constant m leaves the numerator
     # unchanged (Σ w_i (2C_i − w_i − W) = 0), so it is computed on x − m with m the group's smallest
