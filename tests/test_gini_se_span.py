@@ -126,7 +126,7 @@ def test_window_plan_on_spark_one_small_case():
         eng.close()
 
 
-@pytest.mark.parametrize("ordered", ["window"])
+@pytest.mark.parametrize("ordered", ["stream", "window"])
 def test_query_on_duckdb(ordered):
     con = duckdb.connect()
     con.register("t", DF)
