@@ -80,25 +80,23 @@ def exact_variance(x, w, h=None, c=None) -> Fraction:
 
 
 DF = span_frame()
-DESIGNED = "gini_se(x, w, strata := h, psu := c)"
-SQL = f"SELECT g, gini_se(x, w) AS se, {DESIGNED} AS sd FROM t GROUP BY g ORDER BY g"
+# without a design; strata and PSUs; strata alone (every row a unit); PSUs alone (one stratum)
+DESIGNS = {"se": (False, False), "sd": (True, True), "sh": (True, False), "sc": (False, True)}
+SQL = ("SELECT g, gini_se(x, w) AS se, gini_se(x, w, strata := h, psu := c) AS sd, "
+       "gini_se(x, w, strata := h) AS sh, gini_se(x, w, psu := c) AS sc FROM t GROUP BY g ORDER BY g")
 
 
-def expected(group: str, design: bool) -> Fraction:
+def expected(group: str, strata: bool, psu: bool) -> Fraction:
     part = DF[DF.g == group].reset_index(drop=True)
-    if design:
-        return exact_variance(part.x, part.w, part.h.tolist(), part.c.tolist())
-    return exact_variance(part.x, part.w)
+    return exact_variance(part.x, part.w, part.h.tolist() if strata else None, part.c.tolist() if psu else None)
 
 
-def check(frame: pd.DataFrame, groups=("a", "b", "c"), design: bool = True) -> None:
+def check(frame: pd.DataFrame, groups=("a", "b", "c")) -> None:
     got = {row.g: row for row in frame.itertuples(index=False)}
     for grp in groups:
-        se = float(got[grp].se)
-        assert rel(se * se, expected(grp, False)) <= TOL, (grp, se)
-        if design:
-            sd = float(got[grp].sd)
-            assert rel(sd * sd, expected(grp, True)) <= TOL, (grp, "design", sd)
+        for column, (strata, psu) in DESIGNS.items():
+            se = float(getattr(got[grp], column))
+            assert rel(se * se, expected(grp, strata, psu)) <= TOL, (grp, column, se)
 
 
 def test_the_data_spans_twelve_orders_with_large_neighbours():
