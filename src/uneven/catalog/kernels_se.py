@@ -157,7 +157,7 @@ def quantile_score(acc, p: float) -> Score:
 
 
 def gini_score(acc) -> Score:
-    """The Gini's score as catalog/kernels.gini_variance writes it: c1·rank + c2·w·d + c3·w."""
+    """The Gini's score c1·rank + c2·w·d + c3·w (catalog/linearize.gini), the rank term less 2W·w·d."""
     G = k.gini(acc, ())
     W, T, m = acc.W, acc.T, acc.m
     with _with():
