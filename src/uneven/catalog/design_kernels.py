@@ -1,8 +1,9 @@
 """The Gini's linearized standard error with a survey design on the stream plan (``gini_se(x, w,
 strata := h, psu := c)``, ``gini_ci_lo``, ``gini_ci_hi``).
 
-The score is the one without a design (catalog/kernels.gini_variance; catalog/linearize.gini):
-u_k = c1·t1_k + c2·t2_k + c3·t3_k with t1 = w·2(C·d − S_d), t2 = w·d, t3 = w on d = x − m. The
+The score is the one without a design (catalog/kernels_se.gini_score; catalog/linearize.gini):
+u_k = c1·t1_k + c2·t2_k + c3·t3_k with t1 = w·2((C − W)·d − S_d) (the rank term less 2W·w·d: it stays
+small on the upper rows, where the plain one cancels against w·d), t2 = w·d, t3 = w on d = x − m. The
 variance is the window plan's (compiler/passes/linearized.py): the with-replacement variance of the
 PSU totals within strata, Σ_h n_h/(n_h − 1) Σ_{c in h} (U_hc − Ū_h)², which engine/streamdesign.py
 forms at each group's end from the PSUs' sums of the row terms. Its outcomes are the window

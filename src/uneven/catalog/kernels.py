@@ -34,7 +34,7 @@ from typing import Any
 import numpy as np
 
 # quantities that need the group's totals beforehand
-TOTAL_NEEDS = ("below", "above", "quantile", "chunk", "curve", "se_moments", "qband")
+TOTAL_NEEDS = ("below", "above", "quantile", "chunk", "curve", "se_moments", "qband", "gini_design")
 # the needs that read the group's row count from the totals too (the cut-based errors: engine/streamse.py)
 COUNT_NEEDS = ("se_moments", "qband")
 
@@ -224,7 +224,9 @@ def gini_variance(acc):
     with t1 = w·2(C·d − S_d) (the rank term: C·x − S on d = x − m, m the group's smallest value),
     t2 = w·d, t3 = w; the window plan's fourth term w·x is t2 + m·t3, folded into c2 and c3. The
     centred cross sums of t1 … t3 are carried across batches (Chan's pairwise update), so the
-    quadratic form Σ c_j c_l M_jl loses no digits to the group's means."""
+    quadratic form Σ c_j c_l M_jl loses no digits to the group's means. Its plain rank term cancels
+    against w·d on the upper rows where the Gini is near 1, so catalog/uncertainty.py takes
+    catalog/kernels_se.gini_score (the rank term less 2W·w·d) before this kernel."""
     G = gini(acc, ())
     W, T = acc.W, acc.T
     n, _, M = acc.gini_moments

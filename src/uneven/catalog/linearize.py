@@ -51,21 +51,25 @@ def combine(estimate: exp.Expression, *parts: tuple[exp.Expression, Lin]) -> Lin
 
 def gini(ctx, params=()) -> Lin:
     # z_k = [2 C_k x_k − 2 S_k + T − W x_k − G (T + W x_k)] / (W T)   (Langel & Tillé 2013, from memory)
-    # written on d = x − m, m the group's smallest value (T − W x_k = T_d − W d_k, T_d = Σ w d):
-    #   z_k = [2 (C_k x_k − S_k) − W d_k + T_d − G T − G W x_k] / (W T)
+    # written on d = x − m, m the group's smallest value (T − W x_k = T_d − W d_k, T_d = Σ w d), with
+    # the rank term less 2W·d_k (ordered.upper_rank_term: 2((C_k − W) d_k − S_d,k)):
+    #   z_k = [2 ((C_k − W) d_k − S_d,k) + (1 − G) W d_k + T_d − G T − G W m] / (W T)
     # so every term or coefficient is of the order of the spread δ. In x itself, w/W and w·x/T
     # (each of order 1) cancel across terms, and the quadratic form of the variance loses
-    # (μ/δ)² times the rounding: 3e-3 relative at δ = 1e-6·μ, 3.7e-9 instead of 0 at δ = 0.
+    # (μ/δ)² times the rounding: 3e-3 relative at δ = 1e-6·μ, 3.7e-9 instead of 0 at δ = 0. With the
+    # plain rank term 2(C_k d_k − S_d,k), its 2W·d_k on the upper rows (C ≈ W) and the w·d term's
+    # −(1 + G) W d_k cancel to (1 − G) W d_k: where G is near 1 and the largest rows carry the variance,
+    # the quadratic form lost (2/(1 − G))² times the rounding (1e-9 relative at G = 0.997).
     G = ordc.build_gini(ctx, ())
     W, T = ctx.W, ctx.T
     w, x = ctx.w, ctx.x
     wd = s.mul(w.copy(), s.sub(x.copy(), ctx.min_row))
     T_d = ctx.sum(wd.copy())
+    m_G = s.mul(ctx.min_x, G.copy())
     return Lin(G, [
-        (ordc.rank_term(ctx), s.div(ONE, s.mul(W, T))),
-        (wd, s.div(s.lit(-1.0), ctx.T)),
-        (w.copy(), s.div(s.div(s.sub(T_d, s.mul(G.copy(), ctx.T)), ctx.W), ctx.T)),
-        (s.mul(w.copy(), x.copy()), s.div(neg(G.copy()), ctx.T)),
+        (ordc.upper_rank_term(ctx), s.div(ONE, s.mul(W, T))),
+        (wd, s.div(s.paren(s.sub(ONE, G.copy())), ctx.T)),
+        (w.copy(), s.sub(s.div(s.div(s.sub(T_d, s.mul(G.copy(), ctx.T)), ctx.W), ctx.T), s.div(m_G, ctx.T))),
     ])
 
 

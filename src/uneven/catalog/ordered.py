@@ -59,10 +59,14 @@ def quantile_at(ctx, p: float) -> exp.Expression:
     return exp.Coalesce(this=s.agg_min(s.case(reached, ctx.x)), expressions=[s.agg_max(ctx.x)])
 
 
-def rank_term(ctx) -> exp.Expression:
-    """w_k · 2(C_k x_k − S_k), with S the running Σ w·x: the rank term of the Gini's linearization.
-    C_k x_k − S_k = Σ_{j≤k} w_j (x_k − x_j) ≥ 0 does not depend on the order of tied values."""
-    return s.mul(ctx.w, s.mul(s.lit(2.0), s.sub(s.mul(ctx.c, ctx.x), ctx.s)))
+def upper_rank_term(ctx) -> exp.Expression:
+    """w_k · 2((C_k − W)·d_k − S_d,k), d = x − m, S_d the running Σ w·d = S − C·m: the Gini's rank term
+    w_k · 2(C_k x_k − S_k) (S the running Σ w·x) less 2W·w_k·d_k. On the upper rows C − W is small, so
+    the term stays of the order of the spread there (catalog/linearize.gini). Ties: (C_k − W)·d_k − S_d,k
+    = Σ_{j≤k} w_j (d_k − d_j) − W d_k does not depend on the order of tied values."""
+    d = s.sub(ctx.x, ctx.min_row)
+    s_d = s.sub(ctx.s, s.mul(ctx.c, ctx.min_row))
+    return s.mul(ctx.w, s.mul(s.lit(2.0), s.sub(s.mul(s.paren(s.sub(ctx.c, ctx.W_row)), d), s_d)))
 
 
 def build_gini(ctx, params):

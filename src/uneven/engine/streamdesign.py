@@ -6,8 +6,9 @@ variance of the PSU totals of the score u_k = Σ_j c_j·t_kj within strata:
     v = Σ_h n_h/(n_h − 1) · Σ_{c in h} (U_hc − Ū_h)²,   U_hc = Σ_j c_j·T_hcj
 
 with the units the PSUs (each row its own unit without ``psu``; one stratum without ``strata``),
-T_hcj the unit's total of the row term t_j (t1 = w·2(C·d − S_d), t2 = w·d, t3 = w on d = x − m:
-catalog/kernels.gini_variance) and c_j the coefficients, known only at a group's end (they read the
+T_hcj the unit's total of the row term t_j (t1 = w·2((C − W)·d − S_d), the rank term less 2W·w·d with W
+from the totals query, t2 = w·d, t3 = w on d = x − m: catalog/kernels_se.gini_score, engine/streamsums.gini_terms)
+and c_j the coefficients, known only at a group's end (they read the
 group's W, T, Gini and smallest value m). This module carries, per group, what v needs while the
 sorted rows stream, and gives each finished group one row [fewest units in a stratum, v]; the
 kernel (catalog/design_kernels.py) takes the standard error from it.
@@ -283,12 +284,13 @@ GROUP_SUMS = 4  # [Σ w·d·(2C − w), Σ w·d, W, m] per group
 def coefficients(sums: np.ndarray) -> np.ndarray:
     """(groups, 3): c1 … c3 of the Gini's score u = c1·t1 + c2·t2 + c3·t3 (catalog/kernels.gini_variance)
     from each group's [A = Σ w·d·(2C − w), B = Σ w·d, W, m]: T = m·W + B, G = (A − W·B)/W/T (NaN
-    unless T > 0), c1 = 1/(W·T), c2 = −(1 + G)/T, c3 = (B − G·T)/W/T − m·G/T."""
+    unless T > 0), c1 = 1/(W·T), c2 = (1 − G)/T (−(1 + G)/T + 2W·c1: t1 is the rank term less 2W·w·d,
+    engine/streamsums.gini_terms), c3 = (B − G·T)/W/T − m·G/T."""
     A, B, W, m = sums.T
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         T = m * W + B
         G = np.where(T > 0, (A - W * B) / W / T, np.nan)
-        return np.stack([1.0 / (W * T), -1.0 / T - G / T, (B - G * T) / W / T - m * G / T], axis=1)
+        return np.stack([1.0 / (W * T), (1.0 - G) / T, (B - G * T) / W / T - m * G / T], axis=1)
 
 
 def _concat(a: tuple | None, b: tuple) -> tuple:

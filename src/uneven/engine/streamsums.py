@@ -354,7 +354,9 @@ class StreamState:
                 out[need], out[sd_key] = gini_moments(d, w, c, seg, None if carried is None else carried[sd_key])
             elif need.name == "gini_design":  # per (stratum, PSU) sums of the row terms: engine/streamdesign.py
                 sd_key = Need("design_sd")
-                terms, out[sd_key] = gini_terms(d, w, c, seg, None if carried is None else carried[sd_key])
+                assert self.totals is not None  # the rank term reads W (kernels.TOTAL_NEEDS)
+                wt = np.repeat(self.totals[gidx], np.diff(np.append(seg, len(x))))
+                terms, out[sd_key] = gini_terms(d, w, c, seg, None if carried is None else carried[sd_key], wt)
                 design = self.designs.setdefault(need, DesignSums())
                 out[need] = design.feed(terms, c, m_seg, seg, self.design_columns, carried is not None)
             else:
@@ -531,10 +533,12 @@ def gini_moments(d: np.ndarray, w: np.ndarray | None, c: np.ndarray, seg: np.nda
 
 
 def gini_terms(d: np.ndarray, w: np.ndarray | None, c: np.ndarray, seg: np.ndarray,
-               carried_sd: float | None) -> tuple[np.ndarray, np.ndarray]:
-    """(rows, 3): the Gini's row terms t1 = w·2(C·d − S_d), t2 = w·d, t3 = w, as ``gini_moments`` forms
-    them, for the survey design's per-PSU sums; and the running S_d at each segment's last row (carried into
-    the next batch as one double: the compensated sum rounded once, not a sum of per-batch sums)."""
+               carried_sd: float | None, wt: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(rows, 3): the Gini's row terms t1 = w·2((C − W)·d − S_d) (the rank term less 2W·w·d, W the group's
+    weight from the totals query, ``wt`` per row: on the upper rows it does not grow with d, where the
+    plain rank term and w·d cancel, catalog/kernels_se.gini_score), t2 = w·d, t3 = w, for the survey
+    design's per-PSU sums; and the running S_d at each segment's last row (carried into the next batch
+    as one double: the compensated sum rounded once, not a sum of per-batch sums)."""
     lens = np.diff(np.append(seg, len(d)))
     ww = np.ones(len(d)) if w is None else w
     wd = ww * d
@@ -544,4 +548,4 @@ def gini_terms(d: np.ndarray, w: np.ndarray | None, c: np.ndarray, seg: np.ndarr
         run = np.add(*segmented_prefix(wd, lens))
     if carried_sd is not None:
         run[:lens[0]] += carried_sd
-    return np.stack((2.0 * ww * (c * d - run), wd, ww), axis=1), run[np.append(seg[1:], len(d)) - 1]
+    return np.stack((2.0 * ww * ((c - wt) * d - run), wd, ww), axis=1), run[np.append(seg[1:], len(d)) - 1]
