@@ -18,8 +18,6 @@ as the window plan's builders in catalog/ordered.py):
 ``acc.above(p)``     Σ x_i · clamp(C_i − (1−p)·W, 0, w_i): the value held by the richest fraction p
 ``acc.quantile(p)``  the smallest x_i with C_i/W ≥ p (the largest x when rounding leaves none)
 ``acc.curve(k)``     below(j/k) for j = 0 … k, one row of k+1 values per group (lorenz_curve)
-``acc.gini_moments`` (n, the means of the Gini's three row terms, their centred cross sums): the
-                     linearized standard error (``gini_se``; see ``gini_variance``)
 
 Reading a quantity records it: the stream computes only what its kernels read (the kernels are
 first run on a ``Recorder``).
@@ -59,8 +57,7 @@ class ChunkKernel:
 
 @dataclass(frozen=True)
 class Need:
-    name: str  # "W", "n", "T", "gini_a", "gini_b", "below", "above", "quantile", "xmax", "chunk", "curve",
-    #            "gini_moments"
+    name: str  # "W", "n", "T", "gini_a", "gini_b", "below", "above", "quantile", "xmax", "chunk", "curve"
     p: float | None = None  # a cut's fraction; for "curve", its number of segments k
     kernel: ChunkKernel | None = None  # "chunk": the user's kernel and its parameters
     params: tuple = ()
@@ -124,12 +121,6 @@ class Recorder:
     def curve(self, k: int):
         self._add(Need("W"))
         return self._add(Need("curve", float(k)))
-
-    @property
-    def gini_moments(self):
-        self._add(Need("xmax"))
-        self._add(Need("gini_moments"))
-        return np.ones(1), np.ones((1, 3)), np.ones((1, 3, 3))
 
     @property
     def gini_design(self):  # a survey design's (fewest units, variance): catalog/design_kernels.py
@@ -210,54 +201,3 @@ def lorenz_curve(acc, params):
 
 
 lorenz_curve.curve = True  # type: ignore[attr-defined]  # its result is a list column (engine/stream.py)
-
-
-# --- the Gini's linearized standard error (catalog/linearize.gini, reference/linearized._gini) -----
-
-def gini_variance(acc):
-    """The with-replacement variance n/(n−1)·Σ_k (u_k − ū)² of u_k = w_k·z_k, z_k the Gini's
-    linearized influence (catalog/linearize.gini; Langel & Tillé 2013, from memory):
-
-        u_k = [t1_k − W·t2_k + (T_d − G·T)·t3_k] / (W·T) − G·(t2_k + m·t3_k)/T
-            = c1·t1_k + c2·t2_k + c3·t3_k
-
-    with t1 = w·2(C·d − S_d) (the rank term: C·x − S on d = x − m, m the group's smallest value),
-    t2 = w·d, t3 = w; the window plan's fourth term w·x is t2 + m·t3, folded into c2 and c3. The
-    centred cross sums of t1 … t3 are carried across batches (Chan's pairwise update), so the
-    quadratic form Σ c_j c_l M_jl loses no digits to the group's means. Its plain rank term cancels
-    against w·d on the upper rows where the Gini is near 1, so catalog/uncertainty.py takes
-    catalog/kernels_se.gini_score (the rank term less 2W·w·d) before this kernel."""
-    G = gini(acc, ())
-    W, T = acc.W, acc.T
-    n, _, M = acc.gini_moments
-    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        Td = T - acc.m * W  # Σ w·d (GroupValues.T is m·W + Σ w·d)
-        c = np.stack([1.0 / (W * T), -1.0 / T - G / T, (Td - G * T) / W / T - acc.m * G / T], axis=1)
-        v = np.einsum("gj,gjl,gl->g", c, M, c) * n / (n - 1.0)
-    return G, v, n
-
-
-def gini_se(acc, params):
-    """sqrt(v), exactly 0 where every value is equal (or v rounds below 0), NULL where the Gini is
-    NULL or the group has one row: the window plan's rule (compiler/passes/linearized.py)."""
-    G, v, n = gini_variance(acc)
-    with np.errstate(invalid="ignore"):
-        zero = (acc.xmax == acc.m) | (v < 0)
-        return np.where(np.isfinite(G) & (n > 1) & np.isfinite(v), np.where(zero, 0.0, np.sqrt(np.abs(v))), np.nan)
-
-
-def _critical(level: float) -> float:
-    from statistics import NormalDist  # noqa: PLC0415
-    return NormalDist().inv_cdf(0.5 + level / 2.0)
-
-
-def gini_ci_lo(acc, params):
-    """G − z·SE, z the normal quantile of the level (the last parameter: the call's ``level``)."""
-    return gini(acc, ()) - _critical(params[-1]) * gini_se(acc, params)
-
-
-def gini_ci_hi(acc, params):
-    return gini(acc, ()) + _critical(params[-1]) * gini_se(acc, params)
-
-
-SE_KERNELS = {"gini_se": gini_se, "gini_ci_lo": gini_ci_lo, "gini_ci_hi": gini_ci_hi}

@@ -282,7 +282,7 @@ GROUP_SUMS = 4  # [Σ w·d·(2C − w), Σ w·d, W, m] per group
 
 
 def coefficients(sums: np.ndarray) -> np.ndarray:
-    """(groups, 3): c1 … c3 of the Gini's score u = c1·t1 + c2·t2 + c3·t3 (catalog/kernels.gini_variance)
+    """(groups, 3): c1 … c3 of the Gini's score u = c1·t1 + c2·t2 + c3·t3 (catalog/kernels_se.gini_score)
     from each group's [A = Σ w·d·(2C − w), B = Σ w·d, W, m]: T = m·W + B, G = (A − W·B)/W/T (NaN
     unless T > 0), c1 = 1/(W·T), c2 = (1 − G)/T (−(1 + G)/T + 2W·c1: t1 is the rank term less 2W·w·d,
     engine/streamsums.gini_terms), c3 = (B − G·T)/W/T − m·G/T."""

@@ -5,7 +5,7 @@ count, the terms' means and their centred cross sums, [n, means (K), M (K·K)]; 
 merge by Chan, Golub and LeVeque's pairwise update (common practice), so the variance's quadratic
 form keeps the digits that raw sums of squares lose. The open group carries, besides its moments,
 Q_p where a quantile term has found it (the first x with C/W ≥ p: later rows tied with it count as
-at or below it) and its running Σ w·d (the rank term's S_d), as engine/streamsums.gini_moments does.
+at or below it) and its running Σ w·d (the rank term's S_d), as engine/streamsums.gini_terms does.
 
 ``below_d`` (p): Σ d·clamp(p·W − C_{i−1}, 0, w_i), the value held below the cut measured from the
 group's smallest value, so p − L(p) = (p·Σw·d − below_d)/T keeps its digits where L(p) is close to p.

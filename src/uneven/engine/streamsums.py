@@ -41,15 +41,10 @@ def _combine(kind, a: np.ndarray, b: np.ndarray) -> np.ndarray:
     return b
 
 
-TERMS = 3  # the Gini's row terms on the stream (catalog/kernels.gini_variance)
-
-
 SCALE = 2.0 ** -512  # the scaled form's factor (catalog/scaling.py)
 _KIND: dict[str, Any] = {"W": _LAST, "n": _SUM, "gini_a": _SUM, "gini_b": _SUM, "gini_a_s": _SUM, "gini_b_s": _SUM,
          "below": _SUM, "above": _SUM,
          "quantile": _MIN, "xmax": _LAST, "m": _LAST, "chunk": _LAST, "curve": _SUM, "curve_a": _LAST,
-         "gini_moments": streamse.merge_rows,  # (n, means, centred cross sums)
-         "gini_sd": _SUM,
          "gini_design": _LAST, "design_sd": _LAST}  # (gini_design: engine/streamdesign.py builds each row)
 _KIND.update(streamse.KINDS)  # the cut-based standard errors' sums
 
@@ -110,12 +105,6 @@ class GroupValues:
         targets = (np.arange(k + 1) / k)[None, :] * self.totals[:, None]
         with np.errstate(over="ignore", invalid="ignore"):
             return held + self.m[:, None] * np.minimum(targets, self.W[:, None])
-
-    @property
-    def gini_moments(self):
-        """(n, means (groups, 3), centred cross sums (groups, 3, 3)) of the Gini's row terms."""
-        rows = self._get(Need("gini_moments"))
-        return rows[:, 0], rows[:, 1:1 + TERMS], rows[:, 1 + TERMS:].reshape(-1, TERMS, TERMS)
 
     @property
     def gini_design(self):
@@ -349,9 +338,6 @@ class StreamState:
                 assert self.totals is not None and self.totals_n is not None  # read with the totals first
                 out.update(streamse.segment_values(need, x, d, w, c, seg, self.totals[gidx], self.totals_n[gidx],
                                                    carried, segmented_prefix, shared))
-            elif need.name == "gini_moments":
-                sd_key = Need("gini_sd")
-                out[need], out[sd_key] = gini_moments(d, w, c, seg, None if carried is None else carried[sd_key])
             elif need.name == "gini_design":  # per (stratum, PSU) sums of the row terms: engine/streamdesign.py
                 sd_key = Need("design_sd")
                 assert self.totals is not None  # the rank term reads W (kernels.TOTAL_NEEDS)
@@ -502,34 +488,6 @@ def segmented_prefix(v: np.ndarray, lens: np.ndarray) -> tuple[np.ndarray, np.nd
     bp = hi - prev  # two-sum of prev + v = hi: the exact rounding error of each step
     err = (prev - (hi - bp)) + (v - bp)
     return hi, pd.Series(err).groupby(codes, sort=False).cumsum().to_numpy()
-
-
-def gini_moments(d: np.ndarray, w: np.ndarray | None, c: np.ndarray, seg: np.ndarray,
-                 carried_sd: float | None) -> tuple[np.ndarray, np.ndarray]:
-    """Per segment [n, the means of t1 … t3, their centred cross sums] (the Gini's row terms,
-    catalog/kernels.gini_variance: t1 = w·2(C·d − S_d), t2 = w·d, t3 = w), and each segment's Σ w·d
-    (the running S_d carried into the next batch). S_d is a compensated prefix sum, as C is."""
-    n = len(d)
-    lens = np.diff(np.append(seg, n))
-    nseg = len(seg)
-    ww = np.ones(n) if w is None else w
-    wd = ww * d
-    hi, lo = segmented_prefix(wd, lens)
-    if carried_sd is not None:  # the open group's S_d so far, as (hi, lo) through its first segment
-        hi[:lens[0]] += carried_sd
-    run = hi + lo
-    terms = (2.0 * ww * (c * d - run), wd, ww)
-    means = [np.add.reduceat(t, seg) / lens for t in terms]
-    centred = [t - (m[0] if nseg == 1 else np.repeat(m, lens)) for t, m in zip(terms, means)]
-    out = np.empty((nseg, 1 + TERMS + TERMS * TERMS))
-    out[:, 0] = lens
-    for j in range(TERMS):
-        out[:, 1 + j] = means[j]
-        for l_ in range(j, TERMS):
-            s = np.add.reduceat(centred[j] * centred[l_], seg)
-            out[:, 1 + TERMS + j * TERMS + l_] = s
-            out[:, 1 + TERMS + l_ * TERMS + j] = s
-    return out, np.add.reduceat(wd, seg)
 
 
 def gini_terms(d: np.ndarray, w: np.ndarray | None, c: np.ndarray, seg: np.ndarray,
