@@ -115,3 +115,20 @@ def test_the_unchecked_queries_keep_every_row_the_checks_would_see():
         tree = sqlglot.parse_one(fast, read="duckdb")
         assert not any(is_check(n) for n in tree.walk()) and "error" not in fast.lower()
         assert any(isinstance(n, sqlglot.exp.NEQ) for n in tree.walk())  # w <> 0: negative weights come through
+
+
+@pytest.mark.parametrize("where", [
+    "(CASE WHEN x > 2 THEN error('a row over 2') ELSE x END) > 0",  # a user's own check in WHERE
+    "x > 0 AND CASE WHEN w < 0.6 THEN error('light row') ELSE true END",
+])
+def test_a_users_own_error_call_is_kept(where, batches):
+    # only the input policy's checks (messages "uneven: …") leave the SQL; a user's error() must stop
+    # the query as on the window plan, not be dropped with them (a number where the window plan errs)
+    con = table()
+    sql = f"SELECT g, gini(x, w) AS gi FROM t WHERE {where} GROUP BY g"
+    for ordered in ("window", "stream"):
+        with pytest.raises(uneven.UnevenError) as info:
+            uneven.query(sql, con, ordered=ordered)
+        assert ("a row over 2" if "2'" in where else "light row") in str(info.value)
+    check = sqlglot.parse_one("SELECT CASE WHEN x > 2 THEN error('no') ELSE x END", read="duckdb").expressions[0]
+    assert not is_check(check)
