@@ -378,3 +378,21 @@ def test_generalized_lorenz_error_is_defined_where_the_total_is_not_positive():
             got = uneven.query(f"SELECT generalized_lorenz_se(x, {float(p)}, w) AS se FROM t", con,
                                ordered=ordered)["se"][0]
             assert got is not None and abs(got ** 2 - float(var)) <= 1e-12 * max(float(var), 1e-300), (p, ordered)
+
+
+@pytest.mark.parametrize("ordered", ["window", "refine", "stream"])
+def test_lorenz_errors_at_p_0_and_1_are_exactly_zero(ordered):
+    # L(0) = 0 and L(1) = 1 for every sample with T > 0 (the definition), so their linearized errors are
+    # exactly 0, with or without a survey design; the window plan's terms cancelled to a rounding
+    # residue (4.6e-9, 7.9e-9 with a design, on values of 1 to 1e6 with uneven weights)
+    rng = np.random.default_rng(1103)
+    con = duckdb.connect()
+    df = pd.DataFrame({"g": np.arange(400) % 3, "x": np.exp(rng.uniform(0, 14, 400)).round(2),
+                       "w": rng.uniform(0.1, 50, 400), "h": np.arange(400) % 4, "c": np.arange(400) % 9})
+    con.register("t", df)
+    for design in ("", ", strata := h, psu := c"):
+        sql = (f"SELECT g, lorenz_se(x, 1, w{design}) AS a, lorenz_se(x, 0, w{design}) AS b, "
+               f"top_share_se(x, 0, w{design}) AS c, top_share_ci_lo(x, 1, w{design}) AS d FROM t GROUP BY g")
+        got = uneven.query(sql, con, ordered=ordered)
+        assert (got[["a", "b", "c"]] == 0.0).all().all(), (design, got)
+        assert (abs(got["d"] - 1.0) <= 4e-16).all()  # T(1) − 0·SE: 1 to the last bit or next to it

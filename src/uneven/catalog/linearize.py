@@ -97,6 +97,8 @@ def lorenz(ctx, p: float) -> Lin:
     # L = B/T: z_k = [p Q_p + (x_k − Q_p) 1(x_k ≤ Q_p) − L x_k] / T
     #              = [p Q_d + (d_k − Q_d) 1(x_k ≤ Q_p) − L d_k + m (p − L)] / T   (d = x − m)
     L = ordc.lorenz_at(ctx, p)
+    if p <= 0.0 or p >= 1.0:  # L(0) = 0 and L(1) = 1 whatever the rows: a score of exactly 0 (the terms
+        return Lin(L, [(ctx.w, ZERO)])  # below would cancel only to a rounding residue, ~1e-8 after the root)
     Q = ordc.quantile_at(ctx, p)
     inv_T = s.div(ONE, ctx.T)
     w_extra = s.mul(ctx.min_x, s.sub(s.lit(p), L.copy()))
