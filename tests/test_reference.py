@@ -975,7 +975,10 @@ def test_standard_error_reference_where_the_measure_is_undefined_or_weights_are_
     assert S.se("gini", [1.0, 2.0, 3.0], (), [0.0, 0.0, 0.0]) is None
     assert S.se("lorenz", [-1.0, -2.0, 1.0], (0.4,), [1.0, 1.0, 1.0]) is None
     assert S.ci("top_share", [-1.0, -2.0, 1.0], (0.1,), [1.0, 1.0, 1.0]) == (None, None)
-    assert S.se("generalized_lorenz", [-1.0, -2.0, 1.0], (0.5,), [1.0, 1.0, 1.0]) is None
+    # GL = B/W needs no positive total (its domain: any x): by hand, sorted −2, −1, 1, W = 3, p·W = 1.5,
+    # GL = (−2 − 0.5)/3, Q = −1, z = (p·Q + (x − Q)·1(C ≤ 1.5) − GL)/W = (−2/9, 1/9, 1/9), mean 0,
+    # variance 3/2 · (4 + 1 + 1)/81 = 1/9, so the error is 1/3
+    assert S.se("generalized_lorenz", [-1.0, -2.0, 1.0], (0.5,), [1.0, 1.0, 1.0]) == pytest.approx(1 / 3, rel=1e-12)
     assert S.se("gini", [1.0, 2.0, 3.0, 4.0], (), [1.0, 0.0, 2.0, 1.0]) == \
         S.se("gini", [1.0, 3.0, 4.0], (), [1.0, 2.0, 1.0])
     assert S.se("gini", [5.0, 5.0, 5.0, 5.0], (), [1.0, 2.0, 1.0, 3.0]) == 0.0
