@@ -14,32 +14,21 @@ where the variance is not a finite number; exactly 0 where every value of the gr
 from __future__ import annotations
 
 from collections.abc import Callable
-from statistics import NormalDist
 
-import numpy as np
-
-from uneven.catalog import kernels
+from uneven.catalog import kernels, kernels_se
 
 
 def gini_se(acc, params):
-    G = kernels.gini(acc, ())
     fewest, v = acc.gini_design
-    with np.errstate(invalid="ignore"):
-        zero = (acc.xmax == acc.m) | (v < 0)
-        known = np.isfinite(G) & (fewest > 1) & np.isfinite(v)
-        return np.where(known, np.where(zero, 0.0, np.sqrt(np.abs(v))), np.nan)
-
-
-def _critical(level: float) -> float:
-    return NormalDist().inv_cdf(0.5 + level / 2.0)
+    return kernels_se.root(acc, kernels.gini(acc, ()), v, fewest > 1)
 
 
 def gini_ci_lo(acc, params):
-    return kernels.gini(acc, ()) - _critical(params[-1]) * gini_se(acc, params)
+    return kernels_se.output("lo", kernels.gini(acc, ()), gini_se(acc, params), params[-1])
 
 
 def gini_ci_hi(acc, params):
-    return kernels.gini(acc, ()) + _critical(params[-1]) * gini_se(acc, params)
+    return kernels_se.output("hi", kernels.gini(acc, ()), gini_se(acc, params), params[-1])
 
 
 DESIGN_KERNELS: dict[str, Callable] = {"gini_se": gini_se, "gini_ci_lo": gini_ci_lo, "gini_ci_hi": gini_ci_hi}

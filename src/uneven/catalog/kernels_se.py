@@ -215,19 +215,32 @@ def standard_error(acc, score: Score) -> np.ndarray:
     with _with():
         c = np.stack([np.broadcast_to(score.parts[t], np.shape(n)) for t in terms], axis=1)
         v = np.einsum("gj,gjl,gl->g", c, M, c) * n / (n - 1.0)
+    return root(acc, score.est, v, n > 1)
+
+
+def root(acc, est: np.ndarray, v: np.ndarray, enough: np.ndarray) -> np.ndarray:
+    """sqrt(v) where the estimate and v are finite and the group has ``enough`` units; exactly 0 where
+    every value is equal or v rounds below 0 (the window plan's rule; also the survey design's,
+    catalog/design_kernels.py)."""
+    with _with():
         zero = (acc.xmax == acc.m) | (v < 0)
-        known = np.isfinite(score.est) & (n > 1) & np.isfinite(v)
+        known = np.isfinite(est) & enough & np.isfinite(v)
         return np.where(known, np.where(zero, 0.0, np.sqrt(np.abs(v))), np.nan)
+
+
+def output(role: str, est: np.ndarray, se: np.ndarray, level: float) -> np.ndarray:
+    """The call's result from its estimate and standard error: the error itself, or an interval's
+    bound at the level's normal quantile."""
+    if role == "se":
+        return se
+    z = NormalDist().inv_cdf(0.5 + level / 2.0)
+    return est - z * se if role == "lo" else est + z * se
 
 
 def _kernel(base: str, role: str) -> Callable:
     def kernel(acc, params):
         score = SCORES[base](acc, params)
-        se = standard_error(acc, score)
-        if role == "se":
-            return se
-        z = NormalDist().inv_cdf(0.5 + params[-1] / 2.0)  # the level's normal quantile
-        return score.est - z * se if role == "lo" else score.est + z * se
+        return output(role, score.est, standard_error(acc, score), params[-1] if role != "se" else 0.0)
     kernel.__name__ = f"{base}_{role}"
     return kernel
 
