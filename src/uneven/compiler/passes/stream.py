@@ -94,10 +94,12 @@ def lower_stream_pass(source: Source, plan, name: str) -> tuple[list[exp.CTE], d
         weight = (exp.Anonymous(this="fsum", expressions=[s.col("_uv_w")]) if w is not None
                   else s.cast_double(s.agg_count_star()))
         wx = s.mul(s.col("_uv_w"), s.col("_uv_x")) if w is not None else s.col("_uv_x")
-        sums = [s.alias(weight, "_uv_wt"), s.alias(exp.Anonymous(this="fsum", expressions=[wx]), "_uv_tt"),
-                s.alias(s.agg_count_star(), "_uv_n")]
-        if not any(n.name == "chunk" for n in recorder.needs):  # T serves users' kernels' start only; n those
-            sums = [sums[0]] + ([sums[2]] if any(n.name in COUNT_NEEDS for n in recorder.needs) else [])  # and SEs
+        read = {n.name for n in recorder.needs}  # T serves users' kernels' start only; n those and the errors
+        sums = [s.alias(weight, "_uv_wt")]
+        if "chunk" in read:
+            sums.append(s.alias(exp.Anonymous(this="fsum", expressions=[wx]), "_uv_tt"))
+        if "chunk" in read or read & set(COUNT_NEEDS):
+            sums.append(s.alias(s.agg_count_star(), "_uv_n"))
         totals = exp.Select(expressions=[s.col(k) for k in keys] + sums).from_(
             exp.Subquery(this=rows.copy(), alias=exp.TableAlias(this=exp.to_identifier("_uv_rows"))), copy=False)
         if keys:
