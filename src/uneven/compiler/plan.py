@@ -327,15 +327,12 @@ def stream_blocked(plan: PassPlan, scope: PlanScope) -> str | None:
             c.args.get("materialized") for c in scope.select.find_all(exp.CTE)):
         return "the rows are read once through a MATERIALIZED CTE, which a stream would read again"
     probe = getattr(scope.engine, "collated_keys", None)  # DuckDB's schema (the only engine that streams)
-    collated = probe(scope.select, scope.keys) if probe is not None and scope.keys else None
-    if collated is not None:
-        return (f"the group key {collated} compares text under a collation (GROUP BY merges strings the stream, "
-                "which compares bytes, would keep apart)")
-    design = [plan.options[k] for k in ("strata", "psu") if k in plan.options]
-    collated = probe(scope.select, design) if probe is not None and design else None
-    if collated is not None:  # the window plan groups the design's units with GROUP BY too
-        return (f"the survey design's column {collated} compares text under a collation (GROUP BY merges "
-                "strings the stream, which compares bytes, would keep apart)")
+    design = [plan.options[k] for k in ("strata", "psu") if k in plan.options]  # (grouped by GROUP BY too)
+    for columns, what in ((scope.keys, "the group key"), (design, "the survey design's column")):
+        collated = probe(scope.select, columns) if probe is not None and columns else None
+        if collated is not None:
+            return (f"{what} {collated} compares text under a collation (GROUP BY merges strings the stream, "
+                    "which compares bytes, would keep apart)")
     return None
 
 
