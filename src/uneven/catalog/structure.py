@@ -11,6 +11,7 @@ limits: between = Σ_g s_g ln(μ_g/μ) resp. Σ_g v_g ln(μ/μ_g).
 
 from __future__ import annotations
 
+from uneven.catalog import kernels_ranked as kr
 from uneven.catalog.spec import Measure, Param
 from uneven.reference import structure as rs
 from uneven.sqltree import build as s
@@ -117,22 +118,23 @@ MEASURES = [
     Measure("concentration", "ranked", (RANK_BY,), "weight",
             "Σ w y (2R − 1) / Σ w y, R the fractional rank of rank_by (mid-rank for ties)",
             lambda c, p: c.conc(1), rs.concentration, value="y", sort_arg=1,
-            domain="any y; NULL when Σ w y = 0"),
+            domain="any y; NULL when Σ w y = 0", stream=kr.concentration),
     Measure("concentration_wagstaff", "ranked", (RANK_BY, LO, HI), "weight",
             "C · (hi − lo) · μ / ((hi − μ)(μ − lo)) for y bounded in [lo, hi] (Wagstaff 2005)", build_wagstaff,
             rs.concentration_wagstaff, value="y", sort_arg=1, check=_bounds_check,
-            domain="lo ≤ y ≤ hi, lo < μ < hi"),
+            domain="lo ≤ y ≤ hi, lo < μ < hi", stream=kr.wagstaff),
     Measure("concentration_erreygers", "ranked", (RANK_BY, LO, HI), "weight",
             "4 · μ · C / (hi − lo) for y bounded in [lo, hi] (Erreygers 2009)", build_erreygers,
-            rs.concentration_erreygers, value="y", sort_arg=1, check=_bounds_check, domain="lo ≤ y ≤ hi"),
+            rs.concentration_erreygers, value="y", sort_arg=1, check=_bounds_check, domain="lo ≤ y ≤ hi",
+            stream=kr.erreygers),
     Measure("kakwani", "ranked", (Param("income", "column", "pre-tax income"),), "weight",
             "concentration(tax, income) − gini(income): > 0 progressive, < 0 regressive",
             lambda c, p: s.sub(c.conc(1), c.conc(0, gini=True)), rs.kakwani, value="tax", sort_arg=1,
-            domain="NULL when Σ w tax = 0 or Σ w income ≤ 0"),
+            domain="NULL when Σ w tax = 0 or Σ w income ≤ 0", stream=kr.kakwani),
     Measure("reynolds_smolensky", "ranked", (Param("post", "column", "post-tax income"),), "weight",
             "gini(pre) − concentration(post, pre): > 0 the tax reduces inequality",
             lambda c, p: s.sub(c.conc(0, gini=True), c.conc(1)), rs.reynolds_smolensky, value="pre", sort_arg=0,
-            domain="NULL when Σ w pre ≤ 0 or Σ w post = 0"),
+            domain="NULL when Σ w pre ≤ 0 or Σ w post = 0", stream=kr.reynolds_smolensky),
     Measure("gini_diff", "paired", (Param("x2", "column", "the second value of the same rows"),), "weight",
             "gini(x1) − gini(x2) over the rows where both are present", lambda c, p: c.diff, rs.gini_diff,
             value="x1", domain="NULL when either total ≤ 0"),

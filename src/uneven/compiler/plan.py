@@ -14,6 +14,7 @@ from uneven.compiler import clauses
 from uneven.compiler.calls import MeasureCall
 from uneven.compiler.context import CompileOptions, EngineSchema, text
 from uneven.compiler.direct import direct_blocked, summary_direct_blocked
+from uneven.compiler.passes import stream_ranked
 from uneven.compiler.passes.linearized import can_share
 from uneven.compiler.passes.refine import refinable
 
@@ -226,7 +227,8 @@ def route_stream(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
     "auto" takes it where it is measured to be cheaper (``stream_pays``). Otherwise the pass keeps the
     window plan, and ``order_reason`` says why."""
     for plan in plans:
-        if plan.kind not in (PassKind.ORDERED, PassKind.LINEARIZED) or plan.columns:
+        if plan.kind not in (PassKind.ORDERED, PassKind.LINEARIZED, PassKind.RANKED) or (
+                plan.columns and plan.kind != PassKind.RANKED):
             continue
         if plan.options and (plan.kind != PassKind.LINEARIZED or not DESIGN_STREAMS):  # (DESIGN_STREAMS below)
             if plan.kind == PassKind.LINEARIZED and scope.options.ordered == "stream" and scope.options.stream:
@@ -244,10 +246,11 @@ def route_stream(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
             plan.order_reason = f"window plan: {blocking}" + (" (stream plan requested)"
                                                               if scope.options.ordered == "stream" else "")
             continue
-        plan.kind, plan.variant = PassKind.STREAM, "stream"
-        plan.order_reason = ("stream plan: DuckDB sorts the rows by (keys, value), numpy carries each group's "
-                             "running weight across the batches" + ("" if scope.options.ordered == "stream"
-                                                                    else f"; {STREAM_PAYS}"))
+        ranked = plan.kind == PassKind.RANKED
+        plan.kind, plan.variant = PassKind.STREAM, stream_ranked.VARIANT if ranked else "stream"
+        plan.order_reason = (stream_ranked.REASON if ranked else "stream plan: DuckDB sorts the rows by (keys, "
+                             "value), numpy carries each group's running weight across the batches") + (
+            "" if scope.options.ordered == "stream" else f"; {RANKED_PAYS if ranked else STREAM_PAYS}")
         if plan.options:
             plan.order_reason += "; " + design_reason(plan)
     return plans
@@ -280,6 +283,10 @@ def design_reason(plan: PassPlan) -> str:
     parts = [k for k in ("strata", "psu") if k in plan.options]
     return ("the survey design (" + ", ".join(parts) + ") is carried per group as sums of the score's terms per "
             + " and ".join({"strata": "stratum", "psu": "PSU"}[k] for k in parts))
+# The ranked pass (concentration indices, Kakwani, Reynolds–Smolensky: passes/stream_ranked.py) streams
+# under "auto" where measured cheaper than its window plan (bench/README.md, "Stream plan: the ranked pass").
+RANKED_STREAMS = False
+RANKED_PAYS = "auto streams the ranked pass (bench/README.md, \"Stream plan: the ranked pass\")"
 STREAM_PAYS = "auto streams a pass whose measures need the full order (bench/README.md, \"Stream plan\")"
 
 
@@ -291,6 +298,8 @@ def _has_curve(plan: PassPlan) -> bool:
 
 
 def stream_pays(plan: PassPlan, scope: PlanScope) -> bool:
+    if plan.kind == PassKind.RANKED:
+        return RANKED_STREAMS
     if plan.kind == PassKind.LINEARIZED:  # the window plan's linearized pass has no ties variant: no probe
         return LINEARIZED_STREAMS and any(refinable(c) for c in plan.calls)
     if scope.options.tie_grouping == "on" or not any(refinable(c) for c in plan.calls):

@@ -29,6 +29,7 @@ from uneven.compiler.pipeline import compile_with_context
 from uneven.engine.columns import DuckDBSchema
 from uneven.engine.prefetch import prefetched
 from uneven.engine.runner import execute_df, translate_error
+from uneven.engine.streamranked import RankedState
 from uneven.engine.streamsums import GroupValues, StreamState, key_changes, same_keys
 from uneven.errors import ExecutionError
 
@@ -83,7 +84,8 @@ def run_job(con: duckdb.DuckDBPyConnection, job: StreamJob, batch_rows: int | No
 def _run_job(con: duckdb.DuckDBPyConnection, job: StreamJob, batch_rows: int | None, rows_sql: str,
              totals_sql: str, checked: bool) -> pa.Table:
     batch_rows = batch_rows or BATCH_ROWS
-    state = StreamState(job.needs, job.weighted)
+    state: StreamState | RankedState = (RankedState(job.ranked, job.weighted) if job.ranked
+                                        else StreamState(job.needs, job.weighted))
     kept = KeptGroups(job.keys, job.weighted) if job.keeps_groups else None
     totals_keys = None
     con.abort()  # a result the caller left unfinished would refuse con.sql (con.execute drops it too)

@@ -37,6 +37,7 @@ from sqlglot import exp
 from uneven.catalog.design_kernels import stream_kernel
 from uneven.catalog.kernels import COUNT_NEEDS, TOTAL_NEEDS, Need, Recorder
 from uneven.catalog.spec import PassKind
+from uneven.compiler.passes import stream_ranked
 from uneven.compiler.passes.source import (
     Source,
     checked_rows,
@@ -62,6 +63,7 @@ class StreamJob:
     kept_totals: list[str] = field(default_factory=list)  # totals columns the result table keeps (stream_line.py)
     fast_rows_sql: str = ""  # rows and totals with the input checks left to numpy (passes/stream_checks.py)
     fast_totals_sql: str = ""
+    ranked: int = 0  # a ranked pass's job: its number of value columns (engine/streamranked.py)
 
 
 def _ordered(select: exp.Select, columns: list[str]) -> exp.Select:
@@ -70,6 +72,8 @@ def _ordered(select: exp.Select, columns: list[str]) -> exp.Select:
 
 
 def lower_stream_pass(source: Source, plan, name: str) -> tuple[list[exp.CTE], dict]:
+    if plan.variant == stream_ranked.VARIANT:
+        return lower_ranked(source, plan, name)
     x, w, condition = plan.x, plan.trailing, plan.condition
     keys = [key_name(i) for i in range(len(source.keys))]
     proj, cond = checked_rows(source, x, w, condition)
@@ -118,6 +122,21 @@ def lower_stream_pass(source: Source, plan, name: str) -> tuple[list[exp.CTE], d
     plan.job = StreamJob(name, keys, w is not None, rows, totals, columns, recorder.needs,
                          keeps_groups=plan.direct and bool(keys))
     return lower_line_stage(source, plan, name, plan.job, results), results
+
+
+def lower_ranked(source: Source, plan, name: str) -> tuple[list[exp.CTE], dict]:
+    """A ranked pass's job (passes/stream_ranked.py): the rows sorted by (keys, ranking value), no totals."""
+    keys = [key_name(i) for i in range(len(source.keys))]
+    proj, cond, kept, counted = stream_ranked.ranked_rows(source, plan)
+    rows = source.rows(direct_projections(proj, kept, counted)) if plan.direct and keys else source.rows(proj, cond)
+    _ordered(rows, keys + ["_uv_x"])
+    with_ = source.select.args.get("with_")
+    if with_ is not None:
+        rows.set("with_", with_.copy())
+    columns, results = stream_ranked.kernels(plan, name)
+    plan.job = StreamJob(name, keys, plan.trailing is not None, rows, None, columns,
+                         keeps_groups=plan.direct and bool(keys), ranked=stream_ranked.nvalues(plan))
+    return [], results
 
 
 def design_projections(options: dict) -> list[exp.Expression]:
