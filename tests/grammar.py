@@ -52,6 +52,8 @@ PARAMS = {
     "frac": ["0.6", "0.5", "0.4", "0.5 + 0.1", "CAST(0.6 AS DOUBLE)", "(0.7)", "1.2 / 2", "1"],
     "povalpha": ["0", "1", "2", "1 + 1", "CAST(2 AS DOUBLE)", "0.0", "2 - 1"],
     "line": ["15000", "25000.5", "42.5", "3", "1e4", "2000 + 500", "CAST(30000 AS DOUBLE)", "0.5 * 40000"],
+    # bounds of a bounded outcome (concentration_erreygers): wide, or cutting the values
+    "blo": ["-1e9", "0", "-1 * 1000"], "bhi": ["1e12", "50000", "CAST(1e9 AS DOUBLE)"],
 }
 # forms whose value depends on how constants are folded (integer division, casts to INTEGER), drawn by
 # default: compiled SQL and oracle agree on them since constants are evaluated the engine's way
@@ -76,6 +78,9 @@ MEASURES = [
     ("below_line_share", ["frac"], "weight"), ("median_gap", ["frac"], "weight"),
     ("fgt_relative", ["povalpha", "frac"], "weight"), ("fgt", ["povalpha", "line"], "weight"),
     ("wolfson", [], "weight"),
+    # the ranked pass: the column argument is a second value (the ranking variable, or income)
+    ("concentration", ["column"], "weight"), ("kakwani", ["column"], "weight"),
+    ("reynolds_smolensky", ["column"], "weight"), ("concentration_erreygers", ["column", "blo", "bhi"], "weight"),
 ]
 # standard errors, on with se_measures (UNEVEN_FUZZ_SE=1). Off by default for a known difference:
 # the reference raises (TypeError) instead of giving NULL where the Gini is undefined (all weights 0,
@@ -188,7 +193,7 @@ class Grammar:
                  wide_params: bool = False, se_measures: bool = False, max_measures: int = 3):
         self.rng = rng
         self.features = set(features)
-        self.params = {k: v + (WIDE_PARAMS[k] if wide_params else []) for k, v in PARAMS.items()}
+        self.params = {k: v + (WIDE_PARAMS.get(k, []) if wide_params else []) for k, v in PARAMS.items()}
         self.measures = MEASURES + (SE_MEASURES if se_measures else [])
         self.max_measures = max_measures
         self.subqueries = True  # off inside measure arguments and FILTER (refused there by name)
@@ -339,7 +344,7 @@ class Grammar:
         if kinds == ["hi", "lo"]:
             args += list(self.pick(RATIOS))
         else:
-            args += [self.pick(self.params[k]) for k in kinds]
+            args += [self.value_arg(dim) if k == "column" else self.pick(self.params[k]) for k in kinds]
         if self.chance(0.6):
             args.append(self.weight_arg(dim) if trailing == "weight" else self.entity_arg(dim))
         if name in SE_NAMES and self.chance(0.5):

@@ -237,3 +237,17 @@ def test_explain_and_compile():
     (window,) = uneven.explain(sql, con, ordered="window").passes
     assert window["kind"] == "ranked"
     assert uneven.compile(sql, ordered="stream") == uneven.compile(sql, ordered="window")
+
+
+def test_auto_streams_unless_the_ranking_value_has_few_distinct_values():
+    # plan.RANKED_STREAMS: the window plan sums each tie group first, so few distinct ranking values
+    # (the tie probe, integer types) keep it; a DOUBLE ranking value is not probed and streams
+    con = duckdb.connect()
+    con.execute("CREATE TABLE t AS SELECT i % 7 AS g, i % 5 AS few, i AS many, (i * 37 % 101)::DOUBLE + 0.5 AS y, (i % 3)::DOUBLE AS w, "
+                "i / 3.0 AS f FROM range(1, 400) t(i)")
+    for rank_by, kind, words in (("few", "ranked", "distinct ranking values"), ("many", "stream", "unless"),
+                                 ("f", "stream", "unless")):
+        sql = f"SELECT g, concentration(y, {rank_by}, w) AS c, kakwani(y, {rank_by}) AS k FROM t GROUP BY g ORDER BY g"
+        passes = uneven.explain(sql, con).passes
+        assert [p["kind"] for p in passes] == [kind, kind] and all(words in p["reason"] for p in passes), passes
+        assert_same_frames(uneven.query(sql, con), uneven.query(sql, con, ordered="window"))

@@ -284,9 +284,26 @@ def design_reason(plan: PassPlan) -> str:
     return ("the survey design (" + ", ".join(parts) + ") is carried per group as sums of the score's terms per "
             + " and ".join({"strata": "stratum", "psu": "PSU"}[k] for k in parts))
 # The ranked pass (concentration indices, Kakwani, Reynolds–Smolensky: passes/stream_ranked.py) streams
-# under "auto" where measured cheaper than its window plan (bench/README.md, "Stream plan: the ranked pass").
-RANKED_STREAMS = False
-RANKED_PAYS = "auto streams the ranked pass (bench/README.md, \"Stream plan: the ranked pass\")"
+# under "auto" (bench/README.md, "Stream plan: the ranked pass"): 0.29-0.50x its window plan with a tie-free
+# ranking value (2M x 100, 5M x 1, 200k groups of 6 rows), but its window plan groups the tie groups before
+# its window, so with few distinct ranking values it sorts far fewer rows (20 values per group: the stream
+# 3.0-5.8x the window plan); with distinct (keys, value) pairs a quarter of the rows, 0.65-1.04x. So a
+# ranking value the tie probe finds at most TIE_SHARE distinct keeps the window plan (``ranked_ties``).
+RANKED_STREAMS = True
+RANKED_PAYS = ("auto streams the ranked pass unless the ranking value has few distinct values (bench/README.md, "
+               "\"Stream plan: the ranked pass\")")
+
+
+def ranked_ties(plan: PassPlan, scope: PlanScope) -> str | None:
+    """Why ``auto`` keeps a ranked pass on the window plan (few distinct ranking values), or None."""
+    if scope.engine is None or not scope.engine.probes_ties:
+        return None
+    found = probe_ties(plan, scope)
+    if found is None or not found[1] or found[0] / found[1] > TIE_SHARE:
+        return None
+    distinct, rows = found
+    return (f"window plan: about {distinct:,} distinct ranking values in {rows:,} rows ({distinct / rows:.0%}; "
+            f"its window runs over the tie groups, streamed above {TIE_SHARE:.0%})")
 STREAM_PAYS = "auto streams a pass whose measures need the full order (bench/README.md, \"Stream plan\")"
 
 
@@ -299,7 +316,8 @@ def _has_curve(plan: PassPlan) -> bool:
 
 def stream_pays(plan: PassPlan, scope: PlanScope) -> bool:
     if plan.kind == PassKind.RANKED:
-        return RANKED_STREAMS
+        plan.order_reason = ranked_ties(plan, scope) or ""
+        return RANKED_STREAMS and not plan.order_reason
     if plan.kind == PassKind.LINEARIZED:  # the window plan's linearized pass has no ties variant: no probe
         return LINEARIZED_STREAMS and any(refinable(c) for c in plan.calls)
     if scope.options.tie_grouping == "on" or not any(refinable(c) for c in plan.calls):
