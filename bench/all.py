@@ -29,6 +29,7 @@ FULL = [
     ["stream_line.py"],
     ["stream_design.py", "--repeat", "3"],
     ["stream_se.py", "--sizes", "2000000x100"],
+    ["stream_ranked.py"],
 ]
 def main(argv=None) -> int:
     argparse.ArgumentParser(description="Run every benchmark part in sequence, at full size.").parse_args(argv)
