@@ -284,10 +284,10 @@ def design_reason(plan: PassPlan) -> str:
     return ("the survey design (" + ", ".join(parts) + ") is carried per group as sums of the score's terms per "
             + " and ".join({"strata": "stratum", "psu": "PSU"}[k] for k in parts))
 # The ranked pass (concentration indices, Kakwani, Reynolds–Smolensky: passes/stream_ranked.py) streams
-# under "auto" (bench/README.md, "Stream plan: the ranked pass"): 0.29-0.50x its window plan with a tie-free
+# under "auto" (bench/README.md, "Stream plan: the ranked pass"): 0.29-0.58x its window plan with a tie-free
 # ranking value (2M x 100, 5M x 1, 200k groups of 6 rows), but its window plan groups the tie groups before
 # its window, so with few distinct ranking values it sorts far fewer rows (20 values per group: the stream
-# 3.0-5.8x the window plan); with distinct (keys, value) pairs a quarter of the rows, 0.65-1.04x. So a
+# 3.0-5.8x the window plan); with distinct (keys, value) pairs a quarter of the rows, 0.65-1.07x. So a
 # ranking value the tie probe finds at most TIE_SHARE distinct keeps the window plan (``ranked_ties``).
 RANKED_STREAMS = True
 RANKED_PAYS = ("auto streams the ranked pass unless the ranking value has few distinct values (bench/README.md, "
