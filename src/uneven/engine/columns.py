@@ -10,6 +10,7 @@ import duckdb
 from sqlglot import exp
 
 from uneven.compiler.emit import to_sql
+from uneven.engine.groups import duckdb_group_counts
 from uneven.engine.ties import duckdb_tie_counts
 from uneven.sqltree import build as s
 
@@ -127,3 +128,8 @@ class DuckDBSchema:
     def tie_counts(self, select: exp.Select, x: exp.Expression, condition: exp.Expression | None,
                    keys: list[exp.Expression]) -> tuple[int, int] | None:
         return duckdb_tie_counts(self.con, select, x, condition, keys) if self.probes_ties else None
+
+    def group_counts(self, select: exp.Select, keys: list[exp.Expression], x: exp.Expression,
+                     condition: exp.Expression | None) -> tuple[int, int] | None:
+        """(about how many groups, rows) of an ordered pass (compiler/group_sizes.py; engine/groups.py)."""
+        return duckdb_group_counts(self.con, select, keys, x, condition) if self.probes_ties else None
