@@ -73,6 +73,7 @@ def test_auto_streams_cut_measures_over_small_groups_and_refines_large_ones(monk
     # below PROBE_MIN_ROWS rows the plan is the one auto took without the probe
     assert [k for k, _ in _kinds(small, cuts)] == ["refine"]
     monkeypatch.setattr(group_sizes, "PROBE_MIN_ROWS", 0)
+    monkeypatch.setattr(group_sizes, "REFINE_MIN_ROWS", 64.0)  # between the two shapes: 3 and ~200 rows
     for sql in (cuts, errors):
         [(kind, reason)] = _kinds(small, sql)
         assert kind == "stream" and "rows on average" in reason, reason

@@ -19,8 +19,11 @@ from typing import Any
 from uneven.compiler.passes.refine import refinable
 
 # rows per group on average below which "auto" does not refine a cut-based pass (module constants: tests
-# may monkeypatch them)
-REFINE_MIN_ROWS = 64.0
+# may monkeypatch them). Measured on 1.2M rows (bench/stream_se.py, a shared machine): the stream took
+# 0.17-0.29x the refine plan's time at 25 rows per group, 0.26x and 0.20x at 100, 0.48x and 0.29x at 400,
+# 0.69x and 0.74x at 2000, 1.00x and 0.70x at 8000 (cut-based errors, then the measures themselves); at
+# 20,000 (2M x 100) 1.52x and 0.91x. The threshold sits where the errors still gain.
+REFINE_MIN_ROWS = 4000.0
 # below this many rows the plans differ by milliseconds: auto refines as it did without the probe
 PROBE_MIN_ROWS = 100_000
 
