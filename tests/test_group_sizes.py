@@ -79,6 +79,9 @@ def test_auto_streams_cut_measures_over_small_groups_and_refines_large_ones(monk
         assert kind == "stream" and "rows on average" in reason, reason
         assert [k for k, _ in _kinds(large, sql)] == ["refine"]
         assert [k for k, _ in _kinds(small, sql, ordered="refine")] == ["refine"]  # asked for: no probe
+    # where the stream is blocked (a subquery) the window plan serves them, and explain says both
+    [(kind, reason)] = _kinds(small, f"SELECT * FROM ({cuts}) q")
+    assert kind == "ordered" and "subquery" in reason and "not refined: about" in reason, reason
     # the threshold is a module constant: at 2 rows per group the small groups refine too
     monkeypatch.setattr(group_sizes, "REFINE_MIN_ROWS", 2.0)
     assert [k for k, _ in _kinds(small, cuts)] == ["refine"]

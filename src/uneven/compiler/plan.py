@@ -247,8 +247,10 @@ def route_stream(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
             continue
         blocking = stream_blocked(plan, scope)
         if blocking:
+            small = small_groups(plan, scope)  # (asked already by route_refine: the answer is kept)
             plan.order_reason = f"window plan: {blocking}" + (" (stream plan requested)"
-                                                              if scope.options.ordered == "stream" else "")
+                                                              if scope.options.ordered == "stream" else "") + (
+                f"; not refined: {small}" if small else "")
             continue
         plan.kind, plan.variant = PassKind.STREAM, "stream"
         plan.order_reason = ("stream plan: DuckDB sorts the rows by (keys, value), numpy carries each group's "
