@@ -37,7 +37,8 @@ _DIFFERENT_STRINGS = (("a", "A"), ("e", "\u00e9"), ("\u00e9", "e\u0301"), ("a", 
 class DuckDBSchema:
     """The compiler's ``EngineSchema`` on a DuckDB connection, for one compilation (its column
     answers are cached by SELECT node). ``types`` and ``ties`` turn those probes off for a caller
-    that compiles without them (the structure tables, the report)."""
+    that compiles without them (the structure tables, the report); ``ties`` the data scans: the tie
+    probe and the group-size probe."""
 
     def __init__(self, con: duckdb.DuckDBPyConnection, *, types: bool = True, ties: bool = True):
         self.con = con
