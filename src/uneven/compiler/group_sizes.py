@@ -34,7 +34,7 @@ def small_groups(plan: Any, scope: Any) -> str | None:
     The probe runs once per pass; its answer is kept on the pass (``plan.groups``)."""
     options = scope.options
     if (options.ordered != "auto" or not options.stream or not scope.keys or scope.engine is None
-            or any(refinable(c) for c in plan.calls)):
+            or plan.options or plan.columns or any(refinable(c) for c in plan.calls)):  # (never refined)
         return None
     if plan.groups is None:
         probe = getattr(scope.engine, "group_counts", None)  # DuckDB's schema (engine/columns.py)
