@@ -4,7 +4,8 @@ job (``engine/stream.run_job``) and the whole ``uneven.query``, alternating, med
     python bench/stream_parts.py --file F.parquet --measures ten
     PYTHONPATH=OLD/src python bench/stream_parts.py …        # the same on an earlier source tree
 
-``--measures``: one (gini(x, w)), u (gini(x)), ten (bench/stream.py's ten measures). Data: the Parquet
+``--measures``: one (gini(x, w)), u (gini(x)), ten (bench/stream.py's ten measures); ``--window`` adds
+the window plan's whole query, in the same loop. Data: the Parquet
 files bench/stream.py writes (grp, x, w). Run it on two source trees one after the other, or
 alternate the two processes, to compare revisions (bench/README.md, "Stream plan, speed round").
 """
@@ -24,6 +25,7 @@ def main() -> None:
     ap.add_argument("--file", required=True)
     ap.add_argument("--measures", choices=("one", "u", "ten"), default="one")
     ap.add_argument("--repeat", type=int, default=5)
+    ap.add_argument("--window", action="store_true", help="time the window plan's whole query too")
     a = ap.parse_args()
     sys.path.insert(0, str(Path(__file__).parent))
     import duckdb
@@ -61,6 +63,8 @@ def main() -> None:
         steps["totals (unchecked)"] = drain(job.fast_totals_sql)
     steps["job (run_job)"] = lambda: se.run_job(con, job)
     steps["query"] = lambda: uneven.query(query, con, ordered="stream")
+    if a.window:
+        steps["window plan (query)"] = lambda: uneven.query(query, con, ordered="window")
     times: dict[str, list[float]] = {k: [] for k in steps}
     for _ in range(a.repeat):
         for name, step in steps.items():

@@ -11,10 +11,13 @@ size). Each case in a fresh subprocess, 2 threads, memory_limit 1GB:
   sort                 SELECT max(x) FROM (SELECT grp, x, w FROM f ORDER BY grp, x)
   window_cut, refine_cut, stream_cut     lorenz_se(x, 0.4, w), top_share_se(x, 0.1, w), quantile_w_se(x, 0.5, w)
   window_mix, stream_mix                 gini_se(x, w), lorenz_se(x, 0.4, w)  (refine cannot serve the Gini)
+  window_cuts, refine_cuts, stream_cuts  top_share(x, 0.1, w), palma(x, w), s80s20(x, w), quantile_w(x, 0.5, w)
+  auto_cut, auto_cuts                    the same with ordered="auto" (the planner's choice, group-size probe included)
   window_all, stream_all                 the nine cut-based errors beside gini_se
 
-Prints the median per case, the ratios to the sort and between the plans, the largest relative
-difference between the plans' results, and the load average before and after.
+Cases run interleaved (each repeat runs every case once). Prints the median per case, the ratios to the
+sort and between the plans, the largest relative difference between the plans' results, and the load
+average before and after.
 """
 
 from __future__ import annotations
@@ -35,6 +38,7 @@ from stream import TEMP, make_data  # noqa: E402  (bench/stream.py: the same dat
 MEASURES = {
     "cut": "lorenz_se(x, 0.4, w), top_share_se(x, 0.1, w), quantile_w_se(x, 0.5, w)",
     "mix": "gini_se(x, w), lorenz_se(x, 0.4, w)",
+    "cuts": "top_share(x, 0.1, w), palma(x, w), s80s20(x, w), quantile_w(x, 0.5, w)",
     "all": ("gini_se(x, w), lorenz_se(x, 0.4, w), top_share_se(x, 0.1, w), generalized_lorenz_se(x, 0.5, w), "
             "palma_se(x, w), s80s20_se(x, w), quantile_w_se(x, 0.5, w), percentile_ratio_se(x, 0.9, 0.1, w), "
             "wolfson_se(x, w), bottom_share_se(x, 0.2, w)"),
@@ -97,17 +101,21 @@ def main() -> None:
     for size in a.sizes.split(","):
         rows, groups = (int(v) for v in size.split("x"))
         path = make_data(rows, groups, a.data)
-        res = {}
-        for case in a.cases.split(","):
-            runs = [run_case(case, path) for _ in range(a.repeat)]
-            res[case] = {"seconds": statistics.median(r["seconds"] for r in runs), "rows": runs[0]["rows"]}
-        print(f"\n{rows:,} rows x {groups:,} groups, {a.data} (median of {a.repeat})")
+        cases = a.cases.split(",")
+        every: dict[str, list] = {case: [] for case in cases}
+        for _ in range(a.repeat):  # interleaved: each repeat runs every case once
+            for case in cases:
+                every[case].append(run_case(case, path))
+        res = {case: {"seconds": statistics.median(r["seconds"] for r in runs), "rows": runs[0]["rows"]}
+               for case, runs in every.items()}
+        print(f"\n{rows:,} rows x {groups:,} groups, {a.data} (median of {a.repeat}, interleaved)")
         sort = res.get("sort", {}).get("seconds")
         for case, r in res.items():
             print(f"  {case:<11} {r['seconds']:7.3f} s" + (f"  {r['seconds'] / sort:5.2f}x sort" if sort else ""))
         for what in MEASURES:
             for x, y in ((f"stream_{what}", f"window_{what}"), (f"stream_{what}", f"refine_{what}"),
-                         (f"refine_{what}", f"window_{what}")):
+                         (f"refine_{what}", f"window_{what}"), (f"auto_{what}", f"window_{what}"),
+                         (f"auto_{what}", f"refine_{what}"), (f"auto_{what}", f"stream_{what}")):
                 if x in res and y in res:
                     print(f"  {x} / {y}: {res[x]['seconds'] / res[y]['seconds']:.2f}  "
                           f"(max relative difference {max_rel(res[x]['rows'], res[y]['rows']):.1e})")

@@ -14,6 +14,7 @@ from uneven.compiler import clauses
 from uneven.compiler.calls import MeasureCall
 from uneven.compiler.context import CompileOptions, EngineSchema, text
 from uneven.compiler.direct import direct_blocked, summary_direct_blocked
+from uneven.compiler.group_sizes import small_groups
 from uneven.compiler.passes import stream_ranked
 from uneven.compiler.passes.linearized import can_share
 from uneven.compiler.passes.refine import refinable
@@ -34,6 +35,7 @@ class PassPlan:
     probed: Any = None  # the tie probe's answer, once asked ((distinct, rows), or "unknown")
     job: Any = None  # the stream pass's job, set by its lowering (passes/stream.StreamJob)
     direct: bool = False  # stream or summary pass: the final SELECT reads its result alone (choose_*_form)
+    groups: Any = None  # the group-size probe's answer, once asked ((groups, rows), or "unknown": group_sizes.py)
 
 
 def plan_passes(calls: list[MeasureCall]) -> list[PassPlan]:
@@ -214,6 +216,10 @@ def route_refine(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
         if blocking:
             plan.order_reason = "window plan: " + ", ".join(blocking)
             continue
+        small = small_groups(plan, scope)  # auto: groups of a few rows stream instead (compiler/group_sizes.py)
+        if small:
+            plan.order_reason = "window plan: " + small
+            continue
         plan.kind, plan.variant = PassKind.REFINE, "refine"
         plan.order_reason = ("refine plan: every measure reads the order only at its cuts (bins, then a sort "
                              "of the rows in the cut bins only)")
@@ -243,14 +249,16 @@ def route_stream(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
             continue
         blocking = stream_blocked(plan, scope)
         if blocking:
+            small = small_groups(plan, scope)  # (asked already by route_refine: the answer is kept)
             plan.order_reason = f"window plan: {blocking}" + (" (stream plan requested)"
-                                                              if scope.options.ordered == "stream" else "")
+                                                              if scope.options.ordered == "stream" else "") + (
+                f"; not refined: {small}" if small else "")
             continue
         ranked = plan.kind == PassKind.RANKED
+        pays = "" if scope.options.ordered == "stream" else f"; {RANKED_PAYS if ranked else _pays_words(plan, scope)}"
         plan.kind, plan.variant = PassKind.STREAM, stream_ranked.VARIANT if ranked else "stream"
         plan.order_reason = (stream_ranked.REASON if ranked else "stream plan: DuckDB sorts the rows by (keys, "
-                             "value), numpy carries each group's running weight across the batches") + (
-            "" if scope.options.ordered == "stream" else f"; {RANKED_PAYS if ranked else STREAM_PAYS}")
+                             "value), numpy carries each group's running weight across the batches") + pays
         if plan.options:
             plan.order_reason += "; " + design_reason(plan)
     return plans
@@ -314,13 +322,20 @@ def _has_curve(plan: PassPlan) -> bool:
     return any(c.measure.name == "lorenz_curve" for c in plan.calls)
 
 
+def _pays_words(plan: PassPlan, scope: PlanScope) -> str:
+    small = small_groups(plan, scope)
+    return f"auto streams cut-based measures over small groups: {small}" if small else STREAM_PAYS
+
+
 def stream_pays(plan: PassPlan, scope: PlanScope) -> bool:
     if plan.kind == PassKind.RANKED:
         plan.order_reason = ranked_ties(plan, scope) or ""
         return RANKED_STREAMS and not plan.order_reason
+    # a pass the refine plan could serve streams only over small groups (compiler/group_sizes.py)
+    order_wanted = any(refinable(c) for c in plan.calls) or small_groups(plan, scope) is not None
     if plan.kind == PassKind.LINEARIZED:  # the window plan's linearized pass has no ties variant: no probe
-        return LINEARIZED_STREAMS and any(refinable(c) for c in plan.calls)
-    if scope.options.tie_grouping == "on" or not any(refinable(c) for c in plan.calls):
+        return LINEARIZED_STREAMS and order_wanted
+    if scope.options.tie_grouping == "on" or not order_wanted:
         return False
     if scope.options.tie_grouping == "auto" and scope.engine is not None and scope.engine.probes_ties:
         found = probe_ties(plan, scope)  # few distinct values: the window plan's ties variant sorts far fewer rows

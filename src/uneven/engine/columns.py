@@ -10,6 +10,7 @@ import duckdb
 from sqlglot import exp
 
 from uneven.compiler.emit import to_sql
+from uneven.engine.groups import duckdb_group_counts
 from uneven.engine.ties import duckdb_tie_counts
 from uneven.sqltree import build as s
 
@@ -36,7 +37,8 @@ _DIFFERENT_STRINGS = (("a", "A"), ("e", "\u00e9"), ("\u00e9", "e\u0301"), ("a", 
 class DuckDBSchema:
     """The compiler's ``EngineSchema`` on a DuckDB connection, for one compilation (its column
     answers are cached by SELECT node). ``types`` and ``ties`` turn those probes off for a caller
-    that compiles without them (the structure tables, the report)."""
+    that compiles without them (the structure tables, the report); ``ties`` the data scans: the tie
+    probe and the group-size probe."""
 
     def __init__(self, con: duckdb.DuckDBPyConnection, *, types: bool = True, ties: bool = True):
         self.con = con
@@ -127,3 +129,8 @@ class DuckDBSchema:
     def tie_counts(self, select: exp.Select, x: exp.Expression, condition: exp.Expression | None,
                    keys: list[exp.Expression]) -> tuple[int, int] | None:
         return duckdb_tie_counts(self.con, select, x, condition, keys) if self.probes_ties else None
+
+    def group_counts(self, select: exp.Select, keys: list[exp.Expression], x: exp.Expression,
+                     condition: exp.Expression | None) -> tuple[int, int] | None:
+        """(about how many groups, rows) of an ordered pass (compiler/group_sizes.py; engine/groups.py)."""
+        return duckdb_group_counts(self.con, select, keys, x, condition) if self.probes_ties else None

@@ -14,6 +14,7 @@ sums of a group of large nearly equal values keep their digits; T = m·W + Σ w�
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass, field
 from typing import Any
@@ -66,8 +67,8 @@ class GroupValues:
     def n(self):
         return self._get(Need("n"))
 
-    @property
-    def T(self):
+    @functools.cached_property
+    def T(self):  # (once: several kernels read it)
         with np.errstate(over="ignore", invalid="ignore"):
             t = self.m * self.W + self._get(Need("gini_b"))
         return np.where(np.isfinite(t), t, np.nan)
@@ -75,13 +76,17 @@ class GroupValues:
     @property
     def gini_ratio(self):
         """(num / W) / T: divided by W, then by T, as the window plan does (W·T may overflow where
-        the ratio does not); the form on x·2⁻⁵¹² where the plain one is not finite."""
+        the ratio does not); the form on x·2⁻⁵¹² where the plain one is not finite (those groups only)."""
         W = self.W
         with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
             plain = (self._get(Need("gini_a")) - W * self._get(Need("gini_b"))) / W / self.T
-            t_s = self.m * SCALE * W + self._get(Need("gini_b_s"))
-            scaled = (self._get(Need("gini_a_s")) - W * self._get(Need("gini_b_s"))) / W / t_s
-        return np.where(np.isfinite(plain), plain, scaled)
+            bad = ~np.isfinite(plain)
+            if not bad.any():
+                return plain
+            Wb = W[bad]
+            t_s = self.m[bad] * SCALE * Wb + self._get(Need("gini_b_s"))[bad]
+            plain[bad] = (self._get(Need("gini_a_s"))[bad] - Wb * self._get(Need("gini_b_s"))[bad]) / Wb / t_s
+        return plain
 
     def below(self, p: float):
         return self._get(Need("below", float(p)))
