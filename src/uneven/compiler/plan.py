@@ -292,7 +292,8 @@ def _has_curve(plan: PassPlan) -> bool:
 
 def stream_pays(plan: PassPlan, scope: PlanScope) -> bool:
     if plan.kind == PassKind.LINEARIZED:  # the window plan's linearized pass has no ties variant: no probe
-        return LINEARIZED_STREAMS and any(refinable(c) for c in plan.calls)
+        # (with a survey design the refine plan cannot take the cut-based errors: they stream, DESIGN_STREAMS)
+        return LINEARIZED_STREAMS and (bool(plan.options) and DESIGN_STREAMS or any(refinable(c) for c in plan.calls))
     if scope.options.tie_grouping == "on" or not any(refinable(c) for c in plan.calls):
         return False
     if scope.options.tie_grouping == "auto" and scope.engine is not None and scope.engine.probes_ties:
