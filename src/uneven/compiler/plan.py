@@ -271,7 +271,9 @@ def route_stream(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
 # (two runs); over 200k groups of 6 rows 0.85-1.13x alone and 1.00x the three beside a Gini.
 LINEARIZED_STREAMS = True
 # A linearized pass with a survey design (strata :=, psu :=) streams too: the stream carries each
-# group's sums per (stratum, PSU) (engine/streamdesign.py); measured in bench/README.md, "Stream plan".
+# group's sums per (stratum, PSU) (engine/streamdesign.py; the cut-based errors' terms:
+# engine/streamdesign_cuts.py), which the refine plan cannot; measured in bench/README.md, "Stream plan,
+# survey designs".
 DESIGN_STREAMS = True
 
 

@@ -166,7 +166,8 @@ class DesignSums:
 
     def feed(self, t: np.ndarray, c: np.ndarray, m: np.ndarray, seg: np.ndarray, columns: dict[str, pa.Array],
              continues: bool) -> np.ndarray:
-        """``t`` the row terms (rows, 3), ``c`` the running weight, ``m`` each segment's smallest value."""
+        """``t`` the row terms (rows, 3 for the Gini's), ``c`` the running weight, ``m`` each segment's
+        smallest value."""
         n, nseg = len(t), len(seg)
         lens = np.diff(np.append(seg, n))
         g = np.repeat(np.arange(nseg), lens)

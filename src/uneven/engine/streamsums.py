@@ -370,10 +370,8 @@ class StreamState:
         if designed:  # the cut-based errors' terms per (stratum, PSU), their scores at each group's end
             assert self.totals is not None  # the cuts read W (kernels.TOTAL_NEEDS)
             acc = GroupValues({k: _with_carried(k, v, carried) for k, v in out.items()}, m_seg)
-            for need in designed:
-                out.update(streamdesign_cuts.segment_values(need, acc, x, d, w, c, seg, m_seg, self.totals[gidx],
-                                                            carried, self.designs, self.design_columns,
-                                                            segmented_prefix, shared))
+            out.update(streamdesign_cuts.segment_values(designed, acc, x, d, w, c, seg, m_seg, self.totals[gidx],
+                                                        carried, self.designs, self.design_columns, segmented_prefix))
         return out
 
     def _chunks(self, need: Need, x, w, c, seg, gidx, carried) -> np.ndarray:
