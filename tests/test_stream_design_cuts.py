@@ -157,8 +157,10 @@ def test_every_error_matches_the_window_plan(survey, batch):
 def test_joined_form_filter_having_and_expressions(survey, batch):
     # count(*) beside the measures: the stream's table joins the main GROUP BY on the keys; a FILTER,
     # HAVING and expressions of the results work on it as on the window plan's CTE
+    # (gini_se beside lorenz_se on one pass: the Gini's design state and the cut-based errors' side by side)
     sql = ("SELECT a, count(*) AS n, round(lorenz_se(x, 0.4, w, strata := h, psu := c) FILTER (WHERE b = 'n'), 9) "
-           "AS l, palma_ci_hi(x, w, psu := c) - palma(x, w) AS half FROM t GROUP BY a "
+           "AS l, gini_se(x, w, strata := h, psu := c) FILTER (WHERE b = 'n') AS g, "
+           "palma_ci_hi(x, w, psu := c) - palma(x, w) AS half FROM t GROUP BY a "
            "HAVING quantile_w_se(x, 0.5, w, strata := h) > 0 ORDER BY a")
     found = uneven.explain(sql, survey, ordered="stream")
     assert [p["kind"] for p in found.passes].count("stream") == 3, found.passes

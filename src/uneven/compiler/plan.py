@@ -220,7 +220,7 @@ def route_refine(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
 
 
 def route_stream(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
-    """Turn an ordered pass, or a linearized pass without a survey design, into a stream pass
+    """Turn an ordered pass, or a linearized pass (with a survey design too), into a stream pass
     (compiler/passes/stream.py: DuckDB sorts, numpy reduces) where uneven runs the query on DuckDB
     itself (``scope.options.stream``) and every call on the pass has a kernel. "stream" asks for it;
     "auto" takes it where it is measured to be cheaper (``stream_pays``). Otherwise the pass keeps the
