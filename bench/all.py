@@ -28,6 +28,7 @@ FULL = [
     ["stream.py", "--sizes", "20000000x1000,100000000x1"],
     ["stream_line.py"],
     ["stream_design.py", "--repeat", "3"],
+    ["stream_design.py", "--measures", "cuts", "--repeat", "3"],
     ["stream_se.py", "--sizes", "2000000x100"],
     ["stream_ranked.py"],
 ]

@@ -3,6 +3,7 @@ DuckDB's own sort of the same columns (docs/plans.md, "A survey design on the st
 
     python bench/stream_design.py                          # 2M rows x 100 groups, 50 strata x 20 PSUs
     python bench/stream_design.py --rows 20000000 --groups 1000 --repeat 3
+    python bench/stream_design.py --measures cuts          # the cut-based errors instead of the Gini's
 
 Data (fixed seed, written once to a Parquet file under the temp directory): lognormal values,
 uniform float weights, group ids drawn uniformly, a stratum 0 … STRATA−1 and a PSU 0 … PSUS−1 within
@@ -11,6 +12,8 @@ Cases, in one process, 2 threads, memory_limit 1GB, alternating, the median of -
 
   sort       SELECT max(w) FROM (SELECT grp, x, w, h, c FROM f ORDER BY grp, x)     (DuckDB's sort)
   window     SELECT grp, gini(x, w), gini_se(x, w, strata := h, psu := c) … ordered="window"
+             (--measures cuts: lorenz(x, 0.4, w), lorenz_se(x, 0.4, w, …), palma_se(x, w, …),
+             quantile_w_se(x, 0.5, w, …): the cut-based errors, docs/plans.md)
   stream     the same, ordered="stream"
   window_h, stream_h   strata only (every row its own unit)
   window_c, stream_c   PSUs only (one stratum)
@@ -30,6 +33,9 @@ import time
 from pathlib import Path
 
 DESIGNS = {"": ", strata := h, psu := c", "_h": ", strata := h", "_c": ", psu := c", "_0": ""}
+MEASURES = {"gini": "gini(x, w) AS g, gini_se(x, w{d}) AS se",
+            "cuts": "lorenz(x, 0.4, w) AS g, lorenz_se(x, 0.4, w{d}) AS se, palma_se(x, w{d}) AS pa, "
+                    "quantile_w_se(x, 0.5, w{d}) AS q"}
 
 
 def make_data(rows: int, groups: int, strata: int, psus: int) -> Path:
@@ -46,13 +52,13 @@ def make_data(rows: int, groups: int, strata: int, psus: int) -> Path:
     return path
 
 
-def run(con, case: str):
+def run(con, case: str, measures: str = "gini"):
     import uneven
     if case == "sort":
         return con.execute("SELECT max(w) FROM (SELECT grp, x, w, h, c FROM f ORDER BY grp, x)").fetchall()
     plan, _, suffix = case.partition("_")
-    sql = f"SELECT grp, gini(x, w) AS g, gini_se(x, w{DESIGNS['_' + suffix if suffix else '']}) AS se " \
-          "FROM f GROUP BY grp ORDER BY grp"
+    calls = MEASURES[measures].format(d=DESIGNS['_' + suffix if suffix else ''])
+    sql = f"SELECT grp, {calls} FROM f GROUP BY grp ORDER BY grp"
     return uneven.query(sql, con, ordered=plan)
 
 
@@ -63,12 +69,13 @@ def main() -> None:
     ap.add_argument("--strata", type=int, default=50)
     ap.add_argument("--psus", type=int, default=20)
     ap.add_argument("--repeat", type=int, default=3)
+    ap.add_argument("--measures", choices=sorted(MEASURES), default="gini")
     ap.add_argument("--cases", default="sort,window,stream,window_h,stream_h,window_c,stream_c,window_0,stream_0")
     a = ap.parse_args()
     import duckdb
     path = make_data(a.rows, a.groups, a.strata, a.psus)
     print(f"load average {os.getloadavg()[0]:.2f} {os.getloadavg()[1]:.2f}; {a.rows} rows x {a.groups} groups, "
-          f"{a.strata} strata x {a.psus} PSUs")
+          f"{a.strata} strata x {a.psus} PSUs; {MEASURES[a.measures].format(d=', <design>')}")
     con = duckdb.connect()
     con.execute("SET threads = 2")
     con.execute("SET memory_limit = '1GB'")
@@ -79,7 +86,7 @@ def main() -> None:
     for _ in range(a.repeat):
         for case in cases:
             start = time.perf_counter()
-            results[case] = run(con, case)
+            results[case] = run(con, case, a.measures)
             times[case].append(time.perf_counter() - start)
     med = {c: statistics.median(v) for c, v in times.items()}
     for case in cases:
@@ -94,7 +101,7 @@ def main() -> None:
 def _max_rel(a, b) -> float:
     import numpy as np
     worst = 0.0
-    for col in ("g", "se"):
+    for col in [c for c in b.columns if c != "grp"]:
         x, y = a[col].to_numpy(dtype=float), b[col].to_numpy(dtype=float)
         assert (np.isnan(x) == np.isnan(y)).all()
         ok = ~np.isnan(y)

@@ -16,6 +16,7 @@ from __future__ import annotations
 from collections.abc import Callable
 
 from uneven.catalog import kernels, kernels_se
+from uneven.catalog.design_kernels_cuts import DESIGN_CUT_KERNELS
 
 
 def gini_se(acc, params):
@@ -31,7 +32,8 @@ def gini_ci_hi(acc, params):
     return kernels_se.output("hi", kernels.gini(acc, ()), gini_se(acc, params), params[-1])
 
 
-DESIGN_KERNELS: dict[str, Callable] = {"gini_se": gini_se, "gini_ci_lo": gini_ci_lo, "gini_ci_hi": gini_ci_hi}
+DESIGN_KERNELS: dict[str, Callable] = {"gini_se": gini_se, "gini_ci_lo": gini_ci_lo, "gini_ci_hi": gini_ci_hi,
+                                       **DESIGN_CUT_KERNELS}  # (the cut-based errors: design_kernels_cuts.py)
 
 
 def stream_kernel(measure, designed: bool) -> Callable | None:

@@ -32,9 +32,9 @@ from typing import Any
 import numpy as np
 
 # quantities that need the group's totals beforehand
-TOTAL_NEEDS = ("below", "above", "quantile", "chunk", "curve", "se_moments", "qband", "gini_design")
+TOTAL_NEEDS = ("below", "above", "quantile", "chunk", "curve", "se_moments", "qband", "gini_design", "se_design")
 # the needs that read the group's row count from the totals too (the cut-based errors: engine/streamse.py)
-COUNT_NEEDS = ("se_moments", "qband")
+COUNT_NEEDS = ("se_moments", "qband", "se_design")
 
 
 @dataclass(frozen=True)

@@ -227,7 +227,7 @@ def route_refine(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
 
 
 def route_stream(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
-    """Turn an ordered pass, or a linearized pass without a survey design, into a stream pass
+    """Turn an ordered pass, or a linearized pass (with a survey design too), into a stream pass
     (compiler/passes/stream.py: DuckDB sorts, numpy reduces) where uneven runs the query on DuckDB
     itself (``scope.options.stream``) and every call on the pass has a kernel. "stream" asks for it;
     "auto" takes it where it is measured to be cheaper (``stream_pays``). Otherwise the pass keeps the
@@ -282,7 +282,9 @@ def route_stream(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
 # (two runs); over 200k groups of 6 rows 0.85-1.13x alone and 1.00x the three beside a Gini.
 LINEARIZED_STREAMS = True
 # A linearized pass with a survey design (strata :=, psu :=) streams too: the stream carries each
-# group's sums per (stratum, PSU) (engine/streamdesign.py); measured in bench/README.md, "Stream plan".
+# group's sums per (stratum, PSU) (engine/streamdesign.py; the cut-based errors' terms:
+# engine/streamdesign_cuts.py), which the refine plan cannot; measured in bench/README.md, "Stream plan,
+# survey designs".
 DESIGN_STREAMS = True
 
 
@@ -334,7 +336,8 @@ def stream_pays(plan: PassPlan, scope: PlanScope) -> bool:
     # a pass the refine plan could serve streams only over small groups (compiler/group_sizes.py)
     order_wanted = any(refinable(c) for c in plan.calls) or small_groups(plan, scope) is not None
     if plan.kind == PassKind.LINEARIZED:  # the window plan's linearized pass has no ties variant: no probe
-        return LINEARIZED_STREAMS and order_wanted
+        # (with a survey design the refine plan cannot take the cut-based errors: they stream, DESIGN_STREAMS)
+        return LINEARIZED_STREAMS and (bool(plan.options) and DESIGN_STREAMS or order_wanted)
     if scope.options.tie_grouping == "on" or not order_wanted:
         return False
     if scope.options.tie_grouping == "auto" and scope.engine is not None and scope.engine.probes_ties:

@@ -166,7 +166,8 @@ class DesignSums:
 
     def feed(self, t: np.ndarray, c: np.ndarray, m: np.ndarray, seg: np.ndarray, columns: dict[str, pa.Array],
              continues: bool) -> np.ndarray:
-        """``t`` the row terms (rows, 3), ``c`` the running weight, ``m`` each segment's smallest value."""
+        """``t`` the row terms (rows, 3 for the Gini's), ``c`` the running weight, ``m`` each segment's
+        smallest value."""
         n, nseg = len(t), len(seg)
         lens = np.diff(np.append(seg, n))
         g = np.repeat(np.arange(nseg), lens)
@@ -176,11 +177,8 @@ class DesignSums:
             parts: tuple = (g_c, h_c, p_c, cell_sums(cell, t, len(g_c)))
         else:
             parts = self._row_moments(g, h, t)
-        sums = np.stack([np.add.reduceat(t[:, 1] * (2.0 * c - t[:, 2]), seg), np.add.reduceat(t[:, 1], seg),
-                         c[np.append(seg[1:], n) - 1], m], axis=1)
-        if continues:  # the open group goes on: its cells join its parts, its sums add up
-            sums[0, :2] += self.sums[:2]
-        else:
+        sums = self._group_sums(t, c, m, seg, continues)
+        if not continues:
             self._reset()
         out = np.full((nseg, self.width), np.nan)
         if continues:
@@ -202,6 +200,17 @@ class DesignSums:
         row = self._rows(self._finished(0), self.sums[None, :])[0]
         self._reset()
         return row
+
+    def _group_sums(self, t: np.ndarray, c: np.ndarray, m: np.ndarray, seg: np.ndarray,
+                    continues: bool) -> np.ndarray:
+        """Each segment's group sums that ``_rows`` reads (the Gini's coefficients: ``coefficients``), the
+        open group's so far added to the first segment's when it goes on."""
+        ends = np.append(seg[1:], len(t)) - 1
+        sums = np.stack([np.add.reduceat(t[:, 1] * (2.0 * c - t[:, 2]), seg), np.add.reduceat(t[:, 1], seg),
+                         c[ends], m], axis=1)
+        if continues:  # the open group goes on: its cells join its parts, its sums add up
+            sums[0, :2] += self.sums[:2]
+        return sums
 
     # --- parts ------------------------------------------------------------------------------------
 
@@ -258,13 +267,17 @@ class DesignSums:
         self.parts, self.size, self.merged_size = [], 0, 0
         self.sums = np.zeros(GROUP_SUMS)
 
+    def _coefficients(self, sums: np.ndarray) -> np.ndarray:
+        """(segments, terms): the score's coefficients from the segments' group sums (the Gini's)."""
+        return coefficients(sums)
+
     def _rows(self, cells: tuple | None, sums: np.ndarray) -> np.ndarray:
         """[fewest, v] per segment of ``cells`` (segment, stratum, psu, sums) or (segment, stratum, n,
         means, centred cross sums), with ``sums`` each segment's group sums (``coefficients``)."""
         groups = len(sums)
         if cells is None or len(cells[0]) == 0:
             return np.full((groups, self.width), np.nan)
-        coef = coefficients(sums)
+        coef = self._coefficients(sums)
         if len(cells) == 4:  # complete PSU totals: each PSU's score total U first, a unit of count 1
             g_c, h_c, _, totals = cells
             units = len(g_c)

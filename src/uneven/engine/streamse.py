@@ -86,7 +86,8 @@ def _moments(need: Need, x, d, w, c, seg, lens, wt_row, carried, prefix: Callabl
     rows[:, 0] = lens
     for j, (kind, p) in enumerate(terms):
         if (kind, p) not in cache:  # a term's column is the same for every error of the batch
-            col, extra = _term(kind, p, x, d, ww, c, seg, lens, wt_row, carried, q_key, s_key, prefix, quantiles)
+            col, extra = term_column(kind, p, x, d, ww, c, seg, lens, wt_row, carried, q_key, s_key, prefix,
+                                     quantiles)
             mean = np.add.reduceat(col, seg) / lens
             cache[(kind, p)] = (col - (mean[0] if nseg == 1 else np.repeat(mean, lens)), mean, extra)
         col, mean, extra = cache[(kind, p)]
@@ -109,7 +110,8 @@ def _moments(need: Need, x, d, w, c, seg, lens, wt_row, carried, prefix: Callabl
     return out
 
 
-def _term(kind: str, p: float, x, d, ww, c, seg, lens, wt_row, carried, q_key, s_key, prefix, quantiles) -> tuple:
+def term_column(kind: str, p: float, x, d, ww, c, seg, lens, wt_row, carried, q_key, s_key, prefix,
+                quantiles) -> tuple:
     """A row term's column, and what its group carries: Q_p found (qle), the segments' Σ w·d (rank)."""
     nseg = len(seg)
     if kind == "one":

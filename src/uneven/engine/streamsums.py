@@ -25,7 +25,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from uneven.catalog.kernels import Need
-from uneven.engine import streamcuts, streamse
+from uneven.engine import streamcuts, streamdesign_cuts, streamse
 from uneven.engine.streamdesign import DESIGN_COLUMNS, DesignSums
 
 # the quantities and how two partial values of one group combine (the earlier one first)
@@ -48,6 +48,7 @@ _KIND: dict[str, Any] = {"W": _LAST, "n": _SUM, "gini_a": _SUM, "gini_b": _SUM, 
          "quantile": _MIN, "xmax": _LAST, "m": _LAST, "chunk": _LAST, "curve": _SUM, "curve_a": _LAST,
          "gini_design": _LAST, "design_sd": _LAST}  # (gini_design: engine/streamdesign.py builds each row)
 _KIND.update(streamse.KINDS)  # the cut-based standard errors' sums
+_KIND.update(streamdesign_cuts.KINDS)  # … and with a survey design
 
 
 class GroupValues:
@@ -343,6 +344,8 @@ class StreamState:
                 assert self.totals is not None and self.totals_n is not None  # read with the totals first
                 out.update(streamse.segment_values(need, x, d, w, c, seg, self.totals[gidx], self.totals_n[gidx],
                                                    carried, segmented_prefix, shared))
+            elif need.name in streamdesign_cuts.NEEDS:  # (after the rest: their coefficients read it, below)
+                continue
             elif need.name == "gini_design":  # per (stratum, PSU) sums of the row terms: engine/streamdesign.py
                 sd_key = Need("design_sd")
                 assert self.totals is not None  # the rank term reads W (kernels.TOTAL_NEEDS)
@@ -368,6 +371,12 @@ class StreamState:
                     room = np.clip(c - (1.0 - p) * wt, 0.0, ww)
                 # Σ x·room = Σ d·room + m·Σ room: the large common part apart
                 out[need] = np.add.reduceat(room * d, seg) + m_seg * np.add.reduceat(room, seg)
+        designed = [need for need in self.needs if need.name in streamdesign_cuts.NEEDS]
+        if designed:  # the cut-based errors' terms per (stratum, PSU), their scores at each group's end
+            assert self.totals is not None  # the cuts read W (kernels.TOTAL_NEEDS)
+            acc = GroupValues({k: _with_carried(k, v, carried) for k, v in out.items()}, m_seg)
+            out.update(streamdesign_cuts.segment_values(designed, acc, x, d, w, c, seg, m_seg, self.totals[gidx],
+                                                        carried, self.designs, self.design_columns, segmented_prefix))
         return out
 
     def _chunks(self, need: Need, x, w, c, seg, gidx, carried) -> np.ndarray:
@@ -408,6 +417,16 @@ class StreamState:
         cat = {key: np.concatenate(parts) if parts else np.zeros(0) for key, parts in self.done.items()}
         m = cat.pop("m", np.zeros(0))
         return {need: cat.get(need, np.zeros(0)) for need in self.needs}, m
+
+
+def _with_carried(key: Need, values: np.ndarray, carried: dict | None) -> np.ndarray:
+    """A batch's per-segment quantity with the open group's part combined into its first segment (as
+    ``StreamState.feed`` combines them), leaving ``values`` as they are."""
+    if carried is None:
+        return values
+    out = values.copy()
+    out[0] = _combine(_KIND[key.name], carried[key], values[0])
+    return out
 
 
 def curve_contributions(k: int, d: np.ndarray, w: np.ndarray | None, c: np.ndarray, seg: np.ndarray,
