@@ -28,7 +28,7 @@ from uneven.engine.columns import DuckDBSchema
 from uneven.reference import se as RSE
 
 
-@pytest.fixture(params=[7, 97, None], ids=["batch7", "batch97", "whole"])
+@pytest.fixture(params=[7, None], ids=["batch7", "whole"])
 def batch(monkeypatch, request):
     if request.param:
         monkeypatch.setattr(stream_engine, "BATCH_ROWS", request.param)

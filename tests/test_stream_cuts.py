@@ -53,7 +53,7 @@ def numerics():
     return con, exact
 
 
-@pytest.fixture(params=[(3, False), (7, True), (None, False)], ids=["batch3", "batch7-reader", "whole"])
+@pytest.fixture(params=[(3, True), (None, False)], ids=["batch3-reader", "whole"])
 def batches(monkeypatch, request):
     rows, ahead = request.param
     if rows:

@@ -29,8 +29,7 @@ from uneven.reference import se as RSE
 DESIGNS = {"strata_psu": "strata := h, psu := c", "strata": "strata := h", "psu": "psu := c"}
 
 
-@pytest.fixture(params=[(3, False), (7, True), (7, False), (None, True)],
-                ids=["batch3", "batch7-reader", "batch7-serial", "whole-reader"])
+@pytest.fixture(params=[(3, True), (None, False)], ids=["batch3-reader", "whole-serial"])
 def batch(monkeypatch, request):
     rows, prefetch = request.param
     if rows:

@@ -28,8 +28,7 @@ from uneven.engine.columns import DuckDBSchema
 from uneven.reference import poverty as RP
 
 
-@pytest.fixture(params=[(3, False), (7, True), (7, False), (None, True)],
-                ids=["batch3", "batch7-reader", "batch7", "whole-reader"])
+@pytest.fixture(params=[(3, True), (None, False)], ids=["batch3-reader", "whole"])
 def batch(monkeypatch, request):
     rows, prefetch = request.param
     if rows:

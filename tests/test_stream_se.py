@@ -28,7 +28,7 @@ from test_numerics import DATA, rel
 from test_stream import assert_same_frames
 
 
-@pytest.fixture(params=[(3, False), (7, True), (None, False)], ids=["batch3", "batch7_reader_thread", "whole"])
+@pytest.fixture(params=[(3, True), (None, False)], ids=["batch3_reader_thread", "whole"])
 def batch(monkeypatch, request):
     rows, prefetch = request.param
     if rows:
