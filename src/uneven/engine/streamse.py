@@ -24,6 +24,7 @@ import numpy as np
 
 from uneven.catalog.kernels import Need
 from uneven.catalog.linearize import hall_sheather
+from uneven.engine import streamse_moment
 
 
 def merge_rows(a: np.ndarray, b: np.ndarray) -> np.ndarray:
@@ -49,12 +50,13 @@ def _carrier(need: Need, name: str) -> Need:
 
 def segment_values(need: Need, x: np.ndarray, d: np.ndarray, w: np.ndarray | None, c: np.ndarray,
                    seg: np.ndarray, wt: np.ndarray, nt: np.ndarray, carried: dict | None,
-                   prefix: Callable, cache: dict) -> dict:
+                   prefix: Callable, cache: dict, tt: np.ndarray | None = None) -> dict:
     """The need's value per segment (and its carriers), ``wt`` and ``nt`` each segment's group weight
     and row count from the totals query, ``carried`` the open group's values (its first segment);
     ``prefix(v, lens)`` the compensated running sums restarted per segment (streamsums.segmented_prefix);
     ``cache`` one dict per batch, shared by the batch's needs: a term's centred column and a pair's cross
-    sums are computed once however many errors read them."""
+    sums are computed once however many errors read them; ``tt`` each segment's Σ w·x from the totals
+    query, where a moment measure's term reads the group's mean (engine/streamse_moment.py)."""
     n = len(x)
     lens = np.diff(np.append(seg, n))
     wt_row = wt[0] if len(seg) == 1 else np.repeat(wt, lens)
@@ -70,6 +72,8 @@ def segment_values(need: Need, x: np.ndarray, d: np.ndarray, w: np.ndarray | Non
         assert need.p is not None
         ww = 1.0 if w is None else w
         return {need: np.add.reduceat(np.clip(float(need.p) * wt_row - (c - ww), 0.0, ww) * d, seg)}
+    if tt is not None and "mu" not in cache and any(streamse_moment.is_moment_kind(k) for k, _ in need.params):
+        cache["mu"] = streamse_moment.mean_rows(tt, wt, lens)
     return _moments(need, x, d, w, c, seg, lens, wt_row, carried, prefix, cache)
 
 
@@ -86,7 +90,9 @@ def _moments(need: Need, x, d, w, c, seg, lens, wt_row, carried, prefix: Callabl
     rows[:, 0] = lens
     for j, (kind, p) in enumerate(terms):
         if (kind, p) not in cache:  # a term's column is the same for every error of the batch
-            col, extra = _term(kind, p, x, d, ww, c, seg, lens, wt_row, carried, q_key, s_key, prefix, quantiles)
+            col, extra = (streamse_moment.term(kind, p, x, ww, cache["mu"]), None)\
+                if streamse_moment.is_moment_kind(kind) else \
+                _term(kind, p, x, d, ww, c, seg, lens, wt_row, carried, q_key, s_key, prefix, quantiles)
             mean = np.add.reduceat(col, seg) / lens
             cache[(kind, p)] = (col - (mean[0] if nseg == 1 else np.repeat(mean, lens)), mean, extra)
         col, mean, extra = cache[(kind, p)]
