@@ -9,6 +9,7 @@ from typing import Any
 from sqlglot import exp
 
 from uneven.catalog.design_kernels import stream_kernel
+from uneven.catalog.kernels_se_moment import MOMENT_ERRORS
 from uneven.catalog.spec import PassKind
 from uneven.compiler import clauses
 from uneven.compiler.calls import MeasureCall
@@ -273,6 +274,13 @@ def route_stream(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
 # measured 0.50-0.87x the window plan at 2M x 100, each alone and the three beside a Gini, weighted or not
 # (two runs); over 200k groups of 6 rows 0.85-1.13x alone and 1.00x the three beside a Gini.
 LINEARIZED_STREAMS = True
+# The moment measures' errors (theil_se, mld_se, ge_se, atkinson_se, fgt_se: catalog/kernels_se_moment.py) stream
+# beside gini_se or a cut-based error, whose window plan sorts anyway: gini_se, theil_se and atkinson_se measured
+# 0.39x the window plan at 2M x 100. Alone their window plan sorts nothing (μ over the partition, then sums), and the
+# stream measured 2.75x it (bench/README.md, "Stream plan: the moment measures' standard errors").
+MOMENT_ERRORS_KEEP = ("window plan: the moment measures' errors alone need no sort (sums over the group and its "
+                      "mean), so auto keeps the window plan; beside gini_se or a cut-based error they stream "
+                      "(bench/README.md, \"Stream plan: the moment measures' standard errors\")")
 # A linearized pass with a survey design (strata :=, psu :=) streams too: the stream carries each
 # group's sums per (stratum, PSU) (engine/streamdesign.py); measured in bench/README.md, "Stream plan".
 DESIGN_STREAMS = True
@@ -319,6 +327,9 @@ def stream_pays(plan: PassPlan, scope: PlanScope) -> bool:
         plan.order_reason = ranked_ties(plan, scope) or ""
         return RANKED_STREAMS and not plan.order_reason
     if plan.kind == PassKind.LINEARIZED:  # the window plan's linearized pass has no ties variant: no probe
+        if all(c.measure.name in MOMENT_ERRORS for c in plan.calls):
+            plan.order_reason = MOMENT_ERRORS_KEEP
+            return False
         return LINEARIZED_STREAMS and any(refinable(c) for c in plan.calls)
     if scope.options.tie_grouping == "on" or not any(refinable(c) for c in plan.calls):
         return False
