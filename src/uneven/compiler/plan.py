@@ -276,8 +276,9 @@ def route_stream(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
 LINEARIZED_STREAMS = True
 # The moment measures' errors (theil_se, mld_se, ge_se, atkinson_se, fgt_se: catalog/kernels_se_moment.py) stream
 # beside gini_se or a cut-based error, whose window plan sorts anyway: gini_se, theil_se and atkinson_se measured
-# 0.39x the window plan at 2M x 100. Alone their window plan sorts nothing (μ over the partition, then sums), and the
-# stream measured 2.75x it (bench/README.md, "Stream plan: the moment measures' standard errors").
+# 0.39-0.42x the window plan at 2M x 100 (two runs), 0.96-1.03x over 200k groups of 6 rows. Alone their window
+# plan sorts nothing (μ over the partition, then sums): the stream measured 2.75-3.58x it at 2M x 100 and
+# 1.10-1.19x on 6-row groups (bench/README.md, "Stream plan: the moment measures' standard errors").
 MOMENT_ERRORS_KEEP = ("window plan: the moment measures' errors alone need no sort (sums over the group and its "
                       "mean), so auto keeps the window plan; beside gini_se or a cut-based error they stream "
                       "(bench/README.md, \"Stream plan: the moment measures' standard errors\")")
