@@ -160,3 +160,8 @@ KERNELS = {f"{base}_{suffix}": _kernel(base, role) for base in SCORES
            for suffix, role in (("se", "se"), ("ci_lo", "lo"), ("ci_hi", "hi"))}
 # the moment errors: auto keeps the window plan for a pass of these alone (compiler/plan.stream_pays)
 MOMENT_ERRORS = frozenset(KERNELS)
+# why the median-line errors have none (explain, through compiler/plan.stream_blocked): a relative line's score
+# reads the group's median (and the densities at the line and at the median) on every row
+LINE_ERRORS = frozenset(f"{base}_{suffix}" for base in ("below_line_share", "median_gap", "fgt_relative")
+                        for suffix in ("se", "ci_lo", "ci_hi"))
+LINE_ERRORS_WHY = "a median-line error's score reads the group's median on every row, known only when the group ends"

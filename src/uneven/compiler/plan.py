@@ -9,7 +9,7 @@ from typing import Any
 from sqlglot import exp
 
 from uneven.catalog.design_kernels import stream_kernel
-from uneven.catalog.kernels_se_moment import MOMENT_ERRORS
+from uneven.catalog.kernels_se_moment import LINE_ERRORS, LINE_ERRORS_WHY, MOMENT_ERRORS
 from uneven.catalog.spec import PassKind
 from uneven.compiler import clauses
 from uneven.compiler.calls import MeasureCall
@@ -357,7 +357,8 @@ def stream_blocked(plan: PassPlan, scope: PlanScope) -> str | None:
     missing = list(dict.fromkeys(c.measure.name for c in plan.calls
                                  if stream_kernel(c.measure, bool(plan.options)) is None))
     if missing:
-        return "no stream kernel for " + ", ".join(missing) + (" with a survey design" if plan.options else "")
+        why = f" ({LINE_ERRORS_WHY})" if not plan.options and LINE_ERRORS.intersection(missing) else ""
+        return "no stream kernel for " + ", ".join(missing) + (" with a survey design" if plan.options else "") + why
     if not all(isinstance(v, (int, float)) for c in plan.calls for v in c.params):
         return "a parameter known only at run time"
     if scope.select.parent is not None:
