@@ -1,11 +1,13 @@
 """The stream's per-batch sums for the cut-based standard errors (catalog/kernels_se.py).
 
-``se_moments`` (its ``params`` the row terms, kernels_se's kinds): per segment of a batch, the row
-count, the terms' means and their centred cross sums, [n, means (K), M (K·K)]; two parts of a group
-merge by Chan, Golub and LeVeque's pairwise update (common practice), so the variance's quadratic
-form keeps the digits that raw sums of squares lose. The open group carries, besides its moments,
-Q_p where a quantile term has found it (the first x with C/W ≥ p: later rows tied with it count as
-at or below it) and its running Σ w·d (the rank term's S_d), as engine/streamsums.gini_terms does.
+``se_moments`` (its ``params`` the row terms, kernels_se's kinds, or the moment measures' of
+catalog/kernels_se_moment.py, whose columns engine/streamse_moment.py writes from μ = T/W of the
+totals): per segment of a batch, the row count, the terms' means and their centred cross sums,
+[n, means (K), M (K·K)]; two parts of a group merge by Chan, Golub and LeVeque's pairwise update
+(common practice), so the variance's quadratic form keeps the digits that raw sums of squares lose.
+The open group carries, besides its moments, Q_p where a quantile term has found it (the first x
+with C/W ≥ p: later rows tied with it count as at or below it) and its running Σ w·d (the rank
+term's S_d), as engine/streamsums.gini_terms does.
 
 ``below_d`` (p): Σ d·clamp(p·W − C_{i−1}, 0, w_i), the value held below the cut measured from the
 group's smallest value, so p − L(p) = (p·Σw·d − below_d)/T keeps its digits where L(p) is close to p.
@@ -90,9 +92,10 @@ def _moments(need: Need, x, d, w, c, seg, lens, wt_row, carried, prefix: Callabl
     rows[:, 0] = lens
     for j, (kind, p) in enumerate(terms):
         if (kind, p) not in cache:  # a term's column is the same for every error of the batch
-            col, extra = (streamse_moment.term(kind, p, x, ww, cache["mu"]), None)\
-                if streamse_moment.is_moment_kind(kind) else \
-                _term(kind, p, x, d, ww, c, seg, lens, wt_row, carried, q_key, s_key, prefix, quantiles)
+            if streamse_moment.is_moment_kind(kind):  # the moment measures' terms in r = x/μ
+                col, extra = streamse_moment.term(kind, p, x, ww, cache["mu"]), None
+            else:
+                col, extra = _term(kind, p, x, d, ww, c, seg, lens, wt_row, carried, q_key, s_key, prefix, quantiles)
             mean = np.add.reduceat(col, seg) / lens
             cache[(kind, p)] = (col - (mean[0] if nseg == 1 else np.repeat(mean, lens)), mean, extra)
         col, mean, extra = cache[(kind, p)]
