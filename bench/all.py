@@ -30,6 +30,8 @@ FULL = [
     ["stream_design.py", "--repeat", "3"],
     ["stream_design.py", "--measures", "cuts", "--repeat", "3"],
     ["stream_se.py", "--sizes", "2000000x100"],
+    ["stream_se_moment.py"],
+    ["stream_se_moment.py", "--data", "entities", "--sizes", "1200000x200000"],
     ["stream_ranked.py"],
 ]
 def main(argv=None) -> int:

@@ -14,6 +14,7 @@ from __future__ import annotations
 from sqlglot import exp
 
 from uneven.catalog.kernels_se import KERNELS as CUT_SE_KERNELS
+from uneven.catalog.kernels_se_moment import KERNELS as MOMENT_SE_KERNELS
 from uneven.catalog.linearize import LINEARIZE
 from uneven.catalog.spec import Measure
 from uneven.reference import se as rse
@@ -124,7 +125,7 @@ def uncertainty_measures(base_catalog: dict[str, Measure]) -> list[Measure]:
                 _build(base, role), _reference(base, role),
                 domain=f"as {base}; strata := h, psu := c for a survey design; NULL when a stratum has one PSU",
                 options=("strict", *DESIGN, *extra), pass_options=DESIGN, read_options=read_design,
-                stream=CUT_SE_KERNELS.get(f"{base}_{suffix}")))
+                stream=CUT_SE_KERNELS.get(f"{base}_{suffix}") or MOMENT_SE_KERNELS.get(f"{base}_{suffix}")))
     for base in BOOTSTRAPPABLE:
         m = base_catalog[base]
         for suffix, (formula, extra) in BOOT_ROLES.items():

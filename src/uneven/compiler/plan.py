@@ -9,6 +9,7 @@ from typing import Any
 from sqlglot import exp
 
 from uneven.catalog.design_kernels import stream_kernel
+from uneven.catalog.kernels_se_moment import LINE_ERRORS, LINE_ERRORS_WHY, MOMENT_ERRORS
 from uneven.catalog.spec import PassKind
 from uneven.compiler import clauses
 from uneven.compiler.calls import MeasureCall
@@ -281,6 +282,14 @@ def route_stream(plans: list[PassPlan], scope: PlanScope) -> list[PassPlan]:
 # measured 0.50-0.87x the window plan at 2M x 100, each alone and the three beside a Gini, weighted or not
 # (two runs); over 200k groups of 6 rows 0.85-1.13x alone and 1.00x the three beside a Gini.
 LINEARIZED_STREAMS = True
+# The moment measures' errors (theil_se, mld_se, ge_se, atkinson_se, fgt_se: catalog/kernels_se_moment.py) stream
+# beside gini_se or a cut-based error, whose window plan sorts anyway: gini_se, theil_se and atkinson_se measured
+# 0.39-0.42x the window plan at 2M x 100 (two runs), 0.96-1.03x over 200k groups of 6 rows. Alone their window
+# plan sorts nothing (μ over the partition, then sums): the stream measured 2.75-3.58x it at 2M x 100 and
+# 1.10-1.19x on 6-row groups (bench/README.md, "Stream plan: the moment measures' standard errors").
+MOMENT_ERRORS_KEEP = ("window plan: the moment measures' errors alone need no sort (sums over the group and its "
+                      "mean), so auto keeps the window plan; beside gini_se or a cut-based error they stream "
+                      "(bench/README.md, \"Stream plan: the moment measures' standard errors\")")
 # A linearized pass with a survey design (strata :=, psu :=) streams too: the stream carries each
 # group's sums per (stratum, PSU) (engine/streamdesign.py; the cut-based errors' terms:
 # engine/streamdesign_cuts.py), which the refine plan cannot; measured in bench/README.md, "Stream plan,
@@ -336,6 +345,9 @@ def stream_pays(plan: PassPlan, scope: PlanScope) -> bool:
     # a pass the refine plan could serve streams only over small groups (compiler/group_sizes.py)
     order_wanted = any(refinable(c) for c in plan.calls) or small_groups(plan, scope) is not None
     if plan.kind == PassKind.LINEARIZED:  # the window plan's linearized pass has no ties variant: no probe
+        if all(c.measure.name in MOMENT_ERRORS for c in plan.calls):
+            plan.order_reason = MOMENT_ERRORS_KEEP
+            return False
         # (with a survey design the refine plan cannot take the cut-based errors: they stream, DESIGN_STREAMS)
         return LINEARIZED_STREAMS and (bool(plan.options) and DESIGN_STREAMS or order_wanted)
     if scope.options.tie_grouping == "on" or not order_wanted:
@@ -363,7 +375,8 @@ def stream_blocked(plan: PassPlan, scope: PlanScope) -> str | None:
     missing = list(dict.fromkeys(c.measure.name for c in plan.calls
                                  if stream_kernel(c.measure, bool(plan.options)) is None))
     if missing:
-        return "no stream kernel for " + ", ".join(missing) + (" with a survey design" if plan.options else "")
+        why = f" ({LINE_ERRORS_WHY})" if not plan.options and LINE_ERRORS.intersection(missing) else ""
+        return "no stream kernel for " + ", ".join(missing) + (" with a survey design" if plan.options else "") + why
     if not all(isinstance(v, (int, float)) for c in plan.calls for v in c.params):
         return "a parameter known only at run time"
     if scope.select.parent is not None:

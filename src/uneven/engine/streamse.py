@@ -1,11 +1,13 @@
 """The stream's per-batch sums for the cut-based standard errors (catalog/kernels_se.py).
 
-``se_moments`` (its ``params`` the row terms, kernels_se's kinds): per segment of a batch, the row
-count, the terms' means and their centred cross sums, [n, means (K), M (K·K)]; two parts of a group
-merge by Chan, Golub and LeVeque's pairwise update (common practice), so the variance's quadratic
-form keeps the digits that raw sums of squares lose. The open group carries, besides its moments,
-Q_p where a quantile term has found it (the first x with C/W ≥ p: later rows tied with it count as
-at or below it) and its running Σ w·d (the rank term's S_d), as engine/streamsums.gini_terms does.
+``se_moments`` (its ``params`` the row terms, kernels_se's kinds, or the moment measures' of
+catalog/kernels_se_moment.py, whose columns engine/streamse_moment.py writes from μ = T/W of the
+totals): per segment of a batch, the row count, the terms' means and their centred cross sums,
+[n, means (K), M (K·K)]; two parts of a group merge by Chan, Golub and LeVeque's pairwise update
+(common practice), so the variance's quadratic form keeps the digits that raw sums of squares lose.
+The open group carries, besides its moments, Q_p where a quantile term has found it (the first x
+with C/W ≥ p: later rows tied with it count as at or below it) and its running Σ w·d (the rank
+term's S_d), as engine/streamsums.gini_terms does.
 
 ``below_d`` (p): Σ d·clamp(p·W − C_{i−1}, 0, w_i), the value held below the cut measured from the
 group's smallest value, so p − L(p) = (p·Σw·d − below_d)/T keeps its digits where L(p) is close to p.
@@ -24,6 +26,7 @@ import numpy as np
 
 from uneven.catalog.kernels import Need
 from uneven.catalog.linearize import hall_sheather
+from uneven.engine import streamse_moment
 
 
 def merge_rows(a: np.ndarray, b: np.ndarray) -> np.ndarray:
@@ -49,12 +52,13 @@ def _carrier(need: Need, name: str) -> Need:
 
 def segment_values(need: Need, x: np.ndarray, d: np.ndarray, w: np.ndarray | None, c: np.ndarray,
                    seg: np.ndarray, wt: np.ndarray, nt: np.ndarray, carried: dict | None,
-                   prefix: Callable, cache: dict) -> dict:
+                   prefix: Callable, cache: dict, tt: np.ndarray | None = None) -> dict:
     """The need's value per segment (and its carriers), ``wt`` and ``nt`` each segment's group weight
     and row count from the totals query, ``carried`` the open group's values (its first segment);
     ``prefix(v, lens)`` the compensated running sums restarted per segment (streamsums.segmented_prefix);
     ``cache`` one dict per batch, shared by the batch's needs: a term's centred column and a pair's cross
-    sums are computed once however many errors read them."""
+    sums are computed once however many errors read them; ``tt`` each segment's Σ w·x from the totals
+    query, where a moment measure's term reads the group's mean (engine/streamse_moment.py)."""
     n = len(x)
     lens = np.diff(np.append(seg, n))
     wt_row = wt[0] if len(seg) == 1 else np.repeat(wt, lens)
@@ -70,6 +74,8 @@ def segment_values(need: Need, x: np.ndarray, d: np.ndarray, w: np.ndarray | Non
         assert need.p is not None
         ww = 1.0 if w is None else w
         return {need: np.add.reduceat(np.clip(float(need.p) * wt_row - (c - ww), 0.0, ww) * d, seg)}
+    if tt is not None and "mu" not in cache and any(streamse_moment.is_moment_kind(k) for k, _ in need.params):
+        cache["mu"] = streamse_moment.mean_rows(tt, wt, lens)
     return _moments(need, x, d, w, c, seg, lens, wt_row, carried, prefix, cache)
 
 
@@ -86,8 +92,11 @@ def _moments(need: Need, x, d, w, c, seg, lens, wt_row, carried, prefix: Callabl
     rows[:, 0] = lens
     for j, (kind, p) in enumerate(terms):
         if (kind, p) not in cache:  # a term's column is the same for every error of the batch
-            col, extra = term_column(kind, p, x, d, ww, c, seg, lens, wt_row, carried, q_key, s_key, prefix,
-                                     quantiles)
+            if streamse_moment.is_moment_kind(kind):  # the moment measures' terms in r = x/μ
+                col, extra = streamse_moment.term(kind, p, x, ww, cache["mu"]), None
+            else:
+                col, extra = term_column(kind, p, x, d, ww, c, seg, lens, wt_row, carried, q_key, s_key, prefix,
+                                         quantiles)
             mean = np.add.reduceat(col, seg) / lens
             cache[(kind, p)] = (col - (mean[0] if nseg == 1 else np.repeat(mean, lens)), mean, extra)
         col, mean, extra = cache[(kind, p)]

@@ -343,7 +343,8 @@ class StreamState:
             elif need.name in streamse.NEEDS:
                 assert self.totals is not None and self.totals_n is not None  # read with the totals first
                 out.update(streamse.segment_values(need, x, d, w, c, seg, self.totals[gidx], self.totals_n[gidx],
-                                                   carried, segmented_prefix, shared))
+                                                   carried, segmented_prefix, shared,
+                                                   None if self.totals_t is None else self.totals_t[gidx]))
             elif need.name in streamdesign_cuts.NEEDS:  # (after the rest: their coefficients read it, below)
                 continue
             elif need.name == "gini_design":  # per (stratum, PSU) sums of the row terms: engine/streamdesign.py

@@ -36,6 +36,7 @@ from sqlglot import exp
 
 from uneven.catalog.design_kernels import stream_kernel
 from uneven.catalog.kernels import COUNT_NEEDS, TOTAL_NEEDS, Need, Recorder
+from uneven.catalog.kernels_se_moment import reads_mean
 from uneven.catalog.spec import PassKind
 from uneven.compiler.passes import stream_ranked
 from uneven.compiler.passes.source import (
@@ -100,7 +101,7 @@ def lower_stream_pass(source: Source, plan, name: str) -> tuple[list[exp.CTE], d
         wx = s.mul(s.col("_uv_w"), s.col("_uv_x")) if w is not None else s.col("_uv_x")
         read = {n.name for n in recorder.needs}  # T serves users' kernels' start only; n those and the errors
         sums = [s.alias(weight, "_uv_wt")]
-        if "chunk" in read:
+        if "chunk" in read or reads_mean(recorder.needs):  # (the moment errors' μ: catalog/kernels_se_moment.py)
             sums.append(s.alias(exp.Anonymous(this="fsum", expressions=[wx]), "_uv_tt"))
         if "chunk" in read or read & set(COUNT_NEEDS):
             sums.append(s.alias(s.agg_count_star(), "_uv_n"))
