@@ -103,6 +103,11 @@ CASES = [
          "NaN or infinite value in the value argument x (the whole input)"),
     Case("nan-value-cv-error", f"SELECT g, cv(x, w) FROM {hostile(NAN)} GROUP BY g", InputDataError,
          "NaN or infinite value", not_on=NO_NAN),
+    # the linearized pass (standard errors) checks its values as every pass does (it gave NULL before)
+    Case("nan-value-se-error", f"SELECT g, gini_se(x) FROM {hostile(NAN)} GROUP BY g", InputDataError,
+         "NaN or infinite value in the value argument x (the group g=a)", not_on=NO_NAN),
+    Case("inf-value-design-se-error", f"SELECT g, theil_se(x, strata := tag) FROM {hostile(INF)} GROUP BY g",
+         InputDataError, "NaN or infinite value in the value argument x (the group g=a)"),
     Case("nan-value-cr-entity-error", f"SELECT cr(x, 1, g) FROM {hostile(NAN)}", InputDataError, "NaN or infinite",
          not_on=NO_NAN),
     Case("nan-row-filtered-by-where", f"SELECT gini(x) FROM {hostile(NAN)} WHERE tag <> 'bad' AND g = 'a'",

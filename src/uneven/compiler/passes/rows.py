@@ -123,7 +123,9 @@ def lower_rows(source: Source, plan, name: str, ctx: RowContext,
     """The rows CTE (``{name}_rows``) and the window CTE (``{name}_win``); ``extra`` maps column
     names to row-level expressions carried along (strata, PSU, bootstrap key)."""
     x, w, condition = plan.x, plan.trailing, plan.condition
-    columns, cond = value_weight_rows(x, w, condition)
+    # x checked as every pass that reads values checks it: a NaN or infinite value stops the query with
+    # the input policy's error naming the group (docs/input-policy.md), never a NULL standard error
+    columns, cond = value_weight_rows(x, w, condition, keys=source.keys)
     proj = source.key_projections() + columns + [s.alias(e.copy(), n) for n, e in extra.items()]
     rows = source.rows(proj, cond)
     keys = source.key_columns()
