@@ -237,13 +237,17 @@ def output(role: str, est: np.ndarray, se: np.ndarray, level: float) -> np.ndarr
     return est - z * se if role == "lo" else est + z * se
 
 
-def _kernel(base: str, role: str) -> Callable:
-    def kernel(acc, params):
-        score = SCORES[base](acc, params)
-        return output(role, score.est, standard_error(acc, score), params[-1] if role != "se" else 0.0)
-    kernel.__name__ = f"{base}_{role}"
-    return kernel
+def kernels_of(scores: dict[str, Callable[..., Score]]) -> dict[str, Callable]:
+    """The ``_se``, ``_ci_lo`` and ``_ci_hi`` kernels of each score (the interval's level is the last
+    parameter)."""
+    def make(base: str, role: str) -> Callable:
+        def kernel(acc, params):
+            score = scores[base](acc, params)
+            return output(role, score.est, standard_error(acc, score), params[-1] if role != "se" else 0.0)
+        kernel.__name__ = f"{base}_{role}"
+        return kernel
+    return {f"{base}_{suffix}": make(base, role) for base in scores
+            for suffix, role in (("se", "se"), ("ci_lo", "lo"), ("ci_hi", "hi"))}
 
 
-KERNELS = {f"{base}_{suffix}": _kernel(base, role) for base in SCORES
-           for suffix, role in (("se", "se"), ("ci_lo", "lo"), ("ci_hi", "hi"))}
+KERNELS = kernels_of(SCORES)

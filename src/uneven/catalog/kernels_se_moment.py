@@ -24,7 +24,7 @@ from collections.abc import Callable
 import numpy as np
 
 from uneven.catalog.kernels import Need, Recorder
-from uneven.catalog.kernels_se import ONE, Score, output, standard_error
+from uneven.catalog.kernels_se import ONE, Score, kernels_of
 
 THEIL, MLD, DEV = ("theil", 0.0), ("mld", 0.0), ("dev", 0.0)
 KINDS = ("theil", "mld", "pow", "dev")
@@ -148,16 +148,7 @@ SCORES: dict[str, Callable[..., Score]] = {
 }
 
 
-def _kernel(base: str, role: str) -> Callable:
-    def kernel(acc, params):
-        score = SCORES[base](acc, params)
-        return output(role, score.est, standard_error(acc, score), params[-1] if role != "se" else 0.0)
-    kernel.__name__ = f"{base}_{role}"
-    return kernel
-
-
-KERNELS = {f"{base}_{suffix}": _kernel(base, role) for base in SCORES
-           for suffix, role in (("se", "se"), ("ci_lo", "lo"), ("ci_hi", "hi"))}
+KERNELS = kernels_of(SCORES)
 # the moment errors: auto keeps the window plan for a pass of these alone (compiler/plan.stream_pays)
 MOMENT_ERRORS = frozenset(KERNELS)
 # why the median-line errors have none (explain, through compiler/plan.stream_blocked): a relative line's score

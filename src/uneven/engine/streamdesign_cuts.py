@@ -126,10 +126,7 @@ def segment_values(needs: list[Need], acc, x: np.ndarray, d: np.ndarray, w: np.n
         col, extra = streamse.term_column(kind, p, x, d, ww, c, seg, lens, wt_row, carried, q_key, s_key, prefix,
                                           quantiles)
         cols.append(np.broadcast_to(col, (n,)))
-        if kind == "qle":
-            found[:, quantiles.index(p)] = extra
-        elif kind == "rank":
-            out[s_key] = extra
+        streamse.keep_extra(kind, p, extra, found, quantiles, out, s_key)
     if quantiles:
         out[q_key] = found
     coef = np.zeros((nseg, len(terms), len(needs)))

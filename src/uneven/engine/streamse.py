@@ -102,10 +102,7 @@ def _moments(need: Need, x, d, w, c, seg, lens, wt_row, carried, prefix: Callabl
         col, mean, extra = cache[(kind, p)]
         centred.append(col)
         rows[:, 1 + j] = mean
-        if kind == "qle":
-            found[:, quantiles.index(p)] = extra
-        elif kind == "rank":
-            out[s_key] = extra
+        keep_extra(kind, p, extra, found, quantiles, out, s_key)
     if quantiles:
         out[q_key] = found
     for j in range(K):
@@ -117,6 +114,14 @@ def _moments(need: Need, x, d, w, c, seg, lens, wt_row, carried, prefix: Callabl
             rows[:, 1 + K + m * K + j] = cache[pair]
     out[need] = rows
     return out
+
+
+def keep_extra(kind: str, p: float, extra, found: np.ndarray, quantiles: list, out: dict, s_key: Need) -> None:
+    """A term's by-product: a quantile term's row value (into ``found``), the rank term's sums (``out``)."""
+    if kind == "qle":
+        found[:, quantiles.index(p)] = extra
+    elif kind == "rank":
+        out[s_key] = extra
 
 
 def term_column(kind: str, p: float, x, d, ww, c, seg, lens, wt_row, carried, q_key, s_key, prefix,
