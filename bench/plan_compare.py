@@ -2,6 +2,7 @@
 
     python bench/plan_compare.py --base f4c9f3b                       # g1000, every family below
     python bench/plan_compare.py --base HEAD~3 --data g100k --families moment,ten --repeat 5
+    python bench/plan_compare.py --base HEAD~1 --families se,se_design            # linearized SEs
 
 The base revision's ``src/`` is exported with ``git archive`` to a temporary folder; each query is
 compiled by that version and by the working tree (each in a subprocess), then both SQL texts run
@@ -33,6 +34,9 @@ FAMILIES = {
            "lorenz(x, 0.4, w), hoover(x, w), theil(x, w), cv(x, w), atkinson(x, 0.5, w)",
     "moment": "theil(x, w), mld(x, w), ge(x, 2, w), atkinson(x, 1, w)",
     "centred": "cv(x, w), hoover(x, w)",
+    "se": "gini_se(x, w), palma_se(x, w), lorenz_se(x, 0.4, w), quantile_w_se(x, 0.5, w)",
+    "se_design": "gini_se(x, w, strata := hash(x) % 5, psu := hash(w) % 40), "
+                 "palma_se(x, w, strata := hash(x) % 5, psu := hash(w) % 40)",
 }
 
 

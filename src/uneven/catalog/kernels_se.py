@@ -31,6 +31,7 @@ from statistics import NormalDist
 import numpy as np
 
 from uneven.catalog import kernels as k
+from uneven.catalog import variance_floor
 from uneven.catalog.kernels import Need, Recorder
 from uneven.catalog.linearize import hall_sheather
 
@@ -215,6 +216,9 @@ def standard_error(acc, score: Score) -> np.ndarray:
     with _with():
         c = np.stack([np.broadcast_to(score.parts[t], np.shape(n)) for t in terms], axis=1)
         v = np.einsum("gj,gjl,gl->g", c, M, c) * n / (n - 1.0)
+        # within the rounding of an exactly vanishing form: 0 (catalog/variance_floor.py)
+        diag = np.diagonal(M, axis1=1, axis2=2) * (n / (n - 1.0))[:, None]
+        v = np.where(variance_floor.negligible(v, c, diag, n), 0.0, v)
     return root(acc, score.est, v, n > 1)
 
 

@@ -30,7 +30,7 @@ from collections.abc import Callable
 
 import numpy as np
 
-from uneven.catalog import kernels_se
+from uneven.catalog import kernels_se, variance_floor
 from uneven.catalog.kernels import Need, Recorder
 from uneven.engine import streamse
 from uneven.engine.streamdesign import DesignSums, design_rows
@@ -83,14 +83,29 @@ class ScoreDesignSums(DesignSums):
             if len(cells) == 4:  # complete PSU totals: each PSU's score totals U first, a unit of count 1
                 g_c, h_c, _, totals = cells
                 units = len(g_c)
+                count, mean, M = np.ones(units), totals, np.zeros((units, J, J))
                 U = np.einsum("uj,ujn->un", totals, coef[g_c])
-                rows = design_rows(g_c, h_c, np.ones(units), U, np.zeros((units, N, N)), groups)
+                rows = design_rows(g_c, h_c, count, U, np.zeros((units, N, N)), groups)
             else:  # rows as units: the scores' means and spreads per stratum cell
                 g_c, h_c, count, mean, M = cells
                 U = np.einsum("uj,ujn->un", mean, coef[g_c])
                 spread = np.einsum("ujn,ujl,ulm->unm", coef[g_c], M, coef[g_c])
                 rows = design_rows(g_c, h_c, count, U, spread, groups)
-        return np.concatenate([rows[:, :1], rows[:, 1:].reshape(groups, N, N).diagonal(axis1=1, axis2=2)], axis=1)
+            v = rows[:, 1:].reshape(groups, N, N).diagonal(axis1=1, axis2=2)
+            v = _floor(v, coef, design_rows(g_c, h_c, count, mean, M, groups), np.bincount(g_c, count, groups))
+        return np.concatenate([rows[:, :1], v], axis=1)
+
+
+def _floor(v: np.ndarray, coef: np.ndarray, terms: np.ndarray, units: np.ndarray) -> np.ndarray:
+    """v (groups, N), 0 where within the rounding of 0 (catalog/variance_floor.py): the bound reads the
+    terms' own design variances Σ_h n_h/(n_h − 1)·M_h,jj (``terms``: design_rows of the terms, (groups,
+    1 + J²)), the Cauchy–Schwarz bound on the products each error's form cancels."""
+    J = coef.shape[1]
+    diag = terms[:, 1:].reshape(len(terms), J, J).diagonal(axis1=1, axis2=2)
+    out = v.copy()
+    for n in range(v.shape[1]):
+        out[:, n] = np.where(variance_floor.negligible(v[:, n], coef[:, :, n], diag, units), 0.0, v[:, n])
+    return out
 
 
 class ErrorView:

@@ -29,6 +29,7 @@ from statistics import NormalDist
 
 from sqlglot import exp
 
+from uneven.catalog import variance_floor
 from uneven.catalog.linearize import Lin
 from uneven.catalog.spec import PassKind
 from uneven.compiler.passes.rows import Aggregates, RowContext, lower_rows
@@ -123,9 +124,9 @@ def lower_linearized_pass(source: Source, main, plan, name: str) -> tuple[list[e
     row_terms = {terms.index(t): t for _, t in terms.items.values()}
     equal, lifted = _lift_estimates(specs, ctx, aggs, row_terms, design=(strata, psu))
     ctes.append(_terms_cte(row_terms, name))
-    level_ctes, K, enough = _variance_levels(terms, row_terms, aggs, keys, name, design=(strata, psu))
+    level_ctes, K, enough, floor = _variance_levels(terms, row_terms, aggs, keys, name, design=(strata, psu))
     ctes += level_ctes
-    named, variances, columns, results = _result_columns(lifted, equal, K, enough, name)
+    named, variances, columns, results = _result_columns(lifted, equal, K, enough, floor, name)
     return ctes + _output_ctes(named, variances, columns, keys, name), results
 
 
@@ -200,21 +201,47 @@ def _variance_levels(terms: Terms, row_terms: dict, aggs: Aggregates, keys, name
     if strata is not None:
         ctes.append(cte(grouped(keys + strata_keys, _stats(terms, unit_cols) + level_aggs(), below), f"{name}_str"))
         k_cols = [s.alias(s.agg_sum(_k_between(j, k, s.col("_uv_nu"))), f"_uv_K{j}_{k}") for j, k in terms.pairs]
-        fewest = [s.alias(s.agg_min(s.col("_uv_nu")), "_uv_fewest")]
-        ctes.append(cte(grouped(keys, k_cols + fewest + aggs.combined(), f"{name}_str"), f"{name}_agg"))
-        return ctes, (lambda j, k: s.col(f"_uv_K{j}_{k}")), s.gt(s.col("_uv_fewest"), s.lit(1))
+        fewest = [s.alias(s.agg_min(s.col("_uv_nu")), "_uv_fewest"), s.alias(s.agg_sum(s.col("_uv_nu")), "_uv_units")]
+        diag = [s.alias(s.agg_sum(_diag_bound(j, s.col("_uv_nu"))), f"_uv_A{j}") for j in row_terms]
+        ctes.append(cte(grouped(keys, k_cols + diag + fewest + aggs.combined(), f"{name}_str"), f"{name}_agg"))
+        floor = Floor({}, s.col("_uv_units"))
+        return ctes, (lambda j, k: s.col(f"_uv_K{j}_{k}")), s.gt(s.col("_uv_fewest"), s.lit(1)), floor
     ctes.append(cte(grouped(keys, _stats(terms, unit_cols) + level_aggs(), below), f"{name}_agg"))
-    return ctes, (lambda j, k: _k_between(j, k, s.col("_uv_nu"))), s.gt(s.col("_uv_nu"), s.lit(1))
+    floor = Floor({j: _diag_bound(j, s.col("_uv_nu")) for j in row_terms}, s.col("_uv_nu"))
+    return ctes, (lambda j, k: _k_between(j, k, s.col("_uv_nu"))), s.gt(s.col("_uv_nu"), s.lit(1)), floor
 
 
-def _result_columns(lifted, equal, K, enough, name: str) -> tuple:
+class Floor:
+    """What the rounding bound of a group's variance reads (catalog/variance_floor.py): A_j (``_uv_A{j}``),
+    the bound on the j-th diagonal of K, and the number of units summed; ``columns`` the A_j the _coef
+    CTE forms (without strata: from _agg's sums; with strata _agg has them)."""
+
+    def __init__(self, columns: dict[int, exp.Expression], units: exp.Expression):
+        self.columns, self.units = columns, units
+
+    def root_bound(self, coefs: dict[int, exp.Expression]) -> exp.Expression:
+        return variance_floor.sql_root_bound([c.copy() for c in coefs.values()], [s.col(f"_uv_A{j}") for j in coefs])
+
+    def negligible(self, v: exp.Expression, root: exp.Expression, terms: int) -> exp.Expression:
+        return variance_floor.sql_within(v, s.mul(root, root.copy()), terms, self.units.copy())
+
+
+def _diag_bound(j: int, n: exp.Expression) -> exp.Expression:
+    """n·Q_jj/(n − 1): |n·Q_jl| and |S_j·S_l| are each at most n·sqrt(Q_jj·Q_ll) (Cauchy–Schwarz), the
+    two parts whose rounding k counts twice (catalog/variance_floor.py)."""
+    num = s.mul(s.cast_double(n), s.col(_cross_name(j, j)))
+    return s.case(s.gt(n.copy(), s.lit(1)), s.div(num, s.sub(s.cast_double(n.copy()), s.lit(1.0))))
+
+
+def _result_columns(lifted, equal, K, enough, floor: Floor, name: str) -> tuple:
     """Estimates and coefficients once per group (_coef), the variances over them (_var), then the
     standard errors: NULL where the variance is (no density at a quantile: a NULL coefficient),
-    exactly 0 where the values are equal, a rounding below 0 counted as 0."""
+    exactly 0 where the values are equal or the variance is within its rounding of 0 (or below it)."""
     named: list[exp.Expression] = []
     variances: list[exp.Expression] = []
     columns: list[exp.Expression] = []
     results: dict[tuple, exp.Column] = {}
+    named += [s.alias(a, f"_uv_A{j}") for j, a in floor.columns.items()]
     for i, (call, est, role, coefs) in enumerate(lifted, start=1):
         named.append(s.alias(est, f"_uv_e{i}"))
         named += [s.alias(c, f"_uv_c{i}_{j}") for j, c in (coefs or {}).items()]
@@ -226,7 +253,10 @@ def _result_columns(lifted, equal, K, enough, name: str) -> tuple:
             value = output(role, e, exp.Cast(this=exp.Null(), to=s.DOUBLE.copy()), 0.95)
         else:
             variances.append(s.alias(variance({j: s.col(f"_uv_c{i}_{j}") for j in coefs}, K), f"_uv_v{i}"))
-            value = output(role, e.copy(), _standard_error(e, s.col(f"_uv_v{i}"), equal, enough),
+            variances.append(s.alias(floor.root_bound({j: s.col(f"_uv_c{i}_{j}") for j in coefs}), f"_uv_bnd{i}"))
+            v = s.col(f"_uv_v{i}")
+            negligible = floor.negligible(v.copy(), s.col(f"_uv_bnd{i}"), len(coefs))
+            value = output(role, e.copy(), _standard_error(e, v, equal, enough, negligible),
                            call.settings.get("level", 0.95))
         col = f"_uv_r{len(columns) + 1}"
         columns.append(s.alias(value, col))
@@ -234,8 +264,9 @@ def _result_columns(lifted, equal, K, enough, name: str) -> tuple:
     return named, variances, columns, results
 
 
-def _standard_error(e: exp.Expression, v: exp.Expression, equal, enough) -> exp.Expression:
-    zero = s.or_(s.paren(equal.copy()), s.lt(v.copy(), s.lit(0.0)))
+def _standard_error(e: exp.Expression, v: exp.Expression, equal, enough, negligible) -> exp.Expression:
+    # v ≤ k·eps·B (below 0 too): within the rounding of an exactly vanishing form (variance_floor.py)
+    zero = s.or_(s.paren(equal.copy()), s.paren(negligible))
     known = s.and_(s.not_null(e.copy()), enough.copy(), s.not_null(v.copy()))
     return s.case(known, s.case(zero, s.lit(0.0), s.sqrt(v)))
 

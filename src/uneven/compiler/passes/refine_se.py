@@ -30,6 +30,7 @@ from dataclasses import dataclass, field
 
 from sqlglot import exp
 
+from uneven.catalog import variance_floor
 from uneven.catalog.linearize import hall_sheather
 from uneven.compiler.passes.linearized import output
 from uneven.compiler.passes.source import cte, key_name, table
@@ -186,7 +187,8 @@ def _flag(cond: exp.Expression) -> exp.Expression:
 def variance_ctes(name: str, nk: int, scored: list[Scored], read: exp.Expression, cut_p,
                   weighted: bool) -> list[exp.CTE]:
     """The var CTE: per group and SE call, Σu (_uv_su{i}) and Σu² (_uv_sq{i}) over the bins not read
-    (from their sums) and over the rows read (each row's own score)."""
+    (from their sums) and over the rows read (each row's own score), and the size of Σu²'s products
+    before they cancel (_uv_sb{i}, for the rounding bound of result_column)."""
     coef, mark, rows = f"{name}_coef", f"{name}_mark", f"{name}_in"
     if not any(sc.coefs for sc in scored):
         return []
@@ -220,7 +222,12 @@ def variance_ctes(name: str, nk: int, scored: list[Scored], read: exp.Expression
         sq = s.add(s.add(s.mul(s.mul(a.copy(), a.copy()), s.col("_uv_a0", mark)),
                          s.mul(s.mul(s.lit(2.0), s.mul(a.copy(), b.copy())), s.col("_uv_a1", mark))),
                    s.mul(s.mul(b.copy(), b.copy()), s.col("_uv_a2", mark)))
-        bin_cols += [s.alias(su, f"_uv_su{sc.index}"), s.alias(sq, f"_uv_sq{sc.index}")]
+        # Σw²·(|a'| + |b|·|x|)² ≤ (|a'|·sqrt(Σw²) + |b|·sqrt(Σw²x²))² (Cauchy–Schwarz): the size of the
+        # products the bin's Σu² cancels, for the variance's rounding bound (result_column)
+        size = s.add(s.mul(s.absval(a.copy()), s.sqrt(s.col("_uv_a0", mark))),
+                     s.mul(s.absval(b.copy()), s.sqrt(s.col("_uv_a2", mark))))
+        bin_cols += [s.alias(su, f"_uv_su{sc.index}"), s.alias(sq, f"_uv_sq{sc.index}"),
+                     s.alias(s.mul(size, size.copy()), f"_uv_sb{sc.index}")]
     from_bins = joined(mark).select(*bin_cols, copy=False).where(exp.EQ(this=s.case(read, s.lit(1), s.lit(0)),
                                                                         expression=s.lit(0)))
 
@@ -239,8 +246,10 @@ def variance_ctes(name: str, nk: int, scored: list[Scored], read: exp.Expression
         if not sc.coefs:
             continue
         a, b = _slope_intercept(sc, coef, row_indicator)
+        row_size = s.mul(w.copy(), s.add(s.absval(a.copy()), s.absval(s.mul(b.copy(), d.copy()))))
         u = s.mul(w.copy(), s.add(a, s.mul(b, d.copy())))
-        row_cols += [s.alias(u, f"_uv_su{sc.index}"), s.alias(s.mul(u.copy(), u.copy()), f"_uv_sq{sc.index}")]
+        row_cols += [s.alias(u, f"_uv_su{sc.index}"), s.alias(s.mul(u.copy(), u.copy()), f"_uv_sq{sc.index}"),
+                     s.alias(s.mul(row_size, row_size.copy()), f"_uv_sb{sc.index}")]
     from_rows = joined(rows).select(*row_cols, copy=False)
 
     both = exp.union(from_bins, from_rows, distinct=False)
@@ -255,7 +264,8 @@ def variance_ctes(name: str, nk: int, scored: list[Scored], read: exp.Expression
 
 def result_column(sc: Scored, name: str) -> exp.Expression:
     """The SE or interval end of one call from its estimate, Σu and Σu² (linearized.py's rules: NULL
-    without a variance or with one row, exactly 0 when every value is equal)."""
+    without a variance or with one row, exactly 0 when every value is equal or the variance is within its
+    rounding of 0)."""
     coef, var = f"{name}_coef", f"{name}_var"
     e = s.col(f"_uv_e{sc.index}", coef)
     if not sc.coefs:
@@ -265,7 +275,13 @@ def result_column(sc: Scored, name: str) -> exp.Expression:
     v = s.div(s.sub(s.mul(n.copy(), sq), s.mul(su, su.copy())), s.sub(n.copy(), s.lit(ONE)))
     enough = s.gt(n.copy(), s.lit(ONE))
     equal = exp.EQ(this=s.col("_uv_m", coef), expression=s.col("_uv_top", coef))
-    zero = s.or_(s.paren(equal), s.lt(v.copy(), s.lit(ZERO)))
+    # v ≤ k·eps·B, B = n·Σ(size of u)²/(n − 1) (the bins' products before they cancel, the rows' |terms|:
+    # catalog/variance_floor.py), k of the u's three terms (a, b·x, their cross product): within the
+    # rounding of 0 (below 0 too)
+    size = s.col(f"_uv_sb{sc.index}", var)
+    bound = s.case(enough.copy(), s.div(s.mul(n.copy(), size), s.sub(n.copy(), s.lit(ONE))))
+    negligible = variance_floor.sql_within(v.copy(), bound, 3, n.copy())
+    zero = s.or_(s.paren(equal), s.paren(negligible))
     se = s.case(s.and_(s.not_null(e.copy()), enough.copy(), s.not_null(v.copy())),
                 s.case(zero, s.lit(ZERO), s.sqrt(v)))
     return output(sc.role, e.copy(), se, sc.level)
