@@ -155,10 +155,10 @@ class SparkEngine(DuckDBEngine):
                 # where a table left by an interrupted run would refuse the next CREATE
                 .config("spark.sql.warehouse.dir", str(SparkEngine.folder / "warehouse"))
                 .config("spark.driver.extraJavaOptions", "-XX:+UseSerialGC")
-                # the tests run many large queries on a few rows: generating Java code for each query
-                # stage and re-planning it at run time cost more than the rows (measured: the refine
-                # plan's SE test 152 s -> 68 s, the tied quantile SEs 106 s -> 63 s); the SQL and its
-                # results are the same either way
+                # the tests run many large queries on a few rows: re-planning each query at run time
+                # (adaptive execution: the bulk of it) and generating Java code for its stages cost more
+                # than the rows (measured: the refine plan's SE test 152 s -> 68 s, the tied quantile SEs
+                # 106 s -> 63 s, adaptive execution off alone 63 s); the SQL and its results are the same
                 .config("spark.sql.codegen.wholeStage", "false").config("spark.sql.adaptive.enabled", "false")
                 .getOrCreate())
             SparkEngine.session.sparkContext.setLogLevel("FATAL")  # the tests raise errors on purpose
