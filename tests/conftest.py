@@ -50,3 +50,16 @@ def make_groups(seed: int = 7, n_groups: int = 4, rows: int = 60) -> pd.DataFram
     df["w"] = df["w"].astype("Float64")
     df.loc[11, "w"] = pd.NA
     return df
+
+
+@pytest.fixture(params=[(3, True), (None, False)], ids=["batch3-reader", "whole"])
+def batch(monkeypatch, request):
+    """The stream plan's two batch settings (tests/test_stream*.py): batches of 3 rows read ahead on the
+    reader thread (every group, tie run and cut crosses a batch boundary somewhere), and whole batches
+    read in the caller's thread. Returns the batch's rows (None: whole)."""
+    import uneven.engine.stream as stream_engine  # noqa: PLC0415
+    rows, prefetch = request.param
+    if rows:
+        monkeypatch.setattr(stream_engine, "BATCH_ROWS", rows)
+    monkeypatch.setattr(stream_engine, "PREFETCH", prefetch)
+    return rows

@@ -1,8 +1,8 @@
 """The stream plan's cut measures computed all at once per batch (engine/streamcuts.py): Lorenz
 ordinates, shares, Palma, S80/S20, quantiles and percentile ratios, checked against exact rational
 arithmetic (Python ``fractions``: the references of tests/test_numerics.py, written from the
-definitions in DESIGN.md) and against the window plan row for row, with batches of 3 and 7 rows and
-whole, read serially and on the reader thread, each segment searched on its own slice and all
+definitions in DESIGN.md) and against the window plan row for row, with batches of 3 rows read on
+the reader thread and whole batches read serially (conftest.batch), each segment searched on its own slice and all
 segments on complex keys (``streamcuts.SLICES``), whatever the rows per group (``streamcuts.MIN_ROWS``).
 
 The numerics data of tests/test_numerics.py stand side by side as four groups of one table, so a
@@ -20,7 +20,6 @@ import pandas as pd
 import pytest
 
 import uneven
-import uneven.engine.stream as stream_engine
 import uneven.engine.streamcuts as streamcuts
 from test_numerics import DATA, exact_lorenz, exact_quantile, rel
 from test_stream import assert_same_frames
@@ -53,21 +52,13 @@ def numerics():
     return con, exact
 
 
-@pytest.fixture(params=[(3, True), (None, False)], ids=["batch3-reader", "whole"])
-def batches(monkeypatch, request):
-    rows, ahead = request.param
-    if rows:
-        monkeypatch.setattr(stream_engine, "BATCH_ROWS", rows)
-    monkeypatch.setattr(stream_engine, "PREFETCH", ahead)
-
-
 @pytest.fixture(params=[0, 10_000], ids=["complex-keys", "slices"])
 def search(monkeypatch, request):
     monkeypatch.setattr(streamcuts, "SLICES", request.param)
     monkeypatch.setattr(streamcuts, "MIN_ROWS", 0)  # every batch takes the cut search, however short its groups
 
 
-def test_cut_measures_match_exact_fractions(numerics, batches, search):
+def test_cut_measures_match_exact_fractions(numerics, batch, search):
     con, exact = numerics
     sql = f"SELECT g, {CUTS} FROM t GROUP BY g ORDER BY g"
     assert "stream plan" in str(uneven.explain(sql, con, ordered="stream"))
@@ -96,7 +87,7 @@ def grouped():
 
 
 @pytest.mark.parametrize("weight", [", w", ""])
-def test_cut_measures_match_the_window_plan_row_for_row(grouped, batches, search, weight):
+def test_cut_measures_match_the_window_plan_row_for_row(grouped, batch, search, weight):
     sql = f"SELECT a, b, {CUTS.replace(', w)', weight + ')')} FROM t GROUP BY a, b ORDER BY a, b"
     got = uneven.query(sql, grouped, ordered="stream")
     want = uneven.query(sql, grouped, ordered="window")
@@ -104,7 +95,7 @@ def test_cut_measures_match_the_window_plan_row_for_row(grouped, batches, search
     assert_same_frames(got, want)
 
 
-def test_a_quantile_on_a_jump_takes_the_window_plans_comparison(batches, search):
+def test_a_quantile_on_a_jump_takes_the_window_plans_comparison(batch, search):
     # 25 rows of weight 1 (or 2): 0.28·W is 7.000000000000001·(W/25) in doubles, above C = 7·(W/25), yet
     # C/W ≥ 0.28 holds in doubles at that row; the window plan compares C/W ≥ p, and so does numpy's
     # weighted inverted CDF (np.quantile(method="inverted_cdf", weights=…), the outside reference of

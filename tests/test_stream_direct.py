@@ -19,18 +19,9 @@ import pytest
 
 import uneven
 import uneven.compiler.plan as plan_module
-import uneven.engine.stream as stream_engine
 from test_stream import assert_same_frames, close
 from uneven import reference as R
 from uneven.engine.stream import KeptGroups
-
-
-@pytest.fixture(params=[(3, False), (7, True), (None, False)], ids=["batch3", "batch7_reader", "whole"])
-def batches(monkeypatch, request):
-    size, prefetch = request.param
-    if size:
-        monkeypatch.setattr(stream_engine, "BATCH_ROWS", size)
-    monkeypatch.setattr(stream_engine, "PREFETCH", prefetch)
 
 
 @pytest.fixture(scope="module")
@@ -119,7 +110,7 @@ SHAPES = [
 
 
 @pytest.mark.parametrize("sql, ordered, direct", SHAPES, ids=range(len(SHAPES)))
-def test_each_shape_is_the_window_plans_outcome(data, batches, sql, ordered, direct):
+def test_each_shape_is_the_window_plans_outcome(data, batch, sql, ordered, direct):
     con, _ = data
     assert form(sql, con) == ("direct" if direct else "joined")
     same_as_window(sql, con, ordered)
@@ -138,7 +129,7 @@ def test_the_joined_form_gives_the_same_rows(data, monkeypatch, sql, ordered, di
     assert_same_frames(direct_rows, joined)
 
 
-def test_groups_without_a_counted_row_are_kept_with_null_results(data, batches):
+def test_groups_without_a_counted_row_are_kept_with_null_results(data, batch):
     con, df = data
     got = same_as_window("SELECT a, gini(x, w) AS g, quantile_w(x, 0.4, w) AS q FROM t GROUP BY a ORDER BY a", con)
     assert got.a.tolist()[:6] == [0.0, 1.0, 2.0, 3.0, 4.0, 5.0] and pd.isna(got.a.iloc[6])
@@ -149,7 +140,7 @@ def test_groups_without_a_counted_row_are_kept_with_null_results(data, batches):
         assert close(None if pd.isna(row.q) else row.q, reference(sel, R.quantile_w, 0.4))
 
 
-def test_a_curve_beside_groups_without_a_counted_row(batches):
+def test_a_curve_beside_groups_without_a_counted_row(batch):
     # the curve's list column takes NULL rows for such groups as the float columns do; ordinates
     # against exact fractions: group a's Lorenz points (C/W, S/T) = (1/4, 1/13), (1/2, 3/13), (1, 1),
     # so L(1/2) = 3/13 (DESIGN.md's contract: linear between the points)
@@ -164,7 +155,7 @@ def test_a_curve_beside_groups_without_a_counted_row(batches):
     assert got.c[1:].isna().all() and want.c[1:].isna().all() and got.g[1:].isna().all()
 
 
-def test_a_filter_that_keeps_no_row_of_a_group(data, batches):
+def test_a_filter_that_keeps_no_row_of_a_group(data, batch):
     con, df = data
     sql = "SELECT a, b, gini(x, w) FILTER (WHERE x > 30) AS g FROM t GROUP BY a, b ORDER BY a, b"
     got = same_as_window(sql, con)
@@ -176,7 +167,7 @@ def test_a_filter_that_keeps_no_row_of_a_group(data, batches):
     assert got.g.isna().sum() >= 5  # (the NULL and zero-weight groups, and some with no x above 30)
 
 
-def test_multi_column_and_null_keys_match_the_reference(data, batches):
+def test_multi_column_and_null_keys_match_the_reference(data, batch):
     con, df = data
     sql = "SELECT a, b, gini(x, w) AS g, top_share(x, 0.2, w) AS top, gini(x) AS gu FROM t GROUP BY a, b"
     got = same_as_window(sql.replace(", gini(x) AS gu", ""), con, ordered=False)
@@ -187,7 +178,7 @@ def test_multi_column_and_null_keys_match_the_reference(data, batches):
         assert close(None if pd.isna(row.top) else row.top, reference(sel, R.top_share, 0.2))
 
 
-def test_unweighted_gini_with_null_values(data, batches):
+def test_unweighted_gini_with_null_values(data, batch):
     con, df = data
     got = same_as_window("SELECT b, a, gini(x) AS g FROM t GROUP BY b, a ORDER BY b, a", con)
     for row in got.itertuples(index=False):

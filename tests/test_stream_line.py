@@ -19,22 +19,12 @@ import pandas as pd
 import pytest
 
 import uneven
-import uneven.engine.stream as stream_engine
 from test_numerics import DATA, rel
 from test_stream import assert_same_frames, close
 from uneven.compiler.context import CompileOptions
 from uneven.compiler.pipeline import compile_with_context
 from uneven.engine.columns import DuckDBSchema
 from uneven.reference import poverty as RP
-
-
-@pytest.fixture(params=[(3, True), (None, False)], ids=["batch3-reader", "whole"])
-def batch(monkeypatch, request):
-    rows, prefetch = request.param
-    if rows:
-        monkeypatch.setattr(stream_engine, "BATCH_ROWS", rows)
-    monkeypatch.setattr(stream_engine, "PREFETCH", prefetch)
-    return rows
 
 
 def exact_line(x, w, frac: float, alpha: int | None = None):

@@ -29,15 +29,6 @@ from test_numerics import DATA, rel
 from test_stream import assert_same_frames
 
 
-@pytest.fixture(params=[(3, False), (3, True), (None, True)], ids=["batch3", "batch3-reader", "whole-reader"])
-def batch(monkeypatch, request):
-    rows, prefetch = request.param
-    if rows:
-        monkeypatch.setattr(stream_engine, "BATCH_ROWS", rows)
-    monkeypatch.setattr(stream_engine, "PREFETCH", prefetch)
-    return rows
-
-
 def exact_concentration(y, r, w) -> Fraction | None:
     """2·cov_w(y, R)/μ_y in exact fractions, R the mid-rank fractional rank of r; None where Σw·y = 0."""
     rows = sorted((Fraction(float(a)), Fraction(float(b)), Fraction(float(c))) for a, b, c in zip(r, y, w))

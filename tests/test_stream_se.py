@@ -23,19 +23,8 @@ import pandas as pd
 import pytest
 
 import uneven
-import uneven.engine.stream as stream_engine
 from test_numerics import DATA, rel
 from test_stream import assert_same_frames
-
-
-@pytest.fixture(params=[(3, True), (None, False)], ids=["batch3_reader_thread", "whole"])
-def batch(monkeypatch, request):
-    rows, prefetch = request.param
-    if rows:
-        monkeypatch.setattr(stream_engine, "BATCH_ROWS", rows)
-    monkeypatch.setattr(stream_engine, "PREFETCH", prefetch)
-    return rows
-
 
 # ---- exact fractions: the scores written from the influence functions -----------------------------
 

@@ -24,17 +24,8 @@ import pytest
 
 import uneven
 import uneven.compiler.plan as plan_module
-import uneven.engine.stream as stream_engine
 from test_numerics import DATA, rel
 from test_stream import assert_same_frames
-
-
-@pytest.fixture(params=[3, None], ids=["batch3", "whole"])
-def batch(monkeypatch, request):
-    if request.param:
-        monkeypatch.setattr(stream_engine, "BATCH_ROWS", request.param)
-    return request.param
-
 
 # ---- the influence functions, in the plain form ----------------------------------------------------
 
