@@ -302,6 +302,8 @@ def design_reason(plan: PassPlan) -> str:
     parts = [k for k in ("strata", "psu") if k in plan.options]
     return ("the survey design (" + ", ".join(parts) + ") is carried per group as sums of the score's terms per "
             + " and ".join({"strata": "stratum", "psu": "PSU"}[k] for k in parts))
+
+
 # The ranked pass (concentration indices, Kakwani, Reynolds–Smolensky: passes/stream_ranked.py) streams
 # under "auto" (bench/README.md, "Stream plan: the ranked pass"): 0.29-0.58x its window plan with a tie-free
 # ranking value (2M x 100, 5M x 1, 200k groups of 6 rows), but its window plan groups the tie groups before
@@ -323,6 +325,8 @@ def ranked_ties(plan: PassPlan, scope: PlanScope) -> str | None:
     distinct, rows = found
     return (f"window plan: about {distinct:,} distinct ranking values in {rows:,} rows ({distinct / rows:.0%}; "
             f"its window runs over the tie groups, streamed above {TIE_SHARE:.0%})")
+
+
 STREAM_PAYS = "auto streams a pass whose measures need the full order (bench/README.md, \"Stream plan\")"
 
 
