@@ -106,6 +106,11 @@ CASES = [
     # the linearized pass (standard errors) checks its values as every pass does (it gave NULL before)
     Case("nan-value-se-error", f"SELECT g, gini_se(x) FROM {hostile(NAN)} GROUP BY g", InputDataError,
          "NaN or infinite value in the value argument x (the group g=a)", not_on=NO_NAN),
+    # the ranked pass too, in the outcome and in the ranking value (it gave NULL before)
+    Case("nan-value-ranked-error", f"SELECT g, concentration(x, w) FROM {hostile(NAN)} GROUP BY g", InputDataError,
+         "NaN or infinite value in the value argument x (the group g=a)", not_on=NO_NAN),
+    Case("inf-rank-ranked-error", f"SELECT g, kakwani(w, x) FROM {hostile(INF)} GROUP BY g", InputDataError,
+         "NaN or infinite value in the value argument x (the group g=a)"),
     Case("inf-value-design-se-error", f"SELECT g, theil_se(x, strata := tag) FROM {hostile(INF)} GROUP BY g",
          InputDataError, "NaN or infinite value in the value argument x (the group g=a)"),
     Case("nan-value-cr-entity-error", f"SELECT cr(x, 1, g) FROM {hostile(NAN)}", InputDataError, "NaN or infinite",

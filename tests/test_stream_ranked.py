@@ -27,6 +27,7 @@ import uneven
 import uneven.engine.stream as stream_engine
 from test_numerics import DATA, rel
 from test_stream import assert_same_frames
+from uneven.errors import InputDataError
 
 
 def exact_concentration(y, r, w) -> Fraction | None:
@@ -180,17 +181,26 @@ def test_filter_having_ctes_multi_and_nan_keys(batch):
                            uneven.query(whole + where, con, ordered="window"))
 
 
-def test_non_finite_values_give_the_window_plans_nulls(batch):
-    # the window plan's ranked pass checks only the weight: a NaN or infinite value gives NULL, and a
-    # NaN ranking value ties with the other NaNs, ranked last
+@pytest.mark.parametrize("bad, words", [
+    ("(2, 2.0, 'nan'::DOUBLE)", "NaN or infinite value in the value argument y (the group g=2)"),
+    ("(2, 'inf'::DOUBLE, 1.0)", "NaN or infinite value in the value argument r (the group g=2)"),
+    ("(2, '-inf'::DOUBLE, 1.0)", "NaN or infinite value in the value argument r (the group g=2)"),
+])
+def test_non_finite_values_stop_both_plans_naming_the_group(batch, bad, words):
+    # the input policy (docs/input-policy.md): a NaN or infinite value, in the ranking value or in the
+    # outcome, stops the query with the same InputDataError on both plans, never a NULL or NaN measure
     con = duckdb.connect()
-    con.execute("CREATE TABLE t AS SELECT * FROM (VALUES (1, 1.0, 2.0), (1, 2.0, 'nan'::DOUBLE), (1, 3.0, 1.0), "
-                "(2, 1.0, 2.0), (2, 'inf'::DOUBLE, 1.0), (3, 1.0, 1.0), (3, 'nan'::DOUBLE, 3.0), "
-                "(3, 'nan'::DOUBLE, 2.0), (3, 2.0, 5.0)) v(g, r, y)")
+    con.execute(f"CREATE TABLE t AS SELECT * FROM (VALUES (1, 1.0, 2.0), (1, 3.0, 1.0), (2, 1.0, 2.0), {bad}) v(g, r, y)")
     sql = "SELECT g, concentration(y, r) AS c, kakwani(y, r) AS k FROM t GROUP BY g ORDER BY g"
-    got = uneven.query(sql, con, ordered="stream")
-    assert_same_frames(got, uneven.query(sql, con, ordered="window"))
-    assert got.c.isna().tolist() == [True, False, False] and got.k.isna().tolist() == [True, True, True]
+    texts = []
+    for ordered in ("stream", "window"):
+        with pytest.raises(InputDataError) as info:
+            uneven.query(sql, con, ordered=ordered)
+        texts.append(str(info.value))
+    assert texts[0] == texts[1] and words in texts[0]
+    # the row filtered away by WHERE is never checked (as on every pass)
+    assert_same_frames(uneven.query(sql.replace("GROUP BY", "WHERE g = 1 GROUP BY"), con, ordered="stream"),
+                       uneven.query(sql.replace("GROUP BY", "WHERE g = 1 GROUP BY"), con, ordered="window"))
 
 
 @pytest.mark.parametrize("rows, words", [

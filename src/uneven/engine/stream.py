@@ -60,7 +60,8 @@ class _Suspect(Exception):
 
 def suspect(batch: pa.RecordBatch, weighted: bool) -> bool:
     """Whether a row of ``batch`` may be one the input policy refuses (NULLs are no such row)."""
-    for name in ("_uv_x", "_uv_w") if weighted else ("_uv_x",):
+    values = [n for n in batch.schema.names if n == "_uv_x" or (n[:5] == "_uv_v" and n[5:].isdigit())]  # (ranked)
+    for name in values + ["_uv_w"] if weighted else values:
         column = batch.column(name)
         v = (column.drop_null() if column.null_count else column).to_numpy(zero_copy_only=False)
         if len(v) == 0:

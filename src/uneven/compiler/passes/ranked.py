@@ -16,7 +16,16 @@ from __future__ import annotations
 from sqlglot import exp
 
 from uneven.catalog.spec import PassKind
-from uneven.compiler.passes.source import Source, build_results, checked_weight, cte, grouped, table, weight_label
+from uneven.compiler.passes.source import (
+    Source,
+    build_results,
+    checked_value,
+    checked_weight,
+    cte,
+    grouped,
+    table,
+    weight_label,
+)
 from uneven.sqltree import build as s
 
 
@@ -85,11 +94,14 @@ def lower_ranked_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
     ctx.Wg  # every pass needs the tie-group weight for the running sum
     out_cols, results = build_results(plan.calls, ctx, name)
 
-    proj = source.key_projections() + [s.alias(s.cast_double(v.copy()), f"_uv_v{i}") for i, v in enumerate(values)]
+    # every value checked as every pass checks its values: NaN or ±infinity stops the query with the input
+    # policy's error naming the group (docs/input-policy.md), never a NULL or NaN measure
+    proj = source.key_projections() + [s.alias(checked_value(v, weight_label(v), source.keys), f"_uv_v{i}")
+                                       for i, v in enumerate(values)]
     cond = s.and_(s.paren(condition.copy()) if condition is not None else None,
                   *[s.not_null(v.copy()) for v in values])
     if w is not None:
-        cw = checked_weight(w, weight_label(w))
+        cw = checked_weight(w, weight_label(w), source.keys)
         proj.append(s.alias(cw, "_uv_w"))
         cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
     rows = source.rows(proj, cond)

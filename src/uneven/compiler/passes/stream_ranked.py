@@ -18,7 +18,7 @@ from collections.abc import Callable
 from sqlglot import exp
 
 from uneven.catalog.design_kernels import stream_kernel
-from uneven.compiler.passes.source import Source, checked_weight, weight_label
+from uneven.compiler.passes.source import Source, checked_value, checked_weight, weight_label
 from uneven.sqltree import build as s
 
 VARIANT = "ranked"  # a stream pass planned from a ranked pass (plan.route_stream)
@@ -35,13 +35,14 @@ def ranked_rows(source: Source, plan) -> tuple[list[exp.Expression], exp.Express
     values = [plan.x, *plan.columns]
     w, condition = plan.trailing, plan.condition
     names = ["_uv_x"] + [f"_uv_v{i}" for i in range(1, len(values))]
-    proj = source.key_projections() + [s.named(s.cast_double(v.copy()), n) for v, n in zip(values, names)]
+    proj = source.key_projections() + [s.named(checked_value(v, weight_label(v), source.keys), n)
+                                       for v, n in zip(values, names)]
     kept = s.and_(s.paren(condition.copy()) if condition is not None else None,
                   *[s.not_null(v.copy()) for v in values])
     cond = kept.copy()
     counted = None
     if w is not None:
-        cw = checked_weight(w, weight_label(w))  # (the window plan's check names no group: the same text)
+        cw = checked_weight(w, weight_label(w), source.keys)
         proj.append(s.named(cw, "_uv_w"))
         cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
         counted = s.and_(kept.copy(), s.gt(s.cast_double(w.copy()), s.lit(0.0)))
