@@ -111,6 +111,12 @@ CASES = [
          "NaN or infinite value in the value argument x (the group g=a)", not_on=NO_NAN),
     Case("inf-rank-ranked-error", f"SELECT g, kakwani(w, x) FROM {hostile(INF)} GROUP BY g", InputDataError,
          "NaN or infinite value in the value argument x (the group g=a)"),
+    # the paired and bootstrap passes too (the difference gave NULL; the bootstrap resampled the NaN row
+    # unchecked and gave a number)
+    Case("nan-value-paired-error", f"SELECT g, gini_diff(w, x) FROM {hostile(NAN)} GROUP BY g", InputDataError,
+         "NaN or infinite value in the value argument x (the group g=a)", not_on=NO_NAN),
+    Case("inf-value-boot-error", f"SELECT g, gini_boot_se(x, replicates := 20) FROM {hostile(INF)} GROUP BY g",
+         InputDataError, "NaN or infinite value in the value argument x (the group g=a)"),
     Case("inf-value-design-se-error", f"SELECT g, theil_se(x, strata := tag) FROM {hostile(INF)} GROUP BY g",
          InputDataError, "NaN or infinite value in the value argument x (the group g=a)"),
     Case("nan-value-cr-entity-error", f"SELECT cr(x, 1, g) FROM {hostile(NAN)}", InputDataError, "NaN or infinite",

@@ -105,7 +105,9 @@ def _distinct_builds(plan, ctx: ReplicateContext) -> list[tuple]:
 def _rows_cte(source: Source, plan, unit, name: str) -> exp.CTE:
     """Rows: keys, x, w and the resampling unit."""
     x, w, condition = plan.x, plan.trailing, plan.condition
-    columns, cond = value_weight_rows(x, w, condition, weight_name="_uv_w0")
+    # x checked (docs/input-policy.md): a NaN or infinite value stops the query naming the group; it was
+    # resampled unchecked and gave a number
+    columns, cond = value_weight_rows(x, w, condition, weight_name="_uv_w0", keys=source.keys)
     proj = source.key_projections() + columns
     if unit is not None:
         proj.append(s.alias(unit.copy(), "_uv_b"))

@@ -16,7 +16,16 @@ from __future__ import annotations
 from sqlglot import exp
 
 from uneven.catalog.spec import PassKind
-from uneven.compiler.passes.source import Source, build_results, checked_weight, cte, grouped, table, weight_label
+from uneven.compiler.passes.source import (
+    Source,
+    build_results,
+    checked_value,
+    checked_weight,
+    cte,
+    grouped,
+    table,
+    weight_label,
+)
 from uneven.sqltree import build as s
 
 ZERO = s.lit(0.0)
@@ -61,12 +70,14 @@ def lower_paired_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
     ctx = PairedContext(weighted=w is not None)
     out_cols, results = build_results(plan.calls, ctx, name)
 
-    proj = source.key_projections() + [s.alias(s.cast_double(x.copy()), "_uv_x"),
-                                       s.alias(s.cast_double(y.copy()), "_uv_y")]
+    # both values checked as every pass checks its values (docs/input-policy.md): NaN or ±infinity stops
+    # the query with the error naming the group, never a NULL difference
+    proj = source.key_projections() + [s.alias(checked_value(x, weight_label(x), source.keys), "_uv_x"),
+                                       s.alias(checked_value(y, weight_label(y), source.keys), "_uv_y")]
     cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()),
                   s.not_null(y.copy()))
     if w is not None:
-        cw = checked_weight(w, weight_label(w))
+        cw = checked_weight(w, weight_label(w), source.keys)
         proj.append(s.alias(cw, "_uv_w"))
         cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
     rows = source.rows(proj, cond)
