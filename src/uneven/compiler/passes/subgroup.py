@@ -12,7 +12,15 @@ from sqlglot import exp
 
 from uneven.catalog.spec import PassKind
 from uneven.compiler.passes.columns import RowColumns
-from uneven.compiler.passes.source import Source, build_results, checked_weight, cte, grouped, weight_label
+from uneven.compiler.passes.source import (
+    Source,
+    build_results,
+    checked_value,
+    checked_weight,
+    cte,
+    grouped,
+    weight_label,
+)
 from uneven.sqltree import build as s
 
 
@@ -63,13 +71,13 @@ def lower_subgroup_pass(source: Source, main, plan, name: str) -> tuple[list[exp
     ctx = SubgroupContext(weighted=w is not None)
     out_cols, results = build_results(plan.calls, ctx, name)
 
-    xd = s.cast_double(x.copy())
+    xd = checked_value(x, weight_label(x), source.keys)  # (the input policy: NaN or ±infinity stops the query)
     cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()),
                   s.not_null(subgroup.copy()))
     inner = exp.Select(expressions=source.key_projections() + [s.alias(subgroup.copy(), "_uv_g"),
                                                                s.alias(xd, "_uv_x")])
     if w is not None:
-        cw = checked_weight(w, weight_label(w))
+        cw = checked_weight(w, weight_label(w), source.keys)
         inner.select(s.alias(cw, "_uv_w"), copy=False)
         cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
     rows = source.rows(inner.expressions, cond)
