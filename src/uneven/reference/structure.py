@@ -135,17 +135,24 @@ def concentration_erreygers(y, rank_by, lo, hi, w=None) -> float | None:
     return 4.0 * mu * c / (hi - lo)
 
 
+def _gini_as_concentration(x, ws) -> float | None:
+    """The Gini of x as the concentration index of x ranked by itself (mid-ranks: equal, a fact of the
+    trade), so an index of x minus it is exactly 0 when the other argument is x itself; NULL where the
+    Gini is (T ≤ 0)."""
+    return None if ref.gini(x, ws) is None else concentration(x, x, ws)
+
+
 def kakwani(tax, income, w=None) -> float | None:
     """Concentration of the tax ranked by pre-tax income minus the Gini of pre-tax income."""
     (ts, inc), ws = _arrays(tax, income, w=w)
-    c, g = concentration(ts, inc, ws), ref.gini(inc, ws)
+    c, g = concentration(ts, inc, ws), _gini_as_concentration(inc, ws)
     return None if c is None or g is None else c - g
 
 
 def reynolds_smolensky(pre, post, w=None) -> float | None:
     """Gini of pre-tax income minus the concentration of post-tax income ranked by pre-tax income."""
     (a, b), ws = _arrays(pre, post, w=w)
-    g, c = ref.gini(a, ws), concentration(b, a, ws)
+    g, c = _gini_as_concentration(a, ws), concentration(b, a, ws)
     return None if c is None or g is None else g - c
 
 
