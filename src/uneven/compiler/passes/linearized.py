@@ -80,10 +80,16 @@ def _stats(terms: Terms, unit_cols: Mapping[int, exp.Expression]) -> list[exp.Ex
     return out
 
 
+def _per_unit(num: exp.Expression, n: exp.Expression) -> exp.Expression:
+    """num/(n − 1) over ``n`` units, NULL for one unit (``n`` owned, placed twice: copied once)."""
+    return s.case(s.gt(n.copy(), s.lit(1)), s.div(num, s.sub(s.cast_double(n), s.lit(1.0))))
+
+
 def _k_between(j: int, k: int, n: exp.Expression) -> exp.Expression:
     """(n·Q_jk − S_j·S_k)/(n − 1): the centred cross product of one stratum's units."""
-    num = s.sub(s.mul(s.cast_double(n), s.col(_cross_name(j, k))), s.mul(s.col(_sum_name(j)), s.col(_sum_name(k))))
-    return s.case(s.gt(n, s.lit(1)), s.div(num, s.sub(s.cast_double(n), s.lit(1.0))))
+    num = s.sub(s.mul(s.cast_double(n.copy()), s.col(_cross_name(j, k))),
+                s.mul(s.col(_sum_name(j)), s.col(_sum_name(k))))
+    return _per_unit(num, n)
 
 
 def variance(coefs: dict[int, exp.Expression], K) -> exp.Expression:
@@ -229,8 +235,7 @@ class Floor:
 def _diag_bound(j: int, n: exp.Expression) -> exp.Expression:
     """n·Q_jj/(n − 1): |n·Q_jl| and |S_j·S_l| are each at most n·sqrt(Q_jj·Q_ll) (Cauchy–Schwarz), the
     two parts whose rounding k counts twice (catalog/variance_floor.py)."""
-    num = s.mul(s.cast_double(n), s.col(_cross_name(j, j)))
-    return s.case(s.gt(n.copy(), s.lit(1)), s.div(num, s.sub(s.cast_double(n.copy()), s.lit(1.0))))
+    return _per_unit(s.mul(s.cast_double(n.copy()), s.col(_cross_name(j, j))), n)
 
 
 def _result_columns(lifted, equal, K, enough, floor: Floor, name: str) -> tuple:

@@ -86,24 +86,34 @@ class RankedContext:
         return s.case(defined, s.div(num, s.mul(self.W, self.T(i))))
 
 
+def ranked_rows(source: Source, plan, names: list[str]) -> tuple[list[exp.Expression], exp.Expression,
+                                                                   exp.Expression]:
+    """(projections, row condition, kept) of the ranked pass's rows, on the window plan and the stream
+    (passes/stream_ranked.py): the keys, each value argument (the ranking value first) checked as every
+    pass checks its values — NaN or ±infinity stops the query with the input policy's error naming the
+    group (docs/input-policy.md) — under ``names``, the checked weight as ``_uv_w``; ``kept`` the FILTER
+    and every value present, the row condition ``kept`` and the weight > 0."""
+    values = [plan.x, *plan.columns]
+    proj = source.key_projections() + [s.named(checked_value(v, weight_label(v), source.keys), n)
+                                       for v, n in zip(values, names)]
+    kept = s.and_(s.paren(plan.condition.copy()) if plan.condition is not None else None,
+                  *[s.not_null(v.copy()) for v in values])
+    cond = kept.copy()
+    if plan.trailing is not None:
+        cw = checked_weight(plan.trailing, weight_label(plan.trailing), source.keys)
+        proj.append(s.named(cw, "_uv_w"))
+        cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
+    return proj, cond, kept
+
+
 def lower_ranked_pass(source: Source, main, plan, name: str) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:
     """CTEs of one ranked pass and, for each call key, the column that holds its result."""
     values = [plan.x, *plan.columns]
-    w, condition = plan.trailing, plan.condition
-    ctx = RankedContext(weighted=w is not None, nvalues=len(values))
+    ctx = RankedContext(weighted=plan.trailing is not None, nvalues=len(values))
     ctx.Wg  # every pass needs the tie-group weight for the running sum
     out_cols, results = build_results(plan.calls, ctx, name)
 
-    # every value checked as every pass checks its values: NaN or ±infinity stops the query with the input
-    # policy's error naming the group (docs/input-policy.md), never a NULL or NaN measure
-    proj = source.key_projections() + [s.alias(checked_value(v, weight_label(v), source.keys), f"_uv_v{i}")
-                                       for i, v in enumerate(values)]
-    cond = s.and_(s.paren(condition.copy()) if condition is not None else None,
-                  *[s.not_null(v.copy()) for v in values])
-    if w is not None:
-        cw = checked_weight(w, weight_label(w), source.keys)
-        proj.append(s.alias(cw, "_uv_w"))
-        cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
+    proj, cond, _ = ranked_rows(source, plan, [f"_uv_v{i}" for i in range(len(values))])
     rows = source.rows(proj, cond)
     keys = source.key_columns()
     ties = exp.Select(expressions=keys + [s.col("_uv_v0")] + [s.alias(e, n) for n, e in ctx.sums.values()])

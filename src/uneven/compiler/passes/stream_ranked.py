@@ -18,7 +18,8 @@ from collections.abc import Callable
 from sqlglot import exp
 
 from uneven.catalog.design_kernels import stream_kernel
-from uneven.compiler.passes.source import Source, checked_value, checked_weight, weight_label
+from uneven.compiler.passes import ranked
+from uneven.compiler.passes.source import Source
 from uneven.sqltree import build as s
 
 VARIANT = "ranked"  # a stream pass planned from a ranked pass (plan.route_stream)
@@ -29,23 +30,13 @@ REASON = ("stream plan: DuckDB sorts the rows by (keys, ranking value), numpy ca
 
 def ranked_rows(source: Source, plan) -> tuple[list[exp.Expression], exp.Expression, exp.Expression,
                                                  exp.Expression | None]:
-    """(projections, row condition, kept, counted): the window plan's rows of the ranked pass, the
-    ranking value as ``_uv_x``; ``kept`` (FILTER, every value present) and ``counted`` (kept, weight > 0)
-    for the direct form's rows (passes/stream.direct_projections)."""
-    values = [plan.x, *plan.columns]
-    w, condition = plan.trailing, plan.condition
-    names = ["_uv_x"] + [f"_uv_v{i}" for i in range(1, len(values))]
-    proj = source.key_projections() + [s.named(checked_value(v, weight_label(v), source.keys), n)
-                                       for v, n in zip(values, names)]
-    kept = s.and_(s.paren(condition.copy()) if condition is not None else None,
-                  *[s.not_null(v.copy()) for v in values])
-    cond = kept.copy()
-    counted = None
-    if w is not None:
-        cw = checked_weight(w, weight_label(w), source.keys)
-        proj.append(s.named(cw, "_uv_w"))
-        cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
-        counted = s.and_(kept.copy(), s.gt(s.cast_double(w.copy()), s.lit(0.0)))
+    """(projections, row condition, kept, counted): the window plan's rows of the ranked pass
+    (passes/ranked.ranked_rows), the ranking value as ``_uv_x``; ``kept`` (FILTER, every value present)
+    and ``counted`` (kept, weight > 0) for the direct form's rows (passes/stream.direct_projections)."""
+    names = ["_uv_x"] + [f"_uv_v{i}" for i in range(1, nvalues(plan))]
+    proj, cond, kept = ranked.ranked_rows(source, plan, names)
+    w = plan.trailing
+    counted = None if w is None else s.and_(kept.copy(), s.gt(s.cast_double(w.copy()), s.lit(0.0)))
     return proj, cond, kept, counted
 
 
