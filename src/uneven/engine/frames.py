@@ -40,15 +40,18 @@ def register_caller_frames(con, sql: str, frame: types.FrameType | None) -> list
     connection already has a table or view of that name. Returns the names registered."""
     if frame is None:
         return []
-    names = _table_names(sql)
-    if not names:
+    held = {}
+    for name in sorted(_table_names(sql)):
+        obj = frame.f_locals.get(name, frame.f_globals.get(name))
+        if obj is not None and _is_frame(obj):
+            held[name] = obj
+    if not held:  # (the common case: no catalog query)
         return []
     existing = {r[0] for r in con.execute(
         "SELECT table_name FROM information_schema.tables").fetchall()}
     done = []
-    for name in sorted(names - existing):
-        obj = frame.f_locals.get(name, frame.f_globals.get(name))
-        if obj is not None and _is_frame(obj):
+    for name, obj in held.items():
+        if name not in existing:
             con.register(name, obj)
             done.append(name)
     return done

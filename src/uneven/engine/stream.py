@@ -27,6 +27,7 @@ from uneven.compiler.context import CompileOptions
 from uneven.compiler.passes.stream import StreamJob
 from uneven.compiler.pipeline import compile_with_context
 from uneven.engine.columns import DuckDBSchema
+from uneven.engine.heap import keep_batch_memory
 from uneven.engine.prefetch import prefetched
 from uneven.engine.runner import execute_df, translate_error
 from uneven.engine.streamranked import RankedState
@@ -85,6 +86,7 @@ def run_job(con: duckdb.DuckDBPyConnection, job: StreamJob, batch_rows: int | No
 def _run_job(con: duckdb.DuckDBPyConnection, job: StreamJob, batch_rows: int | None, rows_sql: str,
              totals_sql: str, checked: bool) -> pa.Table:
     batch_rows = batch_rows or BATCH_ROWS
+    keep_batch_memory()  # (engine/heap.py: a batch's numpy temporaries reused, not faulted in again)
     state: StreamState | RankedState = (RankedState(job.ranked, job.weighted) if job.ranked
                                         else StreamState(job.needs, job.weighted))
     kept = KeptGroups(job.keys, job.weighted) if job.keeps_groups else None
