@@ -22,6 +22,11 @@ totals' cross sums lost digits (2.6e-12 of Palma's variance on 1e12 plus small i
 PSUs; formed first, at most 7e-14: tests/test_stream_design_cuts.py). The cells are shared by the pass's
 errors: each term is summed once per cell however many errors read it (ScoreDesignSums). Each
 finished group gives each error one row [fewest units of a stratum, v].
+
+The moment measures' errors with a design (theil_se, mld_se, ge_se, atkinson_se, fgt_se: kernels in
+catalog/design_kernels_moment.py) share the machinery: their row terms in r = x/μ (μ = T/W from the totals
+query: engine/streamse_moment.py) join the cells, and their estimates read each group's plain sums of the
+terms (``sed_sums``), summed here beside the cells.
 """
 
 from __future__ import annotations
