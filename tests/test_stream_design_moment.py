@@ -182,13 +182,13 @@ def test_edge_groups(batch):
         assert v is not None and rel(got.th[i] ** 2, v) <= 1e-12, i
 
 
-def test_filter_having_and_the_joined_form(survey, batch):
-    # count(*) beside the measures: the stream's table joins the main GROUP BY on the keys; a FILTER, HAVING
-    # and expressions of the results work on it as on the window plan's CTEs
-    sql = ("SELECT a, count(*) AS n, round(theil_se(x, w, strata := h, psu := c) FILTER (WHERE b = 'n'), 9) AS th, "
+def test_filter_having_cte_and_the_joined_form(survey, batch):
+    # count(*) beside the measures: the stream's table joins the main GROUP BY on the keys; a FILTER, HAVING,
+    # the scope's CTE and expressions of the results work on it as on the window plan's CTEs
+    sql = ("WITH v AS (SELECT * FROM t WHERE w IS NULL OR w < 3) SELECT a, count(*) AS n, round(theil_se(x, w, strata := h, psu := c) FILTER (WHERE b = 'n'), 9) AS th, "
            "gini_se(x, w, strata := h, psu := c) FILTER (WHERE b = 'n') AS g, "
            "atkinson_ci_hi(x, 0.5, w, psu := c) - atkinson(x, 0.5, w) AS half, "
-           "gini_se(x, w, psu := c) AS gp FROM t GROUP BY a HAVING mld_se(x, w, strata := h, psu := c) > 0 "
+           "gini_se(x, w, psu := c) AS gp FROM v GROUP BY a HAVING mld_se(x, w, strata := h, psu := c) > 0 "
            "ORDER BY a")
     found = uneven.explain(sql, survey, ordered="stream")
     assert [p["kind"] for p in found.passes].count("stream") == 3, found.passes
