@@ -292,7 +292,8 @@ LINEARIZED_STREAMS = True
 # PSUs without a sort, 0.82-0.88x over groups of 6 to 25 rows (bench/README.md, "Stream plan, survey
 # designs: the moment measures' errors").
 MOMENT_ERRORS_KEEP = ("window plan: the moment measures' errors alone need no sort (sums over the group and its "
-                      "mean), so auto keeps the window plan; beside gini_se or a cut-based error they stream "
+                      "mean, with a survey design per stratum and PSU), so auto keeps the window plan; beside "
+                      "gini_se or a cut-based error they stream "
                       "(bench/README.md, \"Stream plan: the moment measures' standard errors\")")
 # A linearized pass with a survey design (strata :=, psu :=) streams too: the stream carries each
 # group's sums per (stratum, PSU) (engine/streamdesign.py; the cut-based errors' terms:
