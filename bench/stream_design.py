@@ -4,6 +4,8 @@ DuckDB's own sort of the same columns (docs/plans.md, "A survey design on the st
     python bench/stream_design.py                          # 2M rows x 100 groups, 50 strata x 20 PSUs
     python bench/stream_design.py --rows 20000000 --groups 1000 --repeat 3
     python bench/stream_design.py --measures cuts          # the cut-based errors instead of the Gini's
+    python bench/stream_design.py --measures moments       # gini_se, theil_se, atkinson_se (docs/plans.md)
+    python bench/stream_design.py --measures theil         # theil_se alone (auto keeps the window plan)
 
 Data (fixed seed, written once to a Parquet file under the temp directory): lognormal values,
 uniform float weights, group ids drawn uniformly, a stratum 0 … STRATA−1 and a PSU 0 … PSUS−1 within
@@ -13,7 +15,9 @@ Cases, in one process, 2 threads, memory_limit 1GB, alternating, the median of -
   sort       SELECT max(w) FROM (SELECT grp, x, w, h, c FROM f ORDER BY grp, x)     (DuckDB's sort)
   window     SELECT grp, gini(x, w), gini_se(x, w, strata := h, psu := c) … ordered="window"
              (--measures cuts: lorenz(x, 0.4, w), lorenz_se(x, 0.4, w, …), palma_se(x, w, …),
-             quantile_w_se(x, 0.5, w, …): the cut-based errors, docs/plans.md)
+             quantile_w_se(x, 0.5, w, …): the cut-based errors, docs/plans.md; --measures moments:
+             gini_se(x, w, …), theil_se(x, w, …), atkinson_se(x, 0.5, w, …), the moment measures' errors
+             beside the Gini's; --measures theil: theil(x, w), theil_se(x, w, …) alone)
   stream     the same, ordered="stream"
   window_h, stream_h   strata only (every row its own unit)
   window_c, stream_c   PSUs only (one stratum)
@@ -35,7 +39,10 @@ from pathlib import Path
 DESIGNS = {"": ", strata := h, psu := c", "_h": ", strata := h", "_c": ", psu := c", "_0": ""}
 MEASURES = {"gini": "gini(x, w) AS g, gini_se(x, w{d}) AS se",
             "cuts": "lorenz(x, 0.4, w) AS g, lorenz_se(x, 0.4, w{d}) AS se, palma_se(x, w{d}) AS pa, "
-                    "quantile_w_se(x, 0.5, w{d}) AS q"}
+                    "quantile_w_se(x, 0.5, w{d}) AS q",
+            "moments": "gini(x, w) AS g, gini_se(x, w{d}) AS se, theil_se(x, w{d}) AS th, "
+                       "atkinson_se(x, 0.5, w{d}) AS at",
+            "theil": "theil(x, w) AS g, theil_se(x, w{d}) AS se"}
 
 
 def make_data(rows: int, groups: int, strata: int, psus: int) -> Path:

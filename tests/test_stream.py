@@ -246,8 +246,8 @@ def test_compile_always_emits_the_portable_window_sql():
 @pytest.mark.parametrize("sql, reason", [
     ("SELECT a, gini(x, w), below_line_share_se(x, 0.6, w) FROM t GROUP BY a", "no stream kernel for below_line_share_se"),
     ("SELECT a, gini_se(x, w), median_gap_se(x, 0.6, w) FROM t GROUP BY a", "no stream kernel for median_gap_se"),
-    ("SELECT a, gini_se(x, w, psu := b), theil_se(x, w, psu := b) FROM t GROUP BY a",
-     "no stream kernel for theil_se with a survey design"),
+    ("SELECT a, gini_se(x, w, psu := b), below_line_share_se(x, 0.6, w, psu := b) FROM t GROUP BY a",
+     "no stream kernel for below_line_share_se with a survey design"),
     ("SELECT * FROM (SELECT a, gini(x, w) AS v FROM t GROUP BY a) s", "in a subquery or CTE"),
     ("SELECT a, gini(x, w) FROM t USING SAMPLE 50 PERCENT (bernoulli, 3) GROUP BY a", "read once"),
 ])

@@ -280,9 +280,9 @@ def test_explain_says_the_design_streams_and_compile_is_unchanged(survey):
     assert kinds(sql, con, "window") == ["linearized"]
     assert uneven.compile(sql, ordered="stream") == uneven.compile(sql, ordered="window")
     # a measure without a design kernel keeps the window plan and says why
-    other = uneven.explain("SELECT a, theil_se(x, w, strata := h) FROM t GROUP BY a", con, ordered="stream")
+    other = uneven.explain("SELECT a, median_gap_se(x, 0.6, w, strata := h) FROM t GROUP BY a", con, ordered="stream")
     assert other.passes[0]["kind"] == "linearized"
-    assert "no stream kernel for theil_se" in other.passes[0]["reason"]
+    assert "no stream kernel for median_gap_se with a survey design" in other.passes[0]["reason"]
 
 
 # ---- the accumulator's state ----------------------------------------------------------------------

@@ -240,8 +240,9 @@ def test_plans_auto_picks_and_compile_never_streams(grouped):
     assert line.passes[0]["kind"] == "linearized"
     assert "no stream kernel for median_gap_se (a median-line error's score reads the group's median" \
         in line.passes[0]["reason"]
+    # with a survey design they stream too (tests/test_stream_design_moment.py)
     designed = uneven.explain("SELECT a, theil_se(x, w, strata := b) FROM t GROUP BY a", grouped, ordered="stream")
-    assert designed.passes[0]["kind"] == "linearized"
+    assert designed.passes[0]["kind"] == "stream"
     sql = "SELECT a, gini_se(x, w), theil_se(x, w), fgt_ci_lo(x, 1, 2, w) FROM t GROUP BY a"
     assert uneven.compile(sql, ordered="stream") == uneven.compile(sql, ordered="window")
 

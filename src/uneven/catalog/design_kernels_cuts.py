@@ -10,6 +10,9 @@ the window plan's variance (compiler/passes/linearized.py) Σ_h n_h/(n_h − 1)�
 (engine/streamdesign_cuts.py); the kernel takes the root. Its outcomes are the window plan's: NULL
 where a stratum has one unit, where the estimate is NULL or no standard error exists (p at 0 or 1 for
 a quantile, no density); exactly 0 where every value is equal and for L(0), L(1) (a score of 0).
+
+The moment measures' errors (theil_se, mld_se, ge_se, atkinson_se, fgt_se) take the same kernels over
+their own scores (catalog/design_kernels_moment.py).
 """
 
 from __future__ import annotations
@@ -19,7 +22,11 @@ from collections.abc import Callable
 import numpy as np
 
 from uneven.catalog import kernels_se
+from uneven.catalog.design_kernels_moment import MOMENT_SCORES
 from uneven.catalog.kernels import Need, Recorder
+
+# the score of every error with a design kernel here: the cut-based ones and the moment measures'
+DESIGN_SCORES = {**kernels_se.SCORES, **MOMENT_SCORES}
 
 
 def design_variance(acc, base: str, params: tuple) -> tuple[np.ndarray, np.ndarray]:
@@ -37,7 +44,7 @@ def _kernel(base: str, role: str) -> Callable:
     def kernel(acc, params):
         level = params[-1] if role != "se" else 0.0
         params = tuple(params[:-1]) if role != "se" else tuple(params)  # (an error and its intervals share it)
-        score = kernels_se.SCORES[base](acc, params)
+        score = DESIGN_SCORES[base](acc, params)
         if not score.defined:
             return np.full(np.shape(score.est), np.nan)
         fewest, v = design_variance(acc, base, params)
@@ -47,5 +54,6 @@ def _kernel(base: str, role: str) -> Callable:
 
 
 CUT_BASES = tuple(base for base in kernels_se.SCORES if base != "gini")  # (the Gini's: design_kernels.py)
-DESIGN_CUT_KERNELS: dict[str, Callable] = {f"{base}_{suffix}": _kernel(base, role) for base in CUT_BASES
+DESIGN_CUT_KERNELS: dict[str, Callable] = {f"{base}_{suffix}": _kernel(base, role)
+                                           for base in CUT_BASES + tuple(MOMENT_SCORES)
                                            for suffix, role in (("se", "se"), ("ci_lo", "lo"), ("ci_hi", "hi"))}

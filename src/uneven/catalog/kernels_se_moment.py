@@ -37,8 +37,9 @@ def is_moment_kind(kind: str) -> bool:
 
 def reads_mean(needs) -> bool:
     """Whether a job's row terms read the group's mean μ = T/W: the totals query then brings T
-    (compiler/passes/stream.py), so μ is on every row before the rows stream."""
-    return any(n.name == "se_moments" and any(is_moment_kind(k) for k, _ in n.params) for n in needs)
+    (compiler/passes/stream.py), so μ is on every row before the rows stream. (``sed_sums``: the terms'
+    sums with a survey design, catalog/design_kernels_moment.py.)"""
+    return any(n.name in ("se_moments", "sed_sums") and any(is_moment_kind(k) for k, _ in n.params) for n in needs)
 
 
 def power(a: float) -> tuple[str, float]:

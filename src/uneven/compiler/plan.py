@@ -286,14 +286,19 @@ LINEARIZED_STREAMS = True
 # beside gini_se or a cut-based error, whose window plan sorts anyway: gini_se, theil_se and atkinson_se measured
 # 0.39-0.42x the window plan at 2M x 100 (two runs), 0.96-1.03x over 200k groups of 6 rows. Alone their window
 # plan sorts nothing (μ over the partition, then sums): the stream measured 2.75-3.58x it at 2M x 100 and
-# 1.10-1.19x on 6-row groups (bench/README.md, "Stream plan: the moment measures' standard errors").
+# 1.10-1.19x on 6-row groups (bench/README.md, "Stream plan: the moment measures' standard errors"). With a
+# survey design (catalog/design_kernels_moment.py) the same rule: beside gini_se 0.66-0.73x the window plan
+# (2M x 100, 200k groups of 6 rows); theil_se alone 2.0-2.3x at 2M x 100, where the window plan groups the
+# PSUs without a sort, 0.82-0.88x over groups of 6 to 25 rows (bench/README.md, "Stream plan, survey
+# designs: the moment measures' errors").
 MOMENT_ERRORS_KEEP = ("window plan: the moment measures' errors alone need no sort (sums over the group and its "
-                      "mean), so auto keeps the window plan; beside gini_se or a cut-based error they stream "
+                      "mean, with a survey design per stratum and PSU), so auto keeps the window plan; beside "
+                      "gini_se or a cut-based error they stream "
                       "(bench/README.md, \"Stream plan: the moment measures' standard errors\")")
 # A linearized pass with a survey design (strata :=, psu :=) streams too: the stream carries each
 # group's sums per (stratum, PSU) (engine/streamdesign.py; the cut-based errors' terms:
-# engine/streamdesign_cuts.py), which the refine plan cannot; measured in bench/README.md, "Stream plan,
-# survey designs".
+# engine/streamdesign_cuts.py, the moment errors' too), which the refine plan cannot; measured in
+# bench/README.md, "Stream plan, survey designs".
 DESIGN_STREAMS = True
 
 

@@ -22,6 +22,11 @@ totals' cross sums lost digits (2.6e-12 of Palma's variance on 1e12 plus small i
 PSUs; formed first, at most 7e-14: tests/test_stream_design_cuts.py). The cells are shared by the pass's
 errors: each term is summed once per cell however many errors read it (ScoreDesignSums). Each
 finished group gives each error one row [fewest units of a stratum, v].
+
+The moment measures' errors with a design (theil_se, mld_se, ge_se, atkinson_se, fgt_se: kernels in
+catalog/design_kernels_moment.py) share the machinery: their row terms in r = x/μ (μ = T/W from the totals
+query: engine/streamse_moment.py) join the cells, and their estimates read each group's plain sums of the
+terms (``sed_sums``), summed here beside the cells.
 """
 
 from __future__ import annotations
@@ -30,21 +35,24 @@ from collections.abc import Callable
 
 import numpy as np
 
-from uneven.catalog import kernels_se, variance_floor
+from uneven.catalog import variance_floor
+from uneven.catalog.design_kernels_cuts import DESIGN_SCORES
+from uneven.catalog.design_kernels_moment import SUMS
 from uneven.catalog.kernels import Need, Recorder
-from uneven.engine import streamse
+from uneven.engine import streamse, streamse_moment
 from uneven.engine.streamdesign import DesignSums, design_rows
 
-NEEDS = ("se_design",)
+NEEDS = ("se_design", SUMS)
 # how two partial values of one group combine (engine/streamsums._combine): the row is built by the
-# design state when the group ends ("last"); the carriers as those of engine/streamse.py
-KINDS = {"se_design": "last", "sed_q": "min", "sed_s": "sum"}
+# design state when the group ends ("last"); the carriers as those of engine/streamse.py; the moment
+# measures' term sums (catalog/design_kernels_moment.py) add up
+KINDS = {"se_design": "last", "sed_q": "min", "sed_s": "sum", SUMS: "sum"}
 
 
 def score_terms(need: Need) -> tuple:
     """The row terms of the score of the need's measure ``(base, parameters)``, in a fixed order."""
     base, params = need.params
-    return tuple(sorted(kernels_se.SCORES[base](Recorder(), params).parts))
+    return tuple(sorted(DESIGN_SCORES[base](Recorder(), params).parts))
 
 
 class ScoreDesignSums(DesignSums):
@@ -120,34 +128,51 @@ class ErrorView:
 
 def segment_values(needs: list[Need], acc, x: np.ndarray, d: np.ndarray, w: np.ndarray | None, c: np.ndarray,
                    seg: np.ndarray, m: np.ndarray, wt: np.ndarray, carried: dict | None, designs: dict,
-                   columns: dict, prefix: Callable) -> dict:
+                   columns: dict, prefix: Callable, tt: np.ndarray | None = None) -> dict:
     """Each need's row per segment ([fewest, v], NaN for the open group's) and the carriers: Q_p found
-    (``sed_q``) and S_d (``sed_s``) of the open group. ``acc`` the segments' quantities (the open
-    group's carried in: streamsums.GroupValues) for the coefficients, ``wt`` each segment's W from the
-    totals query, ``designs`` the stream's design states by need (one ScoreDesignSums shared by the
-    pass's errors), ``columns`` the batch's stratum and PSU columns."""
+    (``sed_q``) and S_d (``sed_s``) of the open group; the moment terms' sums per segment (``sed_sums``).
+    ``acc`` the segments' quantities (the open group's carried in: streamsums.GroupValues) for the
+    coefficients, ``wt`` each segment's W from the totals query (``tt`` its Σ w·x, where a moment term reads
+    μ = T/W: engine/streamse_moment.py), ``designs`` the stream's design states by need (one
+    ScoreDesignSums shared by the pass's errors), ``columns`` the batch's stratum and PSU columns."""
     n, nseg = len(x), len(seg)
     lens = np.diff(np.append(seg, n))
     wt_row = wt[0] if nseg == 1 else np.repeat(wt, lens)
     ww = np.ones(n) if w is None else w
+    sums = [need for need in needs if need.name == SUMS]
+    needs = [need for need in needs if need.name != SUMS]
     per_need = [score_terms(need) for need in needs]
-    terms = sorted(set().union(*per_need))
+    terms = sorted(set().union(*per_need, *(need.params for need in sums)))
     q_key, s_key = Need("sed_q"), Need("sed_s")
     quantiles = [p for kind, p in terms if kind == "qle"]
     found = np.empty((nseg, len(quantiles)))
     out: dict = {}
     cols = []
+    mu = None
     for kind, p in terms:
-        col, extra = streamse.term_column(kind, p, x, d, ww, c, seg, lens, wt_row, carried, q_key, s_key, prefix,
-                                          quantiles)
+        if streamse_moment.is_moment_kind(kind):  # the moment measures' terms in r = x/μ
+            if mu is None:
+                assert tt is not None  # (the totals query sums w·x for them: kernels_se_moment.reads_mean)
+                mu = streamse_moment.mean_rows(tt, wt, lens)
+            col, extra = streamse_moment.term(kind, p, x, ww, mu), None
+            # NaN only where the term's own estimate is NULL (μ where T ≤ 0, ln r where r ≤ 0 …); the cells
+            # are shared by every error of the pass (0·NaN is NaN), so such rows add 0 instead
+            col = np.where(np.isnan(col), 0.0, col)
+        else:
+            col, extra = streamse.term_column(kind, p, x, d, ww, c, seg, lens, wt_row, carried, q_key, s_key,
+                                              prefix, quantiles)
         cols.append(np.broadcast_to(col, (n,)))
         streamse.keep_extra(kind, p, extra, found, quantiles, out, s_key)
     if quantiles:
         out[q_key] = found
+    for need in sums:  # the estimates' sums (the open group's carried in for the coefficients below)
+        part = np.stack([np.add.reduceat(cols[terms.index(t)], seg) for t in need.params], axis=1)
+        out[need] = part
+        acc.values[need] = part if carried is None else np.concatenate([part[:1] + carried[need], part[1:]])
     coef = np.zeros((nseg, len(terms), len(needs)))
     for i, (need, own) in enumerate(zip(needs, per_need)):
         base, params = need.params
-        score = kernels_se.SCORES[base](acc, params)
+        score = DESIGN_SCORES[base](acc, params)
         for t in own:
             coef[:, terms.index(t), i] = score.parts[t]
     if needs[0] not in designs:

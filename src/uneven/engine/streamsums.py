@@ -377,7 +377,8 @@ class StreamState:
             assert self.totals is not None  # the cuts read W (kernels.TOTAL_NEEDS)
             acc = GroupValues({k: _with_carried(k, v, carried) for k, v in out.items()}, m_seg)
             out.update(streamdesign_cuts.segment_values(designed, acc, x, d, w, c, seg, m_seg, self.totals[gidx],
-                                                        carried, self.designs, self.design_columns, segmented_prefix))
+                                                        carried, self.designs, self.design_columns, segmented_prefix,
+                                                        None if self.totals_t is None else self.totals_t[gidx]))
         return out
 
     def _chunks(self, need: Need, x, w, c, seg, gidx, carried) -> np.ndarray:
