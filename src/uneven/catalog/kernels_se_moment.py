@@ -137,6 +137,20 @@ def gap_share(alpha: float, line: float, x):
         return np.where(x < line, share, 0.0)
 
 
+def gap_shifted(alpha: float, line: float, x, m):
+    """g(x) − g(m), m ≤ x the group's smallest value, formed as catalog/poverty_lin.gap_shifted forms it."""
+    with _with():
+        if alpha == 0:
+            diff = 0.0
+        elif alpha == 1:
+            diff = (m - x) / line
+        elif alpha == 2:
+            diff = ((m - x) / line) * (((line - x) + (line - m)) / line)
+        else:
+            diff = ((line - x) / line) ** alpha - ((line - m) / line) ** alpha
+        return np.where(x < line, diff, -gap_share(alpha, line, m))
+
+
 def fgt_score(acc, alpha: float, line: float) -> Score:
     # a fixed line: z = (g − F)/W, g = 1(x < z)·((z − x)/z)^α, written as the window plan writes it
     # (catalog/poverty_lin.fgt) on the term w·(g − g₀), g₀ = g(m) at the group's smallest value m:

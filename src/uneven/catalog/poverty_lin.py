@@ -121,11 +121,29 @@ def fgt(ctx, alpha: float, line: float) -> Lin:
     # (g/δg)² times the rounding: 3e-8 relative (docs/plans.md, "The moment measures' standard errors")
     est = pov.build_fgt(ctx, (alpha, line))
     W = ctx.W
-    g = pov.gap_term(ctx.x, s.lit(line), ctx.w, alpha)
-    g0 = pov.gap_term(ctx.min_part, s.lit(line), ONE, alpha)
-    shifted = s.sub(g, s.mul(ctx.w, g0))
+    shifted = gap_shifted(ctx.x, ctx.min_part, s.lit(line), ctx.w, alpha)
     D = s.div(ctx.sum(shifted.copy()), W)
     return Lin(est, [(shifted, s.div(ONE, W.copy())), (ctx.w, s.div(neg(D), W.copy()))])
+
+
+def gap_shifted(x, m, z, w, alpha: float) -> exp.Expression:
+    """w·(g(x) − g(m)), g(v) = 1(v < z)·((z − v)/z)^α, m ≤ x the group's smallest value (all owned). Below the
+    line (then m < z too) the difference is formed without cancelling where it can: 0 at α = 0, (m − x)/z at
+    α = 1, ((m − x)/z)·((z − x + z − m)/z) at α = 2 (x near m: m − x exact); else the two powers' difference."""
+    gm = pov.gap_term(m.copy(), z.copy(), ONE, alpha)
+    above = neg(s.mul(w.copy(), gm))
+    base = lambda v: s.div(s.sub(z.copy(), v.copy()), z.copy())  # noqa: E731
+    diff: exp.Expression
+    if alpha == 0:
+        return s.case(s.lt(x.copy(), z.copy()), ZERO, above)
+    if alpha == 1:
+        diff = s.div(s.sub(m.copy(), x.copy()), z.copy())
+    elif alpha == 2:
+        both = s.div(s.add(s.sub(z.copy(), x.copy()), s.sub(z.copy(), m.copy())), z.copy())
+        diff = s.mul(s.div(s.sub(m.copy(), x.copy()), z.copy()), both)
+    else:
+        diff = s.sub(s.power(base(x), s.lit(alpha)), s.power(base(m), s.lit(alpha)))
+    return s.case(s.lt(x, z), s.mul(w, diff), above)
 
 
 def mean(ctx) -> Lin:

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from uneven.catalog.kernels_se_moment import GAP, gap_share, is_moment_kind
+from uneven.catalog.kernels_se_moment import GAP, gap_shifted, is_moment_kind
 
 __all__ = ["is_moment_kind", "mean_rows", "power_term", "term"]
 
@@ -26,7 +26,7 @@ def term(kind: str, p: float, x: np.ndarray, ww: np.ndarray, mu: np.ndarray, m: 
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         if kind.startswith(GAP):  # w·(g(x) − g(m)), g the gap share at the line z (kernels_se_moment.fgt_score)
             alpha, z = float(kind[len(GAP):]), p
-            return ww * gap_share(alpha, z, x) - ww * gap_share(alpha, z, m)
+            return ww * gap_shifted(alpha, z, x, m)
         r = x / mu
         d = (x - mu) / mu
         if kind == "dev":
