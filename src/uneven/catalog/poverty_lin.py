@@ -130,12 +130,12 @@ def gap_shifted(x, m, z, w, alpha: float) -> exp.Expression:
     """w·(g(x) − g(m)), g(v) = 1(v < z)·((z − v)/z)^α, m ≤ x the group's smallest value (all owned). Below the
     line (then m < z too) the difference is formed without cancelling where it can: 0 at α = 0, (m − x)/z at
     α = 1, ((m − x)/z)·((z − x + z − m)/z) at α = 2 (x near m: m − x exact); else the two powers' difference."""
-    gm = pov.gap_term(m.copy(), z.copy(), ONE, alpha)
+    gm = pov.gap_term(m.copy(), z.copy(), ONE.copy(), alpha)
     above = neg(s.mul(w.copy(), gm))
     base = lambda v: s.div(s.sub(z.copy(), v.copy()), z.copy())  # noqa: E731
     diff: exp.Expression
     if alpha == 0:
-        return s.case(s.lt(x.copy(), z.copy()), ZERO, above)
+        return s.case(s.lt(x.copy(), z.copy()), ZERO.copy(), above)
     if alpha == 1:
         diff = s.div(s.sub(m.copy(), x.copy()), z.copy())
     elif alpha == 2:
