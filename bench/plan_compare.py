@@ -3,6 +3,7 @@
     python bench/plan_compare.py --base f4c9f3b                       # g1000, every family below
     python bench/plan_compare.py --base HEAD~3 --data g100k --families moment,ten --repeat 5
     python bench/plan_compare.py --base HEAD~1 --families se,se_design            # linearized SEs
+    python bench/plan_compare.py --base 1907c59 --families se,se_design,se_fgt,se_fgt_mix   # fgt_se's shift
 
 The base revision's ``src/`` is exported with ``git archive`` to a temporary folder; each query is
 compiled by that version and by the working tree (each in a subprocess), then both SQL texts run
@@ -37,6 +38,10 @@ FAMILIES = {
     "se": "gini_se(x, w), palma_se(x, w), lorenz_se(x, 0.4, w), quantile_w_se(x, 0.5, w)",
     "se_design": "gini_se(x, w, strata := hash(x) % 5, psu := hash(w) % 40), "
                  "palma_se(x, w, strata := hash(x) % 5, psu := hash(w) % 40)",
+    # the fixed line's errors alone (a window over the partition for the group's smallest value) and beside
+    # theil_se (whose μ is such a window already); the line near the data's median
+    "se_fgt": "fgt_se(x, 0, 1000, w), fgt_se(x, 2, 1000, w)",
+    "se_fgt_mix": "theil_se(x, w), fgt_se(x, 2, 1000, w)",
 }
 
 

@@ -10,6 +10,7 @@ size). Each case in a fresh subprocess, 2 threads, memory_limit 1GB:
   sort                     SELECT max(x) FROM (SELECT grp, x, w FROM f ORDER BY grp, x)
   window_mix, stream_mix   gini_se(x, w), theil_se(x, w), atkinson_se(x, 0.5, w)  (gini_se needs the sort)
   window_moment, stream_moment   theil_se(x, w) alone (its window plan sorts nothing)
+  window_fgt, stream_fgt   fgt_se(x, 2, 25000, w) alone (not in the default cases)
 
 Prints the median per case, the ratios to the sort and between the plans, the largest relative
 difference between the plans' results, and the load average before and after.
@@ -33,6 +34,7 @@ from stream import TEMP, make_data  # noqa: E402  (bench/stream.py: the same dat
 MEASURES = {
     "mix": "gini_se(x, w), theil_se(x, w), atkinson_se(x, 0.5, w)",
     "moment": "theil_se(x, w)",
+    "fgt": "fgt_se(x, 2, 25000, w)",  # a fixed line near the data's median (--cases sort,window_fgt,stream_fgt)
 }
 CASES = ("sort", "window_mix", "stream_mix", "window_moment", "stream_moment")
 

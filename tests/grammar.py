@@ -91,12 +91,9 @@ SE_MEASURES = [("gini_se", [], "weight"), ("theil_se", [], "weight"), ("top_shar
                ("lorenz_se", ["fraction"], "weight"), ("generalized_lorenz_ci_lo", ["fraction"], "weight"),
                ("palma_se", [], "weight"), ("quantile_w_se", ["fraction"], "weight"),
                ("percentile_ratio_ci_hi", ["hi", "lo"], "weight"), ("wolfson_se", [], "weight"),
-               # the moment errors the stream serves beside those (catalog/kernels_se_moment.py); not fgt_se:
-               # where every row is far below the line its score w·(g − F)/W is small against w·g and the
-               # window plan's variance from raw sums (n·Σu² − (Σu)², passes/linearized.py) keeps 1e-7 to 1e-8
-               # of it (3 of 1000 shapes, seed 9, past the 1e-9 tolerance). Known: with a survey design (the window
-               # plan) the same raw sums leave ~1e-9 of an error whose PSU totals cancel (oracle 3e-16; seed 9)
-               ("mld_ci_lo", [], "weight"), ("ge_se", ["alpha"], "weight"), ("atkinson_se", ["eps"], "weight")]
+               # the moment errors the stream serves beside those (catalog/kernels_se_moment.py)
+               ("mld_ci_lo", [], "weight"), ("ge_se", ["alpha"], "weight"), ("atkinson_se", ["eps"], "weight"),
+               ("fgt_se", ["povalpha", "line"], "weight")]
 # a survey design on a standard error (strata := …, psu := …), drawn on half of the SE calls: text,
 # integer and expression columns, NULLs among them (a NULL stratum or PSU is a value of its own)
 DESIGN_COLUMNS = ["t.province", "t.hh_size", "t.year", "t.hh_size % 3", "COALESCE(t.province, 'none')",

@@ -84,6 +84,13 @@ def moments(acc, terms: tuple) -> tuple[np.ndarray, np.ndarray]:
     return rows[:, 0], rows[:, 1 + K:].reshape(-1, K, K)
 
 
+def term_means_of(acc, terms: tuple) -> np.ndarray:
+    """The row terms' means (groups, K) from the moments ``moments`` reads."""
+    if isinstance(acc, Recorder):
+        return np.ones((1, len(terms)))
+    return acc.read(Need("se_moments", params=terms))[:, 1:1 + len(terms)]
+
+
 def band_quantile(acc, p: float, side: int) -> np.ndarray:
     """Q(p ± K(p)·n^(−1/3)) within [0, 1] (side +1 or −1): the smallest x with C/W ≥ that level, else the
     largest x."""
@@ -219,17 +226,20 @@ def standard_error(acc, score: Score) -> np.ndarray:
         # within the rounding of an exactly vanishing form: 0 (catalog/variance_floor.py)
         diag = np.diagonal(M, axis1=1, axis2=2) * (n / (n - 1.0))[:, None]
         v = np.where(variance_floor.negligible(v, c, diag, n), 0.0, v)
-    return root(acc, score.est, v, n > 1)
+        mean = term_means_of(acc, terms)  # the raw moments Σ t² = M + n·mean², Σ t = n·mean
+        raw = diag + (mean * mean) * (n * n / (n - 1.0))[:, None]
+        lost = variance_floor.lost(c, raw, mean)
+    return root(acc, score.est, v, n > 1, lost)
 
 
-def root(acc, est: np.ndarray, v: np.ndarray, enough: np.ndarray) -> np.ndarray:
+def root(acc, est: np.ndarray, v: np.ndarray, enough: np.ndarray, lost=False) -> np.ndarray:
     """sqrt(v) where the estimate and v are finite and the group has ``enough`` units; exactly 0 where
-    every value is equal or v rounds below 0 (the window plan's rule; also the survey design's,
-    catalog/design_kernels.py)."""
+    every value is equal or v rounds below 0, else NULL where the terms are ``lost`` to underflow
+    (catalog/variance_floor.py; the window plan's rule; also the survey design's, catalog/design_kernels.py)."""
     with _with():
-        zero = (acc.xmax == acc.m) | (v < 0)
         known = np.isfinite(est) & enough & np.isfinite(v)
-        return np.where(known, np.where(zero, 0.0, np.sqrt(np.abs(v))), np.nan)
+        value = np.where(lost, np.nan, np.where(v < 0, 0.0, np.sqrt(np.abs(v))))
+        return np.where(known, np.where(acc.xmax == acc.m, 0.0, value), np.nan)
 
 
 def output(role: str, est: np.ndarray, se: np.ndarray, level: float) -> np.ndarray:

@@ -9,7 +9,7 @@ in r = x/μ with μ = T/W from the totals query, so each is of the order of the 
 
     ("theil", 0)  w·(r ln r − (r − 1)) (1 where r = 0)       ("mld", 0)   w·((r − 1) − ln r) (r > 0)
     ("pow", a)    w·(r^a − 1 − a(r − 1))                      ("dev", 0)   w·(x − μ)/μ
-    ("gap<α>", z) w·1(x < z)·((z − x)/z)^α (a fixed line z)
+    ("gap<α>", z) w·(g(x) − g(m)), g = 1(x < z)·((z − x)/z)^α (a fixed line z, m the group's smallest value)
 
 The estimates are the window plan's Σ w·term / W, here the ratio of the terms' means to the weight's
 (the same sums divided by n), so an estimate and its error read one set of moments. The domains are the
@@ -131,13 +131,36 @@ def atkinson_score(acc, eps: float) -> Score:
         return Score(A, {power(beta): -scale / beta, ONE: scale * P / beta, DEV: scale * P})
 
 
+def gap_share(alpha: float, line: float, x):
+    """g = 1(x < z)·((z − x)/z)^α at the line z (catalog/poverty.gap_term per unit of weight)."""
+    with _with():
+        share = 1.0 if alpha == 0 else ((line - x) / line if alpha == 1 else ((line - x) / line) ** alpha)
+        return np.where(x < line, share, 0.0)
+
+
+def gap_shifted(alpha: float, line: float, x, m):
+    """g(x) − g(m), m ≤ x the group's smallest value, formed as catalog/poverty_lin.gap_shifted forms it."""
+    with _with():
+        if alpha == 0:
+            diff = 0.0
+        elif alpha == 1:
+            diff = (m - x) / line
+        elif alpha == 2:
+            diff = ((m - x) / line) * (((line - x) + (line - m)) / line)
+        else:
+            diff = ((line - x) / line) ** alpha - ((line - m) / line) ** alpha
+        return np.where(x < line, diff, -gap_share(alpha, line, m))
+
+
 def fgt_score(acc, alpha: float, line: float) -> Score:
-    # a fixed line: z = (g − F)/W, g = 1(x < z)·((z − x)/z)^α (catalog/poverty_lin.fgt)
+    # a fixed line: z = (g − F)/W, g = 1(x < z)·((z − x)/z)^α, written as the window plan writes it
+    # (catalog/poverty_lin.fgt) on the term w·(g − g₀), g₀ = g(m) at the group's smallest value m:
+    # z = (g − g₀ − D)/W, D = F − g₀ the term's mean, so both terms are of the order of the spread of g
     mean = term_means(acc, (gap(alpha, line), ONE))
     W = acc.W
     with _with():
-        F = np.where(W > 0, mean[gap(alpha, line)], np.nan)
-        return Score(F, {gap(alpha, line): 1.0 / W, ONE: -F / W})
+        D = np.where(W > 0, mean[gap(alpha, line)], np.nan)
+        return Score(D + gap_share(alpha, line, acc.m), {gap(alpha, line): 1.0 / W, ONE: -D / W})
 
 
 SCORES: dict[str, Callable[..., Score]] = {

@@ -57,7 +57,8 @@ def segment_values(need: Need, x: np.ndarray, d: np.ndarray, w: np.ndarray | Non
     and row count from the totals query, ``carried`` the open group's values (its first segment);
     ``prefix(v, lens)`` the compensated running sums restarted per segment (streamsums.segmented_prefix);
     ``cache`` one dict per batch, shared by the batch's needs: a term's centred column and a pair's cross
-    sums are computed once however many errors read them; ``tt`` each segment's Σ w·x from the totals
+    sums are computed once however many errors read them (and ``cache["m"]`` holds each segment's smallest
+    value); ``tt`` each segment's Σ w·x from the totals
     query, where a moment measure's term reads the group's mean (engine/streamse_moment.py)."""
     n = len(x)
     lens = np.diff(np.append(seg, n))
@@ -76,6 +77,7 @@ def segment_values(need: Need, x: np.ndarray, d: np.ndarray, w: np.ndarray | Non
         return {need: np.add.reduceat(np.clip(float(need.p) * wt_row - (c - ww), 0.0, ww) * d, seg)}
     if tt is not None and "mu" not in cache and any(streamse_moment.is_moment_kind(k) for k, _ in need.params):
         cache["mu"] = streamse_moment.mean_rows(tt, wt, lens)
+        cache["m_row"] = cache["m"][0] if len(lens) == 1 else np.repeat(cache["m"], lens)
     return _moments(need, x, d, w, c, seg, lens, wt_row, carried, prefix, cache)
 
 
@@ -93,7 +95,7 @@ def _moments(need: Need, x, d, w, c, seg, lens, wt_row, carried, prefix: Callabl
     for j, (kind, p) in enumerate(terms):
         if (kind, p) not in cache:  # a term's column is the same for every error of the batch
             if streamse_moment.is_moment_kind(kind):  # the moment measures' terms in r = x/μ
-                col, extra = streamse_moment.term(kind, p, x, ww, cache["mu"]), None
+                col, extra = streamse_moment.term(kind, p, x, ww, cache["mu"], cache["m_row"]), None
             else:
                 col, extra = term_column(kind, p, x, d, ww, c, seg, lens, wt_row, carried, q_key, s_key, prefix,
                                          quantiles)

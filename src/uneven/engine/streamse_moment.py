@@ -1,14 +1,15 @@
 """Row terms of the moment measures' standard errors on the stream (catalog/kernels_se_moment.py),
 for engine/streamse.py's term machinery: the window plan's centred terms (catalog/moment.py) in
 r = x/μ and d = (x − μ)/μ, μ = T/W of the group from the totals query (NaN where T ≤ 0: the window
-plan's NULL μ; such a group's estimate is NULL whatever its terms), and the fixed line's gap term.
+plan's NULL μ; such a group's estimate is NULL whatever its terms), and the fixed line's gap term less
+the gap at the group's smallest value.
 """
 
 from __future__ import annotations
 
 import numpy as np
 
-from uneven.catalog.kernels_se_moment import GAP, is_moment_kind
+from uneven.catalog.kernels_se_moment import GAP, gap_shifted, is_moment_kind
 
 __all__ = ["is_moment_kind", "mean_rows", "power_term", "term"]
 
@@ -20,13 +21,12 @@ def mean_rows(tt: np.ndarray, wt: np.ndarray, lens: np.ndarray) -> np.ndarray:
     return np.full(int(lens[0]), mu[0]) if len(lens) == 1 else np.repeat(mu, lens)
 
 
-def term(kind: str, p: float, x: np.ndarray, ww: np.ndarray, mu: np.ndarray) -> np.ndarray:
-    """w times the row term ``kind`` (parameter ``p``) on every row."""
+def term(kind: str, p: float, x: np.ndarray, ww: np.ndarray, mu: np.ndarray, m: np.ndarray) -> np.ndarray:
+    """w times the row term ``kind`` (parameter ``p``) on every row, ``m`` the group's smallest value."""
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        if kind.startswith(GAP):  # w·((z − x)/z)^α below the line z, else 0 (catalog/poverty.gap_term)
+        if kind.startswith(GAP):  # w·(g(x) − g(m)), g the gap share at the line z (kernels_se_moment.fgt_score)
             alpha, z = float(kind[len(GAP):]), p
-            share = ww if alpha == 0 else ww * ((z - x) / z if alpha == 1 else ((z - x) / z) ** alpha)
-            return np.where(x < z, share, 0.0)
+            return ww * gap_shifted(alpha, z, x, m)
         r = x / mu
         d = (x - mu) / mu
         if kind == "dev":

@@ -301,7 +301,7 @@ class StreamState:
 
     def _segment_values(self, x, d, w, c, seg, gidx, m_seg, carried) -> dict:
         out: dict = {}
-        shared: dict = {}  # the batch's row terms of the standard errors (engine/streamse.py)
+        shared: dict = {"m": m_seg}  # the batch's row terms of the standard errors (engine/streamse.py)
         wd = d if w is None else w * d
         ends = np.append(seg[1:], len(x)) - 1
         cuts = [need for need in self.needs if need.name in streamcuts.CUT_NAMES]

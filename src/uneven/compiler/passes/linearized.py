@@ -209,27 +209,34 @@ def _variance_levels(terms: Terms, row_terms: dict, aggs: Aggregates, keys, name
         k_cols = [s.alias(s.agg_sum(_k_between(j, k, s.col("_uv_nu"))), f"_uv_K{j}_{k}") for j, k in terms.pairs]
         fewest = [s.alias(s.agg_min(s.col("_uv_nu")), "_uv_fewest"), s.alias(s.agg_sum(s.col("_uv_nu")), "_uv_units")]
         diag = [s.alias(s.agg_sum(_diag_bound(j, s.col("_uv_nu"))), f"_uv_A{j}") for j in row_terms]
+        diag += [s.alias(s.agg_sum(s.absval(s.col(_sum_name(j)))), f"_uv_sa{j}") for j in row_terms]
         ctes.append(cte(grouped(keys, k_cols + diag + fewest + aggs.combined(), f"{name}_str"), f"{name}_agg"))
-        floor = Floor({}, s.col("_uv_units"))
+        floor = Floor({}, s.col("_uv_units"), "_uv_sa")
         return ctes, (lambda j, k: s.col(f"_uv_K{j}_{k}")), s.gt(s.col("_uv_fewest"), s.lit(1)), floor
     ctes.append(cte(grouped(keys, _stats(terms, unit_cols) + level_aggs(), below), f"{name}_agg"))
-    floor = Floor({j: _diag_bound(j, s.col("_uv_nu")) for j in row_terms}, s.col("_uv_nu"))
+    floor = Floor({j: _diag_bound(j, s.col("_uv_nu")) for j in row_terms}, s.col("_uv_nu"), "_uv_su")
     return ctes, (lambda j, k: _k_between(j, k, s.col("_uv_nu"))), s.gt(s.col("_uv_nu"), s.lit(1)), floor
 
 
 class Floor:
     """What the rounding bound of a group's variance reads (catalog/variance_floor.py): A_j (``_uv_A{j}``),
     the bound on the j-th diagonal of K, and the number of units summed; ``columns`` the A_j the _coef
-    CTE forms (without strata: from _agg's sums; with strata _agg has them)."""
+    CTE forms (without strata: from _agg's sums; with strata _agg has them); ``sums`` the prefix of the
+    columns whose 0 (with A_j's) marks a term that is 0 on every row: Σ t_j, or Σ_h |S_hj| with strata."""
 
-    def __init__(self, columns: dict[int, exp.Expression], units: exp.Expression):
-        self.columns, self.units = columns, units
+    def __init__(self, columns: dict[int, exp.Expression], units: exp.Expression, sums: str):
+        self.columns, self.units, self.sums = columns, units, sums
 
     def root_bound(self, coefs: dict[int, exp.Expression]) -> exp.Expression:
         return variance_floor.sql_root_bound([c.copy() for c in coefs.values()], [s.col(f"_uv_A{j}") for j in coefs])
 
     def negligible(self, v: exp.Expression, root: exp.Expression, terms: int) -> exp.Expression:
         return variance_floor.sql_within(v, s.mul(root, root.copy()), terms, self.units.copy())
+
+    def lost(self, root: exp.Expression, coefs: dict[int, exp.Expression]) -> exp.Expression:
+        present = [s.or_(s.neq(s.col(f"_uv_A{j}"), s.lit(0.0)), s.neq(s.col(f"{self.sums}{j}"), s.lit(0.0)))
+                   for j in coefs]
+        return variance_floor.sql_lost(root, [c.copy() for c in coefs.values()], present)
 
 
 def _diag_bound(j: int, n: exp.Expression) -> exp.Expression:
@@ -261,7 +268,8 @@ def _result_columns(lifted, equal, K, enough, floor: Floor, name: str) -> tuple:
             variances.append(s.alias(floor.root_bound({j: s.col(f"_uv_c{i}_{j}") for j in coefs}), f"_uv_bnd{i}"))
             v = s.col(f"_uv_v{i}")
             negligible = floor.negligible(v.copy(), s.col(f"_uv_bnd{i}"), len(coefs))
-            value = output(role, e.copy(), _standard_error(e, v, equal, enough, negligible),
+            lost = floor.lost(s.col(f"_uv_bnd{i}"), {j: s.col(f"_uv_c{i}_{j}") for j in coefs})
+            value = output(role, e.copy(), _standard_error(e, v, equal, enough, negligible, lost),
                            call.settings.get("level", 0.95))
         col = f"_uv_r{len(columns) + 1}"
         columns.append(s.alias(value, col))
@@ -269,11 +277,14 @@ def _result_columns(lifted, equal, K, enough, floor: Floor, name: str) -> tuple:
     return named, variances, columns, results
 
 
-def _standard_error(e: exp.Expression, v: exp.Expression, equal, enough, negligible) -> exp.Expression:
-    # v ≤ k·eps·B (below 0 too): within the rounding of an exactly vanishing form (variance_floor.py)
-    zero = s.or_(s.paren(equal.copy()), s.paren(negligible))
+def _standard_error(e: exp.Expression, v: exp.Expression, equal, enough, negligible, lost) -> exp.Expression:
+    # every value equal: 0; the terms below the scale where their cross sums keep digits: NULL; v ≤ k·eps·B
+    # (below 0 too): within the rounding of an exactly vanishing form, 0 (variance_floor.py)
     known = s.and_(s.not_null(e.copy()), enough.copy(), s.not_null(v.copy()))
-    return s.case(known, s.case(zero, s.lit(0.0), s.sqrt(v)))
+    inner = exp.Case(ifs=[exp.If(this=s.paren(equal.copy()), true=s.lit(0.0)),
+                          exp.If(this=lost, true=exp.Cast(this=exp.Null(), to=s.DOUBLE.copy())),
+                          exp.If(this=negligible, true=s.lit(0.0))], default=s.sqrt(v))
+    return s.case(known, inner)
 
 
 def _output_ctes(named, variances, columns, keys, name: str) -> list[exp.CTE]:

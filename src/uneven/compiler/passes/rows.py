@@ -58,6 +58,12 @@ class RowContext(SortedColumns):
     mu_divisor = mu
 
     @property
+    def min_part(self):
+        """The group's smallest value on every row, over the partition alone (no order: no sort)."""
+        self.used.add("minp")
+        return s.col("_uv_mp")
+
+    @property
     def r(self):
         return s.div(self.x, self.mu_divisor)
 
@@ -102,6 +108,9 @@ def window_columns(ctx: RowContext, keys: Sequence[exp.Expression]) -> list[exp.
                             "_uv_s"))
     if "min" in ctx.used:
         cols.append(s.alias(s.window(s.agg_min(x.copy()), part(), [x.copy()], whole=True), "_uv_m"))
+    if "minp" in ctx.used:
+        cols.append(s.alias(s.window(s.agg_min(x.copy()), part()), "_uv_mp"))
+
     def group_weight():  # W over the partition (the row count when unweighted)
         return (s.window(s.agg_sum(w.copy()), part()) if ctx.weighted
                 else s.cast_double(s.window(s.agg_count_star(), part())))
