@@ -109,13 +109,11 @@ def test_design_se_of_large_nearly_equal_values_beats_the_window_plan(batch):
     assert rel(got * got, v) <= 1e-9  # the score's own terms on x − m (the window plan's rank term too)
 
 
-# ---- the window plan and the numpy reference ------------------------------------------------------
-
-@pytest.fixture(scope="module")
-def survey():
-    rng = np.random.default_rng(1002)
-    n = 1600
-    df = pd.DataFrame({"a": rng.integers(0, 4, n).astype(float), "b": rng.choice(["n", "s"], n),
+def survey_rows(seed: int, n: int, keys: int) -> pd.DataFrame:
+    """Invented survey rows: group keys a (``keys`` values) and b, values x, integer weights w (zeros among
+    them), strata h and PSUs c, with NULLs in each (a NULL key is a group, a NULL stratum or PSU a unit)."""
+    rng = np.random.default_rng(seed)
+    df = pd.DataFrame({"a": rng.integers(0, keys, n).astype(float), "b": rng.choice(["n", "s"], n),
                        "x": rng.lognormal(1, 1, n).round(1), "w": rng.integers(0, 4, n).astype(float),
                        "h": rng.choice(["p", "q", "r"], n), "c": rng.integers(0, 7, n).astype(float)})
     df.loc[rng.random(n) < 0.05, "a"] = None  # NULL group keys: a group of their own
@@ -123,6 +121,14 @@ def survey():
     df.loc[rng.random(n) < 0.03, "w"] = None
     df.loc[rng.random(n) < 0.05, "h"] = None  # a NULL stratum is a stratum, a NULL PSU a PSU (GROUP BY)
     df.loc[rng.random(n) < 0.05, "c"] = None
+    return df
+
+
+# ---- the window plan and the numpy reference ------------------------------------------------------
+
+@pytest.fixture(scope="module")
+def survey():
+    df = survey_rows(1002, 1600, 4)
     con = duckdb.connect()
     con.register("t", df)
     return con, df

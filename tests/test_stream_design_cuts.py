@@ -24,6 +24,7 @@ import pytest
 import uneven
 from test_numerics import DATA, rel
 from test_stream import assert_same_frames
+from test_stream_design import survey_rows
 from test_stream_se import EXACT_NAMES, Exact, exact_z
 from uneven.errors import UnevenError
 
@@ -106,16 +107,7 @@ def test_every_error_squared_matches_exact_fractions(name, batch):
 
 @pytest.fixture(scope="module")
 def survey():
-    rng = np.random.default_rng(1004)
-    n = 500
-    df = pd.DataFrame({"a": rng.integers(0, 3, n).astype(float), "b": rng.choice(["n", "s"], n),
-                       "x": rng.lognormal(1, 1, n).round(1), "w": rng.integers(0, 4, n).astype(float),
-                       "h": rng.choice(["p", "q", "r"], n), "c": rng.integers(0, 7, n).astype(float)})
-    df.loc[rng.random(n) < 0.05, "a"] = None  # NULL group keys: a group of their own
-    df.loc[rng.random(n) < 0.04, "x"] = None  # skipped rows
-    df.loc[rng.random(n) < 0.03, "w"] = None
-    df.loc[rng.random(n) < 0.05, "h"] = None  # a NULL stratum is a stratum, a NULL PSU a PSU (GROUP BY)
-    df.loc[rng.random(n) < 0.05, "c"] = None
+    df = survey_rows(1004, 500, 3)
     con = duckdb.connect()
     con.register("t", df)
     return con
