@@ -20,7 +20,7 @@ default; DuckDB's temp directory is checked for files left behind after each cas
   streamj     the same, the final SELECT joining the stream's table to the main GROUP BY (the joined
               form, plan.STREAM_DIRECT off)
   stream_p    the same, with the sorted batches read ahead on a thread (engine/stream.PREFETCH,
-              the default); every other stream case reads in the caller's thread
+              off by default); every other stream case reads in the caller's thread (the default)
   pandas      read the file, sort_values, groupby cumsum, the same formula       (vectorized pandas)
   sort_u, window_u, stream_u, streamj_u      the unweighted gini(x)
   warm, warm_u  stream_p and stream_u after a first query of the same shape on 100 rows in the same
@@ -58,7 +58,7 @@ TEN = ("gini(x, w), gini_corrected(x, w), lorenz(x, 0.3, w), top_share(x, 0.1, w
        "generalized_lorenz(x, 0.9, w)")
 CASES = ("sort", "window", "stream", "streamj", "stream_p", "pandas", "sort_u", "window_u", "stream_u", "streamj_u",
          "window10", "stream10")
-# further cases, window_<name> and stream_<name> (the stream reading ahead, as by default):
+# further cases, window_<name> and stream_<name> (the stream in the caller's thread, as by default):
 # curve  a Lorenz curve of 50 segments (today's auto: the window plan; refine takes k ≤ 20 only)
 # se     the weighted Gini and its linearized standard error (the linearized pass)
 # rep    the report's ordered pass: the curve beside theil, which fuses onto the window plan
@@ -139,7 +139,7 @@ def child(case: str, path: str, memory_limit: str, threads: int) -> dict:
     else:
         import uneven.compiler.plan
         import uneven.engine.stream
-        uneven.engine.stream.PREFETCH = case == "stream_p" or more is not None
+        uneven.engine.stream.PREFETCH = case == "stream_p"
         uneven.compiler.plan.STREAM_DIRECT = not case.startswith("streamj")
         plan = "stream" if case.startswith("stream") else "window"
         df = uneven.query(query, con, ordered=plan)

@@ -44,10 +44,12 @@ class StreamMemoryError(ExecutionError):
 # calls per batch), small enough that a batch of keys, x and w stays a few MB of the memory limit
 BATCH_ROWS = 1 << 16
 # read the batches ahead on a thread of their own while numpy reduces the last ones (engine/prefetch.py):
-# on, since it measured 0.93-0.94x the serial loop on an idle machine at 20M rows x 1000 groups (two runs);
-# on a busy one it measured 4-5% slower (DuckDB holds the GIL for about 60% of a batch's fetch, so only
-# the rest overlaps; bench/README.md, "Stream plan"). bench/stream.py's stream_p case measures both
-PREFETCH = True
+# off. It measured 0.93-0.94x the serial loop on an idle machine at 20M rows x 1000 groups while every
+# batch faulted its numpy temporaries in; since the heap keeps them (engine/heap.py) the numpy side is
+# small and the thread's hand-over costs more than it overlaps: 1.05x and 1.04x the serial loop there,
+# 1.10x and 0.88x over 1M groups of 6 rows (two idle runs; bench/README.md, "fourth round"; DuckDB
+# holds the GIL for about 60% of a batch's fetch). bench/stream.py's stream_p case measures both
+PREFETCH = False
 
 
 # stream the rows with the input checks in numpy (compiler/passes/stream_checks.py) where the job has
