@@ -125,14 +125,20 @@ FEW_SE = ("lorenz_se(x, 0.3, w, {d}) AS l_{s}, palma_ci_lo(x, w, {d}) AS pa_{s},
           "AS q_{s}, wolfson_se(x, w, {d}) AS wo_{s}, top_share_se(x, 0.2, {d}) AS tu_{s}")
 
 
-def test_every_error_matches_the_window_plan(survey, batch):
-    # every error with strata and PSUs, a few with strata alone and PSUs alone, weighted and unweighted:
-    # six streamed passes
-    sql = ("SELECT a, b, " + ", ".join((ALL_SE if s == "hc" else FEW_SE).format(d=d, s=s) for s, d in DESIGNS.items())
+def streamed_as_window(con, every: str, few: str) -> pd.DataFrame:
+    """``every`` error with strata and PSUs, the ``few`` with strata alone and PSUs alone (each a template
+    of {d} the design, {s} its suffix): six streamed passes, equal to the window plan's to 1e-12."""
+    sql = ("SELECT a, b, " + ", ".join((every if s == "hc" else few).format(d=d, s=s) for s, d in DESIGNS.items())
            + " FROM t GROUP BY a, b ORDER BY a, b")
-    assert [p["kind"] for p in uneven.explain(sql, survey, ordered="stream").passes] == ["stream"] * 6
-    got = uneven.query(sql, survey, ordered="stream")
-    assert_same_frames(got, uneven.query(sql, survey, ordered="window"), 1e-12)
+    assert [p["kind"] for p in uneven.explain(sql, con, ordered="stream").passes] == ["stream"] * 6
+    got = uneven.query(sql, con, ordered="stream")
+    assert_same_frames(got, uneven.query(sql, con, ordered="window"), 1e-12)
+    return got
+
+
+def test_every_error_matches_the_window_plan(survey, batch):
+    # every error with strata and PSUs, a few with strata alone and PSUs alone, weighted and unweighted
+    got = streamed_as_window(survey, ALL_SE, FEW_SE)
     assert (got.notna().sum() >= len(got) // 2).all()  # (the small NULL-key groups: strata of one PSU, NULL)
 
 

@@ -24,6 +24,7 @@ import uneven
 from test_numerics import DATA, rel
 from test_stream import assert_same_frames
 from test_stream_design import survey_rows
+from test_stream_design_cuts import streamed_as_window
 from test_stream_se_moment import exact_scores, mp_scores
 from uneven.errors import UnevenError
 
@@ -128,11 +129,7 @@ FEW_SE = ("theil_se(x, w, {d}) AS th_{s}, mld_se(x, w, {d}) AS ml_{s}, ge_ci_lo(
 def test_every_error_matches_the_window_plan(survey, batch):
     # every error with strata and PSUs beside the Gini's and a cut-based one (the cells shared by every error
     # of a pass), a few with strata alone and PSUs alone, weighted and unweighted: six streamed passes
-    sql = ("SELECT a, b, " + ", ".join((ALL_SE if s == "hc" else FEW_SE).format(d=d, s=s) for s, d in DESIGNS.items())
-           + " FROM t GROUP BY a, b ORDER BY a, b")
-    assert [p["kind"] for p in uneven.explain(sql, survey, ordered="stream").passes] == ["stream"] * 6
-    got = uneven.query(sql, survey, ordered="stream")
-    assert_same_frames(got, uneven.query(sql, survey, ordered="window"), 1e-12)
+    got = streamed_as_window(survey, ALL_SE, FEW_SE)
     # (a group whose NULL stratum holds one weighted row has no variance there: NULL, on both plans)
     assert (got.notna().sum() >= 3).all() and got.th_c.notna().all()
 
