@@ -124,6 +124,13 @@ def survey_rows(seed: int, n: int, keys: int) -> pd.DataFrame:
     return df
 
 
+def survey_table(seed: int, n: int, keys: int) -> duckdb.DuckDBPyConnection:
+    """A connection holding ``survey_rows`` as the table t."""
+    con = duckdb.connect()
+    con.register("t", survey_rows(seed, n, keys))
+    return con
+
+
 # ---- the window plan and the numpy reference ------------------------------------------------------
 
 @pytest.fixture(scope="module")

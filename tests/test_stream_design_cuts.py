@@ -24,7 +24,7 @@ import pytest
 import uneven
 from test_numerics import DATA, rel
 from test_stream import assert_same_frames
-from test_stream_design import survey_rows
+from test_stream_design import survey_table
 from test_stream_se import EXACT_NAMES, Exact, exact_z
 from uneven.errors import UnevenError
 
@@ -107,10 +107,7 @@ def test_every_error_squared_matches_exact_fractions(name, batch):
 
 @pytest.fixture(scope="module")
 def survey():
-    df = survey_rows(1004, 500, 3)
-    con = duckdb.connect()
-    con.register("t", df)
-    return con
+    return survey_table(1004, 500, 3)
 
 
 ALL_SE = ("lorenz_se(x, 0.3, w, {d}) AS l_{s}, bottom_share_ci_lo(x, 0.5, w, {d}) AS bl_{s}, "

@@ -23,7 +23,7 @@ import pytest
 import uneven
 from test_numerics import DATA, rel
 from test_stream import assert_same_frames
-from test_stream_design import survey_rows
+from test_stream_design import survey_table
 from test_stream_design_cuts import streamed_as_window
 from test_stream_se_moment import exact_scores, mp_scores
 from uneven.errors import UnevenError
@@ -110,10 +110,7 @@ def test_every_error_squared_matches_the_influence_functions(name, batch):
 
 @pytest.fixture(scope="module")
 def survey():
-    df = survey_rows(4207, 500, 3)
-    con = duckdb.connect()
-    con.register("t", df)
-    return con
+    return survey_table(4207, 500, 3)
 
 
 ALL_SE = ("theil_se(x, w, {d}) AS th_{s}, mld_ci_lo(x, w, {d}) AS ml_{s}, ge_se(x, 2, w, {d}) AS g2_{s}, "
