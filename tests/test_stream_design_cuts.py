@@ -254,14 +254,19 @@ def test_explain_auto_and_compile(survey):
     assert uneven.compile(sql, ordered="stream") == uneven.compile(sql, ordered="window")
 
 
-def test_strict_names_the_group_whose_stratum_has_one_psu():
-    # strict mode (docs/input-policy.md): a NULL becomes an UndefinedResultError naming the group, on both plans
+def strict_names_the_group(call: str) -> None:
+    """Strict mode (docs/input-policy.md): ``call`` (an error with strata h and PSUs c) is NULL for the group
+    g=2, whose second stratum has one PSU; strict, an UndefinedResultError names the group, on both plans."""
     con = duckdb.connect()
     con.register("t", pd.DataFrame({"g": [1, 1, 1, 1, 2, 2, 2, 2], "x": [1.0, 2.0, 3.0, 4.0, 1.0, 2.0, 3.0, 4.0],
                                     "w": [1.0, 2.0, 1.0, 1.0, 1.0, 2.0, 1.0, 1.0], "h": [0, 0, 1, 1, 0, 0, 1, 1],
                                     "c": [1, 2, 3, 4, 1, 2, 3, 3]}))
-    sql = "SELECT g, lorenz_se(x, 0.5, w, strata := h, psu := c) AS l FROM t GROUP BY g ORDER BY g"
-    assert uneven.query(sql, con, ordered="stream").l.isna().tolist() == [False, True]
+    sql = f"SELECT g, {call} AS e FROM t GROUP BY g ORDER BY g"
+    assert uneven.query(sql, con, ordered="stream").e.isna().tolist() == [False, True]
     for ordered in ("stream", "window"):
         with pytest.raises(uneven.UndefinedResultError, match="the group g=2"):
             uneven.query(sql, con, ordered=ordered, strict=True)
+
+
+def test_strict_names_the_group_whose_stratum_has_one_psu():
+    strict_names_the_group("lorenz_se(x, 0.5, w, strata := h, psu := c)")

@@ -24,7 +24,7 @@ import uneven
 from test_numerics import DATA, rel
 from test_stream import assert_same_frames
 from test_stream_design import survey_table
-from test_stream_design_cuts import streamed_as_window
+from test_stream_design_cuts import streamed_as_window, strict_names_the_group
 from test_stream_se_moment import exact_scores, mp_scores
 from uneven.errors import UnevenError
 
@@ -245,13 +245,4 @@ def test_explain_auto_and_compile(survey):
 
 
 def test_strict_names_the_group_whose_stratum_has_one_psu():
-    # strict mode (docs/input-policy.md): a NULL becomes an UndefinedResultError naming the group, on both plans
-    con = duckdb.connect()
-    con.register("t", pd.DataFrame({"g": [1, 1, 1, 1, 2, 2, 2, 2], "x": [1.0, 2.0, 3.0, 4.0, 1.0, 2.0, 3.0, 4.0],
-                                    "w": [1.0, 2.0, 1.0, 1.0, 1.0, 2.0, 1.0, 1.0], "h": [0, 0, 1, 1, 0, 0, 1, 1],
-                                    "c": [1, 2, 3, 4, 1, 2, 3, 3]}))
-    sql = "SELECT g, theil_se(x, w, strata := h, psu := c) AS th FROM t GROUP BY g ORDER BY g"
-    assert uneven.query(sql, con, ordered="stream").th.isna().tolist() == [False, True]
-    for ordered in ("stream", "window"):
-        with pytest.raises(uneven.UndefinedResultError, match="the group g=2"):
-            uneven.query(sql, con, ordered=ordered, strict=True)
+    strict_names_the_group("theil_se(x, w, strata := h, psu := c)")
