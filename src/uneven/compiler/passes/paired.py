@@ -19,12 +19,10 @@ from uneven.catalog.spec import PassKind
 from uneven.compiler.passes.source import (
     Source,
     build_results,
-    checked_value,
-    checked_weight,
+    checked_values,
     cte,
     grouped,
     table,
-    weight_label,
 )
 from uneven.sqltree import build as s
 
@@ -72,14 +70,7 @@ def lower_paired_pass(source: Source, main, plan, name: str) -> tuple[list[exp.C
 
     # both values checked as every pass checks its values (docs/input-policy.md): NaN or ±infinity stops
     # the query with the error naming the group, never a NULL difference
-    proj = source.key_projections() + [s.alias(checked_value(x, weight_label(x), source.keys), "_uv_x"),
-                                       s.alias(checked_value(y, weight_label(y), source.keys), "_uv_y")]
-    cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()),
-                  s.not_null(y.copy()))
-    if w is not None:
-        cw = checked_weight(w, weight_label(w), source.keys)
-        proj.append(s.alias(cw, "_uv_w"))
-        cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
+    proj, cond, _ = checked_values(source, [(x, "_uv_x"), (y, "_uv_y")], w, condition)
     rows = source.rows(proj, cond)
     keys = source.key_columns()
     wv = s.col("_uv_w") if w is not None else s.lit(1.0)

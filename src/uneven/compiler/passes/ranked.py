@@ -19,12 +19,10 @@ from uneven.catalog.spec import PassKind
 from uneven.compiler.passes.source import (
     Source,
     build_results,
-    checked_value,
-    checked_weight,
+    checked_values,
     cte,
     grouped,
     table,
-    weight_label,
 )
 from uneven.sqltree import build as s
 
@@ -93,17 +91,7 @@ def ranked_rows(source: Source, plan, names: list[str]) -> tuple[list[exp.Expres
     pass checks its values — NaN or ±infinity stops the query with the input policy's error naming the
     group (docs/input-policy.md) — under ``names``, the checked weight as ``_uv_w``; ``kept`` the FILTER
     and every value present, the row condition ``kept`` and the weight > 0."""
-    values = [plan.x, *plan.columns]
-    proj = source.key_projections() + [s.named(checked_value(v, weight_label(v), source.keys), n)
-                                       for v, n in zip(values, names)]
-    kept = s.and_(s.paren(plan.condition.copy()) if plan.condition is not None else None,
-                  *[s.not_null(v.copy()) for v in values])
-    cond = kept.copy()
-    if plan.trailing is not None:
-        cw = checked_weight(plan.trailing, weight_label(plan.trailing), source.keys)
-        proj.append(s.named(cw, "_uv_w"))
-        cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
-    return proj, cond, kept
+    return checked_values(source, list(zip([plan.x, *plan.columns], names)), plan.trailing, plan.condition)
 
 
 def lower_ranked_pass(source: Source, main, plan, name: str) -> tuple[list[exp.CTE], dict[tuple, exp.Expression]]:

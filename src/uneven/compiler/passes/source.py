@@ -47,9 +47,10 @@ class Source:
         return out
 
 
-def checked_weight(w: exp.Expression, label: str, keys: Sequence[exp.Expression] = ()) -> exp.Expression:
+def checked_weight(w: exp.Expression, keys: Sequence[exp.Expression] = ()) -> exp.Expression:
     """The weight as DOUBLE, aborting the query on a negative, NaN or infinite one (DuckDB ``error``);
     the message names the argument and, when ``keys`` are given, the group of the row."""
+    label = weight_label(w)
     wd = s.cast_double(w.copy())
     return exp.Case(ifs=[
         exp.If(this=s.lt(wd.copy(), s.lit(0.0)),
@@ -59,26 +60,40 @@ def checked_weight(w: exp.Expression, label: str, keys: Sequence[exp.Expression]
     ], default=wd.copy())
 
 
-def checked_value(x: exp.Expression, label: str, keys: Sequence[exp.Expression] = ()) -> exp.Expression:
+def checked_value(x: exp.Expression, keys: Sequence[exp.Expression] = ()) -> exp.Expression:
     """The value as DOUBLE, aborting the query on NaN or ±infinity (a sum over them would be NaN or
     infinite, never a usable measure); the message names the argument and the group of the row."""
     xd = s.cast_double(x.copy())
-    return s.case(not_finite(xd), row_error(f"uneven: NaN or infinite value in the value argument {label}", keys),
-                  xd.copy())
+    return s.case(not_finite(xd), row_error(f"uneven: NaN or infinite value in the value argument {weight_label(x)}",
+                                            keys), xd.copy())
 
 
 def checked_rows(source: Source, x: exp.Expression, w: exp.Expression | None,
                  condition: exp.Expression | None) -> tuple[list[exp.Expression], exp.Expression]:
     """(projections, row condition) of a pass that orders its rows by value (ordered, refine, stream):
-    the group keys, x checked as ``_uv_x`` and w checked as ``_uv_w`` (the input policy's errors name
-    the row's group); rows within ``condition`` (a FILTER) whose value is not NULL and weight > 0."""
-    proj = source.key_projections() + [s.named(checked_value(x, weight_label(x), source.keys), "_uv_x")]
-    cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
+    ``checked_values`` of x alone, as ``_uv_x``."""
+    proj, cond, _ = checked_values(source, [(x, "_uv_x")], w, condition)
+    return proj, cond
+
+
+def checked_values(source: Source, values: Sequence[tuple[exp.Expression, str]], w: exp.Expression | None,
+                   condition: exp.Expression | None, leading: Sequence[exp.Expression] = (),
+                   present: Sequence[exp.Expression] = ()) -> tuple[list[exp.Expression], exp.Expression,
+                                                                    exp.Expression]:
+    """(projections, row condition, kept) of a pass's rows under the input policy (docs/input-policy.md):
+    the group keys, the ``leading`` projections as they are, each (value, name) of ``values`` checked (NaN
+    or ±infinity stops the query with the error naming the row's group) and w checked as ``_uv_w``;
+    ``kept`` the FILTER ``condition`` with every value and each of ``present`` not NULL, the row
+    condition ``kept`` and the weight > 0."""
+    proj = source.key_projections() + list(leading) + [s.named(checked_value(v, source.keys), n) for v, n in values]
+    kept = s.and_(s.paren(condition.copy()) if condition is not None else None,
+                  *[s.not_null(v.copy()) for v, _ in values], *[s.not_null(p.copy()) for p in present])
+    cond = kept.copy()
     if w is not None:
-        cw = checked_weight(w, weight_label(w), source.keys)
+        cw = checked_weight(w, source.keys)
         proj.append(s.named(cw, "_uv_w"))
         cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
-    return proj, cond
+    return proj, cond, kept
 
 
 def binned_rows(source: Source, x: exp.Expression, w: exp.Expression | None, condition: exp.Expression | None,
@@ -101,11 +116,11 @@ def value_weight_rows(x: exp.Expression, w: exp.Expression | None, condition: ex
     and the checked weight as ``weight_name``; rows within ``condition`` (a FILTER or WHERE) whose
     value is not NULL and whose weight is > 0. With ``keys`` (the group keys, possibly none), x is
     checked too (NaN and ±infinity stop the query) and the errors name the row's group."""
-    xd = s.cast_double(x.copy()) if keys is None else checked_value(x, weight_label(x), keys)
+    xd = s.cast_double(x.copy()) if keys is None else checked_value(x, keys)
     proj: list[exp.Expression] = [s.alias(xd, "_uv_x")]
     cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()))
     if w is not None:
-        cw = checked_weight(w, weight_label(w), keys or ())
+        cw = checked_weight(w, keys or ())
         proj.append(s.alias(cw, weight_name))
         cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
     return proj, cond
@@ -113,7 +128,7 @@ def value_weight_rows(x: exp.Expression, w: exp.Expression | None, condition: ex
 
 def valid_value(x: exp.Expression, keys: Sequence[exp.Expression] = ()) -> exp.Expression:
     """Row condition: the value is not NULL, and (checked) finite."""
-    return s.not_null(checked_value(x, weight_label(x), keys))
+    return s.not_null(checked_value(x, keys))
 
 
 def not_finite(xd: exp.Expression) -> exp.Expression:

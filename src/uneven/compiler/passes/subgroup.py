@@ -15,11 +15,9 @@ from uneven.compiler.passes.columns import RowColumns
 from uneven.compiler.passes.source import (
     Source,
     build_results,
-    checked_value,
-    checked_weight,
+    checked_values,
     cte,
     grouped,
-    weight_label,
 )
 from uneven.sqltree import build as s
 
@@ -71,16 +69,9 @@ def lower_subgroup_pass(source: Source, main, plan, name: str) -> tuple[list[exp
     ctx = SubgroupContext(weighted=w is not None)
     out_cols, results = build_results(plan.calls, ctx, name)
 
-    xd = checked_value(x, weight_label(x), source.keys)  # (the input policy: NaN or ±infinity stops the query)
-    cond = s.and_(s.paren(condition.copy()) if condition is not None else None, s.not_null(x.copy()),
-                  s.not_null(subgroup.copy()))
-    inner = exp.Select(expressions=source.key_projections() + [s.alias(subgroup.copy(), "_uv_g"),
-                                                               s.alias(xd, "_uv_x")])
-    if w is not None:
-        cw = checked_weight(w, weight_label(w), source.keys)
-        inner.select(s.alias(cw, "_uv_w"), copy=False)
-        cond = s.and_(cond, s.gt(cw.copy(), s.lit(0.0)))
-    rows = source.rows(inner.expressions, cond)
+    proj, cond, _ = checked_values(source, [(x, "_uv_x")], w, condition,
+                                   leading=[s.alias(subgroup, "_uv_g")], present=[subgroup])
+    rows = source.rows(proj, cond)
     sub = exp.Select(expressions=source.key_columns() + [s.alias(e, n) for n, e in ctx.sums.values()])
     sub = sub.from_(exp.Subquery(this=rows, alias=exp.TableAlias(this=exp.to_identifier("_uv_r", quoted=True))))
     sub.set("group", exp.Group(expressions=source.key_columns() + [s.col("_uv_g")]))
