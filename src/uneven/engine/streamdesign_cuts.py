@@ -148,13 +148,14 @@ def segment_values(needs: list[Need], acc, x: np.ndarray, d: np.ndarray, w: np.n
     found = np.empty((nseg, len(quantiles)))
     out: dict = {}
     cols = []
-    mu = None
-    m_row = m[0] if nseg == 1 else np.repeat(m, lens)  # each row's group smallest value (FGT's shifted gap)
+    mu = m_row = None
     for kind, p in terms:
         if streamse_moment.is_moment_kind(kind):  # the moment measures' terms in r = x/μ
             if mu is None:
                 assert tt is not None  # (the totals query sums w·x for them: kernels_se_moment.reads_mean)
                 mu = streamse_moment.mean_rows(tt, wt, lens)
+                m_row = m[0] if nseg == 1 else np.repeat(m, lens)  # each row's group smallest value (FGT's gap)
+            assert m_row is not None
             col, extra = streamse_moment.term(kind, p, x, ww, mu, m_row), None
             # NaN only where the term's own estimate is NULL (μ where T ≤ 0, ln r where r ≤ 0 …); the cells
             # are shared by every error of the pass (0·NaN is NaN), so such rows add 0 instead
